@@ -1,0 +1,56 @@
+# corpusmill: raw text folder → cleaned, tokenized, vocabulary-mapped, windowed, split Parquet shards.
+# Stages, in order (rules/*.smk): prepare → deduplicate → count → vocabulary → encode → shard
+# → coverage → manifest. The logic of every stage lives in steps/; each rule runs one step.
+
+import json
+import sys
+
+from snakemake.utils import min_version
+
+min_version("9.18")
+
+sys.path.insert(0, workflow.basedir)
+from steps import settings
+from steps.ingest import CorpusError
+from steps.plan import Plan, code_hash
+
+configfile: os.path.join(workflow.basedir, "workflow_config", "config.yaml")
+
+try:
+    CONFIG = settings.resolve(config)
+    PLAN = Plan.from_config(CONFIG)
+except (settings.ConfigError, CorpusError) as error:
+    sys.exit(f"corpusmill: {error}")
+
+L = PLAN.layout
+PY = f"PYTHONPATH={workflow.basedir!r} {sys.executable!r}"
+
+
+def step(name, args):
+    """Shell command running steps.<name>; output goes to the job's log, whose end is shown on failure."""
+    return "{{ " + PY + " -m steps." + name + " " + args + " ; }} > {log} 2>&1 || {{ tail -n 20 {log} >&2; exit 1; }}"
+
+
+wildcard_constraints:
+    chunk=r"[^/]+",
+    split=r"train|dev|test",
+    part=r"\d{4}",
+
+include: "rules/prepare.smk"
+include: "rules/vocabulary.smk"
+include: "rules/shards.smk"
+include: "rules/manifest.smk"
+
+
+rule all:
+    input:
+        L.manifest,
+        L.coverage,
+    default_target: True
+
+
+onsuccess:
+    from steps.report import format_table
+
+    if os.path.exists(L.coverage):
+        print(format_table(settings.read_json(L.coverage)), file=sys.stderr)

@@ -1,0 +1,42 @@
+# Per-chunk reading, cleaning, segmentation and split; then corpus-wide duplicate removal.
+
+rule prepare:
+    input:
+        source=lambda w: os.path.join(PLAN.root, PLAN.chunk(w.chunk).source),
+    output:
+        table=L.prepared("{chunk}"),
+        tally=L.tally("{chunk}"),
+    log:
+        L.log("prepare", "{chunk}"),
+    params:
+        root=PLAN.root,
+        source=lambda w: PLAN.chunk(w.chunk).source,
+        chunk_index=lambda w: PLAN.chunk(w.chunk).index,
+        chunks=lambda w: PLAN.chunk(w.chunk).count,
+        options=PLAN.options("prepare"),
+        code=code_hash("prepare"),
+    threads: 1
+    resources:
+        mem_mb=CONFIG["resources"]["prepare_mem_mb"],
+        runtime=CONFIG["resources"]["runtime_min"],
+    shell:
+        step("prepare", "--root {params.root:q} --source {params.source:q} --chunk {params.chunk_index} "
+             "--chunks {params.chunks} --options {params.options:q} --output {output.table:q} --tally {output.tally:q}")
+
+
+rule deduplicate:
+    input:
+        tables=[L.prepared(c) for c in PLAN.chunk_keys],
+    output:
+        L.duplicates,
+    log:
+        L.log("deduplicate"),
+    params:
+        enabled=str(CONFIG["split"]["deduplicate"]).lower(),
+        code=code_hash("deduplicate"),
+    threads: 1
+    resources:
+        mem_mb=CONFIG["resources"]["aggregate_mem_mb"],
+        runtime=CONFIG["resources"]["runtime_min"],
+    shell:
+        step("split", "--enabled {params.enabled} --output {output:q} {input.tables:q}")

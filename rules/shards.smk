@@ -1,0 +1,22 @@
+# One job per part of each split: gather that part from every chunk, cut rows, write shards.
+
+rule shard:
+    input:
+        parts=lambda w: [L.encoded(c, w.split, w.part) for c in PLAN.chunk_keys],
+        vocabulary=L.vocabulary,
+    output:
+        **PLAN.shard_files("{split}", "{part}"),
+        stats=L.shard_stats("{split}", "{part}"),
+    log:
+        L.log("shard", "{split}-{part}"),
+    params:
+        outputs=lambda w, output: " ".join(f"--output {kind}={getattr(output, kind)}" for kind in PLAN.kinds),
+        options=PLAN.options("shard"),
+        code=code_hash("shard"),
+    threads: 1
+    resources:
+        mem_mb=CONFIG["resources"]["shard_mem_mb"],
+        runtime=CONFIG["resources"]["runtime_min"],
+    shell:
+        step("shards", "--split {wildcards.split} --part {wildcards.part} --vocabulary {input.vocabulary:q} "
+             "--options {params.options:q} --stats {output.stats:q} {params.outputs} {input.parts:q}")

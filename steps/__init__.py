@@ -1,0 +1,1 @@
+"""corpusmill steps: the logic of each workflow stage as plain, importable functions."""

@@ -1,0 +1,75 @@
+"""Clean: line ends, control and invisible format characters, Unicode normalization, whitespace,
+optional lowercasing and digit folding, and the document filters.
+
+Format characters that carry meaning are kept: the zero-width joiner and non-joiner (emoji
+sequences, Indic and Persian orthography) and the tag characters of emoji tag sequences.
+"""
+
+from __future__ import annotations
+
+import unicodedata
+from dataclasses import dataclass
+
+import regex
+
+_LINE_ENDS = regex.compile(r"\r\n?")
+_CONTROLS = regex.compile(r"[\p{Cc}--[\t\n]]+", regex.V1)
+_FORMATS = regex.compile(r"[\p{Cf}--[\u200c\u200d\U000E0020-\U000E007F]]+", regex.V1)
+_SPACES = regex.compile(r"[^\S\n]+")
+_SPACED_NEWLINE = regex.compile(r" ?\n ?")
+_NEWLINE_RUNS = regex.compile(r"\n{3,}")
+_DIGITS = regex.compile(r"\p{Nd}")
+_NON_LETTERS = regex.compile(r"\P{L}+", regex.V1)
+
+FORMS = ("NFC", "NFD", "NFKC", "NFKD")
+
+
+@dataclass(frozen=True)
+class CleanOptions:
+    normalization: str = "NFC"
+    lowercase: bool = False
+    digits: str = "keep"
+    min_letters: int = 2
+    min_letter_share: float = 0.5
+
+    @classmethod
+    def from_config(cls, clean: dict) -> "CleanOptions":
+        return cls(**clean)
+
+
+def normalize(text: str, form: str) -> str:
+    """Unicode normalization (UAX #15) in one of NFC, NFD, NFKC, NFKD."""
+    if form not in FORMS:
+        raise ValueError(f"unknown normalization form {form!r}; allowed: {', '.join(FORMS)}")
+    return unicodedata.normalize(form, text)
+
+
+def clean_text(text: str, options: CleanOptions) -> str:
+    """Return the cleaned text: LF line ends, single spaces, at most one blank line in a row."""
+    text = _LINE_ENDS.sub("\n", text)
+    if not text.isascii():
+        text = _FORMATS.sub("", text)
+        if options.normalization != "none":
+            text = normalize(text, options.normalization)
+    text = _CONTROLS.sub(" ", text)
+    text = _SPACES.sub(" ", text)
+    text = _SPACED_NEWLINE.sub("\n", text)
+    text = _NEWLINE_RUNS.sub("\n\n", text).strip()
+    if options.lowercase:
+        text = text.lower()
+    if options.digits == "zero":
+        text = _DIGITS.sub("0", text)
+    return text
+
+
+def rejection(text: str, options: CleanOptions) -> str | None:
+    """The reason a cleaned document is dropped ("empty", "too_short", "few_letters"), or None."""
+    if not text:
+        return "empty"
+    letters = len(_NON_LETTERS.sub("", text))
+    if letters < options.min_letters:
+        return "too_short"
+    visible = len(text) - text.count(" ") - text.count("\n")
+    if letters < options.min_letter_share * visible:
+        return "few_letters"
+    return None

@@ -1,0 +1,474 @@
+"""Ingest: find input files, cut large ones into chunks at document boundaries, read documents.
+
+A chunk k of an uncompressed file owns the documents that *start* inside bytes
+[k*S, (k+1)*S): it seeks to k*S, skips to the next document start and reads past its end to
+finish its last document. Every document therefore belongs to exactly one chunk, and the chunk
+size never changes which documents exist. Compressed files cannot seek and are one chunk each.
+A document's id is its JSONL id field when configured, else `relative/path:byte_offset` (the
+offset in the uncompressed text where it starts), which orders documents like an ordinal.
+"""
+
+from __future__ import annotations
+
+import bz2
+import codecs
+import gzip
+import hashlib
+import io
+import json
+import lzma
+import re
+from collections import Counter
+from collections.abc import Iterator
+from dataclasses import dataclass, field
+from pathlib import Path, PurePosixPath
+from typing import BinaryIO
+
+import regex
+import zstandard
+
+COMPRESSIONS = (".gz", ".bz2", ".xz", ".zst")
+FORMATS = (".txt", ".jsonl")
+READ_BLOCK = 1 << 20
+_TERMINATOR = re.compile(rb"\r\n|\n|\r")
+_BLANK_BYTES = b" \t\r\n\f\v"
+_GRAPHEME = regex.compile(r"\X", regex.V1)
+
+
+class CorpusError(Exception):
+    """A problem in the input that the user must fix; the message names the file and position."""
+
+
+@dataclass(frozen=True)
+class Chunk:
+    """One job's share of one input file."""
+
+    key: str
+    source: str
+    index: int
+    count: int
+
+    @property
+    def compressed(self) -> bool:
+        return split_name(self.source)[1] != ""
+
+
+@dataclass(frozen=True)
+class Document:
+    doc_id: str
+    source: str
+    offset: int
+    text: str
+
+
+@dataclass
+class Tally:
+    """What happened to the documents of one chunk: read = kept + dropped (+ split pieces)."""
+
+    read: int = 0
+    pieces_added: int = 0
+    truncated: int = 0
+    replaced_sequences: int = 0
+    kept: int = 0
+    dropped: Counter[str] = field(default_factory=Counter)
+
+    def drop(self, reason: str) -> None:
+        self.dropped[reason] += 1
+
+    def as_dict(self) -> dict[str, object]:
+        return {
+            "read": self.read,
+            "pieces_added": self.pieces_added,
+            "truncated": self.truncated,
+            "replaced_sequences": self.replaced_sequences,
+            "kept": self.kept,
+            "dropped": dict(sorted(self.dropped.items())),
+        }
+
+
+@dataclass(frozen=True)
+class ReadOptions:
+    text_unit: str = "paragraph"
+    jsonl_text_field: str = "text"
+    jsonl_id_field: str | None = "id"
+    bad_records: str = "stop"
+    invalid_utf8: str = "stop"
+    max_document_bytes: int = 1 << 20
+    oversize: str = "split"
+    max_decompressed_bytes: int = 8 << 30
+
+    @classmethod
+    def from_config(cls, corpus: dict) -> "ReadOptions":
+        return cls(
+            text_unit=corpus["text_unit"],
+            jsonl_text_field=corpus["jsonl_text_field"],
+            jsonl_id_field=corpus["jsonl_id_field"],
+            bad_records=corpus["bad_records"],
+            invalid_utf8=corpus["invalid_utf8"],
+            max_document_bytes=corpus["max_document_bytes"],
+            oversize=corpus["oversize"],
+            max_decompressed_bytes=corpus["max_decompressed_mb"] << 20,
+        )
+
+
+def split_name(name: str) -> tuple[str, str]:
+    """Return (format, compression) of a file name, e.g. ('.jsonl', '.gz'); format '' if unknown."""
+    lower = name.lower()
+    compression = next((c for c in COMPRESSIONS if lower.endswith(c)), "")
+    stem = lower[: len(lower) - len(compression)]
+    return next((f for f in FORMATS if stem.endswith(f)), ""), compression
+
+
+def find_inputs(root: str | Path, include: list[str], exclude: list[str]) -> list[str]:
+    """Relative POSIX paths of the regular files under root matching include and not exclude."""
+    base = Path(root)
+    if not base.is_dir():
+        raise CorpusError(f"{root}: corpus root is not a folder; set corpus.root to the folder holding your text")
+    found: set[str] = set()
+    for pattern in include:
+        found.update(p.relative_to(base).as_posix() for p in base.glob(pattern) if p.is_file())
+    dropped = {p for p in found for pattern in exclude if PurePosixPath(p).full_match(pattern)}
+    chosen = sorted(found - dropped)
+    unknown = [p for p in chosen if not split_name(p)[0]]
+    if unknown:
+        raise CorpusError(
+            f"{base / unknown[0]}: not a .txt or .jsonl file (optionally .gz/.bz2/.xz/.zst); "
+            "narrow corpus.include or add it to corpus.exclude"
+        )
+    return chosen
+
+
+def chunk_key(source: str, index: int) -> str:
+    """A readable, stable job name for a chunk: file stem, a short path hash, the chunk index."""
+    stem = re.sub(r"[^A-Za-z0-9_.-]+", "_", PurePosixPath(source).name)[:40]
+    digest = hashlib.sha1(source.encode("utf-8")).hexdigest()[:8]
+    return f"{stem}-{digest}-{index:04d}"
+
+
+def plan_chunks(root: str | Path, sources: list[str], chunk_bytes: int, text_unit: str) -> list[Chunk]:
+    """Chunks from file sizes alone (no reading), in corpus order (path, then index)."""
+    chunks = []
+    for source in sources:
+        fmt, compression = split_name(source)
+        size = (Path(root) / source).stat().st_size
+        whole = compression or (fmt == ".txt" and text_unit == "file")
+        count = 1 if whole else max(1, -(-size // chunk_bytes))
+        chunks.extend(Chunk(chunk_key(source, k), source, k, count) for k in range(count))
+    return chunks
+
+
+class _BoundedReader(io.RawIOBase):
+    """Decompressed stream that stops with a clear error past a size limit (decompression bombs)."""
+
+    def __init__(self, inner: BinaryIO, limit: int, path: str) -> None:
+        self._inner, self._limit, self._path, self.position = inner, limit, path, 0
+
+    def readable(self) -> bool:
+        return True
+
+    def readinto(self, buffer: bytearray) -> int:  # type: ignore[override]
+        try:
+            data = self._inner.read(len(buffer))
+        except (EOFError, OSError, lzma.LZMAError, zstandard.ZstdError) as error:
+            raise CorpusError(
+                f"{self._path}: compressed data is damaged or truncated after {self.position} bytes of text ({error}); "
+                "re-create or re-download the file"
+            ) from error
+        self.position += len(data)
+        if self.position > self._limit:
+            raise CorpusError(
+                f"{self._path}: expands beyond corpus.max_decompressed_mb ({self._limit >> 20} MiB); "
+                "check the file (a decompression bomb?) or raise the limit"
+            )
+        buffer[: len(data)] = data
+        return len(data)
+
+
+def open_source(path: Path, max_decompressed_bytes: int) -> BinaryIO:
+    """Open a file as a binary stream of its (decompressed) bytes."""
+    compression = split_name(path.name)[1]
+    if not compression:
+        return open(path, "rb")
+    raw = open(path, "rb")
+    inner: BinaryIO
+    if compression == ".gz":
+        inner = gzip.GzipFile(fileobj=raw)
+    elif compression == ".bz2":
+        inner = bz2.BZ2File(raw)
+    elif compression == ".xz":
+        inner = lzma.LZMAFile(raw)
+    else:
+        inner = zstandard.ZstdDecompressor().stream_reader(raw, read_across_frames=True)
+    return io.BufferedReader(_BoundedReader(inner, max_decompressed_bytes, str(path)), READ_BLOCK)
+
+
+def _lines(stream: BinaryIO, offset: int, limit: int) -> Iterator[tuple[int, bytes, bool]]:
+    """Yield (offset, bytes with terminator, complete) for LF, CRLF or lone-CR lines.
+
+    A line longer than `limit` comes in pieces of `limit` bytes marked incomplete, so no line
+    is ever held whole in memory.
+    """
+    pending = b""
+    while True:
+        block = stream.read(READ_BLOCK)
+        if not block:
+            if pending:
+                yield offset, pending, True
+            return
+        data = pending + block
+        position = 0
+        for match in _TERMINATOR.finditer(data):
+            if match.end() == len(data) and match.group() == b"\r":
+                break  # could be the first half of CRLF: decide with the next block
+            yield offset + position, data[position : match.end()], True
+            position = match.end()
+        offset += position
+        rest = data[position:]
+        while len(rest) > limit:
+            yield offset, rest[:limit], False
+            offset += limit
+            rest = rest[limit:]
+        pending = rest
+
+
+def _first_line_start(handle: BinaryIO, start: int) -> tuple[int, bool]:
+    """For a chunk starting at byte `start`, find the first line start >= start and whether the
+    line before it is blank (a paragraph may begin there)."""
+    if start == 0:
+        return 0, True
+    handle.seek(start - 1)
+    position = start - 1  # file offset of the block's first byte
+    while True:
+        block = handle.read(READ_BLOCK)
+        if not block:
+            return position, True
+        match = _TERMINATOR.search(block)
+        if match is None:
+            position += len(block)
+            continue
+        line_start = position + match.end()
+        if match.group() == b"\r" and match.end() == len(block) and handle.read(1) == b"\n":
+            line_start += 1
+        return line_start, _previous_line_blank(handle, line_start)
+
+
+def _previous_line_blank(handle: BinaryIO, line_start: int) -> bool:
+    """Whether the line that ends just before `line_start` holds only blanks (scanning back)."""
+    position = line_start
+    handle.seek(max(0, position - 2))
+    tail = handle.read(min(2, position))
+    back = len(tail)
+    if tail.endswith(b"\r\n"):
+        back = 2
+    elif tail.endswith((b"\n", b"\r")):
+        back = 1
+    position -= back if tail else 0
+    while position > 0:
+        step = min(READ_BLOCK, position)
+        handle.seek(position - step)
+        block = handle.read(step)
+        stripped = block.rstrip(b" \t\f\v")
+        if stripped == b"":
+            position -= step
+            continue
+        return stripped[-1:] in (b"\n", b"\r")
+    return True
+
+
+def _grapheme_cut(data: bytes) -> int:
+    """Byte index of the last grapheme-cluster boundary before the final (maybe incomplete) cluster."""
+    text = data.decode("utf-8", "surrogateescape")
+    last = None
+    for last in _GRAPHEME.finditer(text):
+        pass
+    if last is None or last.start() == 0:
+        return len(data)
+    return len(text[: last.start()].encode("utf-8", "surrogateescape"))
+
+
+class _Assembler:
+    """Collects the byte pieces of one document and applies the size limit policy."""
+
+    def __init__(self, limit: int, policy: str, tally: Tally) -> None:
+        self.limit, self.policy, self.tally = limit, policy, tally
+        self.start: int | None = None
+        self.parts: list[bytes] = []
+        self.size = 0
+        self.oversized = False
+
+    def begin(self, offset: int) -> None:
+        self.start, self.parts, self.size, self.oversized = offset, [], 0, False
+
+    def add(self, data: bytes) -> Iterator[tuple[int, bytes]]:
+        if self.oversized and self.policy != "split":
+            return
+        self.parts.append(data)
+        self.size += len(data)
+        while self.size > self.limit:
+            if not self.oversized:
+                self.oversized = True
+                if self.policy == "split":
+                    self.tally.read += 1
+            buffer = b"".join(self.parts)
+            if self.policy == "drop":
+                self.parts, self.size = [], 0
+                return
+            cut = _grapheme_cut(buffer[: self.limit])
+            piece, rest = buffer[:cut], buffer[cut:]
+            assert self.start is not None
+            if self.policy == "truncate":
+                self.parts, self.size = [piece], len(piece)
+                return
+            yield self.start, piece
+            self.tally.pieces_added += 1
+            self.start += cut
+            self.parts, self.size = [rest], len(rest)
+
+    def finish(self) -> Iterator[tuple[int, bytes]]:
+        if self.start is None:
+            return
+        start, data = self.start, b"".join(self.parts)
+        self.start = None
+        if self.oversized and self.policy == "drop":
+            self.tally.read += 1
+            self.tally.drop("oversize")
+            return
+        if not self.oversized or self.policy == "truncate":
+            self.tally.read += 1
+        if self.oversized and self.policy == "truncate":
+            self.tally.truncated += 1
+        yield start, data
+
+
+def _raw_text_documents(
+    handle: BinaryIO, chunk: Chunk, chunk_bytes: int, options: ReadOptions, tally: Tally
+) -> Iterator[tuple[int, bytes]]:
+    """Byte ranges of the documents of a .txt chunk: (offset, bytes)."""
+    unit = options.text_unit
+    assembler = _Assembler(options.max_document_bytes, options.oversize, tally)
+    end = (chunk.index + 1) * chunk_bytes if chunk.index + 1 < chunk.count else None
+    if chunk.compressed or chunk.count == 1:
+        offset, previous_blank = 0, True
+    else:
+        offset, previous_blank = _first_line_start(handle, chunk.index * chunk_bytes)
+        handle.seek(offset)
+    inside = False
+    line_open = False  # the previous piece was an incomplete line
+    for position, data, complete in _lines(handle, offset, options.max_document_bytes):
+        blank = complete and not line_open and data.strip(_BLANK_BYTES) == b""
+        starts_line = not line_open
+        line_open = not complete
+        if unit == "file":
+            if not inside:
+                assembler.begin(position)
+                inside = True
+            yield from assembler.add(data)
+            continue
+        if blank:
+            if inside:
+                yield from assembler.finish()
+                inside = False
+            previous_blank = True
+            continue
+        if not inside and starts_line:
+            if unit == "line" or previous_blank:
+                if end is not None and position >= end:
+                    return
+                assembler.begin(position)
+                inside = True
+            previous_blank = False
+        if inside:
+            yield from assembler.add(data)
+            if unit == "line" and complete:
+                yield from assembler.finish()
+                inside = False
+    if inside:
+        yield from assembler.finish()
+
+
+def _decoder(options: ReadOptions, tally: Tally, path: str):
+    """A function decoding one document's bytes per the invalid-UTF-8 policy (None = drop)."""
+
+    def decode(offset: int, data: bytes) -> str | None:
+        if offset == 0 and data.startswith(codecs.BOM_UTF8):
+            data = data[3:]
+        try:
+            return data.decode("utf-8")
+        except UnicodeDecodeError as error:
+            if options.invalid_utf8 == "stop":
+                raise CorpusError(
+                    f"{path}: invalid UTF-8 at byte offset {offset + error.start} ({error.reason}); "
+                    "re-encode the file as UTF-8 (e.g. iconv -f LATIN1 -t UTF-8) or set corpus.invalid_utf8 "
+                    "to replace or drop"
+                ) from None
+            if options.invalid_utf8 == "drop":
+                tally.drop("invalid_utf8")
+                return None
+            text = data.decode("utf-8", "replace")
+            tally.replaced_sequences += text.count("\ufffd") - data.count("\ufffd".encode())
+            return text
+
+    return decode
+
+
+def _json_documents(
+    handle: BinaryIO, chunk: Chunk, chunk_bytes: int, options: ReadOptions, tally: Tally, path: str
+) -> Iterator[Document]:
+    end = (chunk.index + 1) * chunk_bytes if chunk.index + 1 < chunk.count else None
+    offset = 0
+    if not (chunk.compressed or chunk.count == 1):
+        offset, _ = _first_line_start(handle, chunk.index * chunk_bytes)
+        handle.seek(offset)
+    decode = _decoder(options, tally, path)
+    skipping = False
+    for position, data, complete in _lines(handle, offset, options.max_document_bytes):
+        if skipping:
+            skipping = not complete
+            continue
+        if end is not None and position >= end:
+            return
+        if complete and data.strip(_BLANK_BYTES) == b"":
+            continue
+        tally.read += 1
+        if not complete:
+            tally.drop("oversize")  # a JSON record cannot be split; its line is skipped whole
+            skipping = True
+            continue
+        text = decode(position, data)
+        if text is None:
+            continue
+        problem, record = None, None
+        try:
+            record = json.loads(text)
+        except json.JSONDecodeError as error:
+            problem, reason = f"not valid JSON ({error.msg} at column {error.colno})", "bad_json"
+        if problem is None:
+            value = record.get(options.jsonl_text_field) if isinstance(record, dict) else None
+            if not isinstance(value, str):
+                problem, reason = f"no string field {options.jsonl_text_field!r}", "no_text"
+        if problem is not None:
+            if options.bad_records == "stop":
+                raise CorpusError(
+                    f"{path}: record at byte offset {position}: {problem}; fix the line, set "
+                    "corpus.jsonl_text_field, or set corpus.bad_records to drop"
+                )
+            tally.drop(reason)
+            continue
+        raw_id = record.get(options.jsonl_id_field) if options.jsonl_id_field else None
+        doc_id = str(raw_id) if isinstance(raw_id, (str, int)) and not isinstance(raw_id, bool) else f"{chunk.source}:{position}"
+        yield Document(doc_id, chunk.source, position, value)
+
+
+def read_documents(root: str | Path, chunk: Chunk, chunk_bytes: int, options: ReadOptions, tally: Tally) -> Iterator[Document]:
+    """Stream the documents a chunk owns, in file order, counting every one in `tally`."""
+    path = Path(root) / chunk.source
+    fmt = split_name(chunk.source)[0]
+    with open_source(path, options.max_decompressed_bytes) as handle:
+        if fmt == ".jsonl":
+            yield from _json_documents(handle, chunk, chunk_bytes, options, tally, str(path))
+            return
+        decode = _decoder(options, tally, str(path))
+        for offset, data in _raw_text_documents(handle, chunk, chunk_bytes, options, tally):
+            text = decode(offset, data)
+            if text is not None:
+                yield Document(f"{chunk.source}:{offset}", chunk.source, offset, text)

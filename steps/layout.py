@@ -1,0 +1,89 @@
+"""Where every file of a build lives, in one place, so the Snakefile, the steps and the docs agree."""
+
+from __future__ import annotations
+
+from dataclasses import dataclass
+from pathlib import Path
+
+SPLITS = ("train", "dev", "test")
+KINDS = ("ngram", "block", "stream")
+
+
+def _part(part: int | str) -> str:
+    """Parts are four digits in file names; a string (e.g. a wildcard) is used as given."""
+    return f"{part:04d}" if isinstance(part, int) else part
+
+
+@dataclass(frozen=True)
+class Layout:
+    """Paths inside one build folder. Public results sit at the top; intermediates under work/."""
+
+    root: str
+
+    def _join(self, *parts: str) -> str:
+        return str(Path(self.root, *parts))
+
+    # Public results.
+    @property
+    def manifest(self) -> str:
+        return self._join("manifest.json")
+
+    @property
+    def vocabulary(self) -> str:
+        return self._join("vocabulary.tsv")
+
+    @property
+    def subword_model(self) -> str:
+        return self._join("subword.model")
+
+    @property
+    def coverage(self) -> str:
+        return self._join("stats", "coverage.json")
+
+    @property
+    def token_counts(self) -> str:
+        return self._join("stats", "token_counts.parquet")
+
+    @property
+    def report(self) -> str:
+        return self._join("report", "index.html")
+
+    def shard(self, split: str, kind: str, part: int | str) -> str:
+        return self._join("shards", split, f"{kind}-{_part(part)}.parquet")
+
+    def shards_dir(self) -> str:
+        return self._join("shards")
+
+    # Intermediates, one set per input chunk.
+    def prepared(self, chunk: str) -> str:
+        return self._join("work", "prepared", f"{chunk}.parquet")
+
+    def tally(self, chunk: str) -> str:
+        return self._join("work", "prepared", f"{chunk}.tally.json")
+
+    def counts(self, chunk: str) -> str:
+        return self._join("work", "counts", f"{chunk}.parquet")
+
+    def encoded(self, chunk: str, split: str, part: int | str) -> str:
+        return self._join("work", "encoded", chunk, f"{split}-{_part(part)}.parquet")
+
+    def encode_stats(self, chunk: str) -> str:
+        return self._join("work", "encoded", chunk, "stats.json")
+
+    def shard_stats(self, split: str, part: int | str) -> str:
+        return self._join("work", "shards", f"{split}-{_part(part)}.json")
+
+    @property
+    def duplicates(self) -> str:
+        return self._join("work", "duplicates.parquet")
+
+    @property
+    def abbreviations(self) -> str:
+        return self._join("work", "abbreviations.txt")
+
+    @property
+    def subword_sample(self) -> str:
+        return self._join("work", "subword", "train_sample.txt")
+
+    def log(self, rule: str, name: str = "") -> str:
+        return self._join("logs", rule, f"{name or rule}.log")

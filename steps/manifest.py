@@ -1,0 +1,137 @@
+"""Manifest: one JSON file describing a build completely, with nothing that varies between runs.
+
+It records the resolved configuration and its hash, a fingerprint of every input file, the
+vocabulary hash, per-split figures, every shard file with its rows and SHA-256, and the
+document accounting: read + pieces added by splitting = kept + dropped (by reason).
+"""
+
+from __future__ import annotations
+
+import argparse
+import hashlib
+import json
+from collections import Counter
+from collections.abc import Sequence
+from pathlib import Path
+
+import pyarrow.parquet as pq
+
+from steps.layout import SPLITS
+from steps.settings import digest, read_json
+from steps.storage import write_json
+from steps.vocab import read_vocabulary
+
+SCHEMA_VERSION = 1
+
+
+def file_sha256(path: str | Path) -> str:
+    hasher = hashlib.sha256()
+    with open(path, "rb") as handle:
+        while block := handle.read(1 << 22):
+            hasher.update(block)
+    return hasher.hexdigest()
+
+
+def accounting(tallies: Sequence[dict], duplicates: int) -> dict:
+    dropped: Counter[str] = Counter()
+    read = pieces = kept = replaced = truncated = 0
+    for tally in tallies:
+        read += tally["read"]
+        pieces += tally["pieces_added"]
+        kept += tally["kept"]
+        replaced += tally["replaced_sequences"]
+        truncated += tally["truncated"]
+        dropped.update(tally["dropped"])
+    if duplicates:
+        dropped["duplicate"] += duplicates
+    kept -= duplicates
+    return {
+        "read": read,
+        "pieces_added": pieces,
+        "kept": kept,
+        "dropped": dict(sorted(dropped.items())),
+        "truncated": truncated,
+        "replaced_sequences": replaced,
+        "balanced": read + pieces == kept + sum(dropped.values()),
+    }
+
+
+def build_manifest(
+    config: dict,
+    root: str,
+    sources: Sequence[str],
+    build_dir: str,
+    tallies: Sequence[dict],
+    duplicates: int,
+    part_stats: dict[tuple[str, int], dict],
+    shards: dict[tuple[str, int], dict[str, str]],
+    extra_files: Sequence[str],
+) -> dict:
+    base = Path(build_dir)
+    vocabulary = read_vocabulary(base / "vocabulary.tsv")
+    splits = {}
+    for split in SPLITS:
+        figures = {"documents": 0, "sentences": 0, "tokens": 0, "rows": {}, "shards": []}
+        for (name, part), stats in sorted(part_stats.items()):
+            if name != split:
+                continue
+            for key in ("documents", "sentences", "tokens"):
+                figures[key] += stats[key]
+            for kind, path in sorted(shards[(name, part)].items()):
+                rows = pq.ParquetFile(path).metadata.num_rows
+                figures["rows"][kind] = figures["rows"].get(kind, 0) + rows
+                figures["shards"].append(
+                    {
+                        "file": Path(path).relative_to(base).as_posix(),
+                        "kind": kind,
+                        "part": part,
+                        "rows": rows,
+                        "bytes": Path(path).stat().st_size,
+                        "sha256": file_sha256(path),
+                    }
+                )
+        splits[split] = figures
+    inputs = []
+    for source in sources:
+        path = Path(root) / source
+        inputs.append({"path": source, "bytes": path.stat().st_size, "sha256": file_sha256(path)})
+    return {
+        "schema_version": SCHEMA_VERSION,
+        "config": config,
+        "config_sha256": digest(config),
+        "inputs": inputs,
+        "inputs_sha256": digest(inputs),
+        "vocabulary": {
+            "file": "vocabulary.tsv",
+            "sha256": vocabulary.digest(),
+            "size": vocabulary.size,
+            "words": vocabulary.size - vocabulary.first_word_id,
+            "reserved": vocabulary.reserved,
+        },
+        "files": {Path(p).relative_to(base).as_posix(): file_sha256(p) for p in extra_files},
+        "splits": splits,
+        "accounting": accounting(tallies, duplicates),
+    }
+
+
+def main(argv: list[str] | None = None) -> None:
+    parser = argparse.ArgumentParser(description="Write the manifest of a build.")
+    parser.add_argument("--options", required=True)
+    parser.add_argument("--plan", required=True, help="JSON: root, sources, build_dir, parts, kinds")
+    parser.add_argument("--output", required=True)
+    args = parser.parse_args(argv)
+    config = json.loads(args.options)
+    plan = json.loads(args.plan)
+    tallies = [read_json(p) for p in plan["tallies"]]
+    duplicates = pq.ParquetFile(plan["duplicates"]).metadata.num_rows
+    part_stats = {(s["split"], s["part"]): read_json(s["stats"]) for s in plan["parts"]}
+    shards = {(s["split"], s["part"]): s["files"] for s in plan["parts"]}
+    manifest = build_manifest(
+        config, plan["root"], plan["sources"], plan["build_dir"], tallies, duplicates, part_stats, shards, plan["extra_files"]
+    )
+    write_json(args.output, manifest)
+    print(json.dumps(manifest["accounting"], sort_keys=True))
+
+
+if __name__ == "__main__":
+    main()

@@ -1,0 +1,143 @@
+"""Coverage statistics: how well the vocabulary covers each split, and at other sizes.
+
+Figures come from the merged token counts (stats/token_counts.parquet, frequency-sorted) and
+the vocabulary; the per-chunk encode statistics add the unknown-class breakdown and OOV per
+source file.
+"""
+
+from __future__ import annotations
+
+import argparse
+import json
+from collections.abc import Sequence
+
+import numpy as np
+import pyarrow as pa
+import pyarrow.compute as pc
+import pyarrow.parquet as pq
+
+from steps.layout import SPLITS
+from steps.settings import read_json
+from steps.storage import write_json
+from steps.vocab import Vocabulary, read_vocabulary
+
+TABLE_SIZES = (100, 1000, 2000, 5000, 10000, 20000, 50000, 100000)
+
+
+def _rate(part: float, whole: float) -> float:
+    return round(part / whole, 6) if whole else 0.0
+
+
+def in_vocabulary(counts: pa.Table, vocabulary: Vocabulary) -> np.ndarray:
+    words = pa.array(vocabulary.tokens[vocabulary.first_word_id :], pa.string())
+    return pc.is_in(counts["token"], value_set=words).to_numpy(zero_copy_only=False)
+
+
+def split_figures(counts: pa.Table, known: np.ndarray, split: str, top: int) -> dict:
+    column = counts[split].to_numpy()
+    present = column > 0
+    oov = present & ~known
+    tokens = int(column.sum())
+    oov_tokens = int(column[oov].sum())
+    figures = {
+        "tokens": tokens,
+        "types": int(present.sum()),
+        "oov_tokens": oov_tokens,
+        "oov_rate": _rate(oov_tokens, tokens),
+        "oov_types": int(oov.sum()),
+    }
+    if split != "train":
+        order = np.argsort(-column[oov], kind="stable")[:top]
+        names = counts["token"].filter(pa.array(oov)).to_pylist()
+        values = column[oov]
+        figures["top_oov"] = [[names[i], int(values[i])] for i in order]
+    return figures
+
+
+def size_table(counts: pa.Table, sizes: Sequence[int], chosen: int) -> list[dict]:
+    """Train coverage and dev/test OOV rate if the vocabulary were the k most frequent words."""
+    train = counts["train"].to_numpy()
+    distinct = int(np.count_nonzero(train))
+    candidates = sorted({k for k in sizes if k < distinct} | {chosen, distinct})
+    cumulative = {split: np.concatenate([[0], np.cumsum(counts[split].to_numpy())]) for split in SPLITS}
+    rows = []
+    for k in candidates:
+        row = {"size": k, "chosen": k == chosen, "train_coverage": _rate(cumulative["train"][k], cumulative["train"][-1])}
+        for split in ("dev", "test"):
+            total = cumulative[split][-1]
+            row[f"{split}_oov_rate"] = _rate(total - cumulative[split][k], total)
+        rows.append(row)
+    return rows
+
+
+def coverage_statistics(counts: pa.Table, vocabulary: Vocabulary, encode_stats: Sequence[dict], top: int) -> dict:
+    known = in_vocabulary(counts, vocabulary)
+    train = counts["train"].to_numpy()
+    singletons = train == 1
+    words = vocabulary.size - vocabulary.first_word_id
+    unknown = {split: {} for split in SPLITS}
+    by_source: dict[str, dict] = {}
+    for stats in encode_stats:
+        source = by_source.setdefault(stats["source"], {s: {"tokens": 0, "oov_tokens": 0} for s in SPLITS})
+        for split in SPLITS:
+            figures = stats["splits"][split]
+            source[split]["tokens"] += figures["tokens"]
+            source[split]["oov_tokens"] += figures["oov_tokens"]
+            for key, value in figures["unknown"].items():
+                name = vocabulary.tokens[int(key)]
+                unknown[split][name] = unknown[split].get(name, 0) + value
+    for source in by_source.values():
+        for figures in source.values():
+            figures["oov_rate"] = _rate(figures["oov_tokens"], figures["tokens"])
+    return {
+        "vocabulary_size": vocabulary.size,
+        "words": words,
+        "splits": {split: split_figures(counts, known, split, top) for split in SPLITS},
+        "train_singletons": {
+            "types_share": _rate(int(singletons.sum()), int(np.count_nonzero(train))),
+            "tokens_share": _rate(int(singletons.sum()), int(train.sum())),
+        },
+        "sizes": size_table(counts, TABLE_SIZES, words),
+        "unknown_classes": {split: dict(sorted(v.items())) for split, v in unknown.items()},
+        "sources": dict(sorted(by_source.items())),
+    }
+
+
+def format_table(stats: dict) -> str:
+    """A short plain-text summary for the end of a run."""
+    lines = [f"vocabulary: {stats['vocabulary_size']} ids, {stats['words']} words"]
+    lines.append(f"{'split':<6} {'tokens':>10} {'types':>8} {'OOV tokens':>11} {'OOV rate':>9} {'OOV types':>9}")
+    for split in SPLITS:
+        f = stats["splits"][split]
+        lines.append(f"{split:<6} {f['tokens']:>10} {f['types']:>8} {f['oov_tokens']:>11} {f['oov_rate']:>9.2%} {f['oov_types']:>9}")
+    lines.append(f"{'size':>8} {'train coverage':>15} {'dev OOV':>8}")
+    for row in stats["sizes"]:
+        mark = "  <- chosen" if row["chosen"] else ""
+        lines.append(f"{row['size']:>8} {row['train_coverage']:>15.2%} {row['dev_oov_rate']:>8.2%}{mark}")
+    top = stats["splits"]["dev"].get("top_oov", [])[:10]
+    if top:
+        lines.append("most frequent dev OOV words: " + ", ".join(f"{w} ({c})" for w, c in top))
+    return "\n".join(lines)
+
+
+def main(argv: list[str] | None = None) -> None:
+    parser = argparse.ArgumentParser(description="Compute coverage statistics of a build.")
+    parser.add_argument("--token-counts", required=True)
+    parser.add_argument("--vocabulary", required=True)
+    parser.add_argument("--options", required=True)
+    parser.add_argument("--output", required=True)
+    parser.add_argument("encode_stats", nargs="*")
+    args = parser.parse_args(argv)
+    config = json.loads(args.options)
+    stats = coverage_statistics(
+        pq.read_table(args.token_counts),
+        read_vocabulary(args.vocabulary),
+        [read_json(p) for p in args.encode_stats],
+        config["report"]["top_oov"],
+    )
+    write_json(args.output, stats)
+    print(format_table(stats))
+
+
+if __name__ == "__main__":
+    main()

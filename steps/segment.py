@@ -1,0 +1,152 @@
+"""Segment: cleaned document text → sentences → word tokens.
+
+Two families of segmenters share one interface (`Segmenter.sentences`, `Segmenter.tokens`):
+Unicode UAX #29 boundaries (steps.unicode_breaks) and compact rules ("punctuation" sentences,
+"pattern" words, "line" sentences). Tokenization is lossless up to whitespace: the tokens of a
+sentence, in order and joined with the whitespace between them, rebuild it.
+"""
+
+from __future__ import annotations
+
+from collections.abc import Callable
+from dataclasses import dataclass, field
+
+import regex
+
+NUMBER_TOKEN = "<number>"
+
+_WORD_CHARS = r"[\p{L}\p{M}\p{N}\p{Pc}]"
+_APOSTROPHES = "'\u2019"
+_PATTERN_PIECES = {
+    "number": r"\p{Nd}+(?:[.,:]\p{Nd}+)*",
+    "word_joined": rf"[\p{{L}}\p{{N}}]{_WORD_CHARS}*(?:[{_APOSTROPHES}\-]{_WORD_CHARS}+)*",
+    "word_apostrophe": rf"[\p{{L}}\p{{N}}]{_WORD_CHARS}*(?:[{_APOSTROPHES}]{_WORD_CHARS}+)*",
+    "word_hyphen": rf"[\p{{L}}\p{{N}}]{_WORD_CHARS}*(?:-{_WORD_CHARS}+)*",
+    "word_plain": rf"[\p{{L}}\p{{N}}]{_WORD_CHARS}*",
+    "clitic": rf"[{_APOSTROPHES}]{_WORD_CHARS}+",
+    "other": r"(?:(?!\s)\X)",
+}
+_NUMBER = regex.compile(r"[+\-]?\p{Nd}+(?:[.,:]\p{Nd}+)*%?", regex.V1)
+_PUNCTUATION_SENTENCE_END = regex.compile(r"(?<=[.!?][\"'\u2019\u201d)\]]*)\s+(?=[\"'\u2018\u201c(\[]*[\p{Lu}\p{Nd}])", regex.V1)
+_ABBREVIATION_TAIL = regex.compile(r"(\S+)\.[\"'\u2019\u201d)\]]*$")
+
+
+def _pattern_tokenizer(apostrophes: str, hyphens: str) -> Callable[[str], list[str]]:
+    """Letter runs (optionally joined across apostrophes/hyphens), numbers, single graphemes."""
+    word = {
+        ("keep", "keep"): "word_joined",
+        ("keep", "split"): "word_apostrophe",
+        ("split", "keep"): "word_hyphen",
+        ("split", "split"): "word_plain",
+    }[(apostrophes, hyphens)]
+    pieces = [_PATTERN_PIECES["number"], _PATTERN_PIECES[word]]
+    if apostrophes == "split":
+        pieces.append(_PATTERN_PIECES["clitic"])
+    pieces.append(_PATTERN_PIECES["other"])
+    compiled = regex.compile("|".join(f"(?:{p})" for p in pieces), regex.V1)
+    return compiled.findall
+
+
+def _line_sentences(text: str) -> list[str]:
+    return [line for line in text.split("\n") if line.strip()]
+
+
+def _punctuation_sentences(abbreviations: frozenset[str]) -> Callable[[str], list[str]]:
+    """Break after . ! ? (and closing quotes) before a capital or digit, unless an abbreviation."""
+
+    def split(text: str) -> list[str]:
+        sentences: list[str] = []
+        for line in text.split("\n"):
+            start = 0
+            for match in _PUNCTUATION_SENTENCE_END.finditer(line):
+                candidate = line[start : match.start()]
+                tail = _ABBREVIATION_TAIL.search(candidate)
+                if tail and tail.group(1).lower() in abbreviations:
+                    continue
+                sentences.append(candidate)
+                start = match.end()
+            sentences.append(line[start:])
+        return [s for s in sentences if s.strip()]
+
+    return split
+
+
+@dataclass
+class Segmenter:
+    """Turns cleaned text into sentences of tokens, as configured under `segment`."""
+
+    sentences_mode: str = "uax29"
+    words_mode: str = "uax29"
+    apostrophes: str = "keep"
+    hyphens: str = "keep"
+    numbers: str = "keep"
+    abbreviations: frozenset[str] = field(default_factory=frozenset)
+
+    def __post_init__(self) -> None:
+        self.abbreviations = frozenset(a.lower() for a in self.abbreviations)
+        if self.sentences_mode == "line":
+            self._sentences = _line_sentences
+        elif self.sentences_mode == "punctuation":
+            self._sentences = _punctuation_sentences(self.abbreviations)
+        else:
+            from steps import unicode_breaks
+
+            abbreviations = self.abbreviations
+
+            def uax29(text: str) -> list[str]:
+                return [s for s in unicode_breaks.sentence_segments(text, abbreviations) if s.strip()]
+
+            self._sentences = uax29
+        if self.words_mode == "pattern":
+            self._tokens = _pattern_tokenizer(self.apostrophes, self.hyphens)
+        else:
+            from steps import unicode_breaks
+
+            apostrophes, hyphens = self.apostrophes, self.hyphens
+
+            def words(text: str) -> list[str]:
+                return unicode_breaks.word_tokens(text, apostrophes=apostrophes, hyphens=hyphens)
+
+            self._tokens = words
+
+    @classmethod
+    def from_config(cls, segment: dict, learned: frozenset[str] = frozenset()) -> "Segmenter":
+        return cls(
+            sentences_mode=segment["sentences"],
+            words_mode=segment["words"],
+            apostrophes=segment["apostrophes"],
+            hyphens=segment["hyphens"],
+            numbers=segment["numbers"],
+            abbreviations=frozenset(segment["abbreviations"]) | learned,
+        )
+
+    def sentences(self, text: str) -> list[str]:
+        """Sentences of a cleaned document, whitespace at their edges removed, none empty."""
+        return [s.strip() for s in self._sentences(text)]
+
+    def tokens(self, sentence: str) -> list[str]:
+        """Word tokens of one sentence; numbers become NUMBER_TOKEN when masking is on."""
+        tokens = self._tokens(sentence)
+        if self.numbers == "mask":
+            tokens = [NUMBER_TOKEN if _NUMBER.fullmatch(t) else t for t in tokens]
+        return tokens
+
+    def segment(self, text: str) -> list[list[str]]:
+        """Sentences of tokens of a cleaned document; sentences without tokens are left out."""
+        result = []
+        for sentence in self.sentences(text):
+            tokens = self.tokens(sentence)
+            if tokens:
+                result.append(tokens)
+        return result
+
+
+def is_lossless(text: str, tokens: list[str]) -> bool:
+    """Whether tokens, in order and separated only by whitespace, rebuild `text`."""
+    position = 0
+    for token in tokens:
+        found = text.find(token, position)
+        if found < 0 or text[position:found].strip():
+            return False
+        position = found + len(token)
+    return not text[position:].strip()

@@ -1,0 +1,221 @@
+"""Shards: gather one part of one split from every chunk and write its Parquet files.
+
+Train parts order their documents by the seeded hash `order` (so chunking never matters),
+cut rows, and shuffle them with a seeded permutation; a part holds only its own documents
+(about 1/train_files of train), which bounds memory. Dev and test parts stream their chunks
+in corpus order and keep that order.
+
+Files per part, one per enabled kind:
+  ngram-PPPP.parquet  context: fixed_size_list<id>[n-1], target: id
+  block-PPPP.parquet  ids: fixed_size_list<id>[L+1]
+  stream-PPPP.parquet doc_id: string, ids: list<id>
+Each file's key-value metadata `corpusmill` holds JSON: split, kind, part, vocabulary hash and
+size, the reserved ids, and n or L.
+"""
+
+from __future__ import annotations
+
+import argparse
+import json
+from collections.abc import Iterator
+from dataclasses import dataclass
+
+import numpy as np
+import pyarrow as pa
+import pyarrow.compute as pc
+import pyarrow.parquet as pq
+
+from steps.storage import ParquetSink, write_json
+from steps.vocab import BOS, EOS, PAD, Vocabulary, read_vocabulary
+from steps.windows import CorpusBlocks, document_blocks, document_streams, ngram_windows
+
+ID_TYPES = {"uint16": pa.uint16(), "uint32": pa.uint32(), "int64": pa.int64()}
+
+
+def id_type(name: str, vocabulary_size: int) -> pa.DataType:
+    """The configured id type, or the narrowest unsigned one holding every id."""
+    if name == "auto":
+        return pa.uint16() if vocabulary_size <= 1 << 16 else pa.uint32()
+    chosen = ID_TYPES[name]
+    if name == "uint16" and vocabulary_size > 1 << 16:
+        raise SystemExit(f"corpusmill: shards.id_type = uint16 cannot hold {vocabulary_size} ids; use auto or uint32")
+    return chosen
+
+
+def kind_schema(kind: str, ids: pa.DataType, windows: dict) -> pa.Schema:
+    if kind == "ngram":
+        n = windows["ngram"]["n"]
+        return pa.schema([("context", pa.list_(ids, n - 1)), ("target", ids)])
+    if kind == "block":
+        return pa.schema([("ids", pa.list_(ids, windows["blocks"]["length"] + 1))])
+    return pa.schema([("doc_id", pa.string()), ("ids", pa.list_(ids))])
+
+
+def enabled_kinds(windows: dict) -> list[str]:
+    names = {"ngram": "ngram", "blocks": "block", "streams": "stream"}
+    return [kind for key, kind in names.items() if windows[key]["enabled"]]
+
+
+@dataclass
+class Rows:
+    """The rows of every enabled kind cut from one batch of documents (numpy arrays)."""
+
+    context: np.ndarray
+    target: np.ndarray
+    blocks: np.ndarray
+    doc_ids: list[str]
+    streams: np.ndarray
+    stream_lengths: np.ndarray
+
+
+class RowCutter:
+    """Cuts n-gram windows, blocks and streams from encoded documents."""
+
+    def __init__(self, windows: dict, vocabulary: Vocabulary) -> None:
+        reserved = vocabulary.reserved
+        self.pad, self.bos, self.eos = reserved[PAD], reserved[BOS], reserved[EOS]
+        self.ngram, self.block = windows["ngram"], windows["blocks"]
+        self.corpus_blocks = (
+            CorpusBlocks(self.block["length"], self.block["stride"], self.block["remainder"], self.pad)
+            if self.block["span"] == "corpus"
+            else None
+        )
+
+    def cut(self, table: pa.Table) -> Rows:
+        nested = table["sentences"].combine_chunks()
+        sentences = nested.flatten()
+        ids = sentences.flatten().to_numpy().astype(np.int64)
+        sentence_lengths = np.diff(sentences.offsets.to_numpy()).astype(np.int64)
+        per_doc = np.diff(nested.offsets.to_numpy()).astype(np.int64)
+        eos = self.eos if self.ngram["predict_end"] else None
+        context, target = ngram_windows(ids, sentence_lengths, self.ngram["n"], self.bos, eos)
+        stream, doc_lengths = document_streams(ids, sentence_lengths, per_doc, self.bos, self.eos)
+        if self.corpus_blocks is not None:
+            blocks = self.corpus_blocks.feed(stream)
+        else:
+            blocks = document_blocks(
+                stream, doc_lengths, self.block["length"], self.block["stride"], self.block["remainder"], self.pad
+            )
+        return Rows(context, target, blocks, table["doc_id"].to_pylist(), stream, doc_lengths)
+
+    def last_blocks(self) -> np.ndarray:
+        width = self.block["length"] + 1
+        return self.corpus_blocks.finish() if self.corpus_blocks is not None else np.empty((0, width), np.int64)
+
+
+def _fixed(values: np.ndarray, width: int, ids: pa.DataType) -> pa.Array:
+    flat = pa.array(np.ascontiguousarray(values).reshape(-1), type=ids)
+    return pa.FixedSizeListArray.from_arrays(flat, width)
+
+
+def kind_table(kind: str, rows: Rows, ids: pa.DataType, schema: pa.Schema, order: np.ndarray | None = None) -> pa.Table:
+    """An Arrow table of one kind's rows, optionally in a given row order."""
+    if kind == "ngram":
+        context, target = rows.context, rows.target
+        if order is not None:
+            context, target = context[order], target[order]
+        columns = [_fixed(context, context.shape[1], ids), pa.array(target, type=ids)]
+    elif kind == "block":
+        blocks = rows.blocks if order is None else rows.blocks[order]
+        columns = [_fixed(blocks, blocks.shape[1], ids)]
+    else:
+        offsets = np.concatenate([[0], np.cumsum(rows.stream_lengths)]).astype(np.int64)
+        values = pa.array(rows.streams, type=ids)
+        columns = [pa.array(rows.doc_ids, pa.string()), pa.LargeListArray.from_arrays(offsets, values).cast(pa.list_(ids))]
+    return pa.Table.from_arrays(columns, schema=schema)
+
+
+def _metadata(split: str, kind: str, part: int, vocabulary: Vocabulary, windows: dict) -> dict[bytes, bytes]:
+    detail = {"ngram": {"n": windows["ngram"]["n"], "predict_end": windows["ngram"]["predict_end"]}, "block": dict(windows["blocks"]), "stream": {}}[kind]
+    detail.pop("enabled", None)
+    value = {
+        "split": split,
+        "kind": kind,
+        "part": part,
+        "vocabulary_sha256": vocabulary.digest(),
+        "vocabulary_size": vocabulary.size,
+        "reserved": vocabulary.reserved,
+        **detail,
+    }
+    return {b"corpusmill": json.dumps(value, sort_keys=True).encode("utf-8")}
+
+
+def _read(paths: list[str]) -> Iterator[pa.Table]:
+    for path in paths:
+        parquet = pq.ParquetFile(path)
+        for batch in parquet.iter_batches(batch_size=2048):
+            yield pa.Table.from_batches([batch])
+
+
+def write_part(
+    split: str, part: int, inputs: list[str], outputs: dict[str, str], vocabulary: Vocabulary, config: dict
+) -> dict:
+    """Write one part's shard files; returns rows per kind and document/sentence/token counts."""
+    windows, shards = config["windows"], config["shards"]
+    ids = id_type(shards["id_type"], vocabulary.size)
+    cutter = RowCutter(windows, vocabulary)
+    schemas = {kind: kind_schema(kind, ids, windows).with_metadata(_metadata(split, kind, part, vocabulary, windows)) for kind in outputs}
+    codec = {"compression": shards["compression"], "level": shards["compression_level"]}
+    stats = {"documents": 0, "sentences": 0, "tokens": 0, "rows": dict.fromkeys(outputs, 0)}
+    sinks = {kind: ParquetSink(path, schemas[kind], **codec) for kind, path in outputs.items()}
+    group = shards["row_group_rows"]
+    try:
+        if split == "train":
+            parts = [pq.read_table(p) for p in inputs]
+            table = pa.concat_tables(parts) if parts else None
+            if table is not None and table.num_rows:
+                table = table.sort_by([("order", "ascending"), ("doc_id", "ascending")])
+                rows = cutter.cut(table)
+                rows.blocks = np.concatenate([rows.blocks, cutter.last_blocks()])
+                _count(stats, table)
+                rng = np.random.default_rng([shards["seed"], part])
+                for kind, sink in sinks.items():
+                    length = {"ngram": len(rows.target), "block": len(rows.blocks), "stream": 0}[kind]
+                    order = rng.permutation(length) if kind != "stream" else None
+                    whole = kind_table(kind, rows, ids, schemas[kind], order)
+                    for start in range(0, whole.num_rows, group):
+                        sink.write(whole.slice(start, group))
+        else:
+            for table in _read(inputs):
+                _count(stats, table)
+                rows = cutter.cut(table)
+                for kind, sink in sinks.items():
+                    sink.write(kind_table(kind, rows, ids, schemas[kind]))
+            if "block" in sinks:
+                tail = cutter.last_blocks()
+                rows = Rows(np.empty((0, 1)), np.empty(0), tail, [], np.empty(0), np.empty(0, np.int64))
+                sinks["block"].write(kind_table("block", rows, ids, schemas["block"]))
+    except BaseException:
+        for sink in sinks.values():
+            sink.abort()
+        raise
+    for kind, sink in sinks.items():
+        sink.close()
+        stats["rows"][kind] = sink.rows
+    return stats
+
+
+def _count(stats: dict, table: pa.Table) -> None:
+    nested = table["sentences"].combine_chunks()
+    stats["documents"] += len(nested)
+    stats["sentences"] += len(nested.flatten())
+    stats["tokens"] += len(nested.flatten().flatten())
+
+
+def main(argv: list[str] | None = None) -> None:
+    parser = argparse.ArgumentParser(description="Write the shard files of one part of one split.")
+    parser.add_argument("--split", required=True)
+    parser.add_argument("--part", type=int, required=True)
+    parser.add_argument("--vocabulary", required=True)
+    parser.add_argument("--options", required=True)
+    parser.add_argument("--stats", required=True)
+    parser.add_argument("--output", action="append", default=[], help="KIND=PATH, once per enabled kind")
+    parser.add_argument("inputs", nargs="*", help="encoded part files of every chunk, in corpus order")
+    args = parser.parse_args(argv)
+    outputs = dict(item.split("=", 1) for item in args.output)
+    stats = write_part(args.split, args.part, args.inputs, outputs, read_vocabulary(args.vocabulary), json.loads(args.options))
+    write_json(args.stats, stats)
+
+
+if __name__ == "__main__":
+    main()

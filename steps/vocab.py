@@ -1,0 +1,249 @@
+"""Vocabulary: token counts per chunk and split, their merge, the cutoff, and the vocabulary file.
+
+Only train counts choose the vocabulary; dev and test counts are kept for the OOV statistics.
+Ids: reserved symbols first (fixed, see RESERVED), then the unknown classes, then words by
+descending train count, ties broken by the token's code points.
+
+vocabulary.tsv: a header line `id<TAB>token<TAB>count<TAB>kind`, then one row per id in id
+order. kind is `reserved`, `unknown` (an out-of-vocabulary class; count = train tokens mapped
+to it) or `word` (count = train occurrences); in subword mode `piece`, `byte` or `control`.
+"""
+
+from __future__ import annotations
+
+import argparse
+import hashlib
+import json
+from collections.abc import Sequence
+from dataclasses import dataclass
+from pathlib import Path
+
+import numpy as np
+import pyarrow as pa
+import pyarrow.compute as pc
+import pyarrow.parquet as pq
+import regex
+
+from steps.layout import SPLITS
+from steps.split import duplicate_mask
+from steps.storage import write_table, write_text
+
+PAD, UNK, BOS, EOS = "<pad>", "<unk>", "<s>", "</s>"
+RESERVED = (PAD, UNK, BOS, EOS)
+HEADER = "id\ttoken\tcount\tkind"
+
+# Unknown classes by word shape, tried in this order; a word matching none maps to <unk>.
+SHAPE_CLASSES = (
+    ("<unk-digits>", regex.compile(r"\p{N}", regex.V1)),
+    ("<unk-hyphenated>", regex.compile(r"\p{L}[-\u2010\u2011]\p{L}", regex.V1)),
+    ("<unk-upper>", regex.compile(r"^[\p{Lu}\p{M}]{2,}$", regex.V1)),
+    ("<unk-title>", regex.compile(r"^\p{Lu}", regex.V1)),
+    ("<unk-symbol>", regex.compile(r"^[^\p{L}\p{N}]+$", regex.V1)),
+)
+
+COUNTS_SCHEMA = pa.schema([("split", pa.string()), ("token", pa.string()), ("count", pa.int64())])
+
+
+def unknown_class(token: str) -> str:
+    """The shape class of an out-of-vocabulary token."""
+    for name, pattern in SHAPE_CLASSES:
+        if pattern.search(token):
+            return name
+    return UNK
+
+
+def count_chunk(prepared: str, source: str, duplicates: pa.Table) -> pa.Table:
+    """Word counts per split of one prepared chunk, duplicates left out, counted by Arrow."""
+    table = pq.read_table(prepared, columns=["offset", "split", "tokens"])
+    table = table.filter(pc.invert(duplicate_mask(duplicates, source, table["offset"])))
+    parts = []
+    for split in SPLITS:
+        rows = table.filter(pc.equal(table["split"], split))
+        tokens = pc.list_flatten(pc.list_flatten(rows["tokens"])) if rows.num_rows else pa.array([], pa.string())
+        counted = pc.value_counts(tokens)
+        parts.append(
+            pa.table(
+                {
+                    "split": pa.array([split] * len(counted), pa.string()),
+                    "token": counted.field("values"),
+                    "count": pc.cast(counted.field("counts"), pa.int64()),
+                },
+                schema=COUNTS_SCHEMA,
+            )
+        )
+    return pa.concat_tables(parts)
+
+
+def merge_counts(paths: Sequence[str]) -> pa.Table:
+    """One table token → train, dev, test counts, summed over chunks, sorted by (-train, token)."""
+    merged = pa.concat_tables([pq.read_table(p) for p in paths]) if paths else COUNTS_SCHEMA.empty_table()
+    summed = merged.group_by(["split", "token"]).aggregate([("count", "sum")])
+    tokens = pc.unique(summed["token"]) if summed.num_rows else pa.array([], pa.string())
+    columns = {"token": tokens}
+    for split in SPLITS:
+        rows = summed.filter(pc.equal(summed["split"], split))
+        position = pc.index_in(tokens, value_set=rows["token"])
+        columns[split] = pc.fill_null(pc.take(rows["count_sum"], position), 0)
+    table = pa.table(columns)
+    return sort_by_frequency(table)
+
+
+def sort_by_frequency(table: pa.Table) -> pa.Table:
+    """Sort by descending train count, then by token (code point order) for deterministic ties."""
+    return table.sort_by([("train", "descending"), ("token", "ascending")])
+
+
+@dataclass(frozen=True)
+class Cutoff:
+    min_count: int | None = None
+    max_size: int | None = None
+    coverage: float | None = None
+
+    @classmethod
+    def from_config(cls, vocabulary: dict) -> "Cutoff":
+        return cls(vocabulary["min_count"], vocabulary["max_size"], vocabulary["coverage"])
+
+
+def choose_size(train_counts: np.ndarray, cutoff: Cutoff) -> int:
+    """How many of the frequency-sorted words to keep under all active limits."""
+    keep = int(np.count_nonzero(train_counts > 0))
+    if cutoff.min_count is not None:
+        keep = min(keep, int(np.count_nonzero(train_counts >= cutoff.min_count)))
+    if cutoff.max_size is not None:
+        keep = min(keep, cutoff.max_size)
+    if cutoff.coverage is not None and keep:
+        cumulative = np.cumsum(train_counts[:keep], dtype=np.float64)
+        total = float(train_counts.sum())
+        needed = int(np.searchsorted(cumulative, cutoff.coverage * total - 1e-9 * total, side="left")) + 1
+        keep = min(keep, needed)
+    return keep
+
+
+@dataclass
+class Vocabulary:
+    """Ids of tokens; `tokens[i]` is the token with id i."""
+
+    tokens: list[str]
+    counts: list[int]
+    kinds: list[str]
+
+    @property
+    def size(self) -> int:
+        return len(self.tokens)
+
+    @property
+    def reserved(self) -> dict[str, int]:
+        return {token: i for i, (token, kind) in enumerate(zip(self.tokens, self.kinds)) if kind in ("reserved", "unknown", "control")}
+
+    @property
+    def first_word_id(self) -> int:
+        return next((i for i, kind in enumerate(self.kinds) if kind not in ("reserved", "unknown", "control")), self.size)
+
+    def unknown_ids(self) -> dict[str, int]:
+        return {token: i for i, (token, kind) in enumerate(zip(self.tokens, self.kinds)) if kind == "unknown" or token == UNK}
+
+    def to_tsv(self) -> str:
+        rows = [HEADER] + [f"{i}\t{t}\t{c}\t{k}" for i, (t, c, k) in enumerate(zip(self.tokens, self.counts, self.kinds))]
+        return "\n".join(rows) + "\n"
+
+    def digest(self) -> str:
+        return hashlib.sha256(self.to_tsv().encode("utf-8")).hexdigest()
+
+
+def read_vocabulary(path: str | Path) -> Vocabulary:
+    """Read a vocabulary.tsv, checking the header and that ids run 0, 1, 2, … without gaps."""
+    lines = Path(path).read_text(encoding="utf-8").split("\n")
+    if not lines or lines[0] != HEADER:
+        raise ValueError(f"{path}: line 1: expected the header {HEADER!r}; is this a corpusmill vocabulary file?")
+    tokens, counts, kinds = [], [], []
+    for number, line in enumerate(lines[1:], start=2):
+        if not line:
+            continue
+        fields = line.split("\t")
+        if len(fields) != 4 or not fields[0].isdigit() or int(fields[0]) != len(tokens):
+            raise ValueError(f"{path}: line {number}: expected '{len(tokens)}<TAB>token<TAB>count<TAB>kind', got {line[:80]!r}")
+        tokens.append(fields[1])
+        counts.append(int(fields[2]))
+        kinds.append(fields[3])
+    return Vocabulary(tokens, counts, kinds)
+
+
+def build_vocabulary(counts: pa.Table, cutoff: Cutoff, unknown: str) -> Vocabulary:
+    """Reserved symbols, unknown classes, then the words that pass the cutoff."""
+    train = counts["train"].to_numpy()
+    keep = choose_size(train, cutoff)
+    classes = [UNK] + ([name for name, _ in SHAPE_CLASSES] if unknown == "shape" else [])
+    unknown_counts = dict.fromkeys(classes, 0)
+    for token, count in zip(counts["token"].slice(keep).to_pylist(), train[keep:].tolist()):
+        if count:
+            unknown_counts[unknown_class(token) if unknown == "shape" else UNK] += count
+    tokens = list(RESERVED) + classes[1:] + counts["token"].slice(0, keep).to_pylist()
+    numbers = [0, unknown_counts[UNK], 0, 0] + [unknown_counts[c] for c in classes[1:]] + train[:keep].tolist()
+    kinds = ["reserved"] * len(RESERVED) + ["unknown"] * (len(classes) - 1) + ["word"] * keep
+    return Vocabulary(tokens, numbers, kinds)
+
+
+class Lookup:
+    """Maps token arrays to id arrays with Arrow kernels; OOV tokens go to their unknown class."""
+
+    def __init__(self, vocabulary: Vocabulary, unknown: str) -> None:
+        start = vocabulary.first_word_id
+        self._words = pa.array(vocabulary.tokens[start:], pa.string())
+        self._start = start
+        self._unknown = unknown
+        self._classes = vocabulary.unknown_ids()
+
+    def ids(self, tokens: pa.Array) -> np.ndarray:
+        """int64 ids of `tokens` (a string array)."""
+        position = pc.index_in(tokens, value_set=self._words)
+        ids = pc.fill_null(pc.add(position, self._start), -1).to_numpy(zero_copy_only=False).astype(np.int64)
+        missing = ids < 0
+        if missing.any():
+            oov = pc.filter(tokens, pa.array(missing))
+            if self._unknown == "shape":
+                distinct = pc.unique(oov)
+                class_ids = pa.array([self._classes.get(unknown_class(t), self._classes[UNK]) for t in distinct.to_pylist()], pa.int64())
+                ids[missing] = pc.take(class_ids, pc.index_in(oov, value_set=distinct)).to_numpy()
+            else:
+                ids[missing] = self._classes[UNK]
+        return ids
+
+
+def vocabulary_from_counts(count_paths: Sequence[str], config: dict, frozen: str | None) -> tuple[Vocabulary, pa.Table]:
+    counts = merge_counts(count_paths)
+    if frozen:
+        return read_vocabulary(frozen), counts
+    vocabulary_config = config["vocabulary"]
+    return build_vocabulary(counts, Cutoff.from_config(vocabulary_config), vocabulary_config["unknown"]), counts
+
+
+def main(argv: list[str] | None = None) -> None:
+    parser = argparse.ArgumentParser(description="Count tokens of a chunk, or build the vocabulary from all counts.")
+    sub = parser.add_subparsers(dest="command", required=True)
+    count = sub.add_parser("count")
+    count.add_argument("--prepared", required=True)
+    count.add_argument("--source", required=True, help="the chunk's input file, relative to the corpus root")
+    count.add_argument("--duplicates", required=True)
+    count.add_argument("--output", required=True)
+    build = sub.add_parser("build")
+    build.add_argument("--options", required=True)
+    build.add_argument("--vocabulary", required=True)
+    build.add_argument("--token-counts", required=True)
+    build.add_argument("counts", nargs="*")
+    args = parser.parse_args(argv)
+    if args.command == "count":
+        write_table(args.output, count_chunk(args.prepared, args.source, pq.read_table(args.duplicates)))
+        return
+    config = json.loads(args.options)
+    frozen = config["vocabulary"]["frozen"]
+    try:
+        vocabulary, counts = vocabulary_from_counts(args.counts, config, frozen)
+    except (OSError, ValueError) as error:
+        raise SystemExit(f"corpusmill: vocabulary.frozen: {error}") from None
+    write_table(args.token_counts, counts)
+    write_text(args.vocabulary, vocabulary.to_tsv())
+    print(f"vocabulary: {vocabulary.size} ids ({vocabulary.size - vocabulary.first_word_id} words)")
+
+
+if __name__ == "__main__":
+    main()

@@ -1,0 +1,127 @@
+"""Windows: training rows cut from id sequences with numpy, no per-token Python loop.
+
+- n-gram windows: for every token of a sentence, its n-1 preceding ids (sentence start padded
+  with <s>) and the token as target; optionally </s> as a last target per sentence.
+- document streams: <s>, then every sentence's ids each followed by </s>.
+- blocks: L+1 consecutive ids of a stream every `stride` ids, within one document or across
+  documents joined in order; the last partial block dropped or padded with <pad>.
+"""
+
+from __future__ import annotations
+
+from dataclasses import dataclass, field
+
+import numpy as np
+from numpy.lib.stride_tricks import sliding_window_view
+
+
+def _segment_starts(lengths: np.ndarray) -> np.ndarray:
+    return np.cumsum(lengths) - lengths
+
+
+def _within(lengths: np.ndarray) -> np.ndarray:
+    """For segments of the given lengths, each element's position inside its segment."""
+    total = int(lengths.sum())
+    return np.arange(total, dtype=np.int64) - np.repeat(_segment_starts(lengths), lengths)
+
+
+def ngram_windows(
+    ids: np.ndarray, sentence_lengths: np.ndarray, n: int, bos: int, eos: int | None
+) -> tuple[np.ndarray, np.ndarray]:
+    """(context [rows, n-1], target [rows]) for sentences laid end to end in `ids`."""
+    lengths = sentence_lengths.astype(np.int64)
+    extra = 1 if eos is not None else 0
+    targets = lengths + extra
+    padded_lengths = targets + (n - 1)
+    starts = _segment_starts(padded_lengths)
+    padded = np.full(int(padded_lengths.sum()), bos, dtype=ids.dtype)
+    padded[np.repeat(starts + (n - 1), lengths) + _within(lengths)] = ids
+    if eos is not None:
+        padded[starts + (n - 1) + lengths] = eos
+    if not len(padded):
+        return np.empty((0, n - 1), ids.dtype), np.empty(0, ids.dtype)
+    windows = sliding_window_view(padded, n)
+    rows = windows[np.repeat(starts, targets) + _within(targets)]
+    return rows[:, : n - 1], rows[:, n - 1]
+
+
+def document_streams(
+    ids: np.ndarray, sentence_lengths: np.ndarray, sentences_per_document: np.ndarray, bos: int, eos: int
+) -> tuple[np.ndarray, np.ndarray]:
+    """(stream, document lengths): each document as <s> s1 </s> s2 </s> …, laid end to end."""
+    lengths = sentence_lengths.astype(np.int64)
+    per_doc = sentences_per_document.astype(np.int64)
+    doc_of_sentence = np.repeat(np.arange(len(per_doc)), per_doc)
+    # Every sentence takes its ids plus one </s>; every document one leading <s>.
+    sentence_room = lengths + 1
+    sentence_start = _segment_starts(sentence_room) + doc_of_sentence + 1
+    doc_lengths = np.bincount(doc_of_sentence, weights=sentence_room, minlength=len(per_doc)).astype(np.int64) + 1
+    stream = np.empty(int(doc_lengths.sum()), dtype=ids.dtype)
+    stream[_segment_starts(doc_lengths)] = bos
+    stream[np.repeat(sentence_start, lengths) + _within(lengths)] = ids
+    stream[sentence_start + lengths] = eos
+    return stream, doc_lengths
+
+
+def _block_starts(length: int, span: int, stride: int, pad: bool) -> np.ndarray:
+    """Block starts within a stream of `length` ids for blocks of `span` ids."""
+    full = (length - span) // stride + 1 if length >= span else 0
+    starts = np.arange(full, dtype=np.int64) * stride
+    rest = full * stride
+    if pad and length - rest >= 2:
+        starts = np.append(starts, rest)
+    return starts
+
+
+def document_blocks(
+    stream: np.ndarray, doc_lengths: np.ndarray, length: int, stride: int, remainder: str, pad_id: int
+) -> np.ndarray:
+    """Blocks of length+1 ids that never cross a document, [rows, length+1]."""
+    span = length + 1
+    pad = remainder == "pad"
+    doc_starts = _segment_starts(doc_lengths)
+    full = np.where(doc_lengths >= span, (doc_lengths - span) // stride + 1, 0)
+    counts = full + (pad & (doc_lengths - full * stride >= 2))
+    if not counts.sum():
+        return np.empty((0, span), stream.dtype)
+    local = _within(counts) * stride
+    starts = np.repeat(doc_starts, counts) + local
+    ends = np.repeat(doc_starts + doc_lengths, counts)
+    padded = np.concatenate([stream, np.full(span, pad_id, stream.dtype)])
+    blocks = sliding_window_view(padded, span)[starts].copy()
+    overflow = np.arange(span)[None, :] >= (ends - starts)[:, None]
+    blocks[overflow] = pad_id
+    return blocks
+
+
+@dataclass
+class CorpusBlocks:
+    """Blocks over documents joined in order; keeps the unfinished tail between calls."""
+
+    length: int
+    stride: int
+    remainder: str
+    pad_id: int
+    _pending: np.ndarray = field(default_factory=lambda: np.empty(0, np.int64))
+
+    def feed(self, stream: np.ndarray) -> np.ndarray:
+        """Blocks completed by appending `stream`; the rest waits for more ids."""
+        buffer = np.concatenate([self._pending.astype(stream.dtype), stream])
+        span = self.length + 1
+        starts = _block_starts(len(buffer), span, self.stride, pad=False)
+        taken = len(starts) * self.stride
+        self._pending = buffer[taken:]
+        if not len(starts):
+            return np.empty((0, span), stream.dtype)
+        return sliding_window_view(buffer, span)[starts].copy()
+
+    def finish(self) -> np.ndarray:
+        """The padded last block, if configured and at least two ids remain."""
+        span = self.length + 1
+        rest = self._pending
+        self._pending = rest[:0]
+        if self.remainder != "pad" or len(rest) < 2:
+            return np.empty((0, span), rest.dtype)
+        block = np.full((1, span), self.pad_id, rest.dtype)
+        block[0, : len(rest)] = rest
+        return block
