@@ -33,6 +33,8 @@ READ_BLOCK = 1 << 20
 _TERMINATOR = re.compile(rb"\r\n|\n|\r")
 _BLANK_BYTES = b" \t\r\n\f\v"
 _GRAPHEME = regex.compile(r"\X", regex.V1)
+_ESCAPED_BYTES = "".join(map(chr, range(0xDC80, 0xDD00)))  # undecodable bytes under surrogateescape
+_LONE_SURROGATE = regex.compile(r"[\ud800-\udfff]")  # JSON escapes can spell them; UTF-8 cannot
 
 
 class CorpusError(Exception):
@@ -127,8 +129,8 @@ def find_inputs(root: str | Path, include: list[str], exclude: list[str]) -> lis
     found: set[str] = set()
     for pattern in include:
         found.update(p.relative_to(base).as_posix() for p in base.glob(pattern) if p.is_file())
-    dropped = {p for p in found for pattern in exclude if PurePosixPath(p).full_match(pattern)}
-    chosen = sorted(found - dropped)
+    excluded = {p.relative_to(base) for pattern in exclude for p in base.glob(pattern)}
+    chosen = sorted(p for p in found if not excluded.intersection([PurePosixPath(p), *PurePosixPath(p).parents]))
     unknown = [p for p in chosen if not split_name(p)[0]]
     if unknown:
         raise CorpusError(
@@ -155,6 +157,50 @@ def plan_chunks(root: str | Path, sources: list[str], chunk_bytes: int, text_uni
         count = 1 if whole else max(1, -(-size // chunk_bytes))
         chunks.extend(Chunk(chunk_key(source, k), source, k, count) for k in range(count))
     return chunks
+
+
+class _ZstdFrames(io.RawIOBase):
+    """Zstandard frames one after another, with an error when the input ends inside a frame.
+
+    zstandard's own readers end silently at a cut-off frame, which would lose the rest of the
+    file unnoticed. Input goes in small pieces, so one step's output stays bounded (a zstd
+    block expands at most about 44,000-fold, so 1 KiB gives at most about 44 MiB).
+    """
+
+    FEED = 1024
+
+    def __init__(self, raw: BinaryIO) -> None:
+        self._raw = raw
+        self._frame = zstandard.ZstdDecompressor().decompressobj()
+        self._inside = False  # the current frame has had input but not its end
+        self._ready = memoryview(b"")
+
+    def readable(self) -> bool:
+        return True
+
+    def readinto(self, buffer: bytearray) -> int:  # type: ignore[override]
+        while not self._ready:
+            data = self._raw.read(self.FEED)
+            if not data:
+                if self._inside:
+                    raise EOFError("the input ends inside a zstandard frame")
+                return 0
+            self._ready = memoryview(self._decode(data))
+        size = min(len(buffer), len(self._ready))
+        buffer[:size] = self._ready[:size]
+        self._ready = self._ready[size:]
+        return size
+
+    def _decode(self, data: bytes) -> bytes:
+        out = []
+        while data:
+            self._inside = True
+            out.append(self._frame.decompress(data))
+            if not self._frame.eof:
+                break
+            data, self._inside = self._frame.unused_data, False
+            self._frame = zstandard.ZstdDecompressor().decompressobj()
+        return b"".join(out)
 
 
 class _BoundedReader(io.RawIOBase):
@@ -198,7 +244,7 @@ def open_source(path: Path, max_decompressed_bytes: int) -> BinaryIO:
     elif compression == ".xz":
         inner = lzma.LZMAFile(raw)
     else:
-        inner = zstandard.ZstdDecompressor().stream_reader(raw, read_across_frames=True)
+        inner = io.BufferedReader(_ZstdFrames(raw), READ_BLOCK)
     return io.BufferedReader(_BoundedReader(inner, max_decompressed_bytes, str(path)), READ_BLOCK)
 
 
@@ -276,14 +322,21 @@ def _previous_line_blank(handle: BinaryIO, line_start: int) -> bool:
 
 
 def _grapheme_cut(data: bytes) -> int:
-    """Byte index of the last grapheme-cluster boundary before the final (maybe incomplete) cluster."""
+    """Byte index of the last grapheme-cluster boundary before the final (maybe incomplete) cluster.
+
+    The bytes of a character that the limit cut in two decode as escapes, one cluster each; they
+    all go to the next piece, so a piece never ends inside a UTF-8 sequence. When one cluster
+    fills the whole limit (e.g. a long run of combining marks), the cut falls between its code
+    points instead.
+    """
     text = data.decode("utf-8", "surrogateescape")
     last = None
     for last in _GRAPHEME.finditer(text):
         pass
-    if last is None or last.start() == 0:
-        return len(data)
-    return len(text[: last.start()].encode("utf-8", "surrogateescape"))
+    head = text[: last.start()].rstrip(_ESCAPED_BYTES) if last is not None else ""
+    if not head:
+        head = text.rstrip(_ESCAPED_BYTES)
+    return len(head.encode("utf-8", "surrogateescape")) or len(data)
 
 
 class _Assembler:
@@ -391,7 +444,7 @@ def _decoder(options: ReadOptions, tally: Tally, path: str):
 
     def decode(offset: int, data: bytes) -> str | None:
         if offset == 0 and data.startswith(codecs.BOM_UTF8):
-            data = data[3:]
+            data, offset = data[3:], 3
         try:
             return data.decode("utf-8")
         except UnicodeDecodeError as error:
@@ -409,6 +462,24 @@ def _decoder(options: ReadOptions, tally: Tally, path: str):
             return text
 
     return decode
+
+
+def _surrogate_policy(value: str, options: ReadOptions, tally: Tally, where: str) -> str | None:
+    """Apply the invalid-UTF-8 policy to a JSON string holding escaped lone surrogates (e.g.
+    "\\ud800"): they are not characters, so no UTF-8 file or Arrow column can hold them."""
+    if options.invalid_utf8 == "stop":
+        found = _LONE_SURROGATE.search(value)
+        assert found is not None
+        raise CorpusError(
+            f"{where}: field {options.jsonl_text_field!r} holds the lone surrogate escape \\u{ord(found.group()):04x} "
+            f"at character {found.start()}, which is not text; fix the record or set corpus.invalid_utf8 to replace or drop"
+        )
+    if options.invalid_utf8 == "drop":
+        tally.drop("invalid_utf8")
+        return None
+    replaced, count = _LONE_SURROGATE.subn("\ufffd", value)
+    tally.replaced_sequences += count
+    return replaced
 
 
 def _json_documents(
@@ -442,10 +513,16 @@ def _json_documents(
             record = json.loads(text)
         except json.JSONDecodeError as error:
             problem, reason = f"not valid JSON ({error.msg} at column {error.colno})", "bad_json"
+        except (ValueError, RecursionError) as error:  # e.g. a 5,000-digit number, nesting too deep
+            problem, reason = f"not readable JSON ({error})", "bad_json"
         if problem is None:
             value = record.get(options.jsonl_text_field) if isinstance(record, dict) else None
             if not isinstance(value, str):
                 problem, reason = f"no string field {options.jsonl_text_field!r}", "no_text"
+            elif _LONE_SURROGATE.search(value):
+                value = _surrogate_policy(value, options, tally, f"{path}: record at byte offset {position}")
+                if value is None:
+                    continue
         if problem is not None:
             if options.bad_records == "stop":
                 raise CorpusError(
@@ -455,7 +532,8 @@ def _json_documents(
             tally.drop(reason)
             continue
         raw_id = record.get(options.jsonl_id_field) if options.jsonl_id_field else None
-        doc_id = str(raw_id) if isinstance(raw_id, (str, int)) and not isinstance(raw_id, bool) else f"{chunk.source}:{position}"
+        usable = isinstance(raw_id, (str, int)) and not isinstance(raw_id, bool) and not _LONE_SURROGATE.search(str(raw_id))
+        doc_id = str(raw_id) if usable else f"{chunk.source}:{position}"
         yield Document(doc_id, chunk.source, position, value)
 
 

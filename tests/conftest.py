@@ -1,0 +1,50 @@
+"""Shared fixtures: running the real workflow in a temporary folder, and a built demo corpus."""
+
+from __future__ import annotations
+
+import os
+import subprocess
+import sys
+from pathlib import Path
+
+import pytest
+import yaml
+
+REPO = Path(__file__).resolve().parent.parent
+DEMO = REPO / "demo_raw"
+
+
+def run_workflow(
+    directory: Path, overrides: dict | None = None, *extra: str, cores: int = 2, check: bool = True
+) -> subprocess.CompletedProcess:
+    """Run the workflow in `directory` with an override config file; returns the finished process."""
+    directory.mkdir(parents=True, exist_ok=True)
+    override = directory / "override.yaml"
+    override.write_text(yaml.safe_dump(overrides or {}), encoding="utf-8")
+    command = [
+        sys.executable, "-m", "snakemake", "--snakefile", str(REPO / "Snakefile"), "--directory", str(directory),
+        "--cores", str(cores), "--configfile", str(override), *extra,
+    ]
+    result = subprocess.run(command, capture_output=True, text=True, env={**os.environ, "PYTHONHASHSEED": "0"})
+    if check and result.returncode != 0:
+        raise AssertionError(f"workflow failed ({result.returncode}):\n{result.stdout[-3000:]}\n{result.stderr[-6000:]}")
+    return result
+
+
+def require_file(path: str | Path, package: str) -> Path:
+    """Return an outside reference file; skip outside CI when missing, fail in CI."""
+    candidate = Path(path)
+    if candidate.exists():
+        return candidate
+    message = f"{candidate} is missing: install Debian's {package} package (apt-get install -y {package})"
+    if os.environ.get("CI") == "true":
+        pytest.fail(message)
+    pytest.skip(message)
+
+
+@pytest.fixture(scope="session")
+def demo_build(tmp_path_factory: pytest.TempPathFactory) -> Path:
+    """The demo corpus built once with the default configuration; returns the build folder."""
+    directory = tmp_path_factory.mktemp("demo")
+    run_workflow(directory, {"corpus": {"root": str(DEMO)}})
+    return directory / "build"

@@ -1,0 +1,169 @@
+"""Ingest: finding inputs, planning chunks, reading documents of every format and unit."""
+
+from __future__ import annotations
+
+import bz2
+import gzip
+import json
+import lzma
+from pathlib import Path
+
+import pytest
+import zstandard
+
+from steps.ingest import Chunk, CorpusError, ReadOptions, Tally, chunk_key, find_inputs, plan_chunks, read_documents, split_name
+
+
+def read_all(root: Path, source: str, chunk_bytes: int = 1 << 30, **options) -> tuple[list, Tally]:
+    tally = Tally()
+    size = (root / source).stat().st_size
+    opts = ReadOptions(**options)
+    chunks = plan_chunks(root, [source], chunk_bytes, opts.text_unit)
+    assert chunks and (size or True)
+    documents = [d for c in chunks for d in read_documents(root, c, chunk_bytes, opts, tally)]
+    return documents, tally
+
+
+def test_name_parts_recognise_format_and_compression():
+    assert split_name("a/b.jsonl.gz") == (".jsonl", ".gz")
+    assert split_name("x.TXT") == (".txt", "")
+    assert split_name("x.txt.zst") == (".txt", ".zst")
+    assert split_name("notes.md") == ("", "")
+
+
+def test_inputs_are_found_by_globs_sorted_and_excluded(tmp_path: Path):
+    for name in ["b/two.txt", "a/one.txt", "a/skip/three.txt", "four.jsonl.gz"]:
+        (tmp_path / name).parent.mkdir(parents=True, exist_ok=True)
+        (tmp_path / name).write_bytes(b"x")
+    found = find_inputs(tmp_path, ["**/*.txt", "**/*.jsonl.*"], ["a/skip/**"])
+    assert found == ["a/one.txt", "b/two.txt", "four.jsonl.gz"]
+
+
+def test_a_selected_file_of_unknown_format_is_an_error_naming_it(tmp_path: Path):
+    (tmp_path / "notes.md").write_text("x")
+    with pytest.raises(CorpusError, match=r"notes\.md: not a \.txt or \.jsonl"):
+        find_inputs(tmp_path, ["*"], [])
+
+
+def test_missing_root_is_an_error_saying_what_to_set(tmp_path: Path):
+    with pytest.raises(CorpusError, match="corpus.root"):
+        find_inputs(tmp_path / "nowhere", ["*.txt"], [])
+
+
+def test_chunk_plan_uses_sizes_only_and_keeps_compressed_files_whole(tmp_path: Path):
+    (tmp_path / "big.txt").write_bytes(b"a\n" * 5000)
+    (tmp_path / "big.txt.gz").write_bytes(gzip.compress(b"a\n" * 5000))
+    chunks = plan_chunks(tmp_path, ["big.txt", "big.txt.gz"], 4096, "paragraph")
+    assert [c.count for c in chunks] == [3, 3, 3, 1]
+    assert len({c.key for c in chunks}) == 4
+    assert chunk_key("big.txt", 0) == chunks[0].key  # stable: depends on the path and index only
+
+
+def test_paragraph_documents_with_offsets_as_ids(tmp_path: Path):
+    (tmp_path / "p.txt").write_bytes(b"one\ntwo\n\n  \n\nthree\n")
+    documents, tally = read_all(tmp_path, "p.txt")
+    assert [(d.doc_id, d.text) for d in documents] == [("p.txt:0", "one\ntwo\n"), ("p.txt:13", "three\n")]
+    assert tally.read == 2
+
+
+def test_line_and_file_units(tmp_path: Path):
+    (tmp_path / "l.txt").write_bytes(b"one\n\ntwo\r\nthree")
+    lines, _ = read_all(tmp_path, "l.txt", text_unit="line")
+    assert [d.text for d in lines] == ["one\n", "two\r\n", "three"]
+    whole, _ = read_all(tmp_path, "l.txt", text_unit="file")
+    assert [d.text for d in whole] == ["one\n\ntwo\r\nthree"]
+
+
+def test_lone_carriage_returns_end_lines(tmp_path: Path):
+    (tmp_path / "cr.txt").write_bytes(b"one\rtwo\r\rthree\r")
+    documents, _ = read_all(tmp_path, "cr.txt")
+    assert [d.text for d in documents] == ["one\rtwo\r", "three\r"]
+
+
+@pytest.mark.parametrize("suffix,compress", [
+    (".gz", gzip.compress), (".bz2", bz2.compress), (".xz", lzma.compress), (".zst", zstandard.ZstdCompressor().compress),
+])
+def test_compressed_files_read_like_plain_ones(tmp_path: Path, suffix, compress):
+    data = b"alpha beta\n\ngamma delta\n"
+    (tmp_path / f"c.txt{suffix}").write_bytes(compress(data))
+    documents, _ = read_all(tmp_path, f"c.txt{suffix}")
+    assert [d.text for d in documents] == ["alpha beta\n", "gamma delta\n"]
+
+
+def test_jsonl_text_and_id_fields(tmp_path: Path):
+    lines = [{"id": "a-1", "text": "first"}, {"text": "second"}, {"id": 7, "body": "x", "text": "third"}]
+    (tmp_path / "d.jsonl").write_text("\n".join(json.dumps(r) for r in lines) + "\n\n")
+    documents, tally = read_all(tmp_path, "d.jsonl")
+    assert [(d.doc_id, d.text) for d in documents] == [("a-1", "first"), ("d.jsonl:31", "second"), ("7", "third")]
+    assert tally.read == 3
+
+
+def test_broken_jsonl_line_stops_with_offset_or_is_dropped(tmp_path: Path):
+    (tmp_path / "d.jsonl").write_text('{"text": "ok"}\n{"text": broken\n{"other": 1}\n')
+    with pytest.raises(CorpusError, match=r"d\.jsonl: record at byte offset 15: not valid JSON"):
+        read_all(tmp_path, "d.jsonl")
+    documents, tally = read_all(tmp_path, "d.jsonl", bad_records="drop")
+    assert [d.text for d in documents] == ["ok"]
+    assert dict(tally.dropped) == {"bad_json": 1, "no_text": 1} and tally.read == 3
+
+
+def test_invalid_utf8_policies(tmp_path: Path):
+    (tmp_path / "bad.txt").write_bytes(b"good text\n\nbad \xff byte\n")
+    with pytest.raises(CorpusError, match=r"bad\.txt: invalid UTF-8 at byte offset 15.*corpus\.invalid_utf8"):
+        read_all(tmp_path, "bad.txt")
+    replaced, tally = read_all(tmp_path, "bad.txt", invalid_utf8="replace")
+    assert replaced[1].text == "bad \ufffd byte\n" and tally.replaced_sequences == 1
+    dropped, tally = read_all(tmp_path, "bad.txt", invalid_utf8="drop")
+    assert [d.text for d in dropped] == ["good text\n"] and tally.dropped["invalid_utf8"] == 1 and tally.read == 2
+
+
+def test_byte_order_mark_is_removed(tmp_path: Path):
+    (tmp_path / "bom.txt").write_bytes(b"\xef\xbb\xbfhello\n")
+    documents, _ = read_all(tmp_path, "bom.txt")
+    assert documents[0].text == "hello\n"
+
+
+def test_oversize_documents_follow_the_policy_at_grapheme_boundaries(tmp_path: Path):
+    cluster = "e\u0301"  # two code points, one grapheme
+    text = ("word " + cluster) * 400  # about 2.8 KB on one line
+    (tmp_path / "long.txt").write_text(text)
+    pieces, tally = read_all(tmp_path, "long.txt", max_document_bytes=1024, oversize="split")
+    assert "".join(p.text for p in pieces) == text
+    assert all(not p.text.startswith("\u0301") for p in pieces)
+    assert tally.read == 1 and tally.pieces_added == len(pieces) - 1 >= 2
+    truncated, tally = read_all(tmp_path, "long.txt", max_document_bytes=1024, oversize="truncate")
+    assert len(truncated) == 1 and text.startswith(truncated[0].text) and len(truncated[0].text.encode()) <= 1024
+    assert tally.truncated == 1
+    dropped, tally = read_all(tmp_path, "long.txt", max_document_bytes=1024, oversize="drop")
+    assert dropped == [] and tally.dropped["oversize"] == 1 and tally.read == 1
+
+
+def test_truncated_compressed_file_is_an_error_naming_it(tmp_path: Path):
+    (tmp_path / "t.txt.gz").write_bytes(gzip.compress(b"some text\n" * 1000)[:-30])
+    with pytest.raises(CorpusError, match=r"t\.txt\.gz: compressed data is damaged or truncated"):
+        read_all(tmp_path, "t.txt.gz")
+
+
+def test_decompression_limit_stops_a_bomb(tmp_path: Path):
+    (tmp_path / "bomb.txt.gz").write_bytes(gzip.compress(b"a" * (3 << 20)))
+    with pytest.raises(CorpusError, match="max_decompressed_mb"):
+        read_all(tmp_path, "bomb.txt.gz", max_decompressed_bytes=1 << 20)
+
+
+@pytest.mark.parametrize("unit", ["paragraph", "line"])
+@pytest.mark.parametrize("chunk_bytes", [7, 64, 1000])
+def test_chunking_never_changes_the_documents(tmp_path: Path, unit: str, chunk_bytes: int):
+    text = b"".join(
+        b"paragraph %d line one\r\nline two %d\n\n\n" % (i, i) if i % 3 else b"short %d\r\r" % i for i in range(60)
+    )
+    (tmp_path / "c.txt").write_bytes(text)
+    whole, _ = read_all(tmp_path, "c.txt", text_unit=unit)
+    chunked, _ = read_all(tmp_path, "c.txt", chunk_bytes=chunk_bytes, text_unit=unit)
+    assert [(d.doc_id, d.text) for d in chunked] == [(d.doc_id, d.text) for d in whole]
+
+
+def test_chunk_of_an_empty_file_yields_nothing(tmp_path: Path):
+    (tmp_path / "empty.txt").write_bytes(b"")
+    documents, tally = read_all(tmp_path, "empty.txt")
+    assert documents == [] and tally.read == 0
+    assert Chunk("k", "empty.txt", 0, 1).compressed is False

@@ -1,0 +1,58 @@
+"""Split: salted hash assignment, stability, fractions, duplicate removal."""
+
+from __future__ import annotations
+
+import math
+
+import pyarrow as pa
+
+from steps.split import assign_split, duplicate_mask, find_duplicates, fingerprint
+from steps.storage import write_table
+
+FRACTIONS = {"train": 0.8, "dev": 0.1, "test": 0.1}
+
+
+def test_assignment_depends_only_on_key_and_salt():
+    key = fingerprint("a document")
+    assert assign_split(key, "s", FRACTIONS) == assign_split(key, "s", FRACTIONS)
+    assignments = {assign_split(fingerprint(f"doc {i}"), "salt-a", FRACTIONS) for i in range(50)}
+    assert assignments == {"train", "dev", "test"}
+
+
+def test_adding_documents_never_moves_existing_ones():
+    before = {i: assign_split(fingerprint(f"doc {i}"), "s", FRACTIONS) for i in range(1000)}
+    after = {i: assign_split(fingerprint(f"doc {i}"), "s", FRACTIONS) for i in range(2000)}
+    assert all(after[i] == split for i, split in before.items())
+
+
+def test_fractions_fall_inside_the_binomial_interval():
+    """10,000 synthetic documents; each split count lies in the binomial 99.9% interval
+    (normal approximation, z = 3.29 for two-sided 99.9%)."""
+    n = 10_000
+    counts = {"train": 0, "dev": 0, "test": 0}
+    for i in range(n):
+        counts[assign_split(fingerprint(f"synthetic document {i}"), "corpusmill-split-v1", FRACTIONS)] += 1
+    for split, p in FRACTIONS.items():
+        half_width = 3.29 * math.sqrt(n * p * (1 - p))
+        assert abs(counts[split] - n * p) <= half_width, (split, counts[split])
+
+
+def test_zero_fractions_are_never_assigned():
+    only_train = {"train": 1.0, "dev": 0.0, "test": 0.0}
+    assert {assign_split(fingerprint(str(i)), "s", only_train) for i in range(200)} == {"train"}
+
+
+def test_duplicates_keep_the_first_in_corpus_order(tmp_path):
+    def chunk(path, source, texts):
+        write_table(path, pa.table({
+            "source": [source] * len(texts), "offset": list(range(len(texts))), "doc_id": [f"{source}:{i}" for i in range(len(texts))],
+            "fingerprint": pa.array([fingerprint(t) for t in texts], pa.binary(16)),
+        }))
+    chunk(tmp_path / "a.parquet", "a.txt", ["x", "y", "x"])
+    chunk(tmp_path / "b.parquet", "b.txt", ["y", "z"])
+    duplicates = find_duplicates([str(tmp_path / "a.parquet"), str(tmp_path / "b.parquet")])
+    assert duplicates.to_pylist() == [
+        {"source": "a.txt", "offset": 2, "doc_id": "a.txt:2", "duplicate_of": "a.txt:0"},
+        {"source": "b.txt", "offset": 0, "doc_id": "b.txt:0", "duplicate_of": "a.txt:1"},
+    ]
+    assert duplicate_mask(duplicates, "a.txt", pa.array([0, 1, 2])).to_pylist() == [False, False, True]

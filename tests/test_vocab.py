@@ -1,0 +1,85 @@
+"""Vocabulary: cutoffs, deterministic ids, reserved symbols, unknown classes, the file format."""
+
+from __future__ import annotations
+
+from collections import Counter
+
+import numpy as np
+import pyarrow as pa
+import pytest
+
+from steps.vocab import (
+    HEADER, RESERVED, UNK, Cutoff, Lookup, build_vocabulary, choose_size, read_vocabulary, sort_by_frequency, unknown_class,
+)
+
+
+def counts_table(train: dict[str, int], dev: dict[str, int] | None = None) -> pa.Table:
+    tokens = sorted(set(train) | set(dev or {}))
+    dev = dev or {}
+    return sort_by_frequency(pa.table({
+        "token": tokens, "train": [train.get(t, 0) for t in tokens], "dev": [dev.get(t, 0) for t in tokens], "test": [0] * len(tokens),
+    }))
+
+
+TRAIN = {"the": 10, "lamp": 4, "ferry": 4, "Oréla": 2, "1,200": 1, "ice-cold": 1, "ZZ": 1, "!!": 1, "rare": 1}
+
+
+def test_reserved_symbols_have_fixed_low_ids():
+    vocabulary = build_vocabulary(counts_table(TRAIN), Cutoff(min_count=2), "single")
+    assert vocabulary.tokens[:4] == ["<pad>", "<unk>", "<s>", "</s>"] == list(RESERVED)
+    assert vocabulary.reserved == {"<pad>": 0, "<unk>": 1, "<s>": 2, "</s>": 3}
+
+
+def test_words_by_descending_count_with_ties_in_code_point_order():
+    vocabulary = build_vocabulary(counts_table(TRAIN), Cutoff(min_count=2), "single")
+    assert vocabulary.tokens[4:] == ["the", "ferry", "lamp", "Oréla"]
+    assert vocabulary.counts[1] == 5  # <unk> carries the train tokens it stands for
+
+
+def test_cutoffs_by_count_size_and_coverage_combine():
+    train = np.array([50, 20, 10, 10, 5, 3, 1, 1])
+    assert choose_size(train, Cutoff(min_count=5)) == 5
+    assert choose_size(train, Cutoff(max_size=3)) == 3
+    assert choose_size(train, Cutoff(coverage=0.70)) == 2  # 70/100 covered by the top two
+    assert choose_size(train, Cutoff(coverage=0.71)) == 3
+    assert choose_size(train, Cutoff(min_count=2, max_size=4, coverage=0.99)) == 4
+    assert choose_size(train, Cutoff()) == 8
+
+
+def test_shape_classes_for_rare_words():
+    assert [unknown_class(t) for t in ["1,200", "ice-cold", "NASA", "Tüvvik", "!!", "rare"]] == [
+        "<unk-digits>", "<unk-hyphenated>", "<unk-upper>", "<unk-title>", "<unk-symbol>", UNK,
+    ]
+
+
+def test_lookup_maps_known_words_and_classes_unknown_ones():
+    vocabulary = build_vocabulary(counts_table(TRAIN), Cutoff(min_count=2), "shape")
+    ids = Lookup(vocabulary, "shape").ids(pa.array(["the", "Oréla", "1,200", "Zed", "unseen", "!!"]))
+    names = [vocabulary.tokens[i] for i in ids]
+    assert names == ["the", "Oréla", "<unk-digits>", "<unk-title>", "<unk>", "<unk-symbol>"]
+    single = build_vocabulary(counts_table(TRAIN), Cutoff(min_count=2), "single")
+    assert Lookup(single, "single").ids(pa.array(["Zed", "the"])).tolist() == [1, 4]
+
+
+def test_unknown_class_counts_match_a_counter_recount():
+    """collections.Counter recount of the train tokens that fall outside the vocabulary."""
+    vocabulary = build_vocabulary(counts_table(TRAIN), Cutoff(min_count=2), "shape")
+    recount = Counter()
+    for token, count in TRAIN.items():
+        if count < 2:
+            recount[unknown_class(token)] += count
+    for token, count in zip(vocabulary.tokens, vocabulary.counts):
+        if token.startswith("<unk"):
+            assert count == recount[token], token
+
+
+def test_file_round_trips_and_rejects_a_foreign_file(tmp_path):
+    vocabulary = build_vocabulary(counts_table(TRAIN), Cutoff(min_count=1), "shape")
+    path = tmp_path / "vocabulary.tsv"
+    path.write_text(vocabulary.to_tsv(), encoding="utf-8")
+    again = read_vocabulary(path)
+    assert again == vocabulary and again.digest() == vocabulary.digest()
+    assert path.read_text(encoding="utf-8").splitlines()[0] == HEADER
+    (tmp_path / "bad.tsv").write_text(HEADER + "\n0\t<pad>\t0\treserved\n2\tx\t1\tword\n")
+    with pytest.raises(ValueError, match=r"bad\.tsv: line 3"):
+        read_vocabulary(tmp_path / "bad.tsv")

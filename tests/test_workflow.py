@@ -1,0 +1,145 @@
+"""End to end: the workflow on the demo corpus, checked against the manifest and outside readers."""
+
+from __future__ import annotations
+
+import hashlib
+import json
+import shutil
+from collections import Counter
+from pathlib import Path
+
+import duckdb
+import pyarrow.compute as pc
+import pyarrow.parquet as pq
+import pytest
+
+from conftest import DEMO, run_workflow
+from steps.vocab import read_vocabulary
+
+
+def sha256(path: Path) -> str:
+    return hashlib.sha256(path.read_bytes()).hexdigest()
+
+
+def manifest(build: Path) -> dict:
+    return json.loads((build / "manifest.json").read_text())
+
+
+def test_layout_puts_results_at_the_top(demo_build: Path):
+    for name in ["manifest.json", "vocabulary.tsv", "stats/coverage.json", "stats/token_counts.parquet"]:
+        assert (demo_build / name).is_file(), name
+    for split in ("train", "dev", "test"):
+        assert sorted(p.name for p in (demo_build / "shards" / split).glob("*.parquet"))
+
+
+def test_every_shard_matches_its_manifest_entry(demo_build: Path):
+    shards = [s for figures in manifest(demo_build)["splits"].values() for s in figures["shards"]]
+    assert {s["file"] for s in shards} == {p.relative_to(demo_build).as_posix() for p in demo_build.glob("shards/*/*.parquet")}
+    for shard in shards:
+        path = demo_build / shard["file"]
+        assert sha256(path) == shard["sha256"]
+        assert pq.ParquetFile(path).metadata.num_rows == shard["rows"]
+
+
+def test_accounting_balances_and_counts_the_demo_messes(demo_build: Path):
+    accounting = manifest(demo_build)["accounting"]
+    assert accounting["balanced"]
+    assert accounting["read"] + accounting["pieces_added"] == accounting["kept"] + sum(accounting["dropped"].values())
+    assert accounting["dropped"]["duplicate"] >= 5  # the demo repeats paragraphs on purpose
+    assert accounting["dropped"].get("few_letters", 0) >= 1  # and holds a tally table of numbers
+
+
+def test_duckdb_reads_the_same_rows_and_ids_as_pyarrow(demo_build: Path):
+    """DuckDB as an independent Parquet reader."""
+    for path in sorted(demo_build.glob("shards/*/*.parquet")):
+        table = pq.read_table(path)
+        rows = duckdb.sql(f"SELECT * FROM read_parquet('{path}')").fetchall()
+        assert len(rows) == table.num_rows
+        for column, values in zip(table.column_names, zip(*rows) if rows else [[]] * table.num_columns):
+            assert [list(v) if isinstance(v, (list, tuple)) else v for v in values] == table[column].to_pylist(), (path, column)
+
+
+def test_vocabulary_counts_equal_a_counter_recount_of_train(demo_build: Path):
+    """collections.Counter recount over the train documents' tokens, duplicates removed."""
+    duplicates = pq.read_table(demo_build / "work" / "duplicates.parquet")
+    removed = set(zip(duplicates["source"].to_pylist(), duplicates["offset"].to_pylist()))
+    recount: Counter[str] = Counter()
+    for path in (demo_build / "work" / "prepared").glob("*.parquet"):
+        table = pq.read_table(path)
+        for source, offset, split, sentences in zip(*(table[c].to_pylist() for c in ("source", "offset", "split", "tokens"))):
+            if split == "train" and (source, offset) not in removed:
+                recount.update(token for sentence in sentences for token in sentence)
+    vocabulary = read_vocabulary(demo_build / "vocabulary.tsv")
+    for token, count, kind in zip(vocabulary.tokens, vocabulary.counts, vocabulary.kinds):
+        if kind == "word":
+            assert recount[token] == count, token
+    words = {t for t, k in zip(vocabulary.tokens, vocabulary.kinds) if k == "word"}
+    assert words == {t for t, c in recount.items() if c >= 2}  # the default cutoff: min_count 2
+    counts = pq.read_table(demo_build / "stats" / "token_counts.parquet")
+    assert dict(zip(counts["token"].to_pylist(), counts["train"].to_pylist())) == {**{t: 0 for t in counts["token"].to_pylist()}, **recount}
+
+
+def test_windows_have_three_context_ids_and_ids_below_vocabulary_size(demo_build: Path):
+    """n = 4 gives exactly 3 context ids per window (common practice)."""
+    size = manifest(demo_build)["vocabulary"]["size"]
+    for path in demo_build.glob("shards/*/ngram-*.parquet"):
+        table = pq.read_table(path)
+        assert table.schema.field("context").type.list_size == 3
+        assert pc.max(pc.list_flatten(table["context"])).as_py() < size and pc.max(table["target"]).as_py() < size
+        metadata = json.loads(pq.read_schema(path).metadata[b"corpusmill"])
+        assert metadata["vocabulary_sha256"] == manifest(demo_build)["vocabulary"]["sha256"] and metadata["n"] == 4
+
+
+def test_rows_per_split_add_up_across_kinds(demo_build: Path):
+    splits = manifest(demo_build)["splits"]
+    for split, figures in splits.items():
+        assert figures["rows"]["stream"] == figures["documents"]
+        # one window per token plus one </s> per sentence
+        assert figures["rows"]["ngram"] == figures["tokens"] + figures["sentences"], split
+
+
+def test_dev_and_test_keep_corpus_order(demo_build: Path):
+    for split in ("dev", "test"):
+        doc_ids = pq.read_table(demo_build / "shards" / split / "stream-0000.parquet")["doc_id"].to_pylist()
+        assert len(doc_ids) > 5
+        sources = [d.rsplit(":", 1)[0] for d in doc_ids if ":" in d]
+        assert sources == sorted(sources)
+
+
+def test_changing_one_input_reruns_only_its_chunk_and_the_aggregates(tmp_path: Path):
+    """Snakemake's own dry-run job list after editing one file."""
+    corpus = tmp_path / "corpus"
+    shutil.copytree(DEMO, corpus)
+    overrides = {"corpus": {"root": str(corpus)}}
+    run_workflow(tmp_path / "run", overrides)
+    assert "Nothing to be done" in run_workflow(tmp_path / "run", overrides, "-n").stdout
+    with open(corpus / "journals" / "recipes.txt", "a", encoding="utf-8") as handle:
+        handle.write("\nA new recipe for ember bread needs four cups of grey flour.\n")
+    plan = run_workflow(tmp_path / "run", overrides, "-n", "--quiet", "rules").stdout
+    jobs = {line.split()[0]: int(line.split()[1]) for line in plan.splitlines() if len(line.split()) == 2 and line.split()[1].isdigit()}
+    assert jobs["prepare"] == 1
+    assert jobs.get("count", 0) <= len(list(corpus.rglob("*.*")))
+    assert "vocabulary" in jobs and "manifest" in jobs
+
+
+def test_two_builds_are_byte_identical(tmp_path: Path, demo_build: Path):
+    again = tmp_path / "again"
+    run_workflow(again, {"corpus": {"root": str(DEMO)}}, cores=1)
+    for path in [*demo_build.glob("shards/*/*.parquet"), demo_build / "vocabulary.tsv", demo_build / "manifest.json"]:
+        relative = path.relative_to(demo_build)
+        assert sha256(again / "build" / relative) == sha256(path), relative
+
+
+def test_a_config_error_stops_before_any_job(tmp_path: Path):
+    result = run_workflow(tmp_path, {"corpus": {"root": str(DEMO)}, "vocabulary": {"unknown": "shapes"}}, check=False)
+    assert result.returncode != 0
+    assert 'vocabulary.unknown = "shapes": allowed: one of "single", "shape"' in result.stderr
+    assert not (tmp_path / "build").exists()
+
+
+@pytest.mark.parametrize("kinds", [{"ngram": {"enabled": False}}, {"blocks": {"enabled": False}, "streams": {"enabled": False}}])
+def test_disabled_kinds_write_no_files(tmp_path: Path, kinds: dict):
+    run_workflow(tmp_path, {"corpus": {"root": str(DEMO), "include": ["journals/*.txt"]}, "windows": kinds})
+    written = {p.name.split("-")[0] for p in (tmp_path / "build" / "shards").rglob("*.parquet")}
+    expected = {"ngram", "block", "stream"} - {{"ngram": "ngram", "blocks": "block", "streams": "stream"}[k] for k in kinds}
+    assert written == expected
