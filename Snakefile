@@ -37,15 +37,18 @@ wildcard_constraints:
     part=r"\d{4}",
 
 include: "rules/prepare.smk"
+include: "rules/subword.smk"
 include: "rules/vocabulary.smk"
 include: "rules/shards.smk"
 include: "rules/manifest.smk"
+include: "rules/report.smk"
 
 
 rule all:
     input:
         L.manifest,
         L.coverage,
+        L.report,
     default_target: True
 
 

@@ -1,8 +1,32 @@
 # Per-chunk reading, cleaning, segmentation and split; then corpus-wide duplicate removal.
 
+LEARNED = [L.abbreviations] if CONFIG["segment"]["learn_abbreviations"] else []
+
+
+rule abbreviations:
+    input:
+        sources=[os.path.join(PLAN.root, s) for s in PLAN.sources],
+    output:
+        L.abbreviations,
+    log:
+        L.log("abbreviations"),
+    params:
+        root=PLAN.root,
+        sources=PLAN.sources,
+        options=PLAN.options("abbreviations"),
+        code=code_hash("abbreviations"),
+    threads: 1
+    resources:
+        mem_mb=CONFIG["resources"]["aggregate_mem_mb"],
+        runtime=CONFIG["resources"]["runtime_min"],
+    shell:
+        step("segment", "--root {params.root:q} --options {params.options:q} --output {output:q} {params.sources:q}")
+
+
 rule prepare:
     input:
         source=lambda w: os.path.join(PLAN.root, PLAN.chunk(w.chunk).source),
+        abbreviations=LEARNED,
     output:
         table=L.prepared("{chunk}"),
         tally=L.tally("{chunk}"),
@@ -13,6 +37,7 @@ rule prepare:
         source=lambda w: PLAN.chunk(w.chunk).source,
         chunk_index=lambda w: PLAN.chunk(w.chunk).index,
         chunks=lambda w: PLAN.chunk(w.chunk).count,
+        learned=lambda w, input: f"--abbreviations {input.abbreviations}" if LEARNED else "",
         options=PLAN.options("prepare"),
         code=code_hash("prepare"),
     threads: 1
@@ -21,7 +46,7 @@ rule prepare:
         runtime=CONFIG["resources"]["runtime_min"],
     shell:
         step("prepare", "--root {params.root:q} --source {params.source:q} --chunk {params.chunk_index} "
-             "--chunks {params.chunks} --options {params.options:q} --output {output.table:q} --tally {output.tally:q}")
+             "--chunks {params.chunks} --options {params.options:q} {params.learned} --output {output.table:q} --tally {output.tally:q}")
 
 
 rule deduplicate:

@@ -1,4 +1,6 @@
 # Train-split counts per chunk, merged into the vocabulary; then ids per chunk.
+# Subword units (SUBWORD, rules/subword.smk): encode uses the sentencepiece model and writes
+# piece counts per chunk; the vocabulary is then the model's pieces with those counts.
 
 rule count:
     input:
@@ -22,8 +24,9 @@ rule count:
 
 rule vocabulary:
     input:
-        counts=[L.counts(c) for c in PLAN.chunk_keys],
-        frozen=[CONFIG["vocabulary"]["frozen"]] if CONFIG["vocabulary"]["frozen"] else [],
+        counts=[L.piece_counts(c) if SUBWORD else L.counts(c) for c in PLAN.chunk_keys],
+        frozen=[CONFIG["vocabulary"]["frozen"]] if CONFIG["vocabulary"]["frozen"] and not SUBWORD else [],
+        model=[L.subword_model] if SUBWORD else [],
     output:
         vocabulary=L.vocabulary,
         token_counts=L.token_counts,
@@ -31,6 +34,7 @@ rule vocabulary:
         L.log("vocabulary"),
     params:
         options=PLAN.options("vocabulary"),
+        model=f"--model {shlex.quote(L.subword_model)}" if SUBWORD else "",
         code=code_hash("vocabulary"),
     threads: 1
     resources:
@@ -38,27 +42,33 @@ rule vocabulary:
         runtime=CONFIG["resources"]["runtime_min"],
     shell:
         step("vocab build", "--options {params.options:q} --vocabulary {output.vocabulary:q} "
-             "--token-counts {output.token_counts:q} {input.counts:q}")
+             "--token-counts {output.token_counts:q} {params.model} {input.counts:q}")
 
 
 rule encode:
     input:
         table=L.prepared("{chunk}"),
         duplicates=L.duplicates,
-        vocabulary=L.vocabulary,
+        **({"model": L.subword_model} if SUBWORD else {"vocabulary": L.vocabulary}),
     output:
         parts=PLAN.encoded_outputs("{chunk}"),
         stats=L.encode_stats("{chunk}"),
+        **({"pieces": L.piece_counts("{chunk}")} if SUBWORD else {}),
     log:
         L.log("encode", "{chunk}"),
     params:
         source=lambda w: PLAN.chunk(w.chunk).source,
         options=PLAN.options("encode"),
+        ids=lambda w, input, output: (
+            f"--model {shlex.quote(input.model)} --pieces {shlex.quote(output.pieces)}"
+            if SUBWORD
+            else f"--vocabulary {shlex.quote(input.vocabulary)}"
+        ),
         code=code_hash("encode"),
-    threads: 1
+    threads: 2 if SUBWORD else 1
     resources:
         mem_mb=CONFIG["resources"]["prepare_mem_mb"],
         runtime=CONFIG["resources"]["runtime_min"],
     shell:
         step("encode", "--prepared {input.table:q} --source {params.source:q} --duplicates {input.duplicates:q} "
-             "--vocabulary {input.vocabulary:q} --options {params.options:q} --stats {output.stats:q} {output.parts:q}")
+             "{params.ids} --threads {threads} --options {params.options:q} --stats {output.stats:q} {output.parts:q}")

@@ -329,13 +329,11 @@ def _grapheme_cut(data: bytes) -> int:
     fills the whole limit (e.g. a long run of combining marks), the cut falls between its code
     points instead.
     """
-    text = data.decode("utf-8", "surrogateescape")
+    text = data.decode("utf-8", "surrogateescape").rstrip(_ESCAPED_BYTES)
     last = None
     for last in _GRAPHEME.finditer(text):
         pass
-    head = text[: last.start()].rstrip(_ESCAPED_BYTES) if last is not None else ""
-    if not head:
-        head = text.rstrip(_ESCAPED_BYTES)
+    head = text[: last.start()] if last is not None and last.start() > 0 else text
     return len(head.encode("utf-8", "surrogateescape")) or len(data)
 
 
@@ -501,9 +499,9 @@ def _json_documents(
         if complete and data.strip(_BLANK_BYTES) == b"":
             continue
         tally.read += 1
-        if not complete:
+        if not complete or len(data) > options.max_document_bytes:
             tally.drop("oversize")  # a JSON record cannot be split; its line is skipped whole
-            skipping = True
+            skipping = not complete
             continue
         text = decode(position, data)
         if text is None:

@@ -83,7 +83,18 @@ class Layout:
 
     @property
     def subword_sample(self) -> str:
-        return self._join("work", "subword", "train_sample.txt")
+        return self._join("work", "subword", "train_sample.jsonl")
+
+    @property
+    def subword_key(self) -> str:
+        return self._join("work", "subword", "train_sample.key")
+
+    def subword_trained(self, key: str) -> str:
+        """A learned model, cached under the key of its sample and settings."""
+        return self._join("work", "subword", "models", f"{key}.model")
+
+    def piece_counts(self, chunk: str) -> str:
+        return self._join("work", "encoded", chunk, "pieces.parquet")
 
     def log(self, rule: str, name: str = "") -> str:
         return self._join("logs", rule, f"{name or rule}.log")

@@ -107,6 +107,11 @@ def build_manifest(
             "size": vocabulary.size,
             "words": vocabulary.size - vocabulary.first_word_id,
             "reserved": vocabulary.reserved,
+            **(
+                {"subword_model": {"file": "subword.model", "sha256": file_sha256(base / "subword.model")}}
+                if config.get("units") == "subword"
+                else {}
+            ),
         },
         "files": {Path(p).relative_to(base).as_posix(): file_sha256(p) for p in extra_files},
         "splits": splits,

@@ -19,22 +19,31 @@ STEPS_DIR = Path(__file__).resolve().parent
 # The step modules each rule runs; editing one reruns the rules that use it.
 RULE_MODULES = {
     "prepare": ("ingest", "clean", "segment", "unicode_breaks", "split", "prepare", "storage"),
+    "abbreviations": ("segment", "unicode_breaks", "clean", "ingest", "storage"),
     "deduplicate": ("split", "storage"),
+    "subword_sample": ("subword", "split", "vocab", "storage"),
+    "subword_train": ("subword", "vocab", "storage"),
+    "subword_model": ("subword", "vocab", "storage"),
     "count": ("vocab", "split", "storage"),
     "vocabulary": ("vocab", "storage"),
     "encode": ("encode", "vocab", "split", "storage"),
     "shard": ("shards", "windows", "vocab", "storage"),
     "coverage": ("report", "vocab", "storage"),
     "manifest": ("manifest", "vocab", "settings", "storage"),
+    "report": ("report_page", "laws", "split", "settings", "storage"),
 }
 
 # The configuration sections each rule reads; changing another section does not rerun it.
 RULE_SECTIONS = {
     "prepare": ("corpus", "clean", "segment", "split", "units"),
+    "abbreviations": ("corpus", "clean"),
     "vocabulary": ("vocabulary", "units"),
-    "encode": ("vocabulary", "shards"),
+    "encode": ("vocabulary", "shards", "units", "subword"),
+    "subword_sample": ("subword",),
+    "subword_train": ("subword",),
     "shard": ("windows", "shards"),
-    "coverage": ("report",),
+    "coverage": ("report", "units"),
+    "report": ("report", "windows"),
 }
 
 

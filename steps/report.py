@@ -3,6 +3,10 @@
 Figures come from the merged token counts (stats/token_counts.parquet, frequency-sorted) and
 the vocabulary; the per-chunk encode statistics add the unknown-class breakdown and OOV per
 source file.
+
+In subword mode (units = subword) the figures are per split: pieces per whitespace word,
+pieces per sentence, the <unk> rate as encoded, the share of byte pieces, and the <unk> rate
+the same model would have without byte fallback (each run of byte pieces would be one <unk>).
 """
 
 from __future__ import annotations
@@ -103,8 +107,62 @@ def coverage_statistics(counts: pa.Table, vocabulary: Vocabulary, encode_stats: 
     }
 
 
+def subword_statistics(counts: pa.Table, vocabulary: Vocabulary, encode_stats: Sequence[dict]) -> dict:
+    """Subword coverage figures from the encode statistics and the piece counts."""
+    totals = {
+        split: dict.fromkeys(("documents", "sentences", "tokens", "oov_tokens", "words", "byte_pieces", "byte_runs"), 0)
+        for split in SPLITS
+    }
+    for stats in encode_stats:
+        for split in SPLITS:
+            for key in totals[split]:
+                totals[split][key] += stats["splits"][split][key]
+    splits = {}
+    for split, t in totals.items():
+        pieces, runs = t["tokens"], t["byte_runs"]
+        without_fallback = pieces - t["byte_pieces"] + runs
+        splits[split] = {
+            "documents": t["documents"],
+            "sentences": t["sentences"],
+            "words": t["words"],
+            "pieces": pieces,
+            "pieces_per_word": _rate(pieces, t["words"]),
+            "pieces_per_sentence": _rate(pieces, t["sentences"]),
+            "unknown_pieces": t["oov_tokens"],
+            "unknown_rate": _rate(t["oov_tokens"], pieces),
+            "byte_pieces": t["byte_pieces"],
+            "byte_piece_rate": _rate(t["byte_pieces"], pieces),
+            "unknown_rate_without_byte_fallback": _rate(t["oov_tokens"] + runs, without_fallback),
+        }
+    kinds = np.array(vocabulary.kinds)
+    train = np.array(vocabulary.counts)
+    return {
+        "units": "subword",
+        "vocabulary_size": vocabulary.size,
+        "pieces": int(np.count_nonzero(kinds == "piece")),
+        "byte_pieces": int(np.count_nonzero(kinds == "byte")),
+        "unused_in_train": int(np.count_nonzero((kinds != "control") & (train == 0))),
+        "splits": splits,
+        "most_frequent_train_pieces": [[t, int(c)] for t, c in zip(counts["token"].to_pylist()[:10], counts["train"].to_pylist()[:10])],
+    }
+
+
+def format_subword_table(stats: dict) -> str:
+    lines = [f"subword vocabulary: {stats['vocabulary_size']} ids, {stats['pieces']} pieces, {stats['byte_pieces']} byte pieces"]
+    lines.append(f"{'split':<6} {'pieces':>10} {'per word':>9} {'per sent.':>9} {'<unk>':>8} {'bytes':>8} {'<unk> w/o fallback':>19}")
+    for split in SPLITS:
+        f = stats["splits"][split]
+        lines.append(
+            f"{split:<6} {f['pieces']:>10} {f['pieces_per_word']:>9.3f} {f['pieces_per_sentence']:>9.2f} "
+            f"{f['unknown_rate']:>8.3%} {f['byte_piece_rate']:>8.3%} {f['unknown_rate_without_byte_fallback']:>19.3%}"
+        )
+    return "\n".join(lines)
+
+
 def format_table(stats: dict) -> str:
     """A short plain-text summary for the end of a run."""
+    if stats.get("units") == "subword":
+        return format_subword_table(stats)
     lines = [f"vocabulary: {stats['vocabulary_size']} ids, {stats['words']} words"]
     lines.append(f"{'split':<6} {'tokens':>10} {'types':>8} {'OOV tokens':>11} {'OOV rate':>9} {'OOV types':>9}")
     for split in SPLITS:
@@ -129,6 +187,13 @@ def main(argv: list[str] | None = None) -> None:
     parser.add_argument("encode_stats", nargs="*")
     args = parser.parse_args(argv)
     config = json.loads(args.options)
+    if config["units"] == "subword":
+        stats = subword_statistics(
+            pq.read_table(args.token_counts), read_vocabulary(args.vocabulary), [read_json(p) for p in args.encode_stats]
+        )
+        write_json(args.output, stats)
+        print(format_table(stats))
+        return
     stats = coverage_statistics(
         pq.read_table(args.token_counts),
         read_vocabulary(args.vocabulary),

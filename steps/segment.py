@@ -150,3 +150,52 @@ def is_lossless(text: str, tokens: list[str]) -> bool:
             return False
         position = found + len(token)
     return not text[position:].strip()
+
+
+def learned_abbreviations(root: str, sources: list[str], config: dict, sample_bytes: int) -> frozenset[str]:
+    """Abbreviations learned (steps.unicode_breaks.learn_abbreviations) from the cleaned text of
+    at most `sample_bytes` of documents from the start of each input file."""
+    from steps import unicode_breaks
+    from steps.clean import CleanOptions, clean_text
+    from steps.ingest import ReadOptions, Tally, plan_chunks, read_documents
+
+    clean = CleanOptions.from_config(config["clean"])
+    read = ReadOptions.from_config(config["corpus"])
+
+    def texts():
+        for source in sources:
+            chunk = plan_chunks(root, [source], 1 << 62, config["corpus"]["text_unit"])[0]
+            taken = 0
+            for document in read_documents(root, chunk, 1 << 62, read, Tally()):
+                yield clean_text(document.text, clean)
+                taken += len(document.text)
+                if taken >= sample_bytes:
+                    break
+
+    return unicode_breaks.learn_abbreviations(texts())
+
+
+def main(argv: list[str] | None = None) -> None:
+    import argparse
+    import json
+
+    from steps.ingest import CorpusError
+    from steps.storage import write_text
+
+    parser = argparse.ArgumentParser(description="Learn abbreviations from the corpus (segment.learn_abbreviations).")
+    parser.add_argument("--root", required=True)
+    parser.add_argument("--options", required=True, help="JSON: corpus, clean sections")
+    parser.add_argument("--sample-mb", type=float, default=16.0, help="text read from the start of each file")
+    parser.add_argument("--output", required=True)
+    parser.add_argument("sources", nargs="+")
+    args = parser.parse_args(argv)
+    try:
+        found = learned_abbreviations(args.root, args.sources, json.loads(args.options), int(args.sample_mb * (1 << 20)))
+    except CorpusError as error:
+        raise SystemExit(f"corpusmill: {error}") from None
+    write_text(args.output, "".join(f"{word}\n" for word in sorted(found)))
+    print(f"{len(found)} abbreviations learned")
+
+
+if __name__ == "__main__":
+    main()

@@ -25,6 +25,16 @@ def load_schema() -> dict[str, Any]:
     return json.loads(SCHEMA_PATH.read_text(encoding="utf-8"))
 
 
+def _unshared(value: Any) -> Any:
+    """A deep copy in which no two places share one object (YAML anchors and aliases make
+    shared mappings, and filling defaults into one must not fill the others)."""
+    if isinstance(value, dict):
+        return {key: _unshared(item) for key, item in value.items()}
+    if isinstance(value, list):
+        return [_unshared(item) for item in value]
+    return value
+
+
 def _fill_defaults(instance: dict[str, Any], schema: dict[str, Any]) -> None:
     """Insert schema defaults for missing keys, descending into objects."""
     for key, sub in schema.get("properties", {}).items():
@@ -74,7 +84,7 @@ def _check_relative(field: str, value: str) -> None:
 
 def resolve(raw: dict[str, Any]) -> dict[str, Any]:
     """Return the validated configuration with every default filled in; raise ConfigError."""
-    config = copy.deepcopy(dict(raw))
+    config = _unshared(dict(raw))
     schema = load_schema()
     _fill_defaults(config, schema)
     validator = jsonschema.Draft202012Validator(schema)

@@ -7,6 +7,13 @@ descending train count, ties broken by the token's code points.
 vocabulary.tsv: a header line `id<TAB>token<TAB>count<TAB>kind`, then one row per id in id
 order. kind is `reserved`, `unknown` (an out-of-vocabulary class; count = train tokens mapped
 to it) or `word` (count = train occurrences); in subword mode `piece`, `byte` or `control`.
+
+Subword mode: the rows are exactly the sentencepiece model's pieces in id order (ids 0-3 are
+<pad> <unk> <s> </s> with kind `control`, then byte pieces with kind `byte` when byte fallback
+is on, then learned pieces with kind `piece`); count = occurrences in the encoded train split.
+Pieces may hold a line break (the model keeps the cleaned text as it is), so piece fields of
+subword rows are written with backslash escapes for backslash, tab, line feed and carriage
+return (a backslash and one of \\, t, n, r); word rows are written as they are.
 """
 
 from __future__ import annotations
@@ -23,6 +30,7 @@ import pyarrow as pa
 import pyarrow.compute as pc
 import pyarrow.parquet as pq
 import regex
+import sentencepiece as spm
 
 from steps.layout import SPLITS
 from steps.split import duplicate_mask
@@ -31,6 +39,11 @@ from steps.storage import write_table, write_text
 PAD, UNK, BOS, EOS = "<pad>", "<unk>", "<s>", "</s>"
 RESERVED = (PAD, UNK, BOS, EOS)
 HEADER = "id\ttoken\tcount\tkind"
+SUBWORD_KINDS = frozenset({"piece", "byte", "control"})
+_ESCAPES = {"\\": "\\\\", "\t": "\\t", "\n": "\\n", "\r": "\\r"}
+_ESCAPED = regex.compile(r"[\\\t\n\r]")
+_UNESCAPED = regex.compile(r"\\(.)")
+_UNESCAPES = {"\\": "\\", "t": "\t", "n": "\n", "r": "\r"}
 
 # Unknown classes by word shape, tried in this order; a word matching none maps to <unk>.
 SHAPE_CLASSES = (
@@ -42,6 +55,8 @@ SHAPE_CLASSES = (
 )
 
 COUNTS_SCHEMA = pa.schema([("split", pa.string()), ("token", pa.string()), ("count", pa.int64())])
+# Chunk count tables merged per step of the running sum (bounds the vocabulary job's memory).
+MERGE_FILES = 16
 
 
 def unknown_class(token: str) -> str:
@@ -76,8 +91,14 @@ def count_chunk(prepared: str, source: str, duplicates: pa.Table) -> pa.Table:
 
 def merge_counts(paths: Sequence[str]) -> pa.Table:
     """One table token → train, dev, test counts, summed over chunks, sorted by (-train, token)."""
-    merged = pa.concat_tables([pq.read_table(p) for p in paths]) if paths else COUNTS_SCHEMA.empty_table()
-    summed = merged.group_by(["split", "token"]).aggregate([("count", "sum")])
+    # Sum a few chunk tables at a time into the running total: memory follows the vocabulary,
+    # not the number of chunks (integer sums, so the order of merging cannot change a count).
+    summed = COUNTS_SCHEMA.empty_table()
+    for start in range(0, len(paths), MERGE_FILES):
+        tables = [summed] + [pq.read_table(p) for p in paths[start : start + MERGE_FILES]]
+        grouped = pa.concat_tables(tables).group_by(["split", "token"]).aggregate([("count", "sum")])
+        summed = grouped.select(["split", "token", "count_sum"]).rename_columns(COUNTS_SCHEMA.names)
+    summed = summed.rename_columns(["split", "token", "count_sum"])
     tokens = pc.unique(summed["token"]) if summed.num_rows else pa.array([], pa.string())
     columns = {"token": tokens}
     for split in SPLITS:
@@ -143,11 +164,23 @@ class Vocabulary:
         return {token: i for i, (token, kind) in enumerate(zip(self.tokens, self.kinds)) if kind == "unknown" or token == UNK}
 
     def to_tsv(self) -> str:
-        rows = [HEADER] + [f"{i}\t{t}\t{c}\t{k}" for i, (t, c, k) in enumerate(zip(self.tokens, self.counts, self.kinds))]
+        rows = [HEADER] + [
+            f"{i}\t{escape(t) if k in SUBWORD_KINDS else t}\t{c}\t{k}"
+            for i, (t, c, k) in enumerate(zip(self.tokens, self.counts, self.kinds))
+        ]
         return "\n".join(rows) + "\n"
 
     def digest(self) -> str:
         return hashlib.sha256(self.to_tsv().encode("utf-8")).hexdigest()
+
+
+def escape(piece: str) -> str:
+    """A subword piece as one TSV field: backslash, tab, line feed and carriage return escaped."""
+    return _ESCAPED.sub(lambda m: _ESCAPES[m.group()], piece)
+
+
+def unescape(field: str) -> str:
+    return _UNESCAPED.sub(lambda m: _UNESCAPES.get(m.group(1), m.group()), field)
 
 
 def read_vocabulary(path: str | Path) -> Vocabulary:
@@ -162,7 +195,7 @@ def read_vocabulary(path: str | Path) -> Vocabulary:
         fields = line.split("\t")
         if len(fields) != 4 or not fields[0].isdigit() or int(fields[0]) != len(tokens):
             raise ValueError(f"{path}: line {number}: expected '{len(tokens)}<TAB>token<TAB>count<TAB>kind', got {line[:80]!r}")
-        tokens.append(fields[1])
+        tokens.append(unescape(fields[1]) if fields[3] in SUBWORD_KINDS else fields[1])
         counts.append(int(fields[2]))
         kinds.append(fields[3])
     return Vocabulary(tokens, counts, kinds)
@@ -217,6 +250,32 @@ def vocabulary_from_counts(count_paths: Sequence[str], config: dict, frozen: str
     return build_vocabulary(counts, Cutoff.from_config(vocabulary_config), vocabulary_config["unknown"]), counts
 
 
+def piece_kind(processor: spm.SentencePieceProcessor, piece_id: int) -> str:
+    if processor.is_byte(piece_id):
+        return "byte"
+    if processor.is_control(piece_id) or processor.is_unknown(piece_id):
+        return "control"
+    return "piece"
+
+
+def vocabulary_from_model(model: str, count_paths: Sequence[str]) -> tuple[Vocabulary, pa.Table]:
+    """The model's pieces in id order with their train counts, and token counts per split.
+
+    `count_paths` are the encode step's piece counts (split, id, count) per chunk."""
+    processor = spm.SentencePieceProcessor(model_file=model)
+    size = processor.get_piece_size()
+    pieces = [processor.id_to_piece(i) for i in range(size)]
+    per_split = {split: np.zeros(size, np.int64) for split in SPLITS}
+    for path in count_paths:
+        table = pq.read_table(path)
+        for split in SPLITS:
+            rows = table.filter(pc.equal(table["split"], split))
+            np.add.at(per_split[split], rows["id"].to_numpy(), rows["count"].to_numpy())
+    vocabulary = Vocabulary(pieces, per_split["train"].tolist(), [piece_kind(processor, i) for i in range(size)])
+    counts = pa.table({"token": pa.array(pieces, pa.string()), **{split: pa.array(per_split[split], pa.int64()) for split in SPLITS}})
+    return vocabulary, sort_by_frequency(counts)
+
+
 def main(argv: list[str] | None = None) -> None:
     parser = argparse.ArgumentParser(description="Count tokens of a chunk, or build the vocabulary from all counts.")
     sub = parser.add_subparsers(dest="command", required=True)
@@ -229,12 +288,21 @@ def main(argv: list[str] | None = None) -> None:
     build.add_argument("--options", required=True)
     build.add_argument("--vocabulary", required=True)
     build.add_argument("--token-counts", required=True)
+    build.add_argument("--model", help="sentencepiece model (units = subword; counts are then piece counts)")
     build.add_argument("counts", nargs="*")
     args = parser.parse_args(argv)
     if args.command == "count":
         write_table(args.output, count_chunk(args.prepared, args.source, pq.read_table(args.duplicates)))
         return
     config = json.loads(args.options)
+    if config["units"] == "subword":
+        if not args.model:
+            raise SystemExit("corpusmill: vocab build: units = subword needs --model")
+        vocabulary, counts = vocabulary_from_model(args.model, args.counts)
+        write_table(args.token_counts, counts)
+        write_text(args.vocabulary, vocabulary.to_tsv())
+        print(f"vocabulary: {vocabulary.size} ids from {args.model} ({vocabulary.kinds.count('byte')} byte pieces)")
+        return
     frozen = config["vocabulary"]["frozen"]
     try:
         vocabulary, counts = vocabulary_from_counts(args.counts, config, frozen)

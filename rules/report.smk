@@ -1,0 +1,24 @@
+# The vocabulary coverage report: one self-contained HTML page, also shown by `snakemake --report`.
+
+rule report:
+    input:
+        coverage=L.coverage,
+        manifest=L.manifest,
+        token_counts=L.token_counts,
+        duplicates=L.duplicates,
+        prepared=[L.prepared(c) for c in PLAN.chunk_keys],
+    output:
+        report(L.report, category="Vocabulary coverage", labels={"page": "coverage report"}),
+    log:
+        L.log("report"),
+    params:
+        options=PLAN.options("report"),
+        code=code_hash("report"),
+    threads: 1
+    resources:
+        mem_mb=CONFIG["resources"]["aggregate_mem_mb"],
+        runtime=CONFIG["resources"]["runtime_min"],
+    shell:
+        step("report_page", "--coverage {input.coverage:q} --manifest {input.manifest:q} "
+             "--token-counts {input.token_counts:q} --duplicates {input.duplicates:q} "
+             "--options {params.options:q} --output {output:q} {input.prepared:q}")

@@ -1,0 +1,446 @@
+"""Reader: a finished build folder as numpy batches for a training loop (numpy + pyarrow only).
+
+    from steps.reader import open_build
+
+    build = open_build("build")                  # checks the manifest, raises BuildError
+    build.splits                                 # ("dev", "test", "train")
+    build.kinds("train")                         # ("block", "ngram", "stream")
+    build.rows("train", "ngram")                 # rows of the split (or of one worker)
+    build.info("train", "ngram")                 # the shards' `corpusmill` metadata: n, reserved, …
+    build.vocabulary.tokens[id], .counts, .kinds, .size
+    for batch in build.batches("train", "ngram", 512, seed=1, epoch=0, rank=0, world_size=1):
+        batch["context"], batch["target"]        # [B, n-1], [B]
+
+Batches are dicts of numpy arrays, one per kind:
+  ngram   context [B, n-1], target [B]
+  block   ids [B, L+1]                 (inputs ids[:, :-1], targets ids[:, 1:])
+  stream  ids [sum of lengths], offsets [B+1] int64, doc_id list[str]
+          (document i is ids[offsets[i]:offsets[i+1]])
+Id arrays keep the shards' integer type (uint16 or uint32) unless `dtype` asks for another
+(PyTorch embeddings want np.int64). Without a cast and without row shuffling, a batch that
+lies inside one Parquet row group is a read-only view of Arrow's buffers (fixed_size_list
+values reshaped, no copy); a batch straddling two row groups, a cast or a shuffle copies.
+
+Order, shuffling and data-parallel workers (all deterministic):
+  1. Units are the row groups of the split's shards of one kind, in manifest order
+     (shard by shard, row group by row group). With `seed` set, the units are permuted by
+     numpy's default_rng([seed, epoch]), so shard order and row-group order change per epoch.
+  2. The units' rows, laid end to end in that order, are numbered 0..N-1. Worker `rank` of
+     `world_size` takes the contiguous range [floor(rank*N/W), floor((rank+1)*N/W)). Ranges are
+     disjoint, cover all N rows, differ in size by at most one row, and each worker decodes only
+     the row groups its range touches. Every worker computes the same permutation, so no
+     coordination is needed beyond passing the same seed and epoch.
+  3. With `seed` set and `shuffle_buffer` > 0, a worker's rows pass through a bounded buffer:
+     after each row group is appended, if the buffer holds more than `shuffle_buffer` rows it
+     is permuted (default_rng([seed, epoch, rank])) and all but `shuffle_buffer` rows are
+     emitted; the rest are permuted and emitted at the end. Memory is bounded by the buffer
+     plus one row group.
+  Same seed, epoch, rank and world_size → the same batches; another epoch → another order.
+  `seed=None` reads in manifest order without any shuffling (dev/test evaluation).
+
+Checks done by `open_build` (each failure raises BuildError naming the file and the fix):
+every shard listed in manifest.json exists, its Parquet footer has the recorded row count,
+its `corpusmill` metadata names the same split and kind, and its vocabulary_sha256 equals the
+SHA-256 of vocabulary.tsv, which must equal the manifest's. `verify_hashes=True` also hashes
+every shard file against the manifest (reads every byte; off by default).
+"""
+
+from __future__ import annotations
+
+import hashlib
+import json
+from collections.abc import Iterator
+from dataclasses import dataclass
+from pathlib import Path
+
+import numpy as np
+import pyarrow as pa
+import pyarrow.parquet as pq
+
+MANIFEST = "manifest.json"
+VOCABULARY = "vocabulary.tsv"
+VOCABULARY_HEADER = "id\ttoken\tcount\tkind"
+REBUILD = "rerun the workflow (snakemake) on this build folder to rewrite it"
+
+Batch = dict[str, "np.ndarray | list[str]"]
+
+
+class BuildError(ValueError):
+    """A build folder that does not match its manifest; the message names the file and the fix."""
+
+
+@dataclass(frozen=True)
+class Shard:
+    """One shard file as recorded in the manifest, with the row counts of its row groups."""
+
+    path: Path
+    split: str
+    kind: str
+    part: int
+    rows: int
+    sha256: str
+    group_rows: tuple[int, ...]
+    info: dict
+
+
+@dataclass(frozen=True)
+class VocabularyTable:
+    """vocabulary.tsv as parallel lists; `tokens[i]` is the token with id i."""
+
+    tokens: list[str]
+    counts: np.ndarray
+    kinds: list[str]
+
+    @property
+    def size(self) -> int:
+        return len(self.tokens)
+
+    def id(self, token: str) -> int:
+        """The id of a token (e.g. '</s>'); KeyError when absent."""
+        return self.tokens.index(token)
+
+
+def _sha256(path: Path) -> str:
+    hasher = hashlib.sha256()
+    with open(path, "rb") as handle:
+        while block := handle.read(1 << 22):
+            hasher.update(block)
+    return hasher.hexdigest()
+
+
+def _read_vocabulary(path: Path) -> VocabularyTable:
+    """Parse vocabulary.tsv without the workflow's code, so the reader stays dependency-light."""
+    lines = path.read_text(encoding="utf-8").split("\n")
+    if lines[0] != VOCABULARY_HEADER:
+        raise BuildError(f"{path}: line 1: expected the header {VOCABULARY_HEADER!r}; {REBUILD}")
+    tokens: list[str] = []
+    counts: list[int] = []
+    kinds: list[str] = []
+    for number, line in enumerate(lines[1:], start=2):
+        if not line:
+            continue
+        fields = line.split("\t")
+        if len(fields) != 4 or fields[0] != str(len(tokens)) or not fields[2].isdigit():
+            raise BuildError(f"{path}: line {number}: expected '{len(tokens)}<TAB>token<TAB>count<TAB>kind'; {REBUILD}")
+        tokens.append(fields[1])
+        counts.append(int(fields[2]))
+        kinds.append(fields[3])
+    return VocabularyTable(tokens, np.asarray(counts, dtype=np.int64), kinds)
+
+
+def _shard(root: Path, entry: dict, split: str, vocabulary_sha256: str, verify_hash: bool) -> Shard:
+    """Check one manifest entry against its file's footer and metadata."""
+    path = root / entry["file"]
+    if not path.is_file():
+        raise BuildError(f"{path}: listed in {root / MANIFEST} but missing; {REBUILD}")
+    try:
+        metadata = pq.read_metadata(path)
+    except (OSError, pa.ArrowException) as error:
+        raise BuildError(f"{path}: not a readable Parquet file ({error}); {REBUILD}") from error
+    if metadata.num_rows != entry["rows"]:
+        raise BuildError(
+            f"{path}: holds {metadata.num_rows} rows but {root / MANIFEST} records {entry['rows']}; {REBUILD}"
+        )
+    raw = (metadata.metadata or {}).get(b"corpusmill")
+    if raw is None:
+        raise BuildError(f"{path}: no 'corpusmill' key-value metadata; not written by this workflow; {REBUILD}")
+    info = json.loads(raw)
+    if (info.get("split"), info.get("kind")) != (split, entry["kind"]):
+        raise BuildError(
+            f"{path}: metadata says split={info.get('split')!r} kind={info.get('kind')!r}, "
+            f"{root / MANIFEST} says split={split!r} kind={entry['kind']!r}; {REBUILD}"
+        )
+    if info.get("vocabulary_sha256") != vocabulary_sha256:
+        raise BuildError(
+            f"{path}: written with vocabulary sha256 {info.get('vocabulary_sha256')}, but {root / VOCABULARY} "
+            f"has sha256 {vocabulary_sha256}; its ids mean other tokens; {REBUILD}"
+        )
+    if verify_hash and _sha256(path) != entry["sha256"]:
+        raise BuildError(f"{path}: SHA-256 differs from {root / MANIFEST}; the file was changed after the build; {REBUILD}")
+    groups = tuple(metadata.row_group(i).num_rows for i in range(metadata.num_row_groups))
+    return Shard(path, split, entry["kind"], int(entry["part"]), int(entry["rows"]), entry["sha256"], groups, info)
+
+
+def _worker_range(total: int, rank: int, world_size: int) -> tuple[int, int]:
+    """Rows [lo, hi) of worker `rank`: contiguous, disjoint, covering, sizes within one row."""
+    return total * rank // world_size, total * (rank + 1) // world_size
+
+
+def _single(column: pa.ChunkedArray) -> pa.Array:
+    """One contiguous Arrow array; copies only when the column has several chunks."""
+    return column.chunk(0) if column.num_chunks == 1 else column.combine_chunks()
+
+
+def _numpy(array: pa.Array) -> np.ndarray:
+    """A primitive Arrow array as numpy; zero-copy when it has no nulls (shards never do)."""
+    return array.to_numpy(zero_copy_only=False)
+
+
+class _Rows:
+    """A run of rows of one kind as numpy arrays, so batching and shuffling are numpy slicing.
+
+    Fixed kinds hold whole columns (ngram: context [R, n-1], target [R]; block: ids [R, L+1]).
+    Streams hold ids, offsets [R+1] into ids (not necessarily starting at 0, so slicing never
+    copies ids) and doc_id (an object array of str).
+    """
+
+    def __init__(self, columns: dict[str, np.ndarray], stream: bool) -> None:
+        self.columns = columns
+        self.stream = stream
+
+    @classmethod
+    def from_table(cls, kind: str, table: pa.Table) -> "_Rows":
+        if kind == "ngram":
+            context = _single(table.column("context"))
+            width = context.type.list_size
+            columns = {"context": _numpy(context.flatten()).reshape(-1, width), "target": _numpy(_single(table.column("target")))}
+            return cls(columns, stream=False)
+        if kind == "block":
+            ids = _single(table.column("ids"))
+            return cls({"ids": _numpy(ids.flatten()).reshape(-1, ids.type.list_size)}, stream=False)
+        lists = _single(table.column("ids"))
+        columns = {
+            "ids": _numpy(lists.values),
+            "offsets": _numpy(lists.offsets).astype(np.int64),
+            "doc_id": _single(table.column("doc_id")).to_numpy(zero_copy_only=False),
+        }
+        return cls(columns, stream=True)
+
+    def __len__(self) -> int:
+        return len(self.columns["doc_id" if self.stream else next(iter(self.columns))])
+
+    def slice(self, start: int, stop: int) -> "_Rows":
+        if not self.stream:
+            return _Rows({name: value[start:stop] for name, value in self.columns.items()}, stream=False)
+        columns = dict(self.columns)
+        columns["offsets"] = columns["offsets"][start : stop + 1]
+        columns["doc_id"] = columns["doc_id"][start:stop]
+        return _Rows(columns, stream=True)
+
+    def _compact_ids(self) -> tuple[np.ndarray, np.ndarray]:
+        """(ids of these rows only, offsets starting at 0)."""
+        offsets = self.columns["offsets"]
+        return self.columns["ids"][offsets[0] : offsets[-1]], offsets - offsets[0]
+
+    def take(self, order: np.ndarray) -> "_Rows":
+        """The rows in the given order (a copy; np.take is several times faster than fancy indexing here)."""
+        if not self.stream:
+            return _Rows({name: np.take(value, order, axis=0) for name, value in self.columns.items()}, stream=False)
+        offsets = self.columns["offsets"]
+        starts = offsets[:-1][order]
+        lengths = offsets[1:][order] - starts
+        placed = np.concatenate([[0], np.cumsum(lengths)]).astype(np.int64)
+        gather = np.repeat(starts - placed[:-1], lengths) + np.arange(placed[-1], dtype=np.int64)
+        ids = np.take(self.columns["ids"], gather)
+        return _Rows({"ids": ids, "offsets": placed, "doc_id": self.columns["doc_id"][order]}, stream=True)
+
+    @staticmethod
+    def concat(parts: list["_Rows"]) -> "_Rows":
+        """The parts' rows one after another (a copy)."""
+        if len(parts) == 1:
+            return parts[0]
+        if not parts[0].stream:
+            names = parts[0].columns
+            return _Rows({name: np.concatenate([part.columns[name] for part in parts]) for name in names}, stream=False)
+        pieces = [part._compact_ids() for part in parts]
+        bases = np.cumsum([0] + [len(ids) for ids, _ in pieces[:-1]])
+        offsets = np.concatenate([[0]] + [local[1:] + base for (_, local), base in zip(pieces, bases)]).astype(np.int64)
+        ids = np.concatenate([ids for ids, _ in pieces])
+        return _Rows({"ids": ids, "offsets": offsets, "doc_id": np.concatenate([part.columns["doc_id"] for part in parts])}, stream=True)
+
+    def batch(self, dtype: np.dtype | None) -> Batch:
+        """The public batch dict; ids cast to `dtype` when given (a copy)."""
+
+        def cast(ids: np.ndarray) -> np.ndarray:
+            return ids if dtype is None or ids.dtype == dtype else ids.astype(dtype)
+
+        if not self.stream:
+            return {name: cast(value) for name, value in self.columns.items()}
+        ids, offsets = self._compact_ids()
+        return {"ids": cast(ids), "offsets": offsets, "doc_id": self.columns["doc_id"].tolist()}
+
+
+def to_numpy(kind: str, table: pa.Table, dtype: np.dtype | None = None) -> Batch:
+    """Numpy arrays of one batch of rows of a shard table (see the module docstring)."""
+    return _Rows.from_table(kind, table).batch(None if dtype is None else np.dtype(dtype))
+
+
+class _Batcher:
+    """Cuts a stream of row runs into runs of exactly `size` rows (the last may be short)."""
+
+    def __init__(self, size: int) -> None:
+        self.size = size
+        self.pending: list[_Rows] = []
+        self.count = 0
+
+    def push(self, rows: _Rows) -> Iterator[_Rows]:
+        start, total = 0, len(rows)
+        if self.pending:
+            head = rows.slice(0, min(total, self.size - self.count))
+            self.pending.append(head)
+            self.count += len(head)
+            start = len(head)
+            if self.count < self.size:
+                return
+            yield _Rows.concat(self.pending)
+            self.pending, self.count = [], 0
+        while total - start >= self.size:
+            yield rows.slice(start, start + self.size)
+            start += self.size
+        if start < total:
+            self.pending, self.count = [rows.slice(start, total)], total - start
+
+    def finish(self) -> Iterator[_Rows]:
+        if self.pending:
+            yield _Rows.concat(self.pending)
+            self.pending, self.count = [], 0
+
+
+class Build:
+    """A checked build folder; use `open_build` to make one."""
+
+    def __init__(self, root: Path, manifest: dict, vocabulary: VocabularyTable, shards: list[Shard]) -> None:
+        self.root = root
+        self.manifest = manifest
+        self.vocabulary = vocabulary
+        self._shards = shards
+
+    @property
+    def splits(self) -> tuple[str, ...]:
+        """Splits with at least one shard, in manifest order (the manifest sorts them by name)."""
+        return tuple(dict.fromkeys(shard.split for shard in self._shards))
+
+    def kinds(self, split: str) -> tuple[str, ...]:
+        """Kinds (ngram, block, stream) that the split has shards of, sorted."""
+        return tuple(sorted({shard.kind for shard in self._shards if shard.split == split}))
+
+    def shards(self, split: str, kind: str) -> list[Shard]:
+        """The checked shard files of one split and kind, in manifest order."""
+        chosen = [shard for shard in self._shards if shard.split == split and shard.kind == kind]
+        if not chosen:
+            available = ", ".join(f"{s}/{k}" for s in self.splits for k in self.kinds(s))
+            raise BuildError(f"{self.root / MANIFEST}: no {split}/{kind} shards; available: {available or 'none'}")
+        return chosen
+
+    def info(self, split: str, kind: str) -> dict:
+        """The shards' `corpusmill` metadata (n or length, reserved ids, vocabulary size), minus the part."""
+        info = dict(self.shards(split, kind)[0].info)
+        info.pop("part", None)
+        return info
+
+    def rows(self, split: str, kind: str, rank: int = 0, world_size: int = 1) -> int:
+        """Rows that worker `rank` of `world_size` reads per epoch (the whole split by default)."""
+        _check_worker(rank, world_size)
+        lo, hi = _worker_range(sum(shard.rows for shard in self.shards(split, kind)), rank, world_size)
+        return hi - lo
+
+    def _units(self, split: str, kind: str, seed: int | None, epoch: int) -> list[tuple[Shard, int, int]]:
+        """(shard, row group, rows) in reading order: manifest order, or permuted by (seed, epoch)."""
+        units = [(shard, group, rows) for shard in self.shards(split, kind) for group, rows in enumerate(shard.group_rows)]
+        if seed is None:
+            return units
+        order = np.random.default_rng([seed, epoch]).permutation(len(units))
+        return [units[i] for i in order]
+
+    def tables(
+        self, split: str, kind: str, *, seed: int | None = None, epoch: int = 0, rank: int = 0, world_size: int = 1
+    ) -> Iterator[pa.Table]:
+        """Worker `rank`'s slice of the split as Arrow tables, one per row group touched, unshuffled rows."""
+        _check_worker(rank, world_size)
+        units = self._units(split, kind, seed, epoch)
+        lo, hi = _worker_range(sum(rows for _, _, rows in units), rank, world_size)
+        start = 0
+        opened: tuple[Path, pq.ParquetFile] | None = None
+        for shard, group, rows in units:
+            first, last = max(lo, start), min(hi, start + rows)
+            if first < last:
+                if opened is None or opened[0] != shard.path:
+                    opened = (shard.path, pq.ParquetFile(shard.path))
+                table = opened[1].read_row_group(group)
+                yield table.slice(first - start, last - first)
+            start += rows
+            if start >= hi:
+                break
+
+    def batches(
+        self,
+        split: str,
+        kind: str,
+        batch_size: int,
+        *,
+        seed: int | None = None,
+        epoch: int = 0,
+        rank: int = 0,
+        world_size: int = 1,
+        shuffle_buffer: int = 65536,
+        drop_last: bool = False,
+        dtype: np.dtype | type | None = None,
+    ) -> Iterator[Batch]:
+        """Numpy batches of worker `rank`'s rows; see the module docstring for order and sharding."""
+        if batch_size < 1 or shuffle_buffer < 0:
+            raise ValueError(f"batch_size must be >= 1 and shuffle_buffer >= 0, got {batch_size} and {shuffle_buffer}")
+        cast = None if dtype is None else np.dtype(dtype)
+        batcher = _Batcher(batch_size)
+        for rows in self._shuffled(split, kind, seed, epoch, rank, world_size, shuffle_buffer):
+            for batch in batcher.push(rows):
+                yield batch.batch(cast)
+        if not drop_last:
+            for batch in batcher.finish():
+                yield batch.batch(cast)
+
+    def _shuffled(
+        self, split: str, kind: str, seed: int | None, epoch: int, rank: int, world_size: int, capacity: int
+    ) -> Iterator[_Rows]:
+        """The worker's rows, row group by row group, through the bounded shuffle buffer (none without a seed)."""
+        tables = self.tables(split, kind, seed=seed, epoch=epoch, rank=rank, world_size=world_size)
+        runs = (_Rows.from_table(kind, table) for table in tables)
+        if seed is None or capacity == 0:
+            yield from runs
+            return
+        rng = np.random.default_rng([seed, epoch, rank])
+        buffer: _Rows | None = None
+        for run in runs:
+            buffer = run if buffer is None else _Rows.concat([buffer, run])
+            if len(buffer) > capacity:
+                mixed = buffer.take(rng.permutation(len(buffer)))
+                cut = len(buffer) - capacity
+                yield mixed.slice(0, cut)
+                buffer = mixed.slice(cut, len(mixed))
+        if buffer is not None and len(buffer):
+            yield buffer.take(rng.permutation(len(buffer)))
+
+
+def _check_worker(rank: int, world_size: int) -> None:
+    if world_size < 1 or not 0 <= rank < world_size:
+        raise ValueError(f"need 0 <= rank < world_size, got rank={rank}, world_size={world_size}")
+
+
+def open_build(path: str | Path, *, verify_hashes: bool = False) -> Build:
+    """Open a build folder (the one holding manifest.json, or its parent) and check it."""
+    root = Path(path)
+    if not (root / MANIFEST).is_file() and (root / "build" / MANIFEST).is_file():
+        root = root / "build"
+    manifest_path = root / MANIFEST
+    if not manifest_path.is_file():
+        raise BuildError(f"{manifest_path}: missing; point open_build at a finished build folder or run the workflow")
+    try:
+        manifest = json.loads(manifest_path.read_text(encoding="utf-8"))
+    except json.JSONDecodeError as error:
+        raise BuildError(f"{manifest_path}: line {error.lineno}: not valid JSON ({error.msg}); {REBUILD}") from error
+    vocabulary_path = root / VOCABULARY
+    if not vocabulary_path.is_file():
+        raise BuildError(f"{vocabulary_path}: missing; {REBUILD}")
+    vocabulary_sha256 = _sha256(vocabulary_path)
+    recorded = manifest["vocabulary"]["sha256"]
+    if vocabulary_sha256 != recorded:
+        raise BuildError(
+            f"{vocabulary_path}: sha256 {vocabulary_sha256} differs from {recorded} recorded in {manifest_path}; "
+            f"the vocabulary was edited or replaced after the build; {REBUILD}"
+        )
+    vocabulary = _read_vocabulary(vocabulary_path)
+    shards = [
+        _shard(root, entry, split, vocabulary_sha256, verify_hashes)
+        for split, figures in manifest["splits"].items()
+        for entry in figures["shards"]
+    ]
+    return Build(root, manifest, vocabulary, shards)

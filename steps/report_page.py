@@ -1,0 +1,392 @@
+"""The vocabulary coverage report: one self-contained HTML page per build (build/report/index.html).
+
+It reads the coverage statistics, the manifest, the merged token counts and, for vocabulary
+growth, the train token stream of the prepared chunks in corpus order (duplicates left out,
+exactly what the count step counted). Plots are PNG images embedded as base64, drawn with
+matplotlib's Agg backend without metadata, so the page needs no network and its bytes are the
+same on every run.
+"""
+
+from __future__ import annotations
+
+import argparse
+import base64
+import html
+import io
+import json
+from collections.abc import Iterator, Sequence
+
+import matplotlib
+
+matplotlib.use("Agg")
+
+import numpy as np
+import pyarrow as pa
+import pyarrow.compute as pc
+import pyarrow.parquet as pq
+from matplotlib.figure import Figure
+from matplotlib.ticker import PercentFormatter
+
+from steps.laws import FLOAT32_BYTES, ModelSize, PowerFit, fit_heaps, fit_zipf, growth_curve, log_points
+from steps.layout import SPLITS
+from steps.settings import read_json
+from steps.split import duplicate_mask
+from steps.storage import write_text
+
+BATCH_TOKENS = 1 << 20
+COLOURS = {"train": "#1f5f8b", "dev": "#d9822b", "test": "#3a8f4b"}
+STYLE = """
+body{font-family:system-ui,-apple-system,"Segoe UI",sans-serif;max-width:62rem;margin:2rem auto;padding:0 1rem;color:#1b1f24;line-height:1.45}
+h1{font-size:1.6rem;margin-bottom:.2rem} h2{font-size:1.25rem;margin-top:2.4rem;border-bottom:1px solid #d0d7de;padding-bottom:.2rem}
+h3{font-size:1.05rem} p.lead{color:#57606a;margin-top:0} nav ol{columns:2}
+table{border-collapse:collapse;margin:.6rem 0 1rem;font-size:.92rem} th,td{padding:.22rem .6rem;border-bottom:1px solid #eaeef2}
+th{text-align:left;background:#f6f8fa} td.n{text-align:right;font-variant-numeric:tabular-nums} tr.chosen td{font-weight:600;background:#fff8c5}
+figure{margin:1rem 0} figure img{max-width:100%;height:auto;border:1px solid #eaeef2} figcaption{color:#57606a;font-size:.9rem}
+.pair{display:flex;gap:2rem;flex-wrap:wrap} code{background:#f6f8fa;padding:0 .2rem}
+"""
+
+
+# ---------------------------------------------------------------- data
+
+
+def train_token_batches(prepared: Sequence[str], duplicates: pa.Table, vocabulary: pa.Array) -> Iterator[np.ndarray]:
+    """Type ids (positions in `vocabulary`) of the train tokens in corpus order, in bounded batches."""
+    pending: list[pa.Array] = []
+    size = 0
+    for path in prepared:
+        reader = pq.ParquetFile(path)
+        for batch in reader.iter_batches(batch_size=256, columns=["source", "offset", "split", "tokens"]):
+            keep = pc.equal(batch["split"], "train")
+            for source in pc.unique(batch["source"]).to_pylist():
+                mine = pc.equal(batch["source"], source)
+                dropped = pc.and_(mine, duplicate_mask(duplicates, source, batch["offset"]))
+                keep = pc.and_(keep, pc.invert(dropped))
+            rows = batch.filter(keep)
+            if not rows.num_rows:
+                continue
+            tokens = pc.list_flatten(pc.list_flatten(rows["tokens"]))
+            pending.append(tokens)
+            size += len(tokens)
+            if size >= BATCH_TOKENS:
+                yield _type_ids(pending, vocabulary, path)
+                pending, size = [], 0
+        if pending:
+            yield _type_ids(pending, vocabulary, path)
+            pending, size = [], 0
+
+
+def _type_ids(pieces: list[pa.Array], vocabulary: pa.Array, path: str) -> np.ndarray:
+    tokens = pa.concat_arrays(pieces)
+    ids = pc.index_in(tokens, value_set=vocabulary)
+    if ids.null_count:
+        missing = tokens.filter(pc.is_null(ids))[0].as_py()
+        raise SystemExit(
+            f"corpusmill: {path}: train token {missing!r} is not in stats/token_counts.parquet; "
+            "the counts are older than the prepared chunks: rerun the workflow"
+        )
+    return ids.to_numpy(zero_copy_only=False)
+
+
+def coverage_curve(counts: pa.Table, points: int = 300) -> dict[str, np.ndarray]:
+    """Train coverage and dev/test OOV rate if the vocabulary were the k most frequent train words."""
+    train = counts["train"].to_numpy()
+    sizes = log_points(int(np.count_nonzero(train)), points)
+    curve = {"size": sizes}
+    for split in SPLITS:
+        column = counts[split].to_numpy()
+        cumulative = np.concatenate([[0], np.cumsum(column, dtype=np.int64)])
+        total = cumulative[-1]
+        covered = cumulative[sizes] / total if total else np.zeros(len(sizes))
+        curve[split] = covered if split == "train" else 1.0 - covered
+    return curve
+
+
+# ---------------------------------------------------------------- plots
+
+
+def _png(figure: Figure) -> str:
+    """The figure as a base64 PNG without metadata (no software version, no date)."""
+    buffer = io.BytesIO()
+    figure.savefig(buffer, format="png", dpi=96, metadata={"Software": None})
+    return base64.b64encode(buffer.getvalue()).decode("ascii")
+
+
+def _figure() -> tuple[Figure, object]:
+    figure = Figure(figsize=(8.0, 4.3), layout="constrained")
+    axes = figure.add_subplot()
+    axes.grid(True, which="major", color="#dddddd", linewidth=0.6)
+    return figure, axes
+
+
+def _percent(axis: object) -> None:
+    axis.set_major_formatter(PercentFormatter(1.0))
+
+
+def plot_coverage(curve: dict[str, np.ndarray], chosen: int) -> str:
+    figure, axes = _figure()
+    axes.plot(curve["size"], curve["train"], color=COLOURS["train"], label="train tokens covered")
+    for split in ("dev", "test"):
+        axes.plot(curve["size"], curve[split], color=COLOURS[split], label=f"{split} tokens out of vocabulary")
+    axes.axvline(chosen, color="#8250df", linestyle="--", linewidth=1.2, label=f"this build: {chosen:,} words")
+    axes.set_xscale("log")
+    axes.set_ylim(0, 1)
+    _percent(axes.yaxis)
+    axes.set_xlabel("words kept (most frequent in train first)")
+    axes.set_ylabel("share of tokens")
+    axes.legend(loc="center right", fontsize=9)
+    return _png(figure)
+
+
+def plot_zipf(ranks: np.ndarray, counts: np.ndarray, fit: PowerFit) -> str:
+    figure, axes = _figure()
+    axes.loglog(ranks, counts, ".", color=COLOURS["train"], markersize=4, label="train words")
+    axes.loglog(ranks, fit.constant * ranks.astype(np.float64) ** (-fit.exponent), color="#cf222e", linewidth=1.2,
+                label=f"fit: count ≈ {fit.constant:,.0f} · rank$^{{-{fit.exponent:.3f}}}$")
+    axes.set_xlabel("rank")
+    axes.set_ylabel("train count")
+    axes.legend(fontsize=9)
+    return _png(figure)
+
+
+def plot_growth(tokens: np.ndarray, types: np.ndarray, fit: PowerFit) -> str:
+    figure, axes = _figure()
+    axes.loglog(tokens, types, color=COLOURS["train"], label="distinct words seen")
+    axes.loglog(tokens, fit(tokens), color="#cf222e", linestyle="--", linewidth=1.2,
+                label=f"fit: types ≈ {fit.constant:.2f} · tokens$^{{{fit.exponent:.3f}}}$")
+    axes.axvspan(fit.fit_from, float(tokens.max()), color="#cf222e", alpha=0.06, label="fitted range")
+    axes.set_xlabel("train tokens read (corpus order)")
+    axes.set_ylabel("distinct words")
+    axes.legend(fontsize=9)
+    return _png(figure)
+
+
+def plot_sources(sources: dict[str, dict]) -> str:
+    names = list(sources)
+    figure = Figure(figsize=(8.0, 0.9 + 0.42 * len(names)), layout="constrained")
+    axes = figure.add_subplot()
+    axes.grid(True, axis="x", color="#dddddd", linewidth=0.6)
+    height = 0.8 / len(SPLITS)
+    positions = np.arange(len(names))
+    for index, split in enumerate(SPLITS):
+        rates = [sources[name][split]["oov_rate"] for name in names]
+        axes.barh(positions + (index - 1) * height, rates, height=height, color=COLOURS[split], label=split)
+    axes.set_yticks(positions, names, fontsize=8)
+    axes.invert_yaxis()
+    _percent(axes.xaxis)
+    axes.set_xlabel("tokens out of vocabulary")
+    axes.legend(fontsize=9)
+    return _png(figure)
+
+
+# ---------------------------------------------------------------- HTML
+
+
+class Shown(str):
+    """A number already formatted for display (a rate, a byte size): right-aligned like numbers."""
+
+
+def _cell(value: object) -> str:
+    if isinstance(value, bool):
+        return f"<td>{'yes' if value else 'no'}</td>"
+    if isinstance(value, int):
+        return f'<td class="n">{value:,}</td>'
+    if isinstance(value, Shown):
+        return f'<td class="n">{html.escape(value)}</td>'
+    return f"<td>{html.escape(str(value))}</td>"
+
+
+def table(headers: Sequence[str], rows: Sequence[Sequence[object]], marked: Sequence[bool] = ()) -> str:
+    head = "".join(f"<th>{html.escape(h)}</th>" for h in headers)
+    body = []
+    for index, row in enumerate(rows):
+        mark = ' class="chosen"' if index < len(marked) and marked[index] else ""
+        body.append(f"<tr{mark}>" + "".join(_cell(v) for v in row) + "</tr>")
+    return f"<table><thead><tr>{head}</tr></thead><tbody>{''.join(body)}</tbody></table>"
+
+
+def image(png: str, alt: str, caption: str) -> str:
+    return (f'<figure><img src="data:image/png;base64,{png}" alt="{html.escape(alt)}">'
+            f"<figcaption>{html.escape(caption)}</figcaption></figure>")
+
+
+def _rate(value: float) -> Shown:
+    return Shown(f"{value:.2%}")
+
+
+def _bytes(count: int) -> str:
+    for unit, scale in (("GiB", 1 << 30), ("MiB", 1 << 20), ("KiB", 1 << 10)):
+        if count >= scale:
+            return f"{count / scale:,.1f} {unit}"
+    return f"{count:,} B"
+
+
+def _sized(count: int) -> Shown:
+    """A parameter or value count with its float32 size beside it."""
+    return Shown(f"{count:,} ({_bytes(count * FLOAT32_BYTES)})")
+
+
+SIZING_ROWS = (
+    ("embedding table, |V|·m parameters", "embedding_parameters"),
+    ("context input, (n−1)·m values per example", "input_values"),
+    ("hidden layer, (n−1)·m·h + h parameters", "hidden_parameters"),
+    ("output layer, h·|V| + |V| parameters", "output_parameters"),
+    ("all parameters", "parameters"),
+)
+
+
+def sizing_rows(vocabulary: int, widths: Sequence[int], context: int, hidden: int) -> list[list[object]]:
+    """One row per figure, one column per embedding width; counts with float32 bytes."""
+    tables = [ModelSize(vocabulary, width, context, hidden).table() for width in widths]
+    rows: list[list[object]] = [[label] + [_sized(t[key]) for t in tables] for label, key in SIZING_ROWS]
+    rows.append(["softmax multiply-adds per predicted token, h·|V|"] + [t["softmax_multiply_adds"] for t in tables])
+    return rows
+
+
+def render(
+    coverage: dict,
+    manifest: dict,
+    curve: dict[str, np.ndarray],
+    zipf: tuple[PowerFit, np.ndarray, np.ndarray],
+    growth: tuple[np.ndarray, np.ndarray, PowerFit],
+    options: dict,
+) -> str:
+    """The whole page as one HTML string."""
+    words = coverage["words"]
+    size = coverage["vocabulary_size"]
+    splits = coverage["splits"]
+    zipf_fit, ranks, ranked = zipf
+    tokens, types, heaps_fit = growth
+    report = options["report"]
+    context = options["windows"]["ngram"]["n"] - 1
+    sections: list[tuple[str, str, str]] = []
+
+    chosen_rows = coverage["sizes"]
+    sections.append(("coverage", "How much the vocabulary covers", "".join([
+        f"<p>{words:,} words kept ({size:,} ids with the reserved and unknown-class symbols). "
+        f"They cover {1 - splits['train']['oov_rate']:.2%} of train tokens; "
+        f"{_rate(splits['dev']['oov_rate'])} of dev and {_rate(splits['test']['oov_rate'])} of test tokens are out of vocabulary.</p>",
+        image(plot_coverage(curve, words), "coverage curve",
+              "Keeping the k most frequent train words: share of train tokens covered, and dev/test tokens left out."),
+        table(["words kept", "train covered", "dev OOV", "test OOV"],
+              [[r["size"], _rate(r["train_coverage"]), _rate(r["dev_oov_rate"]), _rate(r["test_oov_rate"])] for r in chosen_rows],
+              [r["chosen"] for r in chosen_rows]),
+        f"<p>Words seen once in train: {coverage['train_singletons']['types_share']:.2%} of train types, "
+        f"{coverage['train_singletons']['tokens_share']:.2%} of train tokens. "
+        "Try other cutoffs without rebuilding: <code>corpusmill cutoffs BUILD --min-count N</code>.</p>",
+    ])))
+
+    sections.append(("zipf", "Rank and frequency", "".join([
+        f"<p>Fitted Zipf exponent s = {zipf_fit.exponent:.3f} (least squares on log–log axes at "
+        f"{len(ranks)} log-spaced ranks of {int(ranks.max()) if len(ranks) else 0:,} train types; English text is usually near 1).</p>",
+        image(plot_zipf(ranks, ranked, zipf_fit), "rank-frequency plot", "Train count of the word at each rank, log–log axes."),
+    ])))
+
+    sections.append(("growth", "Vocabulary growth", "".join([
+        f"<p>Heaps fit: types ≈ K · tokens<sup>β</sup> with K = {heaps_fit.constant:.2f}, β = {heaps_fit.exponent:.3f}, "
+        f"fitted on the last decade of the train stream (from {int(heaps_fit.fit_from):,} of {int(tokens.max()) if len(tokens) else 0:,} tokens). "
+        "Large English collections usually give β between 0.4 and 0.6; a small or mixed corpus gives more.</p>",
+        image(plot_growth(tokens, types, heaps_fit), "vocabulary growth plot",
+              "Distinct words after each prefix of the train tokens, in corpus order, duplicates left out."),
+    ])))
+
+    split_rows = [[s, splits[s]["tokens"], splits[s]["types"], splits[s]["oov_tokens"], _rate(splits[s]["oov_rate"]), splits[s]["oov_types"]]
+                  for s in SPLITS]
+    sources = coverage["sources"]
+    source_rows = [[name] + [v for s in SPLITS for v in (figures[s]["tokens"], _rate(figures[s]["oov_rate"]))]
+                   for name, figures in sources.items()]
+    oov_parts = [table(["split", "tokens", "types", "OOV tokens", "OOV rate", "OOV types"], split_rows)]
+    if sources:
+        oov_parts.append(image(plot_sources(sources), "OOV rate by source file", "Share of tokens out of vocabulary, per input file and split."))
+        oov_parts.append(table(["source file"] + [f"{s} {label}" for s in SPLITS for label in ("tokens", "OOV")], source_rows))
+    sections.append(("oov", "Out-of-vocabulary tokens by split and source", "".join(oov_parts)))
+
+    lists = []
+    for split in ("dev", "test"):
+        top = splits[split].get("top_oov", [])[: report["top_oov"]]
+        lists.append(f"<div><h3>{split}</h3>" + table(["word", "count"], top) + "</div>")
+    sections.append(("top-oov", "Most frequent words missing from the vocabulary", f'<div class="pair">{"".join(lists)}</div>'))
+
+    classes = sorted({name for per in coverage["unknown_classes"].values() for name in per})
+    class_rows = []
+    for name in classes:
+        row: list[object] = [name]
+        for split in SPLITS:
+            count = coverage["unknown_classes"][split].get(name, 0)
+            total = splits[split]["oov_tokens"]
+            row += [count, _rate(count / total) if total else Shown("–")]
+        class_rows.append(row)
+    sections.append(("unknown", "Where out-of-vocabulary tokens go", "".join([
+        "<p>Each out-of-vocabulary token maps to one unknown-class symbol; the share is of that split's OOV tokens.</p>",
+        table(["symbol"] + [f"{s} {label}" for s in SPLITS for label in ("tokens", "share")], class_rows),
+    ])))
+
+    accounting = manifest["accounting"]
+    dropped = accounting["dropped"]
+    account_rows = [["documents read", accounting["read"]], ["pieces added by splitting long documents", accounting["pieces_added"]]]
+    account_rows += [[f"dropped: {reason.replace('_', ' ')}", count] for reason, count in dropped.items()]
+    account_rows += [["kept", accounting["kept"]], ["truncated", accounting["truncated"]],
+                     ["invalid UTF-8 sequences replaced", accounting["replaced_sequences"]],
+                     ["read + pieces = kept + dropped", accounting["balanced"]]]
+    kinds = sorted({kind for figures in manifest["splits"].values() for kind in figures["rows"]})
+    size_rows = [[s, manifest["splits"][s]["documents"], manifest["splits"][s]["sentences"], manifest["splits"][s]["tokens"]]
+                 + [manifest["splits"][s]["rows"].get(k, 0) for k in kinds] for s in SPLITS]
+    sections.append(("accounting", "Documents and rows", "".join([
+        f"<p>Duplicates removed: {dropped.get('duplicate', 0):,}.</p>",
+        table(["documents", "count"], account_rows),
+        table(["split", "documents", "sentences", "tokens"] + [f"{k} rows" for k in kinds], size_rows),
+    ])))
+
+    sections.append(("sizing", "What a model of this vocabulary costs", "".join([
+        f"<p>A feed-forward model over {size:,} ids with {context} context words, hidden width h = {report['hidden_width']}, "
+        "one column per embedding width m. Counts with their size as float32; the output layer's multiply-adds "
+        "score every id for each predicted token.</p>",
+        table(["figure"] + [f"m = {width:,}" for width in report["embedding_widths"]],
+              sizing_rows(size, report["embedding_widths"], context, report["hidden_width"])),
+    ])))
+
+    nav = "".join(f'<li><a href="#{key}">{html.escape(title)}</a></li>' for key, title, _ in sections)
+    body = "".join(f'<section id="{key}"><h2>{html.escape(title)}</h2>{content}</section>' for key, title, content in sections)
+    return (
+        '<!DOCTYPE html>\n<html lang="en"><head><meta charset="utf-8">'
+        '<meta name="viewport" content="width=device-width, initial-scale=1">'
+        f"<title>Vocabulary coverage report</title><style>{STYLE}</style></head><body>"
+        "<h1>Vocabulary coverage report</h1>"
+        f'<p class="lead">{splits["train"]["tokens"]:,} train tokens, {words:,} words kept; '
+        f"configuration {html.escape(manifest.get('config_sha256', '')[:12])}, vocabulary {html.escape(manifest['vocabulary']['sha256'][:12])}.</p>"
+        f"<nav><ol>{nav}</ol></nav>{body}</body></html>\n"
+    )
+
+
+def build_page(coverage_path: str, manifest_path: str, counts_path: str, duplicates_path: str,
+               prepared: Sequence[str], options: dict) -> str:
+    counts = pq.read_table(counts_path)
+    vocabulary = counts["token"].combine_chunks()
+    batches = train_token_batches(prepared, pq.read_table(duplicates_path), vocabulary)
+    tokens, types = growth_curve(batches, len(vocabulary))
+    return render(
+        read_json(coverage_path),
+        read_json(manifest_path),
+        coverage_curve(counts),
+        fit_zipf(counts["train"].to_numpy()),
+        (tokens, types, fit_heaps(tokens, types)),
+        options,
+    )
+
+
+def main(argv: list[str] | None = None) -> None:
+    parser = argparse.ArgumentParser(description="Write the vocabulary coverage report of a build as one HTML page.")
+    parser.add_argument("--coverage", required=True)
+    parser.add_argument("--manifest", required=True)
+    parser.add_argument("--token-counts", required=True)
+    parser.add_argument("--duplicates", required=True)
+    parser.add_argument("--options", required=True, help="JSON with the report and windows sections")
+    parser.add_argument("--output", required=True)
+    parser.add_argument("prepared", nargs="*", help="prepared chunk files in corpus order")
+    args = parser.parse_args(argv)
+    page = build_page(args.coverage, args.manifest, args.token_counts, args.duplicates, args.prepared, json.loads(args.options))
+    write_text(args.output, page)
+    print(f"report: {args.output} ({len(page):,} bytes)")
+
+
+if __name__ == "__main__":
+    main()

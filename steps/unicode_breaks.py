@@ -1,0 +1,323 @@
+"""Unicode text segmentation (UAX #29) for training data: words, sentences, grapheme clusters.
+
+Word boundaries come from `regex`'s word-boundary mode (``\\b`` with ``regex.WORD``), which
+implements the default UAX #29 rules. `regex` has no sentence mode, so the sentence rules
+SB1–SB11 are written here as one pattern over ``\\p{SB=…}`` classes; possessive quantifiers and
+atomic groups keep it linear in the length of the text. Grapheme clusters are ``\\X``.
+Every function here is pure and runs in time linear in its input.
+"""
+
+from __future__ import annotations
+
+import math
+from collections import Counter
+from collections.abc import Iterable
+from functools import lru_cache
+
+import regex
+
+_FLAGS = regex.V1
+_WORD_FLAGS = regex.WORD | regex.V1
+
+# ---------------------------------------------------------------------------------------------
+# Words
+# ---------------------------------------------------------------------------------------------
+
+#: Letters in the sense of the word rules (Word_Break ALetter or Hebrew_Letter).
+_LETTER = r"[\p{WB=ALetter}\p{WB=Hebrew_Letter}]"
+#: Characters the word rules attach to the character before them (rule WB4).
+_ATTACHED = r"[\p{WB=Extend}\p{WB=Format}\p{WB=ZWJ}]"
+#: Hyphens that "keep" re-joins between letters: HYPHEN-MINUS, HYPHEN, NON-BREAKING HYPHEN.
+_HYPHEN = r"[\-\u2010\u2011]"
+#: Apostrophes UAX #29 lets stand inside a word (Single_Quote and the MidNumLet quotes).
+_APOSTROPHE_CHARS = "'\u2018\u2019\uff07"
+_APOSTROPHE = f"[{_APOSTROPHE_CHARS}]"
+
+# A word boundary is a token end unless it is the boundary on either side of a hyphen that
+# has a letter directly before it (marks allowed) and a letter directly after it.
+_JOINING_END = (
+    rf"\b(?!{_HYPHEN}(?<={_LETTER}{_ATTACHED}*+{_HYPHEN}){_LETTER})"
+    rf"(?!(?<={_LETTER}{_ATTACHED}*+{_HYPHEN}){_LETTER})"
+)
+# A pair of regional indicators (a flag) followed by another: rules WB15/WB16 end the token
+# there. Said explicitly because `regex` decides each boundary inside a run of regional
+# indicators by counting back to the run's start, which is quadratic in the run's length.
+_FLAG_PAIR = rf"(?:[\U0001F1E6-\U0001F1FF]{_ATTACHED}*+){{2}}(?=[\U0001F1E6-\U0001F1FF])"
+# Before an apostrophe inside a word that is followed by a letter ("don|'t").
+_APOSTROPHE_STOP = rf"(?={_APOSTROPHE}{_LETTER})"
+
+
+def _word_pattern(apostrophes: str, hyphens: str) -> str:
+    """Shortest non-blank run from a token start to the next token end.
+
+    The last alternative ends a token at whitespace that UAX #29 keeps inside a segment
+    (e.g. U+202F NARROW NO-BREAK SPACE joins "1 000"), so tokens never hold whitespace.
+    """
+    end = _JOINING_END if hyphens == "keep" else r"\b"
+    if apostrophes == "keep":
+        return rf"{_FLAG_PAIR}|\S+?{end}|\S+?(?!\S)"
+    # The first two alternatives avoid testing for an apostrophe at every character: a run
+    # free of apostrophes up to a token end, or up to an apostrophe that starts a new token.
+    no_apostrophe = rf"[^\s{_APOSTROPHE_CHARS}]"
+    return (
+        rf"{_FLAG_PAIR}"
+        rf"|\S{no_apostrophe}*?{end}"
+        rf"|\S{no_apostrophe}*+{_APOSTROPHE_STOP}"
+        rf"|\S+?(?:{end}|{_APOSTROPHE_STOP})"
+        rf"|\S+?(?!\S)"
+    )
+
+
+_WORD_PATTERNS = {
+    (apostrophes, hyphens): regex.compile(_word_pattern(apostrophes, hyphens), _WORD_FLAGS)
+    for apostrophes in ("keep", "split")
+    for hyphens in ("keep", "split")
+}
+
+
+def word_tokens(text: str, *, apostrophes: str = "keep", hyphens: str = "keep") -> list[str]:
+    """Word tokens by UAX #29 default word boundaries, without whitespace, in text order.
+
+    Each non-blank word segment is a token: punctuation marks stand alone, numbers such as
+    "3.5" and "1,200" stay whole, emoji ZWJ sequences are one token, ideographs one each.
+    ``apostrophes="split"`` starts a new token at every apostrophe (', ‘, ’, ＇) that UAX #29
+    keeps inside a word and that a letter follows: "keeper's" → "keeper", "'s"; "don't" →
+    "don", "'t"; "rock'n'roll" → "rock", "'n", "'roll"; digits keep theirs ("1'000").
+    ``hyphens="keep"`` joins letter-hyphen-letter runs without spaces into one token
+    ("ice-cold", "state-of-the-art"); ``"split"`` leaves UAX #29's "ice", "-", "cold".
+    Whitespace only separates: ``"".join(tokens) == regex.sub(r"\\s+", "", text)``.
+    """
+    try:
+        pattern = _WORD_PATTERNS[apostrophes, hyphens]
+    except KeyError:
+        raise ValueError(
+            f"apostrophes and hyphens must each be 'keep' or 'split', got {apostrophes!r}, {hyphens!r}"
+        ) from None
+    return pattern.findall(text)
+
+
+# ---------------------------------------------------------------------------------------------
+# Sentences
+# ---------------------------------------------------------------------------------------------
+
+
+def _sb(*values: str) -> str:
+    return "".join(rf"\p{{SB={value}}}" for value in values)
+
+
+_IGNORED = _sb("Extend", "Format")  # SB5: absorbed by the character before them
+_PARA_SEP = _sb("Sep", "CR", "LF")
+_TERMINATORS = _sb("ATerm", "STerm")
+# SB9/SB10: a terminator keeps its closing punctuation, then its spaces (each with SB5 marks).
+_TAIL = rf"[{_sb('Close')}{_IGNORED}]*+[{_sb('Sp')}{_IGNORED}]*+"
+_NOT_SB8_STOP = rf"[^{_sb('OLetter', 'Upper', 'Lower')}{_PARA_SEP}{_TERMINATORS}]"
+
+# One sentence per match. The loop consumes text that cannot end a sentence: runs without
+# terminators or separators, and terminator sequences after which a rule forbids a break.
+# What follows the loop is the sentence end: SB11 (terminator, tail, one separator), SB4
+# (a separator; CR LF counts as one, SB3), or the end of the text (SB2).
+_SENTENCE_BODY = rf"""
+(?=[\s\S])
+(?:
+    (?: [[\x00-\x7f]--[.!?\r\n]] | [^\x00-\x7f{_TERMINATORS}{_PARA_SEP}] )++
+  | (?: [.!?] (?=[.!?]) )++
+  | (?: (?>[{_TERMINATORS}] {_TAIL}) (?=[{_sb('SContinue')}{_TERMINATORS}]) )++
+  | (?>\p{{SB=ATerm}} {_TAIL}) (?={_NOT_SB8_STOP}*+ \p{{SB=Lower}})
+  | (?<=[{_sb('Upper', 'Lower')}][{_IGNORED}]*+) \p{{SB=ATerm}} [{_IGNORED}]*+ (?=\p{{SB=Upper}})
+  | \p{{SB=ATerm}} [{_IGNORED}]*+ (?=\p{{SB=Numeric}})
+  {{abbreviation}}
+)*+
+(?: [{_TERMINATORS}] {_TAIL} (?:\r\n|[{_PARA_SEP}])? | \r\n | [{_PARA_SEP}] )?
+"""
+# In order, the alternatives are: ASCII tested by a plain class (its terminators and
+# separators are . ! ? CR LF) as property lookups cost more, then the rest; SB8a, first for
+# ASCII runs such as "...", then in general (".)."); SB8; SB7; SB6. The optional last one
+# joins across a period after a listed abbreviation.
+_ABBREVIATION = r"| (?<=(?<![\w.])(?i:\L<abbreviations>)) \. " + _TAIL
+
+
+@lru_cache(maxsize=64)
+def _sentence_pattern(abbreviations: frozenset[str]) -> regex.Pattern[str]:
+    """Compiled once per abbreviation set, as callers pass the same set for every document."""
+    listed = sorted({a.lower().removesuffix(".") for a in abbreviations} - {""})
+    if not listed:
+        return regex.compile(_SENTENCE_BODY.replace("{abbreviation}", ""), _FLAGS | regex.VERBOSE)
+    return regex.compile(
+        _SENTENCE_BODY.replace("{abbreviation}", _ABBREVIATION), _FLAGS | regex.VERBOSE, abbreviations=listed
+    )
+
+
+def sentence_segments(text: str, abbreviations: frozenset[str] = frozenset()) -> list[str]:
+    """Sentences by the UAX #29 sentence rules, each keeping its trailing spaces and separator.
+
+    Lossless: ``"".join(result) == text``. Beyond the standard, there is no break after a
+    period that ends a word listed in ``abbreviations`` (compared case-insensitively; entries
+    may carry their final period, and inner periods as in "e.g" count as part of the word),
+    so "Dr. Ames came." stays one sentence with {"dr"} where the standard breaks after "Dr.".
+    Paragraph separators (CR, LF, U+2029, …) still always end a sentence.
+    """
+    return _sentence_pattern(abbreviations).findall(text)
+
+
+# Words of the abbreviation learner: letters/digits with inner periods, and an optional final
+# period directly attached ("e.g." → ("e.g", ".")).
+_LEARNER_WORD = regex.compile(r"(\w+(?:\.\w+)*)(\.?)", _FLAGS)
+_LETTERS_AND_PERIODS = regex.compile(r"[^\W\d_]+(?:\.[^\W\d_]+)*", _FLAGS)
+_PERIOD_AFTER_ABBREVIATION = 0.99  # Kiss & Strunk's fixed P(period | abbreviation)
+_PERIOD_THEN_WORD = regex.compile(r"(\w+(?:\.\w+)*)\.(?:\s+(\w)|\s*+$)", _FLAGS)
+#: Share of a candidate's "w. x" occurrences where x is lowercase or a digit (a sentence would
+#: start with a capital) below which it is taken for a sentence end, not an abbreviation.
+_MIN_CONTINUED_SHARE = 1 / 3
+
+
+def _log(x: float) -> float:
+    return math.log(x) if x > 0 else -math.inf
+
+
+def _term(count: int, log_p: float) -> float:
+    return count * log_p if count else 0.0
+
+
+def learn_abbreviations(
+    texts: Iterable[str],
+    *,
+    min_count: int = 3,
+    threshold: float = 0.3,
+    max_types: int = 1_000_000,
+) -> frozenset[str]:
+    """Abbreviations found by the type-based method of Kiss & Strunk (2006, "Punkt").
+
+    Why: a corpus's own abbreviations (domain jargon, other languages) are not in any fixed
+    list. Each lowercased word type w seen with a final period at least ``min_count`` times
+    (letters with optional inner periods) is scored
+    ``log λ · exp(-len) · (inner_periods + 1) · len ** -C(w, no period)``, where ``len``
+    counts w's non-period characters, ``log λ`` is Dunning's log-likelihood ratio of
+    P(period | w) = 0.99 against P(period | w) = C(period) / N over all N word tokens, and
+    the last factor punishes occurrences without a period; w is kept when the score reaches
+    ``threshold``. On top of that score, an orthographic check of our own: at least a third of
+    the times ``w.`` is followed by a word or ends the text, that word starts in lowercase or
+    with a digit (otherwise the period looks like a sentence end: a template corpus ends many sentences with
+    the same word). Memory holds counts only: past ``max_types`` distinct entries the rarest
+    are dropped, as little as needed to halve the table. Returns words without final period.
+    """
+    counts: Counter[tuple[str, str]] = Counter()
+    followed: Counter[str] = Counter()
+    continued: Counter[str] = Counter()
+    tokens = periods = 0
+    for text in texts:
+        for word, after in _PERIOD_THEN_WORD.findall(text):
+            word = word.lower()
+            followed[word] += 1
+            continued[word] += after.islower() or after.isdigit()
+        local = Counter(_LEARNER_WORD.findall(text.lower()))
+        tokens += local.total()
+        periods += sum(count for (_, dot), count in local.items() if dot)
+        counts.update(local)
+        if len(counts) > max_types:
+            _prune(counts, max_types // 2)
+    if not periods:
+        return frozenset()
+    log_p = _log(periods / tokens)
+    log_not_p = _log(1 - periods / tokens)
+    log_q = math.log(_PERIOD_AFTER_ABBREVIATION)
+    log_not_q = math.log(1 - _PERIOD_AFTER_ABBREVIATION)
+    found = set()
+    for (word, dot), with_period in counts.items():
+        if not dot or with_period < min_count or not _LETTERS_AND_PERIODS.fullmatch(word):
+            continue
+        if followed[word] and continued[word] < _MIN_CONTINUED_SHARE * followed[word]:
+            continue
+        without_period = counts.get((word, ""), 0)
+        null = _term(with_period, log_p) + _term(without_period, log_not_p)
+        alternative = _term(with_period, log_q) + _term(without_period, log_not_q)
+        log_lambda = -2.0 * (null - alternative)
+        length = len(word) - word.count(".")
+        score = log_lambda * math.exp(-length) * (word.count(".") + 1) * length**-without_period
+        if score >= threshold:
+            found.add(word)
+    return frozenset(found)
+
+
+def _prune(counts: Counter[tuple[str, str]], target: int) -> None:
+    """Drop the rarest entries, raising the cut-off count until at most `target` remain."""
+    cutoff = 1
+    while len(counts) > target:
+        for key in [key for key, count in counts.items() if count <= cutoff]:
+            del counts[key]
+        cutoff += 1
+
+
+# ---------------------------------------------------------------------------------------------
+# Grapheme clusters
+# ---------------------------------------------------------------------------------------------
+
+# One extended grapheme cluster. A flag (two regional indicators and their marks, rules GB12,
+# GB13, GB9, GB9a) is spelled out because `regex` decides each boundary inside a run of
+# regional indicators by counting back to the run's start, which is quadratic in its length.
+_CLUSTER_PATTERN = (
+    r"(?>[\U0001F1E6-\U0001F1FF]{2}[\p{GCB=Extend}\p{GCB=ZWJ}\p{GCB=SpacingMark}]*+|\X)"
+)
+_CLUSTER = regex.compile(_CLUSTER_PATTERN, _FLAGS)
+# Matched on a window one character longer than the limit: stops at the start of the window's
+# last cluster. A cluster boundary depends only on the text up to the character after it, so
+# every boundary up to the limit is the same as in the whole text.
+_UP_TO_LAST_CLUSTER = regex.compile(rf"{_CLUSTER_PATTERN}*(?={_CLUSTER_PATTERN}\Z)", _FLAGS)
+
+
+def _cut(text: str, start: int, max_chars: int) -> int:
+    """End of the longest run of whole clusters from `start` within `max_chars` characters.
+
+    When the first cluster alone is longer, its end: clusters are never cut. The text is
+    sliced from `start` (a cluster boundary) so that `regex` never counts regional
+    indicators back past it.
+    """
+    window = text[start : start + max_chars + 1]
+    if window.isascii():  # in ASCII only CR LF is one cluster of two (rule GB3)
+        end = max_chars - 1 if window.endswith("\r\n") else max_chars
+        return start + (end or 2)
+    end = _UP_TO_LAST_CLUSTER.match(window).end()
+    if end:
+        return start + end
+    size = 2 * max_chars + 2
+    while True:  # the first cluster is longer than the limit: widen until it ends inside
+        window = text[start : start + size]
+        end = _CLUSTER.match(window).end()
+        if end < len(window) or start + size >= len(text):
+            return start + end
+        size *= 2
+
+
+def _check_limit(max_chars: int) -> None:
+    if max_chars < 1:
+        raise ValueError(f"max_chars must be at least 1, got {max_chars}")
+
+
+def truncate_graphemes(text: str, max_chars: int) -> str:
+    """The longest prefix of whole grapheme clusters with at most ``max_chars`` characters.
+
+    Why: a length limit must not leave a lone combining mark or half an emoji sequence. If the
+    first cluster alone is longer than the limit, that cluster is returned whole.
+    Equals ``split_graphemes(text, max_chars)[0]`` for non-empty text.
+    """
+    _check_limit(max_chars)
+    if len(text) <= max_chars:
+        return text
+    return text[: _cut(text, 0, max_chars)]
+
+
+def split_graphemes(text: str, max_chars: int) -> list[str]:
+    """Consecutive pieces of at most ``max_chars`` characters, cut only between clusters.
+
+    Each piece is as long as allowed; a piece is longer only when it is a single cluster that
+    is longer by itself. ``"".join(pieces) == text``; the empty text gives no pieces.
+    """
+    _check_limit(max_chars)
+    pieces = []
+    start = 0
+    while len(text) - start > max_chars:
+        end = _cut(text, start, max_chars)
+        pieces.append(text[start:end])
+        start = end
+    if start < len(text):
+        pieces.append(text[start:])
+    return pieces

@@ -1,0 +1,131 @@
+"""The vocabulary coverage report page (steps/report_page.py) of the demo build."""
+
+from __future__ import annotations
+
+import base64
+import json
+import re
+import struct
+from pathlib import Path
+
+import numpy as np
+import pyarrow as pa
+import pyarrow.parquet as pq
+import pytest
+
+from steps.laws import ModelSize, growth_curve
+from steps.report_page import coverage_curve, main, table, train_token_batches
+
+PNG_SIGNATURE = b"\x89PNG\r\n\x1a\n"
+OPTIONS = {"report": {"embedding_widths": [100, 300, 1000], "hidden_width": 100, "top_oov": 25}, "windows": {"ngram": {"n": 4}}}
+
+
+def png_chunks(data: bytes) -> list[bytes]:
+    """Chunk types of a PNG file, read by the layout of the PNG specification (length, type, data, CRC)."""
+    assert data.startswith(PNG_SIGNATURE)
+    kinds, offset = [], len(PNG_SIGNATURE)
+    while offset < len(data):
+        (length,) = struct.unpack(">I", data[offset : offset + 4])
+        kinds.append(data[offset + 4 : offset + 8])
+        offset += 12 + length
+    return kinds
+
+
+def corpus_order(build: Path) -> list[str]:
+    """Prepared chunk files in corpus order: by input file as listed in the manifest, then chunk number."""
+    inputs = [entry["path"] for entry in json.loads((build / "manifest.json").read_text())["inputs"]]
+
+    def key(path: Path) -> tuple[int, str]:
+        first = pq.ParquetFile(path).read_row_group(0, columns=["source"]) if pq.ParquetFile(path).metadata.num_rows else None
+        return (inputs.index(first["source"][0].as_py()) if first is not None else -1, path.name.rsplit("-", 1)[-1])
+
+    return [str(p) for p in sorted((build / "work" / "prepared").glob("*.parquet"), key=key)]
+
+
+def page_arguments(build: Path, output: Path) -> list[str]:
+    prepared = corpus_order(build)
+    return [
+        "--coverage", str(build / "stats" / "coverage.json"), "--manifest", str(build / "manifest.json"),
+        "--token-counts", str(build / "stats" / "token_counts.parquet"), "--duplicates", str(build / "work" / "duplicates.parquet"),
+        "--options", json.dumps(OPTIONS), "--output", str(output), *prepared,
+    ]
+
+
+def test_report_page_is_self_contained_with_plain_png_images(demo_build: Path) -> None:
+    """PNG specification: every image is embedded, decodes as PNG and carries no text or time chunk."""
+    page = (demo_build / "report" / "index.html").read_text(encoding="utf-8")
+    assert not re.search(r"""(src|href)=["'](?!data:|#)""", page), "the page must not load anything from outside"
+    assert "http://" not in page and "https://" not in page
+    images = re.findall(r'<img src="data:image/png;base64,([A-Za-z0-9+/=]+)"', page)
+    assert len(images) == page.count("<img") == 4
+    for encoded in images:
+        kinds = png_chunks(base64.b64decode(encoded))
+        assert kinds[0] == b"IHDR" and kinds[-1] == b"IEND"
+        assert not {b"tEXt", b"iTXt", b"zTXt", b"tIME"} & set(kinds)
+
+
+def test_report_page_is_byte_identical_when_written_again(demo_build: Path, tmp_path: Path) -> None:
+    """Determinism (project rule): the same build gives the same page bytes."""
+    again = tmp_path / "again.html"
+    main(page_arguments(demo_build, again))
+    assert again.read_bytes() == (demo_build / "report" / "index.html").read_bytes()
+
+
+def test_report_page_shows_the_build_figures(demo_build: Path) -> None:
+    """The page states what coverage.json and the manifest hold, and the sizing of the chosen |V|."""
+    page = (demo_build / "report" / "index.html").read_text(encoding="utf-8")
+    stats = json.loads((demo_build / "stats" / "coverage.json").read_text())
+    manifest = json.loads((demo_build / "manifest.json").read_text())
+    assert f"{stats['words']:,} words kept ({stats['vocabulary_size']:,} ids" in page
+    assert f"{manifest['accounting']['read']:,}" in page
+    for split in ("dev", "test"):
+        assert f"{stats['splits'][split]['oov_rate']:.2%}" in page
+    for width in OPTIONS["report"]["embedding_widths"]:
+        size = ModelSize(stats["vocabulary_size"], width, 3, 100)
+        assert f"{size.parameters:,} (" in page and f"{size.embedding_parameters:,} (" in page
+    assert re.search(r"Zipf exponent s = \d\.\d{3}", page) and re.search(r"β = 0\.\d{3}", page)
+
+
+def test_growth_curve_equals_a_set_recount_of_the_train_stream(demo_build: Path) -> None:
+    """Brute force: distinct train tokens after each prefix of the prepared chunks in corpus order
+    (duplicates left out), counted with a Python set."""
+    removed = {(r["source"], r["offset"]) for r in pq.read_table(demo_build / "work" / "duplicates.parquet").to_pylist()}
+    prepared = corpus_order(demo_build)
+    seen: set[str] = set()
+    after: list[int] = [0]
+    for path in prepared:
+        for row in pq.read_table(path, columns=["source", "offset", "split", "tokens"]).to_pylist():
+            if row["split"] != "train" or (row["source"], row["offset"]) in removed:
+                continue
+            for token in (t for sentence in row["tokens"] for t in sentence):
+                seen.add(token)
+                after.append(len(seen))
+    vocabulary = pq.read_table(demo_build / "stats" / "token_counts.parquet")["token"].combine_chunks()
+    tokens, types = growth_curve(train_token_batches(prepared, pq.read_table(demo_build / "work" / "duplicates.parquet"), vocabulary), len(vocabulary))
+    assert tokens[-1] == len(after) - 1
+    assert types.tolist() == [after[n] for n in tokens]
+
+
+def test_coverage_curve_agrees_with_the_size_table(demo_build: Path) -> None:
+    """coverage.json's size table (itself checked against a Counter recount in test_whatif) at the curve's sizes."""
+    counts = pq.read_table(demo_build / "stats" / "token_counts.parquet")
+    curve = coverage_curve(counts, points=100000)
+    stats = json.loads((demo_build / "stats" / "coverage.json").read_text())
+    for row in stats["sizes"]:
+        index = int(np.searchsorted(curve["size"], row["size"]))
+        assert curve["size"][index] == row["size"]
+        assert round(float(curve["train"][index]), 6) == row["train_coverage"]
+        assert round(float(curve["dev"][index]), 6) == pytest.approx(row["dev_oov_rate"], abs=1e-6)
+
+
+def test_table_cells_escape_html() -> None:
+    """HTML escaping: tokens such as <b> or & show as text, never as markup."""
+    cell = table(["word"], [["<b>&"]])
+    assert "&lt;b&gt;&amp;" in cell and "<b>&" not in cell
+
+
+def test_stale_counts_are_reported_with_the_file_and_the_fix(tmp_path: Path, demo_build: Path) -> None:
+    """Error messages name the file and the fix (project convention)."""
+    prepared = sorted(str(p) for p in (demo_build / "work" / "prepared").glob("*.parquet"))[:1]
+    with pytest.raises(SystemExit, match=r"\.parquet: train token .* rerun the workflow"):
+        list(train_token_batches(prepared, pq.read_table(demo_build / "work" / "duplicates.parquet"), pa.array(["the"])))
