@@ -1,0 +1,193 @@
+"""Untrusted input: decompression bombs, pathological text for every regular expression on the
+text path, configuration files that try to run code, and paths that try to leave the build.
+"""
+
+from __future__ import annotations
+
+import gc
+import subprocess
+import sys
+import time
+from collections.abc import Callable
+from pathlib import Path
+
+import pytest
+
+from steps import unicode_breaks
+from steps.clean import CleanOptions, clean_text, rejection
+from steps.ingest import Chunk, CorpusError, ReadOptions, Tally, chunk_key, read_documents
+from steps.segment import Segmenter
+from steps.vocab import unknown_class
+from tests import hostile
+
+REPO = Path(__file__).resolve().parent.parent
+
+# --- decompression bombs ------------------------------------------------------------------------
+
+
+@pytest.mark.parametrize("codec", [".gz", ".zst", ".bz2", ".xz"])
+def test_a_decompression_bomb_stops_at_max_decompressed_mb_with_a_clear_error(tmp_path: Path, codec: str) -> None:
+    """5 MiB of one repeated line packs to a few KiB; with corpus.max_decompressed_mb = 1 the read
+    must stop past 1 MiB of text (common practice: cap expansion, not input size)."""
+    packed = hostile.compress(b"all work and no play\n" * 250_000, codec)
+    assert len(packed) < 100_000
+    name = f"bomb.txt{codec}"
+    (tmp_path / name).write_bytes(packed)
+    tally = Tally()
+    reader = read_documents(tmp_path, Chunk(chunk_key(name, 0), name, 0, 1), 1 << 30, ReadOptions(max_decompressed_bytes=1 << 20), tally)
+    with pytest.raises(CorpusError) as caught:
+        for _ in reader:
+            pass
+    message = str(caught.value)
+    assert str(tmp_path / name) in message and "corpus.max_decompressed_mb (1 MiB)" in message
+
+
+def test_the_workflow_reports_a_bomb_as_a_failed_job_naming_the_file(tmp_path: Path) -> None:
+    """Snakemake end to end: the prepare job fails, its log's last lines name the file and limit."""
+    raw = tmp_path / "raw"
+    raw.mkdir()
+    (raw / "bomb.txt.zst").write_bytes(hostile.compress(b"all work and no play\n" * 250_000, ".zst"))
+    override = tmp_path / "over.yaml"
+    override.write_text(f"corpus: {{root: {raw}, max_decompressed_mb: 1}}\n")
+    run = subprocess.run(
+        [sys.executable, "-m", "snakemake", "--snakefile", str(REPO / "Snakefile"), "--directory", str(tmp_path),
+         "--cores", "1", "--configfile", str(override)],
+        capture_output=True, text=True, timeout=300,
+    )  # fmt: skip
+    assert run.returncode != 0
+    assert "bomb.txt.zst: expands beyond corpus.max_decompressed_mb (1 MiB)" in run.stdout + run.stderr
+    assert not (tmp_path / "build" / "manifest.json").exists()
+
+
+# --- regular expressions run in linear time ------------------------------------------------------
+
+SIZE = 30_000
+
+# Inputs that make backtracking engines (or quadratic algorithms) slow: long runs without a
+# break, terminators everywhere, marks, quotes, abbreviations, hyphens and apostrophes.
+PATHOLOGICAL: dict[str, Callable[[int], str]] = {
+    "spaces_and_tabs": lambda n: " \t" * (n // 2),
+    "carriage_returns": lambda n: "\r" * n,
+    "controls": lambda n: "\x01" * n,
+    "zero_width_spaces": lambda n: "a\u200b" * (n // 2),
+    "combining_marks": lambda n: "e" + "\u0301\u0316" * (n // 2),
+    "one_long_word_then_bang": lambda n: "x" * n + "! A",
+    "periods_between_letters": lambda n: "a." * (n // 2),
+    "capital_initials": lambda n: "A. " * (n // 3),
+    "closing_quotes": lambda n: ".\"')]" * (n // 5),
+    "abbreviations": lambda n: "dr. " * (n // 4),
+    "inner_periods": lambda n: "e.g." * (n // 4),
+    "hyphens_between_letters": lambda n: "a-" * (n // 2),
+    "apostrophes_between_letters": lambda n: "a'" * (n // 2),
+    "marks_before_hyphens": lambda n: ("a" + "\u0301" * 50 + "-") * (n // 52),
+    "closers_then_spaces": lambda n: "a." + ")" * (n // 2) + " " * (n // 2) + "b",
+    "digits_and_separators": lambda n: "1,1." * (n // 4),
+    "only_periods": lambda n: "." * n,
+    "narrow_spaces_in_numbers": lambda n: "1\u202f" * (n // 2),
+}
+
+ABBREVIATIONS = frozenset({"dr", "e.g", "etc"})
+TEXT_FUNCTIONS: dict[str, Callable[[str], object]] = {
+    "clean_text+rejection": lambda text: rejection(clean_text(text, CleanOptions()), CleanOptions()),
+    "segment uax29 keep": Segmenter(abbreviations=ABBREVIATIONS).segment,
+    "segment uax29 split": Segmenter(apostrophes="split", hyphens="split").segment,
+    "segment pattern+punctuation keep": Segmenter(sentences_mode="punctuation", words_mode="pattern", abbreviations=ABBREVIATIONS).segment,
+    "segment pattern+punctuation split": Segmenter(sentences_mode="punctuation", words_mode="pattern", apostrophes="split", hyphens="split").segment,
+    "learn_abbreviations": lambda text: unicode_breaks.learn_abbreviations([text]),
+    "split_graphemes": lambda text: unicode_breaks.split_graphemes(text, 1000),
+    "unknown_class": unknown_class,
+}
+
+
+def _seconds(function: Callable[[str], object], text: str) -> float:
+    """Best of three wall-clock runs with the garbage collector paused (the minimum is the least
+    disturbed by other processes; a collection pass would charge one run for older garbage)."""
+    best = float("inf")
+    gc.collect()
+    gc.disable()
+    try:
+        for _ in range(3):
+            start = time.perf_counter()
+            function(text)
+            best = min(best, time.perf_counter() - start)
+    finally:
+        gc.enable()
+    return best
+
+
+@pytest.mark.parametrize("function_name", sorted(TEXT_FUNCTIONS))
+def test_every_text_path_regex_runs_in_linear_time_on_pathological_input(function_name: str) -> None:
+    """Growth test (common practice for ReDoS): quadrupling the input multiplies the time by about
+    4 when linear and by 16 when quadratic; allow up to 10 (a shared machine adds noise). And against ordinary prose of the same
+    size, no input may be more than 25 times slower (sentence-dense text pays a per-sentence cost)."""
+    function = TEXT_FUNCTIONS[function_name]
+    normal = _seconds(function, hostile.prose(4 * SIZE).decode("utf-8"))
+    floor = 5e-3  # below a few milliseconds, timer noise and allocator effects dominate a ratio
+    slow = []
+    for case, make in PATHOLOGICAL.items():
+        small, large = make(SIZE), make(4 * SIZE)
+        seconds = _seconds(function, large)
+        if seconds <= floor:
+            continue
+        growth = seconds / max(_seconds(function, small), floor / 4)
+        if growth > 10:  # a busy machine can only make a try look slower: take the best of three
+            growth = min(growth, *(_seconds(function, large) / max(_seconds(function, small), floor / 4) for _ in range(2)))
+        if growth > 10:
+            slow.append(f"{case}: {growth:.1f}x the time for 4x the input")
+        if seconds / max(normal, floor) > 25:
+            slow.append(f"{case}: {seconds * 1e3:.1f} ms vs {normal * 1e3:.1f} ms for ordinary prose of the same size")
+    assert not slow, "; ".join(slow)
+
+
+def test_stream_safe_normalization_keeps_a_100_000_mark_run_fast() -> None:
+    """UAX #15 §13 (Stream-Safe Text Format): NFC of 100,000 alternating marks took minutes before."""
+    start = time.perf_counter()
+    cleaned = clean_text(hostile.combining_run(100_000), CleanOptions())
+    assert time.perf_counter() - start < 2.0
+    assert cleaned.count("\u034f") == 100_000 // 30
+
+
+# --- configuration never runs code; paths never leave the build --------------------------------
+
+
+def _snakemake(workdir: Path, override: Path, *extra: str) -> subprocess.CompletedProcess[str]:
+    return subprocess.run(
+        [sys.executable, "-m", "snakemake", "--snakefile", str(REPO / "Snakefile"), "--directory", str(workdir),
+         "--cores", "1", "--configfile", str(override), *extra],
+        capture_output=True, text=True, timeout=300,
+    )  # fmt: skip
+
+
+@pytest.mark.parametrize(
+    "tag",
+    [
+        '!!python/object/apply:os.system ["touch {marker}"]',
+        '!!python/object/new:os.system ["touch {marker}"]',
+        '!!python/name:os.system',
+    ],
+    ids=["apply", "new", "name"],
+)
+def test_a_python_tag_in_a_config_file_is_refused_and_runs_nothing(tmp_path: Path, tag: str) -> None:
+    """PyYAML loaders: Snakemake reads config files with yaml.FullLoader (via yte), which does not
+    build arbitrary Python objects; the marker file proves no command ran."""
+    marker = tmp_path / "code-ran"
+    override = tmp_path / "evil.yaml"
+    override.write_text(f"corpus: {{root: {REPO / 'demo_raw'}}}\nclean: {tag.format(marker=marker)}\n")
+    run = _snakemake(tmp_path, override, "-n")
+    assert run.returncode != 0
+    assert not marker.exists()
+    assert not (tmp_path / "build").exists()
+
+
+@pytest.mark.parametrize("build_dir", ["../outside", "/tmp/corpusmill-absolute-build"])
+def test_a_build_dir_outside_the_working_directory_is_refused_by_the_real_workflow(tmp_path: Path, build_dir: str) -> None:
+    """POSIX path semantics: '..' and absolute paths would write outside --directory."""
+    workdir = tmp_path / "work"
+    workdir.mkdir()
+    override = tmp_path / "over.yaml"
+    override.write_text(f"build_dir: {build_dir}\ncorpus: {{root: {REPO / 'demo_raw'}}}\n")
+    run = _snakemake(workdir, override)
+    assert run.returncode != 0
+    assert f"build_dir = {build_dir!r}: must be a relative path without '..'" in run.stdout + run.stderr
+    assert not (tmp_path / "outside").exists() and not Path(build_dir).exists()
+    assert sorted(p.name for p in workdir.iterdir()) in ([], [".snakemake"])
