@@ -1,6 +1,8 @@
 # corpusmill: raw text folder → cleaned, tokenized, vocabulary-mapped, windowed, split Parquet shards.
-# Stages, in order (rules/*.smk): prepare → deduplicate → count → vocabulary → encode → shard
-# → coverage → manifest. The logic of every stage lives in steps/; each rule runs one step.
+# Stages, in order (rules/*.smk): prepare (per chunk) → deduplicate → count (per chunk; or, for
+# subword units, a sentencepiece model learned on train) → vocabulary → encode (per chunk) →
+# shard (per split part) → coverage → manifest → report. The logic of every stage lives in
+# steps/; each rule runs one step.
 
 import json
 import sys

@@ -30,7 +30,7 @@ RULE_MODULES = {
     "shard": ("shards", "windows", "vocab", "storage"),
     "coverage": ("report", "vocab", "storage"),
     "manifest": ("manifest", "vocab", "settings", "storage"),
-    "report": ("report_page", "laws", "split", "settings", "storage"),
+    "report": ("report_page", "laws", "split", "settings", "storage", "vocab"),
 }
 
 # The configuration sections each rule reads; changing another section does not rerun it.

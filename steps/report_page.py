@@ -5,6 +5,14 @@ growth, the train token stream of the prepared chunks in corpus order (duplicate
 exactly what the count step counted). Plots are PNG images embedded as base64, drawn with
 matplotlib's Agg backend without metadata, so the page needs no network and its bytes are the
 same on every run.
+
+Subword mode (coverage.json has `units: subword`) shows what applies to a piece model instead:
+pieces per word and per sentence, the <unk> rate with and without byte fallback (by split and by
+input file, from the encode statistics), the rank-frequency law of the pieces, and vocabulary
+growth measured in whitespace-separated words of the prepared `sentences` column. Growth is not
+measured in pieces because their number is fixed by the model and nearly all of them occur early
+in the stream; words describe the corpus the model has to cover, like the word-mode page. Memory
+for that curve grows with the number of distinct words, never with the number of tokens.
 """
 
 from __future__ import annotations
@@ -14,7 +22,7 @@ import base64
 import html
 import io
 import json
-from collections.abc import Iterator, Sequence
+from collections.abc import Iterable, Iterator, Sequence
 
 import matplotlib
 
@@ -32,6 +40,7 @@ from steps.layout import SPLITS
 from steps.settings import read_json
 from steps.split import duplicate_mask
 from steps.storage import write_text
+from steps.vocab import escape
 
 BATCH_TOKENS = 1 << 20
 COLOURS = {"train": "#1f5f8b", "dev": "#d9822b", "test": "#3a8f4b"}
@@ -49,30 +58,100 @@ figure{margin:1rem 0} figure img{max-width:100%;height:auto;border:1px solid #ea
 # ---------------------------------------------------------------- data
 
 
-def train_token_batches(prepared: Sequence[str], duplicates: pa.Table, vocabulary: pa.Array) -> Iterator[np.ndarray]:
-    """Type ids (positions in `vocabulary`) of the train tokens in corpus order, in bounded batches."""
-    pending: list[pa.Array] = []
-    size = 0
+def _train_rows(prepared: Sequence[str], duplicates: pa.Table, column: str) -> Iterator[tuple[str, pa.Array]]:
+    """(chunk path, `column` of its kept train documents) per read batch, in corpus order."""
     for path in prepared:
         reader = pq.ParquetFile(path)
-        for batch in reader.iter_batches(batch_size=256, columns=["source", "offset", "split", "tokens"]):
+        for batch in reader.iter_batches(batch_size=256, columns=["source", "offset", "split", column]):
             keep = pc.equal(batch["split"], "train")
             for source in pc.unique(batch["source"]).to_pylist():
                 mine = pc.equal(batch["source"], source)
                 dropped = pc.and_(mine, duplicate_mask(duplicates, source, batch["offset"]))
                 keep = pc.and_(keep, pc.invert(dropped))
             rows = batch.filter(keep)
-            if not rows.num_rows:
-                continue
-            tokens = pc.list_flatten(pc.list_flatten(rows["tokens"]))
-            pending.append(tokens)
-            size += len(tokens)
-            if size >= BATCH_TOKENS:
-                yield _type_ids(pending, vocabulary, path)
-                pending, size = [], 0
-        if pending:
+            if rows.num_rows:
+                yield path, rows[column]
+
+
+def train_token_batches(prepared: Sequence[str], duplicates: pa.Table, vocabulary: pa.Array) -> Iterator[np.ndarray]:
+    """Type ids (positions in `vocabulary`) of the train tokens in corpus order, in bounded batches."""
+    pending: list[pa.Array] = []
+    size = 0
+    last = None
+    for path, tokens in _train_rows(prepared, duplicates, "tokens"):
+        if pending and path != last:
+            yield _type_ids(pending, vocabulary, last)
+            pending, size = [], 0
+        last = path
+        tokens = pc.list_flatten(pc.list_flatten(tokens))
+        pending.append(tokens)
+        size += len(tokens)
+        if size >= BATCH_TOKENS:
             yield _type_ids(pending, vocabulary, path)
             pending, size = [], 0
+    if pending:
+        yield _type_ids(pending, vocabulary, last)
+
+
+def whitespace_words(sentences: pa.Array) -> pa.Array:
+    """The runs of non-space characters of each sentence, in order: the same RE2 `\\S+` runs the
+    encode step counts as words, so their total equals coverage.json's `words`."""
+    parts = pc.list_flatten(pc.split_pattern_regex(sentences, r"\s+"))
+    return parts.filter(pc.greater(pc.binary_length(parts), 0))
+
+
+def train_word_batches(prepared: Sequence[str], duplicates: pa.Table) -> Iterator[pa.Array]:
+    """Whitespace words of the train sentences in corpus order (subword mode), in bounded batches."""
+    pending: list[pa.Array] = []
+    size = 0
+    for _, sentences in _train_rows(prepared, duplicates, "sentences"):
+        words = whitespace_words(pc.list_flatten(sentences))
+        pending.append(words)
+        size += len(words)
+        if size >= BATCH_TOKENS:
+            yield pa.concat_arrays(pending)
+            pending, size = [], 0
+    if pending:
+        yield pa.concat_arrays(pending)
+
+
+def word_growth(batches: Iterable[pa.Array], points: int = 400) -> tuple[np.ndarray, np.ndarray]:
+    """(words read, distinct words seen) at log-spaced positions of a stream of string batches.
+
+    Keeps the distinct words and where each first appeared, so memory grows with the number of
+    types, not tokens; each batch is dictionary-encoded, so Python touches only its distinct words.
+    """
+    seen: set[str] = set()
+    firsts: list[np.ndarray] = []
+    total = 0
+    for words in batches:
+        encoded = pc.dictionary_encode(words)
+        distinct = encoded.dictionary.to_pylist()
+        _, first = np.unique(encoded.indices.to_numpy(zero_copy_only=False), return_index=True)
+        new = np.fromiter((word not in seen for word in distinct), dtype=bool, count=len(distinct))
+        seen.update(word for word, fresh in zip(distinct, new) if fresh)
+        firsts.append(first[new] + total)
+        total += len(words)
+    positions = log_points(total, points)
+    ordered = np.sort(np.concatenate(firsts)) if firsts else np.zeros(0, dtype=np.int64)
+    return positions, np.searchsorted(ordered, positions, side="left")
+
+
+def source_figures(encode_stats: Sequence[dict]) -> dict[str, dict]:
+    """Per input file and split: pieces, whitespace words, byte pieces and the <unk> rate without
+    byte fallback (each run of byte pieces one <unk>), summed over the file's chunks."""
+    keys = ("tokens", "words", "oov_tokens", "byte_pieces", "byte_runs")
+    totals: dict[str, dict] = {}
+    for stats in encode_stats:
+        source = totals.setdefault(stats["source"], {split: dict.fromkeys(keys, 0) for split in SPLITS})
+        for split in SPLITS:
+            for key in keys:
+                source[split][key] += stats["splits"][split][key]
+    for source in totals.values():
+        for t in source.values():
+            without_fallback = t["tokens"] - t["byte_pieces"] + t["byte_runs"]
+            t["unknown_rate_without_byte_fallback"] = (t["oov_tokens"] + t["byte_runs"]) / without_fallback if without_fallback else 0.0
+    return dict(sorted(totals.items()))
 
 
 def _type_ids(pieces: list[pa.Array], vocabulary: pa.Array, path: str) -> np.ndarray:
@@ -137,9 +216,9 @@ def plot_coverage(curve: dict[str, np.ndarray], chosen: int) -> str:
     return _png(figure)
 
 
-def plot_zipf(ranks: np.ndarray, counts: np.ndarray, fit: PowerFit) -> str:
+def plot_zipf(ranks: np.ndarray, counts: np.ndarray, fit: PowerFit, unit: str = "words") -> str:
     figure, axes = _figure()
-    axes.loglog(ranks, counts, ".", color=COLOURS["train"], markersize=4, label="train words")
+    axes.loglog(ranks, counts, ".", color=COLOURS["train"], markersize=4, label=f"train {unit}")
     axes.loglog(ranks, fit.constant * ranks.astype(np.float64) ** (-fit.exponent), color="#cf222e", linewidth=1.2,
                 label=f"fit: count ≈ {fit.constant:,.0f} · rank$^{{-{fit.exponent:.3f}}}$")
     axes.set_xlabel("rank")
@@ -148,19 +227,19 @@ def plot_zipf(ranks: np.ndarray, counts: np.ndarray, fit: PowerFit) -> str:
     return _png(figure)
 
 
-def plot_growth(tokens: np.ndarray, types: np.ndarray, fit: PowerFit) -> str:
+def plot_growth(tokens: np.ndarray, types: np.ndarray, fit: PowerFit, read: str = "train tokens read (corpus order)") -> str:
     figure, axes = _figure()
     axes.loglog(tokens, types, color=COLOURS["train"], label="distinct words seen")
     axes.loglog(tokens, fit(tokens), color="#cf222e", linestyle="--", linewidth=1.2,
                 label=f"fit: types ≈ {fit.constant:.2f} · tokens$^{{{fit.exponent:.3f}}}$")
     axes.axvspan(fit.fit_from, float(tokens.max()), color="#cf222e", alpha=0.06, label="fitted range")
-    axes.set_xlabel("train tokens read (corpus order)")
+    axes.set_xlabel(read)
     axes.set_ylabel("distinct words")
     axes.legend(fontsize=9)
     return _png(figure)
 
 
-def plot_sources(sources: dict[str, dict]) -> str:
+def plot_sources(sources: dict[str, dict], key: str = "oov_rate", label: str = "tokens out of vocabulary") -> str:
     names = list(sources)
     figure = Figure(figsize=(8.0, 0.9 + 0.42 * len(names)), layout="constrained")
     axes = figure.add_subplot()
@@ -168,12 +247,12 @@ def plot_sources(sources: dict[str, dict]) -> str:
     height = 0.8 / len(SPLITS)
     positions = np.arange(len(names))
     for index, split in enumerate(SPLITS):
-        rates = [sources[name][split]["oov_rate"] for name in names]
+        rates = [sources[name][split][key] for name in names]
         axes.barh(positions + (index - 1) * height, rates, height=height, color=COLOURS[split], label=split)
     axes.set_yticks(positions, names, fontsize=8)
     axes.invert_yaxis()
     _percent(axes.xaxis)
-    axes.set_xlabel("tokens out of vocabulary")
+    axes.set_xlabel(label)
     axes.legend(fontsize=9)
     return _png(figure)
 
@@ -242,6 +321,53 @@ def sizing_rows(vocabulary: int, widths: Sequence[int], context: int, hidden: in
     return rows
 
 
+def accounting_section(manifest: dict, unit: str) -> tuple[str, str, str]:
+    """Documents read, dropped and kept (from the manifest), and rows per split; `unit` names the ids."""
+    accounting = manifest["accounting"]
+    dropped = accounting["dropped"]
+    account_rows = [["documents read", accounting["read"]], ["pieces added by splitting long documents", accounting["pieces_added"]]]
+    account_rows += [[f"dropped: {reason.replace('_', ' ')}", count] for reason, count in dropped.items()]
+    account_rows += [["kept", accounting["kept"]], ["truncated", accounting["truncated"]],
+                     ["invalid UTF-8 sequences replaced", accounting["replaced_sequences"]],
+                     ["read + pieces = kept + dropped", accounting["balanced"]]]
+    kinds = sorted({kind for figures in manifest["splits"].values() for kind in figures["rows"]})
+    size_rows = [[s, manifest["splits"][s]["documents"], manifest["splits"][s]["sentences"], manifest["splits"][s]["tokens"]]
+                 + [manifest["splits"][s]["rows"].get(k, 0) for k in kinds] for s in SPLITS]
+    return ("accounting", "Documents and rows", "".join([
+        f"<p>Duplicates removed: {dropped.get('duplicate', 0):,}.</p>",
+        table(["documents", "count"], account_rows),
+        table(["split", "documents", "sentences", unit] + [f"{k} rows" for k in kinds], size_rows),
+    ]))
+
+
+def sizing_section(size: int, options: dict, context_unit: str) -> tuple[str, str, str]:
+    """Parameters, bytes and softmax cost of a feed-forward model over `size` ids."""
+    report = options["report"]
+    context = options["windows"]["ngram"]["n"] - 1
+    return ("sizing", "What a model of this vocabulary costs", "".join([
+        f"<p>A feed-forward model over {size:,} ids with {context} context {context_unit}, hidden width h = {report['hidden_width']}, "
+        "one column per embedding width m. Counts with their size as float32; the output layer's multiply-adds "
+        "score every id for each predicted token.</p>",
+        table(["figure"] + [f"m = {width:,}" for width in report["embedding_widths"]],
+              sizing_rows(size, report["embedding_widths"], context, report["hidden_width"])),
+    ]))
+
+
+def page(sections: list[tuple[str, str, str]], lead: str, manifest: dict) -> str:
+    """The sections as one HTML page with a table of contents."""
+    nav = "".join(f'<li><a href="#{key}">{html.escape(title)}</a></li>' for key, title, _ in sections)
+    body = "".join(f'<section id="{key}"><h2>{html.escape(title)}</h2>{content}</section>' for key, title, content in sections)
+    return (
+        '<!DOCTYPE html>\n<html lang="en"><head><meta charset="utf-8">'
+        '<meta name="viewport" content="width=device-width, initial-scale=1">'
+        f"<title>Vocabulary coverage report</title><style>{STYLE}</style></head><body>"
+        "<h1>Vocabulary coverage report</h1>"
+        f'<p class="lead">{lead}; '
+        f"configuration {html.escape(manifest.get('config_sha256', '')[:12])}, vocabulary {html.escape(manifest['vocabulary']['sha256'][:12])}.</p>"
+        f"<nav><ol>{nav}</ol></nav>{body}</body></html>\n"
+    )
+
+
 def render(
     coverage: dict,
     manifest: dict,
@@ -250,14 +376,13 @@ def render(
     growth: tuple[np.ndarray, np.ndarray, PowerFit],
     options: dict,
 ) -> str:
-    """The whole page as one HTML string."""
+    """The whole word-mode page as one HTML string."""
     words = coverage["words"]
     size = coverage["vocabulary_size"]
     splits = coverage["splits"]
     zipf_fit, ranks, ranked = zipf
     tokens, types, heaps_fit = growth
     report = options["report"]
-    context = options["windows"]["ngram"]["n"] - 1
     sections: list[tuple[str, str, str]] = []
 
     chosen_rows = coverage["sizes"]
@@ -320,51 +445,123 @@ def render(
         table(["symbol"] + [f"{s} {label}" for s in SPLITS for label in ("tokens", "share")], class_rows),
     ])))
 
-    accounting = manifest["accounting"]
-    dropped = accounting["dropped"]
-    account_rows = [["documents read", accounting["read"]], ["pieces added by splitting long documents", accounting["pieces_added"]]]
-    account_rows += [[f"dropped: {reason.replace('_', ' ')}", count] for reason, count in dropped.items()]
-    account_rows += [["kept", accounting["kept"]], ["truncated", accounting["truncated"]],
-                     ["invalid UTF-8 sequences replaced", accounting["replaced_sequences"]],
-                     ["read + pieces = kept + dropped", accounting["balanced"]]]
-    kinds = sorted({kind for figures in manifest["splits"].values() for kind in figures["rows"]})
-    size_rows = [[s, manifest["splits"][s]["documents"], manifest["splits"][s]["sentences"], manifest["splits"][s]["tokens"]]
-                 + [manifest["splits"][s]["rows"].get(k, 0) for k in kinds] for s in SPLITS]
-    sections.append(("accounting", "Documents and rows", "".join([
-        f"<p>Duplicates removed: {dropped.get('duplicate', 0):,}.</p>",
-        table(["documents", "count"], account_rows),
-        table(["split", "documents", "sentences", "tokens"] + [f"{k} rows" for k in kinds], size_rows),
+    sections.append(accounting_section(manifest, "tokens"))
+    sections.append(sizing_section(size, options, "words"))
+    return page(sections, f"{splits['train']['tokens']:,} train tokens, {words:,} words kept", manifest)
+
+
+def _fine_rate(value: float) -> Shown:
+    """A subword rate as a percentage with four decimals: exactly the six decimals coverage.json keeps."""
+    return Shown(f"{value:.4%}")
+
+
+def _ratio(value: float) -> Shown:
+    return Shown(f"{value:.3f}")
+
+
+def render_subword(
+    coverage: dict,
+    manifest: dict,
+    zipf: tuple[PowerFit, np.ndarray, np.ndarray],
+    growth: tuple[np.ndarray, np.ndarray, PowerFit],
+    sources: dict[str, dict],
+    options: dict,
+) -> str:
+    """The whole subword-mode page as one HTML string: the figures of a piece model, not of a word cutoff."""
+    size = coverage["vocabulary_size"]
+    splits = coverage["splits"]
+    zipf_fit, ranks, ranked = zipf
+    words, types, heaps_fit = growth
+    sections: list[tuple[str, str, str]] = []
+
+    controls = size - coverage["pieces"] - coverage["byte_pieces"]
+    model_rows = [["learned pieces", coverage["pieces"]], ["byte pieces", coverage["byte_pieces"]],
+                  ["reserved symbols", controls], ["all ids, |V|", size],
+                  ["pieces and byte pieces never used in train", coverage["unused_in_train"]]]
+    sections.append(("model", "The subword model", "".join([
+        f"<p>{size:,} ids: {coverage['pieces']:,} learned pieces, {coverage['byte_pieces']:,} byte pieces and {controls:,} reserved symbols. "
+        "Every word of every split is spelled by pieces, so there is no word cutoff and no out-of-vocabulary word; "
+        "what remains to measure is how many pieces a word takes and how often the model falls back to bytes or &lt;unk&gt;.</p>",
+        table(["ids", "count"], model_rows),
+        "<h3>Most frequent train pieces</h3>",
+        table(["piece", "train count"], [[escape(piece), count] for piece, count in coverage["most_frequent_train_pieces"]]),
     ])))
 
-    sections.append(("sizing", "What a model of this vocabulary costs", "".join([
-        f"<p>A feed-forward model over {size:,} ids with {context} context words, hidden width h = {report['hidden_width']}, "
-        "one column per embedding width m. Counts with their size as float32; the output layer's multiply-adds "
-        "score every id for each predicted token.</p>",
-        table(["figure"] + [f"m = {width:,}" for width in report["embedding_widths"]],
-              sizing_rows(size, report["embedding_widths"], context, report["hidden_width"])),
+    length_rows = [[s, splits[s]["documents"], splits[s]["sentences"], splits[s]["words"], splits[s]["pieces"],
+                    _ratio(splits[s]["pieces_per_word"]), _ratio(splits[s]["pieces_per_sentence"])] for s in SPLITS]
+    sections.append(("lengths", "Pieces per word and per sentence", "".join([
+        f"<p>A train word takes {splits['train']['pieces_per_word']:.3f} pieces on average "
+        f"(dev {splits['dev']['pieces_per_word']:.3f}, test {splits['test']['pieces_per_word']:.3f}); "
+        "words are runs of non-space characters of the cleaned sentences. "
+        "More pieces per word mean longer id sequences for the same text: n-gram contexts and blocks span fewer words. "
+        "A dev or test figure well above train's suggests text unlike the train sample (a rule of thumb).</p>",
+        table(["split", "documents", "sentences", "words", "pieces", "pieces per word", "pieces per sentence"], length_rows),
     ])))
 
-    nav = "".join(f'<li><a href="#{key}">{html.escape(title)}</a></li>' for key, title, _ in sections)
-    body = "".join(f'<section id="{key}"><h2>{html.escape(title)}</h2>{content}</section>' for key, title, content in sections)
-    return (
-        '<!DOCTYPE html>\n<html lang="en"><head><meta charset="utf-8">'
-        '<meta name="viewport" content="width=device-width, initial-scale=1">'
-        f"<title>Vocabulary coverage report</title><style>{STYLE}</style></head><body>"
-        "<h1>Vocabulary coverage report</h1>"
-        f'<p class="lead">{splits["train"]["tokens"]:,} train tokens, {words:,} words kept; '
-        f"configuration {html.escape(manifest.get('config_sha256', '')[:12])}, vocabulary {html.escape(manifest['vocabulary']['sha256'][:12])}.</p>"
-        f"<nav><ol>{nav}</ol></nav>{body}</body></html>\n"
-    )
+    unknown_rows = [[s, splits[s]["pieces"], splits[s]["unknown_pieces"], _fine_rate(splits[s]["unknown_rate"]),
+                     splits[s]["byte_pieces"], _fine_rate(splits[s]["byte_piece_rate"]),
+                     _fine_rate(splits[s]["unknown_rate_without_byte_fallback"])] for s in SPLITS]
+    unknown_parts = [
+        "<p>&lt;unk&gt; rate: share of pieces that are &lt;unk&gt; as encoded. Byte-piece share: share of pieces that are "
+        "UTF-8 bytes of characters outside the model. Without byte fallback the same model would write one &lt;unk&gt; "
+        "for each run of byte pieces (sentencepiece merges adjacent unknown characters); the last column is that rate.</p>",
+        table(["split", "pieces", "<unk> pieces", "<unk> rate", "byte pieces", "byte-piece share", "<unk> rate without byte fallback"],
+              unknown_rows),
+    ]
+    if sources:
+        source_rows = [[name] + [v for s in SPLITS for v in (figures[s]["tokens"], _fine_rate(figures[s]["unknown_rate_without_byte_fallback"]))]
+                       for name, figures in sources.items()]
+        unknown_parts.append(image(plot_sources(sources, "unknown_rate_without_byte_fallback", "pieces that would be <unk> without byte fallback"),
+                                   "unknown rate without byte fallback by source file",
+                                   "Share of pieces that would be <unk> without byte fallback, per input file and split: "
+                                   "files with characters the model lacks stand out."))
+        unknown_parts.append(table(["source file"] + [f"{s} {label}" for s in SPLITS for label in ("pieces", "<unk> w/o fallback")], source_rows))
+    sections.append(("unknown", "Unknown pieces and byte fallback", "".join(unknown_parts)))
+
+    sections.append(("zipf", "Rank and frequency of pieces", "".join([
+        f"<p>Fitted Zipf exponent s = {zipf_fit.exponent:.3f} (least squares on log–log axes at "
+        f"{len(ranks)} log-spaced ranks of the {int(ranks.max()) if len(ranks) else 0:,} pieces used in train). "
+        "A small piece inventory rarely follows one straight line: single characters and frequent short pieces fill the head, "
+        "rarely used byte pieces the tail, so read s as a summary of the slope rather than as the word law.</p>",
+        image(plot_zipf(ranks, ranked, zipf_fit, "pieces"), "rank-frequency plot of pieces", "Train count of the piece at each rank, log–log axes."),
+    ])))
+
+    sections.append(("growth", "Vocabulary growth", "".join([
+        "<p>Measured in words, not pieces: distinct whitespace-separated words of the train sentences, in corpus order, "
+        "duplicates left out; the number of pieces is fixed at |V| by the model and does not grow. "
+        f"Heaps fit: types ≈ K · words<sup>β</sup> with K = {heaps_fit.constant:.2f}, β = {heaps_fit.exponent:.3f}, "
+        f"fitted on the last decade of the stream (from {int(heaps_fit.fit_from):,} of {int(words.max()) if len(words) else 0:,} words; "
+        f"{int(types[-1]) if len(types) else 0:,} distinct words). "
+        "This is the open vocabulary the pieces have to spell; large English collections usually give β between 0.4 and 0.6.</p>",
+        image(plot_growth(words, types, heaps_fit, "train words read (whitespace-separated, corpus order)"), "vocabulary growth plot",
+              "Distinct words after each prefix of the train words, in corpus order, duplicates left out."),
+    ])))
+
+    sections.append(accounting_section(manifest, "pieces"))
+    sections.append(sizing_section(size, options, "pieces"))
+    return page(sections, f"{splits['train']['pieces']:,} train pieces, subword model of {size:,} ids", manifest)
 
 
 def build_page(coverage_path: str, manifest_path: str, counts_path: str, duplicates_path: str,
-               prepared: Sequence[str], options: dict) -> str:
+               prepared: Sequence[str], options: dict, encode_stats: Sequence[str] = ()) -> str:
+    coverage = read_json(coverage_path)
     counts = pq.read_table(counts_path)
+    duplicates = pq.read_table(duplicates_path)
+    if coverage.get("units") == "subword":
+        words, types = word_growth(train_word_batches(prepared, duplicates))
+        return render_subword(
+            coverage,
+            read_json(manifest_path),
+            fit_zipf(counts["train"].to_numpy()),
+            (words, types, fit_heaps(words, types)),
+            source_figures([read_json(path) for path in encode_stats]),
+            options,
+        )
     vocabulary = counts["token"].combine_chunks()
-    batches = train_token_batches(prepared, pq.read_table(duplicates_path), vocabulary)
+    batches = train_token_batches(prepared, duplicates, vocabulary)
     tokens, types = growth_curve(batches, len(vocabulary))
     return render(
-        read_json(coverage_path),
+        coverage,
         read_json(manifest_path),
         coverage_curve(counts),
         fit_zipf(counts["train"].to_numpy()),
@@ -379,13 +576,16 @@ def main(argv: list[str] | None = None) -> None:
     parser.add_argument("--manifest", required=True)
     parser.add_argument("--token-counts", required=True)
     parser.add_argument("--duplicates", required=True)
+    parser.add_argument("--encode-stats", action="append", default=[],
+                        help="per-chunk encode statistics (subword units: <unk> rates by source file); repeat per chunk")
     parser.add_argument("--options", required=True, help="JSON with the report and windows sections")
     parser.add_argument("--output", required=True)
     parser.add_argument("prepared", nargs="*", help="prepared chunk files in corpus order")
     args = parser.parse_args(argv)
-    page = build_page(args.coverage, args.manifest, args.token_counts, args.duplicates, args.prepared, json.loads(args.options))
-    write_text(args.output, page)
-    print(f"report: {args.output} ({len(page):,} bytes)")
+    page_text = build_page(args.coverage, args.manifest, args.token_counts, args.duplicates, args.prepared,
+                           json.loads(args.options), args.encode_stats)
+    write_text(args.output, page_text)
+    print(f"report: {args.output} ({len(page_text):,} bytes)")
 
 
 if __name__ == "__main__":

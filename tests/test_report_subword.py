@@ -1,0 +1,218 @@
+"""The coverage report page of a subword build (units: subword): piece figures instead of word cutoffs.
+
+A small piece model (vocab_size 500) on the demo corpus, built with the default target, so the
+report is part of `snakemake` with no target. coverage.json (itself checked against recounts of
+the shards in test_subword) is the reference for the figures the page shows.
+"""
+
+from __future__ import annotations
+
+import base64
+import html
+import json
+import re
+import shutil
+import tempfile
+import urllib.request
+from pathlib import Path
+
+import numpy as np
+import pyarrow as pa
+import pyarrow.parquet as pq
+import pytest
+
+from conftest import DEMO, require_file, run_workflow
+from test_report_browser import CHROMIUM, DevTools, start_chromium, websocket_module
+from test_report_page import OPTIONS, corpus_order, png_chunks
+from steps.laws import ModelSize, fit_zipf
+from steps.report_page import main, source_figures, train_word_batches, whitespace_words, word_growth
+from steps.vocab import read_vocabulary
+
+OVERRIDES = {"corpus": {"root": str(DEMO)}, "units": "subword", "subword": {"vocab_size": 500}}
+# RE2's \s, which the encode step's word count uses, is ASCII whitespace only.
+WORD = re.compile(r"[^\t\n\f\r ]+")
+
+
+@pytest.fixture(scope="module")
+def subword_run(tmp_path_factory: pytest.TempPathFactory) -> tuple[Path, str]:
+    """The demo corpus built in subword mode with the default target; the build folder and the run's log."""
+    directory = tmp_path_factory.mktemp("report-subword")
+    result = run_workflow(directory, OVERRIDES)
+    return directory / "build", result.stderr
+
+
+def section(page: str, key: str) -> str:
+    found = re.search(rf'<section id="{key}">(.*?)</section>', page, re.S)
+    assert found, f"no section {key!r}"
+    return found.group(1)
+
+
+def rows(fragment: str) -> list[list[str]]:
+    """Body rows of every table in an HTML fragment, cells as unescaped text."""
+    cells = [[html.unescape(c) for c in re.findall(r"<td[^>]*>(.*?)</td>", row)] for row in re.findall(r"<tr[^>]*>(.*?)</tr>", fragment)]
+    return [row for row in cells if row]
+
+
+def encode_stats(build: Path) -> list[Path]:
+    return sorted((build / "work" / "encoded").glob("*/stats.json"))
+
+
+def test_the_default_target_builds_the_report_in_subword_mode(subword_run: tuple[Path, str]) -> None:
+    """Snakemake's own job log: rule all (no target given) ran the report job, and the page is the subword one."""
+    build, log = subword_run
+    assert re.search(r"^localrule report:", log, re.M) or re.search(r"^rule report:", log, re.M)
+    page = (build / "report" / "index.html").read_text(encoding="utf-8")
+    assert json.loads((build / "stats" / "coverage.json").read_text())["units"] == "subword"
+    assert '<section id="lengths">' in page and '<section id="coverage">' not in page
+    assert "<title>Vocabulary coverage report</title>" in page
+
+
+def test_pieces_per_word_and_per_sentence_by_split_equal_coverage_json(subword_run: tuple[Path, str]) -> None:
+    """coverage.json as the reference: each split's row holds its counts and ratios (three decimals)."""
+    build, _ = subword_run
+    page = (build / "report" / "index.html").read_text(encoding="utf-8")
+    splits = json.loads((build / "stats" / "coverage.json").read_text())["splits"]
+    expected = [[s, f"{f['documents']:,}", f"{f['sentences']:,}", f"{f['words']:,}", f"{f['pieces']:,}",
+                 f"{f['pieces_per_word']:.3f}", f"{f['pieces_per_sentence']:.3f}"] for s, f in splits.items()]
+    assert sorted(rows(section(page, "lengths"))) == sorted(expected)
+
+
+def test_unknown_rates_with_and_without_byte_fallback_equal_coverage_json(subword_run: tuple[Path, str]) -> None:
+    """coverage.json as the reference; four decimals of a percentage are exactly its six decimals."""
+    build, _ = subword_run
+    page = (build / "report" / "index.html").read_text(encoding="utf-8")
+    splits = json.loads((build / "stats" / "coverage.json").read_text())["splits"]
+    by_split = {row[0]: row for row in rows(section(page, "unknown")) if row[0] in splits}
+    for split, f in splits.items():
+        assert by_split[split] == [split, f"{f['pieces']:,}", f"{f['unknown_pieces']:,}", f"{f['unknown_rate']:.4%}",
+                                   f"{f['byte_pieces']:,}", f"{f['byte_piece_rate']:.4%}", f"{f['unknown_rate_without_byte_fallback']:.4%}"]
+        assert float(by_split[split][6].rstrip("%")) / 100 == pytest.approx(f["unknown_rate_without_byte_fallback"], abs=1e-9)
+    assert any(f["byte_pieces"] for f in splits.values())  # the demo corpus exercises byte fallback
+
+
+def test_unknown_rates_by_source_add_up_to_the_split_totals(subword_run: tuple[Path, str]) -> None:
+    """coverage.json's split totals: the per-file pieces and unknown-without-fallback pieces sum to them."""
+    build, _ = subword_run
+    splits = json.loads((build / "stats" / "coverage.json").read_text())["splits"]
+    sources = source_figures([json.loads(p.read_text()) for p in encode_stats(build)])
+    assert len(sources) == len(json.loads((build / "manifest.json").read_text())["inputs"])
+    for split, f in splits.items():
+        assert sum(s[split]["tokens"] for s in sources.values()) == f["pieces"]
+        would_be_unknown = sum(s[split]["unknown_rate_without_byte_fallback"] * (s[split]["tokens"] - s[split]["byte_pieces"] + s[split]["byte_runs"])
+                               for s in sources.values())
+        total = f["pieces"] - f["byte_pieces"] + sum(s[split]["byte_runs"] for s in sources.values())
+        assert would_be_unknown / total == pytest.approx(f["unknown_rate_without_byte_fallback"], abs=1e-6)
+    page = (build / "report" / "index.html").read_text(encoding="utf-8")
+    table = {row[0]: row for row in rows(section(page, "unknown")) if row[0] in sources}
+    for name, figures in sources.items():
+        assert table[name][1:3] == [f"{figures['train']['tokens']:,}", f"{figures['train']['unknown_rate_without_byte_fallback']:.4%}"]
+
+
+def test_zipf_fit_and_model_sizing_use_the_pieces(subword_run: tuple[Path, str]) -> None:
+    """Zipf's law fitted on the train counts of vocabulary.tsv (an independent reader of the same
+    counts); the sizing table with |V| = number of ids of the piece model."""
+    build, _ = subword_run
+    page = (build / "report" / "index.html").read_text(encoding="utf-8")
+    vocabulary = read_vocabulary(build / "vocabulary.tsv")
+    fit, ranks, _ = fit_zipf(np.array(vocabulary.counts))
+    assert f"Zipf exponent s = {fit.exponent:.3f}" in section(page, "zipf")
+    assert f"ranks of the {int(ranks.max()):,} pieces used in train" in page
+    assert int(ranks.max()) == sum(1 for c in vocabulary.counts if c > 0)
+    for width in OPTIONS["report"]["embedding_widths"]:
+        size = ModelSize(vocabulary.size, width, 3, 100)
+        assert f"{size.parameters:,} (" in section(page, "sizing") and f"{size.output_parameters:,} (" in page
+
+
+def test_growth_counts_whitespace_words_of_the_train_sentences(subword_run: tuple[Path, str]) -> None:
+    """Brute force: distinct words after each prefix of the kept train sentences in corpus order,
+    counted with a Python set over re.findall (ASCII whitespace, as RE2's \\s); the total equals
+    coverage.json's train words."""
+    build, _ = subword_run
+    duplicates = pq.read_table(build / "work" / "duplicates.parquet")
+    removed = {(r["source"], r["offset"]) for r in duplicates.to_pylist()}
+    prepared = corpus_order(build)
+    seen: set[str] = set()
+    after = [0]
+    for path in prepared:
+        for row in pq.read_table(path, columns=["source", "offset", "split", "sentences"]).to_pylist():
+            if row["split"] != "train" or (row["source"], row["offset"]) in removed:
+                continue
+            for word in (w for sentence in row["sentences"] for w in WORD.findall(sentence)):
+                seen.add(word)
+                after.append(len(seen))
+    words, types = word_growth(train_word_batches(prepared, duplicates))
+    assert words[-1] == len(after) - 1 == json.loads((build / "stats" / "coverage.json").read_text())["splits"]["train"]["words"]
+    assert types.tolist() == [after[n] for n in words]
+    assert f"of {len(after) - 1:,} words; {len(seen):,} distinct words" in (build / "report" / "index.html").read_text(encoding="utf-8")
+
+
+def test_word_growth_does_not_depend_on_how_the_stream_is_batched() -> None:
+    """A Python set recount of the same words; batches of 1, 3 and all words give the same curve."""
+    text = ["the tide the  quay", " a tide\tturned ", "", "quay of the harbour\nat dawn"]
+    words = whitespace_words(pa.array(text))
+    assert words.to_pylist() == [w for s in text for w in s.split()]
+    seen: set[str] = set()
+    after = [0]
+    for word in words.to_pylist():
+        seen.add(word)
+        after.append(len(seen))
+    for size in (1, 3, len(words)):
+        batches = [words.slice(start, size) for start in range(0, len(words), size)]
+        positions, types = word_growth(batches)
+        assert types.tolist() == [after[n] for n in positions]
+    assert word_growth([])[0].tolist() == []
+
+
+def test_subword_page_is_self_contained_and_byte_identical_when_written_again(subword_run: tuple[Path, str], tmp_path: Path) -> None:
+    """PNG specification (no text or time chunks) and determinism (project rule): same build, same bytes."""
+    build, _ = subword_run
+    original = (build / "report" / "index.html").read_bytes()
+    page = original.decode("utf-8")
+    assert not re.search(r"""(src|href)=["'](?!data:|#)""", page)
+    images = re.findall(r'<img src="data:image/png;base64,([A-Za-z0-9+/=]+)"', page)
+    assert len(images) == page.count("<img") == 3
+    for encoded in images:
+        assert not {b"tEXt", b"iTXt", b"zTXt", b"tIME"} & set(png_chunks(base64.b64decode(encoded)))
+    again = tmp_path / "again.html"
+    stats_arguments = [a for p in encode_stats(build) for a in ("--encode-stats", str(p))]
+    main([
+        "--coverage", str(build / "stats" / "coverage.json"), "--manifest", str(build / "manifest.json"),
+        "--token-counts", str(build / "stats" / "token_counts.parquet"), "--duplicates", str(build / "work" / "duplicates.parquet"),
+        *stats_arguments, "--options", json.dumps(OPTIONS), "--output", str(again), *corpus_order(build),
+    ])
+    assert again.read_bytes() == original
+
+
+def test_subword_page_renders_in_chromium_without_errors(subword_run: tuple[Path, str]) -> None:
+    """Chromium as the reference renderer (skipped without it outside CI): no exceptions or console
+    errors, every <img> decoded (naturalWidth > 0)."""
+    require_file(CHROMIUM, "chromium")
+    websocket = websocket_module()
+    build, _ = subword_run
+    profile = Path(tempfile.mkdtemp(prefix="corpusmill-chromium-"))
+    process, port = start_chromium(profile)
+    try:
+        with urllib.request.urlopen(f"http://127.0.0.1:{port}/json/list", timeout=30) as response:
+            target = next(t for t in json.load(response) if t["type"] == "page")
+        tools = DevTools(target["webSocketDebuggerUrl"], websocket)
+        try:
+            for domain in ("Page", "Runtime", "Log"):
+                tools.call(f"{domain}.enable")
+            tools.call("Page.navigate", url=(build / "report" / "index.html").resolve().as_uri())
+            tools.wait_for("Page.loadEventFired")
+            images = tools.call("Runtime.evaluate", returnByValue=True,
+                                expression="Array.from(document.images, i => [i.complete, i.naturalWidth])")["result"]["value"]
+            headings = tools.call("Runtime.evaluate", returnByValue=True,
+                                  expression="Array.from(document.querySelectorAll('h2'), h => h.textContent)")["result"]["value"]
+        finally:
+            tools.close()
+    finally:
+        process.kill()  # a throwaway profile: nothing to flush
+        process.wait(timeout=10)
+        shutil.rmtree(profile, ignore_errors=True)
+    errors = [e for e in tools.events if e.get("method") == "Runtime.exceptionThrown"
+              or (e.get("method") == "Runtime.consoleAPICalled" and e["params"]["type"] in ("error", "assert"))
+              or (e.get("method") == "Log.entryAdded" and e["params"]["entry"]["level"] == "error")]
+    assert errors == []
+    assert len(images) == 3 and all(complete and width > 0 for complete, width in images), images
+    assert "Unknown pieces and byte fallback" in headings and "Pieces per word and per sentence" in headings
