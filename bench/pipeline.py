@@ -1,0 +1,357 @@
+"""Benchmark the whole workflow on real English text (Debian's dict-gcide, about 40 MB).
+
+One run measures, on this machine:
+- the floor F: one bare single-core pass of the default word segmenter over the 1x corpus
+  (read each file, cut paragraphs, `Segmenter.segment`, discard) — the least any build must do;
+- the full build on `--cores N` at 1x and 10x, as a ratio to F, in MB/s and tokens/s;
+- the peak resident memory of every job, sampled from the process table (no rule changes);
+- the rebuild after one of the 20 input files changed, as a share of the full build;
+- reading every train shard back into numpy arrays (ids/s).
+
+The 10x corpus holds ten copies of every file; each paragraph of copy k starts with the token
+`copyk`, so copies stay distinct documents and deduplication removes exactly what it removes
+at 1x. The 10x build also uses ten times as many train shard files, so one shard job holds as
+much text at 10x as at 1x (the config's advice: train_files grows with the corpus).
+
+Usage: python bench/pipeline.py [--cores 2] [--scales 1 10] [--keep]
+Corpus and builds go to bench/data/, results to bench/results/pipeline.json (both gitignored).
+"""
+
+from __future__ import annotations
+
+import argparse
+import gzip
+import json
+import os
+import platform
+import re
+import resource
+import shutil
+import subprocess
+import sys
+import threading
+import time
+from dataclasses import dataclass, field
+from pathlib import Path
+
+import numpy as np
+import psutil
+import pyarrow as pa
+import pyarrow.parquet as pq
+import yaml
+
+REPO = Path(__file__).resolve().parent.parent
+sys.path.insert(0, str(REPO))
+
+from steps import settings  # noqa: E402
+from steps.segment import Segmenter  # noqa: E402
+
+GCIDE = Path("/usr/share/dictd/gcide.dict.dz")
+DATA = REPO / "bench" / "data"
+RESULTS = REPO / "bench" / "results"
+FILES = 20
+_PARAGRAPH_BREAK = re.compile(r"\n[ \t]*\n")
+# The step module (and subcommand) a job runs → its rule name.
+_RULES = {
+    "steps.prepare": "prepare",
+    "steps.split": "deduplicate",
+    "steps.vocab count": "count",
+    "steps.vocab build": "vocabulary",
+    "steps.encode": "encode",
+    "steps.shards": "shard",
+    "steps.report": "coverage",
+    "steps.manifest": "manifest",
+}
+
+
+def default_config() -> dict:
+    """The workflow's configuration with every default filled in (what a plain run uses)."""
+    raw = yaml.safe_load((REPO / "workflow_config" / "config.yaml").read_text(encoding="utf-8"))
+    return settings.resolve(raw)
+
+
+def write_corpus(folder: Path, copies: int) -> int:
+    """Split gcide into FILES .txt files of whole paragraphs (x copies); returns bytes written.
+
+    Copy k of a file prefixes each paragraph with `copyk` when copies > 1, so no paragraph of
+    one copy duplicates a paragraph of another.
+    """
+    marker = folder / ".complete"
+    if marker.exists():
+        return sum(p.stat().st_size for p in folder.glob("*.txt"))
+    if folder.exists():
+        shutil.rmtree(folder)
+    folder.mkdir(parents=True)
+    text = gzip.decompress(GCIDE.read_bytes()).decode("utf-8", "replace")  # 3 stray cp1252 bytes
+    paragraphs = [p for p in _PARAGRAPH_BREAK.split(text) if p.strip()]
+    sizes = np.cumsum([len(p) + 2 for p in paragraphs])
+    bounds = np.searchsorted(sizes, sizes[-1] * np.arange(1, FILES) / FILES)
+    groups = np.split(np.arange(len(paragraphs)), bounds)
+    total = 0
+    for copy in range(copies):
+        for number, rows in enumerate(groups):
+            prefix = f"copy{copy} " if copies > 1 else ""
+            body = "\n\n".join(prefix + paragraphs[i] for i in rows) + "\n"
+            name = f"part-{number:02d}.txt" if copies == 1 else f"copy{copy}-part-{number:02d}.txt"
+            total += (folder / name).write_text(body, encoding="utf-8")
+    marker.write_text("")
+    return total
+
+
+def floor_pass(folder: Path, config: dict) -> dict:
+    """Wall time of one bare single-core read + paragraph cut + default segmentation pass."""
+    segmenter = Segmenter.from_config(config["segment"])
+    tokens = 0
+    load = os.getloadavg()[0]
+    cpu = time.process_time()
+    started = time.perf_counter()
+    for path in sorted(folder.glob("*.txt")):
+        for paragraph in _PARAGRAPH_BREAK.split(path.read_text(encoding="utf-8")):
+            if paragraph.strip():
+                tokens += sum(len(s) for s in segmenter.segment(paragraph))
+    seconds = time.perf_counter() - started
+    cpu = time.process_time() - cpu
+    return {"seconds": round(seconds, 2), "cpu_seconds": round(cpu, 2), "tokens": tokens, "load_before": round(load, 2)}
+
+
+@dataclass
+class JobSampler:
+    """Samples the resident memory of every step process under one Snakemake run."""
+
+    root: int
+    interval: float = 0.05
+    peaks: dict[int, tuple[str, int]] = field(default_factory=dict)
+    seen: dict[int, list[float]] = field(default_factory=dict)
+    cpu: dict[int, float] = field(default_factory=dict)
+    snakemake_peak: int = 0
+    _stop: threading.Event = field(default_factory=threading.Event)
+
+    def _rule(self, cmdline: list[str]) -> str | None:
+        if "-m" not in cmdline:
+            return None
+        module = cmdline[cmdline.index("-m") + 1] if cmdline.index("-m") + 1 < len(cmdline) else ""
+        if module == "steps.vocab" and len(cmdline) > cmdline.index("-m") + 2:
+            module = f"{module} {cmdline[cmdline.index('-m') + 2]}"
+        return _RULES.get(module)
+
+    def run(self) -> None:
+        try:
+            parent = psutil.Process(self.root)
+        except psutil.NoSuchProcess:
+            return
+        while not self._stop.is_set():
+            try:
+                self.snakemake_peak = max(self.snakemake_peak, parent.memory_info().rss)
+                children = parent.children(recursive=True)
+            except psutil.NoSuchProcess:
+                return
+            now = time.perf_counter()
+            for child in children:
+                try:
+                    rule = self._rule(child.cmdline())
+                    rss = child.memory_info().rss
+                    times = child.cpu_times()
+                except (psutil.NoSuchProcess, psutil.AccessDenied, psutil.ZombieProcess):
+                    continue
+                if rule is None:
+                    continue
+                _, peak = self.peaks.get(child.pid, (rule, 0))
+                self.peaks[child.pid] = (rule, max(peak, rss))
+                self.seen.setdefault(child.pid, [now, now])[1] = now
+                self.cpu[child.pid] = times.user + times.system
+            time.sleep(self.interval)
+
+    def stop(self) -> None:
+        self._stop.set()
+
+    def by_rule(self) -> dict[str, dict]:
+        """Per rule: jobs seen, peak RSS (MiB) of its largest job, summed sampled job wall and
+        CPU seconds (both up to the last sample, so slightly low)."""
+        rules: dict[str, dict] = {}
+        for pid, (rule, peak) in self.peaks.items():
+            entry = rules.setdefault(rule, {"jobs": 0, "peak_rss_mib": 0.0, "job_seconds": 0.0, "cpu_seconds": 0.0})
+            entry["jobs"] += 1
+            entry["peak_rss_mib"] = round(max(entry["peak_rss_mib"], peak / 2**20), 1)
+            first, last = self.seen[pid]
+            entry["job_seconds"] = round(entry["job_seconds"] + last - first, 2)
+            entry["cpu_seconds"] = round(entry["cpu_seconds"] + self.cpu.get(pid, 0.0), 2)
+        return dict(sorted(rules.items()))
+
+
+def run_build(directory: Path, overrides: dict, cores: int) -> dict:
+    """Run the workflow once; returns wall seconds, per-rule memory and the jobs Snakemake ran."""
+    directory.mkdir(parents=True, exist_ok=True)
+    override = directory / "override.yaml"
+    override.write_text(yaml.safe_dump(overrides), encoding="utf-8")
+    command = [
+        sys.executable, "-m", "snakemake", "--snakefile", str(REPO / "Snakefile"), "--directory", str(directory),
+        "--cores", str(cores), "--configfile", str(override),
+    ]
+    load = os.getloadavg()[0]
+    before = resource.getrusage(resource.RUSAGE_CHILDREN)
+    started = time.perf_counter()
+    process = subprocess.Popen(command, stdout=subprocess.PIPE, stderr=subprocess.STDOUT, text=True)
+    sampler = JobSampler(process.pid)
+    thread = threading.Thread(target=sampler.run, daemon=True)
+    thread.start()
+    output, _ = process.communicate()
+    seconds = time.perf_counter() - started
+    after = resource.getrusage(resource.RUSAGE_CHILDREN)
+    sampler.stop()
+    thread.join()
+    if process.returncode != 0:
+        raise SystemExit(f"bench: workflow failed in {directory}:\n{output[-4000:]}")
+    jobs = re.search(r"Job stats:.*?\ntotal\s+(\d+)", output, re.S)
+    return {
+        "seconds": round(seconds, 2),
+        "cpu_seconds": round(after.ru_utime + after.ru_stime - before.ru_utime - before.ru_stime, 2),
+        "load_before": round(load, 2),
+        "load_after": round(os.getloadavg()[0], 2),
+        "jobs": int(jobs.group(1)) if jobs else 0,
+        "rules": sampler.by_rule(),
+        "snakemake_peak_rss_mib": round(sampler.snakemake_peak / 2**20, 1),
+    }
+
+
+def build_figures(build: Path) -> dict:
+    """Token total and vocabulary size of a finished build, from its coverage statistics."""
+    coverage = json.loads((build / "stats" / "coverage.json").read_text(encoding="utf-8"))
+    return {
+        "tokens": sum(coverage["splits"][s]["tokens"] for s in ("train", "dev", "test")),
+        "vocabulary_size": coverage["vocabulary_size"],
+    }
+
+
+def id_array(column: pa.Array) -> np.ndarray:
+    """The flat ids of a (possibly nested) id column, as a zero-copy numpy view."""
+    while pa.types.is_list(column.type) or pa.types.is_fixed_size_list(column.type) or pa.types.is_large_list(column.type):
+        column = column.flatten()
+    return column.to_numpy()
+
+
+def read_train_shards(build: Path) -> dict:
+    """Read every train shard's id columns into numpy arrays on one thread (Parquet's threads
+    only add overhead for these files); returns ids, wall and CPU seconds, and both rates."""
+    paths = sorted((build / "shards" / "train").glob("*.parquet"))
+    for path in paths:  # warm the page cache: the figure is decoding, not disk
+        path.read_bytes()
+    ids = 0
+    started, cpu = time.perf_counter(), time.process_time()
+    for path in paths:
+        table = pq.read_table(path, use_threads=False)
+        for name in table.column_names:
+            if name != "doc_id":
+                ids += len(id_array(table[name].combine_chunks()))
+    seconds, cpu = time.perf_counter() - started, time.process_time() - cpu
+    return {
+        "files": len(paths),
+        "ids": ids,
+        "seconds": round(seconds, 3),
+        "cpu_seconds": round(cpu, 3),
+        "ids_per_s": round(ids / seconds),
+        "ids_per_cpu_s": round(ids / cpu),
+    }
+
+
+def change_one_file(folder: Path) -> str:
+    """Edit one of the input files in place (reword one paragraph); returns its name."""
+    path = sorted(folder.glob("*.txt"))[7]
+    text = path.read_text(encoding="utf-8")
+    path.write_text(text.replace("[1913 Webster]", "[1913 Webster, revised]", 1), encoding="utf-8")
+    return path.name
+
+
+def scale_run(scale: int, cores: int, config: dict) -> dict:
+    """Build one scale from scratch, and at 1x also rebuild after one file changed."""
+    corpus = DATA / f"x{scale}"
+    size = write_corpus(corpus, scale)
+    directory = DATA / "runs" / f"x{scale}"
+    if directory.exists():
+        shutil.rmtree(directory)
+    train_files = config["shards"]["train_files"] * scale
+    overrides = {"corpus": {"root": str(corpus)}, "shards": {"train_files": train_files}}
+    result = {"input_mb": round(size / 1e6, 2), "files": FILES * scale, "train_files": train_files}
+    result["build"] = run_build(directory, overrides, cores)
+    result.update(build_figures(directory / "build"))
+    seconds = result["build"]["seconds"]
+    result["mb_per_s"] = round(size / 1e6 / seconds, 2)
+    result["tokens_per_s"] = round(result["tokens"] / seconds)
+    result["read_train_shards"] = read_train_shards(directory / "build")
+    if scale == 1:
+        pristine = corpus.with_name("x1-pristine")
+        shutil.rmtree(pristine, ignore_errors=True)
+        shutil.copytree(corpus, pristine)
+        try:
+            changed = change_one_file(corpus)
+            rebuild = run_build(directory, overrides, cores)
+        finally:
+            shutil.rmtree(corpus)
+            pristine.rename(corpus)
+        rebuild["changed_file"] = changed
+        rebuild["share_of_full_build"] = round(rebuild["seconds"] / seconds, 3)
+        result["rebuild"] = rebuild
+    return result
+
+
+def machine() -> dict:
+    return {
+        "cpu": next((line.split(":", 1)[1].strip() for line in Path("/proc/cpuinfo").read_text().splitlines() if line.startswith("model name")), platform.processor()),
+        "cores": os.cpu_count(),
+        "memory_gib": round(psutil.virtual_memory().total / 2**30, 1),
+        "python": platform.python_version(),
+        "platform": platform.platform(),
+    }
+
+
+def print_table(results: dict) -> None:
+    floor = results["floor"]
+    print(f"floor F (1 core, default segmenter only, 1x): {floor['seconds']:.1f} s wall, {floor['cpu_seconds']:.1f} s CPU, "
+          f"{floor['tokens']:,} tokens (load average {floor['load_before']})")
+    print(f"{'scale':>5} {'MB':>6} {'build s':>8} {'/F':>6} {'CPU s':>7} {'CPU/F':>6} {'MB/s':>6} {'tokens/s':>10} {'jobs':>5} "
+          f"{'peak RSS MiB (rule)':>22} {'read ids/s':>12} {'per CPU s':>12}")
+    for scale, run in results["scales"].items():
+        build, rules, read = run["build"], run["build"]["rules"], run["read_train_shards"]
+        worst = max(rules, key=lambda r: rules[r]["peak_rss_mib"])
+        print(
+            f"{scale:>5} {run['input_mb']:>6.1f} {build['seconds']:>8.1f} {build['seconds'] / floor['seconds']:>6.2f} "
+            f"{build['cpu_seconds']:>7.1f} {build['cpu_seconds'] / floor['cpu_seconds']:>6.2f} {run['mb_per_s']:>6.2f} "
+            f"{run['tokens_per_s']:>10,} {build['jobs']:>5} {rules[worst]['peak_rss_mib']:>13.0f} ({worst:>8}) "
+            f"{read['ids_per_s']:>12,} {read.get('ids_per_cpu_s', 0):>12,}"
+        )
+    for scale, run in results["scales"].items():
+        print(f"per rule at {scale} (peak RSS / summed job CPU s):")
+        for rule, v in run["build"]["rules"].items():
+            print(f"  {rule:<12} {v['jobs']:>4} jobs {v['peak_rss_mib']:>7.0f} MiB {v['cpu_seconds']:>8.1f} CPU s")
+    one = results["scales"].get("1x")
+    if one and "rebuild" in one:
+        r = one["rebuild"]
+        print(f"rebuild after changing {r['changed_file']}: {r['seconds']:.1f} s = {r['share_of_full_build']:.0%} of the full build "
+              f"({r['jobs']} jobs, {r['cpu_seconds']:.1f} CPU s)")
+    if "1x" in results["scales"] and "10x" in results["scales"]:
+        ratio = results["scales"]["10x"]["build"]["seconds"] / results["scales"]["1x"]["build"]["seconds"]
+        print(f"10x / 1x build time: {ratio:.2f}")
+
+
+def main(argv: list[str] | None = None) -> None:
+    parser = argparse.ArgumentParser(description="Benchmark the workflow on Debian's dict-gcide text.")
+    parser.add_argument("--cores", type=int, default=2)
+    parser.add_argument("--scales", type=int, nargs="+", default=[1, 10])
+    parser.add_argument("--keep", action="store_true", help="keep the build folders under bench/data/runs")
+    parser.add_argument("--output", default=str(RESULTS / "pipeline.json"))
+    args = parser.parse_args(argv)
+    if not GCIDE.exists():
+        raise SystemExit(f"bench: {GCIDE} is missing; install Debian's dict-gcide package (apt-get install -y dict-gcide)")
+    config = default_config()
+    write_corpus(DATA / "x1", 1)
+    results = {"machine": machine(), "cores": args.cores, "floor": floor_pass(DATA / "x1", config), "scales": {}}
+    for scale in args.scales:
+        results["scales"][f"{scale}x"] = scale_run(scale, args.cores, config)
+        if not args.keep:
+            shutil.rmtree(DATA / "runs" / f"x{scale}", ignore_errors=True)
+    Path(args.output).parent.mkdir(parents=True, exist_ok=True)
+    Path(args.output).write_text(json.dumps(results, indent=2, sort_keys=True) + "\n", encoding="utf-8")
+    print_table(results)
+
+
+if __name__ == "__main__":
+    main()
