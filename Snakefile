@@ -1,8 +1,8 @@
 # corpusmill: raw text folder → cleaned, tokenized, vocabulary-mapped, windowed, split Parquet shards.
-# Stages, in order (rules/*.smk): prepare (per chunk) → deduplicate → count (per chunk; or, for
-# subword units, a sentencepiece model learned on train) → vocabulary → encode (per chunk) →
-# shard (per split part) → coverage → manifest → report. The logic of every stage lives in
-# steps/; each rule runs one step.
+# Stages, in order (rules/*.smk): prepare (per chunk: read, clean, segment, split, count) →
+# deduplicate → vocabulary (for subword units: a sentencepiece model learned on train) →
+# encode (per chunk) → shard (per split part) → coverage → manifest → report. The logic of
+# every stage lives in steps/; each rule runs one step through `python -m steps.run`.
 
 import json
 import sys
@@ -30,7 +30,7 @@ PY = f"PYTHONPATH={workflow.basedir!r} {sys.executable!r}"
 
 def step(name, args):
     """Shell command running steps.<name>; output goes to the job's log, whose end is shown on failure."""
-    return "{{ " + PY + " -m steps." + name + " " + args + " ; }} > {log} 2>&1 || {{ tail -n 20 {log} >&2; exit 1; }}"
+    return "{{ " + PY + " -m steps.run " + name + " " + args + " ; }} > {log} 2>&1 || {{ tail -n 20 {log} >&2; exit 1; }}"
 
 
 wildcard_constraints:

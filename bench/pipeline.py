@@ -51,16 +51,16 @@ DATA = REPO / "bench" / "data"
 RESULTS = REPO / "bench" / "results"
 FILES = 20
 _PARAGRAPH_BREAK = re.compile(r"\n[ \t]*\n")
-# The step module (and subcommand) a job runs → its rule name.
+# The step module a job runs (`python -m steps.run MODULE …`) → its rule name.
 _RULES = {
-    "steps.prepare": "prepare",
-    "steps.split": "deduplicate",
-    "steps.vocab count": "count",
-    "steps.vocab build": "vocabulary",
-    "steps.encode": "encode",
-    "steps.shards": "shard",
-    "steps.report": "coverage",
-    "steps.manifest": "manifest",
+    "prepare": "prepare",
+    "split": "deduplicate",
+    "vocab": "vocabulary",
+    "encode": "encode",
+    "shards": "shard",
+    "report": "coverage",
+    "manifest": "manifest",
+    "report_page": "report",
 }
 
 
@@ -127,12 +127,10 @@ class JobSampler:
     _stop: threading.Event = field(default_factory=threading.Event)
 
     def _rule(self, cmdline: list[str]) -> str | None:
-        if "-m" not in cmdline:
+        if "-m" not in cmdline or cmdline[cmdline.index("-m") + 1 :][:1] != ["steps.run"]:
             return None
-        module = cmdline[cmdline.index("-m") + 1] if cmdline.index("-m") + 1 < len(cmdline) else ""
-        if module == "steps.vocab" and len(cmdline) > cmdline.index("-m") + 2:
-            module = f"{module} {cmdline[cmdline.index('-m') + 2]}"
-        return _RULES.get(module)
+        module = cmdline[cmdline.index("-m") + 2 :][:1]
+        return _RULES.get(module[0]) if module else None
 
     def run(self) -> None:
         try:

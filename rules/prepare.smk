@@ -30,6 +30,7 @@ rule prepare:
     output:
         table=L.prepared("{chunk}"),
         tally=L.tally("{chunk}"),
+        counts=L.counts("{chunk}"),
     log:
         L.log("prepare", "{chunk}"),
     params:
@@ -46,14 +47,15 @@ rule prepare:
         runtime=CONFIG["resources"]["runtime_min"],
     shell:
         step("prepare", "--root {params.root:q} --source {params.source:q} --chunk {params.chunk_index} "
-             "--chunks {params.chunks} --options {params.options:q} {params.learned} --output {output.table:q} --tally {output.tally:q}")
+             "--chunks {params.chunks} --options {params.options:q} {params.learned} --output {output.table:q} --tally {output.tally:q} --counts {output.counts:q}")
 
 
 rule deduplicate:
     input:
         tables=[L.prepared(c) for c in PLAN.chunk_keys],
     output:
-        L.duplicates,
+        duplicates=L.duplicates,
+        removed_counts=L.removed_counts,
     log:
         L.log("deduplicate"),
     params:
@@ -64,4 +66,5 @@ rule deduplicate:
         mem_mb=CONFIG["resources"]["aggregate_mem_mb"],
         runtime=CONFIG["resources"]["runtime_min"],
     shell:
-        step("split", "--enabled {params.enabled} --output {output:q} {input.tables:q}")
+        step("split", "--enabled {params.enabled} --output {output.duplicates:q} "
+             "--removed-counts {output.removed_counts:q} {input.tables:q}")

@@ -1,32 +1,14 @@
-# Train-split counts per chunk, merged into the vocabulary; then ids per chunk.
+# The chunks' counts (written by prepare) merged, duplicates subtracted, into the vocabulary;
+# then ids per chunk.
 # Subword units (SUBWORD, rules/subword.smk): encode uses the sentencepiece model and writes
 # piece counts per chunk; the vocabulary is then the model's pieces with those counts.
-
-rule count:
-    input:
-        table=L.prepared("{chunk}"),
-        duplicates=L.duplicates,
-    output:
-        L.counts("{chunk}"),
-    log:
-        L.log("count", "{chunk}"),
-    params:
-        source=lambda w: PLAN.chunk(w.chunk).source,
-        code=code_hash("count"),
-    threads: 1
-    resources:
-        mem_mb=CONFIG["resources"]["prepare_mem_mb"],
-        runtime=CONFIG["resources"]["runtime_min"],
-    shell:
-        step("vocab count", "--prepared {input.table:q} --source {params.source:q} "
-             "--duplicates {input.duplicates:q} --output {output:q}")
-
 
 rule vocabulary:
     input:
         counts=[L.piece_counts(c) if SUBWORD else L.counts(c) for c in PLAN.chunk_keys],
         frozen=[CONFIG["vocabulary"]["frozen"]] if CONFIG["vocabulary"]["frozen"] and not SUBWORD else [],
         model=[L.subword_model] if SUBWORD else [],
+        removed=[] if SUBWORD else [L.removed_counts],
     output:
         vocabulary=L.vocabulary,
         token_counts=L.token_counts,
@@ -34,7 +16,7 @@ rule vocabulary:
         L.log("vocabulary"),
     params:
         options=PLAN.options("vocabulary"),
-        model=f"--model {shlex.quote(L.subword_model)}" if SUBWORD else "",
+        counts_from=f"--model {shlex.quote(L.subword_model)}" if SUBWORD else f"--removed {shlex.quote(L.removed_counts)}",
         code=code_hash("vocabulary"),
     threads: 1
     resources:
@@ -42,7 +24,7 @@ rule vocabulary:
         runtime=CONFIG["resources"]["runtime_min"],
     shell:
         step("vocab build", "--options {params.options:q} --vocabulary {output.vocabulary:q} "
-             "--token-counts {output.token_counts:q} {params.model} {input.counts:q}")
+             "--token-counts {output.token_counts:q} {params.counts_from} {input.counts:q}")
 
 
 rule encode:

@@ -74,6 +74,10 @@ class Layout:
         return self._join("work", "shards", f"{split}-{_part(part)}.json")
 
     @property
+    def removed_counts(self) -> str:
+        return self._join("work", "duplicates.counts.parquet")
+
+    @property
     def duplicates(self) -> str:
         return self._join("work", "duplicates.parquet")
 

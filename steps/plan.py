@@ -18,13 +18,12 @@ STEPS_DIR = Path(__file__).resolve().parent
 
 # The step modules each rule runs; editing one reruns the rules that use it.
 RULE_MODULES = {
-    "prepare": ("ingest", "clean", "segment", "unicode_breaks", "split", "prepare", "storage"),
+    "prepare": ("ingest", "clean", "segment", "unicode_breaks", "split", "prepare", "vocab", "storage"),
     "abbreviations": ("segment", "unicode_breaks", "clean", "ingest", "storage"),
-    "deduplicate": ("split", "storage"),
+    "deduplicate": ("split", "vocab", "storage"),
     "subword_sample": ("subword", "split", "vocab", "storage"),
     "subword_train": ("subword", "vocab", "storage"),
     "subword_model": ("subword", "vocab", "storage"),
-    "count": ("vocab", "split", "storage"),
     "vocabulary": ("vocab", "storage"),
     "encode": ("encode", "vocab", "split", "storage"),
     "shard": ("shards", "windows", "vocab", "storage"),

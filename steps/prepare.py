@@ -21,7 +21,8 @@ from steps.clean import CleanOptions, clean_text, rejection
 from steps.ingest import Chunk, CorpusError, Document, ReadOptions, Tally, chunk_key, read_documents
 from steps.segment import Segmenter
 from steps.split import assign_split, fingerprint
-from steps.storage import ParquetSink, write_json
+from steps.storage import ParquetSink, write_json, write_table
+from steps.vocab import COUNTS_SCHEMA, MERGE_FILES, count_tokens, sum_counts
 
 BATCH_CHARS = 4 << 20
 BATCH_DOCUMENTS = 4096
@@ -134,15 +135,32 @@ class ChunkPreparer:
 
 
 def prepare_chunk(
-    root: str, chunk: Chunk, chunk_bytes: int, config: dict, output: str, tally_path: str, abbreviations: frozenset[str]
+    root: str,
+    chunk: Chunk,
+    chunk_bytes: int,
+    config: dict,
+    output: str,
+    tally_path: str,
+    abbreviations: frozenset[str],
+    counts_path: str | None = None,
 ) -> Tally:
-    """Run the whole chunk and write its table and tally; returns the tally."""
+    """Run the whole chunk and write its table, its word counts per split (all kept documents;
+    the vocabulary step subtracts duplicates) and its tally; returns the tally."""
     tally = Tally()
     preparer = ChunkPreparer(config, abbreviations)
     documents = read_documents(root, chunk, chunk_bytes, ReadOptions.from_config(config["corpus"]), tally)
+    counts = COUNTS_SCHEMA.empty_table()
+    pending: list[pa.Table] = []
     with ParquetSink(output, preparer.schema, compression="zstd", level=1) as sink:
         for batch in preparer.batches(documents, tally):
             sink.write(batch)
+            if preparer.units == "word":
+                pending.append(count_tokens(batch))
+                if len(pending) == MERGE_FILES:
+                    counts, pending = sum_counts([counts, *pending]), []
+    if counts_path:
+        counts = sum_counts([counts, *pending]).sort_by([("split", "ascending"), ("token", "ascending")])
+        write_table(counts_path, counts)
     write_json(tally_path, {"source": chunk.source, "chunk": chunk.index, "chunks": chunk.count, **tally.as_dict()})
     return tally
 
@@ -163,13 +181,14 @@ def main(argv: list[str] | None = None) -> None:
     parser.add_argument("--abbreviations", default=None, help="file of learned abbreviations, one a line")
     parser.add_argument("--output", required=True)
     parser.add_argument("--tally", required=True)
+    parser.add_argument("--counts", required=True, help="word counts per split of the kept documents")
     args = parser.parse_args(argv)
     config = json.loads(args.options)
     chunk = Chunk(chunk_key(args.source, args.chunk), args.source, args.chunk, args.chunks)
     chunk_bytes = int(config["corpus"]["chunk_mb"] * (1 << 20))
     try:
         tally = prepare_chunk(
-            args.root, chunk, chunk_bytes, config, args.output, args.tally, read_abbreviations(args.abbreviations)
+            args.root, chunk, chunk_bytes, config, args.output, args.tally, read_abbreviations(args.abbreviations), args.counts
         )
     except CorpusError as error:
         raise SystemExit(f"corpusmill: {error}") from None

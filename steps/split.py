@@ -48,28 +48,62 @@ def assign_split(key: bytes, salt: str, fractions: dict[str, float]) -> str:
     return SPLITS[-1] if fractions[SPLITS[-1]] > 0 else next(n for n in reversed(SPLITS) if fractions[n] > 0)
 
 
+def _fingerprints(path: str) -> np.ndarray:
+    column = pq.read_table(path, columns=["fingerprint"])["fingerprint"].combine_chunks()
+    return np.frombuffer(column.buffers()[1], dtype="V16", count=len(column), offset=column.offset * 16) if len(column) else np.empty(0, "V16")
+
+
 def find_duplicates(prepared_paths: Sequence[str]) -> pa.Table:
     """Rows (source, offset, doc_id, duplicate_of) for every document whose fingerprint was seen
-    earlier; `prepared_paths` must be in corpus order (path, then chunk index)."""
-    tables = [pq.read_table(p, columns=["source", "offset", "doc_id", "fingerprint"]) for p in prepared_paths]
-    table = pa.concat_tables(tables) if tables else DUPLICATES_SCHEMA.empty_table()
-    if table.num_rows == 0:
+    earlier; `prepared_paths` must be in corpus order (path, then chunk index). Only the
+    16-byte fingerprints of all documents are held; ids are read for the rows involved."""
+    prints = [_fingerprints(p) for p in prepared_paths]
+    if not sum(map(len, prints)):
         return DUPLICATES_SCHEMA.empty_table()
-    column = table["fingerprint"].combine_chunks()
-    prints = np.frombuffer(column.buffers()[1], dtype="V16", count=len(column), offset=column.offset * 16)
-    _, first, inverse = np.unique(prints, return_index=True, return_inverse=True)
-    owner = first[inverse]
-    rows = np.flatnonzero(owner != np.arange(len(prints)))
-    doc_ids = table["doc_id"]
+    everything = np.concatenate(prints)
+    _, first, inverse = np.unique(everything, return_index=True, return_inverse=True)
+    owner = first[inverse.reshape(-1)]
+    rows = np.flatnonzero(owner != np.arange(len(everything)))
+    if not len(rows):
+        return DUPLICATES_SCHEMA.empty_table()
+    starts = np.cumsum([0] + [len(p) for p in prints])
+    wanted = np.unique(np.concatenate([rows, owner[rows]]))
+    chunk_of = np.searchsorted(starts, wanted, side="right") - 1
+    source, offset, doc_id = {}, {}, {}
+    for chunk in np.unique(chunk_of):
+        local = wanted[chunk_of == chunk]
+        table = pq.read_table(prepared_paths[chunk], columns=["source", "offset", "doc_id"]).take(local - starts[chunk])
+        for row, values in zip(local.tolist(), zip(*(table[c].to_pylist() for c in ("source", "offset", "doc_id")))):
+            source[row], offset[row], doc_id[row] = values
     return pa.table(
         {
-            "source": table["source"].take(rows),
-            "offset": table["offset"].take(rows),
-            "doc_id": doc_ids.take(rows),
-            "duplicate_of": doc_ids.take(owner[rows]),
+            "source": [source[r] for r in rows.tolist()],
+            "offset": [offset[r] for r in rows.tolist()],
+            "doc_id": [doc_id[r] for r in rows.tolist()],
+            "duplicate_of": [doc_id[r] for r in owner[rows].tolist()],
         },
         schema=DUPLICATES_SCHEMA,
     )
+
+
+def removed_counts(prepared_paths: Sequence[str], duplicates: pa.Table) -> pa.Table:
+    """Word counts per split of the removed duplicates, which the vocabulary step subtracts from
+    the chunks' counts (so a chunk's counts never depend on other chunks)."""
+    from steps.vocab import COUNTS_SCHEMA, count_tokens, sum_counts
+
+    sources = set(duplicates["source"].to_pylist())
+    parts = []
+    for path in prepared_paths:
+        schema = pq.read_schema(path)
+        if "tokens" not in schema.names:
+            continue
+        head = pq.ParquetFile(path).read_row_group(0, columns=["source"]) if pq.ParquetFile(path).num_row_groups else None
+        if head is None or not head.num_rows or head["source"][0].as_py() not in sources:
+            continue
+        table = pq.read_table(path, columns=["source", "offset", "split", "tokens"])
+        parts.append(count_tokens(table.filter(duplicate_mask(duplicates, head["source"][0].as_py(), table["offset"]))))
+    counts = sum_counts(parts) if parts else COUNTS_SCHEMA.empty_table()
+    return counts.sort_by([("split", "ascending"), ("token", "ascending")])
 
 
 def duplicate_mask(duplicates: pa.Table, source: str, offsets: pa.Array) -> pa.Array:
@@ -81,11 +115,13 @@ def duplicate_mask(duplicates: pa.Table, source: str, offsets: pa.Array) -> pa.A
 def main(argv: list[str] | None = None) -> None:
     parser = argparse.ArgumentParser(description="Find exact duplicate documents across prepared chunks.")
     parser.add_argument("--output", required=True)
+    parser.add_argument("--removed-counts", required=True, help="word counts of the removed documents")
     parser.add_argument("--enabled", choices=["true", "false"], default="true")
     parser.add_argument("prepared", nargs="*", help="prepared chunk files in corpus order")
     args = parser.parse_args(argv)
     table = find_duplicates(args.prepared) if args.enabled == "true" else DUPLICATES_SCHEMA.empty_table()
     write_table(args.output, table)
+    write_table(args.removed_counts, removed_counts(args.prepared, table))
 
 
 if __name__ == "__main__":

@@ -33,7 +33,6 @@ import regex
 import sentencepiece as spm
 
 from steps.layout import SPLITS
-from steps.split import duplicate_mask
 from steps.storage import write_table, write_text
 
 PAD, UNK, BOS, EOS = "<pad>", "<unk>", "<s>", "</s>"
@@ -67,10 +66,8 @@ def unknown_class(token: str) -> str:
     return UNK
 
 
-def count_chunk(prepared: str, source: str, duplicates: pa.Table) -> pa.Table:
-    """Word counts per split of one prepared chunk, duplicates left out, counted by Arrow."""
-    table = pq.read_table(prepared, columns=["offset", "split", "tokens"])
-    table = table.filter(pc.invert(duplicate_mask(duplicates, source, table["offset"])))
+def count_tokens(table: pa.Table) -> pa.Table:
+    """Word counts per split of a chunk table (columns split, tokens), counted by Arrow."""
     parts = []
     for split in SPLITS:
         rows = table.filter(pc.equal(table["split"], split))
@@ -89,24 +86,31 @@ def count_chunk(prepared: str, source: str, duplicates: pa.Table) -> pa.Table:
     return pa.concat_tables(parts)
 
 
-def merge_counts(paths: Sequence[str]) -> pa.Table:
-    """One table token → train, dev, test counts, summed over chunks, sorted by (-train, token)."""
+def sum_counts(tables: Sequence[pa.Table]) -> pa.Table:
+    """Counts tables added up per (split, token); rows summing to zero are left out."""
+    grouped = pa.concat_tables([COUNTS_SCHEMA.empty_table(), *tables]).group_by(["split", "token"]).aggregate([("count", "sum")])
+    summed = grouped.select(["split", "token", "count_sum"]).rename_columns(COUNTS_SCHEMA.names)
+    return summed.filter(pc.not_equal(summed["count"], 0))
+
+
+def merge_counts(paths: Sequence[str], removed: str | None = None) -> pa.Table:
+    """One table token → train, dev, test counts, summed over chunks minus the counts of the
+    `removed` (duplicate) documents, sorted by (-train, token)."""
     # Sum a few chunk tables at a time into the running total: memory follows the vocabulary,
     # not the number of chunks (integer sums, so the order of merging cannot change a count).
     summed = COUNTS_SCHEMA.empty_table()
     for start in range(0, len(paths), MERGE_FILES):
-        tables = [summed] + [pq.read_table(p) for p in paths[start : start + MERGE_FILES]]
-        grouped = pa.concat_tables(tables).group_by(["split", "token"]).aggregate([("count", "sum")])
-        summed = grouped.select(["split", "token", "count_sum"]).rename_columns(COUNTS_SCHEMA.names)
-    summed = summed.rename_columns(["split", "token", "count_sum"])
+        summed = sum_counts([summed] + [pq.read_table(p) for p in paths[start : start + MERGE_FILES]])
+    if removed:
+        duplicates = pq.read_table(removed)
+        summed = sum_counts([summed, duplicates.set_column(2, "count", pc.negate(duplicates["count"]))])
     tokens = pc.unique(summed["token"]) if summed.num_rows else pa.array([], pa.string())
     columns = {"token": tokens}
     for split in SPLITS:
         rows = summed.filter(pc.equal(summed["split"], split))
         position = pc.index_in(tokens, value_set=rows["token"])
-        columns[split] = pc.fill_null(pc.take(rows["count_sum"], position), 0)
-    table = pa.table(columns)
-    return sort_by_frequency(table)
+        columns[split] = pc.fill_null(pc.take(rows["count"], position), 0)
+    return sort_by_frequency(pa.table(columns))
 
 
 def sort_by_frequency(table: pa.Table) -> pa.Table:
@@ -242,8 +246,10 @@ class Lookup:
         return ids
 
 
-def vocabulary_from_counts(count_paths: Sequence[str], config: dict, frozen: str | None) -> tuple[Vocabulary, pa.Table]:
-    counts = merge_counts(count_paths)
+def vocabulary_from_counts(
+    count_paths: Sequence[str], removed: str | None, config: dict, frozen: str | None
+) -> tuple[Vocabulary, pa.Table]:
+    counts = merge_counts(count_paths, removed)
     if frozen:
         return read_vocabulary(frozen), counts
     vocabulary_config = config["vocabulary"]
@@ -277,23 +283,16 @@ def vocabulary_from_model(model: str, count_paths: Sequence[str]) -> tuple[Vocab
 
 
 def main(argv: list[str] | None = None) -> None:
-    parser = argparse.ArgumentParser(description="Count tokens of a chunk, or build the vocabulary from all counts.")
+    parser = argparse.ArgumentParser(description="Build the vocabulary from the chunks' counts.")
     sub = parser.add_subparsers(dest="command", required=True)
-    count = sub.add_parser("count")
-    count.add_argument("--prepared", required=True)
-    count.add_argument("--source", required=True, help="the chunk's input file, relative to the corpus root")
-    count.add_argument("--duplicates", required=True)
-    count.add_argument("--output", required=True)
     build = sub.add_parser("build")
     build.add_argument("--options", required=True)
+    build.add_argument("--removed", help="counts of the removed duplicate documents, subtracted")
     build.add_argument("--vocabulary", required=True)
     build.add_argument("--token-counts", required=True)
     build.add_argument("--model", help="sentencepiece model (units = subword; counts are then piece counts)")
     build.add_argument("counts", nargs="*")
     args = parser.parse_args(argv)
-    if args.command == "count":
-        write_table(args.output, count_chunk(args.prepared, args.source, pq.read_table(args.duplicates)))
-        return
     config = json.loads(args.options)
     if config["units"] == "subword":
         if not args.model:
@@ -305,7 +304,7 @@ def main(argv: list[str] | None = None) -> None:
         return
     frozen = config["vocabulary"]["frozen"]
     try:
-        vocabulary, counts = vocabulary_from_counts(args.counts, config, frozen)
+        vocabulary, counts = vocabulary_from_counts(args.counts, args.removed, config, frozen)
     except (OSError, ValueError) as error:
         raise SystemExit(f"corpusmill: vocabulary.frozen: {error}") from None
     write_table(args.token_counts, counts)

@@ -145,6 +145,7 @@ def _peak_rss_mib(root: Path, name: str, out: Path, corpus: dict) -> float:
     command = [
         sys.executable, "-m", "steps.prepare", "--root", str(root), "--source", name, "--chunk", "0", "--chunks", "1",
         "--options", json.dumps(config), "--output", str(out / f"{name}.parquet"), "--tally", str(out / f"{name}.json"),
+        "--counts", str(out / f"{name}.counts.parquet"),
     ]  # fmt: skip
     process = subprocess.Popen(command, cwd=REPO, env={**os.environ, "PYTHONPATH": str(REPO)})
     _, status, usage = os.wait4(process.pid, 0)
