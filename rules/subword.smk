@@ -2,7 +2,7 @@
 # learned on it, and that model installed as build/subword.model. See steps/subword.py.
 #
 # The sample is a checkpoint whose key file names the model to use: models are cached under
-# work/subword/models/<key>.model, and `subword_train` reads the sample as ancient input, so
+# interim/subword/models/<key>.model, and `subword_train` reads the sample as ancient input, so
 # it runs only for a key without a model, i.e. when train text or a training setting changed.
 # An edit to a dev or test document reruns the sample (same content, same key) but not training.
 

@@ -16,7 +16,7 @@ def _part(part: int | str) -> str:
 
 @dataclass(frozen=True)
 class Layout:
-    """Paths inside one build folder. Public results sit at the top; intermediates under work/."""
+    """Paths inside one build folder. Public results sit at the top; intermediates under interim/."""
 
     root: str
 
@@ -56,49 +56,49 @@ class Layout:
 
     # Intermediates, one set per input chunk.
     def prepared(self, chunk: str) -> str:
-        return self._join("work", "prepared", f"{chunk}.parquet")
+        return self._join("interim", "prepared", f"{chunk}.parquet")
 
     def tally(self, chunk: str) -> str:
-        return self._join("work", "prepared", f"{chunk}.tally.json")
+        return self._join("interim", "prepared", f"{chunk}.tally.json")
 
     def counts(self, chunk: str) -> str:
-        return self._join("work", "counts", f"{chunk}.parquet")
+        return self._join("interim", "counts", f"{chunk}.parquet")
 
     def encoded(self, chunk: str, split: str, part: int | str) -> str:
-        return self._join("work", "encoded", chunk, f"{split}-{_part(part)}.parquet")
+        return self._join("interim", "encoded", chunk, f"{split}-{_part(part)}.parquet")
 
     def encode_stats(self, chunk: str) -> str:
-        return self._join("work", "encoded", chunk, "stats.json")
+        return self._join("interim", "encoded", chunk, "stats.json")
 
     def shard_stats(self, split: str, part: int | str) -> str:
-        return self._join("work", "shards", f"{split}-{_part(part)}.json")
+        return self._join("interim", "shards", f"{split}-{_part(part)}.json")
 
     @property
     def removed_counts(self) -> str:
-        return self._join("work", "duplicates.counts.parquet")
+        return self._join("interim", "duplicates.counts.parquet")
 
     @property
     def duplicates(self) -> str:
-        return self._join("work", "duplicates.parquet")
+        return self._join("interim", "duplicates.parquet")
 
     @property
     def abbreviations(self) -> str:
-        return self._join("work", "abbreviations.txt")
+        return self._join("interim", "abbreviations.txt")
 
     @property
     def subword_sample(self) -> str:
-        return self._join("work", "subword", "train_sample.jsonl")
+        return self._join("interim", "subword", "train_sample.jsonl")
 
     @property
     def subword_key(self) -> str:
-        return self._join("work", "subword", "train_sample.key")
+        return self._join("interim", "subword", "train_sample.key")
 
     def subword_trained(self, key: str) -> str:
         """A learned model, cached under the key of its sample and settings."""
-        return self._join("work", "subword", "models", f"{key}.model")
+        return self._join("interim", "subword", "models", f"{key}.model")
 
     def piece_counts(self, chunk: str) -> str:
-        return self._join("work", "encoded", chunk, "pieces.parquet")
+        return self._join("interim", "encoded", chunk, "pieces.parquet")
 
     def log(self, rule: str, name: str = "") -> str:
         return self._join("logs", rule, f"{name or rule}.log")

@@ -10,7 +10,7 @@ are kept or left out together.
 The sample file (JSON lines, one JSON string per sentence, in hash order; sentences may hold
 line breaks) comes with a key file: a hash of the sample bytes, the training settings and the
 sentencepiece version. The trained model is cached under that key
-(work/subword/models/<key>.model), so a run retrains only when train text or a training
+(interim/subword/models/<key>.model), so a run retrains only when train text or a training
 setting changed; edits to dev or test documents give the same sample, hence the same key.
 
 Training uses normalization_rule_name "identity" and keeps whitespace as it is: the clean step

@@ -97,6 +97,6 @@ def test_a_failing_job_leaves_no_manifest_and_no_half_written_output(tmp_path: P
     assert f"bad.txt: invalid UTF-8 at byte offset {offset}" in run.stdout + run.stderr
     build_dir = tmp_path / "build"
     assert not (build_dir / "manifest.json").exists() and not (build_dir / "shards").exists()
-    assert not list((build_dir / "work" / "prepared").glob("bad.txt-*"))
+    assert not list((build_dir / "interim" / "prepared").glob("bad.txt-*"))
     assert not list(build_dir.rglob("*.partial"))
     assert_nothing_half_written(build_dir)

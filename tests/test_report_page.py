@@ -39,14 +39,14 @@ def corpus_order(build: Path) -> list[str]:
         first = pq.ParquetFile(path).read_row_group(0, columns=["source"]) if pq.ParquetFile(path).metadata.num_rows else None
         return (inputs.index(first["source"][0].as_py()) if first is not None else -1, path.name.rsplit("-", 1)[-1])
 
-    return [str(p) for p in sorted((build / "work" / "prepared").glob("*.parquet"), key=key)]
+    return [str(p) for p in sorted((build / "interim" / "prepared").glob("*.parquet"), key=key)]
 
 
 def page_arguments(build: Path, output: Path) -> list[str]:
     prepared = corpus_order(build)
     return [
         "--coverage", str(build / "stats" / "coverage.json"), "--manifest", str(build / "manifest.json"),
-        "--token-counts", str(build / "stats" / "token_counts.parquet"), "--duplicates", str(build / "work" / "duplicates.parquet"),
+        "--token-counts", str(build / "stats" / "token_counts.parquet"), "--duplicates", str(build / "interim" / "duplicates.parquet"),
         "--options", json.dumps(OPTIONS), "--output", str(output), *prepared,
     ]
 
@@ -89,7 +89,7 @@ def test_report_page_shows_the_build_figures(demo_build: Path) -> None:
 def test_growth_curve_equals_a_set_recount_of_the_train_stream(demo_build: Path) -> None:
     """Brute force: distinct train tokens after each prefix of the prepared chunks in corpus order
     (duplicates left out), counted with a Python set."""
-    removed = {(r["source"], r["offset"]) for r in pq.read_table(demo_build / "work" / "duplicates.parquet").to_pylist()}
+    removed = {(r["source"], r["offset"]) for r in pq.read_table(demo_build / "interim" / "duplicates.parquet").to_pylist()}
     prepared = corpus_order(demo_build)
     seen: set[str] = set()
     after: list[int] = [0]
@@ -101,7 +101,7 @@ def test_growth_curve_equals_a_set_recount_of_the_train_stream(demo_build: Path)
                 seen.add(token)
                 after.append(len(seen))
     vocabulary = pq.read_table(demo_build / "stats" / "token_counts.parquet")["token"].combine_chunks()
-    tokens, types = growth_curve(train_token_batches(prepared, pq.read_table(demo_build / "work" / "duplicates.parquet"), vocabulary), len(vocabulary))
+    tokens, types = growth_curve(train_token_batches(prepared, pq.read_table(demo_build / "interim" / "duplicates.parquet"), vocabulary), len(vocabulary))
     assert tokens[-1] == len(after) - 1
     assert types.tolist() == [after[n] for n in tokens]
 
@@ -126,6 +126,6 @@ def test_table_cells_escape_html() -> None:
 
 def test_stale_counts_are_reported_with_the_file_and_the_fix(tmp_path: Path, demo_build: Path) -> None:
     """Error messages name the file and the fix (project convention)."""
-    prepared = sorted(str(p) for p in (demo_build / "work" / "prepared").glob("*.parquet"))[:1]
+    prepared = sorted(str(p) for p in (demo_build / "interim" / "prepared").glob("*.parquet"))[:1]
     with pytest.raises(SystemExit, match=r"\.parquet: train token .* rerun the workflow"):
-        list(train_token_batches(prepared, pq.read_table(demo_build / "work" / "duplicates.parquet"), pa.array(["the"])))
+        list(train_token_batches(prepared, pq.read_table(demo_build / "interim" / "duplicates.parquet"), pa.array(["the"])))

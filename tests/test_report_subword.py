@@ -54,7 +54,7 @@ def rows(fragment: str) -> list[list[str]]:
 
 
 def encode_stats(build: Path) -> list[Path]:
-    return sorted((build / "work" / "encoded").glob("*/stats.json"))
+    return sorted((build / "interim" / "encoded").glob("*/stats.json"))
 
 
 def test_the_default_target_builds_the_report_in_subword_mode(subword_run: tuple[Path, str]) -> None:
@@ -128,7 +128,7 @@ def test_growth_counts_whitespace_words_of_the_train_sentences(subword_run: tupl
     counted with a Python set over re.findall (ASCII whitespace, as RE2's \\s); the total equals
     coverage.json's train words."""
     build, _ = subword_run
-    duplicates = pq.read_table(build / "work" / "duplicates.parquet")
+    duplicates = pq.read_table(build / "interim" / "duplicates.parquet")
     removed = {(r["source"], r["offset"]) for r in duplicates.to_pylist()}
     prepared = corpus_order(build)
     seen: set[str] = set()
@@ -177,7 +177,7 @@ def test_subword_page_is_self_contained_and_byte_identical_when_written_again(su
     stats_arguments = [a for p in encode_stats(build) for a in ("--encode-stats", str(p))]
     main([
         "--coverage", str(build / "stats" / "coverage.json"), "--manifest", str(build / "manifest.json"),
-        "--token-counts", str(build / "stats" / "token_counts.parquet"), "--duplicates", str(build / "work" / "duplicates.parquet"),
+        "--token-counts", str(build / "stats" / "token_counts.parquet"), "--duplicates", str(build / "interim" / "duplicates.parquet"),
         *stats_arguments, "--options", json.dumps(OPTIONS), "--output", str(again), *corpus_order(build),
     ])
     assert again.read_bytes() == original

@@ -95,9 +95,9 @@ def processor(build: Path) -> spm.SentencePieceProcessor:
 
 def prepared_sentences(build: Path, split: str) -> dict[str, list[str]]:
     """doc_id → cleaned sentences of kept documents of one split, from the prepared chunk tables."""
-    duplicates = pq.read_table(build / "work" / "duplicates.parquet")
+    duplicates = pq.read_table(build / "interim" / "duplicates.parquet")
     found = {}
-    for path in sorted((build / "work" / "prepared").glob("*.parquet")):
+    for path in sorted((build / "interim" / "prepared").glob("*.parquet")):
         table = pq.read_table(path)
         table = table.filter(pc.equal(table["split"], split))
         if table.num_rows:
@@ -147,7 +147,7 @@ def test_sample_seed_changes_the_draw():
 def test_no_dev_or_test_sentence_reaches_the_trainer(workdir: Path):
     """steps.split.assign_split as the reference for each document's split; sentencepiece's piece list."""
     build = workdir / "build"
-    sample = "\n".join(read_sample(build / "work" / "subword" / "train_sample.jsonl"))
+    sample = "\n".join(read_sample(build / "interim" / "subword" / "train_sample.jsonl"))
     assert SENTINEL["train"] in sample  # the check can see a sentinel when one is there
     assert SENTINEL["dev"] not in sample and SENTINEL["test"] not in sample
     pieces = [processor(build).id_to_piece(i) for i in range(processor(build).get_piece_size())]
@@ -198,7 +198,7 @@ def test_training_twice_on_the_sample_gives_the_identical_model_file(workdir: Pa
     because sentencepiece's unigram pieces change with it."""
     build = workdir / "build"
     settings = {"model_type": "unigram", "character_coverage": 0.9995, "byte_fallback": True, **SUBWORD}
-    sample = build / "work" / "subword" / "train_sample.jsonl"
+    sample = build / "interim" / "subword" / "train_sample.jsonl"
     first = train_model(read_sample(sample), settings, TRAIN_THREADS)
     second = train_model(read_sample(sample), settings, TRAIN_THREADS)
     assert first == second
@@ -355,4 +355,4 @@ def test_dev_and_test_edits_do_not_retrain_but_train_edits_do(workdir: Path, tmp
     write_held(copy / "corpus", documents)
     ran = jobs_run(run_workflow(copy, OVERRIDES, *TARGETS))
     assert {"subword_sample", "subword_train", "subword_model"} <= ran
-    assert len(list((copy / "build" / "work" / "subword" / "models").glob("*.model"))) == 2
+    assert len(list((copy / "build" / "interim" / "subword" / "models").glob("*.model"))) == 2

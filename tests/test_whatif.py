@@ -1,8 +1,8 @@
 """Coverage figures and the `corpusmill cutoffs` command, against a brute-force recount.
 
 The reference counts come from collections.Counter over the prepared chunk files
-(build/work/prepared/*.parquet, column `tokens`), leaving out the documents listed in
-build/work/duplicates.parquet: the same tokens the workflow counted, recounted independently.
+(build/interim/prepared/*.parquet, column `tokens`), leaving out the documents listed in
+build/interim/duplicates.parquet: the same tokens the workflow counted, recounted independently.
 """
 
 from __future__ import annotations
@@ -27,10 +27,10 @@ SPLITS = ("train", "dev", "test")
 
 def recount(build: Path) -> tuple[dict[str, Counter], dict[tuple[str, str], Counter]]:
     """Counter per split and per (source, split) of every kept document's tokens."""
-    removed = {(row["source"], row["offset"]) for row in pq.read_table(build / "work" / "duplicates.parquet").to_pylist()}
+    removed = {(row["source"], row["offset"]) for row in pq.read_table(build / "interim" / "duplicates.parquet").to_pylist()}
     per_split = {split: Counter() for split in SPLITS}
     per_source: dict[tuple[str, str], Counter] = {}
-    for path in sorted((build / "work" / "prepared").glob("*.parquet")):
+    for path in sorted((build / "interim" / "prepared").glob("*.parquet")):
         for row in pq.read_table(path, columns=["source", "offset", "split", "tokens"]).to_pylist():
             if (row["source"], row["offset"]) in removed:
                 continue

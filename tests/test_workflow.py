@@ -61,10 +61,10 @@ def test_duckdb_reads_the_same_rows_and_ids_as_pyarrow(demo_build: Path):
 
 def test_vocabulary_counts_equal_a_counter_recount_of_train(demo_build: Path):
     """collections.Counter recount over the train documents' tokens, duplicates removed."""
-    duplicates = pq.read_table(demo_build / "work" / "duplicates.parquet")
+    duplicates = pq.read_table(demo_build / "interim" / "duplicates.parquet")
     removed = set(zip(duplicates["source"].to_pylist(), duplicates["offset"].to_pylist()))
     recount: Counter[str] = Counter()
-    for path in (demo_build / "work" / "prepared").glob("*.parquet"):
+    for path in (demo_build / "interim" / "prepared").glob("*.parquet"):
         table = pq.read_table(path)
         for source, offset, split, sentences in zip(*(table[c].to_pylist() for c in ("source", "offset", "split", "tokens"))):
             if split == "train" and (source, offset) not in removed:
