@@ -13,6 +13,8 @@ from dataclasses import dataclass, field
 
 import regex
 
+from steps import unicode_breaks
+
 NUMBER_TOKEN = "<number>"
 
 _WORD_CHARS = r"[\p{L}\p{M}\p{N}\p{Pc}]"
@@ -89,8 +91,6 @@ class Segmenter:
         elif self.sentences_mode == "punctuation":
             self._sentences = _punctuation_sentences(self.abbreviations)
         else:
-            from steps import unicode_breaks
-
             abbreviations = self.abbreviations
 
             def uax29(text: str) -> list[str]:
@@ -100,8 +100,6 @@ class Segmenter:
         if self.words_mode == "pattern":
             self._tokens = _pattern_tokenizer(self.apostrophes, self.hyphens)
         else:
-            from steps import unicode_breaks
-
             apostrophes, hyphens = self.apostrophes, self.hyphens
 
             def words(text: str) -> list[str]:
@@ -155,7 +153,6 @@ def is_lossless(text: str, tokens: list[str]) -> bool:
 def learned_abbreviations(root: str, sources: list[str], config: dict, sample_bytes: int) -> frozenset[str]:
     """Abbreviations learned (steps.unicode_breaks.learn_abbreviations) from the cleaned text of
     at most `sample_bytes` of documents from the start of each input file."""
-    from steps import unicode_breaks
     from steps.clean import CleanOptions, clean_text
     from steps.ingest import ReadOptions, Tally, plan_chunks, read_documents
 

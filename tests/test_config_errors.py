@@ -7,13 +7,12 @@ schema cannot express are in steps.settings.
 
 from __future__ import annotations
 
-import subprocess
-import sys
 from pathlib import Path
 
 import pytest
 import yaml
 
+from conftest import run_workflow
 from steps import settings
 
 REPO = Path(__file__).resolve().parent.parent
@@ -95,13 +94,7 @@ def test_a_section_that_is_not_a_mapping_is_refused() -> None:
 
 def test_the_real_workflow_stops_before_any_job_and_writes_nothing(tmp_path: Path) -> None:
     """Snakemake itself, not a dry run: the Snakefile's validation exits before the DAG runs."""
-    override = tmp_path / "bad.yaml"
-    override.write_text(f"corpus: {{root: {REPO / 'demo_raw'}}}\nwindows: {{ngram: {{n: 1}}}}\n")
-    run = subprocess.run(
-        [sys.executable, "-m", "snakemake", "--snakefile", str(REPO / "Snakefile"), "--directory", str(tmp_path),
-         "--cores", "1", "--configfile", str(override)],
-        capture_output=True, text=True, timeout=300,
-    )  # fmt: skip
+    run = run_workflow(tmp_path, {"corpus": {"root": str(REPO / "demo_raw")}, "windows": {"ngram": {"n": 1}}}, cores=1, check=False)
     assert run.returncode != 0
     assert "windows.ngram.n = 1: allowed: type integer, >= 2" in run.stdout + run.stderr
     assert not (tmp_path / "build").exists()

@@ -13,6 +13,7 @@ from pathlib import Path
 
 import pytest
 
+from conftest import run_workflow
 from steps import unicode_breaks
 from steps.clean import CleanOptions, clean_text, rejection
 from steps.ingest import Chunk, CorpusError, ReadOptions, Tally, chunk_key, read_documents
@@ -47,13 +48,7 @@ def test_the_workflow_reports_a_bomb_as_a_failed_job_naming_the_file(tmp_path: P
     raw = tmp_path / "raw"
     raw.mkdir()
     (raw / "bomb.txt.zst").write_bytes(hostile.compress(b"all work and no play\n" * 250_000, ".zst"))
-    override = tmp_path / "over.yaml"
-    override.write_text(f"corpus: {{root: {raw}, max_decompressed_mb: 1}}\n")
-    run = subprocess.run(
-        [sys.executable, "-m", "snakemake", "--snakefile", str(REPO / "Snakefile"), "--directory", str(tmp_path),
-         "--cores", "1", "--configfile", str(override)],
-        capture_output=True, text=True, timeout=300,
-    )  # fmt: skip
+    run = run_workflow(tmp_path, {"corpus": {"root": str(raw), "max_decompressed_mb": 1}}, cores=1, check=False)
     assert run.returncode != 0
     assert "bomb.txt.zst: expands beyond corpus.max_decompressed_mb (1 MiB)" in run.stdout + run.stderr
     assert not (tmp_path / "build" / "manifest.json").exists()
