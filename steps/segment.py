@@ -8,12 +8,17 @@ sentence, in order and joined with the whitespace between them, rebuild it.
 
 from __future__ import annotations
 
+import argparse
+import json
 from collections.abc import Callable
 from dataclasses import dataclass, field
 
 import regex
 
 from steps import unicode_breaks
+from steps.clean import CleanOptions, clean_text
+from steps.ingest import CorpusError, ReadOptions, Tally, plan_chunks, read_documents
+from steps.storage import write_text
 
 NUMBER_TOKEN = "<number>"
 
@@ -153,9 +158,6 @@ def is_lossless(text: str, tokens: list[str]) -> bool:
 def learned_abbreviations(root: str, sources: list[str], config: dict, sample_bytes: int) -> frozenset[str]:
     """Abbreviations learned (steps.unicode_breaks.learn_abbreviations) from the cleaned text of
     at most `sample_bytes` of documents from the start of each input file."""
-    from steps.clean import CleanOptions, clean_text
-    from steps.ingest import ReadOptions, Tally, plan_chunks, read_documents
-
     clean = CleanOptions.from_config(config["clean"])
     read = ReadOptions.from_config(config["corpus"])
 
@@ -173,12 +175,6 @@ def learned_abbreviations(root: str, sources: list[str], config: dict, sample_by
 
 
 def main(argv: list[str] | None = None) -> None:
-    import argparse
-    import json
-
-    from steps.ingest import CorpusError
-    from steps.storage import write_text
-
     parser = argparse.ArgumentParser(description="Learn abbreviations from the corpus (segment.learn_abbreviations).")
     parser.add_argument("--root", required=True)
     parser.add_argument("--options", required=True, help="JSON: corpus, clean sections")

@@ -18,6 +18,7 @@ import pyarrow.parquet as pq
 
 from steps.layout import SPLITS
 from steps.storage import write_table
+from steps.vocab import COUNTS_SCHEMA, count_tokens, sum_counts
 
 _TWO_64 = float(1 << 64)
 
@@ -89,19 +90,16 @@ def find_duplicates(prepared_paths: Sequence[str]) -> pa.Table:
 def removed_counts(prepared_paths: Sequence[str], duplicates: pa.Table) -> pa.Table:
     """Word counts per split of the removed duplicates, which the vocabulary step subtracts from
     the chunks' counts (so a chunk's counts never depend on other chunks)."""
-    from steps.vocab import COUNTS_SCHEMA, count_tokens, sum_counts
-
     sources = set(duplicates["source"].to_pylist())
     parts = []
     for path in prepared_paths:
-        schema = pq.read_schema(path)
-        if "tokens" not in schema.names:
+        parquet = pq.ParquetFile(path)
+        if "tokens" not in parquet.schema_arrow.names or not parquet.metadata.num_rows:
             continue
-        head = pq.ParquetFile(path).read_row_group(0, columns=["source"]) if pq.ParquetFile(path).num_row_groups else None
-        if head is None or not head.num_rows or head["source"][0].as_py() not in sources:
-            continue
-        table = pq.read_table(path, columns=["source", "offset", "split", "tokens"])
-        parts.append(count_tokens(table.filter(duplicate_mask(duplicates, head["source"][0].as_py(), table["offset"]))))
+        source = parquet.read_row_group(0, columns=["source"])["source"][0].as_py()
+        if source in sources:
+            table = parquet.read(columns=["offset", "split", "tokens"])
+            parts.append(count_tokens(table.filter(duplicate_mask(duplicates, source, table["offset"]))))
     counts = sum_counts(parts) if parts else COUNTS_SCHEMA.empty_table()
     return counts.sort_by([("split", "ascending"), ("token", "ascending")])
 
