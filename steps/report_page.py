@@ -62,7 +62,9 @@ def _train_rows(prepared: Sequence[str], duplicates: pa.Table, column: str) -> I
     """(chunk path, `column` of its kept train documents) per read batch, in corpus order."""
     for path in prepared:
         reader = pq.ParquetFile(path)
-        for batch in reader.iter_batches(batch_size=256, columns=["source", "offset", "split", column]):
+        # Row group by row group: prepare bounds each one (BATCH_DOCUMENTS, about BATCH_CHARS).
+        for group in range(reader.num_row_groups):
+            batch = reader.read_row_group(group, columns=["source", "offset", "split", column])
             keep = pc.equal(batch["split"], "train")
             for source in pc.unique(batch["source"]).to_pylist():
                 mine = pc.equal(batch["source"], source)
@@ -70,27 +72,28 @@ def _train_rows(prepared: Sequence[str], duplicates: pa.Table, column: str) -> I
                 keep = pc.and_(keep, pc.invert(dropped))
             rows = batch.filter(keep)
             if rows.num_rows:
-                yield path, rows[column]
+                yield path, rows[column].combine_chunks()
 
 
 def train_token_batches(prepared: Sequence[str], duplicates: pa.Table, vocabulary: pa.Array) -> Iterator[np.ndarray]:
     """Type ids (positions in `vocabulary`) of the train tokens in corpus order, in bounded batches."""
+    positions = {token: i for i, token in enumerate(vocabulary.to_pylist())}
     pending: list[pa.Array] = []
     size = 0
     last = None
     for path, tokens in _train_rows(prepared, duplicates, "tokens"):
         if pending and path != last:
-            yield _type_ids(pending, vocabulary, last)
+            yield _type_ids(pending, positions, last)
             pending, size = [], 0
         last = path
         tokens = pc.list_flatten(pc.list_flatten(tokens))
         pending.append(tokens)
         size += len(tokens)
         if size >= BATCH_TOKENS:
-            yield _type_ids(pending, vocabulary, path)
+            yield _type_ids(pending, positions, path)
             pending, size = [], 0
     if pending:
-        yield _type_ids(pending, vocabulary, last)
+        yield _type_ids(pending, positions, last)
 
 
 def whitespace_words(sentences: pa.Array) -> pa.Array:
@@ -154,16 +157,17 @@ def source_figures(encode_stats: Sequence[dict]) -> dict[str, dict]:
     return dict(sorted(totals.items()))
 
 
-def _type_ids(pieces: list[pa.Array], vocabulary: pa.Array, path: str) -> np.ndarray:
-    tokens = pa.concat_arrays(pieces)
-    ids = pc.index_in(tokens, value_set=vocabulary)
-    if ids.null_count:
-        missing = tokens.filter(pc.is_null(ids))[0].as_py()
+def _type_ids(pieces: list[pa.Array], positions: dict[str, int], path: str) -> np.ndarray:
+    """Positions of the tokens in the token-count table; only distinct tokens touch Python."""
+    encoded = pc.dictionary_encode(pa.concat_arrays(pieces))
+    distinct = encoded.dictionary.to_pylist()
+    missing = next((token for token in distinct if token not in positions), None)
+    if missing is not None:
         raise SystemExit(
             f"corpusmill: {path}: train token {missing!r} is not in stats/token_counts.parquet; "
             "the counts are older than the prepared chunks: rerun the workflow"
         )
-    return ids.to_numpy(zero_copy_only=False)
+    return np.array([positions[token] for token in distinct], dtype=np.int64)[encoded.indices.to_numpy(zero_copy_only=False)]
 
 
 def coverage_curve(counts: pa.Table, points: int = 300) -> dict[str, np.ndarray]:

@@ -41,7 +41,9 @@ def write_text(path: str | Path, text: str) -> None:
 class ParquetSink:
     """A Parquet file written row group by row group, renamed into place on `close`."""
 
-    def __init__(self, path: str | Path, schema: pa.Schema, *, compression: str = "zstd", level: int | None = 3) -> None:
+    def __init__(
+        self, path: str | Path, schema: pa.Schema, *, compression: str = "zstd", level: int | None = 3, dictionary: bool = True
+    ) -> None:
         self._target = Path(path)
         self._target.parent.mkdir(parents=True, exist_ok=True)
         self._temporary = self._target.with_name(f".{self._target.name}.partial")
@@ -52,6 +54,7 @@ class ParquetSink:
             compression=codec or "none",
             compression_level=level if codec in ("zstd", "gzip") else None,
             write_statistics=True,
+            use_dictionary=dictionary,
         )
         self.rows = 0
 

@@ -23,11 +23,13 @@ import hashlib
 import json
 from collections.abc import Sequence
 from dataclasses import dataclass
+from functools import cached_property
 from pathlib import Path
 
 import numpy as np
 import pyarrow as pa
 import pyarrow.compute as pc
+import pyarrow.csv as pa_csv
 import pyarrow.parquet as pq
 import regex
 import sentencepiece as spm
@@ -38,6 +40,7 @@ from steps.storage import write_table, write_text
 PAD, UNK, BOS, EOS = "<pad>", "<unk>", "<s>", "</s>"
 RESERVED = (PAD, UNK, BOS, EOS)
 HEADER = "id\ttoken\tcount\tkind"
+VOCABULARY_COLUMNS = {"id": pa.int64(), "token": pa.string(), "count": pa.int64(), "kind": pa.string()}
 SUBWORD_KINDS = frozenset({"piece", "byte", "control"})
 _ESCAPES = {"\\": "\\\\", "\t": "\\t", "\n": "\\n", "\r": "\\r"}
 _ESCAPED = regex.compile(r"[\\\t\n\r]")
@@ -146,7 +149,8 @@ def choose_size(train_counts: np.ndarray, cutoff: Cutoff) -> int:
 
 @dataclass
 class Vocabulary:
-    """Ids of tokens; `tokens[i]` is the token with id i."""
+    """Ids of tokens; `tokens[i]` is the token with id i. Never changed once built, so the
+    figures derived from it (reserved ids, digest) are computed once."""
 
     tokens: list[str]
     counts: list[int]
@@ -156,11 +160,11 @@ class Vocabulary:
     def size(self) -> int:
         return len(self.tokens)
 
-    @property
+    @cached_property
     def reserved(self) -> dict[str, int]:
         return {token: i for i, (token, kind) in enumerate(zip(self.tokens, self.kinds)) if kind in ("reserved", "unknown", "control")}
 
-    @property
+    @cached_property
     def first_word_id(self) -> int:
         return next((i for i, kind in enumerate(self.kinds) if kind not in ("reserved", "unknown", "control")), self.size)
 
@@ -175,6 +179,10 @@ class Vocabulary:
         return "\n".join(rows) + "\n"
 
     def digest(self) -> str:
+        return self._digest
+
+    @cached_property
+    def _digest(self) -> str:
         return hashlib.sha256(self.to_tsv().encode("utf-8")).hexdigest()
 
 
@@ -188,21 +196,49 @@ def unescape(field: str) -> str:
 
 
 def read_vocabulary(path: str | Path) -> Vocabulary:
-    """Read a vocabulary.tsv, checking the header and that ids run 0, 1, 2, … without gaps."""
-    lines = Path(path).read_text(encoding="utf-8").split("\n")
-    if not lines or lines[0] != HEADER:
+    """Read a vocabulary.tsv, checking the header and that ids run 0, 1, 2, … without gaps.
+
+    Arrow's CSV reader parses it (a 120k-word file in about 30 ms instead of 0.4 s line by line);
+    a file it cannot parse is read again line by line to name the first bad line."""
+    with open(path, "rb") as handle:
+        first = handle.readline().rstrip(b"\n").decode("utf-8", "replace")
+    if first != HEADER:
         raise ValueError(f"{path}: line 1: expected the header {HEADER!r}; is this a corpusmill vocabulary file?")
-    tokens, counts, kinds = [], [], []
-    for number, line in enumerate(lines[1:], start=2):
-        if not line:
-            continue
-        fields = line.split("\t")
-        if len(fields) != 4 or not fields[0].isdigit() or int(fields[0]) != len(tokens):
-            raise ValueError(f"{path}: line {number}: expected '{len(tokens)}<TAB>token<TAB>count<TAB>kind', got {line[:80]!r}")
-        tokens.append(unescape(fields[1]) if fields[3] in SUBWORD_KINDS else fields[1])
-        counts.append(int(fields[2]))
-        kinds.append(fields[3])
-    return Vocabulary(tokens, counts, kinds)
+    try:
+        table = pa_csv.read_csv(
+            path,
+            read_options=pa_csv.ReadOptions(use_threads=False, block_size=16 << 20),
+            parse_options=pa_csv.ParseOptions(delimiter="\t", quote_char=False, escape_char=False),
+            convert_options=pa_csv.ConvertOptions(
+                column_types=VOCABULARY_COLUMNS, strings_can_be_null=False, quoted_strings_can_be_null=False
+            ),
+        )
+    except (pa.ArrowInvalid, UnicodeDecodeError):
+        _raise_bad_line(path)
+    ids = table["id"].to_numpy()
+    if not np.array_equal(ids, np.arange(len(ids))):
+        _raise_bad_line(path)
+    tokens, kinds = table["token"].to_pylist(), table["kind"].to_pylist()
+    for i, kind in enumerate(kinds):
+        if kind in SUBWORD_KINDS:
+            tokens[i] = unescape(tokens[i])
+    return Vocabulary(tokens, table["count"].to_pylist(), kinds)
+
+
+def _raise_bad_line(path: str | Path) -> None:
+    """Raise a ValueError naming the first line of a vocabulary file that is not a valid row."""
+    expected = 0
+    with open(path, encoding="utf-8", errors="replace") as handle:
+        next(handle)
+        for number, line in enumerate(handle, start=2):
+            line = line.rstrip("\n")
+            if not line:
+                continue
+            fields = line.split("\t")
+            if len(fields) != 4 or not fields[0].isdigit() or int(fields[0]) != expected or not fields[2].lstrip("-").isdigit():
+                raise ValueError(f"{path}: line {number}: expected '{expected}<TAB>token<TAB>count<TAB>kind', got {line[:80]!r}")
+            expected += 1
+    raise ValueError(f"{path}: not valid UTF-8 text; is this a corpusmill vocabulary file?")
 
 
 def build_vocabulary(counts: pa.Table, cutoff: Cutoff, unknown: str) -> Vocabulary:
@@ -221,29 +257,28 @@ def build_vocabulary(counts: pa.Table, cutoff: Cutoff, unknown: str) -> Vocabula
 
 
 class Lookup:
-    """Maps token arrays to id arrays with Arrow kernels; OOV tokens go to their unknown class."""
+    """Maps token arrays to id arrays; OOV tokens go to their unknown class.
+
+    Each call dictionary-encodes its tokens with Arrow and looks up only the distinct ones in a
+    dict built once, so the vocabulary is hashed once per job, not once per batch (the cost of
+    `pc.index_in`'s value set, 30 ms per call for 120k words)."""
 
     def __init__(self, vocabulary: Vocabulary, unknown: str) -> None:
         start = vocabulary.first_word_id
-        self._words = pa.array(vocabulary.tokens[start:], pa.string())
-        self._start = start
+        self._ids = {token: i for i, token in enumerate(vocabulary.tokens[start:], start)}
         self._unknown = unknown
         self._classes = vocabulary.unknown_ids()
 
     def ids(self, tokens: pa.Array) -> np.ndarray:
         """int64 ids of `tokens` (a string array)."""
-        position = pc.index_in(tokens, value_set=self._words)
-        ids = pc.fill_null(pc.add(position, self._start), -1).to_numpy(zero_copy_only=False).astype(np.int64)
-        missing = ids < 0
-        if missing.any():
-            oov = pc.filter(tokens, pa.array(missing))
-            if self._unknown == "shape":
-                distinct = pc.unique(oov)
-                class_ids = pa.array([self._classes.get(unknown_class(t), self._classes[UNK]) for t in distinct.to_pylist()], pa.int64())
-                ids[missing] = pc.take(class_ids, pc.index_in(oov, value_set=distinct)).to_numpy()
-            else:
-                ids[missing] = self._classes[UNK]
-        return ids
+        encoded = pc.dictionary_encode(tokens)
+        get, unk = self._ids.get, self._classes[UNK]
+        if self._unknown == "shape":
+            classes = self._classes
+            distinct = [i if (i := get(t)) is not None else classes.get(unknown_class(t), unk) for t in encoded.dictionary.to_pylist()]
+        else:
+            distinct = [get(t, unk) for t in encoded.dictionary.to_pylist()]
+        return np.array(distinct, dtype=np.int64)[encoded.indices.to_numpy(zero_copy_only=False)]
 
 
 def vocabulary_from_counts(

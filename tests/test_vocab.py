@@ -83,3 +83,18 @@ def test_file_round_trips_and_rejects_a_foreign_file(tmp_path):
     (tmp_path / "bad.tsv").write_text(HEADER + "\n0\t<pad>\t0\treserved\n2\tx\t1\tword\n")
     with pytest.raises(ValueError, match=r"bad\.tsv: line 3"):
         read_vocabulary(tmp_path / "bad.tsv")
+    (tmp_path / "wide.tsv").write_text(HEADER + "\n0\t<pad>\t0\treserved\n1\tx\t1\tword\textra\n")
+    with pytest.raises(ValueError, match=r"wide\.tsv: line 3"):
+        read_vocabulary(tmp_path / "wide.tsv")
+    (tmp_path / "count.tsv").write_text(HEADER + "\n0\t<pad>\t0\treserved\n1\tx\tmany\tword\n")
+    with pytest.raises(ValueError, match=r"count\.tsv: line 3"):
+        read_vocabulary(tmp_path / "count.tsv")
+
+
+def test_file_keeps_tokens_that_look_like_csv_syntax(tmp_path):
+    """Quotes, commas, 'null' and 'NA' are ordinary word tokens, read back unchanged."""
+    odd = ['"', '""', "'quoted'", "a,b", "null", "NA", "nan", "#", "\\"]
+    vocabulary = build_vocabulary(counts_table({token: 5 for token in odd}), Cutoff(min_count=1), "shape")
+    path = tmp_path / "vocabulary.tsv"
+    path.write_text(vocabulary.to_tsv(), encoding="utf-8")
+    assert read_vocabulary(path).tokens == vocabulary.tokens
