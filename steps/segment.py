@@ -55,7 +55,7 @@ def _pattern_tokenizer(apostrophes: str, hyphens: str) -> Callable[[str], list[s
 
 
 def _line_sentences(text: str) -> list[str]:
-    return [line for line in text.split("\n") if line.strip()]
+    return [stripped for line in text.split("\n") if (stripped := line.strip())]
 
 
 def _punctuation_sentences(abbreviations: frozenset[str]) -> Callable[[str], list[str]]:
@@ -73,7 +73,7 @@ def _punctuation_sentences(abbreviations: frozenset[str]) -> Callable[[str], lis
                 sentences.append(candidate)
                 start = match.end()
             sentences.append(line[start:])
-        return [s for s in sentences if s.strip()]
+        return [stripped for s in sentences if (stripped := s.strip())]
 
     return split
 
@@ -99,18 +99,13 @@ class Segmenter:
             abbreviations = self.abbreviations
 
             def uax29(text: str) -> list[str]:
-                return [s for s in unicode_breaks.sentence_segments(text, abbreviations) if s.strip()]
+                return [stripped for s in unicode_breaks.sentence_segments(text, abbreviations) if (stripped := s.strip())]
 
             self._sentences = uax29
         if self.words_mode == "pattern":
             self._tokens = _pattern_tokenizer(self.apostrophes, self.hyphens)
         else:
-            apostrophes, hyphens = self.apostrophes, self.hyphens
-
-            def words(text: str) -> list[str]:
-                return unicode_breaks.word_tokens(text, apostrophes=apostrophes, hyphens=hyphens)
-
-            self._tokens = words
+            self._tokens = unicode_breaks.word_tokenizer(self.apostrophes, self.hyphens)
 
     @classmethod
     def from_config(cls, segment: dict, learned: frozenset[str] = frozenset()) -> "Segmenter":
@@ -125,7 +120,7 @@ class Segmenter:
 
     def sentences(self, text: str) -> list[str]:
         """Sentences of a cleaned document, whitespace at their edges removed, none empty."""
-        return [s.strip() for s in self._sentences(text)]
+        return self._sentences(text)
 
     def tokens(self, sentence: str) -> list[str]:
         """Word tokens of one sentence; numbers become NUMBER_TOKEN when masking is on."""
@@ -136,12 +131,8 @@ class Segmenter:
 
     def segment(self, text: str) -> list[list[str]]:
         """Sentences of tokens of a cleaned document; sentences without tokens are left out."""
-        result = []
-        for sentence in self.sentences(text):
-            tokens = self.tokens(sentence)
-            if tokens:
-                result.append(tokens)
-        return result
+        tokenize = self.tokens if self.numbers == "mask" else self._tokens
+        return [tokens for sentence in self._sentences(text) if (tokens := tokenize(sentence))]
 
 
 def is_lossless(text: str, tokens: list[str]) -> bool:

@@ -11,7 +11,7 @@ from __future__ import annotations
 
 import math
 from collections import Counter
-from collections.abc import Iterable
+from collections.abc import Callable, Iterable
 from functools import lru_cache
 
 import regex
@@ -68,13 +68,58 @@ def _word_pattern(apostrophes: str, hyphens: str) -> str:
     )
 
 
-_HYPHEN_CHARS = regex.compile(_HYPHEN)
-
 _WORD_PATTERNS = {
     (apostrophes, hyphens): regex.compile(_word_pattern(apostrophes, hyphens), _WORD_FLAGS)
     for apostrophes in ("keep", "split")
     for hyphens in ("keep", "split")
 }
+
+# hyphens="keep", the fast way: each joining hyphen (a letter, marks allowed, before it and a
+# letter after it) is swapped for a stand-in letter (Word_Break ALetter), so UAX #29 itself
+# keeps the compound in one segment; the plain boundary pattern then runs and the hyphens are
+# put back. The rules only ever see the stand-in between two letters, where WB5 joins, so the
+# tokens equal those of the lookaround pattern (_JOINING_END), which is 1.1-1.3x slower on
+# English text and serves any text that already holds a stand-in. The stand-ins are Latin-1
+# letters (ª º µ), so an ASCII text stays a one-byte-per-character string.
+_STAND_INS = {"-": "\u00aa", "\u2010": "\u00ba", "\u2011": "\u00b5"}
+_JOINING_HYPHENS = {
+    hyphen: regex.compile(rf"{regex.escape(hyphen)}(?<={_LETTER}{_ATTACHED}*+{regex.escape(hyphen)})(?={_LETTER})", _FLAGS)
+    for hyphen in _STAND_INS
+}
+
+
+def _joined_hyphen_tokenizer(apostrophes: str) -> Callable[[str], list[str]]:
+    fallback, plain = _WORD_PATTERNS[apostrophes, "keep"].findall, _WORD_PATTERNS[apostrophes, "split"].findall
+    stand_ins = [(hyphen, stand_in, _JOINING_HYPHENS[hyphen].subn) for hyphen, stand_in in _STAND_INS.items()]
+
+    def tokens(text: str) -> list[str]:
+        swapped = []
+        for hyphen, stand_in, swap in stand_ins:
+            if hyphen in text:
+                if stand_in in text:
+                    return fallback(text)
+                text, count = swap(stand_in, text)
+                if count:
+                    swapped.append((stand_in, hyphen))
+        found = plain(text)
+        if not swapped:
+            return found
+        joined = "\n".join(found)  # tokens never hold whitespace
+        for stand_in, hyphen in swapped:
+            joined = joined.replace(stand_in, hyphen)
+        return joined.split("\n")
+
+    return tokens
+
+
+@lru_cache(maxsize=None)
+def word_tokenizer(apostrophes: str = "keep", hyphens: str = "keep") -> Callable[[str], list[str]]:
+    """The function `word_tokens` applies for these modes, for callers that tokenize many texts."""
+    if (apostrophes, hyphens) not in _WORD_PATTERNS:
+        raise ValueError(f"apostrophes and hyphens must each be 'keep' or 'split', got {apostrophes!r}, {hyphens!r}")
+    if hyphens == "keep":
+        return _joined_hyphen_tokenizer(apostrophes)
+    return _WORD_PATTERNS[apostrophes, hyphens].findall
 
 
 def word_tokens(text: str, *, apostrophes: str = "keep", hyphens: str = "keep") -> list[str]:
@@ -89,11 +134,7 @@ def word_tokens(text: str, *, apostrophes: str = "keep", hyphens: str = "keep") 
     ("ice-cold", "state-of-the-art"); ``"split"`` leaves UAX #29's "ice", "-", "cold".
     Whitespace only separates: ``"".join(tokens) == regex.sub(r"\\s+", "", text)``.
     """
-    if (apostrophes, hyphens) not in _WORD_PATTERNS:
-        raise ValueError(f"apostrophes and hyphens must each be 'keep' or 'split', got {apostrophes!r}, {hyphens!r}")
-    if hyphens == "keep" and not _HYPHEN_CHARS.search(text):
-        hyphens = "split"  # nothing to join: the plain boundary pattern gives the same tokens, faster
-    return _WORD_PATTERNS[apostrophes, hyphens].findall(text)
+    return word_tokenizer(apostrophes, hyphens)(text)
 
 
 # ---------------------------------------------------------------------------------------------

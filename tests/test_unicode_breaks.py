@@ -374,7 +374,9 @@ def test_word_tokens_match_reference_rules_on_random_strings() -> None:
     rules of word_tokens' docstring, applied one by one by reference_tokens.
     """
     samples = class_samples("WB", "WordBreakProperty.txt")
-    strings = random_strings(samples, 2000, extra=("-", "\u2010", "'", "\u2019", " ", "a", "b"))
+    # ª and µ are stand-in letters word_tokens swaps joining hyphens for: text holding one
+    # takes the slower lookaround pattern, which must give the same tokens.
+    strings = random_strings(samples, 2000, extra=("-", "\u2010", "\u2011", "'", "\u2019", " ", "a", "b", "\u00aa", "\u00b5"))
     failures = [
         (s, mode, word_tokens(s, apostrophes=mode[0], hyphens=mode[1]), reference_tokens(s, *mode))
         for s in strings
