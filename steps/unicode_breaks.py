@@ -102,12 +102,9 @@ def _joined_hyphen_tokenizer(apostrophes: str) -> Callable[[str], list[str]]:
                 if count:
                     swapped.append((stand_in, hyphen))
         found = plain(text)
-        if not swapped:
-            return found
-        joined = "\n".join(found)  # tokens never hold whitespace
         for stand_in, hyphen in swapped:
-            joined = joined.replace(stand_in, hyphen)
-        return joined.split("\n")
+            found = [token.replace(stand_in, hyphen) if stand_in in token else token for token in found]
+        return found
 
     return tokens
 

@@ -91,7 +91,10 @@ def count_tokens(table: pa.Table) -> pa.Table:
 
 def sum_counts(tables: Sequence[pa.Table]) -> pa.Table:
     """Counts tables added up per (split, token); rows summing to zero are left out."""
-    grouped = pa.concat_tables([COUNTS_SCHEMA.empty_table(), *tables]).group_by(["split", "token"]).aggregate([("count", "sum")])
+    # One thread, as the rules declare (threads: 1); threaded grouping also keeps one hash
+    # table per thread.
+    combined = pa.concat_tables([COUNTS_SCHEMA.empty_table(), *tables])
+    grouped = combined.group_by(["split", "token"], use_threads=False).aggregate([("count", "sum")])
     summed = grouped.select(["split", "token", "count_sum"]).rename_columns(COUNTS_SCHEMA.names)
     return summed.filter(pc.not_equal(summed["count"], 0))
 
