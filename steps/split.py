@@ -49,26 +49,51 @@ def assign_split(key: bytes, salt: str, fractions: dict[str, float]) -> str:
     return SPLITS[-1] if fractions[SPLITS[-1]] > 0 else next(n for n in reversed(SPLITS) if fractions[n] > 0)
 
 
-def _fingerprints(path: str) -> np.ndarray:
+def _fingerprint_words(path: str) -> np.ndarray:
+    """The 16-byte fingerprints of a prepared chunk as an (n, 2) uint64 array."""
     column = pq.read_table(path, columns=["fingerprint"])["fingerprint"].combine_chunks()
-    return np.frombuffer(column.buffers()[1], dtype="V16", count=len(column), offset=column.offset * 16) if len(column) else np.empty(0, "V16")
+    if not len(column):
+        return np.empty((0, 2), np.uint64)
+    return np.frombuffer(column.buffers()[1], dtype=np.uint64, count=2 * len(column), offset=column.offset * 16).reshape(-1, 2)
+
+
+def first_occurrences(words: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
+    """(rows, owners): every row of `words` ((n, 2) uint64 fingerprints) equal to an earlier
+    row, ascending, and the first row it equals.
+
+    A stable sort by both words puts equal fingerprints next to each other in row order, so
+    each group's first row is its earliest. Memory: the fingerprints plus about 24 bytes per
+    row (the sort order and one key column at a time), not np.unique's copies of everything."""
+    order = np.lexsort((words[:, 1], words[:, 0]))
+    same = np.ones(max(len(order) - 1, 0), dtype=bool)
+    for word in (0, 1):
+        key = words[order, word]
+        same &= key[1:] == key[:-1]
+        del key
+    later = np.flatnonzero(same) + 1  # sorted positions holding a repeat
+    group_starts = np.flatnonzero(np.concatenate([[True], ~same]))
+    owners = order[group_starts[np.searchsorted(group_starts, later, side="right") - 1]]
+    rows = order[later]
+    ascending = np.argsort(rows, kind="stable")
+    return rows[ascending], owners[ascending]
 
 
 def find_duplicates(prepared_paths: Sequence[str]) -> pa.Table:
     """Rows (source, offset, doc_id, duplicate_of) for every document whose fingerprint was seen
     earlier; `prepared_paths` must be in corpus order (path, then chunk index). Only the
     16-byte fingerprints of all documents are held; ids are read for the rows involved."""
-    prints = [_fingerprints(p) for p in prepared_paths]
-    if not sum(map(len, prints)):
-        return DUPLICATES_SCHEMA.empty_table()
-    everything = np.concatenate(prints)
-    _, first, inverse = np.unique(everything, return_index=True, return_inverse=True)
-    owner = first[inverse.reshape(-1)]
-    rows = np.flatnonzero(owner != np.arange(len(everything)))
+    sizes = [pq.ParquetFile(p).metadata.num_rows for p in prepared_paths]
+    words = np.empty((sum(sizes), 2), np.uint64)
+    position = 0
+    for path, size in zip(prepared_paths, sizes):
+        words[position : position + size] = _fingerprint_words(path)
+        position += size
+    rows, owners = first_occurrences(words)
+    del words
     if not len(rows):
         return DUPLICATES_SCHEMA.empty_table()
-    starts = np.cumsum([0] + [len(p) for p in prints])
-    wanted = np.unique(np.concatenate([rows, owner[rows]]))
+    starts = np.cumsum([0] + sizes)
+    wanted = np.unique(np.concatenate([rows, owners]))
     chunk_of = np.searchsorted(starts, wanted, side="right") - 1
     source, offset, doc_id = {}, {}, {}
     for chunk in np.unique(chunk_of):
@@ -81,7 +106,7 @@ def find_duplicates(prepared_paths: Sequence[str]) -> pa.Table:
             "source": [source[r] for r in rows.tolist()],
             "offset": [offset[r] for r in rows.tolist()],
             "doc_id": [doc_id[r] for r in rows.tolist()],
-            "duplicate_of": [doc_id[r] for r in owner[rows].tolist()],
+            "duplicate_of": [doc_id[r] for r in owners.tolist()],
         },
         schema=DUPLICATES_SCHEMA,
     )
