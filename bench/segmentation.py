@@ -6,7 +6,11 @@ input) for word tokens, sentences and grapheme splitting, next to a plain split 
 word boundaries as a yardstick of the machine's speed; the best of several runs counts
 because other processes on the machine only ever slow a run down.
 
-    python bench/segmentation.py [PATH] [--megabytes 20] [--repeats 3]
+    python bench/segmentation.py [PATH | --fortunes] [--megabytes 20] [--repeats 3]
+
+`--fortunes` measures ordinary English prose instead: the English fortune files of Debian's
+`fortunes` packages (every plain file in FORTUNES but the Chinese ones and the ASCII pictures),
+concatenated, about 2 MB.
 """
 
 from __future__ import annotations
@@ -25,6 +29,8 @@ sys.path.insert(0, str(Path(__file__).resolve().parent.parent))
 from steps.unicode_breaks import sentence_segments, split_graphemes, word_tokens  # noqa: E402
 
 GCIDE = Path("/usr/share/dictd/gcide.dict.dz")
+FORTUNES = Path("/usr/share/games/fortunes")
+NOT_ENGLISH_PROSE = frozenset({"chinese", "tang300", "song100", "art", "ascii-art"})
 ABBREVIATIONS = frozenset("dr mr mrs ms prof st no vol fig approx etc e.g i.e vs cf".split())
 
 
@@ -35,6 +41,17 @@ def read_text(path: Path | None, megabytes: float) -> str:
     opener = gzip.open if source.suffix in (".dz", ".gz") else open
     with opener(source, "rb") as file:
         return file.read(limit).decode("utf-8", errors="ignore")
+
+
+def english_fortunes() -> str:
+    """The English fortune files, in name order, concatenated."""
+    files = sorted(
+        p for p in FORTUNES.iterdir()
+        if p.is_file() and p.suffix not in (".dat", ".u8") and p.name not in NOT_ENGLISH_PROSE
+    )
+    if not files:
+        raise SystemExit(f"no fortune files in {FORTUNES}; install Debian's fortunes package")
+    return "".join(p.read_text(encoding="utf-8", errors="replace") for p in files)
 
 
 def best_seconds(func: Callable[[str], list[str]], text: str, repeats: int) -> tuple[float, int]:
@@ -51,12 +68,14 @@ def best_seconds(func: Callable[[str], list[str]], text: str, repeats: int) -> t
 def main() -> None:
     parser = argparse.ArgumentParser(description=__doc__.splitlines()[0])
     parser.add_argument("path", nargs="?", type=Path, help=f"UTF-8 text (default: {GCIDE})")
+    parser.add_argument("--fortunes", action="store_true", help=f"English prose from {FORTUNES}")
     parser.add_argument("--megabytes", type=float, default=20.0)
     parser.add_argument("--repeats", type=int, default=3)
     args = parser.parse_args()
-    text = read_text(args.path, args.megabytes)
+    text = english_fortunes() if args.fortunes else read_text(args.path, args.megabytes)
     size = len(text.encode("utf-8")) / 1e6
-    print(f"{size:.1f} MB of {args.path or GCIDE}, best of {args.repeats} runs, one core")
+    source = f"English fortunes in {FORTUNES}" if args.fortunes else args.path or GCIDE
+    print(f"{size:.1f} MB of {source}, best of {args.repeats} runs, one core")
     sentences = sentence_segments(text)  # the pipeline tokenizes one sentence at a time
     measures: dict[str, Callable[[str], list[str]]] = {
         "reference: regex.split at \\b": lambda t: regex.split(r"\b", t, flags=regex.WORD | regex.V1),
