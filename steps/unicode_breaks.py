@@ -92,15 +92,19 @@ def _joined_hyphen_tokenizer(apostrophes: str) -> Callable[[str], list[str]]:
     fallback, plain = _WORD_PATTERNS[apostrophes, "keep"].findall, _WORD_PATTERNS[apostrophes, "split"].findall
     stand_ins = [(hyphen, stand_in, _JOINING_HYPHENS[hyphen].subn) for hyphen, stand_in in _STAND_INS.items()]
 
+    hyphen_minus, unicode_hyphen, non_breaking_hyphen = _STAND_INS
+
     def tokens(text: str) -> list[str]:
+        if hyphen_minus not in text and unicode_hyphen not in text and non_breaking_hyphen not in text:
+            return plain(text)  # most sentences: nothing to join, and no list built per call
+        present = [entry for entry in stand_ins if entry[0] in text]
+        if any(stand_in in text for _, stand_in, _ in present):
+            return fallback(text)  # decided on the original text, before any swap
         swapped = []
-        for hyphen, stand_in, swap in stand_ins:
-            if hyphen in text:
-                if stand_in in text:
-                    return fallback(text)
-                text, count = swap(stand_in, text)
-                if count:
-                    swapped.append((stand_in, hyphen))
+        for hyphen, stand_in, swap in present:
+            text, count = swap(stand_in, text)
+            if count:
+                swapped.append((stand_in, hyphen))
         found = plain(text)
         for stand_in, hyphen in swapped:
             found = [token.replace(stand_in, hyphen) if stand_in in token else token for token in found]

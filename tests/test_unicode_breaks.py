@@ -377,6 +377,9 @@ def test_word_tokens_match_reference_rules_on_random_strings() -> None:
     # ª and µ are stand-in letters word_tokens swaps joining hyphens for: text holding one
     # takes the slower lookaround pattern, which must give the same tokens.
     strings = random_strings(samples, 2000, extra=("-", "\u2010", "\u2011", "'", "\u2019", " ", "a", "b", "\u00aa", "\u00b5"))
+    # And dense mixes of the three hyphens, their stand-ins, letters and marks, where they meet.
+    joins = {"joins": ["-", "\u2010", "\u2011", "\u00aa", "\u00ba", "\u00b5", "a", "b", "\u0301", " ", "'", "1"]}
+    strings += random_strings(joins, 3000)
     failures = [
         (s, mode, word_tokens(s, apostrophes=mode[0], hyphens=mode[1]), reference_tokens(s, *mode))
         for s in strings
@@ -437,6 +440,10 @@ def test_split_graphemes_cuts_only_between_clusters_on_random_strings() -> None:
         ("東京は晴れ。", "keep", "keep", ["東", "京", "は", "晴", "れ", "。"]),
         ("caf\u00e9 cafe\u0301 na\u00efve", "keep", "keep", ["caf\u00e9", "cafe\u0301", "na\u00efve"]),
         ("1\u202f000 km", "keep", "keep", ["1", "000", "km"]),
+        # The letters word_tokens uses as stand-ins for joining hyphens (ª º µ) in the text itself:
+        ("ice-cold \u2011 \u00b5", "keep", "keep", ["ice-cold", "\u2011", "\u00b5"]),
+        ("x\u2010ray \u00aa", "keep", "keep", ["x\u2010ray", "\u00aa"]),
+        ("\u00b5-meter ice\u2011cold", "keep", "keep", ["\u00b5-meter", "ice\u2011cold"]),
     ],
 )  # fmt: skip
 def test_word_token_rules(text: str, apostrophes: str, hyphens: str, tokens: list[str]) -> None:
