@@ -65,10 +65,11 @@ class GrowthCounter:
     """Distinct types after each prefix of a token stream, fed in batches of integer type ids.
 
     Keeps one flag per type and the stream position where each type first appears, so memory
-    grows with the number of types, never with the number of tokens.
+    grows with the number of types, never with the number of tokens. `types` only sizes the
+    flags up front; a larger id extends them.
     """
 
-    def __init__(self, types: int) -> None:
+    def __init__(self, types: int = 0) -> None:
         self._seen = np.zeros(types, dtype=bool)
         self._first: list[np.ndarray] = []
         self.tokens = 0
@@ -79,6 +80,8 @@ class GrowthCounter:
         if not len(ids):
             return
         distinct, first = np.unique(ids, return_index=True)
+        if distinct[-1] >= len(self._seen):
+            self._seen = np.concatenate([self._seen, np.zeros(int(distinct[-1]) + 1 - len(self._seen), dtype=bool)])
         new = ~self._seen[distinct]
         self._seen[distinct[new]] = True
         self._first.append(first[new] + self.tokens)
@@ -90,7 +93,7 @@ class GrowthCounter:
         return np.searchsorted(first, np.asarray(positions, dtype=np.int64), side="left")
 
 
-def growth_curve(batches: Iterable[np.ndarray], types: int, points: int = 400) -> tuple[np.ndarray, np.ndarray]:
+def growth_curve(batches: Iterable[np.ndarray], types: int = 0, points: int = 400) -> tuple[np.ndarray, np.ndarray]:
     """(tokens seen, types seen) at log-spaced stream positions, from batches of type ids."""
     counter = GrowthCounter(types)
     for batch in batches:

@@ -121,23 +121,18 @@ def train_word_batches(prepared: Sequence[str], duplicates: pa.Table) -> Iterato
 def word_growth(batches: Iterable[pa.Array], points: int = 400) -> tuple[np.ndarray, np.ndarray]:
     """(words read, distinct words seen) at log-spaced positions of a stream of string batches.
 
-    Keeps the distinct words and where each first appeared, so memory grows with the number of
-    types, not tokens; each batch is dictionary-encoded, so Python touches only its distinct words.
+    Each word gets an id on first sight, then laws.growth_curve counts; each batch is
+    dictionary-encoded, so Python touches only its distinct words.
     """
-    seen: set[str] = set()
-    firsts: list[np.ndarray] = []
-    total = 0
-    for words in batches:
-        encoded = pc.dictionary_encode(words)
-        distinct = encoded.dictionary.to_pylist()
-        _, first = np.unique(encoded.indices.to_numpy(zero_copy_only=False), return_index=True)
-        new = np.fromiter((word not in seen for word in distinct), dtype=bool, count=len(distinct))
-        seen.update(word for word, fresh in zip(distinct, new) if fresh)
-        firsts.append(first[new] + total)
-        total += len(words)
-    positions = log_points(total, points)
-    ordered = np.sort(np.concatenate(firsts)) if firsts else np.zeros(0, dtype=np.int64)
-    return positions, np.searchsorted(ordered, positions, side="left")
+    ids: dict[str, int] = {}
+
+    def id_batches() -> Iterator[np.ndarray]:
+        for words in batches:
+            encoded = pc.dictionary_encode(words)
+            distinct = np.array([ids.setdefault(word, len(ids)) for word in encoded.dictionary.to_pylist()], dtype=np.int64)
+            yield distinct[encoded.indices.to_numpy(zero_copy_only=False)]
+
+    return growth_curve(id_batches(), points=points)
 
 
 def source_figures(encode_stats: Sequence[dict]) -> dict[str, dict]:

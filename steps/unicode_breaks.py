@@ -89,6 +89,7 @@ _JOINING_HYPHENS = {
 
 
 def _joined_hyphen_tokenizer(apostrophes: str) -> Callable[[str], list[str]]:
+    """Tokens with hyphens="keep" by the stand-in swap described above."""
     fallback, plain = _WORD_PATTERNS[apostrophes, "keep"].findall, _WORD_PATTERNS[apostrophes, "split"].findall
     stand_ins = [(hyphen, stand_in, _JOINING_HYPHENS[hyphen].subn) for hyphen, stand_in in _STAND_INS.items()]
 

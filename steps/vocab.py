@@ -216,11 +216,11 @@ def read_vocabulary(path: str | Path) -> Vocabulary:
                 column_types=VOCABULARY_COLUMNS, strings_can_be_null=False, quoted_strings_can_be_null=False
             ),
         )
-    except (pa.ArrowInvalid, UnicodeDecodeError):
-        _raise_bad_line(path)
+    except pa.ArrowInvalid as error:
+        _raise_bad_line(path, str(error).splitlines()[0])
     ids = table["id"].to_numpy()
     if not np.array_equal(ids, np.arange(len(ids))):
-        _raise_bad_line(path)
+        _raise_bad_line(path, "ids do not run 0, 1, 2, …")
     tokens, kinds = table["token"].to_pylist(), table["kind"].to_pylist()
     for i, kind in enumerate(kinds):
         if kind in SUBWORD_KINDS:
@@ -228,8 +228,9 @@ def read_vocabulary(path: str | Path) -> Vocabulary:
     return Vocabulary(tokens, table["count"].to_pylist(), kinds)
 
 
-def _raise_bad_line(path: str | Path) -> None:
-    """Raise a ValueError naming the first line of a vocabulary file that is not a valid row."""
+def _raise_bad_line(path: str | Path, reason: str) -> None:
+    """Raise a ValueError naming the first line of a vocabulary file that is not a valid row,
+    or, when every line looks right, the reason the file could not be read."""
     expected = 0
     with open(path, encoding="utf-8", errors="replace") as handle:
         next(handle)
@@ -241,7 +242,7 @@ def _raise_bad_line(path: str | Path) -> None:
             if len(fields) != 4 or not fields[0].isdigit() or int(fields[0]) != expected or not fields[2].lstrip("-").isdigit():
                 raise ValueError(f"{path}: line {number}: expected '{expected}<TAB>token<TAB>count<TAB>kind', got {line[:80]!r}")
             expected += 1
-    raise ValueError(f"{path}: not valid UTF-8 text; is this a corpusmill vocabulary file?")
+    raise ValueError(f"{path}: cannot be read as a vocabulary file ({reason}); write it with corpusmill or fix that value")
 
 
 def build_vocabulary(counts: pa.Table, cutoff: Cutoff, unknown: str) -> Vocabulary:

@@ -89,6 +89,9 @@ def test_file_round_trips_and_rejects_a_foreign_file(tmp_path):
     (tmp_path / "count.tsv").write_text(HEADER + "\n0\t<pad>\t0\treserved\n1\tx\tmany\tword\n")
     with pytest.raises(ValueError, match=r"count\.tsv: line 3"):
         read_vocabulary(tmp_path / "count.tsv")
+    (tmp_path / "huge.tsv").write_text(HEADER + "\n0\t<pad>\t99999999999999999999999\treserved\n")
+    with pytest.raises(ValueError, match=r"huge\.tsv: cannot be read as a vocabulary file \(.*Row #2.*99999999999999999999999"):
+        read_vocabulary(tmp_path / "huge.tsv")
 
 
 def test_file_keeps_tokens_that_look_like_csv_syntax(tmp_path):
