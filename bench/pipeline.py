@@ -13,7 +13,7 @@ The 10x corpus holds ten copies of every file; each paragraph of copy k starts w
 at 1x. The 10x build also uses ten times as many train shard files, so one shard job holds as
 much text at 10x as at 1x (the config's advice: train_files grows with the corpus).
 
-Usage: python bench/pipeline.py [--cores 2] [--scales 1 10] [--keep]
+Usage: python bench/pipeline.py [--cores 2] [--scales 1 10] [--keep]   (needs `pip install -e '.[bench]'`)
 Corpus and builds go to bench/data/, results to bench/results/pipeline.json (both gitignored).
 """
 

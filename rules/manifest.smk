@@ -4,7 +4,7 @@ rule coverage:
     input:
         token_counts=L.token_counts,
         vocabulary=L.vocabulary,
-        encode_stats=[L.encode_stats(c) for c in PLAN.chunk_keys],
+        stats=[L.encode_stats(c) for c in PLAN.chunk_keys] if SUBWORD else [L.shard_stats(s, p) for s, p in PLAN.split_parts()],
     output:
         L.coverage,
     log:
@@ -18,7 +18,7 @@ rule coverage:
         runtime=CONFIG["resources"]["runtime_min"],
     shell:
         step("report", "--token-counts {input.token_counts:q} --vocabulary {input.vocabulary:q} "
-             "--options {params.options:q} --output {output:q} {input.encode_stats:q}")
+             "--options {params.options:q} --output {output:q} {input.stats:q}")
 
 
 rule manifest:

@@ -1,7 +1,7 @@
 # The chunks' counts (written by prepare) merged, duplicates subtracted, into the vocabulary;
-# then ids per chunk.
-# Subword units (SUBWORD, rules/subword.smk): encode uses the sentencepiece model and writes
-# piece counts per chunk; the vocabulary is then the model's pieces with those counts.
+# the shard jobs map words to ids (rules/shards.smk).
+# Subword units (SUBWORD, rules/subword.smk): per-chunk encode jobs use the sentencepiece model
+# and write piece ids and piece counts; the vocabulary is then the model's pieces with those counts.
 
 rule vocabulary:
     input:
@@ -31,26 +31,22 @@ rule encode:
     input:
         table=L.prepared("{chunk}"),
         duplicates=L.duplicates,
-        **({"model": L.subword_model} if SUBWORD else {"vocabulary": L.vocabulary}),
+        model=L.subword_model,
     output:
         parts=PLAN.encoded_outputs("{chunk}"),
         stats=L.encode_stats("{chunk}"),
-        **({"pieces": L.piece_counts("{chunk}")} if SUBWORD else {}),
+        pieces=L.piece_counts("{chunk}"),
     log:
         L.log("encode", "{chunk}"),
     params:
         source=lambda w: PLAN.chunk(w.chunk).source,
         options=PLAN.options("encode"),
-        ids=lambda w, input, output: (
-            f"--model {shlex.quote(input.model)} --pieces {shlex.quote(output.pieces)}"
-            if SUBWORD
-            else f"--vocabulary {shlex.quote(input.vocabulary)}"
-        ),
         code=code_hash("encode"),
-    threads: 2 if SUBWORD else 1
+    threads: 2
     resources:
         mem_mb=CONFIG["resources"]["prepare_mem_mb"],
         runtime=CONFIG["resources"]["runtime_min"],
     shell:
         step("encode", "--prepared {input.table:q} --source {params.source:q} --duplicates {input.duplicates:q} "
-             "{params.ids} --threads {threads} --options {params.options:q} --stats {output.stats:q} {output.parts:q}")
+             "--model {input.model:q} --pieces {output.pieces:q} --threads {threads} --options {params.options:q} "
+             "--stats {output.stats:q} {output.parts:q}")

@@ -1,19 +1,20 @@
-"""Encode one prepared chunk: tokens (or sentences, in subword mode) → ids, documents spread over shard parts.
+"""Encode one prepared chunk with the sentencepiece model (subword units): sentences → piece
+ids, documents spread over shard parts.
 
-Each document goes to part `order % parts` of its split, where `order` is a seeded hash of the
-document id; the shard step later orders train documents by that hash, so shards do not
-depend on how the corpus was chunked. Encoded file columns: doc_id, order (uint64),
-sentences (list of sentences, each a list of uint32 ids).
+Each document goes to the part of its split that holds its `doc_hash` (steps.split.part_of)
+and carries `order`, a seeded hash of its id, by which the shard step orders train documents,
+so shards do not depend on how the corpus was chunked. Encoded file columns: doc_id, order
+(uint64), sentences (list of sentences, each a list of uint32 ids).
 
-In subword mode the sentencepiece model encodes whole cleaned sentences, in batched calls on
-the rule's threads, and the job also writes the chunk's piece counts per split
-(split, id, count; the vocabulary step sums them) and subword figures in its statistics.
+The model encodes whole cleaned sentences in batched calls on the rule's threads; the job
+also writes the chunk's piece counts per split (split, id, count; the vocabulary step sums
+them) and subword figures in its statistics. Word units need no such job: the shard step maps
+the prepared tokens itself (steps/shards.py).
 """
 
 from __future__ import annotations
 
 import argparse
-import hashlib
 import json
 
 import numpy as np
@@ -23,45 +24,19 @@ import pyarrow.parquet as pq
 import sentencepiece as spm
 
 from steps.layout import SPLITS
-from steps.split import duplicate_mask
-from steps.storage import ParquetSink, write_json, write_table
-from steps.vocab import RESERVED, UNK, Lookup, Vocabulary, read_vocabulary
+from steps.split import duplicate_mask, order_keys, part_of, read_part
+from steps.storage import ParquetSink, rebased_offsets, write_json, write_table
+from steps.vocab import RESERVED, UNK
+
+BATCH_ROWS = 4096
 
 ENCODED_SCHEMA = pa.schema(
     [("doc_id", pa.string()), ("order", pa.uint64()), ("sentences", pa.list_(pa.list_(pa.uint32())))]
 )
 
 
-def order_keys(doc_ids: list[str], seed: int) -> np.ndarray:
-    """A seeded 64-bit hash per document id: the train shuffle order and the part number."""
-    salt = seed.to_bytes(8, "big")
-    return np.array(
-        [int.from_bytes(hashlib.blake2b(d.encode("utf-8"), digest_size=8, key=salt).digest(), "big") for d in doc_ids],
-        dtype=np.uint64,
-    )
-
-
-class TokenEncoder:
-    """Maps a chunk table's nested token lists to nested id lists (word units)."""
-
-    column = "tokens"
-
-    def __init__(self, vocabulary: Vocabulary, unknown: str) -> None:
-        self._lookup = Lookup(vocabulary, unknown)
-
-    def encode(self, tokens: pa.ChunkedArray | pa.Array) -> pa.Array:
-        nested = tokens.combine_chunks() if isinstance(tokens, pa.ChunkedArray) else tokens
-        sentences = nested.flatten()
-        flat = sentences.flatten()
-        ids = pa.array(self._lookup.ids(flat).astype(np.uint32), pa.uint32())
-        inner = pa.ListArray.from_arrays(_rebased(sentences), ids)
-        return pa.ListArray.from_arrays(_rebased(nested), inner)
-
-
 class PieceEncoder:
-    """Maps a chunk table's sentence lists to nested id lists with a sentencepiece model (subword units)."""
-
-    column = "sentences"
+    """Maps a chunk table's sentence lists to nested id lists with a sentencepiece model."""
 
     def __init__(self, model: str, threads: int) -> None:
         self._processor = spm.SentencePieceProcessor(model_file=model)
@@ -76,7 +51,7 @@ class PieceEncoder:
         # numpy arrays and than flattening the lists in Python (measured 3x).
         pieces = self._processor.encode(texts, num_threads=self._threads)
         inner = pa.array(pieces, type=pa.list_(pa.uint32()))
-        return pa.ListArray.from_arrays(_rebased(nested), inner)
+        return pa.ListArray.from_arrays(rebased_offsets(nested), inner)
 
 
 PIECE_COUNTS_SCHEMA = pa.schema([("split", pa.string()), ("id", pa.int64()), ("count", pa.int64())])
@@ -122,43 +97,34 @@ class PieceTally:
         return pa.concat_tables(parts)
 
 
-def _rebased(array: pa.ListArray) -> pa.Array:
-    offsets = array.offsets.to_numpy()
-    return pa.array((offsets - offsets[0]).astype(np.int32), pa.int32())
-
-
 def encode_chunk(
     prepared: str,
     source: str,
     duplicates: pa.Table,
-    encoder: TokenEncoder | PieceEncoder,
-    unknown_ids: np.ndarray,
+    encoder: PieceEncoder,
     parts: dict[str, int],
     seed: int,
     outputs: dict[tuple[str, int], str],
-    pieces: PieceTally | None = None,
+    pieces: PieceTally,
 ) -> dict:
     """Write the encoded parts of one chunk; return its statistics per split."""
-    stats = {split: {"documents": 0, "sentences": 0, "tokens": 0, "oov_tokens": 0, "unknown": {}} for split in SPLITS}
+    stats = {split: {"documents": 0, "sentences": 0, "tokens": 0, "oov_tokens": 0} for split in SPLITS}
     sinks = {key: ParquetSink(path, ENCODED_SCHEMA, compression="zstd", level=1) for key, path in outputs.items()}
     try:
-        parquet = pq.ParquetFile(prepared)
-        for batch in parquet.iter_batches(batch_size=4096, columns=["doc_id", "offset", "split", encoder.column]):
-            table = pa.Table.from_batches([batch])
-            table = table.filter(pc.invert(duplicate_mask(duplicates, source, table["offset"])))
-            for split in SPLITS:
-                rows = table.filter(pc.equal(table["split"], split))
-                if not rows.num_rows:
-                    continue
-                encoded = encoder.encode(rows[encoder.column])
-                _tally(stats[split], encoded, unknown_ids)
-                if pieces is not None:
-                    pieces.add(split, rows[encoder.column], encoded)
-                doc_ids = rows["doc_id"].to_pylist()
-                order = order_keys(doc_ids, seed)
-                part_of = order % np.uint64(parts[split])
+        for split in SPLITS:
+            # A chunk's rows are stored by split and doc_hash; dev and test keep corpus order.
+            rows_of_split = read_part(prepared, split, 0, 1, ["doc_id", "doc_hash", "offset", "sentences"])
+            rows_of_split = rows_of_split.filter(pc.invert(duplicate_mask(duplicates, source, rows_of_split["offset"])))
+            rows_of_split = rows_of_split.sort_by("offset")
+            for start in range(0, rows_of_split.num_rows, BATCH_ROWS):
+                rows = rows_of_split.slice(start, BATCH_ROWS)
+                encoded = encoder.encode(rows["sentences"])
+                _tally(stats[split], encoded)
+                pieces.add(split, rows["sentences"], encoded)
+                order = order_keys(rows["doc_id"].to_pylist(), seed)
+                placed = part_of(rows["doc_hash"].to_numpy(), parts[split])
                 for part in range(parts[split]):
-                    mask = part_of == part
+                    mask = placed == part
                     if mask.any():
                         selected = pa.array(mask)
                         sinks[(split, part)].write(
@@ -176,28 +142,23 @@ def encode_chunk(
     return stats
 
 
-def _tally(stats: dict, encoded: pa.ListArray, unknown_ids: np.ndarray) -> None:
+def _tally(stats: dict, encoded: pa.ListArray) -> None:
     sentences = encoded.flatten()
     ids = sentences.flatten().to_numpy()
     stats["documents"] += len(encoded)
     stats["sentences"] += len(sentences)
     stats["tokens"] += len(ids)
-    unknown = ids[np.isin(ids, unknown_ids)]
-    stats["oov_tokens"] += len(unknown)
-    values, counts = np.unique(unknown, return_counts=True)
-    for value, count in zip(values.tolist(), counts.tolist()):
-        stats["unknown"][str(value)] = stats["unknown"].get(str(value), 0) + count
+    stats["oov_tokens"] += int(np.count_nonzero(ids == RESERVED.index(UNK)))
 
 
 def main(argv: list[str] | None = None) -> None:
-    parser = argparse.ArgumentParser(description="Encode one prepared chunk into id parts per split.")
+    parser = argparse.ArgumentParser(description="Encode one prepared chunk into piece-id parts per split (subword units).")
     parser.add_argument("--prepared", required=True)
     parser.add_argument("--source", required=True, help="the chunk's input file, relative to the corpus root")
     parser.add_argument("--duplicates", required=True)
-    parser.add_argument("--vocabulary", help="vocabulary.tsv (word units)")
-    parser.add_argument("--model", help="sentencepiece model (subword units)")
-    parser.add_argument("--pieces", help="output: piece counts per split (subword units)")
-    parser.add_argument("--threads", type=int, default=1, help="threads of the batched subword encoder")
+    parser.add_argument("--model", required=True, help="sentencepiece model")
+    parser.add_argument("--pieces", required=True, help="output: piece counts per split")
+    parser.add_argument("--threads", type=int, default=1, help="threads of the batched encoder")
     parser.add_argument("--options", required=True)
     parser.add_argument("--stats", required=True)
     parser.add_argument("outputs", nargs="+", help="encoded part files, named <split>-<part>.parquet")
@@ -208,26 +169,16 @@ def main(argv: list[str] | None = None) -> None:
     for path in args.outputs:
         split, part = path.rsplit("/", 1)[-1].removesuffix(".parquet").split("-")
         outputs[(split, int(part))] = path
-    duplicates = pq.read_table(args.duplicates)
-    if config["units"] == "subword":
-        if not (args.model and args.pieces):
-            raise SystemExit("corpusmill: encode: units = subword needs --model and --pieces")
-        encoder = PieceEncoder(args.model, args.threads)
-        tally = PieceTally(encoder)
-        unknown = np.array([RESERVED.index(UNK)], dtype=np.int64)
-        stats = encode_chunk(args.prepared, args.source, duplicates, encoder, unknown, parts, config["shards"]["seed"], outputs, tally)
-        for split in SPLITS:
-            stats[split].update(tally.figures[split])
-        write_table(args.pieces, tally.table())
-        write_json(args.stats, {"source": args.source, "units": "subword", "splits": stats})
-        return
-    if not args.vocabulary:
-        raise SystemExit("corpusmill: encode: units = word needs --vocabulary")
-    vocabulary = read_vocabulary(args.vocabulary)
-    encoder = TokenEncoder(vocabulary, config["vocabulary"]["unknown"])
-    unknown_ids = np.array(sorted(vocabulary.unknown_ids().values()), dtype=np.int64)
-    stats = encode_chunk(args.prepared, args.source, duplicates, encoder, unknown_ids, parts, config["shards"]["seed"], outputs)
-    write_json(args.stats, {"source": args.source, "splits": stats})
+    encoder = PieceEncoder(args.model, args.threads)
+    tally = PieceTally(encoder)
+    stats = encode_chunk(
+        args.prepared, args.source, pq.read_table(args.duplicates), encoder, parts, config["shards"]["seed"], outputs, tally
+    )
+    for split in SPLITS:
+        stats[split].update(tally.figures[split])
+    write_table(args.pieces, tally.table())
+    write_json(args.stats, {"source": args.source, "units": "subword", "splits": stats})
+
 
 if __name__ == "__main__":
     main()

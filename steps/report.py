@@ -1,12 +1,13 @@
 """Coverage statistics: how well the vocabulary covers each split, and at other sizes.
 
 Figures come from the merged token counts (stats/token_counts.parquet, frequency-sorted) and
-the vocabulary; the per-chunk encode statistics add the unknown-class breakdown and OOV per
-source file.
+the vocabulary; the shard jobs' statistics (word units) add the unknown-class breakdown and
+OOV per source file.
 
 In subword mode (units = subword) the figures are per split: pieces per whitespace word,
 pieces per sentence, the <unk> rate as encoded, the share of byte pieces, and the <unk> rate
-the same model would have without byte fallback (each run of byte pieces would be one <unk>).
+the same model would have without byte fallback (each run of byte pieces would be one <unk>),
+from the per-chunk encode statistics.
 """
 
 from __future__ import annotations
@@ -74,22 +75,24 @@ def size_table(counts: pa.Table, sizes: Sequence[int], chosen: int) -> list[dict
     return rows
 
 
-def coverage_statistics(counts: pa.Table, vocabulary: Vocabulary, encode_stats: Sequence[dict], top: int) -> dict:
+def coverage_statistics(counts: pa.Table, vocabulary: Vocabulary, part_stats: Sequence[dict], top: int) -> dict:
+    """Word-unit coverage; `part_stats` are the shard jobs' statistics, each holding its split's
+    tokens, OOV tokens and unknown ids per input file."""
     known = in_vocabulary(counts, vocabulary)
     train = counts["train"].to_numpy()
     singletons = train == 1
     words = vocabulary.size - vocabulary.first_word_id
     unknown = {split: {} for split in SPLITS}
     by_source: dict[str, dict] = {}
-    for stats in encode_stats:
-        source = by_source.setdefault(stats["source"], {s: {"tokens": 0, "oov_tokens": 0} for s in SPLITS})
-        for split in SPLITS:
-            figures = stats["splits"][split]
+    for stats in part_stats:
+        split = stats["split"]
+        for name, figures in stats["sources"].items():
+            source = by_source.setdefault(name, {s: {"tokens": 0, "oov_tokens": 0} for s in SPLITS})
             source[split]["tokens"] += figures["tokens"]
             source[split]["oov_tokens"] += figures["oov_tokens"]
             for key, value in figures["unknown"].items():
-                name = vocabulary.tokens[int(key)]
-                unknown[split][name] = unknown[split].get(name, 0) + value
+                token = vocabulary.tokens[int(key)]
+                unknown[split][token] = unknown[split].get(token, 0) + value
     for source in by_source.values():
         for figures in source.values():
             figures["oov_rate"] = _rate(figures["oov_tokens"], figures["tokens"])
@@ -184,12 +187,12 @@ def main(argv: list[str] | None = None) -> None:
     parser.add_argument("--vocabulary", required=True)
     parser.add_argument("--options", required=True)
     parser.add_argument("--output", required=True)
-    parser.add_argument("encode_stats", nargs="*")
+    parser.add_argument("stats", nargs="*", help="the shard jobs' statistics (word units) or the encode jobs' (subword units)")
     args = parser.parse_args(argv)
     config = json.loads(args.options)
     if config["units"] == "subword":
         stats = subword_statistics(
-            pq.read_table(args.token_counts), read_vocabulary(args.vocabulary), [read_json(p) for p in args.encode_stats]
+            pq.read_table(args.token_counts), read_vocabulary(args.vocabulary), [read_json(p) for p in args.stats]
         )
         write_json(args.output, stats)
         print(format_table(stats))
@@ -197,7 +200,7 @@ def main(argv: list[str] | None = None) -> None:
     stats = coverage_statistics(
         pq.read_table(args.token_counts),
         read_vocabulary(args.vocabulary),
-        [read_json(p) for p in args.encode_stats],
+        [read_json(p) for p in args.stats],
         config["report"]["top_oov"],
     )
     write_json(args.output, stats)

@@ -38,11 +38,12 @@ from matplotlib.ticker import PercentFormatter
 from steps.laws import FLOAT32_BYTES, ModelSize, PowerFit, fit_heaps, fit_zipf, growth_curve, log_points
 from steps.layout import SPLITS
 from steps.settings import read_json
-from steps.split import duplicate_mask
+from steps.split import duplicate_mask, read_part
 from steps.storage import write_text
 from steps.vocab import escape
 
 BATCH_TOKENS = 1 << 20
+BATCH_ROWS = 4096
 COLOURS = {"train": "#1f5f8b", "dev": "#d9822b", "test": "#3a8f4b"}
 STYLE = """
 body{font-family:system-ui,-apple-system,"Segoe UI",sans-serif;max-width:62rem;margin:2rem auto;padding:0 1rem;color:#1b1f24;line-height:1.45}
@@ -59,20 +60,16 @@ figure{margin:1rem 0} figure img{max-width:100%;height:auto;border:1px solid #ea
 
 
 def _train_rows(prepared: Sequence[str], duplicates: pa.Table, column: str) -> Iterator[tuple[str, pa.Array]]:
-    """(chunk path, `column` of its kept train documents) per read batch, in corpus order."""
+    """(chunk path, `column` of its kept train documents) in corpus order, a chunk at a time in
+    slices of BATCH_ROWS documents (prepare stores rows by split and doc_hash)."""
     for path in prepared:
-        reader = pq.ParquetFile(path)
-        # Row group by row group: prepare bounds each one (BATCH_DOCUMENTS, about BATCH_CHARS).
-        for group in range(reader.num_row_groups):
-            batch = reader.read_row_group(group, columns=["source", "offset", "split", column])
-            keep = pc.equal(batch["split"], "train")
-            for source in pc.unique(batch["source"]).to_pylist():
-                mine = pc.equal(batch["source"], source)
-                dropped = pc.and_(mine, duplicate_mask(duplicates, source, batch["offset"]))
-                keep = pc.and_(keep, pc.invert(dropped))
-            rows = batch.filter(keep)
-            if rows.num_rows:
-                yield path, rows[column].combine_chunks()
+        rows = read_part(path, "train", 0, 1, ["source", "offset", column])
+        if not rows.num_rows:
+            continue
+        source = rows["source"][0].as_py()
+        rows = rows.filter(pc.invert(duplicate_mask(duplicates, source, rows["offset"]))).sort_by("offset")
+        for start in range(0, rows.num_rows, BATCH_ROWS):
+            yield path, rows[column].slice(start, BATCH_ROWS).combine_chunks()
 
 
 def train_token_batches(prepared: Sequence[str], duplicates: pa.Table, vocabulary: pa.Array) -> Iterator[np.ndarray]:

@@ -1,4 +1,9 @@
-"""Shards: gather one part of one split from every chunk and write its Parquet files.
+"""Shards: gather one part of one split from every chunk, as ids, and write its Parquet files.
+
+Word units: the job reads its part's slice of every prepared chunk (`steps.split.read_part`),
+leaves out removed duplicates and maps tokens to ids with the vocabulary, counting tokens, OOV
+tokens and unknown classes per input file for the coverage statistics. Subword units: it reads
+the parts the encode step wrote with the sentencepiece model.
 
 Train parts order their documents by the seeded hash `order` (so chunking never matters),
 cut rows, and shuffle them with a seeded permutation; a part holds only its own documents
@@ -17,15 +22,18 @@ from __future__ import annotations
 
 import argparse
 import json
-from collections.abc import Iterator
+from collections.abc import Iterable, Iterator
 from dataclasses import dataclass
 
 import numpy as np
 import pyarrow as pa
+import pyarrow.compute as pc
 import pyarrow.parquet as pq
 
-from steps.storage import ParquetSink, write_json
-from steps.vocab import BOS, EOS, PAD, Vocabulary, read_vocabulary
+from steps.encode import ENCODED_SCHEMA
+from steps.split import duplicate_mask, order_keys, read_part
+from steps.storage import ParquetSink, rebased_offsets, write_json
+from steps.vocab import BOS, EOS, PAD, Lookup, Vocabulary, read_vocabulary
 from steps.windows import CorpusBlocks, document_blocks, document_streams, ngram_windows
 
 ID_TYPES = {"uint16": pa.uint16(), "uint32": pa.uint32(), "int64": pa.int64()}
@@ -141,11 +149,53 @@ def _metadata(split: str, kind: str, part: int, vocabulary: Vocabulary, windows:
     return {b"corpusmill": json.dumps(value, sort_keys=True).encode("utf-8")}
 
 
-def _read(paths: list[str]) -> Iterator[pa.Table]:
+def encoded_parts(paths: list[str]) -> Iterator[pa.Table]:
+    """The encode step's part files (subword units), in bounded batches."""
     for path in paths:
         parquet = pq.ParquetFile(path)
         for batch in parquet.iter_batches(batch_size=2048):
             yield pa.Table.from_batches([batch])
+
+
+class TokenIds:
+    """Maps prepared token lists to id lists and counts, per input file, tokens, OOV tokens and
+    each unknown class (word units)."""
+
+    def __init__(self, vocabulary: Vocabulary, unknown: str) -> None:
+        self._lookup = Lookup(vocabulary, unknown)
+        self._unknown_ids = np.array(sorted(vocabulary.unknown_ids().values()), dtype=np.int64)
+        self.sources: dict[str, dict] = {}
+
+    def encode(self, source: str, tokens: pa.ChunkedArray) -> pa.ListArray:
+        nested = tokens.combine_chunks()
+        sentences = nested.flatten()
+        ids = self._lookup.ids(sentences.flatten())
+        figures = self.sources.setdefault(source, {"tokens": 0, "oov_tokens": 0, "unknown": {}})
+        unknown = ids[np.isin(ids, self._unknown_ids)]
+        figures["tokens"] += len(ids)
+        figures["oov_tokens"] += len(unknown)
+        values, counts = np.unique(unknown, return_counts=True)
+        for value, count in zip(values.tolist(), counts.tolist()):
+            figures["unknown"][str(value)] = figures["unknown"].get(str(value), 0) + count
+        inner = pa.ListArray.from_arrays(rebased_offsets(sentences), pa.array(ids.astype(np.uint32), pa.uint32()))
+        return pa.ListArray.from_arrays(rebased_offsets(nested), inner)
+
+
+def prepared_parts(
+    paths: list[str], split: str, part: int, parts: int, duplicates: pa.Table, token_ids: TokenIds, seed: int
+) -> Iterator[pa.Table]:
+    """One part of a split as id tables (doc_id, order, sentences), chunk by chunk in corpus
+    order, each chunk's documents in corpus order, removed duplicates left out (word units)."""
+    for path in paths:
+        rows = read_part(path, split, part, parts, ["doc_id", "source", "offset", "tokens"])
+        if not rows.num_rows:
+            continue
+        source = rows["source"][0].as_py()
+        rows = rows.filter(pc.invert(duplicate_mask(duplicates, source, rows["offset"]))).sort_by("offset")
+        if not rows.num_rows:
+            continue
+        order = pa.array(order_keys(rows["doc_id"].to_pylist(), seed), pa.uint64())
+        yield pa.Table.from_arrays([rows["doc_id"], order, token_ids.encode(source, rows["tokens"])], schema=ENCODED_SCHEMA)
 
 
 class RowGroups:
@@ -176,9 +226,10 @@ class RowGroups:
 
 
 def write_part(
-    split: str, part: int, inputs: list[str], outputs: dict[str, str], vocabulary: Vocabulary, config: dict
+    split: str, part: int, inputs: Iterable[pa.Table], outputs: dict[str, str], vocabulary: Vocabulary, config: dict
 ) -> dict:
-    """Write one part's shard files; returns rows per kind and document/sentence/token counts."""
+    """Write one part's shard files from its id tables (doc_id, order, sentences); returns rows
+    per kind and document/sentence/token counts."""
     windows, shards = config["windows"], config["shards"]
     ids = id_type(shards["id_type"], vocabulary.size)
     cutter = RowCutter(windows, vocabulary, np.dtype(ids.to_pandas_dtype()))
@@ -186,12 +237,12 @@ def write_part(
     # No dictionary pages: id columns do not shrink by them, and without them the files write
     # and read faster (reading the train shards: 56 → 78 M ids per CPU-second, measured).
     codec = {"compression": shards["compression"], "level": shards["compression_level"], "dictionary": False}
-    stats = {"documents": 0, "sentences": 0, "tokens": 0, "rows": dict.fromkeys(outputs, 0)}
+    stats = {"split": split, "part": part, "documents": 0, "sentences": 0, "tokens": 0, "rows": dict.fromkeys(outputs, 0)}
     sinks = {kind: ParquetSink(path, schemas[kind], **codec) for kind, path in outputs.items()}
     group = shards["row_group_rows"]
     try:
         if split == "train":
-            parts = [pq.read_table(p) for p in inputs]
+            parts = list(inputs)
             table = pa.concat_tables(parts) if parts else None
             if table is not None and table.num_rows:
                 table = table.sort_by([("order", "ascending"), ("doc_id", "ascending")])
@@ -207,7 +258,7 @@ def write_part(
                         sink.write(whole.slice(start, group))
         else:
             groups = {kind: RowGroups(sink, group) for kind, sink in sinks.items()}
-            for table in _read(inputs):
+            for table in inputs:
                 _count(stats, table)
                 rows = cutter.cut(table)
                 for kind in sinks:
@@ -240,14 +291,28 @@ def main(argv: list[str] | None = None) -> None:
     parser.add_argument("--split", required=True)
     parser.add_argument("--part", type=int, required=True)
     parser.add_argument("--vocabulary", required=True)
+    parser.add_argument("--duplicates", help="removed duplicates (word units)")
     parser.add_argument("--options", required=True)
     parser.add_argument("--stats", required=True)
     parser.add_argument("--output", action="append", default=[], help="KIND=PATH, once per enabled kind")
-    parser.add_argument("inputs", nargs="*", help="encoded part files of every chunk, in corpus order")
+    parser.add_argument(
+        "inputs", nargs="*", help="in corpus order: prepared chunk tables (word units) or this part's encoded files (subword units)"
+    )
     args = parser.parse_args(argv)
+    config = json.loads(args.options)
     outputs = dict(item.split("=", 1) for item in args.output)
-    stats = write_part(args.split, args.part, args.inputs, outputs, read_vocabulary(args.vocabulary), json.loads(args.options))
-    write_json(args.stats, stats)
+    vocabulary = read_vocabulary(args.vocabulary)
+    if config["units"] == "subword":
+        write_json(args.stats, write_part(args.split, args.part, encoded_parts(args.inputs), outputs, vocabulary, config))
+        return
+    if not args.duplicates:
+        raise SystemExit("corpusmill: shards: units = word needs --duplicates")
+    shards = config["shards"]
+    parts = shards["train_files"] if args.split == "train" else shards["heldout_files"]
+    token_ids = TokenIds(vocabulary, config["vocabulary"]["unknown"])
+    tables = prepared_parts(args.inputs, args.split, args.part, parts, pq.read_table(args.duplicates), token_ids, shards["seed"])
+    stats = write_part(args.split, args.part, tables, outputs, vocabulary, config)
+    write_json(args.stats, {**stats, "sources": dict(sorted(token_ids.sources.items()))})
 
 
 if __name__ == "__main__":

@@ -1,7 +1,10 @@
-"""Split: train/dev/test by a salted hash of a document key, and removal of exact duplicates.
+"""Split: train/dev/test by a salted hash of a document key, shard parts by a hash of the
+document id, and removal of exact duplicates.
 
 A document's split depends only on its key (by default its cleaned text) and the salt, so
 adding documents never moves existing ones, and exact duplicates always land together.
+Its shard part depends only on its id: parts are equal ranges of the unseeded 64-bit
+`doc_hash`, so prepared chunks stored in `doc_hash` order give each part a contiguous slice.
 Duplicates are then removed across the whole corpus: the first by (path, offset) is kept.
 """
 
@@ -49,12 +52,68 @@ def assign_split(key: bytes, salt: str, fractions: dict[str, float]) -> str:
     return SPLITS[-1] if fractions[SPLITS[-1]] > 0 else next(n for n in reversed(SPLITS) if fractions[n] > 0)
 
 
+def doc_hash(doc_id: str) -> int:
+    """The unseeded 64-bit hash of a document id that places it in a shard part."""
+    return int.from_bytes(hashlib.blake2b(doc_id.encode("utf-8"), digest_size=8).digest(), "big")
+
+
+def part_bounds(parts: int) -> list[int]:
+    """The `doc_hash` ranges of `parts` equal parts: part p holds [bounds[p], bounds[p + 1]),
+    i.e. the hashes h with floor(h * parts / 2**64) = p."""
+    return [-(-(p << 64) // parts) for p in range(parts)] + [1 << 64]
+
+
+def part_of(hashes: np.ndarray, parts: int) -> np.ndarray:
+    """The part of each `doc_hash` (uint64 array)."""
+    inner = np.array(part_bounds(parts)[1:-1], dtype=np.uint64)
+    return np.searchsorted(inner, hashes, side="right")
+
+
+def read_part(path: str, split: str, part: int, parts: int, columns: list[str]) -> pa.Table:
+    """The rows of one split and part of a chunk table, reading only the row groups that can
+    hold them (by their `split` and `doc_hash` statistics)."""
+    low, high = part_bounds(parts)[part : part + 2]
+    parquet = pq.ParquetFile(path)
+    names = parquet.schema_arrow.names
+    split_column, hash_column = names.index("split"), names.index("doc_hash")
+    wanted = []
+    for group in range(parquet.num_row_groups):
+        meta = parquet.metadata.row_group(group)
+        split_stats, hash_stats = meta.column(split_column).statistics, meta.column(hash_column).statistics
+        if split_stats is not None and split_stats.has_min_max and not split_stats.min <= split <= split_stats.max:
+            continue
+        if hash_stats is not None and hash_stats.has_min_max and (hash_stats.max < low or hash_stats.min >= high):
+            continue
+        wanted.append(group)
+    read = sorted({*columns, "doc_hash"})
+    table = parquet.read_row_groups(wanted, columns=read) if wanted else parquet.schema_arrow.empty_table().select(read)
+    hashes = table["doc_hash"].to_numpy()
+    inside = (hashes >= np.uint64(low)) & (hashes <= np.uint64(high - 1))
+    return table.filter(pa.array(inside)).select(columns)
+
+
+def order_keys(doc_ids: list[str], seed: int) -> np.ndarray:
+    """A seeded 64-bit hash per document id: the order of train documents inside their part."""
+    salt = seed.to_bytes(8, "big")
+    return np.array(
+        [int.from_bytes(hashlib.blake2b(d.encode("utf-8"), digest_size=8, key=salt).digest(), "big") for d in doc_ids],
+        dtype=np.uint64,
+    )
+
+
 def _fingerprint_words(path: str) -> np.ndarray:
-    """The 16-byte fingerprints of a prepared chunk as an (n, 2) uint64 array."""
-    column = pq.read_table(path, columns=["fingerprint"])["fingerprint"].combine_chunks()
+    """The 16-byte fingerprints of a prepared chunk as an (n, 2) uint64 array, in corpus
+    (offset) order; prepared rows are stored in split and `doc_hash` order."""
+    table = pq.read_table(path, columns=["offset", "fingerprint"])
+    column = table["fingerprint"].combine_chunks()
     if not len(column):
         return np.empty((0, 2), np.uint64)
-    return np.frombuffer(column.buffers()[1], dtype=np.uint64, count=2 * len(column), offset=column.offset * 16).reshape(-1, 2)
+    words = np.frombuffer(column.buffers()[1], dtype=np.uint64, count=2 * len(column), offset=column.offset * 16).reshape(-1, 2)
+    return words[_corpus_order(table)]
+
+
+def _corpus_order(table: pa.Table) -> np.ndarray:
+    return np.argsort(table["offset"].to_numpy(), kind="stable")
 
 
 def first_occurrences(words: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
@@ -98,7 +157,8 @@ def find_duplicates(prepared_paths: Sequence[str]) -> pa.Table:
     source, offset, doc_id = {}, {}, {}
     for chunk in np.unique(chunk_of):
         local = wanted[chunk_of == chunk]
-        table = pq.read_table(prepared_paths[chunk], columns=["source", "offset", "doc_id"]).take(local - starts[chunk])
+        table = pq.read_table(prepared_paths[chunk], columns=["source", "offset", "doc_id"])
+        table = table.take(_corpus_order(table)[local - starts[chunk]])
         for row, values in zip(local.tolist(), zip(*(table[c].to_pylist() for c in ("source", "offset", "doc_id")))):
             source[row], offset[row], doc_id[row] = values
     return pa.table(

@@ -9,6 +9,7 @@ from contextlib import contextmanager
 from pathlib import Path
 from typing import Any
 
+import numpy as np
 import pyarrow as pa
 import pyarrow.parquet as pq
 
@@ -84,3 +85,10 @@ class ParquetSink:
 def write_table(path: str | Path, table: pa.Table, **options: Any) -> None:
     with ParquetSink(path, table.schema, **options) as sink:
         sink.write(table)
+
+
+def rebased_offsets(array: pa.ListArray) -> pa.Array:
+    """The offsets of a (possibly sliced) list array, starting at 0: for rebuilding it around
+    a new values array."""
+    offsets = array.offsets.to_numpy()
+    return pa.array((offsets - offsets[0]).astype(np.int32), pa.int32())

@@ -41,12 +41,13 @@ def read(root: Path, name: str, **options: object) -> tuple[list[Document], Tall
 
 
 def prepare(root: Path, name: str, out: Path, **sections: dict) -> tuple[list[dict], dict]:
-    """Run the prepare step on one file; returns its rows and its tally."""
+    """Run the prepare step on one file; returns its rows in corpus order (the table stores them
+    by split and doc_hash) and its tally."""
     config = settings.resolve({"corpus": {"root": str(root), **sections.pop("corpus", {})}, **sections})
     chunk = Chunk(chunk_key(name, 0), name, 0, 1)
     table_path, tally_path = out / "prepared.parquet", out / "tally.json"
     prepare_chunk(str(root), chunk, 1 << 30, config, str(table_path), str(tally_path), frozenset())
-    return pq.read_table(table_path).to_pylist(), json.loads(tally_path.read_text())
+    return pq.read_table(table_path).sort_by("offset").to_pylist(), json.loads(tally_path.read_text())
 
 
 def balanced(tally: dict) -> bool:

@@ -94,7 +94,8 @@ def test_growth_curve_equals_a_set_recount_of_the_train_stream(demo_build: Path)
     seen: set[str] = set()
     after: list[int] = [0]
     for path in prepared:
-        for row in pq.read_table(path, columns=["source", "offset", "split", "tokens"]).to_pylist():
+        # Prepared tables store rows by split and doc_hash; corpus order is offset order.
+        for row in pq.read_table(path, columns=["source", "offset", "split", "tokens"]).sort_by("offset").to_pylist():
             if row["split"] != "train" or (row["source"], row["offset"]) in removed:
                 continue
             for token in (t for sentence in row["tokens"] for t in sentence):

@@ -134,7 +134,8 @@ def test_growth_counts_whitespace_words_of_the_train_sentences(subword_run: tupl
     seen: set[str] = set()
     after = [0]
     for path in prepared:
-        for row in pq.read_table(path, columns=["source", "offset", "split", "sentences"]).to_pylist():
+        # Prepared tables store rows by split and doc_hash; corpus order is offset order.
+        for row in pq.read_table(path, columns=["source", "offset", "split", "sentences"]).sort_by("offset").to_pylist():
             if row["split"] != "train" or (row["source"], row["offset"]) in removed:
                 continue
             for word in (w for sentence in row["sentences"] for w in WORD.findall(sentence)):

@@ -7,8 +7,11 @@ import random
 
 import numpy as np
 import pyarrow as pa
+import pyarrow.parquet as pq
 
-from steps.split import assign_split, duplicate_mask, find_duplicates, fingerprint, first_occurrences
+from steps.split import (
+    assign_split, doc_hash, duplicate_mask, find_duplicates, fingerprint, first_occurrences, part_bounds, part_of, read_part,
+)
 from steps.storage import write_table
 
 FRACTIONS = {"train": 0.8, "dev": 0.1, "test": 0.1}
@@ -78,3 +81,63 @@ def test_first_occurrences_match_a_first_seen_dict():
     rows, owners = first_occurrences(words)
     assert list(zip(rows.tolist(), owners.tolist())) == expected
     assert first_occurrences(np.empty((0, 2), np.uint64))[0].size == 0
+
+
+def test_duplicates_follow_offsets_not_storage_order(tmp_path):
+    """Prepared chunks store rows by split and doc_hash; "first" still means first by offset."""
+    write_table(tmp_path / "a.parquet", pa.table({
+        "source": ["a.txt"] * 3, "offset": [80, 0, 40], "doc_id": ["a.txt:80", "a.txt:0", "a.txt:40"],
+        "fingerprint": pa.array([fingerprint(t) for t in ["x", "x", "x"]], pa.binary(16)),
+    }))
+    duplicates = find_duplicates([str(tmp_path / "a.parquet")])
+    assert duplicates.to_pylist() == [
+        {"source": "a.txt", "offset": 40, "doc_id": "a.txt:40", "duplicate_of": "a.txt:0"},
+        {"source": "a.txt", "offset": 80, "doc_id": "a.txt:80", "duplicate_of": "a.txt:0"},
+    ]
+
+
+def test_parts_are_equal_ranges_of_the_doc_hash():
+    """Reference: part = floor(h * parts / 2**64) in exact integer arithmetic."""
+    rng = random.Random(3)
+    edges = [0, 1, (1 << 63) - 1, 1 << 63, (1 << 64) - 1]
+    for parts in (1, 3, 4, 7, 1000):
+        bounds = part_bounds(parts)
+        hashes = edges + [rng.randrange(1 << 64) for _ in range(2000)] + [b + d for b in bounds[1:-1] for d in (-1, 0, 1)]
+        expected = [h * parts >> 64 for h in hashes]
+        assert part_of(np.array(hashes, dtype=np.uint64), parts).tolist() == expected
+        assert bounds[0] == 0 and bounds[-1] == 1 << 64 and len(bounds) == parts + 1
+
+
+def test_doc_hash_is_blake2b_of_the_id():
+    """Reference: hashlib's BLAKE2b (RFC 7693), 8-byte digest, big-endian."""
+    import hashlib
+
+    assert doc_hash("notes.txt:0") == int.from_bytes(hashlib.blake2b(b"notes.txt:0", digest_size=8).digest(), "big")
+
+
+def test_read_part_returns_exactly_its_part_and_skips_other_row_groups(tmp_path, monkeypatch):
+    from steps import prepare
+    from tests.test_prepare import synthetic_chunk
+
+    monkeypatch.setattr(prepare, "GROUP_TOKENS", 200)
+    table = synthetic_chunk(2000)
+    path = str(tmp_path / "chunk.parquet")
+    prepare.write_chunk_table(path, table, "word")
+    read_groups = []
+    original = pq.ParquetFile.read_row_groups
+    monkeypatch.setattr(pq.ParquetFile, "read_row_groups", lambda self, groups, **kw: read_groups.append(len(groups)) or original(self, groups, **kw))
+    total_groups = pq.ParquetFile(path).num_row_groups
+    rows = table.to_pylist()
+    for split in ("train", "dev", "test"):
+        for parts in (1, 5):
+            seen = []
+            for part in range(parts):
+                got = read_part(path, split, part, parts, ["doc_id", "doc_hash", "tokens"]).to_pylist()
+                assert all(r["doc_hash"] * parts >> 64 == part for r in got)
+                seen += got
+            expected = [{k: r[k] for k in ("doc_id", "doc_hash", "tokens")} for r in rows if r["split"] == split]
+            assert sorted(seen, key=lambda r: r["doc_id"]) == sorted(expected, key=lambda r: r["doc_id"])
+    read_groups.clear()
+    read_part(path, "train", 2, 5, ["doc_id"])
+    # Train holds about 80% of the groups; a fifth of it plus at most one group at either end.
+    assert 0 < read_groups[0] <= total_groups * 0.8 / 5 + 2

@@ -122,6 +122,18 @@ def stream_sentences(build: Path, split: str) -> dict[str, list[list[int]]]:
 # The sample.
 
 
+def test_dev_and_test_streams_keep_corpus_order(workdir: Path) -> None:
+    from steps.split import doc_hash
+    from tests.test_shards import heldout_corpus_order
+
+    build = workdir / "build"
+    for split in ("dev", "test"):
+        streams = pq.read_table(build / "shards" / split / "stream-0000.parquet", columns=["doc_id"])
+        expected = heldout_corpus_order(build, split)
+        assert streams["doc_id"].to_pylist() == expected
+        assert expected != sorted(expected, key=doc_hash), "storage order would pass too"
+
+
 def test_bottom_k_sample_keeps_the_k_smallest_hashes_whatever_the_batching():
     """Python's sorted() over all (hash, sentence) pairs as the reference bottom-k."""
     sentences = [f"sentence number {i % 700} of the sample" for i in range(2000)]
