@@ -187,7 +187,10 @@ def _png(figure: Figure) -> str:
 
 
 def _figure() -> tuple[Figure, object]:
-    figure = Figure(figsize=(8.0, 4.3), layout="constrained")
+    # Fixed margins that fit these plots' tick labels and axis titles: the constrained layout
+    # engine measured every text box again and took 1.3 of the report job's 6.4 s (cProfile).
+    figure = Figure(figsize=(8.0, 4.3))
+    figure.subplots_adjust(left=0.09, right=0.98, bottom=0.12, top=0.97)
     axes = figure.add_subplot()
     axes.grid(True, which="major", color="#dddddd", linewidth=0.6)
     return figure, axes
