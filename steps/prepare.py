@@ -9,8 +9,9 @@ units = word) or `sentences` (list of cleaned sentence strings; units = subword)
 Rows are stored by split, then `doc_hash`, in row groups that never mix splits and hold about
 GROUP_TOKENS tokens each, so a shard job reads only the row groups of its own part
 (`steps.split.read_part`). The chunk's batches are therefore held as Arrow arrays (no Python
-objects) until the chunk is read: about 2.2 bytes per byte of chunk text (a 32 MB chunk of
-English peaked at 265 MiB, 187 MiB when rows were written as they came).
+objects) until the chunk is read, about 2.2 bytes per byte of chunk text, and twice that while
+they are put in order: a 32 MB chunk of English peaked at 374 MiB (187 MiB when rows were
+written as they came; `resources.prepare_mem_mb`).
 """
 
 from __future__ import annotations
@@ -35,7 +36,7 @@ BATCH_CHARS = 4 << 20
 BATCH_DOCUMENTS = 4096
 # Tokens (word units) or sentence bytes / 4 (subword units) per stored row group: small
 # enough that a part's slice of a chunk wastes little of a group, large enough to read fast.
-GROUP_TOKENS = 1 << 16
+GROUP_TOKENS = 1 << 14
 
 
 def chunk_schema(units: str) -> pa.Schema:
@@ -172,7 +173,12 @@ def prepare_chunk(
             pending.append(count_tokens(batch))
             if len(pending) == MERGE_FILES:
                 counts, pending = sum_counts([counts, *pending]), []
-    write_chunk_table(output, pa.concat_tables([preparer.schema.empty_table(), *batches]), preparer.units)
+    # One contiguous copy, the batches freed as soon as it exists: a take from a table of many
+    # chunks would concatenate them on the side, holding the chunk's rows three times.
+    table = pa.concat_tables([preparer.schema.empty_table(), *batches]).combine_chunks()
+    del batches
+    write_chunk_table(output, table, preparer.units)
+    del table
     if counts_path:
         counts = sum_counts([counts, *pending]).sort_by([("split", "ascending"), ("token", "ascending")])
         write_table(counts_path, counts)
@@ -195,25 +201,12 @@ def write_chunk_table(path: str, table: pa.Table, units: str) -> None:
         groups = (weights[start:stop] - base - 1) // GROUP_TOKENS
         bounds.extend((start + np.flatnonzero(np.diff(groups)) + 1).tolist())
     bounds = sorted({*starts, *bounds, len(splits)})
+    # One take of the whole (contiguous) table: cheaper than a take per row group, which
+    # concatenates a chunked table's pieces again on every call (4 s of system time per 32 MB).
+    ordered = table.take(order)
     with ParquetSink(path, table.schema, compression="zstd", level=1) as sink:
         for start, stop in zip(bounds[:-1], bounds[1:]):
-            sink.write(take_rows(table, order.slice(start, stop - start).to_numpy().astype(np.int64)))
-
-
-def take_rows(table: pa.Table, rows: np.ndarray) -> pa.Table:
-    """`table.take(rows)` that copies only the rows taken: Arrow's take on a table of many
-    chunks concatenates them all first (4 s of system time per 32 MB chunk, measured), and
-    concatenating once would double the job's peak memory."""
-    starts = np.cumsum([0] + [len(c) for c in table.column(0).chunks])
-    chunk_of = np.searchsorted(starts, rows, side="right") - 1
-    by_chunk = np.argsort(chunk_of, kind="stable")
-    pieces = []
-    batches = table.to_batches()
-    for chunk in np.unique(chunk_of):
-        local = rows[by_chunk][chunk_of[by_chunk] == chunk] - starts[chunk]
-        pieces.append(pa.Table.from_batches([batches[chunk].take(pa.array(local))]))
-    gathered = pa.concat_tables([table.schema.empty_table(), *pieces]).combine_chunks()
-    return gathered.take(pa.array(np.argsort(by_chunk, kind="stable")))
+            sink.write(ordered.slice(start, stop - start))
 
 
 def _row_weights(table: pa.Table, units: str) -> np.ndarray:
