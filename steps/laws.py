@@ -79,12 +79,14 @@ class GrowthCounter:
         ids = np.asarray(ids, dtype=np.int64)
         if not len(ids):
             return
-        distinct, first = np.unique(ids, return_index=True)
-        if distinct[-1] >= len(self._seen):
-            self._seen = np.concatenate([self._seen, np.zeros(int(distinct[-1]) + 1 - len(self._seen), dtype=bool)])
-        new = ~self._seen[distinct]
-        self._seen[distinct[new]] = True
-        self._first.append(first[new] + self.tokens)
+        largest = int(ids.max())
+        if largest >= len(self._seen):
+            self._seen = np.concatenate([self._seen, np.zeros(largest + 1 - len(self._seen), dtype=bool)])
+        # Only tokens of types not seen before are sorted: late in a stream they are few.
+        unseen = np.flatnonzero(~self._seen[ids])
+        new, first = np.unique(ids[unseen], return_index=True)
+        self._seen[new] = True
+        self._first.append(unseen[first] + self.tokens)
         self.tokens += len(ids)
 
     def types_at(self, positions: np.ndarray) -> np.ndarray:

@@ -153,13 +153,13 @@ def _type_ids(pieces: list[pa.Array], positions: dict[str, int], path: str) -> n
     """Positions of the tokens in the token-count table; only distinct tokens touch Python."""
     encoded = pc.dictionary_encode(pa.concat_arrays(pieces))
     distinct = encoded.dictionary.to_pylist()
-    missing = next((token for token in distinct if token not in positions), None)
-    if missing is not None:
+    found = [positions.get(token, -1) for token in distinct]
+    if -1 in found:
         raise SystemExit(
-            f"corpusmill: {path}: train token {missing!r} is not in stats/token_counts.parquet; "
+            f"corpusmill: {path}: train token {distinct[found.index(-1)]!r} is not in stats/token_counts.parquet; "
             "the counts are older than the prepared chunks: rerun the workflow"
         )
-    return np.array([positions[token] for token in distinct], dtype=np.int64)[encoded.indices.to_numpy(zero_copy_only=False)]
+    return np.array(found, dtype=np.int64)[encoded.indices.to_numpy(zero_copy_only=False)]
 
 
 def coverage_curve(counts: pa.Table, points: int = 300) -> dict[str, np.ndarray]:
