@@ -4,6 +4,10 @@ from __future__ import annotations
 
 import unicodedata
 
+from hypothesis import given, settings
+from hypothesis import strategies as st
+
+from steps import clean
 from steps.clean import CleanOptions, clean_text, normalize, rejection
 
 DEFAULT = CleanOptions()
@@ -49,3 +53,28 @@ def test_filters_name_their_reason():
     assert rejection("a", DEFAULT) == "too_short"
     assert rejection("12 | 14 | 9 | 31 | -- ok", DEFAULT) == "few_letters"
     assert rejection("Fog.", DEFAULT) is None
+
+
+def every_pass(text: str, options: CleanOptions) -> str:
+    """The cleaning passes run unconditionally, in order: the specification the skipping follows."""
+    text = clean._LINE_ENDS.sub("\n", text)
+    if not text.isascii():
+        text = clean._FORMATS.sub("", text)
+        if options.normalization != "none":
+            text = normalize(clean.stream_safe(text), options.normalization)
+    text = clean._CONTROLS.sub(" ", text)
+    text = clean._SPACES.sub(" ", text)
+    text = clean._SPACED_NEWLINE.sub("\n", text)
+    text = clean._NEWLINE_RUNS.sub("\n\n", text).strip()
+    return text
+
+
+# Whitespace, controls and line ends of every kind, ASCII and not, beside plain letters.
+_MIXED = " \t\n\r\x0b\x0c\x1c\x1f\x00\x7fab.\x85\xa0\u2028\u3000\u200b\u00e9e\u0301"
+
+
+@settings(max_examples=3000, deadline=None)
+@given(st.text(alphabet=_MIXED, max_size=40))
+def test_skipped_passes_change_nothing(text: str) -> None:
+    options = CleanOptions()
+    assert clean_text(text, options) == every_pass(text, options)
