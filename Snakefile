@@ -1,9 +1,9 @@
 # corpusmill: raw text folder → cleaned, tokenized, vocabulary-mapped, windowed, split Parquet shards.
 # Stages, in order (rules/*.smk): prepare (per chunk: read, clean, segment, split, count) →
 # deduplicate → vocabulary (for subword units: a sentencepiece model learned on train, then
-# encode per chunk) → shard (per split part; word units map their tokens to ids here) →
-# coverage → manifest → report. The logic of every stage lives in steps/; each rule runs one
-# step through `python -m steps.run`.
+# encode per chunk) → shard (per split part; word units map their tokens to ids here), and
+# beside it growth (the vocabulary growth curve) → coverage → manifest → report. The logic of
+# every stage lives in steps/; each rule runs one step through `python -m steps.run`.
 
 import json
 import sys

@@ -45,6 +45,10 @@ class Layout:
         return self._join("stats", "token_counts.parquet")
 
     @property
+    def growth(self) -> str:
+        return self._join("stats", "growth.json")
+
+    @property
     def report(self) -> str:
         return self._join("report", "index.html")
 

@@ -29,7 +29,8 @@ RULE_MODULES = {
     "shard": ("shards", "windows", "vocab", "split", "encode", "storage"),
     "coverage": ("report", "vocab", "storage"),
     "manifest": ("manifest", "vocab", "settings", "storage"),
-    "report": ("report_page", "laws", "split", "settings", "storage", "vocab"),
+    "growth": ("growth", "laws", "split", "storage", "vocab"),
+    "report": ("report_page", "laws", "settings", "storage", "vocab"),
 }
 
 # The configuration sections each rule reads; changing another section does not rerun it.
@@ -42,6 +43,7 @@ RULE_SECTIONS = {
     "subword_train": ("subword",),
     "shard": ("windows", "shards", "vocabulary", "units"),
     "coverage": ("report", "units"),
+    "growth": ("units",),
     "report": ("report", "windows"),
 }
 

@@ -1,18 +1,14 @@
 """The vocabulary coverage report: one self-contained HTML page per build (build/report/index.html).
 
-It reads the coverage statistics, the manifest, the merged token counts and, for vocabulary
-growth, the train token stream of the prepared chunks in corpus order (duplicates left out,
-exactly what the count step counted). Plots are PNG images embedded as base64, drawn with
-matplotlib's Agg backend without metadata, so the page needs no network and its bytes are the
-same on every run.
+It reads the coverage statistics, the manifest, the merged token counts and the vocabulary
+growth curve (stats/growth.json, steps/growth.py, computed beside the shard jobs). Plots are PNG
+images embedded as base64, drawn with matplotlib's Agg backend without metadata, so the page
+needs no network and its bytes are the same on every run.
 
 Subword mode (coverage.json has `units: subword`) shows what applies to a piece model instead:
 pieces per word and per sentence, the <unk> rate with and without byte fallback (by split and by
 input file, from the encode statistics), the rank-frequency law of the pieces, and vocabulary
-growth measured in whitespace-separated words of the prepared `sentences` column. Growth is not
-measured in pieces because their number is fixed by the model and nearly all of them occur early
-in the stream; words describe the corpus the model has to cover, like the word-mode page. Memory
-for that curve grows with the number of distinct words, never with the number of tokens.
+growth measured in whitespace-separated words (see steps/growth.py).
 """
 
 from __future__ import annotations
@@ -22,7 +18,7 @@ import base64
 import html
 import io
 import json
-from collections.abc import Iterable, Iterator, Sequence
+from collections.abc import Sequence
 
 import matplotlib
 
@@ -30,20 +26,16 @@ matplotlib.use("Agg")
 
 import numpy as np
 import pyarrow as pa
-import pyarrow.compute as pc
 import pyarrow.parquet as pq
 from matplotlib.figure import Figure
 from matplotlib.ticker import PercentFormatter
 
-from steps.laws import FLOAT32_BYTES, ModelSize, PowerFit, fit_heaps, fit_zipf, growth_curve, log_points
+from steps.laws import FLOAT32_BYTES, ModelSize, PowerFit, fit_heaps, fit_zipf, log_points
 from steps.layout import SPLITS
 from steps.settings import read_json
-from steps.split import duplicate_mask, read_part
 from steps.storage import write_text
 from steps.vocab import escape
 
-BATCH_TOKENS = 1 << 20
-BATCH_ROWS = 4096
 COLOURS = {"train": "#1f5f8b", "dev": "#d9822b", "test": "#3a8f4b"}
 STYLE = """
 body{font-family:system-ui,-apple-system,"Segoe UI",sans-serif;max-width:62rem;margin:2rem auto;padding:0 1rem;color:#1b1f24;line-height:1.45}
@@ -57,79 +49,6 @@ figure{margin:1rem 0} figure img{max-width:100%;height:auto;border:1px solid #ea
 
 
 # ---------------------------------------------------------------- data
-
-
-def _train_rows(prepared: Sequence[str], duplicates: pa.Table, column: str) -> Iterator[tuple[str, pa.Array]]:
-    """(chunk path, `column` of its kept train documents) in corpus order, a chunk at a time in
-    slices of BATCH_ROWS documents (prepare stores rows by split and doc_hash)."""
-    for path in prepared:
-        rows = read_part(path, "train", 0, 1, ["source", "offset", column])
-        if not rows.num_rows:
-            continue
-        source = rows["source"][0].as_py()
-        rows = rows.filter(pc.invert(duplicate_mask(duplicates, source, rows["offset"]))).sort_by("offset")
-        for start in range(0, rows.num_rows, BATCH_ROWS):
-            yield path, rows[column].slice(start, BATCH_ROWS).combine_chunks()
-
-
-def train_token_batches(prepared: Sequence[str], duplicates: pa.Table, vocabulary: pa.Array) -> Iterator[np.ndarray]:
-    """Type ids (positions in `vocabulary`) of the train tokens in corpus order, in bounded batches."""
-    positions = {token: i for i, token in enumerate(vocabulary.to_pylist())}
-    pending: list[pa.Array] = []
-    size = 0
-    last = None
-    for path, tokens in _train_rows(prepared, duplicates, "tokens"):
-        if pending and path != last:
-            yield _type_ids(pending, positions, last)
-            pending, size = [], 0
-        last = path
-        tokens = pc.list_flatten(pc.list_flatten(tokens))
-        pending.append(tokens)
-        size += len(tokens)
-        if size >= BATCH_TOKENS:
-            yield _type_ids(pending, positions, path)
-            pending, size = [], 0
-    if pending:
-        yield _type_ids(pending, positions, last)
-
-
-def whitespace_words(sentences: pa.Array) -> pa.Array:
-    """The runs of non-space characters of each sentence, in order: the same RE2 `\\S+` runs the
-    encode step counts as words, so their total equals coverage.json's `words`."""
-    parts = pc.list_flatten(pc.split_pattern_regex(sentences, r"\s+"))
-    return parts.filter(pc.greater(pc.binary_length(parts), 0))
-
-
-def train_word_batches(prepared: Sequence[str], duplicates: pa.Table) -> Iterator[pa.Array]:
-    """Whitespace words of the train sentences in corpus order (subword mode), in bounded batches."""
-    pending: list[pa.Array] = []
-    size = 0
-    for _, sentences in _train_rows(prepared, duplicates, "sentences"):
-        words = whitespace_words(pc.list_flatten(sentences))
-        pending.append(words)
-        size += len(words)
-        if size >= BATCH_TOKENS:
-            yield pa.concat_arrays(pending)
-            pending, size = [], 0
-    if pending:
-        yield pa.concat_arrays(pending)
-
-
-def word_growth(batches: Iterable[pa.Array], points: int = 400) -> tuple[np.ndarray, np.ndarray]:
-    """(words read, distinct words seen) at log-spaced positions of a stream of string batches.
-
-    Each word gets an id on first sight, then laws.growth_curve counts; each batch is
-    dictionary-encoded, so Python touches only its distinct words.
-    """
-    ids: dict[str, int] = {}
-
-    def id_batches() -> Iterator[np.ndarray]:
-        for words in batches:
-            encoded = pc.dictionary_encode(words)
-            distinct = np.array([ids.setdefault(word, len(ids)) for word in encoded.dictionary.to_pylist()], dtype=np.int64)
-            yield distinct[encoded.indices.to_numpy(zero_copy_only=False)]
-
-    return growth_curve(id_batches(), points=points)
 
 
 def source_figures(encode_stats: Sequence[dict]) -> dict[str, dict]:
@@ -147,19 +66,6 @@ def source_figures(encode_stats: Sequence[dict]) -> dict[str, dict]:
             without_fallback = t["tokens"] - t["byte_pieces"] + t["byte_runs"]
             t["unknown_rate_without_byte_fallback"] = (t["oov_tokens"] + t["byte_runs"]) / without_fallback if without_fallback else 0.0
     return dict(sorted(totals.items()))
-
-
-def _type_ids(pieces: list[pa.Array], positions: dict[str, int], path: str) -> np.ndarray:
-    """Positions of the tokens in the token-count table; only distinct tokens touch Python."""
-    encoded = pc.dictionary_encode(pa.concat_arrays(pieces))
-    distinct = encoded.dictionary.to_pylist()
-    found = [positions.get(token, -1) for token in distinct]
-    if -1 in found:
-        raise SystemExit(
-            f"corpusmill: {path}: train token {distinct[found.index(-1)]!r} is not in stats/token_counts.parquet; "
-            "the counts are older than the prepared chunks: rerun the workflow"
-        )
-    return np.array(found, dtype=np.int64)[encoded.indices.to_numpy(zero_copy_only=False)]
 
 
 def coverage_curve(counts: pa.Table, points: int = 300) -> dict[str, np.ndarray]:
@@ -541,30 +447,32 @@ def render_subword(
     return page(sections, f"{splits['train']['pieces']:,} train pieces, subword model of {size:,} ids", manifest)
 
 
-def build_page(coverage_path: str, manifest_path: str, counts_path: str, duplicates_path: str,
-               prepared: Sequence[str], options: dict, encode_stats: Sequence[str] = ()) -> str:
+def read_growth(path: str) -> tuple[np.ndarray, np.ndarray]:
+    """(stream positions, distinct types seen) from stats/growth.json."""
+    growth = read_json(path)
+    return np.array(growth["read"], dtype=np.int64), np.array(growth["distinct"], dtype=np.int64)
+
+
+def build_page(coverage_path: str, manifest_path: str, counts_path: str, growth_path: str,
+               options: dict, encode_stats: Sequence[str] = ()) -> str:
     coverage = read_json(coverage_path)
     counts = pq.read_table(counts_path)
-    duplicates = pq.read_table(duplicates_path)
+    read, distinct = read_growth(growth_path)
     if coverage.get("units") == "subword":
-        words, types = word_growth(train_word_batches(prepared, duplicates))
         return render_subword(
             coverage,
             read_json(manifest_path),
             fit_zipf(counts["train"].to_numpy()),
-            (words, types, fit_heaps(words, types)),
+            (read, distinct, fit_heaps(read, distinct)),
             source_figures([read_json(path) for path in encode_stats]),
             options,
         )
-    vocabulary = counts["token"].combine_chunks()
-    batches = train_token_batches(prepared, duplicates, vocabulary)
-    tokens, types = growth_curve(batches, len(vocabulary))
     return render(
         coverage,
         read_json(manifest_path),
         coverage_curve(counts),
         fit_zipf(counts["train"].to_numpy()),
-        (tokens, types, fit_heaps(tokens, types)),
+        (read, distinct, fit_heaps(read, distinct)),
         options,
     )
 
@@ -574,15 +482,13 @@ def main(argv: list[str] | None = None) -> None:
     parser.add_argument("--coverage", required=True)
     parser.add_argument("--manifest", required=True)
     parser.add_argument("--token-counts", required=True)
-    parser.add_argument("--duplicates", required=True)
+    parser.add_argument("--growth", required=True, help="stats/growth.json")
     parser.add_argument("--encode-stats", action="append", default=[],
                         help="per-chunk encode statistics (subword units: <unk> rates by source file); repeat per chunk")
     parser.add_argument("--options", required=True, help="JSON with the report and windows sections")
     parser.add_argument("--output", required=True)
-    parser.add_argument("prepared", nargs="*", help="prepared chunk files in corpus order")
     args = parser.parse_args(argv)
-    page_text = build_page(args.coverage, args.manifest, args.token_counts, args.duplicates, args.prepared,
-                           json.loads(args.options), args.encode_stats)
+    page_text = build_page(args.coverage, args.manifest, args.token_counts, args.growth, json.loads(args.options), args.encode_stats)
     write_text(args.output, page_text)
     print(f"report: {args.output} ({len(page_text):,} bytes)")
 

@@ -9,12 +9,11 @@ import struct
 from pathlib import Path
 
 import numpy as np
-import pyarrow as pa
 import pyarrow.parquet as pq
 import pytest
 
-from steps.laws import ModelSize, growth_curve
-from steps.report_page import coverage_curve, main, table, train_token_batches
+from steps.laws import ModelSize
+from steps.report_page import coverage_curve, main, table
 
 PNG_SIGNATURE = b"\x89PNG\r\n\x1a\n"
 OPTIONS = {"report": {"embedding_widths": [100, 300, 1000], "hidden_width": 100, "top_oov": 25}, "windows": {"ngram": {"n": 4}}}
@@ -43,11 +42,10 @@ def corpus_order(build: Path) -> list[str]:
 
 
 def page_arguments(build: Path, output: Path) -> list[str]:
-    prepared = corpus_order(build)
     return [
         "--coverage", str(build / "stats" / "coverage.json"), "--manifest", str(build / "manifest.json"),
-        "--token-counts", str(build / "stats" / "token_counts.parquet"), "--duplicates", str(build / "interim" / "duplicates.parquet"),
-        "--options", json.dumps(OPTIONS), "--output", str(output), *prepared,
+        "--token-counts", str(build / "stats" / "token_counts.parquet"), "--growth", str(build / "stats" / "growth.json"),
+        "--options", json.dumps(OPTIONS), "--output", str(output),
     ]
 
 
@@ -86,27 +84,6 @@ def test_report_page_shows_the_build_figures(demo_build: Path) -> None:
     assert re.search(r"Zipf exponent s = \d\.\d{3}", page) and re.search(r"β = 0\.\d{3}", page)
 
 
-def test_growth_curve_equals_a_set_recount_of_the_train_stream(demo_build: Path) -> None:
-    """Brute force: distinct train tokens after each prefix of the prepared chunks in corpus order
-    (duplicates left out), counted with a Python set."""
-    removed = {(r["source"], r["offset"]) for r in pq.read_table(demo_build / "interim" / "duplicates.parquet").to_pylist()}
-    prepared = corpus_order(demo_build)
-    seen: set[str] = set()
-    after: list[int] = [0]
-    for path in prepared:
-        # Prepared tables store rows by split and doc_hash; corpus order is offset order.
-        for row in pq.read_table(path, columns=["source", "offset", "split", "tokens"]).sort_by("offset").to_pylist():
-            if row["split"] != "train" or (row["source"], row["offset"]) in removed:
-                continue
-            for token in (t for sentence in row["tokens"] for t in sentence):
-                seen.add(token)
-                after.append(len(seen))
-    vocabulary = pq.read_table(demo_build / "stats" / "token_counts.parquet")["token"].combine_chunks()
-    tokens, types = growth_curve(train_token_batches(prepared, pq.read_table(demo_build / "interim" / "duplicates.parquet"), vocabulary), len(vocabulary))
-    assert tokens[-1] == len(after) - 1
-    assert types.tolist() == [after[n] for n in tokens]
-
-
 def test_coverage_curve_agrees_with_the_size_table(demo_build: Path) -> None:
     """coverage.json's size table (itself checked against a Counter recount in test_whatif) at the curve's sizes."""
     counts = pq.read_table(demo_build / "stats" / "token_counts.parquet")
@@ -123,10 +100,3 @@ def test_table_cells_escape_html() -> None:
     """HTML escaping: tokens such as <b> or & show as text, never as markup."""
     cell = table(["word"], [["<b>&"]])
     assert "&lt;b&gt;&amp;" in cell and "<b>&" not in cell
-
-
-def test_stale_counts_are_reported_with_the_file_and_the_fix(tmp_path: Path, demo_build: Path) -> None:
-    """Error messages name the file and the fix (project convention)."""
-    prepared = sorted(str(p) for p in (demo_build / "interim" / "prepared").glob("*.parquet"))[:1]
-    with pytest.raises(SystemExit, match=r"\.parquet: train token .* rerun the workflow"):
-        list(train_token_batches(prepared, pq.read_table(demo_build / "interim" / "duplicates.parquet"), pa.array(["the"])))

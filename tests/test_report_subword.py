@@ -25,7 +25,8 @@ from conftest import DEMO, require_file, run_workflow
 from test_report_browser import CHROMIUM, DevTools, start_chromium, websocket_module
 from test_report_page import OPTIONS, corpus_order, png_chunks
 from steps.laws import ModelSize, fit_zipf
-from steps.report_page import main, source_figures, train_word_batches, whitespace_words, word_growth
+from steps.growth import train_word_batches, whitespace_words, word_growth
+from steps.report_page import main, source_figures
 from steps.vocab import read_vocabulary
 
 OVERRIDES = {"corpus": {"root": str(DEMO)}, "units": "subword", "subword": {"vocab_size": 500}}
@@ -144,6 +145,8 @@ def test_growth_counts_whitespace_words_of_the_train_sentences(subword_run: tupl
     words, types = word_growth(train_word_batches(prepared, duplicates))
     assert words[-1] == len(after) - 1 == json.loads((build / "stats" / "coverage.json").read_text())["splits"]["train"]["words"]
     assert types.tolist() == [after[n] for n in words]
+    growth = json.loads((build / "stats" / "growth.json").read_text())
+    assert (growth["read"], growth["distinct"]) == (words.tolist(), types.tolist())
     assert f"of {len(after) - 1:,} words; {len(seen):,} distinct words" in (build / "report" / "index.html").read_text(encoding="utf-8")
 
 
@@ -178,8 +181,8 @@ def test_subword_page_is_self_contained_and_byte_identical_when_written_again(su
     stats_arguments = [a for p in encode_stats(build) for a in ("--encode-stats", str(p))]
     main([
         "--coverage", str(build / "stats" / "coverage.json"), "--manifest", str(build / "manifest.json"),
-        "--token-counts", str(build / "stats" / "token_counts.parquet"), "--duplicates", str(build / "interim" / "duplicates.parquet"),
-        *stats_arguments, "--options", json.dumps(OPTIONS), "--output", str(again), *corpus_order(build),
+        "--token-counts", str(build / "stats" / "token_counts.parquet"), "--growth", str(build / "stats" / "growth.json"),
+        *stats_arguments, "--options", json.dumps(OPTIONS), "--output", str(again),
     ])
     assert again.read_bytes() == original
 

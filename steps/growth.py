@@ -1,0 +1,139 @@
+"""Vocabulary growth: distinct types after each prefix of the train stream, for the report's
+Heaps plot and fit (stats/growth.json).
+
+The stream is the train documents of the prepared chunks in corpus order, duplicates left out:
+exactly what the vocabulary counts. Word units count word tokens; subword units count
+whitespace-separated words of the cleaned sentences, not pieces, because the model fixes the
+number of pieces and nearly all of them occur early in the stream, while words describe the
+corpus the model has to cover. Memory grows with the number of distinct types, never with the
+number of tokens. The job runs beside the shard jobs: it needs only the prepared chunks, the
+duplicates and the token counts.
+
+growth.json: `unit` ("words"), `read` (stream positions, log-spaced) and `distinct` (types seen
+among the first `read` tokens), lists of equal length.
+"""
+
+from __future__ import annotations
+
+import argparse
+import json
+from collections.abc import Iterable, Iterator, Sequence
+
+import numpy as np
+import pyarrow as pa
+import pyarrow.compute as pc
+import pyarrow.parquet as pq
+
+from steps.laws import growth_curve
+from steps.split import duplicate_mask, read_part
+from steps.storage import write_json
+
+BATCH_TOKENS = 1 << 20
+BATCH_ROWS = 4096
+
+
+def _train_rows(prepared: Sequence[str], duplicates: pa.Table, column: str) -> Iterator[tuple[str, pa.Array]]:
+    """(chunk path, `column` of its kept train documents) in corpus order, a chunk at a time in
+    slices of BATCH_ROWS documents (prepare stores rows by split and doc_hash)."""
+    for path in prepared:
+        rows = read_part(path, "train", 0, 1, ["source", "offset", column])
+        if not rows.num_rows:
+            continue
+        source = rows["source"][0].as_py()
+        rows = rows.filter(pc.invert(duplicate_mask(duplicates, source, rows["offset"]))).sort_by("offset")
+        for start in range(0, rows.num_rows, BATCH_ROWS):
+            yield path, rows[column].slice(start, BATCH_ROWS).combine_chunks()
+
+
+def train_token_batches(prepared: Sequence[str], duplicates: pa.Table, vocabulary: pa.Array) -> Iterator[np.ndarray]:
+    """Type ids (positions in `vocabulary`) of the train tokens in corpus order, in bounded batches."""
+    positions = {token: i for i, token in enumerate(vocabulary.to_pylist())}
+    pending: list[pa.Array] = []
+    size = 0
+    last = None
+    for path, tokens in _train_rows(prepared, duplicates, "tokens"):
+        if pending and path != last:
+            yield _type_ids(pending, positions, last)
+            pending, size = [], 0
+        last = path
+        tokens = pc.list_flatten(pc.list_flatten(tokens))
+        pending.append(tokens)
+        size += len(tokens)
+        if size >= BATCH_TOKENS:
+            yield _type_ids(pending, positions, path)
+            pending, size = [], 0
+    if pending:
+        yield _type_ids(pending, positions, last)
+
+
+def whitespace_words(sentences: pa.Array) -> pa.Array:
+    """The runs of non-space characters of each sentence, in order: the same RE2 `\\S+` runs the
+    encode step counts as words, so their total equals coverage.json's `words`."""
+    parts = pc.list_flatten(pc.split_pattern_regex(sentences, r"\s+"))
+    return parts.filter(pc.greater(pc.binary_length(parts), 0))
+
+
+def train_word_batches(prepared: Sequence[str], duplicates: pa.Table) -> Iterator[pa.Array]:
+    """Whitespace words of the train sentences in corpus order (subword mode), in bounded batches."""
+    pending: list[pa.Array] = []
+    size = 0
+    for _, sentences in _train_rows(prepared, duplicates, "sentences"):
+        words = whitespace_words(pc.list_flatten(sentences))
+        pending.append(words)
+        size += len(words)
+        if size >= BATCH_TOKENS:
+            yield pa.concat_arrays(pending)
+            pending, size = [], 0
+    if pending:
+        yield pa.concat_arrays(pending)
+
+
+def word_growth(batches: Iterable[pa.Array], points: int = 400) -> tuple[np.ndarray, np.ndarray]:
+    """(words read, distinct words seen) at log-spaced positions of a stream of string batches.
+
+    Each word gets an id on first sight, then laws.growth_curve counts; each batch is
+    dictionary-encoded, so Python touches only its distinct words.
+    """
+    ids: dict[str, int] = {}
+
+    def id_batches() -> Iterator[np.ndarray]:
+        for words in batches:
+            encoded = pc.dictionary_encode(words)
+            distinct = np.array([ids.setdefault(word, len(ids)) for word in encoded.dictionary.to_pylist()], dtype=np.int64)
+            yield distinct[encoded.indices.to_numpy(zero_copy_only=False)]
+
+    return growth_curve(id_batches(), points=points)
+
+
+def _type_ids(pieces: list[pa.Array], positions: dict[str, int], path: str) -> np.ndarray:
+    """Positions of the tokens in the token-count table; only distinct tokens touch Python."""
+    encoded = pc.dictionary_encode(pa.concat_arrays(pieces))
+    distinct = encoded.dictionary.to_pylist()
+    found = [positions.get(token, -1) for token in distinct]
+    if -1 in found:
+        raise SystemExit(
+            f"corpusmill: {path}: train token {distinct[found.index(-1)]!r} is not in stats/token_counts.parquet; "
+            "the counts are older than the prepared chunks: rerun the workflow"
+        )
+    return np.array(found, dtype=np.int64)[encoded.indices.to_numpy(zero_copy_only=False)]
+
+
+def main(argv: list[str] | None = None) -> None:
+    parser = argparse.ArgumentParser(description="Measure vocabulary growth over the train stream of a build.")
+    parser.add_argument("--token-counts", required=True, help="stats/token_counts.parquet (word units)")
+    parser.add_argument("--duplicates", required=True)
+    parser.add_argument("--options", required=True, help="JSON with the units section")
+    parser.add_argument("--output", required=True)
+    parser.add_argument("prepared", nargs="*", help="prepared chunk files in corpus order")
+    args = parser.parse_args(argv)
+    duplicates = pq.read_table(args.duplicates)
+    if json.loads(args.options)["units"] == "subword":
+        read, distinct = word_growth(train_word_batches(args.prepared, duplicates))
+    else:
+        vocabulary = pq.read_table(args.token_counts, columns=["token"])["token"].combine_chunks()
+        read, distinct = growth_curve(train_token_batches(args.prepared, duplicates, vocabulary), len(vocabulary))
+    write_json(args.output, {"unit": "words", "read": read.tolist(), "distinct": distinct.tolist()})
+
+
+if __name__ == "__main__":
+    main()

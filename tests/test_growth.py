@@ -1,0 +1,46 @@
+"""Growth: distinct types after each prefix of the train stream (stats/growth.json)."""
+
+from __future__ import annotations
+
+import json
+from pathlib import Path
+
+import pyarrow as pa
+import pyarrow.parquet as pq
+import pytest
+
+from steps.growth import train_token_batches
+from steps.laws import growth_curve
+from tests.test_report_page import corpus_order
+
+
+def test_growth_curve_equals_a_set_recount_of_the_train_stream(demo_build: Path) -> None:
+    """Brute force: distinct train tokens after each prefix of the prepared chunks in corpus order
+    (duplicates left out), counted with a Python set."""
+    removed = {(r["source"], r["offset"]) for r in pq.read_table(demo_build / "interim" / "duplicates.parquet").to_pylist()}
+    prepared = corpus_order(demo_build)
+    seen: set[str] = set()
+    after: list[int] = [0]
+    for path in prepared:
+        # Prepared tables store rows by split and doc_hash; corpus order is offset order.
+        for row in pq.read_table(path, columns=["source", "offset", "split", "tokens"]).sort_by("offset").to_pylist():
+            if row["split"] != "train" or (row["source"], row["offset"]) in removed:
+                continue
+            for token in (t for sentence in row["tokens"] for t in sentence):
+                seen.add(token)
+                after.append(len(seen))
+    vocabulary = pq.read_table(demo_build / "stats" / "token_counts.parquet")["token"].combine_chunks()
+    tokens, types = growth_curve(train_token_batches(prepared, pq.read_table(demo_build / "interim" / "duplicates.parquet"), vocabulary), len(vocabulary))
+    assert tokens[-1] == len(after) - 1
+    assert types.tolist() == [after[n] for n in tokens]
+    growth = json.loads((demo_build / "stats" / "growth.json").read_text())
+    assert growth == {"unit": "words", "read": tokens.tolist(), "distinct": types.tolist()}
+
+
+
+
+def test_stale_counts_are_reported_with_the_file_and_the_fix(tmp_path: Path, demo_build: Path) -> None:
+    """Error messages name the file and the fix (project convention)."""
+    prepared = sorted(str(p) for p in (demo_build / "interim" / "prepared").glob("*.parquet"))[:1]
+    with pytest.raises(SystemExit, match=r"\.parquet: train token .* rerun the workflow"):
+        list(train_token_batches(prepared, pq.read_table(demo_build / "interim" / "duplicates.parquet"), pa.array(["the"])))
