@@ -61,6 +61,7 @@ _RULES = {
     "report": "coverage",
     "manifest": "manifest",
     "report_page": "report",
+    "growth": "growth",
 }
 
 
