@@ -218,9 +218,9 @@ def _row_weights(table: pa.Table, units: str) -> np.ndarray:
         weights = np.diff(token_ends[sentence_ends])
     else:
         sentences = table["sentences"].combine_chunks()
-        characters = pc.binary_length(sentences.values).to_numpy(zero_copy_only=False).astype(np.int64)
+        sentence_bytes = pc.binary_length(sentences.values).to_numpy(zero_copy_only=False).astype(np.int64)
         ends = sentences.offsets.to_numpy()
-        cumulative = np.concatenate([[0], np.cumsum(characters)])
+        cumulative = np.concatenate([[0], np.cumsum(sentence_bytes)])
         weights = (cumulative[ends[1:]] - cumulative[ends[:-1]]) // 4
     return np.maximum(weights, 1)
 

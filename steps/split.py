@@ -113,6 +113,7 @@ def _fingerprint_words(path: str) -> np.ndarray:
 
 
 def _corpus_order(table: pa.Table) -> np.ndarray:
+    """Row positions of a prepared chunk table by offset: the order of the input file."""
     return np.argsort(table["offset"].to_numpy(), kind="stable")
 
 
