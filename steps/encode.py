@@ -24,7 +24,7 @@ import pyarrow.parquet as pq
 import sentencepiece as spm
 
 from steps.layout import SPLITS
-from steps.split import duplicate_mask, order_keys, part_of, read_part
+from steps.split import kept_part, order_keys, part_of
 from steps.storage import ParquetSink, rebased_offsets, write_json, write_table
 from steps.vocab import RESERVED, UNK
 
@@ -99,7 +99,6 @@ class PieceTally:
 
 def encode_chunk(
     prepared: str,
-    source: str,
     duplicates: pa.Table,
     encoder: PieceEncoder,
     parts: dict[str, int],
@@ -112,10 +111,7 @@ def encode_chunk(
     sinks = {key: ParquetSink(path, ENCODED_SCHEMA, compression="zstd", level=1) for key, path in outputs.items()}
     try:
         for split in SPLITS:
-            # A chunk's rows are stored by split and doc_hash; dev and test keep corpus order.
-            rows_of_split = read_part(prepared, split, 0, 1, ["doc_id", "doc_hash", "offset", "sentences"])
-            rows_of_split = rows_of_split.filter(pc.invert(duplicate_mask(duplicates, source, rows_of_split["offset"])))
-            rows_of_split = rows_of_split.sort_by("offset")
+            rows_of_split = kept_part(prepared, split, 0, 1, duplicates, ["doc_id", "doc_hash", "sentences"])
             for start in range(0, rows_of_split.num_rows, BATCH_ROWS):
                 rows = rows_of_split.slice(start, BATCH_ROWS)
                 encoded = encoder.encode(rows["sentences"])
@@ -172,7 +168,7 @@ def main(argv: list[str] | None = None) -> None:
     encoder = PieceEncoder(args.model, args.threads)
     tally = PieceTally(encoder)
     stats = encode_chunk(
-        args.prepared, args.source, pq.read_table(args.duplicates), encoder, parts, config["shards"]["seed"], outputs, tally
+        args.prepared, pq.read_table(args.duplicates), encoder, parts, config["shards"]["seed"], outputs, tally
     )
     for split in SPLITS:
         stats[split].update(tally.figures[split])

@@ -25,7 +25,7 @@ import pyarrow.compute as pc
 import pyarrow.parquet as pq
 
 from steps.laws import growth_curve
-from steps.split import duplicate_mask, read_part
+from steps.split import kept_part
 from steps.storage import write_json
 
 BATCH_TOKENS = 1 << 20
@@ -36,11 +36,7 @@ def _train_rows(prepared: Sequence[str], duplicates: pa.Table, column: str) -> I
     """(chunk path, `column` of its kept train documents) in corpus order, a chunk at a time in
     slices of BATCH_ROWS documents (prepare stores rows by split and doc_hash)."""
     for path in prepared:
-        rows = read_part(path, "train", 0, 1, ["source", "offset", column])
-        if not rows.num_rows:
-            continue
-        source = rows["source"][0].as_py()
-        rows = rows.filter(pc.invert(duplicate_mask(duplicates, source, rows["offset"]))).sort_by("offset")
+        rows = kept_part(path, "train", 0, 1, duplicates, [column])
         for start in range(0, rows.num_rows, BATCH_ROWS):
             yield path, rows[column].slice(start, BATCH_ROWS).combine_chunks()
 

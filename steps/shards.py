@@ -1,6 +1,6 @@
 """Shards: gather one part of one split from every chunk, as ids, and write its Parquet files.
 
-Word units: the job reads its part's slice of every prepared chunk (`steps.split.read_part`),
+Word units: the job reads its part's slice of every prepared chunk (`steps.split.kept_part`),
 leaves out removed duplicates and maps tokens to ids with the vocabulary, counting tokens, OOV
 tokens and unknown classes per input file for the coverage statistics. Subword units: it reads
 the parts the encode step wrote with the sentencepiece model.
@@ -27,11 +27,10 @@ from dataclasses import dataclass
 
 import numpy as np
 import pyarrow as pa
-import pyarrow.compute as pc
 import pyarrow.parquet as pq
 
 from steps.encode import ENCODED_SCHEMA
-from steps.split import duplicate_mask, order_keys, read_part
+from steps.split import kept_part, order_keys
 from steps.storage import ParquetSink, rebased_offsets, write_json
 from steps.vocab import BOS, EOS, PAD, Lookup, Vocabulary, read_vocabulary
 from steps.windows import CorpusBlocks, document_blocks, document_streams, ngram_windows
@@ -187,13 +186,10 @@ def prepared_parts(
     """One part of a split as id tables (doc_id, order, sentences), chunk by chunk in corpus
     order, each chunk's documents in corpus order, removed duplicates left out (word units)."""
     for path in paths:
-        rows = read_part(path, split, part, parts, ["doc_id", "source", "offset", "tokens"])
+        rows = kept_part(path, split, part, parts, duplicates, ["doc_id", "source", "tokens"])
         if not rows.num_rows:
             continue
         source = rows["source"][0].as_py()
-        rows = rows.filter(pc.invert(duplicate_mask(duplicates, source, rows["offset"]))).sort_by("offset")
-        if not rows.num_rows:
-            continue
         order = pa.array(order_keys(rows["doc_id"].to_pylist(), seed), pa.uint64())
         yield pa.Table.from_arrays([rows["doc_id"], order, token_ids.encode(source, rows["tokens"])], schema=ENCODED_SCHEMA)
 

@@ -92,6 +92,16 @@ def read_part(path: str, split: str, part: int, parts: int, columns: list[str]) 
     return table.filter(pa.array(inside)).select(columns)
 
 
+def kept_part(path: str, split: str, part: int, parts: int, duplicates: pa.Table, columns: list[str]) -> pa.Table:
+    """`read_part` without the removed duplicates, in corpus (offset) order: what every step
+    after deduplication reads of a chunk."""
+    rows = read_part(path, split, part, parts, sorted({*columns, "source", "offset"}))
+    if rows.num_rows:
+        source = rows["source"][0].as_py()  # one input file per chunk
+        rows = rows.filter(pc.invert(duplicate_mask(duplicates, source, rows["offset"]))).sort_by("offset")
+    return rows.select(columns)
+
+
 def order_keys(doc_ids: list[str], seed: int) -> np.ndarray:
     """A seeded 64-bit hash per document id: the order of train documents inside their part."""
     salt = seed.to_bytes(8, "big")

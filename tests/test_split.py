@@ -10,7 +10,8 @@ import pyarrow as pa
 import pyarrow.parquet as pq
 
 from steps.split import (
-    assign_split, doc_hash, duplicate_mask, find_duplicates, fingerprint, first_occurrences, part_bounds, part_of, read_part,
+    assign_split, doc_hash, duplicate_mask, find_duplicates, fingerprint, first_occurrences, kept_part, part_bounds, part_of,
+    read_part,
 )
 from steps.storage import write_table
 
@@ -141,3 +142,20 @@ def test_read_part_returns_exactly_its_part_and_skips_other_row_groups(tmp_path,
     read_part(path, "train", 2, 5, ["doc_id"])
     # Train holds about 80% of the groups; a fifth of it plus at most one group at either end.
     assert 0 < read_groups[0] <= total_groups * 0.8 / 5 + 2
+
+
+def test_kept_part_leaves_out_duplicates_and_keeps_corpus_order(tmp_path):
+    from steps import prepare
+    from tests.test_prepare import synthetic_chunk
+
+    table = synthetic_chunk(300)
+    path = str(tmp_path / "chunk.parquet")
+    prepare.write_chunk_table(path, table, "word")
+    rows = [r for r in table.to_pylist() if r["split"] == "train"]
+    removed = [rows[3], rows[40]]
+    duplicates = pa.table({
+        "source": [r["source"] for r in removed], "offset": [r["offset"] for r in removed],
+        "doc_id": [r["doc_id"] for r in removed], "duplicate_of": ["x", "x"],
+    })
+    kept = kept_part(path, "train", 0, 1, duplicates, ["doc_id", "offset"]).to_pylist()
+    assert kept == [{"doc_id": r["doc_id"], "offset": r["offset"]} for r in rows if r not in removed]
