@@ -117,7 +117,7 @@ def encode_chunk(
                 encoded = encoder.encode(rows["sentences"])
                 _tally(stats[split], encoded)
                 pieces.add(split, rows["sentences"], encoded)
-                order = order_keys(rows["doc_id"].to_pylist(), seed)
+                order = order_keys(rows["doc_hash"].to_numpy(), seed)
                 placed = part_of(rows["doc_hash"].to_numpy(), parts[split])
                 for part in range(parts[split]):
                     mask = placed == part

@@ -42,24 +42,19 @@ def _train_rows(prepared: Sequence[str], duplicates: pa.Table, column: str) -> I
 
 
 def train_token_batches(prepared: Sequence[str], duplicates: pa.Table, vocabulary: pa.Array) -> Iterator[np.ndarray]:
-    """Type ids (positions in `vocabulary`) of the train tokens in corpus order, in bounded batches."""
-    positions = {token: i for i, token in enumerate(vocabulary.to_pylist())}
-    pending: list[pa.Array] = []
+    """Type ids (positions in `vocabulary`) of the train tokens in corpus order, in batches of
+    about BATCH_TOKENS tokens."""
+    pending: list[tuple[str, pa.Array]] = []
     size = 0
-    last = None
     for path, tokens in _train_rows(prepared, duplicates, "tokens"):
-        if pending and path != last:
-            yield _type_ids(pending, positions, last)
-            pending, size = [], 0
-        last = path
         tokens = pc.list_flatten(pc.list_flatten(tokens))
-        pending.append(tokens)
+        pending.append((path, tokens))
         size += len(tokens)
         if size >= BATCH_TOKENS:
-            yield _type_ids(pending, positions, path)
+            yield _type_ids(pending, vocabulary)
             pending, size = [], 0
     if pending:
-        yield _type_ids(pending, positions, last)
+        yield _type_ids(pending, vocabulary)
 
 
 def whitespace_words(sentences: pa.Array) -> pa.Array:
@@ -101,17 +96,25 @@ def word_growth(batches: Iterable[pa.Array], points: int = 400) -> tuple[np.ndar
     return growth_curve(id_batches(), points=points)
 
 
-def _type_ids(pieces: list[pa.Array], positions: dict[str, int], path: str) -> np.ndarray:
-    """Positions of the tokens in the token-count table; only distinct tokens touch Python."""
-    encoded = pc.dictionary_encode(pa.concat_arrays(pieces))
-    distinct = encoded.dictionary.to_pylist()
-    found = [positions.get(token, -1) for token in distinct]
-    if -1 in found:
+def _type_ids(pieces: list[tuple[str, pa.Array]], vocabulary: pa.Array) -> np.ndarray:
+    """Positions of the tokens of (chunk path, tokens) pieces in the token-count table.
+
+    Arrow finds each count-table token among the batch's distinct tokens (hashing the batch's
+    60k distinct tokens beats hashing the table's 300k per batch: 10 against 35 ms, measured),
+    and the result is inverted."""
+    encoded = pc.dictionary_encode(pa.concat_arrays([tokens for _, tokens in pieces]))
+    in_batch = pc.index_in(vocabulary, value_set=encoded.dictionary)
+    present = np.flatnonzero(pc.is_valid(in_batch).to_numpy(zero_copy_only=False))
+    positions = np.full(len(encoded.dictionary), -1, dtype=np.int64)
+    positions[pc.take(in_batch, pa.array(present)).to_numpy()] = present
+    if (positions < 0).any():
+        token = encoded.dictionary[int(np.argmax(positions < 0))]
+        path = next(path for path, tokens in pieces if pc.any(pc.equal(tokens, token)).as_py())
         raise SystemExit(
-            f"corpusmill: {path}: train token {distinct[found.index(-1)]!r} is not in stats/token_counts.parquet; "
+            f"corpusmill: {path}: train token {token.as_py()!r} is not in stats/token_counts.parquet; "
             "the counts are older than the prepared chunks: rerun the workflow"
         )
-    return np.array(found, dtype=np.int64)[encoded.indices.to_numpy(zero_copy_only=False)]
+    return positions[encoded.indices.to_numpy(zero_copy_only=False)]
 
 
 def main(argv: list[str] | None = None) -> None:

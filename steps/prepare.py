@@ -19,6 +19,7 @@ from __future__ import annotations
 import argparse
 import json
 from collections.abc import Iterator
+from itertools import chain
 from pathlib import Path
 
 import numpy as np
@@ -103,11 +104,8 @@ class ChunkPreparer:
         if reason is None:
             if self.units == "word":
                 sentences: list = self.segmenter.segment(text)
-                tokens_before = len(batch.flat)
-                for tokens in sentences:
-                    batch.token_counts.append(len(tokens))
-                    batch.flat.extend(tokens)
-                assert len(batch.flat) - tokens_before == sum(map(len, sentences))
+                batch.token_counts.extend(map(len, sentences))
+                batch.flat.extend(chain.from_iterable(sentences))
             else:
                 sentences = self.segmenter.sentences(text)
                 batch.flat.extend(sentences)

@@ -27,6 +27,7 @@ from dataclasses import dataclass
 
 import numpy as np
 import pyarrow as pa
+import pyarrow.compute as pc
 import pyarrow.parquet as pq
 
 from steps.encode import ENCODED_SCHEMA
@@ -34,6 +35,9 @@ from steps.split import kept_part, order_keys
 from steps.storage import ParquetSink, rebased_offsets, write_json
 from steps.vocab import BOS, EOS, PAD, Lookup, Vocabulary, read_vocabulary
 from steps.windows import CorpusBlocks, document_blocks, document_streams, ngram_windows
+
+# Tokens per vocabulary lookup in dev and test parts (train looks its whole part up at once).
+LOOKUP_TOKENS = 1 << 20
 
 ID_TYPES = {"uint16": pa.uint16(), "uint32": pa.uint32(), "int64": pa.int64()}
 
@@ -89,14 +93,15 @@ class RowCutter:
             else None
         )
 
-    def cut(self, table: pa.Table) -> Rows:
+    def cut(self, table: pa.Table, shuffle: np.random.Generator | None = None) -> Rows:
+        """The rows of a batch of documents; with `shuffle`, n-gram windows in a random order."""
         nested = table["sentences"].combine_chunks()
         sentences = nested.flatten()
         ids = sentences.flatten().to_numpy().astype(self.dtype)
         sentence_lengths = np.diff(sentences.offsets.to_numpy()).astype(np.int64)
         per_doc = np.diff(nested.offsets.to_numpy()).astype(np.int64)
         eos = self.eos if self.ngram["predict_end"] else None
-        context, target = ngram_windows(ids, sentence_lengths, self.ngram["n"], self.bos, eos)
+        context, target = ngram_windows(ids, sentence_lengths, self.ngram["n"], self.bos, eos, shuffle)
         stream, doc_lengths = document_streams(ids, sentence_lengths, per_doc, self.bos, self.eos)
         if self.corpus_blocks is not None:
             blocks = self.corpus_blocks.feed(stream)
@@ -116,16 +121,12 @@ def _fixed(values: np.ndarray, width: int, ids: pa.DataType) -> pa.Array:
     return pa.FixedSizeListArray.from_arrays(flat, width)
 
 
-def kind_table(kind: str, rows: Rows, ids: pa.DataType, schema: pa.Schema, order: np.ndarray | None = None) -> pa.Table:
-    """An Arrow table of one kind's rows, optionally in a given row order."""
+def kind_table(kind: str, rows: Rows, ids: pa.DataType, schema: pa.Schema) -> pa.Table:
+    """An Arrow table of one kind's rows."""
     if kind == "ngram":
-        context, target = rows.context, rows.target
-        if order is not None:
-            context, target = context[order], target[order]
-        columns = [_fixed(context, context.shape[1], ids), pa.array(target, type=ids)]
+        columns = [_fixed(rows.context, rows.context.shape[1], ids), pa.array(rows.target, type=ids)]
     elif kind == "block":
-        blocks = rows.blocks if order is None else rows.blocks[order]
-        columns = [_fixed(blocks, blocks.shape[1], ids)]
+        columns = [_fixed(rows.blocks, rows.blocks.shape[1], ids)]
     else:
         offsets = np.concatenate([[0], np.cumsum(rows.stream_lengths)]).astype(np.int64)
         values = pa.array(rows.streams, type=ids)
@@ -165,16 +166,27 @@ class TokenIds:
         self._unknown_ids = np.array(sorted(vocabulary.unknown_ids().values()), dtype=np.int64)
         self.sources: dict[str, dict] = {}
 
-    def encode(self, source: str, tokens: pa.ChunkedArray) -> pa.ListArray:
-        nested = tokens.combine_chunks()
+    def encode(self, rows: pa.Table) -> pa.ListArray:
+        """The id lists of `rows` (columns source, tokens), which may hold several input files."""
+        nested = rows["tokens"].combine_chunks()
         sentences = nested.flatten()
         ids = self._lookup.ids(sentences.flatten())
-        figures = self.sources.setdefault(source, {"tokens": 0, "oov_tokens": 0, "unknown": {}})
-        unknown = ids[np.isin(ids, self._unknown_ids)]
-        figures["tokens"] += len(ids)
-        figures["oov_tokens"] += len(unknown)
-        values, counts = np.unique(unknown, return_counts=True)
-        for value, count in zip(values.tolist(), counts.tolist()):
+        sources = pc.dictionary_encode(rows["source"].combine_chunks())
+        tokens_per_row = np.diff(np.asarray(sentences.offsets)[np.asarray(rebased_offsets(nested))])
+        source_of_token = np.repeat(sources.indices.to_numpy(zero_copy_only=False), tokens_per_row)
+        names = sources.dictionary.to_pylist()
+        tokens = np.bincount(source_of_token, minlength=len(names))
+        # Unknown ids are the lowest ones after the reserved symbols: one key per (source, id).
+        unknown = ids <= self._unknown_ids[-1]
+        unknown &= np.isin(ids, self._unknown_ids)
+        keys, counts = np.unique(source_of_token[unknown] * (int(self._unknown_ids[-1]) + 1) + ids[unknown], return_counts=True)
+        for code, name in enumerate(names):
+            figures = self.sources.setdefault(name, {"tokens": 0, "oov_tokens": 0, "unknown": {}})
+            figures["tokens"] += int(tokens[code])
+        for key, count in zip(keys.tolist(), counts.tolist()):
+            code, value = divmod(key, int(self._unknown_ids[-1]) + 1)
+            figures = self.sources[names[code]]
+            figures["oov_tokens"] += count
             figures["unknown"][str(value)] = figures["unknown"].get(str(value), 0) + count
         inner = pa.ListArray.from_arrays(rebased_offsets(sentences), pa.array(ids.astype(np.uint32), pa.uint32()))
         return pa.ListArray.from_arrays(rebased_offsets(nested), inner)
@@ -183,15 +195,31 @@ class TokenIds:
 def prepared_parts(
     paths: list[str], split: str, part: int, parts: int, duplicates: pa.Table, token_ids: TokenIds, seed: int
 ) -> Iterator[pa.Table]:
-    """One part of a split as id tables (doc_id, order, sentences), chunk by chunk in corpus
-    order, each chunk's documents in corpus order, removed duplicates left out (word units)."""
+    """One part of a split as id tables (doc_id, order, sentences), chunks in corpus order,
+    each chunk's documents in corpus order, removed duplicates left out (word units).
+
+    Tokens are looked up a batch of chunks at a time: each lookup hashes the vocabulary once,
+    so one per chunk would cost more than the lookup itself. A train part comes as one table
+    (its shard job holds the whole part to shuffle it anyway); dev and test in batches of
+    about LOOKUP_TOKENS tokens, which bounds their memory."""
+    budget = None if split == "train" else LOOKUP_TOKENS
+    pending: list[pa.Table] = []
+    held = 0
     for path in paths:
-        rows = kept_part(path, split, part, parts, duplicates, ["doc_id", "source", "tokens"])
-        if not rows.num_rows:
-            continue
-        source = rows["source"][0].as_py()
-        order = pa.array(order_keys(rows["doc_id"].to_pylist(), seed), pa.uint64())
-        yield pa.Table.from_arrays([rows["doc_id"], order, token_ids.encode(source, rows["tokens"])], schema=ENCODED_SCHEMA)
+        rows = kept_part(path, split, part, parts, duplicates, ["doc_id", "doc_hash", "source", "tokens"])
+        if rows.num_rows:
+            pending.append(rows)
+            held += len(pc.list_flatten(pc.list_flatten(rows["tokens"])))
+        if pending and budget is not None and held >= budget:
+            yield _encoded(pa.concat_tables(pending), token_ids, seed)
+            pending, held = [], 0
+    if pending:
+        yield _encoded(pa.concat_tables(pending), token_ids, seed)
+
+
+def _encoded(rows: pa.Table, token_ids: TokenIds, seed: int) -> pa.Table:
+    order = pa.array(order_keys(rows["doc_hash"].to_numpy(), seed), pa.uint64())
+    return pa.Table.from_arrays([rows["doc_id"], order, token_ids.encode(rows)], schema=ENCODED_SCHEMA)
 
 
 class RowGroups:
@@ -242,14 +270,13 @@ def write_part(
             table = pa.concat_tables(parts) if parts else None
             if table is not None and table.num_rows:
                 table = table.sort_by([("order", "ascending"), ("doc_id", "ascending")])
-                rows = cutter.cut(table)
+                rng = np.random.default_rng([shards["seed"], part])
+                rows = cutter.cut(table, shuffle=rng)
                 rows.blocks = np.concatenate([rows.blocks, cutter.last_blocks()])
                 _count(stats, table)
-                rng = np.random.default_rng([shards["seed"], part])
+                rows.blocks = rows.blocks[rng.permutation(len(rows.blocks))]
                 for kind, sink in sinks.items():
-                    length = {"ngram": len(rows.target), "block": len(rows.blocks), "stream": 0}[kind]
-                    order = rng.permutation(length) if kind != "stream" else None
-                    whole = kind_table(kind, rows, ids, schemas[kind], order)
+                    whole = kind_table(kind, rows, ids, schemas[kind])
                     for start in range(0, whole.num_rows, group):
                         sink.write(whole.slice(start, group))
         else:

@@ -26,9 +26,10 @@ def _within(lengths: np.ndarray) -> np.ndarray:
 
 
 def ngram_windows(
-    ids: np.ndarray, sentence_lengths: np.ndarray, n: int, bos: int, eos: int | None
+    ids: np.ndarray, sentence_lengths: np.ndarray, n: int, bos: int, eos: int | None, shuffle: np.random.Generator | None = None
 ) -> tuple[np.ndarray, np.ndarray]:
-    """(context [rows, n-1], target [rows]) for sentences laid end to end in `ids`."""
+    """(context [rows, n-1], target [rows]) for sentences laid end to end in `ids`, both
+    C-contiguous; with `shuffle`, rows in the order of `shuffle.permutation(rows)`, gathered once."""
     lengths = sentence_lengths.astype(np.int64)
     extra = 1 if eos is not None else 0
     targets = lengths + extra
@@ -40,9 +41,10 @@ def ngram_windows(
         padded[starts + (n - 1) + lengths] = eos
     if not len(padded):
         return np.empty((0, n - 1), ids.dtype), np.empty(0, ids.dtype)
-    windows = sliding_window_view(padded, n)
-    rows = windows[np.repeat(starts, targets) + _within(targets)]
-    return rows[:, : n - 1], rows[:, n - 1]
+    picks = np.repeat(starts, targets) + _within(targets)
+    if shuffle is not None:
+        picks = picks[shuffle.permutation(len(picks))]
+    return sliding_window_view(padded, n - 1)[picks], padded[picks + (n - 1)]
 
 
 def document_streams(

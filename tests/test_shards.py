@@ -50,10 +50,29 @@ def test_token_ids_keep_the_sentence_and_document_structure():
         ["<pad>", "<unk>", "<s>", "</s>", "harbour", "lamp"], [0, 3, 0, 0, 9, 4], ["reserved", "unknown", "reserved", "reserved", "word", "word"]
     )
     token_ids = TokenIds(vocabulary, "single")
-    documents = pa.chunked_array([pa.array([[["lamp", "tide"], ["harbour"]], [["tide", "tide", "lamp"]]], pa.list_(pa.list_(pa.string())))])
-    encoded = token_ids.encode("log.txt", documents)
-    assert encoded.to_pylist() == [[[5, 1], [4]], [[1, 1, 5]]]
-    assert token_ids.sources == {"log.txt": {"tokens": 6, "oov_tokens": 3, "unknown": {"1": 3}}}
+    tokens = pa.array(
+        [[["harbour"]], [["lamp", "tide"], ["harbour"]], [["tide", "tide", "lamp"]], [["mist"], [], ["lamp"]]],
+        pa.list_(pa.list_(pa.string())),
+    )
+    rows = pa.table({"source": ["x.txt", "log.txt", "log.txt", "cove.txt"], "tokens": tokens}).slice(1)
+    encoded = token_ids.encode(rows)
+    assert encoded.to_pylist() == [[[5, 1], [4]], [[1, 1, 5]], [[1], [], [5]]]
+    assert token_ids.sources == {
+        "log.txt": {"tokens": 6, "oov_tokens": 3, "unknown": {"1": 3}},
+        "cove.txt": {"tokens": 2, "oov_tokens": 1, "unknown": {"1": 1}},
+    }
+
+
+def test_token_ids_add_up_over_calls_and_count_shape_classes():
+    vocabulary = Vocabulary(
+        ["<pad>", "<unk>", "<s>", "</s>", "<unk-digits>", "<unk-title>", "lamp"],
+        [0, 0, 0, 0, 0, 0, 4],
+        ["reserved", "unknown", "reserved", "reserved", "unknown", "unknown", "word"],
+    )
+    token_ids = TokenIds(vocabulary, "shape")
+    for batch in ([[["lamp", "42"]]], [[["Orrin", "7b", "lamp"]]]):
+        token_ids.encode(pa.table({"source": ["log.txt"], "tokens": pa.array(batch, pa.list_(pa.list_(pa.string())))}))
+    assert token_ids.sources == {"log.txt": {"tokens": 5, "oov_tokens": 3, "unknown": {"4": 2, "5": 1}}}
 
 
 def heldout_corpus_order(build, split: str) -> list[str]:

@@ -30,6 +30,16 @@ def test_ngram_windows_match_the_reference(n, eos):
     assert list(zip(map(tuple, context.tolist()), target.tolist())) == reference_windows(sentences, n, eos)
 
 
+def test_shuffled_windows_are_the_windows_in_the_generator_order():
+    sentences = [[10, 11, 12, 13, 14], [20], [30, 31]]
+    ids, lengths = np.array([i for s in sentences for i in s], np.uint32), np.array([len(s) for s in sentences])
+    context, target = ngram_windows(ids, lengths, 3, BOS, EOS)
+    order = np.random.default_rng(7).permutation(len(target))
+    shuffled_context, shuffled_target = ngram_windows(ids, lengths, 3, BOS, EOS, np.random.default_rng(7))
+    assert shuffled_context.tolist() == context[order].tolist() and shuffled_target.tolist() == target[order].tolist()
+    assert shuffled_context.flags.c_contiguous and shuffled_target.flags.c_contiguous and shuffled_target.dtype == np.uint32
+
+
 def test_n_of_four_gives_exactly_three_context_ids():
     """n = 4 means three context ids per window (common practice for n-gram models)."""
     context, _ = ngram_windows(np.array([5, 6, 7]), np.array([3]), 4, BOS, EOS)
