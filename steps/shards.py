@@ -5,9 +5,9 @@ leaves out removed duplicates and maps tokens to ids with the vocabulary, counti
 tokens and unknown classes per input file for the coverage statistics. Subword units: it reads
 the parts the encode step wrote with the sentencepiece model.
 
-Train parts order their documents by the seeded hash `order` (so chunking never matters),
-cut rows, and shuffle them with a seeded permutation; a part holds only its own documents
-(about 1/train_files of train), which bounds memory. Dev and test parts stream their chunks
+Train parts order their documents by `order`, a seeded mix of their `doc_hash` (so chunking
+never matters), cut rows, and shuffle them with a seeded permutation; a part holds only its
+own documents (about 1/train_files of train), which bounds memory. Dev and test parts stream their chunks
 in corpus order and keep that order.
 
 Files per part, one per enabled kind:
