@@ -56,7 +56,15 @@ rule all:
 
 
 onsuccess:
-    from steps.report import format_table
+    import threading
+
+    from steps.summary import format_table
+
+    # Snakemake starts a 1-second rate-limit timer after each scheduling round and Python waits
+    # for it at exit; the run is over, so end it now (0.8-1 s sooner, measured).
+    for thread in threading.enumerate():
+        if isinstance(thread, threading.Timer):
+            thread.cancel()
 
     if os.path.exists(L.coverage):
         print(format_table(settings.read_json(L.coverage)), file=sys.stderr)

@@ -27,7 +27,7 @@ RULE_MODULES = {
     "vocabulary": ("vocab", "storage"),
     "encode": ("encode", "vocab", "split", "storage"),
     "shard": ("shards", "windows", "vocab", "split", "encode", "storage"),
-    "coverage": ("report", "vocab", "storage"),
+    "coverage": ("report", "summary", "vocab", "storage"),
     "manifest": ("manifest", "vocab", "settings", "storage"),
     "growth": ("growth", "laws", "split", "storage", "vocab"),
     "report": ("report_page", "laws", "settings", "storage", "vocab"),
