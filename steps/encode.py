@@ -3,8 +3,8 @@ ids, documents spread over shard parts.
 
 Each document goes to the part of its split that holds its `doc_hash` (steps.split.part_of)
 and carries `order`, a seeded mix of its `doc_hash`, by which the shard step orders train
-documents, so shards do not depend on how the corpus was chunked. Encoded file columns: doc_id, order
-(uint64), sentences (list of sentences, each a list of uint32 ids).
+documents, so shards do not depend on how the corpus was chunked. Encoded file columns: doc_id,
+order (uint64), sentences (list of sentences, each a list of uint32 ids).
 
 The model encodes whole cleaned sentences in batched calls on the rule's threads; the job
 also writes the chunk's piece counts per split (split, id, count; the vocabulary step sums

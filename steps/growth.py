@@ -106,7 +106,7 @@ def _type_ids(pieces: list[tuple[str, pa.Array]], vocabulary: pa.Array) -> np.nd
     in_batch = pc.index_in(vocabulary, value_set=encoded.dictionary)
     present = np.flatnonzero(pc.is_valid(in_batch).to_numpy(zero_copy_only=False))
     positions = np.full(len(encoded.dictionary), -1, dtype=np.int64)
-    positions[pc.take(in_batch, pa.array(present)).to_numpy()] = present
+    positions[pc.drop_null(in_batch).to_numpy()] = present
     if (positions < 0).any():
         token = encoded.dictionary[int(np.argmax(positions < 0))]
         path = next(path for path, tokens in pieces if pc.any(pc.equal(tokens, token)).as_py())

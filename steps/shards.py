@@ -7,8 +7,8 @@ the parts the encode step wrote with the sentencepiece model.
 
 Train parts order their documents by `order`, a seeded mix of their `doc_hash` (so chunking
 never matters), cut rows, and shuffle them with a seeded permutation; a part holds only its
-own documents (about 1/train_files of train), which bounds memory. Dev and test parts stream their chunks
-in corpus order and keep that order.
+own documents (about 1/train_files of train), which bounds memory. Dev and test parts stream
+their chunks in corpus order and keep that order.
 
 Files per part, one per enabled kind:
   ngram-PPPP.parquet  context: fixed_size_list<id>[n-1], target: id
@@ -176,15 +176,15 @@ class TokenIds:
         source_of_token = np.repeat(sources.indices.to_numpy(zero_copy_only=False), tokens_per_row)
         names = sources.dictionary.to_pylist()
         tokens = np.bincount(source_of_token, minlength=len(names))
-        # Unknown ids are the lowest ones after the reserved symbols: one key per (source, id).
-        unknown = ids <= self._unknown_ids[-1]
-        unknown &= np.isin(ids, self._unknown_ids)
-        keys, counts = np.unique(source_of_token[unknown] * (int(self._unknown_ids[-1]) + 1) + ids[unknown], return_counts=True)
+        # One key per (source, unknown id): unknown ids are below `span`.
+        span = int(self._unknown_ids[-1]) + 1
+        unknown = np.isin(ids, self._unknown_ids)
+        keys, counts = np.unique(source_of_token[unknown] * span + ids[unknown], return_counts=True)
         for code, name in enumerate(names):
             figures = self.sources.setdefault(name, {"tokens": 0, "oov_tokens": 0, "unknown": {}})
             figures["tokens"] += int(tokens[code])
         for key, count in zip(keys.tolist(), counts.tolist()):
-            code, value = divmod(key, int(self._unknown_ids[-1]) + 1)
+            code, value = divmod(key, span)
             figures = self.sources[names[code]]
             figures["oov_tokens"] += count
             figures["unknown"][str(value)] = figures["unknown"].get(str(value), 0) + count

@@ -10,6 +10,7 @@ from steps.layout import SPLITS
 
 
 def format_subword_table(stats: dict) -> str:
+    """The summary of a subword build: pieces per word and sentence, <unk> and byte rates."""
     lines = [f"subword vocabulary: {stats['vocabulary_size']} ids, {stats['pieces']} pieces, {stats['byte_pieces']} byte pieces"]
     lines.append(f"{'split':<6} {'pieces':>10} {'per word':>9} {'per sent.':>9} {'<unk>':>8} {'bytes':>8} {'<unk> w/o fallback':>19}")
     for split in SPLITS:
