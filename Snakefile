@@ -6,6 +6,7 @@
 # every stage lives in steps/; each rule runs one step through `python -m steps.run`.
 
 import json
+import shlex
 import sys
 
 from snakemake.utils import min_version

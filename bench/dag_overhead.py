@@ -2,11 +2,15 @@
 
 - DAG build: wall time of `snakemake -n` (a dry run plans every job) for 1,000 chunks made two
   ways: one 2 MB file cut with a tiny corpus.chunk_mb, and 1,000 small files.
+  The many small files are planned twice: one job per file (corpus.pack_mb 0) and packed
+  (the default pack_mb).
 - Scheduling overhead: the prepare stage of the same file cut into --run-chunks chunks (100 by
   default; running 1,000 one-second jobs takes minutes) run by Snakemake (`--until prepare`, N
   cores), against the same work done in one process (prepare_chunk per chunk).
   overhead per job = (run wall x cores - in-process work) / jobs, in core-seconds; it includes
   Snakemake's own bookkeeping and each job's interpreter start and imports, measured apart.
+- Packing: the prepare stage of --run-chunks small files cut from the same text, one job per
+  file against the default packing.
 
 Usage: python bench/dag_overhead.py [--chunks 1000] [--run-chunks 100] [--cores 2]
 Data goes to bench/data/dag/, results to bench/results/dag_overhead.json (both gitignored).
@@ -115,13 +119,16 @@ def main(argv: list[str] | None = None) -> None:
     run_bytes = int(run_mb * (1 << 20))
     many = base / "many-files"
     small_files(many, one / "part-00.txt", args.chunks)
+    few = base / "run-files"
+    small_files(few, one / "part-00.txt", args.run_chunks)
 
     config = default_config()
     config["corpus"]["chunk_mb"] = run_mb
     results: dict = {"chunks": args.chunks, "cores": args.cores, "chunk_mb": chunk_mb, "input_mb": round(size / 1e6, 2)}
     for name, overrides in {
         "one_file_tiny_chunks": {"corpus": {"root": str(one), "chunk_mb": chunk_mb}},
-        "many_small_files": {"corpus": {"root": str(many)}},
+        "many_small_files_unpacked": {"corpus": {"root": str(many), "pack_mb": 0}},
+        "many_small_files_packed": {"corpus": {"root": str(many)}},
     }.items():
         directory = base / "runs" / name
         shutil.rmtree(directory, ignore_errors=True)
@@ -145,9 +152,14 @@ def main(argv: list[str] | None = None) -> None:
         "step_process_start_s": round(startup, 3),
         "load_average": round(os.getloadavg()[0], 2),
     }
+    for name, pack in {"unpacked": {"pack_mb": 0}, "packed": {}}.items():
+        directory = base / "runs" / f"small_files_{name}"
+        shutil.rmtree(directory, ignore_errors=True)
+        wall, cpu, output = snakemake(directory, {"corpus": {"root": str(few), **pack}}, "--until", "prepare", "--cores", str(args.cores))
+        results[f"prepare_stage_small_files_{name}"] = {"files": args.run_chunks, "jobs": job_count(output), "wall_s": round(wall, 2), "cpu_s": round(cpu, 2)}
     Path(args.output).parent.mkdir(parents=True, exist_ok=True)
     Path(args.output).write_text(json.dumps(results, indent=2, sort_keys=True) + "\n", encoding="utf-8")
-    for key in ("dry_run_one_file_tiny_chunks", "dry_run_many_small_files"):
+    for key in ("dry_run_one_file_tiny_chunks", "dry_run_many_small_files_unpacked", "dry_run_many_small_files_packed"):
         r = results[key]
         print(f"{key}: {r['jobs']} jobs planned in {r['seconds']:.1f} s ({r['ms_per_job']:.1f} ms/job)")
     p = results["prepare_stage"]
@@ -157,6 +169,9 @@ def main(argv: list[str] | None = None) -> None:
         f"{p['overhead_cpu_s_per_job']:.3f} CPU-s/job; "
         f"(step process start alone {p['step_process_start_s']:.3f} s)"
     )
+    for name in ("unpacked", "packed"):
+        r = results[f"prepare_stage_small_files_{name}"]
+        print(f"prepare stage of {r['files']} small files, {name}: {r['jobs']} jobs, {r['wall_s']:.1f} s wall, {r['cpu_s']:.1f} CPU s")
 
 
 if __name__ == "__main__":

@@ -5,7 +5,8 @@ One run measures, on this machine:
   (read each file, cut paragraphs, `Segmenter.segment`, discard) — the least any build must do;
 - the full build on `--cores N` at 1x and 10x, as a ratio to F, in MB/s and tokens/s;
 - the peak resident memory of every job, sampled from the process table (no rule changes);
-- the rebuild after one of the 20 input files changed, as a share of the full build;
+- the rebuild after one of the 20 input files changed, as a share of the full build, and the
+  same command once more with nothing to do (the least any rebuild costs);
 - reading every train shard back into numpy arrays (ids/s).
 
 The 10x corpus holds ten copies of every file; each paragraph of copy k starts with the token
@@ -285,12 +286,16 @@ def scale_run(scale: int, cores: int, config: dict) -> dict:
         try:
             changed = change_one_file(corpus)
             rebuild = run_build(directory, overrides, cores)
+            # The same command once more, with nothing to do: what any rebuild costs before its first job.
+            idle = run_build(directory, overrides, cores)
         finally:
             shutil.rmtree(corpus)
             pristine.rename(corpus)
         rebuild["changed_file"] = changed
         rebuild["share_of_full_build"] = round(rebuild["seconds"] / seconds, 3)
         result["rebuild"] = rebuild
+        result["up_to_date_run"] = {"seconds": idle["seconds"], "cpu_seconds": idle["cpu_seconds"], "jobs": idle["jobs"],
+                                    "share_of_full_build": round(idle["seconds"] / seconds, 3)}
     return result
 
 
@@ -328,6 +333,9 @@ def print_table(results: dict) -> None:
         r = one["rebuild"]
         print(f"rebuild after changing {r['changed_file']}: {r['seconds']:.1f} s = {r['share_of_full_build']:.0%} of the full build "
               f"({r['jobs']} jobs, {r['cpu_seconds']:.1f} CPU s)")
+        idle = one["up_to_date_run"]
+        print(f"the same command with nothing to do: {idle['seconds']:.1f} s = {idle['share_of_full_build']:.0%} of the full build "
+              f"({idle['cpu_seconds']:.1f} CPU s)")
     if "1x" in results["scales"] and "10x" in results["scales"]:
         ratio = results["scales"]["10x"]["build"]["seconds"] / results["scales"]["1x"]["build"]["seconds"]
         print(f"10x / 1x build time: {ratio:.2f}")

@@ -25,7 +25,7 @@ rule abbreviations:
 
 rule prepare:
     input:
-        source=lambda w: os.path.join(PLAN.root, PLAN.chunk(w.chunk).source),
+        sources=lambda w: [os.path.join(PLAN.root, s) for s in PLAN.chunk(w.chunk).sources],
         abbreviations=LEARNED,
     output:
         table=L.prepared("{chunk}"),
@@ -35,7 +35,7 @@ rule prepare:
         L.log("prepare", "{chunk}"),
     params:
         root=PLAN.root,
-        source=lambda w: PLAN.chunk(w.chunk).source,
+        sources=lambda w: " ".join(f"--source {shlex.quote(s)}" for s in PLAN.chunk(w.chunk).sources),
         chunk_index=lambda w: PLAN.chunk(w.chunk).index,
         chunks=lambda w: PLAN.chunk(w.chunk).count,
         learned=lambda w, input: f"--abbreviations {input.abbreviations}" if LEARNED else "",
@@ -46,7 +46,7 @@ rule prepare:
         mem_mb=CONFIG["resources"]["prepare_mem_mb"],
         runtime=CONFIG["resources"]["runtime_min"],
     shell:
-        step("prepare", "--root {params.root:q} --source {params.source:q} --chunk {params.chunk_index} "
+        step("prepare", "--root {params.root:q} {params.sources} --chunk {params.chunk_index} "
              "--chunks {params.chunks} --options {params.options:q} {params.learned} --output {output.table:q} --tally {output.tally:q} --counts {output.counts:q}")
 
 

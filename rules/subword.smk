@@ -6,8 +6,6 @@
 # it runs only for a key without a model, i.e. when train text or a training setting changed.
 # An edit to a dev or test document reruns the sample (same content, same key) but not training.
 
-import shlex
-
 from steps.subword import TRAIN_THREADS
 
 SUBWORD = CONFIG["units"] == "subword"

@@ -39,7 +39,6 @@ rule encode:
     log:
         L.log("encode", "{chunk}"),
     params:
-        source=lambda w: PLAN.chunk(w.chunk).source,
         options=PLAN.options("encode"),
         code=code_hash("encode"),
     threads: 2
@@ -47,6 +46,6 @@ rule encode:
         mem_mb=CONFIG["resources"]["prepare_mem_mb"],
         runtime=CONFIG["resources"]["runtime_min"],
     shell:
-        step("encode", "--prepared {input.table:q} --source {params.source:q} --duplicates {input.duplicates:q} "
+        step("encode", "--prepared {input.table:q} --duplicates {input.duplicates:q} "
              "--model {input.model:q} --pieces {output.pieces:q} --threads {threads} --options {params.options:q} "
              "--stats {output.stats:q} {output.parts:q}")

@@ -66,9 +66,9 @@ class PieceTally:
     def __init__(self, encoder: PieceEncoder) -> None:
         self._byte_mask = encoder.byte_mask
         self.counts = {split: np.zeros(encoder.size, np.int64) for split in SPLITS}
-        self.figures = {split: {"words": 0, "byte_pieces": 0, "byte_runs": 0} for split in SPLITS}
 
-    def add(self, split: str, sentences: pa.ChunkedArray, encoded: pa.ListArray) -> None:
+    def add(self, split: str, sentences: pa.ChunkedArray, encoded: pa.ListArray) -> dict[str, int]:
+        """Count the pieces of one batch; returns its whitespace words, byte pieces and byte runs."""
         texts = pc.list_flatten(sentences)
         per_sentence = encoded.flatten()
         ids = per_sentence.flatten().to_numpy().astype(np.int64)
@@ -78,10 +78,11 @@ class PieceTally:
         offsets = per_sentence.offsets.to_numpy()
         starts[offsets[:-1][offsets[:-1] < offsets[-1]] - offsets[0]] = True
         previous = np.concatenate([[False], is_byte[:-1]]) & ~starts
-        figures = self.figures[split]
-        figures["words"] += int(pc.sum(pc.count_substring_regex(texts, r"\S+")).as_py() or 0)
-        figures["byte_pieces"] += int(is_byte.sum())
-        figures["byte_runs"] += int((is_byte & ~previous).sum())
+        return {
+            "words": int(pc.sum(pc.count_substring_regex(texts, r"\S+")).as_py() or 0),
+            "byte_pieces": int(is_byte.sum()),
+            "byte_runs": int((is_byte & ~previous).sum()),
+        }
 
     def table(self) -> pa.Table:
         """Non-zero piece counts as (split, id, count) rows."""
@@ -105,37 +106,62 @@ def encode_chunk(
     seed: int,
     outputs: dict[tuple[str, int], str],
     pieces: PieceTally,
-) -> dict:
-    """Write the encoded parts of one chunk; return its statistics per split."""
-    stats = {split: {"documents": 0, "sentences": 0, "tokens": 0, "oov_tokens": 0} for split in SPLITS}
+) -> dict[str, dict]:
+    """Write the encoded parts of one chunk; return its statistics per input file and split."""
+    stats: dict[str, dict] = {}
     sinks = {key: ParquetSink(path, ENCODED_SCHEMA, compression="zstd", level=1) for key, path in outputs.items()}
     try:
         for split in SPLITS:
-            rows_of_split = kept_part(prepared, split, 0, 1, duplicates, ["doc_id", "doc_hash", "sentences"])
-            for start in range(0, rows_of_split.num_rows, BATCH_ROWS):
-                rows = rows_of_split.slice(start, BATCH_ROWS)
-                encoded = encoder.encode(rows["sentences"])
-                _tally(stats[split], encoded)
-                pieces.add(split, rows["sentences"], encoded)
-                order = order_keys(rows["doc_hash"].to_numpy(), seed)
-                placed = part_of(rows["doc_hash"].to_numpy(), parts[split])
-                for part in range(parts[split]):
-                    mask = placed == part
-                    if mask.any():
-                        selected = pa.array(mask)
-                        sinks[(split, part)].write(
-                            pa.Table.from_arrays(
-                                [pc.filter(rows["doc_id"], selected), pa.array(order[mask]), pc.filter(encoded, selected)],
-                                schema=ENCODED_SCHEMA,
-                            )
-                        )
+            rows_of_split = kept_part(prepared, split, 0, 1, duplicates, ["doc_id", "doc_hash", "source", "sentences"])
+            for source, rows_of_source in _by_source(rows_of_split):
+                figures = stats.setdefault(source, {name: dict.fromkeys(FIGURES, 0) for name in SPLITS})[split]
+                for start in range(0, rows_of_source.num_rows, BATCH_ROWS):
+                    rows = rows_of_source.slice(start, BATCH_ROWS)
+                    encoded = encoder.encode(rows["sentences"])
+                    _tally(figures, encoded)
+                    for key, value in pieces.add(split, rows["sentences"], encoded).items():
+                        figures[key] += value
+                    _spread(rows, encoded, parts[split], seed, {p: sinks[(split, p)] for p in range(parts[split])})
     except BaseException:
         for sink in sinks.values():
             sink.abort()
         raise
     for sink in sinks.values():
         sink.close()
-    return stats
+    return dict(sorted(stats.items()))
+
+
+FIGURES = ("documents", "sentences", "tokens", "oov_tokens", "words", "byte_pieces", "byte_runs")
+
+
+def _by_source(rows: pa.Table) -> list[tuple[str, pa.Table]]:
+    """The runs of rows of one input file each, in order (rows come sorted by file)."""
+    if not rows.num_rows:
+        return []
+    codes = pc.dictionary_encode(rows["source"].combine_chunks())
+    indices = codes.indices.to_numpy(zero_copy_only=False)
+    starts = [0, *(np.flatnonzero(indices[1:] != indices[:-1]) + 1).tolist()]
+    names = codes.dictionary.to_pylist()
+    return [
+        (names[indices[start]], rows.slice(start, stop - start))
+        for start, stop in zip(starts, [*starts[1:], rows.num_rows])
+    ]
+
+
+def _spread(rows: pa.Table, encoded: pa.ListArray, parts: int, seed: int, sinks: dict[int, ParquetSink]) -> None:
+    """Write each encoded document to the part of its split that holds its `doc_hash`."""
+    order = order_keys(rows["doc_hash"].to_numpy(), seed)
+    placed = part_of(rows["doc_hash"].to_numpy(), parts)
+    for part in range(parts):
+        mask = placed == part
+        if mask.any():
+            selected = pa.array(mask)
+            sinks[part].write(
+                pa.Table.from_arrays(
+                    [pc.filter(rows["doc_id"], selected), pa.array(order[mask]), pc.filter(encoded, selected)],
+                    schema=ENCODED_SCHEMA,
+                )
+            )
 
 
 def _tally(stats: dict, encoded: pa.ListArray) -> None:
@@ -150,7 +176,6 @@ def _tally(stats: dict, encoded: pa.ListArray) -> None:
 def main(argv: list[str] | None = None) -> None:
     parser = argparse.ArgumentParser(description="Encode one prepared chunk into piece-id parts per split (subword units).")
     parser.add_argument("--prepared", required=True)
-    parser.add_argument("--source", required=True, help="the chunk's input file, relative to the corpus root")
     parser.add_argument("--duplicates", required=True)
     parser.add_argument("--model", required=True, help="sentencepiece model")
     parser.add_argument("--pieces", required=True, help="output: piece counts per split")
@@ -170,10 +195,8 @@ def main(argv: list[str] | None = None) -> None:
     stats = encode_chunk(
         args.prepared, pq.read_table(args.duplicates), encoder, parts, config["shards"]["seed"], outputs, tally
     )
-    for split in SPLITS:
-        stats[split].update(tally.figures[split])
     write_table(args.pieces, tally.table())
-    write_json(args.stats, {"source": args.source, "units": "subword", "splits": stats})
+    write_json(args.stats, {"units": "subword", "sources": stats})
 
 
 if __name__ == "__main__":

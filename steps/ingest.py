@@ -1,9 +1,12 @@
-"""Ingest: find input files, cut large ones into chunks at document boundaries, read documents.
+"""Ingest: find input files, cut large ones into chunks at document boundaries, pack small
+ones together, read documents.
 
-A chunk k of an uncompressed file owns the documents that *start* inside bytes
-[k*S, (k+1)*S): it seeks to k*S, skips to the next document start and reads past its end to
-finish its last document. Every document therefore belongs to exactly one chunk, and the chunk
-size never changes which documents exist. Compressed files cannot seek and are one chunk each.
+A chunk is the input of one prepare job. Chunk k of an uncompressed file owns the documents
+that *start* inside bytes [k*S, (k+1)*S): it seeks to k*S, skips to the next document start
+and reads past its end to finish its last document. Every document therefore belongs to
+exactly one chunk, and the chunk size never changes which documents exist. Compressed files
+cannot seek and are one chunk each. Files smaller than the pack size are read whole, several
+to a chunk (a pack), so a folder of many small files does not become as many jobs.
 A document's id is its JSONL id field when configured, else `relative/path:byte_offset` (the
 offset in the uncompressed text where it starts), which orders documents like an ordinal.
 """
@@ -45,16 +48,13 @@ class CorpusError(Exception):
 
 @dataclass(frozen=True)
 class Chunk:
-    """One job's share of one input file."""
+    """One prepare job's input: chunk `index` of `count` of one file, or several small files
+    (a pack, in corpus order) each read whole, as index 0 of 1."""
 
     key: str
-    source: str
-    index: int
-    count: int
-
-    @property
-    def compressed(self) -> bool:
-        return split_name(self.source)[1] != ""
+    sources: tuple[str, ...]
+    index: int = 0
+    count: int = 1
 
 
 @dataclass(frozen=True)
@@ -149,16 +149,53 @@ def chunk_key(source: str, index: int) -> str:
     return f"{stem}-{digest}-{index:04d}"
 
 
-def plan_chunks(root: str | Path, sources: list[str], chunk_bytes: int, text_unit: str) -> list[Chunk]:
-    """Chunks from file sizes alone (no reading), in corpus order (path, then index)."""
-    chunks = []
+def plan_chunks(
+    root: str | Path, sources: list[str], chunk_bytes: int, text_unit: str, pack_bytes: int = 0
+) -> list[Chunk]:
+    """Chunks from file sizes alone (no reading), in corpus order (path, then index).
+
+    A file of one chunk smaller than `pack_bytes` joins a pack with its neighbours in path
+    order. A pack ends after a file with probability (file size / pack_bytes), decided by a
+    hash of the file's path, so packs hold about `pack_bytes` on average, and where a pack ends
+    depends only on the files at that spot: adding, removing or editing a file changes its own
+    pack (and at most the next one), never the packs elsewhere. A pack that would exceed
+    `chunk_bytes` is cut early (rare while `pack_bytes` is well below it; such a cut can move
+    the packs up to the next drawn end).
+    """
+    chunks: list[Chunk] = []
+    pack: list[str] = []
+    held = 0
+
+    def close_pack() -> None:
+        nonlocal held
+        if pack:
+            chunks.append(Chunk(chunk_key(pack[0], 0), tuple(pack)))
+            pack.clear()
+            held = 0
+
     for source in sources:
         fmt, compression = split_name(source)
         size = (Path(root) / source).stat().st_size
         whole = compression or (fmt == ".txt" and text_unit == "file")
         count = 1 if whole else max(1, -(-size // chunk_bytes))
-        chunks.extend(Chunk(chunk_key(source, k), source, k, count) for k in range(count))
+        if count == 1 and size < pack_bytes:
+            if held + size > chunk_bytes:
+                close_pack()
+            pack.append(source)
+            held += size
+            if _pack_ends_after(source, size, pack_bytes):
+                close_pack()
+            continue
+        close_pack()
+        chunks.extend(Chunk(chunk_key(source, k), (source,), k, count) for k in range(count))
+    close_pack()
     return chunks
+
+
+def _pack_ends_after(source: str, size: int, pack_bytes: int) -> bool:
+    """Whether a pack ends after this file: a uniform draw from its path below size / pack_bytes."""
+    draw = int.from_bytes(hashlib.blake2b(source.encode("utf-8"), digest_size=8).digest(), "big") / 2.0**64
+    return draw < size / pack_bytes
 
 
 class _ZstdFrames(io.RawIOBase):
@@ -401,16 +438,16 @@ class _Assembler:
 
 
 def _raw_text_documents(
-    handle: BinaryIO, chunk: Chunk, chunk_bytes: int, options: ReadOptions, tally: Tally
+    handle: BinaryIO, piece: _FilePiece, options: ReadOptions, tally: Tally
 ) -> Iterator[tuple[int, bytes]]:
-    """Byte ranges of the documents of a .txt chunk: (offset, bytes)."""
+    """Byte ranges of the documents of a .txt file piece: (offset, bytes)."""
     unit = options.text_unit
     assembler = _Assembler(options.max_document_bytes, options.oversize, tally)
-    end = (chunk.index + 1) * chunk_bytes if chunk.index + 1 < chunk.count else None
-    if chunk.compressed or chunk.count == 1:
+    end = piece.end
+    if piece.start == 0:
         offset, previous_blank = 0, True
     else:
-        offset, previous_blank = _first_line_start(handle, chunk.index * chunk_bytes)
+        offset, previous_blank = _first_line_start(handle, piece.start)
         handle.seek(offset)
     inside = False
     line_open = False  # the previous piece was an incomplete line
@@ -490,12 +527,12 @@ def _surrogate_policy(value: str, options: ReadOptions, tally: Tally, where: str
 
 
 def _json_documents(
-    handle: BinaryIO, chunk: Chunk, chunk_bytes: int, options: ReadOptions, tally: Tally, path: str
+    handle: BinaryIO, piece: _FilePiece, options: ReadOptions, tally: Tally, path: str
 ) -> Iterator[Document]:
-    end = (chunk.index + 1) * chunk_bytes if chunk.index + 1 < chunk.count else None
+    end = piece.end
     offset = 0
-    if not (chunk.compressed or chunk.count == 1):
-        offset, _ = _first_line_start(handle, chunk.index * chunk_bytes)
+    if piece.start:
+        offset, _ = _first_line_start(handle, piece.start)
         handle.seek(offset)
     decode = _decoder(options, tally, path)
     skipping = False
@@ -540,20 +577,40 @@ def _json_documents(
             continue
         raw_id = record.get(options.jsonl_id_field) if options.jsonl_id_field else None
         usable = isinstance(raw_id, (str, int)) and not isinstance(raw_id, bool) and not _LONE_SURROGATE.search(str(raw_id))
-        doc_id = str(raw_id) if usable else f"{chunk.source}:{position}"
-        yield Document(doc_id, chunk.source, position, value)
+        doc_id = str(raw_id) if usable else f"{piece.source}:{position}"
+        yield Document(doc_id, piece.source, position, value)
+
+
+@dataclass(frozen=True)
+class _FilePiece:
+    """The bytes of one file whose documents a reader yields: those starting in [start, end)
+    (end None: to the end of the file)."""
+
+    source: str
+    start: int
+    end: int | None
+
+
+def _pieces(chunk: Chunk, chunk_bytes: int) -> Iterator[_FilePiece]:
+    if chunk.count == 1:
+        yield from (_FilePiece(source, 0, None) for source in chunk.sources)
+        return
+    (source,) = chunk.sources
+    end = (chunk.index + 1) * chunk_bytes if chunk.index + 1 < chunk.count else None
+    yield _FilePiece(source, chunk.index * chunk_bytes, end)
 
 
 def read_documents(root: str | Path, chunk: Chunk, chunk_bytes: int, options: ReadOptions, tally: Tally) -> Iterator[Document]:
-    """Stream the documents a chunk owns, in file order, counting every one in `tally`."""
-    path = Path(root) / chunk.source
-    fmt = split_name(chunk.source)[0]
-    with open_source(path, options.max_decompressed_bytes) as handle:
-        if fmt == ".jsonl":
-            yield from _json_documents(handle, chunk, chunk_bytes, options, tally, str(path))
-            return
-        decode = _decoder(options, tally, str(path))
-        for offset, data in _raw_text_documents(handle, chunk, chunk_bytes, options, tally):
-            text = decode(offset, data)
-            if text is not None:
-                yield Document(f"{chunk.source}:{offset}", chunk.source, offset, text)
+    """Stream the documents a chunk owns, in corpus order (file, then offset), counting every
+    one in `tally`."""
+    for piece in _pieces(chunk, chunk_bytes):
+        path = Path(root) / piece.source
+        with open_source(path, options.max_decompressed_bytes) as handle:
+            if split_name(piece.source)[0] == ".jsonl":
+                yield from _json_documents(handle, piece, options, tally, str(path))
+                continue
+            decode = _decoder(options, tally, str(path))
+            for offset, data in _raw_text_documents(handle, piece, options, tally):
+                text = decode(offset, data)
+                if text is not None:
+                    yield Document(f"{piece.source}:{offset}", piece.source, offset, text)

@@ -78,7 +78,8 @@ class Plan:
                 f"{root}: no input files match corpus.include {corpus['include']}; check corpus.root and the patterns"
             )
         chunk_bytes = int(corpus["chunk_mb"] * (1 << 20))
-        chunks = ingest.plan_chunks(root, sources, chunk_bytes, corpus["text_unit"])
+        pack_bytes = int(corpus["pack_mb"] * (1 << 20))
+        chunks = ingest.plan_chunks(root, sources, chunk_bytes, corpus["text_unit"], pack_bytes)
         shards = config["shards"]
         parts = {"train": shards["train_files"], "dev": shards["heldout_files"], "test": shards["heldout_files"]}
         return cls(config, root, sources, chunks, parts, enabled_kinds(config["windows"]), Layout(config["build_dir"]))

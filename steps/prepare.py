@@ -6,12 +6,13 @@ what happened to every document read. Chunk table columns: doc_id, doc_hash (the
 (16-byte content hash), and either `tokens` (list of sentences, each a list of word tokens;
 units = word) or `sentences` (list of cleaned sentence strings; units = subword).
 
-Rows are stored by split, then `doc_hash`, in row groups that never mix splits and hold about
-GROUP_TOKENS tokens each, so a shard job reads only the row groups of its own part
-(`steps.split.read_part`). The chunk's batches are therefore held as Arrow arrays (no Python
-objects) until the chunk is read, about 2.2 bytes per byte of chunk text, and twice that while
-they are put in order: a 32 MB chunk of English peaked at 374 MiB (187 MiB when rows were
-written as they came; `resources.prepare_mem_mb`).
+Rows are stored in runs: the batches are held as Arrow arrays (no Python objects) until they
+reach RUN_FACTOR x the chunk size in Arrow memory, then written ordered by split, then
+`doc_hash`, in row groups that never mix splits and hold about GROUP_TOKENS tokens each, so a
+shard job reads only the row groups of its own part (`steps.split.read_part`). A chunk of up to
+`corpus.chunk_mb` is one run (about 2.2 bytes of Arrow per byte of text; a 32 MB chunk of
+English peaked at 374 MiB while put in order); a larger one, which only a compressed file or a
+whole-file document can be, becomes several runs, so memory stays bounded whatever the file size.
 """
 
 from __future__ import annotations
@@ -38,6 +39,8 @@ BATCH_DOCUMENTS = 4096
 # Tokens (word units) or sentence bytes / 4 (subword units) per stored row group: small
 # enough that a part's slice of a chunk wastes little of a group, large enough to read fast.
 GROUP_TOKENS = 1 << 14
+# Arrow bytes held before a run is written, per byte of corpus.chunk_mb.
+RUN_FACTOR = 4
 
 
 def chunk_schema(units: str) -> pa.Schema:
@@ -84,15 +87,15 @@ class ChunkPreparer:
         self.split = config["split"]
         self.schema = chunk_schema(self.units)
 
-    def batches(self, documents: Iterator[Document], tally: Tally) -> Iterator[pa.Table]:
+    def batches(self, documents: Iterator[Document], tally: Tally, batch_chars: int = BATCH_CHARS) -> Iterator[pa.Table]:
         """Arrow tables of kept documents, each from at most BATCH_DOCUMENTS documents or
-        about BATCH_CHARS characters of text."""
+        about `batch_chars` characters of text."""
         batch, chars, seen = _Batch(), 0, 0
         for document in documents:
             self._add(document, batch, tally)
             seen += 1
             chars += len(document.text)
-            if seen >= BATCH_DOCUMENTS or chars >= BATCH_CHARS:
+            if seen >= BATCH_DOCUMENTS or chars >= batch_chars:
                 yield self._table(batch)
                 batch, chars, seen = _Batch(), 0, 0
         if batch.ids:
@@ -164,47 +167,77 @@ def prepare_chunk(
     documents = read_documents(root, chunk, chunk_bytes, ReadOptions.from_config(config["corpus"]), tally)
     counts = COUNTS_SCHEMA.empty_table()
     pending: list[pa.Table] = []
-    batches: list[pa.Table] = []
-    for batch in preparer.batches(documents, tally):
-        batches.append(batch)
-        if preparer.units == "word":
-            pending.append(count_tokens(batch))
-            if len(pending) == MERGE_FILES:
-                counts, pending = sum_counts([counts, *pending]), []
-    # One contiguous copy, the batches freed as soon as it exists: a take from a table of many
-    # chunks would concatenate them on the side, holding the chunk's rows three times.
-    table = pa.concat_tables([preparer.schema.empty_table(), *batches]).combine_chunks()
-    del batches
-    write_chunk_table(output, table, preparer.units)
-    del table
+    with ChunkTableWriter(output, preparer.schema, preparer.units, RUN_FACTOR * chunk_bytes) as writer:
+        # Batches no larger than a chunk, so a run holds a few of them even for tiny chunk sizes.
+        for batch in preparer.batches(documents, tally, min(BATCH_CHARS, chunk_bytes)):
+            writer.add(batch)
+            if preparer.units == "word":
+                pending.append(count_tokens(batch))
+                if len(pending) == MERGE_FILES:
+                    counts, pending = sum_counts([counts, *pending]), []
     if counts_path:
         counts = sum_counts([counts, *pending]).sort_by([("split", "ascending"), ("token", "ascending")])
         write_table(counts_path, counts)
-    write_json(tally_path, {"source": chunk.source, "chunk": chunk.index, "chunks": chunk.count, **tally.as_dict()})
+    write_json(tally_path, {"sources": list(chunk.sources), "chunk": chunk.index, "chunks": chunk.count, **tally.as_dict()})
     return tally
 
 
-def write_chunk_table(path: str, table: pa.Table, units: str) -> None:
-    """Store a chunk's rows by (split, doc_hash) in row groups that never mix splits; a group
-    closes at the first row that takes it past a multiple of GROUP_TOKENS tokens, so it holds
-    less than GROUP_TOKENS plus its largest row."""
-    order = pc.sort_indices(table, [("split", "ascending"), ("doc_hash", "ascending"), ("offset", "ascending")])
-    splits = table["split"].take(order).to_numpy(zero_copy_only=False)
-    weights = np.cumsum(_row_weights(table, units)[order.to_numpy()])
-    cuts = np.flatnonzero(splits[1:] != splits[:-1]) + 1
-    starts = sorted({0, *cuts.tolist()})
-    bounds = []
-    for start, stop in zip(starts, [*starts[1:], len(splits)]):
-        base = weights[start - 1] if start else 0
-        groups = (weights[start:stop] - base - 1) // GROUP_TOKENS
-        bounds.extend((start + np.flatnonzero(np.diff(groups)) + 1).tolist())
-    bounds = sorted({*starts, *bounds, len(splits)})
-    # One take of the whole (contiguous) table: cheaper than a take per row group, which
-    # concatenates a chunked table's pieces again on every call (4 s of system time per 32 MB).
-    ordered = table.take(order)
-    with ParquetSink(path, table.schema, compression="zstd", level=1) as sink:
+class ChunkTableWriter:
+    """Writes a chunk table in runs of at most `run_bytes` of held Arrow memory, each stored by
+    (split, doc_hash) in row groups that never mix splits; a group closes at the first row that
+    takes it past a multiple of GROUP_TOKENS tokens, so it holds less than GROUP_TOKENS plus
+    its largest row."""
+
+    def __init__(self, path: str, schema: pa.Schema, units: str, run_bytes: int) -> None:
+        self._sink = ParquetSink(path, schema, compression="zstd", level=1)
+        self._schema, self._units, self._run_bytes = schema, units, run_bytes
+        self._held: list[pa.Table] = []
+        self._size = 0
+        self.runs = 0
+
+    def add(self, table: pa.Table) -> None:
+        self._held.append(table)
+        self._size += table.nbytes
+        if self._size >= self._run_bytes:
+            self._write_run()
+
+    def _write_run(self) -> None:
+        if not self._held:
+            return
+        # One contiguous copy, the batches freed as soon as it exists: a take from a table of
+        # many chunks would concatenate them on the side, holding the rows three times.
+        table = pa.concat_tables([self._schema.empty_table(), *self._held]).combine_chunks()
+        self._held, self._size = [], 0
+        order = pc.sort_indices(
+            table, [("split", "ascending"), ("doc_hash", "ascending"), ("source", "ascending"), ("offset", "ascending")]
+        )
+        splits = table["split"].take(order).to_numpy(zero_copy_only=False)
+        weights = np.cumsum(_row_weights(table, self._units)[order.to_numpy()])
+        cuts = np.flatnonzero(splits[1:] != splits[:-1]) + 1
+        starts = sorted({0, *cuts.tolist()})
+        bounds = []
+        for start, stop in zip(starts, [*starts[1:], len(splits)]):
+            base = weights[start - 1] if start else 0
+            groups = (weights[start:stop] - base - 1) // GROUP_TOKENS
+            bounds.extend((start + np.flatnonzero(np.diff(groups)) + 1).tolist())
+        bounds = sorted({*starts, *bounds, len(splits)})
+        # One take of the whole (contiguous) table: cheaper than a take per row group, which
+        # concatenates a chunked table's pieces again on every call (4 s of system time per 32 MB).
+        ordered = table.take(order)
+        del table
         for start, stop in zip(bounds[:-1], bounds[1:]):
-            sink.write(ordered.slice(start, stop - start))
+            self._sink.write(ordered.slice(start, stop - start))
+        self.runs += 1
+
+    def __enter__(self) -> "ChunkTableWriter":
+        return self
+
+    def __exit__(self, kind: object, *_: object) -> None:
+        if kind is None:
+            self._write_run()
+            self._sink.close()
+        else:
+            self._sink.abort()
 
 
 def _row_weights(table: pa.Table, units: str) -> np.ndarray:
@@ -232,7 +265,7 @@ def read_abbreviations(path: str | None) -> frozenset[str]:
 def main(argv: list[str] | None = None) -> None:
     parser = argparse.ArgumentParser(description="Prepare one input chunk: read, clean, segment, split.")
     parser.add_argument("--root", required=True)
-    parser.add_argument("--source", required=True, help="path relative to the corpus root")
+    parser.add_argument("--source", required=True, action="append", help="path relative to the corpus root; repeated for a pack")
     parser.add_argument("--chunk", type=int, required=True)
     parser.add_argument("--chunks", type=int, required=True)
     parser.add_argument("--options", required=True, help="JSON: the resolved configuration")
@@ -242,7 +275,7 @@ def main(argv: list[str] | None = None) -> None:
     parser.add_argument("--counts", required=True, help="word counts per split of the kept documents")
     args = parser.parse_args(argv)
     config = json.loads(args.options)
-    chunk = Chunk(chunk_key(args.source, args.chunk), args.source, args.chunk, args.chunks)
+    chunk = Chunk(chunk_key(args.source[0], args.chunk), tuple(args.source), args.chunk, args.chunks)
     chunk_bytes = int(config["corpus"]["chunk_mb"] * (1 << 20))
     try:
         tally = prepare_chunk(

@@ -118,9 +118,10 @@ def subword_statistics(counts: pa.Table, vocabulary: Vocabulary, encode_stats: S
         for split in SPLITS
     }
     for stats in encode_stats:
-        for split in SPLITS:
-            for key in totals[split]:
-                totals[split][key] += stats["splits"][split][key]
+        for figures in stats["sources"].values():
+            for split in SPLITS:
+                for key in totals[split]:
+                    totals[split][key] += figures[split][key]
     splits = {}
     for split, t in totals.items():
         pieces, runs = t["tokens"], t["byte_runs"]

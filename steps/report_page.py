@@ -57,10 +57,11 @@ def source_figures(encode_stats: Sequence[dict]) -> dict[str, dict]:
     keys = ("tokens", "words", "oov_tokens", "byte_pieces", "byte_runs")
     totals: dict[str, dict] = {}
     for stats in encode_stats:
-        source = totals.setdefault(stats["source"], {split: dict.fromkeys(keys, 0) for split in SPLITS})
-        for split in SPLITS:
-            for key in keys:
-                source[split][key] += stats["splits"][split][key]
+        for name, figures in stats["sources"].items():
+            source = totals.setdefault(name, {split: dict.fromkeys(keys, 0) for split in SPLITS})
+            for split in SPLITS:
+                for key in keys:
+                    source[split][key] += figures[split][key]
     for source in totals.values():
         for t in source.values():
             without_fallback = t["tokens"] - t["byte_pieces"] + t["byte_runs"]

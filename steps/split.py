@@ -97,8 +97,8 @@ def kept_part(path: str, split: str, part: int, parts: int, duplicates: pa.Table
     after deduplication reads of a chunk."""
     rows = read_part(path, split, part, parts, sorted({*columns, "source", "offset"}))
     if rows.num_rows:
-        source = rows["source"][0].as_py()  # one input file per chunk
-        rows = rows.filter(pc.invert(duplicate_mask(duplicates, source, rows["offset"]))).sort_by("offset")
+        rows = rows.filter(pc.invert(duplicate_mask(duplicates, rows["source"], rows["offset"])))
+        rows = rows.sort_by([("source", "ascending"), ("offset", "ascending")])
     return rows.select(columns)
 
 
@@ -121,8 +121,8 @@ def _mix(values: np.ndarray) -> np.ndarray:
 
 def _fingerprint_words(path: str) -> np.ndarray:
     """The 16-byte fingerprints of a prepared chunk as an (n, 2) uint64 array, in corpus
-    (offset) order; prepared rows are stored in split and `doc_hash` order."""
-    table = pq.read_table(path, columns=["offset", "fingerprint"])
+    (file, offset) order; prepared rows are stored in split and `doc_hash` order."""
+    table = pq.read_table(path, columns=["source", "offset", "fingerprint"])
     column = table["fingerprint"].combine_chunks()
     if not len(column):
         return np.empty((0, 2), np.uint64)
@@ -131,8 +131,8 @@ def _fingerprint_words(path: str) -> np.ndarray:
 
 
 def _corpus_order(table: pa.Table) -> np.ndarray:
-    """Row positions of a prepared chunk table by offset: the order of the input file."""
-    return np.argsort(table["offset"].to_numpy(), kind="stable")
+    """Row positions of a prepared chunk table by file, then offset: corpus order."""
+    return pc.sort_indices(table, [("source", "ascending"), ("offset", "ascending")]).to_numpy()
 
 
 def first_occurrences(words: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
@@ -194,24 +194,31 @@ def find_duplicates(prepared_paths: Sequence[str]) -> pa.Table:
 def removed_counts(prepared_paths: Sequence[str], duplicates: pa.Table) -> pa.Table:
     """Word counts per split of the removed duplicates, which the vocabulary step subtracts from
     the chunks' counts (so a chunk's counts never depend on other chunks)."""
-    sources = set(duplicates["source"].to_pylist())
     parts = []
-    for path in prepared_paths:
+    for path in prepared_paths if duplicates.num_rows else []:
         parquet = pq.ParquetFile(path)
         if "tokens" not in parquet.schema_arrow.names or not parquet.metadata.num_rows:
             continue
-        source = parquet.read_row_group(0, columns=["source"])["source"][0].as_py()
-        if source in sources:
-            table = parquet.read(columns=["offset", "split", "tokens"])
-            parts.append(count_tokens(table.filter(duplicate_mask(duplicates, source, table["offset"]))))
+        located = parquet.read(columns=["source", "offset"])
+        removed = duplicate_mask(duplicates, located["source"], located["offset"])
+        if pc.any(removed).as_py():
+            table = parquet.read(columns=["split", "tokens"])
+            parts.append(count_tokens(table.filter(removed)))
     counts = sum_counts(parts) if parts else COUNTS_SCHEMA.empty_table()
     return counts.sort_by([("split", "ascending"), ("token", "ascending")])
 
 
-def duplicate_mask(duplicates: pa.Table, source: str, offsets: pa.Array) -> pa.Array:
-    """Boolean mask over a chunk's rows: True where the row is a removed duplicate."""
-    mine = duplicates.filter(pc.equal(duplicates["source"], source))["offset"]
-    return pc.is_in(offsets, value_set=mine.combine_chunks() if mine.num_chunks else pa.array([], pa.int64()))
+def duplicate_mask(duplicates: pa.Table, sources: pa.ChunkedArray | pa.Array, offsets: pa.ChunkedArray | pa.Array) -> pa.Array:
+    """Boolean mask over rows given by (source, offset): True where the row is a removed duplicate."""
+    mine = duplicates.filter(pc.is_in(duplicates["source"], value_set=pc.unique(sources)))
+    if not mine.num_rows:
+        return pa.array(np.zeros(len(offsets), dtype=bool))
+    return pc.is_in(_located(sources, offsets), value_set=_located(mine["source"], mine["offset"]))
+
+
+def _located(sources: pa.ChunkedArray | pa.Array, offsets: pa.ChunkedArray | pa.Array) -> pa.ChunkedArray:
+    """One string per row naming its file and byte offset (a file name holds no NUL)."""
+    return pc.binary_join_element_wise(sources, pc.cast(offsets, pa.string()), "\x00")
 
 
 def main(argv: list[str] | None = None) -> None:

@@ -97,12 +97,10 @@ def train_sentences(prepared: str, duplicates: pa.Table) -> Iterator[list[str]]:
     for batch in parquet.iter_batches(batch_size=SAMPLE_BATCH, columns=["source", "offset", "split", "sentences"]):
         table = pa.Table.from_batches([batch])
         table = table.filter(pc.equal(table["split"], "train"))
-        for source in pc.unique(table["source"]).to_pylist():
-            rows = table.filter(pc.equal(table["source"], source))
-            rows = rows.filter(pc.invert(duplicate_mask(duplicates, source, rows["offset"])))
-            sentences = pc.list_flatten(rows["sentences"]).to_pylist()
-            if sentences:
-                yield sentences
+        table = table.filter(pc.invert(duplicate_mask(duplicates, table["source"], table["offset"])))
+        sentences = pc.list_flatten(table["sentences"]).to_pylist()
+        if sentences:
+            yield sentences
 
 
 def draw_sample(prepared_paths: Sequence[str], duplicates: pa.Table, k: int, seed: int) -> tuple[list[str], int]:

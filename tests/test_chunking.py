@@ -3,12 +3,14 @@ changes any output, whatever the chunk size, line ends or document sizes."""
 
 from __future__ import annotations
 
+import gzip
 import hashlib
 import json
 import random
 import re
 from pathlib import Path
 
+import pyarrow.parquet as pq
 import pytest
 
 from conftest import run_workflow
@@ -145,20 +147,47 @@ def build_fingerprints(build: Path) -> dict[str, str]:
     return {str(p.relative_to(build)): hashlib.sha256(p.read_bytes()).hexdigest() for p in files}
 
 
-def test_tiny_chunk_size_gives_byte_identical_shards_and_vocabulary(tmp_path: Path):
+def test_chunk_and_pack_sizes_give_byte_identical_shards_and_vocabulary(tmp_path: Path):
     """Hashlib SHA-256 of each output file: a build with corpus.chunk_mb = 0.002 (about 2 KB,
-    several chunks per file, some inside a document) equals the build with the default chunk size byte for byte."""
+    several chunks per file, some inside a document) and one with every file its own job
+    (pack_mb 0) equal the default build, where the four small files are one pack, byte for byte."""
     root = tmp_path / "corpus"
     root.mkdir()
     (root / "lf.txt").write_bytes(text_corpus(11, "\n", 40, long=60).encode("utf-8"))
     (root / "crlf.txt").write_bytes(text_corpus(12, "\r\n", 30, long=60).encode("utf-8"))
     (root / "cr.txt").write_bytes(text_corpus(13, "\r", 20, long=60).encode("utf-8"))
     (root / "records.jsonl").write_bytes(jsonl_corpus(14, "\n", 40, long=60).encode("utf-8"))
+    sources = sorted(p.name for p in root.iterdir())
     chunk_mb = 0.002
-    assert len(plan_chunks(root, sorted(p.name for p in root.iterdir()), int(chunk_mb * (1 << 20)), "paragraph")) >= 15
+    assert len(plan_chunks(root, sources, int(chunk_mb * (1 << 20)), "paragraph", 4 << 20)) >= 15
+    assert [c.sources for c in plan_chunks(root, sources, 32 << 20, "paragraph", 4 << 20)] == [tuple(sources)]
     base = {"corpus": {"root": str(root)}, "shards": {"train_files": 2}}
     run_workflow(tmp_path / "default", base)
     run_workflow(tmp_path / "tiny", {**base, "corpus": {"root": str(root), "chunk_mb": chunk_mb}})
-    default, tiny = build_fingerprints(tmp_path / "default" / "build"), build_fingerprints(tmp_path / "tiny" / "build")
+    run_workflow(tmp_path / "unpacked", {**base, "corpus": {"root": str(root), "pack_mb": 0}})
+    default = build_fingerprints(tmp_path / "default" / "build")
     assert len(default) == 3 * 4 + 2  # 2 train + 1 dev + 1 test parts, 3 kinds each
-    assert tiny == default
+    assert build_fingerprints(tmp_path / "tiny" / "build") == default
+    assert build_fingerprints(tmp_path / "unpacked" / "build") == default
+
+
+def test_a_compressed_file_larger_than_the_run_budget_gives_the_same_build(tmp_path: Path):
+    """A compressed file is one chunk whatever its size; a prepare job writes it in runs once
+    it holds RUN_FACTOR x chunk_mb of rows in Arrow memory, so memory stays bounded. With
+    chunk_mb 0.01 the gzipped corpus (about 100 KB of text) takes several runs, and the shards,
+    vocabulary and statistics equal those of the default build (one run) byte for byte
+    (hashlib SHA-256)."""
+    root = tmp_path / "corpus"
+    root.mkdir()
+    (root / "big.txt.gz").write_bytes(gzip.compress(text_corpus(21, "\n", 400, long=60).encode("utf-8")))
+    base = {"corpus": {"root": str(root)}, "shards": {"train_files": 2}}
+    run_workflow(tmp_path / "a", base)
+    run_workflow(tmp_path / "b", {**base, "corpus": {"root": str(root), "chunk_mb": 0.01}})
+    runs = {}
+    for name in ("a", "b"):
+        table = pq.ParquetFile(next((tmp_path / name / "build" / "interim" / "prepared").glob("*.parquet")))
+        column = table.schema_arrow.names.index("split")
+        splits = [table.metadata.row_group(g).column(column).statistics.min for g in range(table.num_row_groups)]
+        runs[name] = 1 + sum(1 for a, b in zip(splits, splits[1:]) if b < a)  # each run starts over at dev
+    assert runs["a"] == 1 and runs["b"] >= 4
+    assert build_fingerprints(tmp_path / "b" / "build") == build_fingerprints(tmp_path / "a" / "build")

@@ -11,7 +11,7 @@ import pytest
 
 from steps.growth import train_token_batches
 from steps.laws import growth_curve
-from tests.test_report_page import corpus_order
+from tests.test_report_page import corpus_order, corpus_rows
 
 
 def test_growth_curve_equals_a_set_recount_of_the_train_stream(demo_build: Path) -> None:
@@ -21,14 +21,12 @@ def test_growth_curve_equals_a_set_recount_of_the_train_stream(demo_build: Path)
     prepared = corpus_order(demo_build)
     seen: set[str] = set()
     after: list[int] = [0]
-    for path in prepared:
-        # Prepared tables store rows by split and doc_hash; corpus order is offset order.
-        for row in pq.read_table(path, columns=["source", "offset", "split", "tokens"]).sort_by("offset").to_pylist():
-            if row["split"] != "train" or (row["source"], row["offset"]) in removed:
-                continue
-            for token in (t for sentence in row["tokens"] for t in sentence):
-                seen.add(token)
-                after.append(len(seen))
+    for row in corpus_rows(demo_build, ["split", "tokens"]):
+        if row["split"] != "train" or (row["source"], row["offset"]) in removed:
+            continue
+        for token in (t for sentence in row["tokens"] for t in sentence):
+            seen.add(token)
+            after.append(len(seen))
     vocabulary = pq.read_table(demo_build / "stats" / "token_counts.parquet")["token"].combine_chunks()
     tokens, types = growth_curve(train_token_batches(prepared, pq.read_table(demo_build / "interim" / "duplicates.parquet"), vocabulary), len(vocabulary))
     assert tokens[-1] == len(after) - 1

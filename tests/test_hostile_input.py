@@ -36,7 +36,7 @@ def write(root: Path, name: str, data: bytes) -> str:
 def read(root: Path, name: str, **options: object) -> tuple[list[Document], Tally]:
     """All documents of a one-chunk file, read with the given ReadOptions fields."""
     tally = Tally()
-    chunk = Chunk(chunk_key(name, 0), name, 0, 1)
+    chunk = Chunk(chunk_key(name, 0), (name,))
     return list(read_documents(root, chunk, 1 << 30, ReadOptions(**options), tally)), tally
 
 
@@ -44,7 +44,7 @@ def prepare(root: Path, name: str, out: Path, **sections: dict) -> tuple[list[di
     """Run the prepare step on one file; returns its rows in corpus order (the table stores them
     by split and doc_hash) and its tally."""
     config = settings.resolve({"corpus": {"root": str(root), **sections.pop("corpus", {})}, **sections})
-    chunk = Chunk(chunk_key(name, 0), name, 0, 1)
+    chunk = Chunk(chunk_key(name, 0), (name,))
     table_path, tally_path = out / "prepared.parquet", out / "tally.json"
     prepare_chunk(str(root), chunk, 1 << 30, config, str(table_path), str(tally_path), frozenset())
     return pq.read_table(table_path).sort_by("offset").to_pylist(), json.loads(tally_path.read_text())

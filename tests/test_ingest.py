@@ -6,6 +6,7 @@ import bz2
 import gzip
 import json
 import lzma
+import random
 from pathlib import Path
 
 import pytest
@@ -166,4 +167,89 @@ def test_chunk_of_an_empty_file_yields_nothing(tmp_path: Path):
     (tmp_path / "empty.txt").write_bytes(b"")
     documents, tally = read_all(tmp_path, "empty.txt")
     assert documents == [] and tally.read == 0
-    assert Chunk("k", "empty.txt", 0, 1).compressed is False
+
+
+def write_sized(root: Path, sizes: dict[str, int]) -> list[str]:
+    """Files of the given sizes (paragraphs of filler text); returns their names sorted."""
+    for name, size in sizes.items():
+        (root / name).write_bytes((b"filler words here.\n\n" * (size // 20 + 1))[:size])
+    return sorted(sizes)
+
+
+def packs_of(chunks: list[Chunk]) -> set[tuple[str, ...]]:
+    return {c.sources for c in chunks if c.count == 1}
+
+
+def test_small_files_are_packed_in_path_order_and_larger_ones_stand_alone(tmp_path: Path):
+    sizes = {f"small-{i:02d}.txt": 3000 + 700 * i for i in range(30)}
+    sizes |= {"mid.txt": 150_000, "big.txt": 450_000}
+    sources = write_sized(tmp_path, sizes)
+    (tmp_path / "tiny.jsonl.gz").write_bytes(gzip.compress(b'{"text": "a record"}\n'))
+    sources = sorted([*sources, "tiny.jsonl.gz"])
+    chunks = plan_chunks(tmp_path, sources, 200_000, "paragraph", pack_bytes=100_000)
+    assert [s for c in chunks for s in c.sources if c.index == 0] == sources  # every file once, in order
+    assert [(c.sources, c.index, c.count) for c in chunks if c.sources == ("big.txt",)] == [(("big.txt",), k, 3) for k in range(3)]
+    assert (("mid.txt",), 0, 1) in [(c.sources, c.index, c.count) for c in chunks]
+    packs = [c for c in chunks if len(c.sources) > 1]
+    assert packs and all(c.key == chunk_key(c.sources[0], 0) for c in chunks if c.index == 0)
+    assert len({c.key for c in chunks}) == len(chunks)
+    assert all(sum((tmp_path / s).stat().st_size for s in c.sources) <= 200_000 for c in packs)
+    unpacked = plan_chunks(tmp_path, sources, 200_000, "paragraph")
+    assert [c.sources for c in unpacked if c.index == 0] == [(s,) for s in sources]
+
+
+def test_packs_hold_the_pack_size_on_average(tmp_path: Path):
+    """A pack ends after a file with probability size / pack size, so the number of packs is
+    about total / pack size (2,000 files of 1-20 KB, 21 MB, at 100 KB: about 210 packs)."""
+    rng = random.Random(3)
+    sources = write_sized(tmp_path, {f"f{i:04d}.txt": rng.randint(1000, 20_000) for i in range(2000)})
+    total = sum((tmp_path / s).stat().st_size for s in sources)
+    chunks = plan_chunks(tmp_path, sources, 1 << 30, "paragraph", pack_bytes=100_000)
+    assert 0.8 < total / len(chunks) / 100_000 < 1.2
+
+
+@pytest.mark.parametrize("change", ["add", "remove", "resize"])
+def test_changing_one_file_changes_only_the_packs_around_it(tmp_path: Path, change: str):
+    """Adding, removing or resizing a file replaces at most two packs (its own and the next)
+    with at most two new ones holding the same files, give or take that file; the other
+    packs stay as they were, so their prepare jobs do not rerun."""
+    rng = random.Random(11)
+    sizes = {f"f{i:04d}.txt": rng.randint(1000, 20_000) for i in range(0, 800, 2)}
+    write_sized(tmp_path, sizes)
+    before = packs_of(plan_chunks(tmp_path, sorted(sizes), 1 << 30, "paragraph", pack_bytes=60_000))
+    for trial in range(40):
+        changed = dict(sizes)
+        if change == "add":
+            touched = f"f{rng.randrange(0, 800, 2) + 1:04d}.txt"
+            changed[touched] = rng.randint(1000, 20_000)
+        elif change == "remove":
+            touched = rng.choice(sorted(sizes))
+            del changed[touched]
+        else:
+            touched = rng.choice(sorted(sizes))
+            changed[touched] = rng.randint(1000, 20_000)
+        folder = tmp_path / f"{change}-{trial}"
+        folder.mkdir()
+        write_sized(folder, changed)
+        after = packs_of(plan_chunks(folder, sorted(changed), 1 << 30, "paragraph", pack_bytes=60_000))
+        gone, new = before - after, after - before
+        assert len(gone) <= 2 and len(new) <= 2
+        assert {s for p in gone for s in p} - {touched} == {s for p in new for s in p} - {touched}
+
+
+def test_a_pack_reads_each_file_whole_in_path_order(tmp_path: Path):
+    (tmp_path / "a.txt").write_bytes(b"first one\n\nsecond one\n")
+    (tmp_path / "b.jsonl").write_bytes(b'{"text": "a record", "id": "r1"}\n{"text": "another"}\n')
+    (tmp_path / "c.txt").write_bytes(b"\xef\xbb\xbfwith a mark\n")
+    chunks = plan_chunks(tmp_path, ["a.txt", "b.jsonl", "c.txt"], 1 << 20, "paragraph", pack_bytes=1 << 20)
+    assert [c.sources for c in chunks] == [("a.txt", "b.jsonl", "c.txt")]
+    tally = Tally()
+    documents = list(read_documents(tmp_path, chunks[0], 1 << 20, ReadOptions(), tally))
+    assert [(d.doc_id, d.source, d.offset, d.text) for d in documents] == [
+        ("a.txt:0", "a.txt", 0, "first one\n"),
+        ("a.txt:11", "a.txt", 11, "second one\n"),
+        ("r1", "b.jsonl", 0, "a record"),
+        ("b.jsonl:33", "b.jsonl", 33, "another"),
+        ("c.txt:0", "c.txt", 0, "with a mark\n"),
+    ]
+    assert tally.read == 5

@@ -31,14 +31,24 @@ def png_chunks(data: bytes) -> list[bytes]:
 
 
 def corpus_order(build: Path) -> list[str]:
-    """Prepared chunk files in corpus order: by input file as listed in the manifest, then chunk number."""
+    """Prepared chunk files in corpus order: by their first input file as listed in the manifest
+    (a pack holds several), then chunk number."""
     inputs = [entry["path"] for entry in json.loads((build / "manifest.json").read_text())["inputs"]]
 
     def key(path: Path) -> tuple[int, str]:
-        first = pq.ParquetFile(path).read_row_group(0, columns=["source"]) if pq.ParquetFile(path).metadata.num_rows else None
-        return (inputs.index(first["source"][0].as_py()) if first is not None else -1, path.name.rsplit("-", 1)[-1])
+        sources = set(pq.read_table(path, columns=["source"])["source"].to_pylist())
+        return (min((inputs.index(s) for s in sources), default=-1), path.name.rsplit("-", 1)[-1])
 
     return [str(p) for p in sorted((build / "interim" / "prepared").glob("*.parquet"), key=key)]
+
+
+def corpus_rows(build: Path, columns: list[str]) -> list[dict]:
+    """Every prepared row (kept before deduplication) in corpus order: input file as listed in
+    the manifest, then byte offset; prepared tables store rows by split and doc_hash."""
+    inputs = [entry["path"] for entry in json.loads((build / "manifest.json").read_text())["inputs"]]
+    rows = [row for path in (build / "interim" / "prepared").glob("*.parquet")
+            for row in pq.read_table(path, columns=sorted({*columns, "source", "offset"})).to_pylist()]
+    return sorted(rows, key=lambda r: (inputs.index(r["source"]), r["offset"]))
 
 
 def page_arguments(build: Path, output: Path) -> list[str]:

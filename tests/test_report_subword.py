@@ -23,7 +23,7 @@ import pytest
 
 from conftest import DEMO, require_file, run_workflow
 from test_report_browser import CHROMIUM, DevTools, start_chromium, websocket_module
-from test_report_page import OPTIONS, corpus_order, png_chunks
+from test_report_page import OPTIONS, corpus_order, corpus_rows, png_chunks
 from steps.laws import ModelSize, fit_zipf
 from steps.growth import train_word_batches, whitespace_words, word_growth
 from steps.report_page import main, source_figures
@@ -134,14 +134,12 @@ def test_growth_counts_whitespace_words_of_the_train_sentences(subword_run: tupl
     prepared = corpus_order(build)
     seen: set[str] = set()
     after = [0]
-    for path in prepared:
-        # Prepared tables store rows by split and doc_hash; corpus order is offset order.
-        for row in pq.read_table(path, columns=["source", "offset", "split", "sentences"]).sort_by("offset").to_pylist():
-            if row["split"] != "train" or (row["source"], row["offset"]) in removed:
-                continue
-            for word in (w for sentence in row["sentences"] for w in WORD.findall(sentence)):
-                seen.add(word)
-                after.append(len(seen))
+    for row in corpus_rows(build, ["split", "sentences"]):
+        if row["split"] != "train" or (row["source"], row["offset"]) in removed:
+            continue
+        for word in (w for sentence in row["sentences"] for w in WORD.findall(sentence)):
+            seen.add(word)
+            after.append(len(seen))
     words, types = word_growth(train_word_batches(prepared, duplicates))
     assert words[-1] == len(after) - 1 == json.loads((build / "stats" / "coverage.json").read_text())["splits"]["train"]["words"]
     assert types.tolist() == [after[n] for n in words]

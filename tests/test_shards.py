@@ -76,15 +76,12 @@ def test_token_ids_add_up_over_calls_and_count_shape_classes():
 
 
 def heldout_corpus_order(build, split: str) -> list[str]:
-    """doc_ids of a held-out split's kept documents by input file (manifest order), then chunk, then offset."""
-    from tests.test_report_page import corpus_order
+    """doc_ids of a held-out split's kept documents by input file (manifest order), then offset."""
+    from tests.test_report_page import corpus_rows
 
     removed = {(r["source"], r["offset"]) for r in pq.read_table(build / "interim" / "duplicates.parquet").to_pylist()}
-    order = []
-    for path in corpus_order(build):
-        rows = pq.read_table(path, columns=["doc_id", "source", "offset", "split"]).sort_by("offset").to_pylist()
-        order += [r["doc_id"] for r in rows if r["split"] == split and (r["source"], r["offset"]) not in removed]
-    return order
+    rows = corpus_rows(build, ["doc_id", "split"])
+    return [r["doc_id"] for r in rows if r["split"] == split and (r["source"], r["offset"]) not in removed]
 
 
 def test_dev_and_test_streams_keep_corpus_order(demo_build):

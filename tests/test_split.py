@@ -14,6 +14,7 @@ from steps.split import (
     part_of, read_part,
 )
 from steps.storage import write_table
+from tests.test_prepare import store_chunk, synthetic_chunk
 
 FRACTIONS = {"train": 0.8, "dev": 0.1, "test": 0.1}
 
@@ -61,7 +62,20 @@ def test_duplicates_keep_the_first_in_corpus_order(tmp_path):
         {"source": "a.txt", "offset": 2, "doc_id": "a.txt:2", "duplicate_of": "a.txt:0"},
         {"source": "b.txt", "offset": 0, "doc_id": "b.txt:0", "duplicate_of": "a.txt:1"},
     ]
-    assert duplicate_mask(duplicates, "a.txt", pa.array([0, 1, 2])).to_pylist() == [False, False, True]
+    assert duplicate_mask(duplicates, pa.array(["a.txt"] * 3), pa.array([0, 1, 2])).to_pylist() == [False, False, True]
+
+
+def test_duplicates_of_a_pack_of_files_are_found_in_corpus_order(tmp_path):
+    """A pack holds several files whose offsets overlap; rows are stored out of corpus order."""
+    write_table(tmp_path / "pack.parquet", pa.table({
+        "source": ["b.txt", "a.txt", "b.txt", "a.txt"], "offset": [0, 0, 5, 5], "doc_id": ["b.txt:0", "a.txt:0", "b.txt:5", "a.txt:5"],
+        "fingerprint": pa.array([fingerprint(t) for t in ["x", "y", "z", "x"]], pa.binary(16)),
+    }))
+    duplicates = find_duplicates([str(tmp_path / "pack.parquet")])
+    assert duplicates.to_pylist() == [{"source": "b.txt", "offset": 0, "doc_id": "b.txt:0", "duplicate_of": "a.txt:5"}]
+    mask = duplicate_mask(duplicates, pa.array(["a.txt", "b.txt", "a.txt", "b.txt"]), pa.array([0, 0, 5, 5]))
+    assert mask.to_pylist() == [False, True, False, False]
+    assert duplicate_mask(duplicates, pa.array(["c.txt"]), pa.array([0])).to_pylist() == [False]
 
 
 def test_first_occurrences_match_a_first_seen_dict():
@@ -140,12 +154,11 @@ def test_order_keys_are_a_seeded_splitmix64_mix_of_the_doc_hash():
 
 def test_read_part_returns_exactly_its_part_and_skips_other_row_groups(tmp_path, monkeypatch):
     from steps import prepare
-    from tests.test_prepare import synthetic_chunk
 
     monkeypatch.setattr(prepare, "GROUP_TOKENS", 200)
     table = synthetic_chunk(2000)
     path = str(tmp_path / "chunk.parquet")
-    prepare.write_chunk_table(path, table, "word")
+    store_chunk(path, table, "word")
     read_groups = []
     original = pq.ParquetFile.read_row_groups
     monkeypatch.setattr(pq.ParquetFile, "read_row_groups", lambda self, groups, **kw: read_groups.append(len(groups)) or original(self, groups, **kw))
@@ -167,14 +180,12 @@ def test_read_part_returns_exactly_its_part_and_skips_other_row_groups(tmp_path,
 
 
 def test_kept_part_leaves_out_duplicates_and_keeps_corpus_order(tmp_path):
-    from steps import prepare
-    from tests.test_prepare import synthetic_chunk
-
-    table = synthetic_chunk(300)
+    table = synthetic_chunk(300, sources=("a.txt", "b.txt"))
     path = str(tmp_path / "chunk.parquet")
-    prepare.write_chunk_table(path, table, "word")
+    store_chunk(path, table, "word")
     rows = [r for r in table.to_pylist() if r["split"] == "train"]
-    removed = [rows[3], rows[40]]
+    assert rows[3]["source"] == "a.txt" and rows[-5]["source"] == "b.txt"
+    removed = [rows[3], rows[-5]]
     duplicates = pa.table({
         "source": [r["source"] for r in removed], "offset": [r["offset"] for r in removed],
         "doc_id": [r["doc_id"] for r in removed], "duplicate_of": ["x", "x"],

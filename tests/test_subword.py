@@ -100,8 +100,7 @@ def prepared_sentences(build: Path, split: str) -> dict[str, list[str]]:
     for path in sorted((build / "interim" / "prepared").glob("*.parquet")):
         table = pq.read_table(path)
         table = table.filter(pc.equal(table["split"], split))
-        if table.num_rows:
-            table = table.filter(pc.invert(duplicate_mask(duplicates, table["source"][0].as_py(), table["offset"])))
+        table = table.filter(pc.invert(duplicate_mask(duplicates, table["source"], table["offset"])))
         found.update(zip(table["doc_id"].to_pylist(), table["sentences"].to_pylist()))
     return found
 
@@ -290,16 +289,15 @@ def test_byte_runs_count_the_unk_pieces_of_the_same_model_without_byte_fallback(
     encoder = PieceEncoder(str(model_path), threads=2)
     column = pa.chunked_array([pa.array(sentences, pa.list_(pa.string()))])
     encoded = encoder.encode(column)
-    tally = PieceTally(encoder)
-    tally.add("dev", column, encoded)
+    figures = PieceTally(encoder).add("dev", column, encoded)
     copy = tmp_path / "no_fallback.model"
     copy.write_bytes(_without_byte_fallback(model_path.read_bytes()))
     plain = spm.SentencePieceProcessor(model_file=str(copy))
     flat = [s for document in sentences for s in document]
     unknown = sum(ids.count(plain.unk_id()) for ids in plain.encode(flat))
     assert unknown > 0
-    assert tally.figures["dev"]["byte_runs"] == unknown
-    assert tally.figures["dev"]["words"] == sum(len(s.split()) for s in flat)
+    assert figures["byte_runs"] == unknown
+    assert figures["words"] == sum(len(s.split()) for s in flat)
     reference = spm.SentencePieceProcessor(model_file=str(model_path)).encode(flat)
     assert [ids for document in encoded.to_pylist() for ids in document] == reference
 

@@ -35,7 +35,7 @@ def test_a_decompression_bomb_stops_at_max_decompressed_mb_with_a_clear_error(tm
     name = f"bomb.txt{codec}"
     (tmp_path / name).write_bytes(packed)
     tally = Tally()
-    reader = read_documents(tmp_path, Chunk(chunk_key(name, 0), name, 0, 1), 1 << 30, ReadOptions(max_decompressed_bytes=1 << 20), tally)
+    reader = read_documents(tmp_path, Chunk(chunk_key(name, 0), (name,)), 1 << 30, ReadOptions(max_decompressed_bytes=1 << 20), tally)
     with pytest.raises(CorpusError) as caught:
         for _ in reader:
             pass

@@ -2,6 +2,7 @@
 
 from __future__ import annotations
 
+import copy
 import hashlib
 import json
 import shutil
@@ -14,6 +15,8 @@ import pyarrow.parquet as pq
 import pytest
 
 from conftest import DEMO, run_workflow
+from steps import settings
+from steps.plan import Plan
 from steps.vocab import read_vocabulary
 
 
@@ -106,19 +109,31 @@ def test_dev_and_test_keep_corpus_order(demo_build: Path):
         assert sources == sorted(sources)
 
 
-def test_changing_one_input_reruns_only_its_chunk_and_the_aggregates(tmp_path: Path):
-    """Snakemake's own dry-run job list after editing one file."""
+@pytest.mark.parametrize("pack_mb", [0, 0.1])
+def test_changing_one_input_reruns_only_its_chunk_and_the_aggregates(tmp_path: Path, pack_mb: float):
+    """Snakemake's own dry-run job list after editing one file: with one job per file, and with
+    the demo's files packed into several jobs (pack_mb 0.1: the files are 11-61 KB), where the
+    packs to rerun are those holding the edited file or formed anew around it."""
     corpus = tmp_path / "corpus"
     shutil.copytree(DEMO, corpus)
-    overrides = {"corpus": {"root": str(corpus)}}
+    overrides = {"corpus": {"root": str(corpus), "pack_mb": pack_mb}}
     run_workflow(tmp_path / "run", overrides)
     assert "Nothing to be done" in run_workflow(tmp_path / "run", overrides, "-n").stdout
+    before = planned_chunks(overrides)
     with open(corpus / "journals" / "recipes.txt", "a", encoding="utf-8") as handle:
         handle.write("\nA new recipe for ember bread needs four cups of grey flour.\n")
+    after = planned_chunks(overrides)
     plan = run_workflow(tmp_path / "run", overrides, "-n", "--quiet", "rules").stdout
     jobs = {line.split()[0]: int(line.split()[1]) for line in plan.splitlines() if len(line.split()) == 2 and line.split()[1].isdigit()}
-    assert jobs["prepare"] == 1  # the other inputs' chunk tables and counts stay as they are
+    touched = [c for c in after if c not in before or "journals/recipes.txt" in c.sources]
+    assert len(after) > 2 and 1 <= len(touched) <= 2
+    assert jobs["prepare"] == len(touched)  # the other chunk tables and counts stay as they are
     assert "vocabulary" in jobs and "manifest" in jobs
+
+
+def planned_chunks(overrides: dict) -> list:
+    config = settings.resolve(copy.deepcopy(overrides))
+    return Plan.from_config(config).chunks
 
 
 def test_two_builds_are_byte_identical(tmp_path: Path, demo_build: Path):
