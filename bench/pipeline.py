@@ -14,7 +14,7 @@ The 10x corpus holds ten copies of every file; each paragraph of copy k starts w
 at 1x. The 10x build also uses ten times as many train shard files, so one shard job holds as
 much text at 10x as at 1x (the config's advice: train_files grows with the corpus).
 
-Usage: python bench/pipeline.py [--cores 2] [--scales 1 10] [--keep]   (needs `pip install -e '.[bench]'`)
+Usage: python bench/pipeline.py [--cores 2] [--scales 1 10] [--pack-mb MB] [--keep]   (needs `pip install -e '.[bench]'`)
 Corpus and builds go to bench/data/, results to bench/results/pipeline.json (both gitignored).
 """
 
@@ -271,7 +271,7 @@ def scale_run(scale: int, cores: int, config: dict) -> dict:
     if directory.exists():
         shutil.rmtree(directory)
     train_files = config["shards"]["train_files"] * scale
-    overrides = {"corpus": {"root": str(corpus)}, "shards": {"train_files": train_files}}
+    overrides = {"corpus": {"root": str(corpus), "pack_mb": config["corpus"]["pack_mb"]}, "shards": {"train_files": train_files}}
     result = {"input_mb": round(size / 1e6, 2), "files": FILES * scale, "train_files": train_files}
     result["build"] = run_build(directory, overrides, cores)
     result.update(build_figures(directory / "build"))
@@ -347,12 +347,15 @@ def main(argv: list[str] | None = None) -> None:
     parser.add_argument("--scales", type=int, nargs="+", default=[1, 10])
     parser.add_argument("--keep", action="store_true", help="keep the build folders under bench/data/runs")
     parser.add_argument("--output", default=str(RESULTS / "pipeline.json"))
+    parser.add_argument("--pack-mb", type=float, default=None, help="corpus.pack_mb (default: the configuration's; 0: a job per file)")
     args = parser.parse_args(argv)
     if not GCIDE.exists():
         raise SystemExit(f"bench: {GCIDE} is missing; install Debian's dict-gcide package (apt-get install -y dict-gcide)")
     config = default_config()
+    if args.pack_mb is not None:
+        config["corpus"]["pack_mb"] = args.pack_mb
     write_corpus(DATA / "x1", 1)
-    results = {"machine": machine(), "cores": args.cores, "floor": floor_pass(DATA / "x1", config), "scales": {}}
+    results = {"machine": machine(), "cores": args.cores, "pack_mb": config["corpus"]["pack_mb"], "floor": floor_pass(DATA / "x1", config), "scales": {}}
     for scale in args.scales:
         results["scales"][f"{scale}x"] = scale_run(scale, args.cores, config)
         if not args.keep:

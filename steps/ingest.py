@@ -169,7 +169,8 @@ def plan_chunks(
     def close_pack() -> None:
         nonlocal held
         if pack:
-            chunks.append(Chunk(chunk_key(pack[0], 0), tuple(pack)))
+            more = f"+{len(pack) - 1}" if len(pack) > 1 else ""  # a pack is named after its first file
+            chunks.append(Chunk(chunk_key(pack[0], 0) + more, tuple(pack)))
             pack.clear()
             held = 0
 

@@ -9,10 +9,11 @@ units = word) or `sentences` (list of cleaned sentence strings; units = subword)
 Rows are stored in runs: the batches are held as Arrow arrays (no Python objects) until they
 reach RUN_FACTOR x the chunk size in Arrow memory, then written ordered by split, then
 `doc_hash`, in row groups that never mix splits and hold about GROUP_TOKENS tokens each, so a
-shard job reads only the row groups of its own part (`steps.split.read_part`). A chunk of up to
-`corpus.chunk_mb` is one run (about 2.2 bytes of Arrow per byte of text; a 32 MB chunk of
-English peaked at 374 MiB while put in order); a larger one, which only a compressed file or a
-whole-file document can be, becomes several runs, so memory stays bounded whatever the file size.
+shard job reads only the row groups of its own part (`steps.split.read_part`). A chunk of
+`corpus.chunk_mb` of English text is one run (a 32 MB chunk peaked at 366-374 MiB while put in
+order); a larger one, which only a compressed file or a whole-file document can be, becomes
+several runs, so memory stays bounded whatever the file size (one .txt.gz of 40, 83 and 166 MB
+of text: 354, 374 and 414 MiB, `bench/prepare_memory.py`).
 """
 
 from __future__ import annotations
@@ -40,7 +41,7 @@ BATCH_DOCUMENTS = 4096
 # enough that a part's slice of a chunk wastes little of a group, large enough to read fast.
 GROUP_TOKENS = 1 << 14
 # Arrow bytes held before a run is written, per byte of corpus.chunk_mb.
-RUN_FACTOR = 4
+RUN_FACTOR = 2
 
 
 def chunk_schema(units: str) -> pa.Schema:

@@ -159,8 +159,8 @@ def test_chunk_and_pack_sizes_give_byte_identical_shards_and_vocabulary(tmp_path
     (root / "records.jsonl").write_bytes(jsonl_corpus(14, "\n", 40, long=60).encode("utf-8"))
     sources = sorted(p.name for p in root.iterdir())
     chunk_mb = 0.002
-    assert len(plan_chunks(root, sources, int(chunk_mb * (1 << 20)), "paragraph", 4 << 20)) >= 15
-    assert [c.sources for c in plan_chunks(root, sources, 32 << 20, "paragraph", 4 << 20)] == [tuple(sources)]
+    assert len(plan_chunks(root, sources, int(chunk_mb * (1 << 20)), "paragraph", 1 << 20)) >= 15
+    assert [c.sources for c in plan_chunks(root, sources, 32 << 20, "paragraph", 1 << 20)] == [tuple(sources)]
     base = {"corpus": {"root": str(root)}, "shards": {"train_files": 2}}
     run_workflow(tmp_path / "default", base)
     run_workflow(tmp_path / "tiny", {**base, "corpus": {"root": str(root), "chunk_mb": chunk_mb}})

@@ -191,7 +191,8 @@ def test_small_files_are_packed_in_path_order_and_larger_ones_stand_alone(tmp_pa
     assert [(c.sources, c.index, c.count) for c in chunks if c.sources == ("big.txt",)] == [(("big.txt",), k, 3) for k in range(3)]
     assert (("mid.txt",), 0, 1) in [(c.sources, c.index, c.count) for c in chunks]
     packs = [c for c in chunks if len(c.sources) > 1]
-    assert packs and all(c.key == chunk_key(c.sources[0], 0) for c in chunks if c.index == 0)
+    assert packs and all(c.key == f"{chunk_key(c.sources[0], 0)}+{len(c.sources) - 1}" for c in packs)
+    assert all(c.key == chunk_key(c.sources[0], c.index) for c in chunks if len(c.sources) == 1)
     assert len({c.key for c in chunks}) == len(chunks)
     assert all(sum((tmp_path / s).stat().st_size for s in c.sources) <= 200_000 for c in packs)
     unpacked = plan_chunks(tmp_path, sources, 200_000, "paragraph")
