@@ -164,17 +164,21 @@ class JobSampler:
     def stop(self) -> None:
         self._stop.set()
 
-    def by_rule(self) -> dict[str, dict]:
+    def by_rule(self, started: float) -> dict[str, dict]:
         """Per rule: jobs seen, peak RSS (MiB) of its largest job, summed sampled job wall and
-        CPU seconds (both up to the last sample, so slightly low)."""
+        CPU seconds (both up to the last sample, so slightly low), and when its first job was
+        first seen and its last job last seen, in seconds after `started`."""
         rules: dict[str, dict] = {}
         for pid, (rule, peak) in self.peaks.items():
-            entry = rules.setdefault(rule, {"jobs": 0, "peak_rss_mib": 0.0, "job_seconds": 0.0, "cpu_seconds": 0.0})
+            entry = rules.setdefault(rule, {"jobs": 0, "peak_rss_mib": 0.0, "job_seconds": 0.0, "cpu_seconds": 0.0,
+                                            "first_seen_s": float("inf"), "last_seen_s": 0.0})
             entry["jobs"] += 1
             entry["peak_rss_mib"] = round(max(entry["peak_rss_mib"], peak / 2**20), 1)
             first, last = self.seen[pid]
             entry["job_seconds"] = round(entry["job_seconds"] + last - first, 2)
             entry["cpu_seconds"] = round(entry["cpu_seconds"] + self.cpu.get(pid, 0.0), 2)
+            entry["first_seen_s"] = round(min(entry["first_seen_s"], first - started), 2)
+            entry["last_seen_s"] = round(max(entry["last_seen_s"], last - started), 2)
         return dict(sorted(rules.items()))
 
 
@@ -208,7 +212,7 @@ def run_build(directory: Path, overrides: dict, cores: int) -> dict:
         "load_before": round(load, 2),
         "load_after": round(os.getloadavg()[0], 2),
         "jobs": int(jobs.group(1)) if jobs else 0,
-        "rules": sampler.by_rule(),
+        "rules": sampler.by_rule(started),
         "snakemake_peak_rss_mib": round(sampler.snakemake_peak / 2**20, 1),
     }
 
@@ -325,9 +329,14 @@ def print_table(results: dict) -> None:
             f"{read['ids_per_s']:>12,} {read.get('ids_per_cpu_s', 0):>12,}"
         )
     for scale, run in results["scales"].items():
-        print(f"per rule at {scale} (peak RSS / summed job CPU s):")
+        print(f"per rule at {scale} (peak RSS / summed job CPU s / seconds after the start: first job seen, last job seen):")
         for rule, v in run["build"]["rules"].items():
-            print(f"  {rule:<12} {v['jobs']:>4} jobs {v['peak_rss_mib']:>7.0f} MiB {v['cpu_seconds']:>8.1f} CPU s")
+            print(f"  {rule:<12} {v['jobs']:>4} jobs {v['peak_rss_mib']:>7.0f} MiB {v['cpu_seconds']:>8.1f} CPU s "
+                  f"{v['first_seen_s']:>7.1f} {v['last_seen_s']:>7.1f}")
+        prepare = run["build"]["rules"].get("prepare")
+        if prepare:
+            tail = run["build"]["seconds"] - prepare["last_seen_s"]
+            print(f"  after the last prepare job: {tail:.1f} s = {tail / floor['seconds']:.2f} x F (the corpus-wide stages)")
     one = results["scales"].get("1x")
     if one and "rebuild" in one:
         r = one["rebuild"]
