@@ -200,10 +200,13 @@ def removed_counts(prepared_paths: Sequence[str], duplicates: pa.Table) -> pa.Ta
         if "tokens" not in parquet.schema_arrow.names or not parquet.metadata.num_rows:
             continue
         located = parquet.read(columns=["source", "offset"])
-        removed = duplicate_mask(duplicates, located["source"], located["offset"])
-        if pc.any(removed).as_py():
-            table = parquet.read(columns=["split", "tokens"])
-            parts.append(count_tokens(table.filter(removed)))
+        rows = np.flatnonzero(duplicate_mask(duplicates, located["source"], located["offset"]).to_numpy(zero_copy_only=False))
+        if len(rows):
+            # Only the row groups holding removed rows: their tokens, not the whole chunk's.
+            ends = np.cumsum([parquet.metadata.row_group(g).num_rows for g in range(parquet.num_row_groups)])
+            groups = np.unique(np.searchsorted(ends, rows, side="right")).tolist()
+            table = parquet.read_row_groups(groups, columns=["source", "offset", "split", "tokens"])
+            parts.append(count_tokens(table.filter(duplicate_mask(duplicates, table["source"], table["offset"]))))
     counts = sum_counts(parts) if parts else COUNTS_SCHEMA.empty_table()
     return counts.sort_by([("split", "ascending"), ("token", "ascending")])
 

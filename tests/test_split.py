@@ -192,3 +192,28 @@ def test_kept_part_leaves_out_duplicates_and_keeps_corpus_order(tmp_path):
     })
     kept = kept_part(path, "train", 0, 1, duplicates, ["doc_id", "offset"]).to_pylist()
     assert kept == [{"doc_id": r["doc_id"], "offset": r["offset"]} for r in rows if r not in removed]
+
+
+def test_removed_counts_equal_a_counter_recount_of_the_removed_documents(tmp_path, monkeypatch):
+    """collections.Counter over the tokens of the documents named in the duplicates table, per
+    split; the chunk is a pack of two files stored in many row groups."""
+    from collections import Counter
+
+    from steps import prepare
+    from steps.split import removed_counts
+
+    monkeypatch.setattr(prepare, "GROUP_TOKENS", 150)
+    table = synthetic_chunk(900, sources=("a.txt", "b.txt"))
+    path = str(tmp_path / "chunk.parquet")
+    store_chunk(path, table, "word")
+    assert pq.ParquetFile(path).num_row_groups > 30
+    rows = table.to_pylist()
+    removed = [rows[5], rows[17], rows[450], rows[899]]
+    duplicates = pa.table({
+        "source": [r["source"] for r in removed], "offset": [r["offset"] for r in removed],
+        "doc_id": [r["doc_id"] for r in removed], "duplicate_of": ["x"] * len(removed),
+    })
+    expected = Counter((r["split"], token) for r in removed for sentence in r["tokens"] for token in sentence)
+    counts = removed_counts([path], duplicates)
+    assert {(r["split"], r["token"]): r["count"] for r in counts.to_pylist()} == dict(expected)
+    assert removed_counts([path], duplicates.slice(0, 0)).num_rows == 0
