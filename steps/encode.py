@@ -8,7 +8,7 @@ order (uint64), sentences (list of sentences, each a list of uint32 ids).
 
 The model encodes whole cleaned sentences in batched calls on the rule's threads; the job
 also writes the chunk's piece counts per split (split, id, count; the vocabulary step sums
-them) and subword figures in its statistics. Word units need no such job: the shard step maps
+them) and subword figures per input file and split in its statistics (a pack holds several files). Word units need no such job: the shard step maps
 the prepared tokens itself (steps/shards.py).
 """
 
@@ -29,6 +29,8 @@ from steps.storage import ParquetSink, rebased_offsets, write_json, write_table
 from steps.vocab import RESERVED, UNK
 
 BATCH_ROWS = 4096
+# The statistics kept per input file and split.
+FIGURES = ("documents", "sentences", "tokens", "oov_tokens", "words", "byte_pieces", "byte_runs")
 
 ENCODED_SCHEMA = pa.schema(
     [("doc_id", pa.string()), ("order", pa.uint64()), ("sentences", pa.list_(pa.list_(pa.uint32())))]
@@ -129,9 +131,6 @@ def encode_chunk(
     for sink in sinks.values():
         sink.close()
     return dict(sorted(stats.items()))
-
-
-FIGURES = ("documents", "sentences", "tokens", "oov_tokens", "words", "byte_pieces", "byte_runs")
 
 
 def _by_source(rows: pa.Table) -> list[tuple[str, pa.Table]]:

@@ -593,6 +593,7 @@ class _FilePiece:
 
 
 def _pieces(chunk: Chunk, chunk_bytes: int) -> Iterator[_FilePiece]:
+    """What a chunk reads: each file of a pack whole, or its byte range of one large file."""
     if chunk.count == 1:
         yield from (_FilePiece(source, 0, None) for source in chunk.sources)
         return
