@@ -36,18 +36,15 @@ def compressed_corpus(folder: Path, copies: int) -> tuple[Path, int]:
     """One gzipped .txt of `copies` copies of the gcide text; returns its path and text bytes."""
     source = DATA / f"x{copies}"
     write_corpus(source, copies)
+    parts = sorted(source.glob("*.txt"))
     target = folder / f"gcide-x{copies}.txt.gz"
-    size = 0
     if not target.exists():
         folder.mkdir(parents=True, exist_ok=True)
         with gzip.open(target.with_suffix(".partial"), "wb", compresslevel=1) as out:
-            for path in sorted(source.glob("*.txt")):
+            for path in parts:
                 out.write(path.read_bytes() + b"\n")
         target.with_suffix(".partial").rename(target)
-    with gzip.open(target, "rb") as handle:
-        while block := handle.read(1 << 24):
-            size += len(block)
-    return target, size
+    return target, sum(path.stat().st_size + 1 for path in parts)
 
 
 def run_prepare(path: Path, config: dict, output: Path) -> dict:

@@ -8,7 +8,8 @@ order (uint64), sentences (list of sentences, each a list of uint32 ids).
 
 The model encodes whole cleaned sentences in batched calls on the rule's threads; the job
 also writes the chunk's piece counts per split (split, id, count; the vocabulary step sums
-them) and subword figures per input file and split in its statistics (a pack holds several files). Word units need no such job: the shard step maps
+them) and subword figures per input file and split in its statistics (a pack holds several
+files). Word units need no such job: the shard step maps
 the prepared tokens itself (steps/shards.py).
 """
 

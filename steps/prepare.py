@@ -275,6 +275,8 @@ def main(argv: list[str] | None = None) -> None:
     parser.add_argument("--tally", required=True)
     parser.add_argument("--counts", required=True, help="word counts per split of the kept documents")
     args = parser.parse_args(argv)
+    if len(args.source) > 1 and args.chunks != 1:
+        parser.error("several --source files (a pack) are read whole: give --chunk 0 --chunks 1")
     config = json.loads(args.options)
     chunk = Chunk(chunk_key(args.source[0], args.chunk), tuple(args.source), args.chunk, args.chunks)
     chunk_bytes = int(config["corpus"]["chunk_mb"] * (1 << 20))

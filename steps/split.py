@@ -203,10 +203,14 @@ def removed_counts(prepared_paths: Sequence[str], duplicates: pa.Table) -> pa.Ta
         rows = np.flatnonzero(duplicate_mask(duplicates, located["source"], located["offset"]).to_numpy(zero_copy_only=False))
         if len(rows):
             # Only the row groups holding removed rows: their tokens, not the whole chunk's.
-            ends = np.cumsum([parquet.metadata.row_group(g).num_rows for g in range(parquet.num_row_groups)])
-            groups = np.unique(np.searchsorted(ends, rows, side="right")).tolist()
-            table = parquet.read_row_groups(groups, columns=["source", "offset", "split", "tokens"])
-            parts.append(count_tokens(table.filter(duplicate_mask(duplicates, table["source"], table["offset"]))))
+            sizes = np.array([parquet.metadata.row_group(g).num_rows for g in range(parquet.num_row_groups)])
+            starts = np.cumsum(sizes) - sizes
+            groups, chosen = np.unique(np.searchsorted(starts, rows, side="right") - 1, return_inverse=True)
+            # Each row's position once only the chosen groups are read, one after another.
+            read_starts = np.cumsum(sizes[groups]) - sizes[groups]
+            positions = read_starts[chosen] + rows - starts[groups[chosen]]
+            table = parquet.read_row_groups(groups.tolist(), columns=["split", "tokens"])
+            parts.append(count_tokens(table.take(pa.array(positions))))
     counts = sum_counts(parts) if parts else COUNTS_SCHEMA.empty_table()
     return counts.sort_by([("split", "ascending"), ("token", "ascending")])
 
