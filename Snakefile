@@ -27,12 +27,22 @@ except (settings.ConfigError, CorpusError) as error:
     sys.exit(f"corpusmill: {error}")
 
 L = PLAN.layout
-PY = f"PYTHONPATH={workflow.basedir!r} {sys.executable!r}"
+if workflow.is_main_process:
+    PLAN.write_files([L.coverage])
+
+
+def literal(text):
+    """Text for a shell command: quoted for the shell, braces doubled for Snakemake's formatting."""
+    return shlex.quote(text).replace("{", "{{").replace("}", "}}")
+
+
+PY = f"PYTHONPATH={literal(workflow.basedir)} {literal(sys.executable)}"
 
 
 def step(name, args):
-    """Shell command running steps.<name>; output goes to the job's log, whose end is shown on failure."""
-    return "{{ " + PY + " -m steps.run " + name + " " + args + " ; }} > {log} 2>&1 || {{ tail -n 20 {log} >&2; exit 1; }}"
+    """Shell command running steps.<name>; output goes to the job's log, whose end is shown on failure.
+    Every value in `args` is quoted (`:q` or shlex.quote)."""
+    return "{{ " + PY + " -m steps.run " + name + " " + args + " ; }} > {log:q} 2>&1 || {{ tail -n 20 {log:q} >&2; exit 1; }}"
 
 
 wildcard_constraints:

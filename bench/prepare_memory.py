@@ -27,7 +27,8 @@ sys.path.insert(0, str(REPO))
 sys.path.insert(0, str(REPO / "bench"))
 
 from pipeline import DATA, GCIDE, RESULTS, default_config, write_corpus  # noqa: E402
-from steps.plan import RULE_SECTIONS  # noqa: E402
+from steps.ingest import Chunk, chunk_key  # noqa: E402
+from steps.plan import RULE_SECTIONS, chunk_record, write_if_changed  # noqa: E402
 
 TIME = "/usr/bin/time"
 
@@ -49,11 +50,13 @@ def compressed_corpus(folder: Path, copies: int) -> tuple[Path, int]:
 
 def run_prepare(path: Path, config: dict, output: Path) -> dict:
     """The prepare rule's command on one file; returns peak RSS (MiB) and CPU seconds."""
+    config = {**config, "corpus": {**config["corpus"], "root": str(path.parent)}}
     options = json.dumps({k: config[k] for k in RULE_SECTIONS["prepare"]}, sort_keys=True)
     output.mkdir(parents=True, exist_ok=True)
+    plan = output / "chunk.json"
+    write_if_changed(plan, chunk_record(path.parent, Chunk(chunk_key(path.name, 0), (path.name,))))
     command = [
-        TIME, "-f", "%M %U %S %e", sys.executable, "-m", "steps.run", "prepare", "--root", str(path.parent),
-        "--source", path.name, "--chunk", "0", "--chunks", "1", "--options", options,
+        TIME, "-f", "%M %U %S %e", sys.executable, "-m", "steps.run", "prepare", "--plan", str(plan), "--options", options,
         "--output", str(output / "table.parquet"), "--tally", str(output / "tally.json"), "--counts", str(output / "counts.parquet"),
     ]
     result = subprocess.run(command, capture_output=True, text=True, env={**os.environ, "PYTHONPATH": str(REPO)})

@@ -29,17 +29,18 @@ rule manifest:
         duplicates=L.duplicates,
         vocabulary=L.vocabulary,
         coverage=L.coverage,
+        plan=L.manifest_plan,
+        corpus=L.corpus_plan,
     output:
         L.manifest,
     log:
         L.log("manifest"),
     params:
         options=json.dumps(CONFIG, sort_keys=True),
-        plan=PLAN.manifest_plan([L.coverage]),
         code=code_hash("manifest"),
     threads: 1
     resources:
         mem_mb=CONFIG["resources"]["aggregate_mem_mb"],
         runtime=CONFIG["resources"]["runtime_min"],
     shell:
-        step("manifest", "--options {params.options:q} --plan {params.plan:q} --output {output:q}")
+        step("manifest", "--options {params.options:q} --plan {input.plan:q} --output {output:q}")

@@ -1,18 +1,17 @@
 # Per-chunk reading, cleaning, segmentation and split; then corpus-wide duplicate removal.
+# A chunk's files are named in its plan file (steps/plan.py), the job's input.
 
 LEARNED = [L.abbreviations] if CONFIG["segment"]["learn_abbreviations"] else []
 
 
 rule abbreviations:
     input:
-        sources=[os.path.join(PLAN.root, s) for s in PLAN.sources],
+        plans=[L.chunk_plan(c) for c in PLAN.chunk_keys],
     output:
         L.abbreviations,
     log:
         L.log("abbreviations"),
     params:
-        root=PLAN.root,
-        sources=PLAN.sources,
         options=PLAN.options("abbreviations"),
         code=code_hash("abbreviations"),
     threads: 1
@@ -20,12 +19,12 @@ rule abbreviations:
         mem_mb=CONFIG["resources"]["aggregate_mem_mb"],
         runtime=CONFIG["resources"]["runtime_min"],
     shell:
-        step("segment", "--root {params.root:q} --options {params.options:q} --output {output:q} {params.sources:q}")
+        step("segment", "--options {params.options:q} --output {output:q} {input.plans:q}")
 
 
 rule prepare:
     input:
-        sources=lambda w: [os.path.join(PLAN.root, s) for s in PLAN.chunk(w.chunk).sources],
+        plan=L.chunk_plan("{chunk}"),
         abbreviations=LEARNED,
     output:
         table=L.prepared("{chunk}"),
@@ -34,11 +33,7 @@ rule prepare:
     log:
         L.log("prepare", "{chunk}"),
     params:
-        root=PLAN.root,
-        sources=lambda w: " ".join(f"--source {shlex.quote(s)}" for s in PLAN.chunk(w.chunk).sources),
-        chunk_index=lambda w: PLAN.chunk(w.chunk).index,
-        chunks=lambda w: PLAN.chunk(w.chunk).count,
-        learned=lambda w, input: f"--abbreviations {input.abbreviations}" if LEARNED else "",
+        learned=lambda w, input: f"--abbreviations {shlex.quote(str(input.abbreviations))}" if LEARNED else "",
         options=PLAN.options("prepare"),
         code=code_hash("prepare"),
     threads: 1
@@ -46,8 +41,8 @@ rule prepare:
         mem_mb=CONFIG["resources"]["prepare_mem_mb"],
         runtime=CONFIG["resources"]["runtime_min"],
     shell:
-        step("prepare", "--root {params.root:q} {params.sources} --chunk {params.chunk_index} "
-             "--chunks {params.chunks} --options {params.options:q} {params.learned} --output {output.table:q} --tally {output.tally:q} --counts {output.counts:q}")
+        step("prepare", "--plan {input.plan:q} --options {params.options:q} {params.learned} "
+             "--output {output.table:q} --tally {output.tally:q} --counts {output.counts:q}")
 
 
 rule deduplicate:

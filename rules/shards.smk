@@ -13,7 +13,7 @@ rule shard:
     log:
         L.log("shard", "{split}-{part}"),
     params:
-        outputs=lambda w, output: " ".join(f"--output {kind}={getattr(output, kind)}" for kind in PLAN.kinds),
+        outputs=lambda w, output: " ".join(f"--output {shlex.quote(kind + '=' + getattr(output, kind))}" for kind in PLAN.kinds),
         duplicates=lambda w, input: " ".join(f"--duplicates {shlex.quote(p)}" for p in input.duplicates),
         options=PLAN.options("shard"),
         code=code_hash("shard"),

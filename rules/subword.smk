@@ -53,26 +53,30 @@ rule subword_train:
         step("subword train", "--options {params.options:q} --sample {input.sample:q} --output {output:q}")
 
 
-def subword_model_source(wildcards):
-    """The frozen model, or the cached model named by the current sample's key."""
+def learned_model(wildcards):
+    """The cached model named by the current sample's key; none with a frozen model, which is
+    not a Snakemake input (its name may hold wildcard characters) but reruns this rule through
+    its content hash, a parameter."""
     if SUBWORD_FROZEN:
-        return SUBWORD_FROZEN
+        return []
     with open(checkpoints.subword_sample.get().output.key, encoding="utf-8") as handle:
         return L.subword_trained(handle.read().strip())
 
 
 rule subword_model:
     input:
-        subword_model_source,
+        learned=learned_model,
     output:
         L.subword_model,
     log:
         L.log("subword_model"),
     params:
+        model=lambda w, input: SUBWORD_FROZEN or input.learned,
+        frozen=PLAN.frozen.get("subword.frozen", ""),
         code=code_hash("subword_model"),
     threads: 1
     resources:
         mem_mb=CONFIG["resources"]["prepare_mem_mb"],
         runtime=CONFIG["resources"]["runtime_min"],
     shell:
-        step("subword install", "--model {input:q} --output {output:q}")
+        step("subword install", "--model {params.model:q} --output {output:q}")

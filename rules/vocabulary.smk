@@ -6,7 +6,6 @@
 rule vocabulary:
     input:
         counts=[L.piece_counts(c) if SUBWORD else L.counts(c) for c in PLAN.chunk_keys],
-        frozen=[CONFIG["vocabulary"]["frozen"]] if CONFIG["vocabulary"]["frozen"] and not SUBWORD else [],
         model=[L.subword_model] if SUBWORD else [],
         removed=[] if SUBWORD else [L.removed_counts],
     output:
@@ -16,6 +15,7 @@ rule vocabulary:
         L.log("vocabulary"),
     params:
         options=PLAN.options("vocabulary"),
+        frozen=PLAN.frozen.get("vocabulary.frozen", ""),
         counts_from=f"--model {shlex.quote(L.subword_model)}" if SUBWORD else f"--removed {shlex.quote(L.removed_counts)}",
         code=code_hash("vocabulary"),
     threads: 1

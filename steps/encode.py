@@ -27,7 +27,7 @@ import sentencepiece as spm
 from steps.layout import SPLITS
 from steps.split import kept_part, order_keys, part_of
 from steps.storage import ParquetSink, rebased_offsets, write_json, write_table
-from steps.vocab import RESERVED, UNK
+from steps.vocab import BOS, EOS, RESERVED, UNK
 
 BATCH_ROWS = 4096
 # The statistics kept per input file and split.
@@ -71,11 +71,14 @@ class PieceTally:
         self.counts = {split: np.zeros(encoder.size, np.int64) for split in SPLITS}
 
     def add(self, split: str, sentences: pa.ChunkedArray, encoded: pa.ListArray) -> dict[str, int]:
-        """Count the pieces of one batch; returns its whitespace words, byte pieces and byte runs."""
+        """Count the pieces of one batch, and <s> and </s> as they occur in its id streams (once
+        per document and once per sentence); returns its whitespace words, byte pieces and byte runs."""
         texts = pc.list_flatten(sentences)
         per_sentence = encoded.flatten()
         ids = per_sentence.flatten().to_numpy().astype(np.int64)
         self.counts[split] += np.bincount(ids, minlength=len(self.counts[split]))
+        self.counts[split][RESERVED.index(BOS)] += len(encoded)
+        self.counts[split][RESERVED.index(EOS)] += len(per_sentence)
         is_byte = self._byte_mask[ids]
         starts = np.zeros(len(ids), dtype=bool)
         offsets = per_sentence.offsets.to_numpy()

@@ -20,6 +20,7 @@ import hashlib
 import io
 import json
 import lzma
+import os
 import re
 from collections import Counter
 from collections.abc import Iterator
@@ -123,23 +124,136 @@ def split_name(name: str) -> tuple[str, str]:
     return next((f for f in FORMATS if stem.endswith(f)), ""), compression
 
 
-def find_inputs(root: str | Path, include: list[str], exclude: list[str]) -> list[str]:
-    """Relative POSIX paths of the regular files under root matching include and not exclude."""
+@dataclass(frozen=True)
+class CorpusSurvey:
+    """Every file under the corpus root and what becomes of it, each list sorted by path.
+
+    sources: read as input. unselected: matched by no `include` pattern. excluded: matched,
+    then removed by an `exclude` pattern. refused: selected but not read, with the reason (a
+    link leading outside the root, a link to nothing, not a regular file)."""
+
+    sources: list[str]
+    unselected: list[str]
+    excluded: list[str]
+    refused: list[tuple[str, str]]
+
+
+def pattern_regex(pattern: str) -> re.Pattern[str]:
+    """A glob over relative POSIX paths as a regular expression: `*` and `?` stay inside one
+    folder name, `[...]` is a character class, a `**` segment spans any number of folders."""
+    parts = []
+    segments = pattern.split("/")
+    for number, segment in enumerate(segments):
+        last = number == len(segments) - 1
+        if segment == "**":
+            parts.append(".*" if last else "(?:[^/]+/)*")
+            continue
+        position, piece = 0, []
+        while position < len(segment):
+            char = segment[position]
+            if char == "*":
+                piece.append("[^/]*")
+            elif char == "?":
+                piece.append("[^/]")
+            elif char == "[" and (close := segment.find("]", position + 2)) > 0:
+                inner = segment[position + 1 : close]
+                inner = "^" + inner[1:] if inner.startswith("!") else inner
+                piece.append("[" + inner.replace("\\", "\\\\") + "]")
+                position = close
+            else:
+                piece.append(re.escape(char))
+            position += 1
+        parts.append("".join(piece) + ("" if last else "/"))
+    return re.compile("".join(parts), re.DOTALL)
+
+
+def check_pattern(field: str, pattern: str) -> None:
+    """Patterns select files below the root only: no absolute pattern, no `..` folder."""
+    if pattern.startswith("/") or ".." in pattern.split("/"):
+        raise CorpusError(
+            f"{field} pattern {pattern!r} reaches outside corpus.root; patterns are relative to the root and may "
+            "not start with '/' or hold a '..' folder: point corpus.root at the folder that holds all your text"
+        )
+
+
+def _walk(base: Path, follow_outside: bool) -> Iterator[tuple[str, str]]:
+    """(relative path, what it is) for everything under `base`: "file", or for what is not
+    read "outside_link", "broken_link", "special" (a FIFO, socket or device). Links inside the
+    root are read through; a link to a folder inside the root is not descended (its files are
+    found at their own place), one leading outside only under `follow_outside`."""
+    real_base = base.resolve()
+    visited = {real_base}
+    folders = [("", base)]
+    while folders:
+        prefix, folder = folders.pop()
+        try:
+            entries = sorted(os.scandir(folder), key=lambda entry: entry.name)
+        except OSError as error:
+            raise CorpusError(f"{folder}: cannot be listed ({error.strerror}); check its permissions") from None
+        for entry in entries:
+            relative = prefix + entry.name
+            if not entry.is_symlink():
+                if entry.is_dir(follow_symlinks=False):
+                    folders.append((relative + "/", Path(entry.path)))
+                else:
+                    yield relative, "file" if entry.is_file(follow_symlinks=False) else "special"
+                continue
+            try:
+                target = Path(entry.path).resolve(strict=True)
+            except (OSError, RuntimeError):
+                yield relative, "broken_link"
+                continue
+            inside = target == real_base or real_base in target.parents
+            if not inside and not follow_outside:
+                yield relative, "outside_link"
+            elif target.is_dir():
+                if not inside and target not in visited:
+                    visited.add(target)
+                    folders.append((relative + "/", target))
+            else:
+                yield relative, "file" if target.is_file() else "special"
+
+
+REFUSAL_REASONS = {
+    "outside_link": "a link leading outside corpus.root (set corpus.outside_links: follow to read it)",
+    "broken_link": "a link to nothing",
+    "special": "not a regular file",
+}
+
+
+def survey_corpus(root: str | Path, include: list[str], exclude: list[str], follow_outside: bool = False) -> CorpusSurvey:
+    """Walk the corpus root once and sort every file into sources, unselected, excluded and refused."""
     base = Path(root)
     if not base.is_dir():
         raise CorpusError(f"{root}: corpus root is not a folder; set corpus.root to the folder holding your text")
-    found: set[str] = set()
-    for pattern in include:
-        found.update(p.relative_to(base).as_posix() for p in base.glob(pattern) if p.is_file())
-    excluded = {p.relative_to(base) for pattern in exclude for p in base.glob(pattern)}
-    chosen = sorted(p for p in found if not excluded.intersection([PurePosixPath(p), *PurePosixPath(p).parents]))
-    unknown = [p for p in chosen if not split_name(p)[0]]
+    for field, patterns in (("corpus.include", include), ("corpus.exclude", exclude)):
+        for pattern in patterns:
+            check_pattern(field, pattern)
+    wanted = [pattern_regex(p) for p in include]
+    unwanted = [pattern_regex(p) for p in exclude]
+
+    def excluded(path: str) -> bool:
+        folders = path.split("/")
+        candidates = ["/".join(folders[:n]) for n in range(1, len(folders) + 1)]
+        return any(p.fullmatch(c) for p in unwanted for c in candidates)
+
+    sources, unselected, dropped, refused = [], [], [], []
+    for path, kind in _walk(base, follow_outside):
+        if not any(p.fullmatch(path) for p in wanted):
+            unselected.append(path)
+        elif excluded(path):
+            dropped.append(path)
+        elif kind != "file":
+            refused.append((path, REFUSAL_REASONS[kind]))
+        else:
+            sources.append(path)
+    unknown = [p for p in sources if not split_name(p)[0]]
     if unknown:
         raise CorpusError(
             f"{base / unknown[0]}: not a .txt or .jsonl file (optionally .gz/.bz2/.xz/.zst); "
             "narrow corpus.include or add it to corpus.exclude"
         )
-    return chosen
+    return CorpusSurvey(sorted(sources), sorted(unselected), sorted(dropped), sorted(refused))
 
 
 def chunk_key(source: str, index: int) -> str:

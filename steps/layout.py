@@ -7,6 +7,12 @@ from pathlib import Path
 
 SPLITS = ("train", "dev", "test")
 KINDS = ("ngram", "block", "stream")
+# The windows section that enables each kind.
+KIND_SECTIONS = {"ngram": "ngram", "block": "blocks", "stream": "streams"}
+
+
+def enabled_kinds(windows: dict) -> list[str]:
+    return [kind for kind in KINDS if windows[KIND_SECTIONS[kind]]["enabled"]]
 
 
 def _part(part: int | str) -> str:
@@ -57,6 +63,18 @@ class Layout:
 
     def shards_dir(self) -> str:
         return self._join("shards")
+
+    # The plan, written when the workflow is read: what each chunk reads, and the corpus survey.
+    def chunk_plan(self, chunk: str) -> str:
+        return self._join("interim", "plan", "chunks", f"{chunk}.json")
+
+    @property
+    def corpus_plan(self) -> str:
+        return self._join("interim", "plan", "corpus.json")
+
+    @property
+    def manifest_plan(self) -> str:
+        return self._join("interim", "plan", "manifest.json")
 
     # Intermediates, one set per input chunk.
     def prepared(self, chunk: str) -> str:

@@ -1,6 +1,7 @@
 """Manifest: one JSON file describing a build completely, with nothing that varies between runs.
 
 It records the resolved configuration and its hash, a fingerprint of every input file, the
+files under the corpus root that were not read (unselected, excluded, refused), the
 vocabulary hash, per-split figures, every shard file with its rows and SHA-256, and the
 document accounting: read + pieces added by splitting = kept + dropped (by reason).
 """
@@ -58,8 +59,7 @@ def accounting(tallies: Sequence[dict], duplicates: int) -> dict:
 
 def build_manifest(
     config: dict,
-    root: str,
-    sources: Sequence[str],
+    corpus: dict,
     build_dir: str,
     tallies: Sequence[dict],
     duplicates: int,
@@ -92,8 +92,8 @@ def build_manifest(
                 )
         splits[split] = figures
     inputs = []
-    for source in sources:
-        path = Path(root) / source
+    for source in corpus["sources"]:
+        path = Path(corpus["root"]) / source
         inputs.append({"path": source, "bytes": path.stat().st_size, "sha256": file_sha256(path)})
     return {
         "schema_version": SCHEMA_VERSION,
@@ -101,6 +101,7 @@ def build_manifest(
         "config_sha256": digest(config),
         "inputs": inputs,
         "inputs_sha256": digest(inputs),
+        "not_read": {key: corpus[key] for key in ("unselected", "excluded", "refused")},
         "vocabulary": {
             "file": "vocabulary.tsv",
             "sha256": vocabulary.digest(),
@@ -122,17 +123,17 @@ def build_manifest(
 def main(argv: list[str] | None = None) -> None:
     parser = argparse.ArgumentParser(description="Write the manifest of a build.")
     parser.add_argument("--options", required=True)
-    parser.add_argument("--plan", required=True, help="JSON: root, sources, build_dir, parts, kinds")
+    parser.add_argument("--plan", required=True, help="the manifest's plan file (steps/plan.py): the build's files")
     parser.add_argument("--output", required=True)
     args = parser.parse_args(argv)
     config = json.loads(args.options)
-    plan = json.loads(args.plan)
+    plan = read_json(args.plan)
     tallies = [read_json(p) for p in plan["tallies"]]
     duplicates = pq.ParquetFile(plan["duplicates"]).metadata.num_rows
     part_stats = {(s["split"], s["part"]): read_json(s["stats"]) for s in plan["parts"]}
     shards = {(s["split"], s["part"]): s["files"] for s in plan["parts"]}
     manifest = build_manifest(
-        config, plan["root"], plan["sources"], plan["build_dir"], tallies, duplicates, part_stats, shards, plan["extra_files"]
+        config, read_json(plan["corpus"]), plan["build_dir"], tallies, duplicates, part_stats, shards, plan["extra_files"]
     )
     write_json(args.output, manifest)
     print(json.dumps(manifest["accounting"], sort_keys=True))

@@ -29,7 +29,7 @@ import pyarrow as pa
 import pyarrow.compute as pc
 
 from steps.clean import CleanOptions, clean_text, rejection
-from steps.ingest import Chunk, CorpusError, Document, ReadOptions, Tally, chunk_key, read_documents
+from steps.ingest import Chunk, CorpusError, Document, ReadOptions, Tally, read_documents
 from steps.segment import Segmenter
 from steps.split import assign_split, doc_hash, fingerprint
 from steps.storage import ParquetSink, write_json, write_table
@@ -263,26 +263,28 @@ def read_abbreviations(path: str | None) -> frozenset[str]:
     return frozenset(line.strip() for line in Path(path).read_text(encoding="utf-8").splitlines() if line.strip())
 
 
+def read_chunk_plan(path: str) -> Chunk:
+    """The chunk a plan file (steps.plan.Plan.chunk_plan) describes."""
+    record = json.loads(Path(path).read_text(encoding="utf-8"))
+    return Chunk(record["key"], tuple(name for name, _, _ in record["files"]), record["index"], record["count"])
+
+
 def main(argv: list[str] | None = None) -> None:
     parser = argparse.ArgumentParser(description="Prepare one input chunk: read, clean, segment, split.")
-    parser.add_argument("--root", required=True)
-    parser.add_argument("--source", required=True, action="append", help="path relative to the corpus root; repeated for a pack")
-    parser.add_argument("--chunk", type=int, required=True)
-    parser.add_argument("--chunks", type=int, required=True)
+    parser.add_argument("--plan", required=True, help="the chunk's plan file: its files, index and count")
     parser.add_argument("--options", required=True, help="JSON: the resolved configuration")
     parser.add_argument("--abbreviations", default=None, help="file of learned abbreviations, one a line")
     parser.add_argument("--output", required=True)
     parser.add_argument("--tally", required=True)
     parser.add_argument("--counts", required=True, help="word counts per split of the kept documents")
     args = parser.parse_args(argv)
-    if len(args.source) > 1 and args.chunks != 1:
-        parser.error("several --source files (a pack) are read whole: give --chunk 0 --chunks 1")
     config = json.loads(args.options)
-    chunk = Chunk(chunk_key(args.source[0], args.chunk), tuple(args.source), args.chunk, args.chunks)
+    chunk = read_chunk_plan(args.plan)
     chunk_bytes = int(config["corpus"]["chunk_mb"] * (1 << 20))
     try:
         tally = prepare_chunk(
-            args.root, chunk, chunk_bytes, config, args.output, args.tally, read_abbreviations(args.abbreviations), args.counts
+            config["corpus"]["root"], chunk, chunk_bytes, config, args.output, args.tally,
+            read_abbreviations(args.abbreviations), args.counts,
         )
     except CorpusError as error:
         raise SystemExit(f"corpusmill: {error}") from None

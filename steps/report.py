@@ -60,23 +60,28 @@ def split_figures(counts: pa.Table, known: np.ndarray, split: str, top: int) -> 
     return figures
 
 
-def size_table(counts: pa.Table, sizes: Sequence[int], chosen: int) -> list[dict]:
-    """Train coverage and dev/test OOV rate if the vocabulary were the k most frequent words."""
+def size_table(counts: pa.Table, sizes: Sequence[int], known: np.ndarray, words: int) -> list[dict]:
+    """Train coverage and dev/test OOV rate if the vocabulary were the k most frequent words,
+    and the row of the build's own `words` words (`chosen`), figured from the words themselves
+    (`known`): a frozen vocabulary need not be the most frequent words of this corpus, and
+    may hold words it never uses."""
     train = counts["train"].to_numpy()
     distinct = int(np.count_nonzero(train))
-    candidates = sorted({k for k in sizes if k < distinct} | {chosen, distinct})
     cumulative = {split: np.concatenate([[0], np.cumsum(counts[split].to_numpy())]) for split in SPLITS}
-    rows = []
-    for k in candidates:
-        row = {"size": k, "chosen": k == chosen, "train_coverage": _rate(cumulative["train"][k], cumulative["train"][-1])}
+
+    def row(size: int, covered: dict[str, int], chosen: bool) -> dict:
+        figures = {"size": size, "chosen": chosen, "train_coverage": _rate(covered["train"], cumulative["train"][-1])}
         for split in ("dev", "test"):
             total = cumulative[split][-1]
-            row[f"{split}_oov_rate"] = _rate(total - cumulative[split][k], total)
-        rows.append(row)
-    return rows
+            figures[f"{split}_oov_rate"] = _rate(total - covered[split], total)
+        return figures
+
+    rows = [row(k, {split: cumulative[split][k] for split in SPLITS}, False) for k in sorted({k for k in sizes if k < distinct} | {distinct}) if k != words]
+    rows.append(row(words, {split: int(counts[split].to_numpy()[known].sum()) for split in SPLITS}, True))
+    return sorted(rows, key=lambda r: (r["size"], not r["chosen"]))
 
 
-def coverage_statistics(counts: pa.Table, vocabulary: Vocabulary, part_stats: Sequence[dict], top: int) -> dict:
+def coverage_statistics(counts: pa.Table, vocabulary: Vocabulary, part_stats: Sequence[dict], top: int, frozen: str | None = None) -> dict:
     """Word-unit coverage; `part_stats` are the shard jobs' statistics, each holding its split's
     tokens, OOV tokens and unknown ids per input file."""
     known = in_vocabulary(counts, vocabulary)
@@ -100,12 +105,13 @@ def coverage_statistics(counts: pa.Table, vocabulary: Vocabulary, part_stats: Se
     return {
         "vocabulary_size": vocabulary.size,
         "words": words,
+        "frozen": frozen,
         "splits": {split: split_figures(counts, known, split, top) for split in SPLITS},
         "train_singletons": {
             "types_share": _rate(int(singletons.sum()), int(np.count_nonzero(train))),
             "tokens_share": _rate(int(singletons.sum()), int(train.sum())),
         },
-        "sizes": size_table(counts, TABLE_SIZES, words),
+        "sizes": size_table(counts, TABLE_SIZES, known, words),
         "unknown_classes": {split: dict(sorted(v.items())) for split, v in unknown.items()},
         "sources": dict(sorted(by_source.items())),
     }
@@ -173,6 +179,7 @@ def main(argv: list[str] | None = None) -> None:
         read_vocabulary(args.vocabulary),
         [read_json(p) for p in args.stats],
         config["report"]["top_oov"],
+        config["vocabulary"]["frozen"],
     )
     write_json(args.output, stats)
     print(format_table(stats))

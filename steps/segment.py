@@ -12,6 +12,7 @@ import argparse
 import json
 from collections.abc import Callable
 from dataclasses import dataclass, field
+from pathlib import Path
 
 import regex
 
@@ -36,6 +37,8 @@ _PATTERN_PIECES = {
 _NUMBER = regex.compile(r"[+\-]?\p{Nd}+(?:[.,:]\p{Nd}+)*%?", regex.V1)
 _PUNCTUATION_SENTENCE_END = regex.compile(r"(?<=[.!?][\"'\u2019\u201d)\]]*)\s+(?=[\"'\u2018\u201c(\[]*[\p{Lu}\p{Nd}])", regex.V1)
 _ABBREVIATION_TAIL = regex.compile(r"(\S+)\.[\"'\u2019\u201d)\]]*$")
+# A line break with no line break beside it: inside a paragraph of hard-wrapped text.
+_SINGLE_LINE_BREAK = regex.compile(r"(?<!\n)\n(?!\n)")
 
 
 def _pattern_tokenizer(apostrophes: str, hyphens: str) -> Callable[[str], list[str]]:
@@ -78,11 +81,23 @@ def _punctuation_sentences(abbreviations: frozenset[str]) -> Callable[[str], lis
     return split
 
 
+def _joining_wrapped_lines(split: Callable[[str], list[str]]) -> Callable[[str], list[str]]:
+    """`split` applied with every single line break read as a space (line_ends = "soft"): most
+    plain-text corpora wrap paragraphs at a fixed width, and every sentence rule (UAX #29's
+    SB4 included) would end a sentence at each line end. A blank line still ends one."""
+
+    def joined(text: str) -> list[str]:
+        return split(_SINGLE_LINE_BREAK.sub(" ", text) if "\n" in text else text)
+
+    return joined
+
+
 @dataclass
 class Segmenter:
     """Turns cleaned text into sentences of tokens, as configured under `segment`."""
 
     sentences_mode: str = "uax29"
+    line_ends: str = "soft"
     words_mode: str = "uax29"
     apostrophes: str = "keep"
     hyphens: str = "keep"
@@ -102,6 +117,8 @@ class Segmenter:
                 return [stripped for s in unicode_breaks.sentence_segments(text, abbreviations) if (stripped := s.strip())]
 
             self._sentences = uax29
+        if self.line_ends == "soft" and self.sentences_mode != "line":
+            self._sentences = _joining_wrapped_lines(self._sentences)
         if self.words_mode == "pattern":
             self._tokens = _pattern_tokenizer(self.apostrophes, self.hyphens)
         else:
@@ -111,6 +128,7 @@ class Segmenter:
     def from_config(cls, segment: dict, learned: frozenset[str] = frozenset()) -> "Segmenter":
         return cls(
             sentences_mode=segment["sentences"],
+            line_ends=segment["line_ends"],
             words_mode=segment["words"],
             apostrophes=segment["apostrophes"],
             hyphens=segment["hyphens"],
@@ -167,14 +185,15 @@ def learned_abbreviations(root: str, sources: list[str], config: dict, sample_by
 
 def main(argv: list[str] | None = None) -> None:
     parser = argparse.ArgumentParser(description="Learn abbreviations from the corpus (segment.learn_abbreviations).")
-    parser.add_argument("--root", required=True)
     parser.add_argument("--options", required=True, help="JSON: corpus, clean sections")
     parser.add_argument("--sample-mb", type=float, default=16.0, help="text read from the start of each file")
     parser.add_argument("--output", required=True)
-    parser.add_argument("sources", nargs="+")
+    parser.add_argument("plans", nargs="+", help="the chunk plan files (steps/plan.py) naming the input files")
     args = parser.parse_args(argv)
+    config = json.loads(args.options)
+    sources = sorted({name for path in args.plans for name, _, _ in json.loads(Path(path).read_text(encoding="utf-8"))["files"]})
     try:
-        found = learned_abbreviations(args.root, args.sources, json.loads(args.options), int(args.sample_mb * (1 << 20)))
+        found = learned_abbreviations(config["corpus"]["root"], sources, config, int(args.sample_mb * (1 << 20)))
     except CorpusError as error:
         raise SystemExit(f"corpusmill: {error}") from None
     write_text(args.output, "".join(f"{word}\n" for word in sorted(found)))

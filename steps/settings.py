@@ -9,16 +9,29 @@ from __future__ import annotations
 import copy
 import hashlib
 import json
+import math
 from pathlib import Path, PurePosixPath
 from typing import Any
 
 import jsonschema
+import regex
 
 SCHEMA_PATH = Path(__file__).resolve().parent.parent / "workflow_config" / "config.schema.json"
 
 
 class ConfigError(ValueError):
     """A configuration value the workflow cannot run with."""
+
+
+# A configuration is a few hundred values; YAML anchors and aliases can make a file of a few
+# hundred bytes stand for billions (an "alias bomb"), which expanding would exhaust memory.
+MAX_CONFIG_VALUES = 100_000
+# build_dir reaches shell commands, Snakemake's path patterns (where { } are wildcards and
+# <name> a path variable) and libraries that read ~ or a scheme: so letters and digits of any
+# script, spaces and a few marks only, and no leading '-' (it would read as an option).
+_SAFE_BUILD_DIR = regex.compile(r"[\p{L}\p{M}\p{N} ._+@,=/-]+", regex.V1)
+# The split hash is keyed with the salt, and a BLAKE2b key holds at most 64 bytes.
+MAX_SALT_BYTES = 64
 
 
 def load_schema() -> dict[str, Any]:
@@ -73,17 +86,56 @@ def _field(path: Any) -> str:
     return ".".join(str(p) for p in path) or "(top level)"
 
 
-def _check_relative(field: str, value: str) -> None:
-    path = PurePosixPath(value.replace("\\", "/"))
-    if path.is_absolute() or ".." in path.parts:
+def _expanded_size(value: Any, limit: int) -> int:
+    """How many values `value` holds once every shared (aliased) part is counted where it is
+    used, without expanding anything; stops counting past `limit`."""
+    sizes: dict[int, int] = {}
+
+    def size(item: Any) -> int:
+        if not isinstance(item, (dict, list)):
+            return 1
+        known = sizes.get(id(item))
+        if known is None:
+            sizes[id(item)] = limit + 1  # a container that holds itself is over any limit
+            children = item.values() if isinstance(item, dict) else item
+            total = 1
+            for child in children:
+                total = min(total + size(child), limit + 1)
+                if total > limit:
+                    break
+            sizes[id(item)] = known = total
+        return known
+
+    return size(value)
+
+
+def _check_finite(value: Any, path: tuple[str, ...] = ()) -> None:
+    """Refuse .inf and .nan anywhere: they pass every minimum and maximum of a schema."""
+    if isinstance(value, float) and not math.isfinite(value):
+        raise ConfigError(f"invalid configuration: {_field(path)} = {value}: allowed: a finite number")
+    children = value.items() if isinstance(value, dict) else enumerate(value) if isinstance(value, list) else ()
+    for key, child in children:
+        _check_finite(child, (*path, str(key)))
+
+
+def _check_build_dir(value: str) -> None:
+    path = PurePosixPath(value)
+    if path.is_absolute() or ".." in path.parts or not _SAFE_BUILD_DIR.fullmatch(value) or value.startswith("-"):
         raise ConfigError(
-            f"invalid configuration: {field} = {value!r}: must be a relative path without '..' "
-            "(outputs never leave the working directory)"
+            f"invalid configuration: build_dir = {json.dumps(value, ensure_ascii=False)}: allowed: a relative path without "
+            "'..' of letters, digits, spaces and . _ - + @ , = / (not starting with '-'); outputs never leave the "
+            "working directory, and the name reaches shell commands and path patterns"
         )
 
 
 def resolve(raw: dict[str, Any]) -> dict[str, Any]:
     """Return the validated configuration with every default filled in; raise ConfigError."""
+    if _expanded_size(raw, MAX_CONFIG_VALUES) > MAX_CONFIG_VALUES:
+        raise ConfigError(
+            f"invalid configuration: more than {MAX_CONFIG_VALUES:,} values once YAML aliases (*name) are expanded; "
+            "a corpusmill configuration holds a few hundred: remove the aliases or the unknown keys that hold them"
+        )
+    _check_finite(raw)
     config = _unshared(dict(raw))
     schema = load_schema()
     _fill_defaults(config, schema)
@@ -107,7 +159,13 @@ def resolve(raw: dict[str, Any]) -> dict[str, Any]:
         )
     if fractions["train"] <= 0:
         raise ConfigError("invalid configuration: split.fractions.train = 0: allowed: a share > 0 (the vocabulary is counted on train)")
-    _check_relative("build_dir", config["build_dir"])
+    _check_build_dir(config["build_dir"])
+    salt = config["split"]["salt"]
+    if len(salt.encode("utf-8")) > MAX_SALT_BYTES:
+        raise ConfigError(
+            f"invalid configuration: split.salt = {json.dumps(salt, ensure_ascii=False)}: allowed: at most "
+            f"{MAX_SALT_BYTES} bytes of UTF-8 (the split hash is keyed with it)"
+        )
     blocks = config["windows"]["blocks"]
     if blocks["stride"] > blocks["length"] + 1:
         raise ConfigError(

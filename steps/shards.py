@@ -61,11 +61,6 @@ def kind_schema(kind: str, ids: pa.DataType, windows: dict) -> pa.Schema:
     return pa.schema([("doc_id", pa.string()), ("ids", pa.list_(ids))])
 
 
-def enabled_kinds(windows: dict) -> list[str]:
-    names = {"ngram": "ngram", "blocks": "block", "streams": "stream"}
-    return [kind for key, kind in names.items() if windows[key]["enabled"]]
-
-
 @dataclass
 class Rows:
     """The rows of every enabled kind cut from one batch of documents (numpy arrays)."""

@@ -26,7 +26,8 @@ def format_table(stats: dict) -> str:
     """A short plain-text summary for the end of a run."""
     if stats.get("units") == "subword":
         return format_subword_table(stats)
-    lines = [f"vocabulary: {stats['vocabulary_size']} ids, {stats['words']} words"]
+    frozen = f" (frozen: {stats['frozen']})" if stats.get("frozen") else ""
+    lines = [f"vocabulary: {stats['vocabulary_size']} ids, {stats['words']} words{frozen}"]
     lines.append(f"{'split':<6} {'tokens':>10} {'types':>8} {'OOV tokens':>11} {'OOV rate':>9} {'OOV types':>9}")
     for split in SPLITS:
         f = stats["splits"][split]

@@ -70,22 +70,18 @@ def unknown_class(token: str) -> str:
 
 
 def count_tokens(table: pa.Table) -> pa.Table:
-    """Word counts per split of a chunk table (columns split, tokens), counted by Arrow."""
+    """Word counts per split of a chunk table (columns split, tokens), counted by Arrow, with
+    the boundary symbols as they occur in the id streams: <s> once per document, </s> once
+    per sentence. No segmenter makes a token of these strings (`<` is always a token of its
+    own), so they cannot be confused with words; `merge_counts` takes them out again."""
     parts = []
     for split in SPLITS:
         rows = table.filter(pc.equal(table["split"], split))
-        tokens = pc.list_flatten(pc.list_flatten(rows["tokens"])) if rows.num_rows else pa.array([], pa.string())
-        counted = pc.value_counts(tokens)
-        parts.append(
-            pa.table(
-                {
-                    "split": pa.array([split] * len(counted), pa.string()),
-                    "token": counted.field("values"),
-                    "count": pc.cast(counted.field("counts"), pa.int64()),
-                },
-                schema=COUNTS_SCHEMA,
-            )
-        )
+        sentences = pc.list_flatten(rows["tokens"]) if rows.num_rows else pa.array([], pa.list_(pa.string()))
+        counted = pc.value_counts(pc.list_flatten(sentences))
+        tokens = pa.concat_arrays([counted.field("values"), pa.array([BOS, EOS], pa.string())])
+        numbers = pa.concat_arrays([pc.cast(counted.field("counts"), pa.int64()), pa.array([rows.num_rows, len(sentences)], pa.int64())])
+        parts.append(pa.table({"split": pa.array([split] * len(tokens), pa.string()), "token": tokens, "count": numbers}, schema=COUNTS_SCHEMA))
     return pa.concat_tables(parts)
 
 
@@ -99,9 +95,10 @@ def sum_counts(tables: Sequence[pa.Table]) -> pa.Table:
     return summed.filter(pc.not_equal(summed["count"], 0))
 
 
-def merge_counts(paths: Sequence[str], removed: str | None = None) -> pa.Table:
+def merge_counts(paths: Sequence[str], removed: str | None = None) -> tuple[pa.Table, dict[str, dict[str, int]]]:
     """One table token → train, dev, test counts, summed over chunks minus the counts of the
-    `removed` (duplicate) documents, sorted by (-train, token)."""
+    `removed` (duplicate) documents, sorted by (-train, token); and the boundary symbols'
+    counts per split ({"<s>": {"train": documents, …}, "</s>": {"train": sentences, …}})."""
     # Sum a few chunk tables at a time into the running total: memory follows the vocabulary,
     # not the number of chunks (integer sums, so the order of merging cannot change a count).
     summed = COUNTS_SCHEMA.empty_table()
@@ -110,13 +107,18 @@ def merge_counts(paths: Sequence[str], removed: str | None = None) -> pa.Table:
     if removed:
         duplicates = pq.read_table(removed)
         summed = sum_counts([summed, duplicates.set_column(2, "count", pc.negate(duplicates["count"]))])
+    boundary = pc.is_in(summed["token"], value_set=pa.array([BOS, EOS], pa.string()))
+    boundaries = {symbol: dict.fromkeys(SPLITS, 0) for symbol in (BOS, EOS)}
+    for split, token, count in zip(*(summed.filter(boundary)[name].to_pylist() for name in COUNTS_SCHEMA.names)):
+        boundaries[token][split] = count
+    summed = summed.filter(pc.invert(boundary))
     tokens = pc.unique(summed["token"]) if summed.num_rows else pa.array([], pa.string())
     columns = {"token": tokens}
     for split in SPLITS:
         rows = summed.filter(pc.equal(summed["split"], split))
         position = pc.index_in(tokens, value_set=rows["token"])
         columns[split] = pc.fill_null(pc.take(rows["count"], position), 0)
-    return sort_by_frequency(pa.table(columns))
+    return sort_by_frequency(pa.table(columns)), boundaries
 
 
 def sort_by_frequency(table: pa.Table) -> pa.Table:
@@ -245,8 +247,9 @@ def _raise_bad_line(path: str | Path, reason: str) -> None:
     raise ValueError(f"{path}: cannot be read as a vocabulary file ({reason}); write it with corpusmill or fix that value")
 
 
-def build_vocabulary(counts: pa.Table, cutoff: Cutoff, unknown: str) -> Vocabulary:
-    """Reserved symbols, unknown classes, then the words that pass the cutoff."""
+def build_vocabulary(counts: pa.Table, cutoff: Cutoff, unknown: str, boundaries: dict[str, int] | None = None) -> Vocabulary:
+    """Reserved symbols, unknown classes, then the words that pass the cutoff. `boundaries`
+    gives the train counts of <s> and </s> (documents and sentences)."""
     train = counts["train"].to_numpy()
     keep = choose_size(train, cutoff)
     classes = [UNK] + ([name for name, _ in SHAPE_CLASSES] if unknown == "shape" else [])
@@ -255,7 +258,8 @@ def build_vocabulary(counts: pa.Table, cutoff: Cutoff, unknown: str) -> Vocabula
         if count:
             unknown_counts[unknown_class(token) if unknown == "shape" else UNK] += count
     tokens = list(RESERVED) + classes[1:] + counts["token"].slice(0, keep).to_pylist()
-    numbers = [0, unknown_counts[UNK], 0, 0] + [unknown_counts[c] for c in classes[1:]] + train[:keep].tolist()
+    ends = boundaries or {}
+    numbers = [0, unknown_counts[UNK], ends.get(BOS, 0), ends.get(EOS, 0)] + [unknown_counts[c] for c in classes[1:]] + train[:keep].tolist()
     kinds = ["reserved"] * len(RESERVED) + ["unknown"] * (len(classes) - 1) + ["word"] * keep
     return Vocabulary(tokens, numbers, kinds)
 
@@ -289,14 +293,59 @@ class Lookup:
         return distinct[encoded.indices.to_numpy(zero_copy_only=False)]
 
 
+class VocabularyError(ValueError):
+    """A vocabulary that cannot be built or used; the message names the file or the cause."""
+
+
+def check_frozen(vocabulary: Vocabulary, unknown: str, path: str | Path) -> None:
+    """A frozen word vocabulary must have the layout the build relies on: the reserved symbols
+    at ids 0-3, the unknown classes `unknown` asks for right after them, then distinct
+    non-empty words; raise VocabularyError naming the first line that breaks it."""
+    classes = [name for name, _ in SHAPE_CLASSES] if unknown == "shape" else []
+    expected = [(token, "reserved") for token in RESERVED] + [(name, "unknown") for name in classes]
+    for line, (token, kind) in enumerate(expected, start=2):
+        found = (vocabulary.tokens[line - 2], vocabulary.kinds[line - 2]) if line - 2 < vocabulary.size else None
+        if found != (token, kind):
+            raise VocabularyError(
+                f"{path}: line {line}: expected {token!r} of kind {kind!r} (id {line - 2}), found "
+                f"{'nothing' if found is None else f'{found[0]!r} of kind {found[1]!r}'}; with vocabulary.unknown = "
+                f"{unknown!r} ids 0-{len(expected) - 1} are {', '.join(t for t, _ in expected)}"
+            )
+    seen: dict[str, int] = {}
+    for index in range(vocabulary.size):
+        token, kind, count = vocabulary.tokens[index], vocabulary.kinds[index], vocabulary.counts[index]
+        if index >= len(expected) and kind != "word":
+            raise VocabularyError(f"{path}: line {index + 2}: kind {kind!r} after the reserved and unknown ids; words have kind 'word'")
+        if not token or token != token.strip() or count < 0:
+            raise VocabularyError(f"{path}: line {index + 2}: {token!r} with count {count} is not a word with a count >= 0")
+        if token in seen:
+            raise VocabularyError(f"{path}: line {index + 2}: {token!r} is listed again (first on line {seen[token] + 2}); ids must name distinct tokens")
+        seen[token] = index
+
+
 def vocabulary_from_counts(
     count_paths: Sequence[str], removed: str | None, config: dict, frozen: str | None
 ) -> tuple[Vocabulary, pa.Table]:
-    counts = merge_counts(count_paths, removed)
-    if frozen:
-        return read_vocabulary(frozen), counts
+    """The vocabulary (built, or the frozen file checked) and the token counts of the build;
+    raise VocabularyError when train is empty or the frozen file is unusable."""
+    counts, boundaries = merge_counts(count_paths, removed)
+    totals = {split: boundaries[BOS][split] for split in SPLITS}
+    if not totals["train"]:
+        raise VocabularyError(
+            f"the train split is empty: no kept document landed in train (dev {totals['dev']}, test {totals['test']} documents); "
+            "give the corpus more documents or raise split.fractions.train (the vocabulary and every model are learned on train)"
+        )
     vocabulary_config = config["vocabulary"]
-    return build_vocabulary(counts, Cutoff.from_config(vocabulary_config), vocabulary_config["unknown"]), counts
+    if frozen:
+        try:
+            vocabulary = read_vocabulary(frozen)
+        except (OSError, ValueError) as error:
+            raise VocabularyError(str(error)) from None
+        check_frozen(vocabulary, vocabulary_config["unknown"], frozen)
+        return vocabulary, counts
+    cutoff = Cutoff.from_config(vocabulary_config)
+    train_ends = {symbol: boundaries[symbol]["train"] for symbol in (BOS, EOS)}
+    return build_vocabulary(counts, cutoff, vocabulary_config["unknown"], train_ends), counts
 
 
 def piece_kind(processor: spm.SentencePieceProcessor, piece_id: int) -> str:
@@ -308,7 +357,8 @@ def piece_kind(processor: spm.SentencePieceProcessor, piece_id: int) -> str:
 
 
 def vocabulary_from_model(model: str, count_paths: Sequence[str]) -> tuple[Vocabulary, pa.Table]:
-    """The model's pieces in id order with their train counts, and token counts per split.
+    """The model's pieces in id order with their train counts, and token counts per split
+    (pieces only: <s> and </s>, counted in the vocabulary, are not tokens of the text).
 
     `count_paths` are the encode step's piece counts (split, id, count) per chunk."""
     processor = spm.SentencePieceProcessor(model_file=model)
@@ -322,7 +372,8 @@ def vocabulary_from_model(model: str, count_paths: Sequence[str]) -> tuple[Vocab
             np.add.at(per_split[split], rows["id"].to_numpy(), rows["count"].to_numpy())
     vocabulary = Vocabulary(pieces, per_split["train"].tolist(), [piece_kind(processor, i) for i in range(size)])
     counts = pa.table({"token": pa.array(pieces, pa.string()), **{split: pa.array(per_split[split], pa.int64()) for split in SPLITS}})
-    return vocabulary, sort_by_frequency(counts)
+    boundary = np.isin(np.arange(size), [RESERVED.index(BOS), RESERVED.index(EOS)])
+    return vocabulary, sort_by_frequency(counts.filter(pa.array(~boundary)))
 
 
 def main(argv: list[str] | None = None) -> None:
@@ -348,8 +399,8 @@ def main(argv: list[str] | None = None) -> None:
     frozen = config["vocabulary"]["frozen"]
     try:
         vocabulary, counts = vocabulary_from_counts(args.counts, args.removed, config, frozen)
-    except (OSError, ValueError) as error:
-        raise SystemExit(f"corpusmill: vocabulary.frozen: {error}") from None
+    except VocabularyError as error:
+        raise SystemExit(f"corpusmill: {'vocabulary.frozen: ' if frozen else ''}{error}") from None
     write_table(args.token_counts, counts)
     write_text(args.vocabulary, vocabulary.to_tsv())
     print(f"vocabulary: {vocabulary.size} ids ({vocabulary.size - vocabulary.first_word_id} words)")

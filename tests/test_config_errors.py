@@ -7,6 +7,7 @@ schema cannot express are in steps.settings.
 
 from __future__ import annotations
 
+import json
 from pathlib import Path
 
 import pytest
@@ -83,7 +84,95 @@ def test_yaml_aliases_sharing_one_mapping_are_validated_as_separate_sections() -
 def test_a_build_dir_leaving_the_working_directory_is_refused(value: str) -> None:
     """POSIX path semantics (pathlib.PurePosixPath): absolute paths and '..' escape the folder."""
     message = error_of({"build_dir": value})
-    assert f"build_dir = {value!r}" in message and "relative path without '..'" in message
+    assert f"build_dir = {json.dumps(value)}" in message and "relative path without '..'" in message
+
+
+@pytest.mark.parametrize(
+    "value", ["b$(touch marker)", "x;touch marker;#", "`id`", "~", "~/b", "-rf", "a{b}", "<results>", "a|b", "a\nb", "s3://x", "q'uote"]
+)
+def test_a_build_dir_with_shell_wildcard_or_home_characters_is_refused(value: str) -> None:
+    """POSIX shell syntax (command substitution, ';', quotes, '~'), Snakemake's {wildcard} and
+    <pathvar> patterns, a URI scheme, a leading '-' read as an option: none may reach a
+    command line or a path pattern, so the schema's message names the characters allowed."""
+    message = error_of({"build_dir": value})
+    assert "build_dir = " in message and "letters, digits, spaces and . _ - + @ , = /" in message
+
+
+@pytest.mark.parametrize("value", ["build", "out dir/é", "b-1.2_x+y@z,w=v", "корпус/сборка"])
+def test_a_build_dir_of_letters_digits_spaces_and_marks_of_any_script_is_accepted(value: str) -> None:
+    assert settings.resolve({"build_dir": value})["build_dir"] == value
+
+
+def test_a_yaml_alias_bomb_is_refused_before_anything_expands_it() -> None:
+    """YAML 1.2 §3.2.2.2: an alias is the same node again, so nine levels of ten aliases stand
+    for 10**9 values in a few hundred bytes. The check counts without expanding."""
+    text = "junk:\n  l0: &l0 [x, x, x, x, x, x, x, x, x, x]\n" + "".join(
+        f"  l{n}: &l{n} [{', '.join([f'*l{n - 1}'] * 10)}]\n" for n in range(1, 9)
+    )
+    raw = yaml.safe_load(text)
+    message = error_of(raw)
+    assert "more than 100,000 values once YAML aliases" in message
+
+
+def test_a_few_aliases_in_a_real_config_are_still_accepted() -> None:
+    raw = yaml.safe_load("segment:\n  abbreviations: &list [dr, mr]\nreport:\n  embedding_widths: [1, 2]\n")
+    assert settings.resolve(raw)["segment"]["abbreviations"] == ["dr", "mr"]
+
+
+@pytest.mark.parametrize(
+    ("override", "field"),
+    [
+        ({"corpus": {"chunk_mb": float("inf")}}, "corpus.chunk_mb = inf"),
+        ({"corpus": {"chunk_mb": float("nan")}}, "corpus.chunk_mb = nan"),
+        ({"corpus": {"pack_mb": float("inf")}}, "corpus.pack_mb = inf"),
+        ({"vocabulary": {"coverage": float("nan")}}, "vocabulary.coverage = nan"),
+    ],
+)
+def test_infinite_and_nan_numbers_are_refused_naming_the_field(override: dict, field: str) -> None:
+    """IEEE 754 NaN compares false with every bound, so a schema's minimum and maximum let it pass."""
+    message = error_of(override)
+    assert field in message and "a finite number" in message
+
+
+@pytest.mark.parametrize(
+    ("override", "field"),
+    [
+        ({"corpus": {"chunk_mb": 1e-9}}, "corpus.chunk_mb"),
+        ({"corpus": {"chunk_mb": 1e-6}}, "corpus.chunk_mb"),
+        ({"subword": {"seed": 10**30}}, "subword.seed"),
+        ({"windows": {"blocks": {"length": 1048576}}}, "windows.blocks.length"),
+        ({"shards": {"seed": 2**64}}, "shards.seed"),
+        ({"corpus": {"max_document_bytes": 2**40}}, "corpus.max_document_bytes"),
+        ({"report": {"top_oov": 10**9}}, "report.top_oov"),
+    ],
+)
+def test_every_number_has_a_range(override: dict, field: str) -> None:
+    message = error_of(override)
+    assert f"{field} = " in message and "allowed: type" in message
+
+
+def test_every_number_in_the_schema_has_both_bounds() -> None:
+    """A number without an upper bound lets a config plan millions of jobs or overflow later."""
+    unbounded = []
+
+    def walk(node: dict, path: str) -> None:
+        types = node.get("type", [])
+        types = types if isinstance(types, list) else [types]
+        if {"integer", "number"} & set(types) and not ("maximum" in node and ("minimum" in node or "exclusiveMinimum" in node)):
+            unbounded.append(path)
+        for key, child in node.get("properties", {}).items():
+            walk(child, f"{path}.{key}".strip("."))
+        if isinstance(node.get("items"), dict):
+            walk(node["items"], path + "[]")
+
+    walk(settings.load_schema(), "")
+    assert unbounded == []
+
+
+def test_a_salt_longer_than_the_hash_key_is_refused() -> None:
+    """BLAKE2b keys hold at most 64 bytes (RFC 7693 §2.1); a longer salt would be cut silently."""
+    message = error_of({"split": {"salt": "é" * 40}})
+    assert "split.salt" in message and "64 bytes" in message
 
 
 def test_a_section_that_is_not_a_mapping_is_refused() -> None:

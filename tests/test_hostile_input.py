@@ -19,6 +19,7 @@ import regex
 
 from steps import settings
 from steps.ingest import Chunk, CorpusError, Document, ReadOptions, Tally, chunk_key, read_documents
+from steps.plan import chunk_record, write_if_changed
 from steps.prepare import prepare_chunk
 from steps.segment import Segmenter, is_lossless
 from tests import hostile
@@ -143,8 +144,10 @@ def test_crlf_and_lone_cr_line_ends_give_the_same_documents_as_lf(tmp_path: Path
 def _peak_rss_mib(root: Path, name: str, out: Path, corpus: dict) -> float:
     """Peak resident memory (MiB) of `python -m steps.prepare` on one file, from wait4(2)."""
     config = settings.resolve({"corpus": {"root": str(root), **corpus}})
+    plan = out / f"{name}.plan.json"
+    write_if_changed(plan, chunk_record(root, Chunk(chunk_key(name, 0), (name,))))
     command = [
-        sys.executable, "-m", "steps.prepare", "--root", str(root), "--source", name, "--chunk", "0", "--chunks", "1",
+        sys.executable, "-m", "steps.prepare", "--plan", str(plan),
         "--options", json.dumps(config), "--output", str(out / f"{name}.parquet"), "--tally", str(out / f"{name}.json"),
         "--counts", str(out / f"{name}.counts.parquet"),
     ]  # fmt: skip

@@ -6,13 +6,26 @@ import bz2
 import gzip
 import json
 import lzma
+import os
 import random
 from pathlib import Path
 
 import pytest
 import zstandard
 
-from steps.ingest import Chunk, CorpusError, ReadOptions, Tally, chunk_key, find_inputs, plan_chunks, read_documents, split_name
+from steps.ingest import (
+    REFUSAL_REASONS,
+    Chunk,
+    CorpusError,
+    ReadOptions,
+    Tally,
+    chunk_key,
+    pattern_regex,
+    plan_chunks,
+    read_documents,
+    split_name,
+    survey_corpus,
+)
 
 
 def read_all(root: Path, source: str, chunk_bytes: int = 1 << 30, **options) -> tuple[list, Tally]:
@@ -36,19 +49,20 @@ def test_inputs_are_found_by_globs_sorted_and_excluded(tmp_path: Path):
     for name in ["b/two.txt", "a/one.txt", "a/skip/three.txt", "four.jsonl.gz"]:
         (tmp_path / name).parent.mkdir(parents=True, exist_ok=True)
         (tmp_path / name).write_bytes(b"x")
-    found = find_inputs(tmp_path, ["**/*.txt", "**/*.jsonl.*"], ["a/skip/**"])
-    assert found == ["a/one.txt", "b/two.txt", "four.jsonl.gz"]
+    survey = survey_corpus(tmp_path, ["**/*.txt", "**/*.jsonl.*"], ["a/skip/**"])
+    assert survey.sources == ["a/one.txt", "b/two.txt", "four.jsonl.gz"]
+    assert survey.excluded == ["a/skip/three.txt"] and survey.unselected == [] and survey.refused == []
 
 
 def test_a_selected_file_of_unknown_format_is_an_error_naming_it(tmp_path: Path):
     (tmp_path / "notes.md").write_text("x")
     with pytest.raises(CorpusError, match=r"notes\.md: not a \.txt or \.jsonl"):
-        find_inputs(tmp_path, ["*"], [])
+        survey_corpus(tmp_path, ["*"], [])
 
 
 def test_missing_root_is_an_error_saying_what_to_set(tmp_path: Path):
     with pytest.raises(CorpusError, match="corpus.root"):
-        find_inputs(tmp_path / "nowhere", ["*.txt"], [])
+        survey_corpus(tmp_path / "nowhere", ["*.txt"], [])
 
 
 def test_chunk_plan_uses_sizes_only_and_keeps_compressed_files_whole(tmp_path: Path):
@@ -254,3 +268,67 @@ def test_a_pack_reads_each_file_whole_in_path_order(tmp_path: Path):
         ("c.txt:0", "c.txt", 0, "with a mark\n"),
     ]
     assert tally.read == 5
+
+
+@pytest.mark.parametrize("pattern", ["../../outside/*.txt", "/etc/*.txt", "a/../../x.txt", ".."])
+def test_a_pattern_reaching_outside_the_root_is_refused_naming_it(tmp_path: Path, pattern: str):
+    outside = tmp_path / "outside"
+    outside.mkdir()
+    (outside / "secret.txt").write_text("not for the corpus")
+    root = tmp_path / "root" / "inner"
+    root.mkdir(parents=True)
+    with pytest.raises(CorpusError, match="reaches outside corpus.root"):
+        survey_corpus(root, [pattern], [])
+    with pytest.raises(CorpusError, match="corpus.exclude pattern"):
+        survey_corpus(root, ["*.txt"], [pattern])
+
+
+def test_links_leading_outside_the_root_are_refused_and_listed_unless_followed(tmp_path: Path):
+    """A link to a file or folder outside the root is not read by default and is listed with its
+    reason; links inside the root are read; a FIFO and a dangling link are refused too (a FIFO
+    would block a reader forever)."""
+    outside = tmp_path / "outside"
+    (outside / "deep").mkdir(parents=True)
+    (outside / "passwd.txt").write_text("root:x:0:0")
+    (outside / "deep" / "more.txt").write_text("more")
+    root = tmp_path / "root"
+    (root / "real").mkdir(parents=True)
+    (root / "real" / "kept.txt").write_text("kept")
+    (root / "passwd.txt").symlink_to(outside / "passwd.txt")
+    (root / "away").symlink_to(outside / "deep")
+    (root / "inside.txt").symlink_to(root / "real" / "kept.txt")
+    (root / "again").symlink_to(root / "real")  # a second way into a folder inside: not descended
+    (root / "dangling.txt").symlink_to(tmp_path / "nothing.txt")
+    os.mkfifo(root / "pipe.txt")
+    (root / "notes.md").write_text("not selected")
+    survey = survey_corpus(root, ["**/*.txt"], [])
+    assert survey.sources == ["inside.txt", "real/kept.txt"]
+    assert survey.refused == [
+        ("dangling.txt", REFUSAL_REASONS["broken_link"]),
+        ("passwd.txt", REFUSAL_REASONS["outside_link"]),
+        ("pipe.txt", REFUSAL_REASONS["special"]),
+    ]
+    assert survey.unselected == ["away", "notes.md"]
+    followed = survey_corpus(root, ["**/*.txt"], [], follow_outside=True)
+    assert followed.sources == ["away/more.txt", "inside.txt", "passwd.txt", "real/kept.txt"]
+
+
+def test_a_folder_link_loop_ends(tmp_path: Path):
+    outside = tmp_path / "outside"
+    outside.mkdir()
+    (outside / "loop").symlink_to(outside)
+    (outside / "a.txt").write_text("a")
+    root = tmp_path / "root"
+    root.mkdir()
+    (root / "out").symlink_to(outside)
+    assert survey_corpus(root, ["**/*.txt"], [], follow_outside=True).sources == ["out/a.txt"]
+
+
+@pytest.mark.parametrize("pattern", ["**/*.txt", "*.txt", "a/*.txt", "**/*.txt.*", "a/**/*.jsonl", "[ab]/*", "?.txt", "**/[!x]*.txt"])
+def test_include_patterns_select_what_pathlib_glob_selects(tmp_path: Path, pattern: str):
+    """Python's pathlib.Path.glob as the reference for the glob dialect (regular files only)."""
+    for name in ["a.txt", "x.txt", "a/b.txt", "a/c/d.txt", "b/e.txt.gz", "a/f.jsonl", "a/c/g.jsonl", "xy.txt", "b/x1.txt"]:
+        (tmp_path / name).parent.mkdir(parents=True, exist_ok=True)
+        (tmp_path / name).write_text("x")
+    expected = sorted(p.relative_to(tmp_path).as_posix() for p in tmp_path.glob(pattern) if p.is_file())
+    assert sorted(p for p in survey_corpus(tmp_path, ["**/*"], []).sources if pattern_regex(pattern).fullmatch(p)) == expected

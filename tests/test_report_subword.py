@@ -111,14 +111,16 @@ def test_unknown_rates_by_source_add_up_to_the_split_totals(subword_run: tuple[P
 
 def test_zipf_fit_and_model_sizing_use_the_pieces(subword_run: tuple[Path, str]) -> None:
     """Zipf's law fitted on the train counts of vocabulary.tsv (an independent reader of the same
-    counts); the sizing table with |V| = number of ids of the piece model."""
+    counts; <s> and </s>, counted once per document and sentence, are not pieces of the text);
+    the sizing table with |V| = number of ids of the piece model."""
     build, _ = subword_run
     page = (build / "report" / "index.html").read_text(encoding="utf-8")
     vocabulary = read_vocabulary(build / "vocabulary.tsv")
-    fit, ranks, _ = fit_zipf(np.array(vocabulary.counts))
+    pieces = [c for t, c in zip(vocabulary.tokens, vocabulary.counts) if t not in ("<s>", "</s>")]
+    fit, ranks, _ = fit_zipf(np.array(pieces))
     assert f"Zipf exponent s = {fit.exponent:.3f}" in section(page, "zipf")
     assert f"ranks of the {int(ranks.max()):,} pieces used in train" in page
-    assert int(ranks.max()) == sum(1 for c in vocabulary.counts if c > 0)
+    assert int(ranks.max()) == sum(1 for c in pieces if c > 0)
     for width in OPTIONS["report"]["embedding_widths"]:
         size = ModelSize(vocabulary.size, width, 3, 100)
         assert f"{size.parameters:,} (" in section(page, "sizing") and f"{size.output_parameters:,} (" in page

@@ -196,7 +196,8 @@ def test_kept_part_leaves_out_duplicates_and_keeps_corpus_order(tmp_path):
 
 def test_removed_counts_equal_a_counter_recount_of_the_removed_documents(tmp_path, monkeypatch):
     """collections.Counter over the tokens of the documents named in the duplicates table, per
-    split; the chunk is a pack of two files stored in many row groups."""
+    split, with <s> once per document and </s> once per sentence; the chunk is a pack of two
+    files stored in many row groups."""
     from collections import Counter
 
     from steps import prepare
@@ -214,6 +215,8 @@ def test_removed_counts_equal_a_counter_recount_of_the_removed_documents(tmp_pat
         "doc_id": [r["doc_id"] for r in removed], "duplicate_of": ["x"] * len(removed),
     })
     expected = Counter((r["split"], token) for r in removed for sentence in r["tokens"] for token in sentence)
+    expected.update((r["split"], "<s>") for r in removed)
+    expected.update((r["split"], "</s>") for r in removed for _ in r["tokens"])
     counts = removed_counts([path], duplicates)
     assert {(r["split"], r["token"]): r["count"] for r in counts.to_pylist()} == dict(expected)
     assert removed_counts([path], duplicates.slice(0, 0)).num_rows == 0

@@ -5,13 +5,16 @@ text path, configuration files that try to run code, and paths that try to leave
 from __future__ import annotations
 
 import gc
+import json
 import subprocess
 import sys
 import time
 from collections.abc import Callable
 from pathlib import Path
 
+import pyarrow.parquet as pq
 import pytest
+import yaml
 
 from conftest import run_workflow
 from steps import unicode_breaks
@@ -183,6 +186,24 @@ def test_a_build_dir_outside_the_working_directory_is_refused_by_the_real_workfl
     override.write_text(f"build_dir: {build_dir}\ncorpus: {{root: {REPO / 'demo_raw'}}}\n")
     run = _snakemake(workdir, override)
     assert run.returncode != 0
-    assert f"build_dir = {build_dir!r}: must be a relative path without '..'" in run.stdout + run.stderr
+    assert f"build_dir = {json.dumps(build_dir)}: allowed: a relative path without '..'" in run.stdout + run.stderr
     assert not (tmp_path / "outside").exists() and not Path(build_dir).exists()
+    assert sorted(p.name for p in workdir.iterdir()) in ([], [".snakemake"])
+
+
+@pytest.mark.parametrize("build_dir", ["b$(touch marker)", "x;touch marker;#", "~"])
+def test_a_build_dir_that_would_run_a_command_or_reach_home_is_refused_and_runs_nothing(tmp_path: Path, build_dir: str) -> None:
+    """POSIX shell command substitution and ';', and tilde expansion: the value never reaches a
+    shell; the marker file and an empty working directory prove nothing ran or was written."""
+    workdir = tmp_path / "work"
+    workdir.mkdir()
+    override = tmp_path / "over.yaml"
+    override.write_text(yaml.safe_dump({"build_dir": build_dir, "corpus": {"root": str(REPO / "demo_raw")}}))
+    run = subprocess.run(
+        [sys.executable, "-m", "snakemake", "--snakefile", str(REPO / "Snakefile"), "--directory", str(workdir),
+         "--cores", "1", "--configfile", str(override)],
+        capture_output=True, text=True, timeout=300, cwd=workdir,
+    )  # fmt: skip
+    assert run.returncode != 0 and "build_dir = " in run.stdout + run.stderr
+    assert not (workdir / "marker").exists() and not (tmp_path / "marker").exists()
     assert sorted(p.name for p in workdir.iterdir()) in ([], [".snakemake"])

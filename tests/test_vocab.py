@@ -2,14 +2,21 @@
 
 from __future__ import annotations
 
+import json
+import os
+import re
 from collections import Counter
+from pathlib import Path
 
 import numpy as np
 import pyarrow as pa
+import pyarrow.parquet as pq
 import pytest
 
+from conftest import DEMO, run_workflow
 from steps.vocab import (
-    HEADER, RESERVED, UNK, Cutoff, Lookup, build_vocabulary, choose_size, read_vocabulary, sort_by_frequency, unknown_class,
+    HEADER, RESERVED, UNK, Cutoff, Lookup, VocabularyError, build_vocabulary, check_frozen, choose_size, read_vocabulary,
+    sort_by_frequency, unknown_class,
 )
 
 
@@ -101,3 +108,115 @@ def test_file_keeps_tokens_that_look_like_csv_syntax(tmp_path):
     path = tmp_path / "vocabulary.tsv"
     path.write_text(vocabulary.to_tsv(), encoding="utf-8")
     assert read_vocabulary(path).tokens == vocabulary.tokens
+
+
+# --- frozen vocabularies -------------------------------------------------------------------------
+
+JOURNALS = {"corpus": {"root": str(DEMO), "include": ["journals/*.txt"]}}
+
+
+def frozen_variant(tmp_path: Path, vocabulary: Path, edit) -> Path:
+    """A copy of a vocabulary.tsv with its rows (after the header) passed through `edit`."""
+    lines = vocabulary.read_text(encoding="utf-8").splitlines()
+    rows = [line.split("\t") for line in lines[1:]]
+    rows = edit(rows)
+    path = tmp_path / f"variant-{len(list(tmp_path.glob('variant-*')))}.tsv"
+    path.write_text("\n".join([lines[0], *("\t".join(map(str, row)) for row in rows)]) + "\n", encoding="utf-8")
+    return path
+
+
+def renumbered(rows: list[list]) -> list[list]:
+    return [[i, *row[1:]] for i, row in enumerate(rows)]
+
+
+@pytest.mark.parametrize(
+    ("edit", "message"),
+    [
+        (lambda rows: renumbered(rows[1:]), "line 2: expected '<pad>' of kind 'reserved' (id 0), found '<unk>'"),
+        (lambda rows: renumbered([rows[4], *rows[:4], *rows[5:]]), "line 2: expected '<pad>'"),
+        (lambda rows: renumbered([*rows[:4], rows[0], *rows[4:]]), "line 6: expected '<unk-digits>' of kind 'unknown'"),
+        (lambda rows: renumbered([*rows, rows[-1]]), "is listed again (first on line"),
+        (lambda rows: renumbered([*rows, ["", "", "3", "word"]]), "is not a word with a count >= 0"),
+        (lambda rows: renumbered([*rows, ["", "again", "-1", "word"]]), "is not a word with a count >= 0"),
+        (lambda rows: renumbered([*rows, ["", "x", "1", "unknown"]]), "kind 'unknown' after the reserved and unknown ids"),
+        (lambda rows: renumbered([*rows[:4], *rows[9:]]), "line 6: expected '<unk-digits>'"),
+    ],
+    ids=["no-pad", "pad-at-4", "reserved-twice", "duplicate-word", "empty-word", "negative-count", "class-among-words", "no-classes"],
+)
+def test_a_frozen_vocabulary_is_checked_fully_naming_the_line(tmp_path: Path, demo_build: Path, edit, message: str):
+    """The frozen file must keep the layout every shard relies on (README, "Vocabulary")."""
+    variant = frozen_variant(tmp_path, demo_build / "vocabulary.tsv", edit)
+    with pytest.raises(VocabularyError, match=re.escape(message)):
+        check_frozen(read_vocabulary(variant), "shape", variant)
+
+
+def test_a_frozen_vocabulary_without_classes_needs_unknown_single(tmp_path: Path, demo_build: Path):
+    variant = frozen_variant(tmp_path, demo_build / "vocabulary.tsv", lambda rows: renumbered([*rows[:4], *rows[9:]]))
+    check_frozen(read_vocabulary(variant), "single", variant)
+    with pytest.raises(VocabularyError, match="with vocabulary.unknown = 'shape' ids 0-8 are"):
+        check_frozen(read_vocabulary(variant), "shape", variant)
+
+
+def test_a_missing_frozen_vocabulary_stops_before_any_job_in_a_fresh_and_a_built_folder(tmp_path: Path):
+    """The run stops while the workflow is read (no job, no new file), naming the field and the fix;
+    before, a built folder silently kept its old vocabulary and a fresh one gave an engine error."""
+    run_workflow(tmp_path / "built", JOURNALS)
+    manifest = (tmp_path / "built" / "build" / "manifest.json").read_bytes()
+    for folder in ("built", "fresh"):
+        run = run_workflow(tmp_path / folder, {**JOURNALS, "vocabulary": {"frozen": "/nonexistent/vocabulary.tsv"}}, check=False)
+        assert run.returncode != 0
+        assert "vocabulary.frozen = '/nonexistent/vocabulary.tsv': no such file or directory" in run.stderr
+        assert "set vocabulary.frozen: null" in run.stderr and "Job stats" not in run.stdout + run.stderr
+    assert (tmp_path / "built" / "build" / "manifest.json").read_bytes() == manifest
+    assert not (tmp_path / "fresh" / "build").exists()
+    run = run_workflow(tmp_path / "fresh", {**JOURNALS, "units": "subword", "subword": {"frozen": "nowhere.model"}}, check=False)
+    assert run.returncode != 0 and "subword.frozen = 'nowhere.model': no such file or directory" in run.stderr
+
+
+@pytest.mark.parametrize("path", ["/dev/zero", "FIFO"])
+def test_a_frozen_path_that_is_not_a_regular_file_is_refused_at_once(tmp_path: Path, path: str):
+    """/dev/zero never ends and a FIFO blocks its reader: only regular files are read."""
+    if path == "FIFO":
+        os.mkfifo(tmp_path / "fifo")
+        path = str(tmp_path / "fifo")
+    run = run_workflow(tmp_path / "run", {**JOURNALS, "vocabulary": {"frozen": path}}, check=False)
+    assert run.returncode != 0 and f"vocabulary.frozen = {path!r}: not a regular file" in run.stderr
+
+
+def test_a_frozen_vocabulary_larger_than_the_corpus_builds_with_consistent_figures(tmp_path: Path):
+    """A frozen vocabulary may hold words the corpus never uses: 5,000 extra words on the two
+    journal files (it crashed the coverage step). The chosen size row, the split figures and a
+    recount of the shards' ids (numpy bincount, an independent count) agree; the summary and
+    coverage.json say the vocabulary is frozen. Changing the file's content reruns the
+    vocabulary and shard jobs; the ids follow the new file."""
+    run_workflow(tmp_path / "first", JOURNALS)
+    original = tmp_path / "first" / "build" / "vocabulary.tsv"
+    frozen = frozen_variant(tmp_path, original, lambda rows: renumbered([*rows, *([0, f"unseenword{n}", 0, "word"] for n in range(5000))]))
+    run = run_workflow(tmp_path / "second", {**JOURNALS, "vocabulary": {"frozen": str(frozen)}})
+    build = tmp_path / "second" / "build"
+    assert (build / "vocabulary.tsv").read_bytes() == frozen.read_bytes()
+    coverage = json.loads((build / "stats" / "coverage.json").read_text())
+    assert coverage["frozen"] == str(frozen) and f"(frozen: {frozen})" in run.stderr
+    chosen = [row for row in coverage["sizes"] if row["chosen"]]
+    assert len(chosen) == 1 and chosen[0]["size"] == coverage["words"] == read_vocabulary(frozen).size - 9
+    assert chosen[0]["dev_oov_rate"] == coverage["splits"]["dev"]["oov_rate"]
+    assert chosen[0]["train_coverage"] == pytest.approx(1 - coverage["splits"]["train"]["oov_rate"], abs=2e-6)
+    targets = np.concatenate([pq.read_table(p)["target"].to_numpy() for p in build.glob("shards/dev/ngram-*.parquet")])
+    unknown = np.isin(targets, [1, 4, 5, 6, 7, 8])  # <unk> and the five shape classes
+    sentences = json.loads((build / "manifest.json").read_text())["splits"]["dev"]["sentences"]
+    assert unknown.sum() / (len(targets) - sentences) == pytest.approx(coverage["splits"]["dev"]["oov_rate"], abs=1e-6)
+    with open(frozen, "a", encoding="utf-8") as handle:
+        handle.write(f"{read_vocabulary(frozen).size}\tlateword\t0\tword\n")
+    plan = run_workflow(tmp_path / "second", {**JOURNALS, "vocabulary": {"frozen": str(frozen)}}, "-n", "--quiet", "rules").stdout
+    assert "vocabulary" in plan and "shard" in plan and "prepare" not in plan
+    run_workflow(tmp_path / "second", {**JOURNALS, "vocabulary": {"frozen": str(frozen)}})
+    assert (build / "vocabulary.tsv").read_bytes() == frozen.read_bytes()
+
+
+def test_a_corpus_with_no_train_document_stops_at_the_vocabulary_saying_so(tmp_path: Path):
+    """All documents in dev (fractions 0.0001 / 0.9999 / 0): the report used to crash on a zero-size
+    array; now the vocabulary step stops naming the empty split and the fix."""
+    run = run_workflow(tmp_path, {**JOURNALS, "split": {"fractions": {"train": 0.0001, "dev": 0.9999, "test": 0.0}}}, check=False)
+    assert run.returncode != 0
+    assert "the train split is empty: no kept document landed in train" in run.stderr
+    assert not (tmp_path / "build" / "vocabulary.tsv").exists()

@@ -10,6 +10,7 @@ from collections import Counter
 from pathlib import Path
 
 import duckdb
+import pyarrow as pa
 import pyarrow.compute as pc
 import pyarrow.parquet as pq
 import pytest
@@ -80,6 +81,25 @@ def test_vocabulary_counts_equal_a_counter_recount_of_train(demo_build: Path):
     assert words == {t for t, c in recount.items() if c >= 2}  # the default cutoff: min_count 2
     counts = pq.read_table(demo_build / "stats" / "token_counts.parquet")
     assert dict(zip(counts["token"].to_pylist(), counts["train"].to_pylist())) == {**{t: 0 for t in counts["token"].to_pylist()}, **recount}
+
+
+def test_boundary_symbols_count_their_train_occurrences_in_the_id_streams(demo_build: Path):
+    """A recount over the prepared train documents, duplicates removed: <s> once per document,
+    </s> once per sentence (so a unigram model read off vocabulary.tsv sees them); the stream
+    shards hold exactly that many of each."""
+    duplicates = pq.read_table(demo_build / "interim" / "duplicates.parquet")
+    removed = set(zip(duplicates["source"].to_pylist(), duplicates["offset"].to_pylist()))
+    documents = sentences = 0
+    for path in (demo_build / "interim" / "prepared").glob("*.parquet"):
+        table = pq.read_table(path)
+        for source, offset, split, tokens in zip(*(table[c].to_pylist() for c in ("source", "offset", "split", "tokens"))):
+            if split == "train" and (source, offset) not in removed:
+                documents, sentences = documents + 1, sentences + len(tokens)
+    vocabulary = read_vocabulary(demo_build / "vocabulary.tsv")
+    assert vocabulary.counts[vocabulary.reserved["<s>"]] == documents > 0
+    assert vocabulary.counts[vocabulary.reserved["</s>"]] == sentences > documents
+    streams = pc.list_flatten(pa.concat_tables([pq.read_table(p) for p in demo_build.glob("shards/train/stream-*.parquet")])["ids"])
+    assert pc.sum(pc.equal(streams, 2)).as_py() == documents and pc.sum(pc.equal(streams, 3)).as_py() == sentences
 
 
 def test_windows_have_three_context_ids_and_ids_below_vocabulary_size(demo_build: Path):
