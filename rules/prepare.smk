@@ -55,11 +55,12 @@ rule deduplicate:
         L.log("deduplicate"),
     params:
         enabled=str(CONFIG["split"]["deduplicate"]).lower(),
+        repeated_ids=CONFIG["corpus"]["repeated_ids"],
         code=code_hash("deduplicate"),
     threads: 1
     resources:
         mem_mb=CONFIG["resources"]["aggregate_mem_mb"],
         runtime=CONFIG["resources"]["runtime_min"],
     shell:
-        step("split", "--enabled {params.enabled} --output {output.duplicates:q} "
+        step("split", "--enabled {params.enabled} --repeated-ids {params.repeated_ids} --output {output.duplicates:q} "
              "--removed-counts {output.removed_counts:q} {input.tables:q}")

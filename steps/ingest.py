@@ -7,8 +7,9 @@ and reads past its end to finish its last document. Every document therefore bel
 exactly one chunk, and the chunk size never changes which documents exist. Compressed files
 cannot seek and are one chunk each. Files smaller than the pack size are read whole, several
 to a chunk (a pack), so a folder of many small files does not become as many jobs.
-A document's id is its JSONL id field when configured, else `relative/path:byte_offset` (the
-offset in the uncompressed text where it starts), which orders documents like an ordinal.
+A document's id is its JSONL id field when configured (`relative/path#id` with
+`corpus.repeated_ids: by_file`), else `relative/path:byte_offset` (the offset in the
+uncompressed text where it starts), which orders documents like an ordinal.
 """
 
 from __future__ import annotations
@@ -96,6 +97,7 @@ class ReadOptions:
     text_unit: str = "paragraph"
     jsonl_text_field: str = "text"
     jsonl_id_field: str | None = "id"
+    repeated_ids: str = "stop"
     bad_records: str = "stop"
     invalid_utf8: str = "stop"
     max_document_bytes: int = 1 << 20
@@ -108,6 +110,7 @@ class ReadOptions:
             text_unit=corpus["text_unit"],
             jsonl_text_field=corpus["jsonl_text_field"],
             jsonl_id_field=corpus["jsonl_id_field"],
+            repeated_ids=corpus["repeated_ids"],
             bad_records=corpus["bad_records"],
             invalid_utf8=corpus["invalid_utf8"],
             max_document_bytes=corpus["max_document_bytes"],
@@ -692,7 +695,10 @@ def _json_documents(
             continue
         raw_id = record.get(options.jsonl_id_field) if options.jsonl_id_field else None
         usable = isinstance(raw_id, (str, int)) and not isinstance(raw_id, bool) and not _LONE_SURROGATE.search(str(raw_id))
-        doc_id = str(raw_id) if usable else f"{piece.source}:{position}"
+        if not usable:
+            doc_id = f"{piece.source}:{position}"
+        else:
+            doc_id = f"{piece.source}#{raw_id}" if options.repeated_ids == "by_file" else str(raw_id)
         yield Document(doc_id, piece.source, position, value)
 
 

@@ -21,7 +21,7 @@ import pyarrow.parquet as pq
 
 from steps.layout import SPLITS
 from steps.storage import write_table
-from steps.vocab import COUNTS_SCHEMA, count_tokens, sum_counts
+from steps.vocab import COUNTS_SCHEMA, MERGE_FILES, count_tokens, sum_counts
 
 _TWO_64 = float(1 << 64)
 
@@ -119,20 +119,48 @@ def _mix(values: np.ndarray) -> np.ndarray:
     return values ^ (values >> np.uint64(31))
 
 
-def _fingerprint_words(path: str) -> np.ndarray:
-    """The 16-byte fingerprints of a prepared chunk as an (n, 2) uint64 array, in corpus
-    (file, offset) order; prepared rows are stored in split and `doc_hash` order."""
-    table = pq.read_table(path, columns=["source", "offset", "fingerprint"])
-    column = table["fingerprint"].combine_chunks()
-    if not len(column):
-        return np.empty((0, 2), np.uint64)
-    words = np.frombuffer(column.buffers()[1], dtype=np.uint64, count=2 * len(column), offset=column.offset * 16).reshape(-1, 2)
-    return words[_corpus_order(table)]
-
-
 def _corpus_order(table: pa.Table) -> np.ndarray:
     """Row positions of a prepared chunk table by file, then offset: corpus order."""
     return pc.sort_indices(table, [("source", "ascending"), ("offset", "ascending")]).to_numpy()
+
+
+class CorpusRows:
+    """The documents of all prepared chunks numbered 0..n-1 in corpus order (chunks in corpus
+    order, rows by file and offset), holding only their 16-byte fingerprints (`words`, an
+    (n, 2) uint64 array) and `doc_hash`es: 24 bytes a document. Names and places of chosen
+    rows are read back from the chunk files (`locate`)."""
+
+    def __init__(self, paths: Sequence[str]) -> None:
+        self.paths = list(paths)
+        sizes = [pq.ParquetFile(p).metadata.num_rows for p in self.paths]
+        self.starts = np.cumsum([0, *sizes])
+        self.words = np.empty((self.starts[-1], 2), np.uint64)
+        self.hashes = np.empty(self.starts[-1], np.uint64)
+        for number, path in enumerate(self.paths):
+            table = pq.read_table(path, columns=["source", "offset", "doc_hash", "fingerprint"])
+            if not table.num_rows:
+                continue
+            order = _corpus_order(table)
+            column = table["fingerprint"].combine_chunks()
+            words = np.frombuffer(column.buffers()[1], dtype=np.uint64, count=2 * len(column), offset=column.offset * 16)
+            span = slice(self.starts[number], self.starts[number + 1])
+            self.words[span] = words.reshape(-1, 2)[order]
+            self.hashes[span] = table["doc_hash"].to_numpy()[order]
+
+    def locate(self, rows: np.ndarray) -> pa.Table:
+        """(source, offset, doc_id) of the given rows, in the order given (Arrow columns, no
+        Python objects per row)."""
+        rows = np.asarray(rows, dtype=np.int64)
+        order = np.argsort(rows, kind="stable")
+        ordered = rows[order]
+        chunk_of = np.searchsorted(self.starts, ordered, side="right") - 1
+        parts = [DUPLICATES_SCHEMA.empty_table().select(["source", "offset", "doc_id"])]
+        for chunk in np.unique(chunk_of):
+            table = pq.read_table(self.paths[chunk], columns=["source", "offset", "doc_id"])
+            local = ordered[chunk_of == chunk] - self.starts[chunk]
+            parts.append(table.take(pa.array(_corpus_order(table)[local])))
+        found = pa.concat_tables(parts).combine_chunks()
+        return found.take(pa.array(np.argsort(order, kind="stable")))
 
 
 def first_occurrences(words: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
@@ -156,39 +184,36 @@ def first_occurrences(words: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
     return rows[ascending], owners[ascending]
 
 
-def find_duplicates(prepared_paths: Sequence[str]) -> pa.Table:
+def find_duplicates(corpus: CorpusRows) -> pa.Table:
     """Rows (source, offset, doc_id, duplicate_of) for every document whose fingerprint was seen
-    earlier; `prepared_paths` must be in corpus order (path, then chunk index). Only the
-    16-byte fingerprints of all documents are held; ids are read for the rows involved."""
-    sizes = [pq.ParquetFile(p).metadata.num_rows for p in prepared_paths]
-    words = np.empty((sum(sizes), 2), np.uint64)
-    position = 0
-    for path, size in zip(prepared_paths, sizes):
-        words[position : position + size] = _fingerprint_words(path)
-        position += size
-    rows, owners = first_occurrences(words)
-    del words
+    earlier in corpus order."""
+    rows, owners = first_occurrences(corpus.words)
     if not len(rows):
         return DUPLICATES_SCHEMA.empty_table()
-    starts = np.cumsum([0] + sizes)
-    wanted = np.unique(np.concatenate([rows, owners]))
-    chunk_of = np.searchsorted(starts, wanted, side="right") - 1
-    source, offset, doc_id = {}, {}, {}
-    for chunk in np.unique(chunk_of):
-        local = wanted[chunk_of == chunk]
-        table = pq.read_table(prepared_paths[chunk], columns=["source", "offset", "doc_id"])
-        table = table.take(_corpus_order(table)[local - starts[chunk]])
-        for row, values in zip(local.tolist(), zip(*(table[c].to_pylist() for c in ("source", "offset", "doc_id")))):
-            source[row], offset[row], doc_id[row] = values
-    return pa.table(
-        {
-            "source": [source[r] for r in rows.tolist()],
-            "offset": [offset[r] for r in rows.tolist()],
-            "doc_id": [doc_id[r] for r in rows.tolist()],
-            "duplicate_of": [doc_id[r] for r in owners.tolist()],
-        },
-        schema=DUPLICATES_SCHEMA,
-    )
+    located = corpus.locate(np.concatenate([rows, owners]))
+    removed, kept = located.slice(0, len(rows)), located.slice(len(rows))
+    return pa.Table.from_arrays([removed["source"], removed["offset"], removed["doc_id"], kept["doc_id"]], schema=DUPLICATES_SCHEMA)
+
+
+def repeated_ids(corpus: CorpusRows) -> list[tuple[str, list[tuple[str, int]]]]:
+    """Every document id that names more than one document, with the places (source, offset)
+    of its documents in corpus order. Candidates are rows sharing a `doc_hash`; their ids are
+    then compared as strings, so a hash collision of two ids is not reported."""
+    order = np.argsort(corpus.hashes, kind="stable")
+    same = np.flatnonzero(corpus.hashes[order][1:] == corpus.hashes[order][:-1])
+    if not len(same):
+        return []
+    candidates = np.unique(np.concatenate([order[same], order[same + 1]]))
+    located = corpus.locate(candidates)
+    places: dict[str, list[tuple[str, int]]] = {}
+    for doc_id, source, offset in zip(*(located[c].to_pylist() for c in ("doc_id", "source", "offset"))):
+        places.setdefault(doc_id, []).append((source, offset))
+    return sorted((doc_id, found) for doc_id, found in places.items() if len(found) > 1)
+
+
+# Uncompressed bytes of row groups read at once while counting removed documents: bounds the
+# job's memory whatever the chunk (a chunk of many duplicates would otherwise be read whole).
+REMOVED_READ_BYTES = 64 << 20
 
 
 def removed_counts(prepared_paths: Sequence[str], duplicates: pa.Table) -> pa.Table:
@@ -201,16 +226,26 @@ def removed_counts(prepared_paths: Sequence[str], duplicates: pa.Table) -> pa.Ta
             continue
         located = parquet.read(columns=["source", "offset"])
         rows = np.flatnonzero(duplicate_mask(duplicates, located["source"], located["offset"]).to_numpy(zero_copy_only=False))
-        if len(rows):
-            # Only the row groups holding removed rows: their tokens, not the whole chunk's.
-            sizes = np.array([parquet.metadata.row_group(g).num_rows for g in range(parquet.num_row_groups)])
-            starts = np.cumsum(sizes) - sizes
-            groups, chosen = np.unique(np.searchsorted(starts, rows, side="right") - 1, return_inverse=True)
-            # Each row's position once only the chosen groups are read, one after another.
-            read_starts = np.cumsum(sizes[groups]) - sizes[groups]
-            positions = read_starts[chosen] + rows - starts[groups[chosen]]
-            table = parquet.read_row_groups(groups.tolist(), columns=["split", "tokens"])
-            parts.append(count_tokens(table.take(pa.array(positions))))
+        if not len(rows):
+            continue
+        sizes = np.array([parquet.metadata.row_group(g).num_rows for g in range(parquet.num_row_groups)])
+        starts = np.cumsum(sizes) - sizes
+        group_of = np.searchsorted(starts, rows, side="right") - 1
+        batch: list[int] = []
+        held = 0
+        # Only the row groups holding removed rows, a bounded batch of them at a time.
+        for group in np.unique(group_of).tolist():
+            batch.append(group)
+            held += parquet.metadata.row_group(group).total_byte_size
+            if held >= REMOVED_READ_BYTES or group == group_of[-1]:
+                table = parquet.read_row_groups(batch, columns=["split", "tokens"])
+                read_starts = np.cumsum(sizes[batch]) - sizes[batch]
+                chosen = np.isin(group_of, batch)
+                positions = read_starts[np.searchsorted(batch, group_of[chosen])] + rows[chosen] - starts[group_of[chosen]]
+                parts.append(count_tokens(table.take(pa.array(positions))))
+                if len(parts) >= MERGE_FILES:
+                    parts = [sum_counts(parts)]
+                batch, held = [], 0
     counts = sum_counts(parts) if parts else COUNTS_SCHEMA.empty_table()
     return counts.sort_by([("split", "ascending"), ("token", "ascending")])
 
@@ -228,14 +263,37 @@ def _located(sources: pa.ChunkedArray | pa.Array, offsets: pa.ChunkedArray | pa.
     return pc.binary_join_element_wise(sources, pc.cast(offsets, pa.string()), "\x00")
 
 
+def repeated_ids_message(repeats: list[tuple[str, list[tuple[str, int]]]], by_file: bool) -> str:
+    """What the user reads when ids repeat: the first few ids with both places, and the fixes."""
+    shown = "; ".join(
+        f"{doc_id!r} at {places[0][0]} byte {places[0][1]} and {places[1][0]} byte {places[1][1]}"
+        + (f" (+{len(places) - 2} more)" if len(places) > 2 else "")
+        for doc_id, places in repeats[:5]
+    )
+    more = f"; and {len(repeats) - 5} more ids" if len(repeats) > 5 else ""
+    fix = (
+        "ids repeat inside one file: fix the records, or set corpus.jsonl_id_field: null to use path:offset ids"
+        if by_file
+        else "fix the records, set corpus.repeated_ids: by_file to qualify JSONL ids by their file, "
+        "or corpus.jsonl_id_field: null to use path:offset ids"
+    )
+    return f"corpusmill: {len(repeats)} document id(s) name more than one document: {shown}{more}; every id must name one document: {fix}"
+
+
 def main(argv: list[str] | None = None) -> None:
-    parser = argparse.ArgumentParser(description="Find exact duplicate documents across prepared chunks.")
+    parser = argparse.ArgumentParser(description="Find exact duplicate documents across prepared chunks; refuse repeated ids.")
     parser.add_argument("--output", required=True)
     parser.add_argument("--removed-counts", required=True, help="word counts of the removed documents")
     parser.add_argument("--enabled", choices=["true", "false"], default="true")
+    parser.add_argument("--repeated-ids", choices=["stop", "by_file"], default="stop", help="corpus.repeated_ids")
     parser.add_argument("prepared", nargs="*", help="prepared chunk files in corpus order")
     args = parser.parse_args(argv)
-    table = find_duplicates(args.prepared) if args.enabled == "true" else DUPLICATES_SCHEMA.empty_table()
+    corpus = CorpusRows(args.prepared)
+    repeats = repeated_ids(corpus)
+    if repeats:
+        raise SystemExit(repeated_ids_message(repeats, args.repeated_ids == "by_file"))
+    table = find_duplicates(corpus) if args.enabled == "true" else DUPLICATES_SCHEMA.empty_table()
+    del corpus
     write_table(args.output, table)
     write_table(args.removed_counts, removed_counts(args.prepared, table))
 

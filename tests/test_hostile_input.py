@@ -17,6 +17,7 @@ import pyarrow.parquet as pq
 import pytest
 import regex
 
+from conftest import run_workflow
 from steps import settings
 from steps.ingest import Chunk, CorpusError, Document, ReadOptions, Tally, chunk_key, read_documents
 from steps.plan import chunk_record, write_if_changed
@@ -431,3 +432,31 @@ def test_the_workflow_builds_the_hostile_corpus_under_lenient_policies_and_balan
         [sys.executable, "-m", "steps.cli", "audit", str(tmp_path / "build")], cwd=REPO, capture_output=True, text=True
     )
     assert audit.returncode == 0, audit.stdout + audit.stderr
+
+
+# --- document ids ---------------------------------------------------------------------------------
+
+
+def _jsonl(path: Path, records: list[tuple[str, str]]) -> None:
+    path.write_text("".join(json.dumps({"id": i, "text": t}) + "\n" for i, t in records), encoding="utf-8")
+
+
+def test_one_id_for_two_documents_stops_the_run_naming_both_places(tmp_path: Path) -> None:
+    """Across files and inside one file: the run stops in the deduplicate job with each repeated
+    id and the file and byte offset of both documents; with corpus.repeated_ids: by_file, ids
+    become path#id and the build passes, while a repeat inside one file still stops it."""
+    root = tmp_path / "raw"
+    root.mkdir()
+    _jsonl(root / "a.jsonl", [("n1", "The lantern keeper wrote daily notes."), ("n2", "The harbour froze early that winter.")])
+    _jsonl(root / "b.jsonl", [("n1", "A different document that reuses the first id."), ("n3", "Gulls circled the pier at noon.")])
+    run = run_workflow(tmp_path / "one", {"corpus": {"root": str(root)}}, check=False)
+    assert run.returncode != 0
+    assert "1 document id(s) name more than one document: 'n1' at a.jsonl byte 0 and b.jsonl byte 0" in run.stderr
+    assert not (tmp_path / "one" / "build" / "manifest.json").exists()
+    run_workflow(tmp_path / "two", {"corpus": {"root": str(root), "repeated_ids": "by_file"}})
+    doc_ids = sorted(d for p in (tmp_path / "two" / "build").glob("shards/*/stream-*.parquet") for d in pq.read_table(p)["doc_id"].to_pylist())
+    assert doc_ids == ["a.jsonl#n1", "a.jsonl#n2", "b.jsonl#n1", "b.jsonl#n3"]
+    _jsonl(root / "b.jsonl", [("n3", "Gulls circled the pier at noon."), ("n3", "A second record with the same id.")])
+    run = run_workflow(tmp_path / "two", {"corpus": {"root": str(root), "repeated_ids": "by_file"}}, check=False)
+    assert run.returncode != 0 and "'b.jsonl#n3' at b.jsonl byte 0 and b.jsonl byte" in run.stderr
+    assert "ids repeat inside one file" in run.stderr

@@ -10,8 +10,8 @@ import pyarrow as pa
 import pyarrow.parquet as pq
 
 from steps.split import (
-    assign_split, doc_hash, duplicate_mask, find_duplicates, fingerprint, first_occurrences, kept_part, order_keys, part_bounds,
-    part_of, read_part,
+    CorpusRows, assign_split, doc_hash, duplicate_mask, find_duplicates, fingerprint, first_occurrences, kept_part, order_keys,
+    part_bounds, part_of, read_part, repeated_ids, repeated_ids_message,
 )
 from steps.storage import write_table
 from tests.test_prepare import store_chunk, synthetic_chunk
@@ -49,15 +49,20 @@ def test_zero_fractions_are_never_assigned():
     assert {assign_split(fingerprint(str(i)), "s", only_train) for i in range(200)} == {"train"}
 
 
+def write_chunk(path, columns: dict) -> None:
+    """A prepared chunk's columns that deduplication reads, doc_hash derived from doc_id."""
+    write_table(path, pa.table({**columns, "doc_hash": pa.array([doc_hash(d) for d in columns["doc_id"]], pa.uint64())}))
+
+
 def test_duplicates_keep_the_first_in_corpus_order(tmp_path):
     def chunk(path, source, texts):
-        write_table(path, pa.table({
+        write_chunk(path, {
             "source": [source] * len(texts), "offset": list(range(len(texts))), "doc_id": [f"{source}:{i}" for i in range(len(texts))],
             "fingerprint": pa.array([fingerprint(t) for t in texts], pa.binary(16)),
-        }))
+        })
     chunk(tmp_path / "a.parquet", "a.txt", ["x", "y", "x"])
     chunk(tmp_path / "b.parquet", "b.txt", ["y", "z"])
-    duplicates = find_duplicates([str(tmp_path / "a.parquet"), str(tmp_path / "b.parquet")])
+    duplicates = find_duplicates(CorpusRows([str(tmp_path / "a.parquet"), str(tmp_path / "b.parquet")]))
     assert duplicates.to_pylist() == [
         {"source": "a.txt", "offset": 2, "doc_id": "a.txt:2", "duplicate_of": "a.txt:0"},
         {"source": "b.txt", "offset": 0, "doc_id": "b.txt:0", "duplicate_of": "a.txt:1"},
@@ -67,11 +72,11 @@ def test_duplicates_keep_the_first_in_corpus_order(tmp_path):
 
 def test_duplicates_of_a_pack_of_files_are_found_in_corpus_order(tmp_path):
     """A pack holds several files whose offsets overlap; rows are stored out of corpus order."""
-    write_table(tmp_path / "pack.parquet", pa.table({
+    write_chunk(tmp_path / "pack.parquet", {
         "source": ["b.txt", "a.txt", "b.txt", "a.txt"], "offset": [0, 0, 5, 5], "doc_id": ["b.txt:0", "a.txt:0", "b.txt:5", "a.txt:5"],
         "fingerprint": pa.array([fingerprint(t) for t in ["x", "y", "z", "x"]], pa.binary(16)),
-    }))
-    duplicates = find_duplicates([str(tmp_path / "pack.parquet")])
+    })
+    duplicates = find_duplicates(CorpusRows([str(tmp_path / "pack.parquet")]))
     assert duplicates.to_pylist() == [{"source": "b.txt", "offset": 0, "doc_id": "b.txt:0", "duplicate_of": "a.txt:5"}]
     mask = duplicate_mask(duplicates, pa.array(["a.txt", "b.txt", "a.txt", "b.txt"]), pa.array([0, 0, 5, 5]))
     assert mask.to_pylist() == [False, True, False, False]
@@ -100,15 +105,34 @@ def test_first_occurrences_match_a_first_seen_dict():
 
 def test_duplicates_follow_offsets_not_storage_order(tmp_path):
     """Prepared chunks store rows by split and doc_hash; "first" still means first by offset."""
-    write_table(tmp_path / "a.parquet", pa.table({
+    write_chunk(tmp_path / "a.parquet", {
         "source": ["a.txt"] * 3, "offset": [80, 0, 40], "doc_id": ["a.txt:80", "a.txt:0", "a.txt:40"],
         "fingerprint": pa.array([fingerprint(t) for t in ["x", "x", "x"]], pa.binary(16)),
-    }))
-    duplicates = find_duplicates([str(tmp_path / "a.parquet")])
+    })
+    duplicates = find_duplicates(CorpusRows([str(tmp_path / "a.parquet")]))
     assert duplicates.to_pylist() == [
         {"source": "a.txt", "offset": 40, "doc_id": "a.txt:40", "duplicate_of": "a.txt:0"},
         {"source": "a.txt", "offset": 80, "doc_id": "a.txt:80", "duplicate_of": "a.txt:0"},
     ]
+
+
+def test_repeated_ids_are_found_within_and_across_chunks_with_every_place(tmp_path):
+    """A plain dict of id -> places over the same rows is the reference; ids that share a
+    doc_hash but differ as strings (a forced collision) are not repeats."""
+    write_chunk(tmp_path / "a.parquet", {
+        "source": ["a.jsonl"] * 3, "offset": [0, 10, 20], "doc_id": ["k1", "k2", "k1"],
+        "fingerprint": pa.array([fingerprint(t) for t in "xyz"], pa.binary(16)),
+    })
+    write_chunk(tmp_path / "b.parquet", {
+        "source": ["b.jsonl"] * 2, "offset": [0, 7], "doc_id": ["k2", "solo"],
+        "fingerprint": pa.array([fingerprint(t) for t in "uv"], pa.binary(16)),
+    })
+    corpus = CorpusRows([str(tmp_path / "a.parquet"), str(tmp_path / "b.parquet")])
+    assert repeated_ids(corpus) == [("k1", [("a.jsonl", 0), ("a.jsonl", 20)]), ("k2", [("a.jsonl", 10), ("b.jsonl", 0)])]
+    corpus.hashes[:] = 7  # every id in one hash bucket: only equal strings are repeats
+    assert [doc_id for doc_id, _ in repeated_ids(corpus)] == ["k1", "k2"]
+    message = repeated_ids_message(repeated_ids(corpus), by_file=False)
+    assert "'k1' at a.jsonl byte 0 and a.jsonl byte 20" in message and "corpus.repeated_ids: by_file" in message
 
 
 def test_parts_are_equal_ranges_of_the_doc_hash():
