@@ -29,6 +29,8 @@ except (settings.ConfigError, CorpusError) as error:
 L = PLAN.layout
 if workflow.is_main_process:
     PLAN.write_files([L.coverage])
+    if os.path.exists(L.failed_jobs):
+        os.remove(L.failed_jobs)
 
 
 def literal(text):
@@ -42,7 +44,11 @@ PY = f"PYTHONPATH={literal(workflow.basedir)} {literal(sys.executable)}"
 def step(name, args):
     """Shell command running steps.<name>; output goes to the job's log, whose end is shown on failure.
     Every value in `args` is quoted (`:q` or shlex.quote)."""
-    return "{{ " + PY + " -m steps.run " + name + " " + args + " ; }} > {log:q} 2>&1 || {{ tail -n 20 {log:q} >&2; exit 1; }}"
+    failed = literal(L.failed_jobs)
+    return (
+        "{{ " + PY + " -m steps.run " + name + " " + args + " ; }} > {log:q} 2>&1 "
+        "|| {{ tail -n 20 {log:q} >&2; echo {log:q} >> " + failed + "; exit 1; }}"
+    )
 
 
 wildcard_constraints:
@@ -69,7 +75,7 @@ rule all:
 onsuccess:
     import threading
 
-    from steps.summary import format_table
+    from steps.summary import format_accounting, format_table
 
     # Snakemake starts a 1-second rate-limit timer after each scheduling round and Python waits
     # for it at exit; the run is over, so end it now (0.8-1 s sooner, measured).
@@ -77,5 +83,23 @@ onsuccess:
         if isinstance(thread, threading.Timer):
             thread.cancel()
 
+    from steps import tidy
+
+    jobs = list(workflow.dag.jobs)
+    if any(job.rule.name == "all" for job in jobs):
+        current = [path for job in jobs for path in [*job.input, *job.output, *job.log]]
+        removed = tidy.remove(tidy.stale_files(L.root, current))
+        if removed:
+            print(f"corpusmill: {removed}", file=sys.stderr)
     if os.path.exists(L.coverage):
         print(format_table(settings.read_json(L.coverage)), file=sys.stderr)
+    if os.path.exists(L.accounting):
+        print(format_accounting(settings.read_json(L.accounting), settings.read_json(L.corpus_plan), L.dropped), file=sys.stderr)
+
+
+onerror:
+    from steps.summary import format_failures
+
+    # After Snakemake's account of the failed jobs: each one's own message, so it is the last thing read.
+    if os.path.exists(L.failed_jobs):
+        print(format_failures(L.failed_jobs), file=sys.stderr)

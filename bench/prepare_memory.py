@@ -57,7 +57,7 @@ def run_prepare(path: Path, config: dict, output: Path) -> dict:
     write_if_changed(plan, chunk_record(path.parent, Chunk(chunk_key(path.name, 0), (path.name,))))
     command = [
         TIME, "-f", "%M %U %S %e", sys.executable, "-m", "steps.run", "prepare", "--plan", str(plan), "--options", options,
-        "--output", str(output / "table.parquet"), "--tally", str(output / "tally.json"), "--counts", str(output / "counts.parquet"),
+        "--output", str(output / "table.parquet"), "--tally", str(output / "tally.json"), "--counts", str(output / "counts.parquet"), "--drops", str(output / "drops.parquet"),
     ]
     result = subprocess.run(command, capture_output=True, text=True, env={**os.environ, "PYTHONPATH": str(REPO)})
     if result.returncode != 0:

@@ -1,4 +1,5 @@
-# Corpus-wide statistics and the manifest that describes the build.
+# Corpus-wide statistics, the record of every document (accounting) and the manifest that
+# describes the build.
 
 rule coverage:
     input:
@@ -21,12 +22,33 @@ rule coverage:
              "--options {params.options:q} --output {output:q} {input.stats:q}")
 
 
+rule accounting:
+    input:
+        tallies=[L.tally(c) for c in PLAN.chunk_keys],
+        drop_logs=[L.drop_log(c) for c in PLAN.chunk_keys],
+        duplicates=L.duplicates,
+    output:
+        summary=L.accounting,
+        dropped=L.dropped,
+    log:
+        L.log("accounting"),
+    params:
+        drop_logs=lambda w, input: " ".join(f"--drop-log {shlex.quote(path)}" for path in input.drop_logs),
+        code=code_hash("accounting"),
+    threads: 1
+    resources:
+        mem_mb=CONFIG["resources"]["aggregate_mem_mb"],
+        runtime=CONFIG["resources"]["runtime_min"],
+    shell:
+        step("accounting", "--duplicates {input.duplicates:q} --summary {output.summary:q} "
+             "--dropped {output.dropped:q} {params.drop_logs} {input.tallies:q}")
+
+
 rule manifest:
     input:
         shards=PLAN.all_shards(),
         part_stats=[L.shard_stats(s, p) for s, p in PLAN.split_parts()],
-        tallies=[L.tally(c) for c in PLAN.chunk_keys],
-        duplicates=L.duplicates,
+        accounting=L.accounting,
         vocabulary=L.vocabulary,
         coverage=L.coverage,
         plan=L.manifest_plan,

@@ -1,5 +1,6 @@
-# Per-chunk reading, cleaning, segmentation and split; then corpus-wide duplicate removal.
-# A chunk's files are named in its plan file (steps/plan.py), the job's input.
+# Per-chunk reading, cleaning, segmentation and split; then corpus-wide duplicate removal, which
+# first stops the run if any chunk found a file it could not read as configured (every such file
+# is named at once). A chunk's files are named in its plan file (steps/plan.py), the job's input.
 
 LEARNED = [L.abbreviations] if CONFIG["segment"]["learn_abbreviations"] else []
 
@@ -30,6 +31,7 @@ rule prepare:
         table=L.prepared("{chunk}"),
         tally=L.tally("{chunk}"),
         counts=L.counts("{chunk}"),
+        drops=L.drop_log("{chunk}"),
     log:
         L.log("prepare", "{chunk}"),
     params:
@@ -42,12 +44,13 @@ rule prepare:
         runtime=CONFIG["resources"]["runtime_min"],
     shell:
         step("prepare", "--plan {input.plan:q} --options {params.options:q} {params.learned} "
-             "--output {output.table:q} --tally {output.tally:q} --counts {output.counts:q}")
+             "--output {output.table:q} --tally {output.tally:q} --counts {output.counts:q} --drops {output.drops:q}")
 
 
 rule deduplicate:
     input:
         tables=[L.prepared(c) for c in PLAN.chunk_keys],
+        tallies=[L.tally(c) for c in PLAN.chunk_keys],
     output:
         duplicates=L.duplicates,
         removed_counts=L.removed_counts,

@@ -3,11 +3,14 @@
 from __future__ import annotations
 
 import importlib
+import os
+import signal
 import sys
 
 COMMANDS = {
     "audit": ("steps.verify", "check a build folder against its manifest"),
     "cutoffs": ("steps.whatif", "what a different vocabulary cutoff would give, from the stored counts"),
+    "progress": ("steps.progress", "where each running job of a build is, from its log"),
 }
 
 
@@ -20,7 +23,14 @@ def main(argv: list[str] | None = None) -> None:
         print("\n".join(lines), file=sys.stderr)
         raise SystemExit(0 if args[:1] in (["-h"], ["--help"]) else 2)
     module, _ = COMMANDS[args[0]]
-    importlib.import_module(module).main(args[1:])
+    try:
+        importlib.import_module(module).main(args[1:])
+        sys.stdout.flush()
+    except BrokenPipeError:
+        # The reader of our output went away (`corpusmill cutoffs --json | head`): stop quietly,
+        # with the status a process killed by SIGPIPE has, and no traceback at exit's flush.
+        os.dup2(os.open(os.devnull, os.O_WRONLY), sys.stdout.fileno())
+        raise SystemExit(128 + signal.SIGPIPE) from None
 
 
 if __name__ == "__main__":

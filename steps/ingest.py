@@ -16,14 +16,13 @@ from __future__ import annotations
 
 import bz2
 import codecs
-import gzip
 import hashlib
 import io
 import json
 import lzma
 import os
 import re
-from collections import Counter
+import zlib
 from collections.abc import Iterator
 from dataclasses import dataclass, field
 from pathlib import Path, PurePosixPath
@@ -31,6 +30,8 @@ from typing import BinaryIO
 
 import regex
 import zstandard
+
+from steps.accounting import Tally
 
 COMPRESSIONS = (".gz", ".bz2", ".xz", ".zst")
 FORMATS = (".txt", ".jsonl")
@@ -65,31 +66,6 @@ class Document:
     source: str
     offset: int
     text: str
-
-
-@dataclass
-class Tally:
-    """What happened to the documents of one chunk: read = kept + dropped (+ split pieces)."""
-
-    read: int = 0
-    pieces_added: int = 0
-    truncated: int = 0
-    replaced_sequences: int = 0
-    kept: int = 0
-    dropped: Counter[str] = field(default_factory=Counter)
-
-    def drop(self, reason: str) -> None:
-        self.dropped[reason] += 1
-
-    def as_dict(self) -> dict[str, object]:
-        return {
-            "read": self.read,
-            "pieces_added": self.pieces_added,
-            "truncated": self.truncated,
-            "replaced_sequences": self.replaced_sequences,
-            "kept": self.kept,
-            "dropped": dict(sorted(self.dropped.items())),
-        }
 
 
 @dataclass(frozen=True)
@@ -316,31 +292,50 @@ def _pack_ends_after(source: str, size: int, pack_bytes: int) -> bool:
     return draw < size / pack_bytes
 
 
-class _ZstdFrames(io.RawIOBase):
-    """Zstandard frames one after another, with an error when the input ends inside a frame.
+def _new_decompressor(compression: str):
+    """A fresh decompressor of one member (gzip), stream (bz2, xz) or frame (zstd)."""
+    if compression == ".gz":
+        return zlib.decompressobj(wbits=31)
+    if compression == ".bz2":
+        return bz2.BZ2Decompressor()
+    if compression == ".xz":
+        return lzma.LZMADecompressor()
+    return zstandard.ZstdDecompressor().decompressobj()
 
-    zstandard's own readers end silently at a cut-off frame, which would lose the rest of the
-    file unnoticed. Input goes in small pieces, so one step's output stays bounded (a zstd
-    block expands at most about 44,000-fold, so 1 KiB gives at most about 44 MiB).
+
+class _Frames(io.RawIOBase):
+    """The members (gzip), streams (bz2, xz) or frames (zstd) of a compressed file one after
+    another, with an error when the input ends inside one.
+
+    Every byte decompressed before damage is delivered before the error is raised, so the
+    error can say how much text was read (the standard library's readers drop a whole read's
+    output on a cut-off member, and zstandard's end silently, losing the rest unnoticed).
+    Input goes in small pieces, so one step's output stays bounded (a zstd block expands at
+    most about 44,000-fold: 1 KiB gives at most about 44 MiB).
     """
 
     FEED = 1024
 
-    def __init__(self, raw: BinaryIO) -> None:
+    def __init__(self, raw: BinaryIO, compression: str) -> None:
         self._raw = raw
-        self._frame = zstandard.ZstdDecompressor().decompressobj()
-        self._inside = False  # the current frame has had input but not its end
+        self._compression = compression
+        self._part = _new_decompressor(compression)
+        self._inside = False  # the current member has had input but not its end
         self._ready = memoryview(b"")
 
     def readable(self) -> bool:
         return True
+
+    def close(self) -> None:
+        self._raw.close()
+        super().close()
 
     def readinto(self, buffer: bytearray) -> int:  # type: ignore[override]
         while not self._ready:
             data = self._raw.read(self.FEED)
             if not data:
                 if self._inside:
-                    raise EOFError("the input ends inside a zstandard frame")
+                    raise EOFError("the input ends inside a compressed member")
                 return 0
             self._ready = memoryview(self._decode(data))
         size = min(len(buffer), len(self._ready))
@@ -351,12 +346,16 @@ class _ZstdFrames(io.RawIOBase):
     def _decode(self, data: bytes) -> bytes:
         out = []
         while data:
+            if not self._inside and self._compression in (".gz", ".xz"):
+                data = data.lstrip(b"\0")  # padding between members or streams
+                if not data:
+                    break
             self._inside = True
-            out.append(self._frame.decompress(data))
-            if not self._frame.eof:
+            out.append(self._part.decompress(data))
+            if not self._part.eof:
                 break
-            data, self._inside = self._frame.unused_data, False
-            self._frame = zstandard.ZstdDecompressor().decompressobj()
+            data, self._inside = self._part.unused_data, False
+            self._part = _new_decompressor(self._compression)
         return b"".join(out)
 
 
@@ -372,7 +371,7 @@ class _BoundedReader(io.RawIOBase):
     def readinto(self, buffer: bytearray) -> int:  # type: ignore[override]
         try:
             data = self._inner.read(len(buffer))
-        except (EOFError, OSError, lzma.LZMAError, zstandard.ZstdError) as error:
+        except (EOFError, OSError, zlib.error, lzma.LZMAError, zstandard.ZstdError) as error:
             raise CorpusError(
                 f"{self._path}: compressed data is damaged or truncated after {self.position} bytes of text ({error}); "
                 "re-create or re-download the file"
@@ -386,23 +385,18 @@ class _BoundedReader(io.RawIOBase):
         buffer[: len(data)] = data
         return len(data)
 
+    def close(self) -> None:
+        self._inner.close()
+        super().close()
+
 
 def open_source(path: Path, max_decompressed_bytes: int) -> BinaryIO:
     """Open a file as a binary stream of its (decompressed) bytes."""
     compression = split_name(path.name)[1]
     if not compression:
         return open(path, "rb")
-    raw = open(path, "rb")
-    inner: BinaryIO
-    if compression == ".gz":
-        inner = gzip.GzipFile(fileobj=raw)
-    elif compression == ".bz2":
-        inner = bz2.BZ2File(raw)
-    elif compression == ".xz":
-        inner = lzma.LZMAFile(raw)
-    else:
-        inner = io.BufferedReader(_ZstdFrames(raw), READ_BLOCK)
-    return io.BufferedReader(_BoundedReader(inner, max_decompressed_bytes, str(path)), READ_BLOCK)
+    frames = io.BufferedReader(_Frames(open(path, "rb"), compression), READ_BLOCK)
+    return io.BufferedReader(_BoundedReader(frames, max_decompressed_bytes, str(path)), READ_BLOCK)
 
 
 def _lines(stream: BinaryIO, offset: int, limit: int) -> Iterator[tuple[int, bytes, bool]]:
@@ -523,7 +517,7 @@ class _Assembler:
             if not self.oversized:
                 self.oversized = True
                 if self.policy == "split":
-                    self.tally.read += 1
+                    self.tally.file.read += 1
             buffer = b"".join(self.parts)
             if self.policy == "drop":
                 self.parts, self.size = [], 0
@@ -535,7 +529,7 @@ class _Assembler:
                 self.parts, self.size = [piece], len(piece)
                 return
             yield self.start, piece
-            self.tally.pieces_added += 1
+            self.tally.file.pieces_added += 1
             self.start += cut
             self.parts, self.size = [rest], len(rest)
 
@@ -545,13 +539,13 @@ class _Assembler:
         start, data = self.start, b"".join(self.parts)
         self.start = None
         if self.oversized and self.policy == "drop":
-            self.tally.read += 1
-            self.tally.drop("oversize")
+            self.tally.file.read += 1
+            self.tally.drop("oversize", start)
             return
         if not self.oversized or self.policy == "truncate":
-            self.tally.read += 1
+            self.tally.file.read += 1
         if self.oversized and self.policy == "truncate":
-            self.tally.truncated += 1
+            self.tally.file.truncated += 1
         yield start, data
 
 
@@ -601,32 +595,74 @@ def _raw_text_documents(
         yield from assembler.finish()
 
 
+_BYTE_ORDER_MARKS = (
+    (codecs.BOM_UTF32_LE, "UTF-32LE"), (codecs.BOM_UTF32_BE, "UTF-32BE"), (codecs.BOM_UTF16_LE, "UTF-16LE"), (codecs.BOM_UTF16_BE, "UTF-16BE"),
+)  # fmt: skip
+
+
+def foreign_encoding(data: bytes, file_start: bool) -> str | None:
+    """The UTF-16 or UTF-32 form the bytes look like, or None: a byte order mark at the start of
+    the file, or NUL bytes at every second position (UTF-16, where Latin letters take a zero
+    byte) or at three of every four (UTF-32). Such text is often valid UTF-8 byte by byte (NUL
+    is a character), so decoding alone would not notice it."""
+    if file_start:
+        for mark, name in _BYTE_ORDER_MARKS:
+            if data.startswith(mark):
+                return name
+    sample = data[: 1 << 12]
+    if b"\0" not in sample or len(sample) < 8:
+        return None
+    size = len(sample) // 4 * 4
+    zeros = [sample[k:size:4].count(0) / (size // 4) for k in range(4)]
+    if min(zeros[1:]) > 0.9 and zeros[0] < 0.1:
+        return "UTF-32LE"
+    if min(zeros[:3]) > 0.9 and zeros[3] < 0.1:
+        return "UTF-32BE"
+    even, odd = (zeros[0] + zeros[2]) / 2, (zeros[1] + zeros[3]) / 2
+    if odd > 0.3 and even < 0.05:
+        return "UTF-16LE"
+    if even > 0.3 and odd < 0.05:
+        return "UTF-16BE"
+    return None
+
+
 def _decoder(options: ReadOptions, tally: Tally, path: str):
-    """A function decoding one document's bytes per the invalid-UTF-8 policy (None = drop)."""
+    """A function decoding one document's bytes per the invalid-UTF-8 policy (None = drop).
+    UTF-16 and UTF-32 text is not UTF-8 under any policy: it stops the run with advice to
+    convert the file, or is dropped (replacing its bytes would keep nothing of the text)."""
 
     def decode(offset: int, data: bytes) -> str | None:
         if offset == 0 and data.startswith(codecs.BOM_UTF8):
             data, offset = data[3:], 3
+        encoding = foreign_encoding(data, offset == 0) if (offset == 0 or b"\0" in data) else None
+        if encoding is not None:
+            if options.invalid_utf8 == "stop":
+                raise CorpusError(
+                    f"{path}: looks like {encoding} text, not UTF-8 (from byte offset {offset}); convert the file "
+                    f"(e.g. iconv -f {encoding} -t UTF-8), or set corpus.invalid_utf8: drop to leave it out"
+                )
+            tally.drop("invalid_utf8", offset)
+            return None
         try:
             return data.decode("utf-8")
         except UnicodeDecodeError as error:
             if options.invalid_utf8 == "stop":
                 raise CorpusError(
-                    f"{path}: invalid UTF-8 at byte offset {offset + error.start} ({error.reason}); "
-                    "re-encode the file as UTF-8 (e.g. iconv -f LATIN1 -t UTF-8) or set corpus.invalid_utf8 "
-                    "to replace or drop"
+                    f"{path}: invalid UTF-8 at byte offset {offset + error.start} ({error.reason}); re-encode the file "
+                    "as UTF-8 from the encoding it is in (e.g. iconv -f LATIN1 -t UTF-8 for Latin-1 text), or set "
+                    "corpus.invalid_utf8 to replace or drop"
                 ) from None
             if options.invalid_utf8 == "drop":
-                tally.drop("invalid_utf8")
+                tally.drop("invalid_utf8", offset)
                 return None
             text = data.decode("utf-8", "replace")
-            tally.replaced_sequences += text.count("\ufffd") - data.count("\ufffd".encode())
+            tally.file.replaced_sequences += text.count("\ufffd") - data.count("\ufffd".encode())
             return text
 
     return decode
 
 
-def _surrogate_policy(value: str, options: ReadOptions, tally: Tally, where: str) -> str | None:
+def _surrogate_policy(value: str, options: ReadOptions, tally: Tally, where: str, offset: int) -> str | None:
     """Apply the invalid-UTF-8 policy to a JSON string holding escaped lone surrogates (e.g.
     "\\ud800"): they are not characters, so no UTF-8 file or Arrow column can hold them."""
     if options.invalid_utf8 == "stop":
@@ -637,10 +673,10 @@ def _surrogate_policy(value: str, options: ReadOptions, tally: Tally, where: str
             f"at character {found.start()}, which is not text; fix the record or set corpus.invalid_utf8 to replace or drop"
         )
     if options.invalid_utf8 == "drop":
-        tally.drop("invalid_utf8")
+        tally.drop("invalid_utf8", offset)
         return None
     replaced, count = _LONE_SURROGATE.subn("\ufffd", value)
-    tally.replaced_sequences += count
+    tally.file.replaced_sequences += count
     return replaced
 
 
@@ -662,9 +698,9 @@ def _json_documents(
             return
         if complete and data.strip(_BLANK_BYTES) == b"":
             continue
-        tally.read += 1
+        tally.file.read += 1
         if not complete or len(data) > options.max_document_bytes:
-            tally.drop("oversize")  # a JSON record cannot be split; its line is skipped whole
+            tally.drop("oversize", position)  # a JSON record cannot be split; its line is skipped whole
             skipping = not complete
             continue
         text = decode(position, data)
@@ -682,7 +718,7 @@ def _json_documents(
             if not isinstance(value, str):
                 problem, reason = f"no string field {options.jsonl_text_field!r}", "no_text"
             elif _LONE_SURROGATE.search(value):
-                value = _surrogate_policy(value, options, tally, f"{path}: record at byte offset {position}")
+                value = _surrogate_policy(value, options, tally, f"{path}: record at byte offset {position}", position)
                 if value is None:
                     continue
         if problem is not None:
@@ -691,7 +727,7 @@ def _json_documents(
                     f"{path}: record at byte offset {position}: {problem}; fix the line, set "
                     "corpus.jsonl_text_field, or set corpus.bad_records to drop"
                 )
-            tally.drop(reason)
+            tally.drop(reason, position)
             continue
         raw_id = record.get(options.jsonl_id_field) if options.jsonl_id_field else None
         usable = isinstance(raw_id, (str, int)) and not isinstance(raw_id, bool) and not _LONE_SURROGATE.search(str(raw_id))
@@ -722,17 +758,33 @@ def _pieces(chunk: Chunk, chunk_bytes: int) -> Iterator[_FilePiece]:
     yield _FilePiece(source, chunk.index * chunk_bytes, end)
 
 
-def read_documents(root: str | Path, chunk: Chunk, chunk_bytes: int, options: ReadOptions, tally: Tally) -> Iterator[Document]:
+def read_documents(
+    root: str | Path, chunk: Chunk, chunk_bytes: int, options: ReadOptions, tally: Tally, collect_problems: bool = False
+) -> Iterator[Document]:
     """Stream the documents a chunk owns, in corpus order (file, then offset), counting every
-    one in `tally`."""
+    one in `tally`. A file that cannot be read as configured raises CorpusError, or with
+    `collect_problems` is recorded in the tally and reading goes on with the next file."""
     for piece in _pieces(chunk, chunk_bytes):
-        path = Path(root) / piece.source
-        with open_source(path, options.max_decompressed_bytes) as handle:
-            if split_name(piece.source)[0] == ".jsonl":
-                yield from _json_documents(handle, piece, options, tally, str(path))
-                continue
-            decode = _decoder(options, tally, str(path))
-            for offset, data in _raw_text_documents(handle, piece, options, tally):
-                text = decode(offset, data)
-                if text is not None:
-                    yield Document(f"{piece.source}:{offset}", piece.source, offset, text)
+        tally.start(piece.source)
+        try:
+            yield from _piece_documents(Path(root) / piece.source, piece, options, tally)
+        except CorpusError as error:
+            if not collect_problems:
+                raise
+            tally.problem(str(error))
+
+
+def _piece_documents(path: Path, piece: _FilePiece, options: ReadOptions, tally: Tally) -> Iterator[Document]:
+    try:
+        handle = open_source(path, options.max_decompressed_bytes)
+    except OSError as error:
+        raise CorpusError(f"{path}: cannot be opened ({error.strerror}); check that it exists and is readable") from None
+    with handle:
+        if split_name(piece.source)[0] == ".jsonl":
+            yield from _json_documents(handle, piece, options, tally, str(path))
+            return
+        decode = _decoder(options, tally, str(path))
+        for offset, data in _raw_text_documents(handle, piece, options, tally):
+            text = decode(offset, data)
+            if text is not None:
+                yield Document(f"{piece.source}:{offset}", piece.source, offset, text)

@@ -55,6 +55,14 @@ class Layout:
         return self._join("stats", "growth.json")
 
     @property
+    def accounting(self) -> str:
+        return self._join("stats", "accounting.json")
+
+    @property
+    def dropped(self) -> str:
+        return self._join("stats", "dropped.parquet")
+
+    @property
     def report(self) -> str:
         return self._join("report", "index.html")
 
@@ -82,6 +90,9 @@ class Layout:
 
     def tally(self, chunk: str) -> str:
         return self._join("interim", "prepared", f"{chunk}.tally.json")
+
+    def drop_log(self, chunk: str) -> str:
+        return self._join("interim", "dropped", f"{chunk}.parquet")
 
     def counts(self, chunk: str) -> str:
         return self._join("interim", "counts", f"{chunk}.parquet")
@@ -124,3 +135,8 @@ class Layout:
 
     def log(self, rule: str, name: str = "") -> str:
         return self._join("logs", rule, f"{name or rule}.log")
+
+    @property
+    def failed_jobs(self) -> str:
+        """The logs of the jobs that failed in the current run, one path a line."""
+        return self._join("logs", "failed-jobs.txt")

@@ -3,7 +3,8 @@
 It records the resolved configuration and its hash, a fingerprint of every input file, the
 files under the corpus root that were not read (unselected, excluded, refused), the
 vocabulary hash, per-split figures, every shard file with its rows and SHA-256, and the
-document accounting: read + pieces added by splitting = kept + dropped (by reason).
+document accounting (steps/accounting.py), in total and per input file: read + pieces added
+by splitting = kept + dropped (by reason).
 """
 
 from __future__ import annotations
@@ -11,7 +12,6 @@ from __future__ import annotations
 import argparse
 import hashlib
 import json
-from collections import Counter
 from collections.abc import Sequence
 from pathlib import Path
 
@@ -33,36 +33,11 @@ def file_sha256(path: str | Path) -> str:
     return hasher.hexdigest()
 
 
-def accounting(tallies: Sequence[dict], duplicates: int) -> dict:
-    dropped: Counter[str] = Counter()
-    read = pieces = kept = replaced = truncated = 0
-    for tally in tallies:
-        read += tally["read"]
-        pieces += tally["pieces_added"]
-        kept += tally["kept"]
-        replaced += tally["replaced_sequences"]
-        truncated += tally["truncated"]
-        dropped.update(tally["dropped"])
-    if duplicates:
-        dropped["duplicate"] += duplicates
-    kept -= duplicates
-    return {
-        "read": read,
-        "pieces_added": pieces,
-        "kept": kept,
-        "dropped": dict(sorted(dropped.items())),
-        "truncated": truncated,
-        "replaced_sequences": replaced,
-        "balanced": read + pieces == kept + sum(dropped.values()),
-    }
-
-
 def build_manifest(
     config: dict,
     corpus: dict,
     build_dir: str,
-    tallies: Sequence[dict],
-    duplicates: int,
+    accounting: dict,
     part_stats: dict[tuple[str, int], dict],
     shards: dict[tuple[str, int], dict[str, str]],
     extra_files: Sequence[str],
@@ -116,7 +91,7 @@ def build_manifest(
         },
         "files": {Path(p).relative_to(base).as_posix(): file_sha256(p) for p in extra_files},
         "splits": splits,
-        "accounting": accounting(tallies, duplicates),
+        "accounting": accounting,
     }
 
 
@@ -128,15 +103,13 @@ def main(argv: list[str] | None = None) -> None:
     args = parser.parse_args(argv)
     config = json.loads(args.options)
     plan = read_json(args.plan)
-    tallies = [read_json(p) for p in plan["tallies"]]
-    duplicates = pq.ParquetFile(plan["duplicates"]).metadata.num_rows
     part_stats = {(s["split"], s["part"]): read_json(s["stats"]) for s in plan["parts"]}
     shards = {(s["split"], s["part"]): s["files"] for s in plan["parts"]}
     manifest = build_manifest(
-        config, read_json(plan["corpus"]), plan["build_dir"], tallies, duplicates, part_stats, shards, plan["extra_files"]
+        config, read_json(plan["corpus"]), plan["build_dir"], read_json(plan["accounting"]), part_stats, shards, plan["extra_files"]
     )
     write_json(args.output, manifest)
-    print(json.dumps(manifest["accounting"], sort_keys=True))
+    print(json.dumps({key: value for key, value in manifest["accounting"].items() if key != "files"}, sort_keys=True))
 
 
 if __name__ == "__main__":

@@ -26,9 +26,9 @@ STEPS_DIR = Path(__file__).resolve().parent
 
 # The step modules each rule runs; editing one reruns the rules that use it.
 RULE_MODULES = {
-    "prepare": ("ingest", "clean", "segment", "unicode_breaks", "split", "prepare", "vocab", "storage"),
+    "prepare": ("ingest", "clean", "segment", "unicode_breaks", "split", "prepare", "vocab", "storage", "accounting", "progress"),
     "abbreviations": ("segment", "unicode_breaks", "clean", "ingest", "storage"),
-    "deduplicate": ("split", "vocab", "storage"),
+    "deduplicate": ("split", "vocab", "storage", "accounting", "settings"),
     "subword_sample": ("subword", "split", "vocab", "storage"),
     "subword_train": ("subword", "vocab", "storage"),
     "subword_model": ("subword", "vocab", "storage"),
@@ -37,6 +37,7 @@ RULE_MODULES = {
     "shard": ("shards", "windows", "vocab", "split", "encode", "storage"),
     "coverage": ("report", "summary", "vocab", "storage"),
     "manifest": ("manifest", "vocab", "settings", "storage"),
+    "accounting": ("accounting", "storage"),
     "growth": ("growth", "laws", "split", "storage", "vocab"),
     "report": ("report_page", "laws", "settings", "storage", "vocab"),
 }
@@ -193,8 +194,7 @@ class Plan:
         return {
             "build_dir": self.layout.root,
             "corpus": self.layout.corpus_plan,
-            "tallies": [self.layout.tally(c) for c in self.chunk_keys],
-            "duplicates": self.layout.duplicates,
+            "accounting": self.layout.accounting,
             "parts": [
                 {"split": s, "part": p, "stats": self.layout.shard_stats(s, p), "files": self.shard_files(s, p)}
                 for s, p in self.split_parts()

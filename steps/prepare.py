@@ -20,6 +20,7 @@ from __future__ import annotations
 
 import argparse
 import json
+import sys
 from collections.abc import Iterator
 from itertools import chain
 from pathlib import Path
@@ -29,7 +30,9 @@ import pyarrow as pa
 import pyarrow.compute as pc
 
 from steps.clean import CleanOptions, clean_text, rejection
-from steps.ingest import Chunk, CorpusError, Document, ReadOptions, Tally, read_documents
+from steps.accounting import Tally
+from steps.ingest import Chunk, CorpusError, Document, ReadOptions, read_documents
+from steps.progress import Progress
 from steps.segment import Segmenter
 from steps.split import assign_split, doc_hash, fingerprint
 from steps.storage import ParquetSink, write_json, write_table
@@ -88,7 +91,9 @@ class ChunkPreparer:
         self.split = config["split"]
         self.schema = chunk_schema(self.units)
 
-    def batches(self, documents: Iterator[Document], tally: Tally, batch_chars: int = BATCH_CHARS) -> Iterator[pa.Table]:
+    def batches(
+        self, documents: Iterator[Document], tally: Tally, batch_chars: int = BATCH_CHARS, progress: Progress | None = None
+    ) -> Iterator[pa.Table]:
         """Arrow tables of kept documents, each from at most BATCH_DOCUMENTS documents or
         about `batch_chars` characters of text."""
         batch, chars, seen = _Batch(), 0, 0
@@ -97,6 +102,8 @@ class ChunkPreparer:
             seen += 1
             chars += len(document.text)
             if seen >= BATCH_DOCUMENTS or chars >= batch_chars:
+                if progress is not None:
+                    progress.add(seen, chars)
                 yield self._table(batch)
                 batch, chars, seen = _Batch(), 0, 0
         if batch.ids:
@@ -118,9 +125,9 @@ class ChunkPreparer:
             else:
                 reason = "no_tokens"
         if reason is not None:
-            tally.drop(reason)
+            tally.drop(reason, document.offset)
             return
-        tally.kept += 1
+        tally.file.kept += 1
         digest = fingerprint(text)
         key = digest if self.split["key"] == "content" else document.doc_id.encode("utf-8")
         batch.ids.append(document.doc_id)
@@ -160,17 +167,23 @@ def prepare_chunk(
     tally_path: str,
     abbreviations: frozenset[str],
     counts_path: str | None = None,
+    drops_path: str | None = None,
 ) -> Tally:
     """Run the whole chunk and write its table, its word counts per split (all kept documents;
-    the vocabulary step subtracts duplicates) and its tally; returns the tally."""
+    the vocabulary step subtracts duplicates), its tally and beside it the log of its dropped
+    documents; returns the tally. A file that cannot be read as configured is recorded in the
+    tally (the deduplicate job stops the run) and the other files are still read."""
     tally = Tally()
     preparer = ChunkPreparer(config, abbreviations)
-    documents = read_documents(root, chunk, chunk_bytes, ReadOptions.from_config(config["corpus"]), tally)
+    options = ReadOptions.from_config(config["corpus"])
+    documents = read_documents(root, chunk, chunk_bytes, options, tally, collect_problems=True)
+    size = sum((Path(root) / source).stat().st_size for source in chunk.sources)
+    progress = Progress(f"{chunk.key} (chunk {chunk.index + 1} of {chunk.count})", size if chunk.count == 1 else chunk_bytes)
     counts = COUNTS_SCHEMA.empty_table()
     pending: list[pa.Table] = []
     with ChunkTableWriter(output, preparer.schema, preparer.units, RUN_FACTOR * chunk_bytes) as writer:
         # Batches no larger than a chunk, so a run holds a few of them even for tiny chunk sizes.
-        for batch in preparer.batches(documents, tally, min(BATCH_CHARS, chunk_bytes)):
+        for batch in preparer.batches(documents, tally, min(BATCH_CHARS, chunk_bytes), progress):
             writer.add(batch)
             if preparer.units == "word":
                 pending.append(count_tokens(batch))
@@ -179,7 +192,11 @@ def prepare_chunk(
     if counts_path:
         counts = sum_counts([counts, *pending]).sort_by([("split", "ascending"), ("token", "ascending")])
         write_table(counts_path, counts)
+    if drops_path:
+        write_table(drops_path, tally.drops.table())
     write_json(tally_path, {"sources": list(chunk.sources), "chunk": chunk.index, "chunks": chunk.count, **tally.as_dict()})
+    for problem in tally.problems:
+        print(f"corpusmill: {problem['message']}", file=sys.stderr)
     return tally
 
 
@@ -277,6 +294,7 @@ def main(argv: list[str] | None = None) -> None:
     parser.add_argument("--output", required=True)
     parser.add_argument("--tally", required=True)
     parser.add_argument("--counts", required=True, help="word counts per split of the kept documents")
+    parser.add_argument("--drops", required=True, help="the dropped documents: source, offset, reason")
     args = parser.parse_args(argv)
     config = json.loads(args.options)
     chunk = read_chunk_plan(args.plan)
@@ -284,7 +302,7 @@ def main(argv: list[str] | None = None) -> None:
     try:
         tally = prepare_chunk(
             config["corpus"]["root"], chunk, chunk_bytes, config, args.output, args.tally,
-            read_abbreviations(args.abbreviations), args.counts,
+            read_abbreviations(args.abbreviations), args.counts, args.drops,
         )
     except CorpusError as error:
         raise SystemExit(f"corpusmill: {error}") from None

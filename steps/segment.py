@@ -18,7 +18,8 @@ import regex
 
 from steps import unicode_breaks
 from steps.clean import CleanOptions, clean_text
-from steps.ingest import CorpusError, ReadOptions, Tally, plan_chunks, read_documents
+from steps.accounting import Tally
+from steps.ingest import CorpusError, ReadOptions, plan_chunks, read_documents
 from steps.storage import write_text
 
 NUMBER_TOKEN = "<number>"

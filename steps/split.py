@@ -19,7 +19,9 @@ import pyarrow as pa
 import pyarrow.compute as pc
 import pyarrow.parquet as pq
 
+from steps.accounting import problems_message
 from steps.layout import SPLITS
+from steps.settings import read_json
 from steps.storage import write_table
 from steps.vocab import COUNTS_SCHEMA, MERGE_FILES, count_tokens, sum_counts
 
@@ -263,6 +265,11 @@ def _located(sources: pa.ChunkedArray | pa.Array, offsets: pa.ChunkedArray | pa.
     return pc.binary_join_element_wise(sources, pc.cast(offsets, pa.string()), "\x00")
 
 
+def drop_suffix(prepared_path: str) -> str:
+    """A prepared chunk's path without `.parquet`: its tally lies beside it (steps.layout)."""
+    return prepared_path.removesuffix(".parquet")
+
+
 def repeated_ids_message(repeats: list[tuple[str, list[tuple[str, int]]]], by_file: bool) -> str:
     """What the user reads when ids repeat: the first few ids with both places, and the fixes."""
     shown = "; ".join(
@@ -288,6 +295,9 @@ def main(argv: list[str] | None = None) -> None:
     parser.add_argument("--repeated-ids", choices=["stop", "by_file"], default="stop", help="corpus.repeated_ids")
     parser.add_argument("prepared", nargs="*", help="prepared chunk files in corpus order")
     args = parser.parse_args(argv)
+    message = problems_message([read_json(drop_suffix(path) + ".tally.json") for path in args.prepared])
+    if message:
+        raise SystemExit(message)
     corpus = CorpusRows(args.prepared)
     repeats = repeated_ids(corpus)
     if repeats:

@@ -40,3 +40,69 @@ def format_table(stats: dict) -> str:
     if top:
         lines.append("most frequent dev OOV words: " + ", ".join(f"{w} ({c})" for w, c in top))
     return "\n".join(lines)
+
+
+def _named(paths: list[str], shown: int = 3) -> str:
+    more = f", +{len(paths) - shown} more" if len(paths) > shown else ""
+    return ", ".join(paths[:shown]) + more
+
+
+def format_accounting(accounting: dict, corpus: dict, dropped_path: str, shown: int = 5) -> str:
+    """What became of the documents and files read: totals, files not read, and the files with
+    the most drops or replacements (all of them in stats/accounting.json)."""
+    dropped = accounting["dropped"]
+    reasons = ", ".join(f"{reason} {count:,}" for reason, count in sorted(dropped.items(), key=lambda item: -item[1]))
+    pieces = f" (+{accounting['pieces_added']:,} pieces of split documents)" if accounting["pieces_added"] else ""
+    lines = [
+        f"documents: read {accounting['read']:,}{pieces}, kept {accounting['kept']:,}, dropped {sum(dropped.values()):,}"
+        + (f": {reasons}" if reasons else "")
+    ]
+    files = [f"{len(corpus['sources']):,} read"]
+    if corpus["unselected"]:
+        files.append(f"{len(corpus['unselected']):,} not matched by corpus.include ({_named(corpus['unselected'])})")
+    if corpus["excluded"]:
+        files.append(f"{len(corpus['excluded']):,} excluded ({_named(corpus['excluded'])})")
+    if corpus["refused"]:
+        refused = [f"{entry['path']}: {entry['reason']}" for entry in corpus["refused"]]
+        files.append(f"{len(refused):,} refused ({_named(refused)})")
+    lines.append("files: " + "; ".join(files))
+    touched = [
+        (sum(figures["dropped"].values()) + figures["replaced_sequences"] + figures["truncated"], source, figures)
+        for source, figures in accounting["files"].items()
+    ]
+    touched = sorted((item for item in touched if item[0]), key=lambda item: (-item[0], item[1]))
+    for _, source, figures in touched[:shown]:
+        parts = [f"dropped {reason} {count:,}" for reason, count in sorted(figures["dropped"].items())]
+        if figures["replaced_sequences"]:
+            parts.append(f"{figures['replaced_sequences']:,} byte sequences replaced")
+        if figures["truncated"]:
+            parts.append(f"{figures['truncated']:,} truncated")
+        lines.append(f"  {source}: {', '.join(parts)} (of {figures['read']:,} read)")
+    if len(touched) > shown:
+        lines.append(f"  and {len(touched) - shown:,} more files with drops or replacements (all in the accounting of the build)")
+    if sum(dropped.values()):
+        lines.append(f"every dropped document (file, byte offset, reason): {dropped_path}")
+    return "\n".join(lines)
+
+
+def failure_message(log: str) -> str:
+    """The message a failed job left at the end of its log: from its last `corpusmill:` line
+    to the end, else its last three lines (an unexpected error's traceback ends so)."""
+    try:
+        with open(log, encoding="utf-8", errors="replace") as handle:
+            lines = [line.rstrip("\n") for line in handle if line.strip()]
+    except OSError:
+        return "(its log is missing)"
+    starts = [number for number, line in enumerate(lines) if line.startswith("corpusmill:")]
+    return "\n".join(lines[starts[-1] :] if starts else lines[-3:])
+
+
+def format_failures(path: str) -> str:
+    """Each failed job of the run (its log named in `path`) with its own message."""
+    with open(path, encoding="utf-8") as handle:
+        logs = list(dict.fromkeys(line.strip() for line in handle if line.strip()))
+    lines = [f"corpusmill: {len(logs)} job(s) failed; what each said (the whole log is named):"]
+    for log in logs:
+        lines.append(f"- {log}:")
+        lines += [f"    {line}" for line in failure_message(log).splitlines()]
+    return "\n".join(lines)

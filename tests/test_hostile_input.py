@@ -19,7 +19,8 @@ import regex
 
 from conftest import run_workflow
 from steps import settings
-from steps.ingest import Chunk, CorpusError, Document, ReadOptions, Tally, chunk_key, read_documents
+from steps.accounting import Tally
+from steps.ingest import Chunk, CorpusError, Document, ReadOptions, chunk_key, read_documents
 from steps.plan import chunk_record, write_if_changed
 from steps.prepare import prepare_chunk
 from steps.segment import Segmenter, is_lossless
@@ -150,7 +151,7 @@ def _peak_rss_mib(root: Path, name: str, out: Path, corpus: dict) -> float:
     command = [
         sys.executable, "-m", "steps.prepare", "--plan", str(plan),
         "--options", json.dumps(config), "--output", str(out / f"{name}.parquet"), "--tally", str(out / f"{name}.json"),
-        "--counts", str(out / f"{name}.counts.parquet"),
+        "--counts", str(out / f"{name}.counts.parquet"), "--drops", str(out / f"{name}.drops.parquet"),
     ]  # fmt: skip
     process = subprocess.Popen(command, cwd=REPO, env={**os.environ, "PYTHONPATH": str(REPO)})
     _, status, usage = os.wait4(process.pid, 0)

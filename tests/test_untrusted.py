@@ -19,7 +19,8 @@ import yaml
 from conftest import run_workflow
 from steps import unicode_breaks
 from steps.clean import CleanOptions, clean_text, rejection
-from steps.ingest import Chunk, CorpusError, ReadOptions, Tally, chunk_key, read_documents
+from steps.accounting import Tally
+from steps.ingest import Chunk, CorpusError, ReadOptions, chunk_key, read_documents
 from steps.segment import Segmenter
 from steps.vocab import unknown_class
 from tests import hostile

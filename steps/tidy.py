@@ -1,0 +1,54 @@
+"""Tidy: remove what earlier runs left in a build folder that no job of the current plan reads
+or writes.
+
+A removed input file, a changed chunk or pack size, fewer shard files, another unit mode: each
+leaves files of jobs that no longer exist (old chunk tables and counts, shard files of parts
+that are gone, their logs). They waste space, and stale shards would be taken for part of the
+build. After a successful run of the whole workflow, every file under the build folder that is
+neither an input, an output nor a log of a job of the run's plan is removed, except the cache
+of learned subword models (a setting changed back reuses its model). Only a run of the default
+target knows the whole plan, so a run of a single target removes nothing.
+"""
+
+from __future__ import annotations
+
+import os
+from collections.abc import Iterable
+from pathlib import Path
+
+# Kept although no current job names them: learned subword models by sample key.
+CACHES = ("interim/subword/models",)
+
+
+def stale_files(build_root: str | Path, current: Iterable[str | Path]) -> list[Path]:
+    """Files under `build_root` that are not in `current`, nor in a cache, sorted."""
+    root = Path(build_root)
+    keep = {os.path.normpath(path) for path in current}
+    caches = [os.path.normpath(root / cache) for cache in CACHES]
+    stale = []
+    for folder, _, names in os.walk(root):
+        for name in names:
+            path = os.path.normpath(os.path.join(folder, name))
+            if path not in keep and not any(path.startswith(cache + os.sep) for cache in caches):
+                stale.append(Path(path))
+    return sorted(stale)
+
+
+def remove(paths: list[Path]) -> str:
+    """Remove the files and the folders they leave empty; a line saying what went."""
+    if not paths:
+        return ""
+    size = 0
+    for path in paths:
+        try:
+            size += path.stat().st_size
+            path.unlink()
+        except FileNotFoundError:
+            continue
+        for parent in path.parents:
+            try:
+                parent.rmdir()
+            except OSError:
+                break
+    shown = ", ".join(str(p) for p in paths[:3]) + (f", +{len(paths) - 3} more" if len(paths) > 3 else "")
+    return f"removed {len(paths):,} file(s) of earlier runs that no current job uses ({size / 1e6:,.1f} MB): {shown}"
