@@ -168,7 +168,7 @@ def plot_sources(ranked: Sequence[tuple[str, dict]], key: str, label: str) -> st
     """One bar per split for each file, labelled by its rank (the row number of the table beside)."""
     inches = 0.9 + 0.42 * len(ranked)
     figure = Figure(figsize=(8.0, inches))
-    figure.subplots_adjust(left=0.07, right=0.98, bottom=0.6 / inches, top=1 - 0.1 / inches)
+    figure.subplots_adjust(left=0.09, right=0.98, bottom=0.6 / inches, top=1 - 0.1 / inches)
     axes = figure.add_subplot()
     axes.grid(True, axis="x", color="#dddddd", linewidth=0.6)
     height = 0.8 / len(SPLITS)
@@ -178,6 +178,7 @@ def plot_sources(ranked: Sequence[tuple[str, dict]], key: str, label: str) -> st
         axes.barh(positions + (index - 1) * height, rates, height=height, color=COLOURS[split], label=split)
     axes.set_yticks(positions, [str(rank) for rank in range(1, len(ranked) + 1)], fontsize=8)
     axes.invert_yaxis()
+    axes.set_ylabel("input file, # in the table")
     _percent(axes.xaxis)
     axes.set_xlabel(label)
     axes.legend(fontsize=9)
@@ -368,7 +369,7 @@ def render(
     sections.append(("growth", "Vocabulary growth", "".join([
         f"<p>Heaps fit: types ≈ K · tokens<sup>β</sup> with K = {heaps_fit.constant:.2f}, β = {heaps_fit.exponent:.3f}, "
         f"fitted from a tenth of the train stream to its end, the last decade on the log axis (from {int(heaps_fit.fit_from):,} "
-        f"of {int(tokens.max()) if len(tokens) else 0:,} tokens, shaded in the plot). "
+        f"of {int(tokens.max()) if len(tokens) else 0:,} tokens; shaded in the plot). "
         "Large English collections usually give β between 0.4 and 0.6; a small or mixed corpus gives more.</p>",
         image(_png(growth_figure(tokens, types, heaps_fit, "tokens", "corpus order")), "vocabulary growth plot",
               "Distinct words after each prefix of the train tokens, in corpus order, duplicates left out."),
@@ -508,8 +509,8 @@ def render_subword(
         "duplicates left out; the number of pieces is fixed at |V| by the model and does not grow. "
         f"Heaps fit: types ≈ K · words<sup>β</sup> with K = {heaps_fit.constant:.2f}, β = {heaps_fit.exponent:.3f}, "
         f"fitted from a tenth of the stream to its end, the last decade on the log axis (from {int(heaps_fit.fit_from):,} "
-        f"of {int(words.max()) if len(words) else 0:,} words, shaded in the plot; "
-        f"{int(types[-1]) if len(types) else 0:,} distinct words). "
+        f"of {int(words.max()) if len(words) else 0:,} words; "
+        f"{int(types[-1]) if len(types) else 0:,} distinct words; shaded in the plot). "
         "This is the open vocabulary the pieces have to spell; large English collections usually give β between 0.4 and 0.6.</p>",
         image(_png(growth_figure(words, types, heaps_fit, "words", "whitespace-separated, corpus order")), "vocabulary growth plot",
               "Distinct words after each prefix of the train words, in corpus order, duplicates left out."),
