@@ -19,10 +19,10 @@ from __future__ import annotations
 
 import argparse
 import base64
+import heapq
 import html
 import io
 import json
-import heapq
 from collections.abc import Callable, Sequence
 
 import matplotlib
@@ -288,21 +288,17 @@ def sizing_section(size: int, options: dict, context_unit: str) -> tuple[str, st
     ]))
 
 
-def files_part(sources: dict[str, dict], weight: Callable[[dict], int], what: str, where: str,
-               plot: Callable[[Sequence[tuple[str, dict]]], str], headers: Sequence[str],
-               row: Callable[[dict], list[object]]) -> str:
-    """The files of largest `weight`: a chart of the first CHART_FILES numbered by rank, a table of
-    the first TABLE_FILES, and how many more there are and where (`where`, HTML) all are."""
-    ranked = top_sources(sources, weight, TABLE_FILES)
-    parts = [
-        f"<p>{len(sources):,} input files, ranked by {html.escape(what)}. The chart shows the first "
-        f"{min(CHART_FILES, len(ranked))}, numbered as in the table.</p>",
-        plot(ranked[:CHART_FILES]),
-        table(["#", "input file", *headers], [[rank, FileName(name), *row(figures)] for rank, (name, figures) in enumerate(ranked, 1)]),
-    ]
-    if len(sources) > len(ranked):
-        parts.append(f"<p>{len(sources) - len(ranked):,} more input files are not listed; the figures of every file are in {where}.</p>")
-    return "".join(parts)
+def ranked_lead(files: int, listed: int, what: str) -> str:
+    """What orders the per-file chart and table, which share the rank numbers."""
+    return (f"<p>{files:,} input files, ranked by {html.escape(what)}. "
+            f"The chart shows the first {min(CHART_FILES, listed)}, numbered as in the table.</p>")
+
+
+def left_out(files: int, listed: int, where: str) -> str:
+    """How many files the table leaves out and where (`where`, HTML) every file's figures are."""
+    if files <= listed:
+        return ""
+    return f"<p>{files - listed:,} more input files are not listed; the figures of every file are in {where}.</p>"
 
 
 def page(sections: list[tuple[str, str, str]], lead: str, manifest: dict) -> str:
@@ -378,15 +374,19 @@ def render(
     split_rows = [[s, splits[s]["tokens"], splits[s]["types"], splits[s]["oov_tokens"], _rate(splits[s]["oov_rate"], splits[s]["tokens"]),
                    splits[s]["oov_types"]] for s in SPLITS]
     oov_parts = [table(["split", "tokens", "types", "OOV tokens", "OOV rate", "OOV types"], split_rows)]
-    if coverage["sources"]:
-        oov_parts.append(files_part(
-            coverage["sources"], _oov_tokens, "out-of-vocabulary tokens in all splits",
-            "<code>stats/coverage.json</code>, key <code>sources</code>",
-            lambda ranked: image(plot_sources(ranked, "oov_rate", "tokens out of vocabulary"), "OOV rate by source file",
-                                 "Share of tokens out of vocabulary, per input file and split; files numbered as in the table."),
-            ["OOV tokens"] + [f"{s} {label}" for s in SPLITS for label in ("tokens", "OOV")],
-            lambda figures: [_oov_tokens(figures)] + [v for s in SPLITS for v in (figures[s]["tokens"], _rate(figures[s]["oov_rate"], figures[s]["tokens"]))],
-        ))
+    sources = coverage["sources"]
+    if sources:
+        listed = top_sources(sources, _oov_tokens, TABLE_FILES)
+        oov_parts += [
+            ranked_lead(len(sources), len(listed), "out-of-vocabulary tokens in all splits"),
+            image(plot_sources(listed[:CHART_FILES], "oov_rate", "tokens out of vocabulary"), "OOV rate by source file",
+                  "Share of tokens out of vocabulary, per input file and split; files numbered as in the table."),
+            table(["#", "input file", "OOV tokens"] + [f"{s} {label}" for s in SPLITS for label in ("tokens", "OOV")],
+                  [[rank, FileName(name), _oov_tokens(figures)]
+                   + [v for s in SPLITS for v in (figures[s]["tokens"], _rate(figures[s]["oov_rate"], figures[s]["tokens"]))]
+                   for rank, (name, figures) in enumerate(listed, 1)]),
+            left_out(len(sources), len(listed), "<code>stats/coverage.json</code>, key <code>sources</code>"),
+        ]
     sections.append(("oov", "Out-of-vocabulary tokens by split and source", "".join(oov_parts)))
 
     lists = []
@@ -482,18 +482,20 @@ def render_subword(
               unknown_rows),
     ]
     if sources:
-        unknown_parts.append(files_part(
-            sources, _would_be_unknown, "pieces that would be <unk> without byte fallback, in all splits",
-            "the encode statistics, <code>interim/encoded/*/stats.json</code>, key <code>sources</code> "
-            "(one file per input chunk: add up a file's figures over its chunks)",
-            lambda ranked: image(plot_sources(ranked, "unknown_rate_without_byte_fallback", "pieces that would be <unk> without byte fallback"),
-                                 "unknown rate without byte fallback by source file",
-                                 "Share of pieces that would be <unk> without byte fallback, per input file and split, numbered as in the table: "
-                                 "files with characters the model lacks stand out."),
-            ["would-be <unk> pieces"] + [f"{s} {label}" for s in SPLITS for label in ("pieces", "<unk> w/o fallback")],
-            lambda figures: [_would_be_unknown(figures)] + [
-                v for s in SPLITS for v in (figures[s]["tokens"], _fine_rate(figures[s]["unknown_rate_without_byte_fallback"], figures[s]["tokens"]))],
-        ))
+        listed = top_sources(sources, _would_be_unknown, TABLE_FILES)
+        unknown_parts += [
+            ranked_lead(len(sources), len(listed), "pieces that would be <unk> without byte fallback, in all splits"),
+            image(plot_sources(listed[:CHART_FILES], "unknown_rate_without_byte_fallback", "pieces that would be <unk> without byte fallback"),
+                  "unknown rate without byte fallback by source file",
+                  "Share of pieces that would be <unk> without byte fallback, per input file and split, numbered as in the table: "
+                  "files with characters the model lacks stand out."),
+            table(["#", "input file", "would-be <unk> pieces"] + [f"{s} {label}" for s in SPLITS for label in ("pieces", "<unk> w/o fallback")],
+                  [[rank, FileName(name), _would_be_unknown(figures)]
+                   + [v for s in SPLITS for v in (figures[s]["tokens"], _fine_rate(figures[s]["unknown_rate_without_byte_fallback"], figures[s]["tokens"]))]
+                   for rank, (name, figures) in enumerate(listed, 1)]),
+            left_out(len(sources), len(listed), "the encode statistics, <code>interim/encoded/*/stats.json</code>, key <code>sources</code> "
+                     "(one file per input chunk: add up a file's figures over its chunks)"),
+        ]
     sections.append(("unknown", "Unknown pieces and byte fallback", "".join(unknown_parts)))
 
     sections.append(("zipf", "Rank and frequency of pieces", "".join([
