@@ -1,6 +1,7 @@
 """Word-frequency laws and model sizing: the numbers the report draws and prints.
 
-Zipf's law: the r-th most frequent word occurs about C · r^(-s) times (s near 1 for English).
+Zipf's law: the r-th most frequent word occurs about C · r^(-s) times (s near 1 for the words of
+natural-language text).
 Heaps' law: after N running tokens a text holds about K · N^β distinct types (β near 0.5 in
 large collections). Both are fitted by least squares on log–log axes at log-spaced points, so
 every decade weighs the same instead of the long tail of rare words or late tokens dominating.

@@ -31,6 +31,8 @@ TABLE_SIZES = (100, 1000, 2000, 5000, 10000, 20000, 50000, 100000)
 
 
 def _rate(part: float, whole: float) -> float:
+    """part / whole to six decimals; 0.0 for 0 of 0, which JSON cannot mark otherwise. Each rate's
+    denominator is in coverage.json too, and the page and the summary show a dash where it is zero."""
     return round(part / whole, 6) if whole else 0.0
 
 

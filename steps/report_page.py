@@ -9,16 +9,21 @@ Subword mode (coverage.json has `units: subword`) shows what applies to a piece 
 pieces per word and per sentence, the <unk> rate with and without byte fallback (by split and by
 input file, from the encode statistics), the rank-frequency law of the pieces, and vocabulary
 growth measured in whitespace-separated words (see steps/growth.py).
+
+No text from the corpus is drawn into a plot: file names and words go into HTML tables, plots
+label them by rank. DejaVu, matplotlib's only font here, lacks CJK glyphs, and matplotlib reads
+`$…$` in a label as mathematics.
 """
 
 from __future__ import annotations
 
 import argparse
 import base64
+import heapq
 import html
 import io
 import json
-from collections.abc import Sequence
+from collections.abc import Callable, Sequence
 
 import matplotlib
 
@@ -43,9 +48,17 @@ h1{font-size:1.6rem;margin-bottom:.2rem} h2{font-size:1.25rem;margin-top:2.4rem;
 h3{font-size:1.05rem} p.lead{color:#57606a;margin-top:0} nav ol{columns:2}
 table{border-collapse:collapse;margin:.6rem 0 1rem;font-size:.92rem} th,td{padding:.22rem .6rem;border-bottom:1px solid #eaeef2}
 th{text-align:left;background:#f6f8fa} td.n{text-align:right;font-variant-numeric:tabular-nums} tr.chosen td{font-weight:600;background:#fff8c5}
+td.file{overflow-wrap:anywhere;min-width:12rem}
 figure{margin:1rem 0} figure img{max-width:100%;height:auto;border:1px solid #eaeef2} figcaption{color:#57606a;font-size:.9rem}
 .pair{display:flex;gap:2rem;flex-wrap:wrap} code{background:#f6f8fa;padding:0 .2rem}
 """
+# Shown for a rate whose denominator is zero (0 of 0 tokens): coverage.json stores 0.0 there.
+DASH = "—"
+# Input files shown per file in the chart and in the table: those with the most out-of-vocabulary
+# (or would-be <unk>) tokens. Bounds the page and the report job's memory whatever the number of
+# files; coverage.json and the encode statistics keep every file.
+CHART_FILES = 20
+TABLE_FILES = 100
 
 
 # ---------------------------------------------------------------- data
@@ -67,6 +80,11 @@ def source_figures(encode_stats: Sequence[dict]) -> dict[str, dict]:
             without_fallback = t["tokens"] - t["byte_pieces"] + t["byte_runs"]
             t["unknown_rate_without_byte_fallback"] = (t["oov_tokens"] + t["byte_runs"]) / without_fallback if without_fallback else 0.0
     return dict(sorted(totals.items()))
+
+
+def top_sources(sources: dict[str, dict], weight: Callable[[dict], int], count: int) -> list[tuple[str, dict]]:
+    """The `count` files of largest `weight` (largest first, then by name), without sorting them all."""
+    return heapq.nsmallest(count, sources.items(), key=lambda item: (-weight(item[1]), item[0]))
 
 
 def coverage_curve(counts: pa.Table, points: int = 300) -> dict[str, np.ndarray]:
@@ -133,30 +151,34 @@ def plot_zipf(ranks: np.ndarray, counts: np.ndarray, fit: PowerFit, unit: str = 
     return _png(figure)
 
 
-def plot_growth(tokens: np.ndarray, types: np.ndarray, fit: PowerFit, read: str = "train tokens read (corpus order)") -> str:
+def growth_figure(read: np.ndarray, types: np.ndarray, fit: PowerFit, unit: str, order: str) -> Figure:
+    """Distinct words after each prefix of the stream; `unit` is what the stream counts (tokens or words)."""
     figure, axes = _figure()
-    axes.loglog(tokens, types, color=COLOURS["train"], label="distinct words seen")
-    axes.loglog(tokens, fit(tokens), color="#cf222e", linestyle="--", linewidth=1.2,
-                label=f"fit: types ≈ {fit.constant:.2f} · tokens$^{{{fit.exponent:.3f}}}$")
-    axes.axvspan(fit.fit_from, float(tokens.max()), color="#cf222e", alpha=0.06, label="fitted range")
-    axes.set_xlabel(read)
+    axes.loglog(read, types, color=COLOURS["train"], label="distinct words seen")
+    axes.loglog(read, fit(read), color="#cf222e", linestyle="--", linewidth=1.2,
+                label=f"fit: types ≈ {fit.constant:.2f} · {unit}$^{{{fit.exponent:.3f}}}$")
+    axes.axvspan(fit.fit_from, float(read.max()), color="#cf222e", alpha=0.06, label="fitted range")
+    axes.set_xlabel(f"train {unit} read ({order})")
     axes.set_ylabel("distinct words")
     axes.legend(fontsize=9)
-    return _png(figure)
+    return figure
 
 
-def plot_sources(sources: dict[str, dict], key: str = "oov_rate", label: str = "tokens out of vocabulary") -> str:
-    names = list(sources)
-    figure = Figure(figsize=(8.0, 0.9 + 0.42 * len(names)), layout="constrained")
+def plot_sources(ranked: Sequence[tuple[str, dict]], key: str, label: str) -> str:
+    """One bar per split for each file, labelled by its rank (the row number of the table beside)."""
+    inches = 0.9 + 0.42 * len(ranked)
+    figure = Figure(figsize=(8.0, inches))
+    figure.subplots_adjust(left=0.09, right=0.98, bottom=0.6 / inches, top=1 - 0.1 / inches)
     axes = figure.add_subplot()
     axes.grid(True, axis="x", color="#dddddd", linewidth=0.6)
     height = 0.8 / len(SPLITS)
-    positions = np.arange(len(names))
+    positions = np.arange(len(ranked))
     for index, split in enumerate(SPLITS):
-        rates = [sources[name][split][key] for name in names]
+        rates = [figures[split][key] for _, figures in ranked]
         axes.barh(positions + (index - 1) * height, rates, height=height, color=COLOURS[split], label=split)
-    axes.set_yticks(positions, names, fontsize=8)
+    axes.set_yticks(positions, [str(rank) for rank in range(1, len(ranked) + 1)], fontsize=8)
     axes.invert_yaxis()
+    axes.set_ylabel("input file, # in the table")
     _percent(axes.xaxis)
     axes.set_xlabel(label)
     axes.legend(fontsize=9)
@@ -170,6 +192,10 @@ class Shown(str):
     """A number already formatted for display (a rate, a byte size): right-aligned like numbers."""
 
 
+class FileName(str):
+    """An input file's path: may wrap anywhere, as long paths have no spaces to wrap at."""
+
+
 def _cell(value: object) -> str:
     if isinstance(value, bool):
         return f"<td>{'yes' if value else 'no'}</td>"
@@ -177,6 +203,8 @@ def _cell(value: object) -> str:
         return f'<td class="n">{value:,}</td>'
     if isinstance(value, Shown):
         return f'<td class="n">{html.escape(value)}</td>'
+    if isinstance(value, FileName):
+        return f'<td class="file">{html.escape(value)}</td>'
     return f"<td>{html.escape(str(value))}</td>"
 
 
@@ -194,8 +222,9 @@ def image(png: str, alt: str, caption: str) -> str:
             f"<figcaption>{html.escape(caption)}</figcaption></figure>")
 
 
-def _rate(value: float) -> Shown:
-    return Shown(f"{value:.2%}")
+def _rate(value: float, whole: float) -> Shown:
+    """A percentage; a dash when its denominator `whole` is zero (0 of 0 tokens is no rate)."""
+    return Shown(f"{value:.2%}" if whole else DASH)
 
 
 def _bytes(count: int) -> str:
@@ -259,6 +288,19 @@ def sizing_section(size: int, options: dict, context_unit: str) -> tuple[str, st
     ]))
 
 
+def ranked_lead(files: int, listed: int, what: str) -> str:
+    """What orders the per-file chart and table, which share the rank numbers."""
+    return (f"<p>{files:,} input files, ranked by {html.escape(what)}. "
+            f"The chart shows the first {min(CHART_FILES, listed)}, numbered as in the table.</p>")
+
+
+def left_out(files: int, listed: int, where: str) -> str:
+    """How many files the table leaves out and where (`where`, HTML) every file's figures are."""
+    if files <= listed:
+        return ""
+    return f"<p>{files - listed:,} more input files are not listed; the figures of every file are in {where}.</p>"
+
+
 def page(sections: list[tuple[str, str, str]], lead: str, manifest: dict) -> str:
     """The sections as one HTML page with a table of contents."""
     nav = "".join(f'<li><a href="#{key}">{html.escape(title)}</a></li>' for key, title, _ in sections)
@@ -272,6 +314,11 @@ def page(sections: list[tuple[str, str, str]], lead: str, manifest: dict) -> str
         f"configuration {html.escape(manifest.get('config_sha256', '')[:12])}, vocabulary {html.escape(manifest['vocabulary']['sha256'][:12])}.</p>"
         f"<nav><ol>{nav}</ol></nav>{body}</body></html>\n"
     )
+
+
+def _oov_tokens(figures: dict) -> int:
+    """A file's out-of-vocabulary tokens over all splits: what ranks the files on the page."""
+    return sum(figures[split]["oov_tokens"] for split in SPLITS)
 
 
 def render(
@@ -294,41 +341,52 @@ def render(
     chosen_rows = coverage["sizes"]
     sections.append(("coverage", "How much the vocabulary covers", "".join([
         f"<p>{words:,} words kept ({size:,} ids with the reserved and unknown-class symbols). "
-        f"They cover {1 - splits['train']['oov_rate']:.2%} of train tokens; "
-        f"{_rate(splits['dev']['oov_rate'])} of dev and {_rate(splits['test']['oov_rate'])} of test tokens are out of vocabulary.</p>",
+        f"They cover {_rate(1 - splits['train']['oov_rate'], splits['train']['tokens'])} of train tokens; "
+        f"{_rate(splits['dev']['oov_rate'], splits['dev']['tokens'])} of dev and "
+        f"{_rate(splits['test']['oov_rate'], splits['test']['tokens'])} of test tokens are out of vocabulary.</p>",
         image(plot_coverage(curve, words), "coverage curve",
               "Keeping the k most frequent train words: share of train tokens covered, and dev/test tokens left out."),
         table(["words kept", "train covered", "dev OOV", "test OOV"],
-              [[r["size"], _rate(r["train_coverage"]), _rate(r["dev_oov_rate"]), _rate(r["test_oov_rate"])] for r in chosen_rows],
+              [[r["size"], _rate(r["train_coverage"], splits["train"]["tokens"]), _rate(r["dev_oov_rate"], splits["dev"]["tokens"]),
+                _rate(r["test_oov_rate"], splits["test"]["tokens"])] for r in chosen_rows],
               [r["chosen"] for r in chosen_rows]),
-        f"<p>Words seen once in train: {coverage['train_singletons']['types_share']:.2%} of train types, "
-        f"{coverage['train_singletons']['tokens_share']:.2%} of train tokens. "
+        f"<p>Words seen once in train: {_rate(coverage['train_singletons']['types_share'], splits['train']['types'])} of train types, "
+        f"{_rate(coverage['train_singletons']['tokens_share'], splits['train']['tokens'])} of train tokens. "
         "Try other cutoffs without rebuilding: <code>corpusmill cutoffs BUILD --min-count N</code>.</p>",
     ])))
 
     sections.append(("zipf", "Rank and frequency", "".join([
         f"<p>Fitted Zipf exponent s = {zipf_fit.exponent:.3f} (least squares on log–log axes at "
-        f"{len(ranks)} log-spaced ranks of {int(ranks.max()) if len(ranks) else 0:,} train types; English text is usually near 1).</p>",
+        f"{len(ranks)} log-spaced ranks of {int(ranks.max()) if len(ranks) else 0:,} train types). "
+        "Zipf's law gives exponents near 1 for the words of natural-language text.</p>",
         image(plot_zipf(ranks, ranked, zipf_fit), "rank-frequency plot", "Train count of the word at each rank, log–log axes."),
     ])))
 
     sections.append(("growth", "Vocabulary growth", "".join([
         f"<p>Heaps fit: types ≈ K · tokens<sup>β</sup> with K = {heaps_fit.constant:.2f}, β = {heaps_fit.exponent:.3f}, "
-        f"fitted on the last decade of the train stream (from {int(heaps_fit.fit_from):,} of {int(tokens.max()) if len(tokens) else 0:,} tokens). "
+        f"fitted from a tenth of the train stream to its end, the last decade on the log axis (from {int(heaps_fit.fit_from):,} "
+        f"of {int(tokens.max()) if len(tokens) else 0:,} tokens; shaded in the plot). "
         "Large English collections usually give β between 0.4 and 0.6; a small or mixed corpus gives more.</p>",
-        image(plot_growth(tokens, types, heaps_fit), "vocabulary growth plot",
+        image(_png(growth_figure(tokens, types, heaps_fit, "tokens", "corpus order")), "vocabulary growth plot",
               "Distinct words after each prefix of the train tokens, in corpus order, duplicates left out."),
     ])))
 
-    split_rows = [[s, splits[s]["tokens"], splits[s]["types"], splits[s]["oov_tokens"], _rate(splits[s]["oov_rate"]), splits[s]["oov_types"]]
-                  for s in SPLITS]
-    sources = coverage["sources"]
-    source_rows = [[name] + [v for s in SPLITS for v in (figures[s]["tokens"], _rate(figures[s]["oov_rate"]))]
-                   for name, figures in sources.items()]
+    split_rows = [[s, splits[s]["tokens"], splits[s]["types"], splits[s]["oov_tokens"], _rate(splits[s]["oov_rate"], splits[s]["tokens"]),
+                   splits[s]["oov_types"]] for s in SPLITS]
     oov_parts = [table(["split", "tokens", "types", "OOV tokens", "OOV rate", "OOV types"], split_rows)]
+    sources = coverage["sources"]
     if sources:
-        oov_parts.append(image(plot_sources(sources), "OOV rate by source file", "Share of tokens out of vocabulary, per input file and split."))
-        oov_parts.append(table(["source file"] + [f"{s} {label}" for s in SPLITS for label in ("tokens", "OOV")], source_rows))
+        listed = top_sources(sources, _oov_tokens, TABLE_FILES)
+        oov_parts += [
+            ranked_lead(len(sources), len(listed), "out-of-vocabulary tokens in all splits"),
+            image(plot_sources(listed[:CHART_FILES], "oov_rate", "tokens out of vocabulary"), "OOV rate by source file",
+                  "Share of tokens out of vocabulary, per input file and split; files numbered as in the table."),
+            table(["#", "input file", "OOV tokens"] + [f"{s} {label}" for s in SPLITS for label in ("tokens", "OOV")],
+                  [[rank, FileName(name), _oov_tokens(figures)]
+                   + [v for s in SPLITS for v in (figures[s]["tokens"], _rate(figures[s]["oov_rate"], figures[s]["tokens"]))]
+                   for rank, (name, figures) in enumerate(listed, 1)]),
+            left_out(len(sources), len(listed), "<code>stats/coverage.json</code>, key <code>sources</code>"),
+        ]
     sections.append(("oov", "Out-of-vocabulary tokens by split and source", "".join(oov_parts)))
 
     lists = []
@@ -344,7 +402,7 @@ def render(
         for split in SPLITS:
             count = coverage["unknown_classes"][split].get(name, 0)
             total = splits[split]["oov_tokens"]
-            row += [count, _rate(count / total) if total else Shown("–")]
+            row += [count, _rate(count / total if total else 0.0, total)]
         class_rows.append(row)
     sections.append(("unknown", "Where out-of-vocabulary tokens go", "".join([
         "<p>Each out-of-vocabulary token maps to one unknown-class symbol; the share is of that split's OOV tokens.</p>",
@@ -356,13 +414,19 @@ def render(
     return page(sections, f"{splits['train']['tokens']:,} train tokens, {words:,} words kept", manifest)
 
 
-def _fine_rate(value: float) -> Shown:
-    """A subword rate as a percentage with four decimals: exactly the six decimals coverage.json keeps."""
-    return Shown(f"{value:.4%}")
+def _fine_rate(value: float, whole: float) -> Shown:
+    """A subword rate as a percentage with four decimals: exactly the six decimals coverage.json
+    keeps; a dash when its denominator `whole` is zero."""
+    return Shown(f"{value:.4%}" if whole else DASH)
 
 
-def _ratio(value: float) -> Shown:
-    return Shown(f"{value:.3f}")
+def _ratio(value: float, whole: float) -> Shown:
+    return Shown(f"{value:.3f}" if whole else DASH)
+
+
+def _would_be_unknown(figures: dict) -> int:
+    """A file's pieces that would be <unk> without byte fallback, over all splits: what ranks the files."""
+    return sum(figures[split]["oov_tokens"] + figures[split]["byte_runs"] for split in SPLITS)
 
 
 def render_subword(
@@ -394,19 +458,22 @@ def render_subword(
     ])))
 
     length_rows = [[s, splits[s]["documents"], splits[s]["sentences"], splits[s]["words"], splits[s]["pieces"],
-                    _ratio(splits[s]["pieces_per_word"]), _ratio(splits[s]["pieces_per_sentence"])] for s in SPLITS]
+                    _ratio(splits[s]["pieces_per_word"], splits[s]["words"]), _ratio(splits[s]["pieces_per_sentence"], splits[s]["sentences"])]
+                   for s in SPLITS]
     sections.append(("lengths", "Pieces per word and per sentence", "".join([
-        f"<p>A train word takes {splits['train']['pieces_per_word']:.3f} pieces on average "
-        f"(dev {splits['dev']['pieces_per_word']:.3f}, test {splits['test']['pieces_per_word']:.3f}); "
+        f"<p>A train word takes {_ratio(splits['train']['pieces_per_word'], splits['train']['words'])} pieces on average "
+        f"(dev {_ratio(splits['dev']['pieces_per_word'], splits['dev']['words'])}, "
+        f"test {_ratio(splits['test']['pieces_per_word'], splits['test']['words'])}); "
         "words are runs of non-space characters of the cleaned sentences. "
         "More pieces per word mean longer id sequences for the same text: n-gram contexts and blocks span fewer words. "
         "A dev or test figure well above train's suggests text unlike the train sample (a rule of thumb).</p>",
         table(["split", "documents", "sentences", "words", "pieces", "pieces per word", "pieces per sentence"], length_rows),
     ])))
 
-    unknown_rows = [[s, splits[s]["pieces"], splits[s]["unknown_pieces"], _fine_rate(splits[s]["unknown_rate"]),
-                     splits[s]["byte_pieces"], _fine_rate(splits[s]["byte_piece_rate"]),
-                     _fine_rate(splits[s]["unknown_rate_without_byte_fallback"])] for s in SPLITS]
+    # Every rate here is of pieces; without byte fallback the denominator is zero exactly when the pieces are.
+    unknown_rows = [[s, splits[s]["pieces"], splits[s]["unknown_pieces"], _fine_rate(splits[s]["unknown_rate"], splits[s]["pieces"]),
+                     splits[s]["byte_pieces"], _fine_rate(splits[s]["byte_piece_rate"], splits[s]["pieces"]),
+                     _fine_rate(splits[s]["unknown_rate_without_byte_fallback"], splits[s]["pieces"])] for s in SPLITS]
     unknown_parts = [
         "<p>&lt;unk&gt; rate: share of pieces that are &lt;unk&gt; as encoded. Byte-piece share: share of pieces that are "
         "UTF-8 bytes of characters outside the model. Without byte fallback the same model would write one &lt;unk&gt; "
@@ -415,13 +482,20 @@ def render_subword(
               unknown_rows),
     ]
     if sources:
-        source_rows = [[name] + [v for s in SPLITS for v in (figures[s]["tokens"], _fine_rate(figures[s]["unknown_rate_without_byte_fallback"]))]
-                       for name, figures in sources.items()]
-        unknown_parts.append(image(plot_sources(sources, "unknown_rate_without_byte_fallback", "pieces that would be <unk> without byte fallback"),
-                                   "unknown rate without byte fallback by source file",
-                                   "Share of pieces that would be <unk> without byte fallback, per input file and split: "
-                                   "files with characters the model lacks stand out."))
-        unknown_parts.append(table(["source file"] + [f"{s} {label}" for s in SPLITS for label in ("pieces", "<unk> w/o fallback")], source_rows))
+        listed = top_sources(sources, _would_be_unknown, TABLE_FILES)
+        unknown_parts += [
+            ranked_lead(len(sources), len(listed), "pieces that would be <unk> without byte fallback, in all splits"),
+            image(plot_sources(listed[:CHART_FILES], "unknown_rate_without_byte_fallback", "pieces that would be <unk> without byte fallback"),
+                  "unknown rate without byte fallback by source file",
+                  "Share of pieces that would be <unk> without byte fallback, per input file and split, numbered as in the table: "
+                  "files with characters the model lacks stand out."),
+            table(["#", "input file", "would-be <unk> pieces"] + [f"{s} {label}" for s in SPLITS for label in ("pieces", "<unk> w/o fallback")],
+                  [[rank, FileName(name), _would_be_unknown(figures)]
+                   + [v for s in SPLITS for v in (figures[s]["tokens"], _fine_rate(figures[s]["unknown_rate_without_byte_fallback"], figures[s]["tokens"]))]
+                   for rank, (name, figures) in enumerate(listed, 1)]),
+            left_out(len(sources), len(listed), "the encode statistics, <code>interim/encoded/*/stats.json</code>, key <code>sources</code> "
+                     "(one file per input chunk: add up a file's figures over its chunks)"),
+        ]
     sections.append(("unknown", "Unknown pieces and byte fallback", "".join(unknown_parts)))
 
     sections.append(("zipf", "Rank and frequency of pieces", "".join([
@@ -436,10 +510,11 @@ def render_subword(
         "<p>Measured in words, not pieces: distinct whitespace-separated words of the train sentences, in corpus order, "
         "duplicates left out; the number of pieces is fixed at |V| by the model and does not grow. "
         f"Heaps fit: types ≈ K · words<sup>β</sup> with K = {heaps_fit.constant:.2f}, β = {heaps_fit.exponent:.3f}, "
-        f"fitted on the last decade of the stream (from {int(heaps_fit.fit_from):,} of {int(words.max()) if len(words) else 0:,} words; "
-        f"{int(types[-1]) if len(types) else 0:,} distinct words). "
+        f"fitted from a tenth of the stream to its end, the last decade on the log axis (from {int(heaps_fit.fit_from):,} "
+        f"of {int(words.max()) if len(words) else 0:,} words; "
+        f"{int(types[-1]) if len(types) else 0:,} distinct words; shaded in the plot). "
         "This is the open vocabulary the pieces have to spell; large English collections usually give β between 0.4 and 0.6.</p>",
-        image(plot_growth(words, types, heaps_fit, "train words read (whitespace-separated, corpus order)"), "vocabulary growth plot",
+        image(_png(growth_figure(words, types, heaps_fit, "words", "whitespace-separated, corpus order")), "vocabulary growth plot",
               "Distinct words after each prefix of the train words, in corpus order, duplicates left out."),
     ])))
 

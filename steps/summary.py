@@ -8,6 +8,14 @@ from __future__ import annotations
 
 from steps.layout import SPLITS
 
+# Shown for a rate whose denominator is zero (0 of 0 tokens): coverage.json stores 0.0 there.
+DASH = "—"
+
+
+def _shown(value: float, whole: float, spec: str) -> str:
+    """`value` formatted by `spec`, or a dash when its denominator `whole` is zero."""
+    return format(value, spec) if whole else DASH
+
 
 def format_subword_table(stats: dict) -> str:
     """The summary of a subword build: pieces per word and sentence, <unk> and byte rates."""
@@ -16,8 +24,9 @@ def format_subword_table(stats: dict) -> str:
     for split in SPLITS:
         f = stats["splits"][split]
         lines.append(
-            f"{split:<6} {f['pieces']:>10} {f['pieces_per_word']:>9.3f} {f['pieces_per_sentence']:>9.2f} "
-            f"{f['unknown_rate']:>8.3%} {f['byte_piece_rate']:>8.3%} {f['unknown_rate_without_byte_fallback']:>19.3%}"
+            f"{split:<6} {f['pieces']:>10} {_shown(f['pieces_per_word'], f['words'], '.3f'):>9} "
+            f"{_shown(f['pieces_per_sentence'], f['sentences'], '.2f'):>9} {_shown(f['unknown_rate'], f['pieces'], '.3%'):>8} "
+            f"{_shown(f['byte_piece_rate'], f['pieces'], '.3%'):>8} {_shown(f['unknown_rate_without_byte_fallback'], f['pieces'], '.3%'):>19}"
         )
     return "\n".join(lines)
 
@@ -31,11 +40,12 @@ def format_table(stats: dict) -> str:
     lines.append(f"{'split':<6} {'tokens':>10} {'types':>8} {'OOV tokens':>11} {'OOV rate':>9} {'OOV types':>9}")
     for split in SPLITS:
         f = stats["splits"][split]
-        lines.append(f"{split:<6} {f['tokens']:>10} {f['types']:>8} {f['oov_tokens']:>11} {f['oov_rate']:>9.2%} {f['oov_types']:>9}")
+        lines.append(f"{split:<6} {f['tokens']:>10} {f['types']:>8} {f['oov_tokens']:>11} {_shown(f['oov_rate'], f['tokens'], '.2%'):>9} {f['oov_types']:>9}")
     lines.append(f"{'size':>8} {'train coverage':>15} {'dev OOV':>8}")
+    train, dev = stats["splits"]["train"]["tokens"], stats["splits"]["dev"]["tokens"]
     for row in stats["sizes"]:
         mark = "  <- chosen" if row["chosen"] else ""
-        lines.append(f"{row['size']:>8} {row['train_coverage']:>15.2%} {row['dev_oov_rate']:>8.2%}{mark}")
+        lines.append(f"{row['size']:>8} {_shown(row['train_coverage'], train, '.2%'):>15} {_shown(row['dev_oov_rate'], dev, '.2%'):>8}{mark}")
     top = stats["splits"]["dev"].get("top_oov", [])[:10]
     if top:
         lines.append("most frequent dev OOV words: " + ", ".join(f"{w} ({c})" for w, c in top))

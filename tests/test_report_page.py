@@ -3,6 +3,7 @@
 from __future__ import annotations
 
 import base64
+import html
 import json
 import re
 import struct
@@ -12,8 +13,10 @@ import numpy as np
 import pyarrow.parquet as pq
 import pytest
 
+from conftest import REPO
 from steps.laws import ModelSize
 from steps.report_page import coverage_curve, main, table
+from steps.summary import format_table
 
 PNG_SIGNATURE = b"\x89PNG\r\n\x1a\n"
 OPTIONS = {"report": {"embedding_widths": [100, 300, 1000], "hidden_width": 100, "top_oov": 25}, "windows": {"ngram": {"n": 4}}}
@@ -110,3 +113,101 @@ def test_table_cells_escape_html() -> None:
     """HTML escaping: tokens such as <b> or & show as text, never as markup."""
     cell = table(["word"], [["<b>&"]])
     assert "&lt;b&gt;&amp;" in cell and "<b>&" not in cell
+
+
+def png_size(data: bytes) -> tuple[int, int]:
+    """Width and height from the IHDR chunk, the first after the signature (PNG specification)."""
+    assert png_chunks(data)[0] == b"IHDR"
+    return struct.unpack(">II", data[16:24])
+
+
+def page_with(build: Path, tmp_path: Path, **changes: object) -> str:
+    """The page of `build` with some of coverage.json's keys replaced, written by the report step."""
+    coverage = json.loads((build / "stats" / "coverage.json").read_text())
+    coverage.update(changes)
+    (tmp_path / "coverage.json").write_text(json.dumps(coverage), encoding="utf-8")
+    arguments = page_arguments(build, tmp_path / "page.html")
+    arguments[arguments.index("--coverage") + 1] = str(tmp_path / "coverage.json")
+    main(arguments)
+    return (tmp_path / "page.html").read_text(encoding="utf-8")
+
+
+def word_source(train_tokens: int, train_oov: int, dev_tokens: int = 0, dev_oov: int = 0) -> dict:
+    """One file's figures as coverage.json keeps them; no test tokens."""
+    figures = {"train": (train_tokens, train_oov), "dev": (dev_tokens, dev_oov), "test": (0, 0)}
+    return {s: {"tokens": t, "oov_tokens": o, "oov_rate": round(o / t, 6) if t else 0.0} for s, (t, o) in figures.items()}
+
+
+def file_cells(page: str) -> list[str]:
+    return [html.unescape(cell) for cell in re.findall(r'<td class="file">(.*?)</td>', page)]
+
+
+def test_file_names_with_markup_maths_braces_quotes_and_other_scripts_show_as_text(demo_build: Path, tmp_path: Path) -> None:
+    """html.unescape (Python's standard library) as the reference: each name reads back as written,
+    in order of OOV tokens; none becomes markup, and matplotlib never parses one as mathematics."""
+    names = ["math$\\frac$.txt", "<script>alert(1)</script>.txt", "{wild}/a.txt", "quote's \"q\".txt", "Москва/заметки.txt", "中文/笔记.txt"]
+    sources = {name: word_source(100, 60 - 10 * rank, 10, rank) for rank, name in enumerate(names)}
+    page = page_with(demo_build, tmp_path, sources=sources)
+    assert file_cells(page) == names
+    assert "<script>" not in page
+    for encoded in re.findall(r'<img src="data:image/png;base64,([A-Za-z0-9+/=]+)"', page):
+        assert png_chunks(base64.b64decode(encoded))[-1] == b"IEND"
+
+
+def test_page_and_its_largest_image_stay_small_with_8000_input_files(demo_build: Path, tmp_path: Path) -> None:
+    """PNG specification (IHDR) for the pixels; sorted() over every file as the reference for which
+    files are listed: the most OOV tokens first, then by name. The page says how many are left out
+    and where all of them are."""
+    sources = {f"a-folder-with-a-long-name-{i % 40:02d}/and-another-below-it/document-{i:05d}-of-the-archive.txt":
+               word_source(200 + i % 13, i % 97, 20, i % 5) for i in range(8000)}
+    page = page_with(demo_build, tmp_path, sources=sources)
+    assert len(page.encode("utf-8")) < 1_000_000
+    sizes = [png_size(base64.b64decode(e)) for e in re.findall(r'<img src="data:image/png;base64,([A-Za-z0-9+/=]+)"', page)]
+    assert max(width * height for width, height in sizes) < 1_000_000
+    expected = sorted(sources, key=lambda name: (-sum(f["oov_tokens"] for f in sources[name].values()), name))
+    assert file_cells(page) == expected[:100]
+    assert "7,900 more input files are not listed; the figures of every file are in <code>stats/coverage.json</code>, key <code>sources</code>." in page
+
+
+def test_rates_of_an_empty_split_show_a_dash_on_the_page_and_in_the_summary(demo_build: Path, tmp_path: Path) -> None:
+    """0 of 0 tokens has no rate: coverage.json stores 0.0, the page and the summary show a dash."""
+    coverage = json.loads((demo_build / "stats" / "coverage.json").read_text())
+    splits = {**coverage["splits"], "test": {"tokens": 0, "types": 0, "oov_tokens": 0, "oov_rate": 0.0, "oov_types": 0, "top_oov": []}}
+    sizes = [{**row, "test_oov_rate": 0.0} for row in coverage["sizes"]]
+    sources = {"one.txt": word_source(100, 5)}
+    page = page_with(demo_build, tmp_path, splits=splits, sizes=sizes, sources=sources,
+                     unknown_classes={**coverage["unknown_classes"], "test": {}})
+    rows = [[html.unescape(c) for c in re.findall(r"<td[^>]*>(.*?)</td>", row)] for row in re.findall(r"<tr[^>]*>(.*?)</tr>", page)]
+    assert ["test", "0", "0", "0", "—", "0"] in rows
+    assert [row[3] for row in rows if len(row) == 4 and row[0].replace(",", "").isdigit()] == ["—"] * len(sizes)
+    assert ["1", "one.txt", "5", "100", "5.00%", "0", "—", "0", "—"] in rows
+    assert "of dev and — of test tokens are out of vocabulary" in page
+    classes = page.split('<section id="unknown">')[1].split("</section>")[0]
+    assert re.findall(r'<td class="n">([^<]*)</td></tr>', classes) == ["—"] * len({n for per in coverage["unknown_classes"].values() for n in per})
+    summary = format_table({**coverage, "splits": {**splits, "dev": splits["test"]}, "sizes": sizes}).splitlines()
+    for split in ("dev", "test"):
+        assert next(line for line in summary if line.startswith(split)).split()[4] == "—"
+    chosen = next(line for line in summary if line.endswith("<- chosen")).split()
+    assert chosen[2] == "—" and chosen[1].endswith("%")
+
+
+def test_zipf_note_states_the_law_without_naming_a_language(demo_build: Path) -> None:
+    """The page describes any corpus: Zipf's law as stated for natural-language text in general."""
+    page = (demo_build / "report" / "index.html").read_text(encoding="utf-8")
+    note = page.split('<section id="zipf">')[1].split("</section>")[0]
+    assert "exponents near 1 for the words of natural-language text" in note and "English" not in note
+
+
+def test_the_heaps_range_the_page_and_readme_state_is_the_range_fitted(demo_build: Path) -> None:
+    """numpy.polyfit on log–log axes over the growth points from a tenth of the stream to its end
+    (an independent refit) gives the page's β; page and README state that range."""
+    growth = json.loads((demo_build / "stats" / "growth.json").read_text())
+    read, distinct = np.array(growth["read"], dtype=np.float64), np.array(growth["distinct"], dtype=np.float64)
+    total = read.max()
+    used = read >= total / 10
+    slope, _ = np.polyfit(np.log(read[used]), np.log(distinct[used]), 1)
+    note = (demo_build / "report" / "index.html").read_text(encoding="utf-8").split('<section id="growth">')[1].split("</section>")[0]
+    assert f"β = {slope:.3f}," in note
+    assert f"fitted from a tenth of the train stream to its end, the last decade on the log axis (from {int(total / 10):,} of {int(total):,} tokens" in note
+    readme = (REPO / "README.md").read_text(encoding="utf-8").split("## Coverage report")[1].split("\n## ")[0]
+    assert "fitted from a tenth of the stream to its end (the last decade on the log axis" in readme

@@ -23,10 +23,11 @@ import pytest
 
 from conftest import DEMO, require_file, run_workflow
 from test_report_browser import CHROMIUM, DevTools, start_chromium, websocket_module
-from test_report_page import OPTIONS, corpus_order, corpus_rows, png_chunks
-from steps.laws import ModelSize, fit_zipf
+from test_report_page import OPTIONS, corpus_order, corpus_rows, file_cells, png_chunks, png_size
+from steps.laws import ModelSize, PowerFit, fit_zipf
 from steps.growth import train_word_batches, whitespace_words, word_growth
-from steps.report_page import main, source_figures
+from steps.report_page import growth_figure, main, source_figures
+from steps.summary import format_subword_table
 from steps.vocab import read_vocabulary
 
 OVERRIDES = {"corpus": {"root": str(DEMO)}, "units": "subword", "subword": {"vocab_size": 500}}
@@ -104,9 +105,9 @@ def test_unknown_rates_by_source_add_up_to_the_split_totals(subword_run: tuple[P
         total = f["pieces"] - f["byte_pieces"] + sum(s[split]["byte_runs"] for s in sources.values())
         assert would_be_unknown / total == pytest.approx(f["unknown_rate_without_byte_fallback"], abs=1e-6)
     page = (build / "report" / "index.html").read_text(encoding="utf-8")
-    table = {row[0]: row for row in rows(section(page, "unknown")) if row[0] in sources}
+    table = {row[1]: row for row in rows(section(page, "unknown")) if len(row) > 1 and row[1] in sources}
     for name, figures in sources.items():
-        assert table[name][1:3] == [f"{figures['train']['tokens']:,}", f"{figures['train']['unknown_rate_without_byte_fallback']:.4%}"]
+        assert table[name][3:5] == [f"{figures['train']['tokens']:,}", f"{figures['train']['unknown_rate_without_byte_fallback']:.4%}"]
 
 
 def test_zipf_fit_and_model_sizing_use_the_pieces(subword_run: tuple[Path, str]) -> None:
@@ -220,3 +221,70 @@ def test_subword_page_renders_in_chromium_without_errors(subword_run: tuple[Path
     assert errors == []
     assert len(images) == 3 and all(complete and width > 0 for complete, width in images), images
     assert "Unknown pieces and byte fallback" in headings and "Pieces per word and per sentence" in headings
+
+
+def subword_page(build: Path, tmp_path: Path, encode_stats: list[dict], **changes: object) -> str:
+    """The page of a subword build from the given encode statistics, with some of coverage.json's keys replaced."""
+    coverage = json.loads((build / "stats" / "coverage.json").read_text())
+    coverage.update(changes)
+    (tmp_path / "coverage.json").write_text(json.dumps(coverage), encoding="utf-8")
+    arguments = []
+    for index, stats in enumerate(encode_stats):
+        path = tmp_path / f"stats-{index}.json"
+        path.write_text(json.dumps(stats), encoding="utf-8")
+        arguments += ["--encode-stats", str(path)]
+    main(["--coverage", str(tmp_path / "coverage.json"), "--manifest", str(build / "manifest.json"),
+          "--token-counts", str(build / "stats" / "token_counts.parquet"), "--growth", str(build / "stats" / "growth.json"),
+          *arguments, "--options", json.dumps(OPTIONS), "--output", str(tmp_path / "page.html")])
+    return (tmp_path / "page.html").read_text(encoding="utf-8")
+
+
+def piece_source(pieces: int, byte_pieces: int, byte_runs: int) -> dict:
+    """One file's encode statistics: all in train, none in dev or test."""
+    train = {"tokens": pieces, "words": pieces // 2, "oov_tokens": 0, "byte_pieces": byte_pieces, "byte_runs": byte_runs,
+             "documents": 1, "sentences": 1}
+    return {"train": train, **{split: dict.fromkeys(train, 0) for split in ("dev", "test")}}
+
+
+def test_subword_page_and_its_largest_image_stay_small_with_8000_input_files(subword_run: tuple[Path, str], tmp_path: Path) -> None:
+    """PNG specification (IHDR) for the pixels; sorted() over every file as the reference for which
+    are listed: the most pieces that would be <unk> without byte fallback first, then by name; files
+    spread over two chunks' statistics count once, their figures added."""
+    build, _ = subword_run
+    sources = {f"a-folder-with-a-long-name-{i % 40:02d}/and-another-below-it/document-{i:05d}-of-the-archive.txt":
+               piece_source(300 + i % 11, 2 * (i % 89), i % 89) for i in range(8000)}
+    names = list(sources)
+    halves = [{"units": "subword", "sources": {n: sources[n] for n in names[:5000]}},
+              {"units": "subword", "sources": {n: sources[n] for n in names[4000:]}}]
+    page = subword_page(build, tmp_path, halves)
+    assert len(page.encode("utf-8")) < 1_000_000
+    sizes = [png_size(base64.b64decode(e)) for e in re.findall(r'<img src="data:image/png;base64,([A-Za-z0-9+/=]+)"', page)]
+    assert max(width * height for width, height in sizes) < 1_000_000
+    would_be_unknown = {n: (2 if 4000 <= i < 5000 else 1) * (i % 89) for i, n in enumerate(names)}
+    assert file_cells(page) == sorted(names, key=lambda n: (-would_be_unknown[n], n))[:100]
+    assert "7,900 more input files are not listed; the figures of every file are in the encode statistics" in page
+
+
+def test_subword_rates_of_an_empty_split_show_a_dash_on_the_page_and_in_the_summary(subword_run: tuple[Path, str], tmp_path: Path) -> None:
+    """0 of 0 pieces has no rate: coverage.json stores 0.0, the page and the summary show a dash."""
+    build, _ = subword_run
+    coverage = json.loads((build / "stats" / "coverage.json").read_text())
+    empty = {key: 0.0 if isinstance(value, float) else 0 for key, value in coverage["splits"]["test"].items()}
+    splits = {**coverage["splits"], "test": empty}
+    page = subword_page(build, tmp_path, [{"units": "subword", "sources": {"one.txt": piece_source(40, 6, 2)}}], splits=splits)
+    assert ["test", "0", "0", "0", "0", "—", "—"] in rows(section(page, "lengths"))
+    assert ["test", "0", "0", "—", "0", "—", "—"] in rows(section(page, "unknown"))
+    assert ["1", "one.txt", "2", "40", "5.5556%", "0", "—", "0", "—"] in rows(section(page, "unknown"))
+    assert ", test —); words are runs" in section(page, "lengths")
+    line = next(line for line in format_subword_table({**coverage, "splits": splits}).splitlines() if line.startswith("test"))
+    assert line.split() == ["test", "0", "—", "—", "—", "—", "—"]
+
+
+def test_growth_plot_names_the_unit_its_axis_counts_in_the_legend() -> None:
+    """Subword mode counts words: the fit in the legend and the axis both say words, never tokens."""
+    read = np.array([1, 10, 100, 1000])
+    figure = growth_figure(read, np.array([1, 8, 50, 300]), PowerFit(0.8, 1.0, 100.0), "words", "whitespace-separated, corpus order")
+    axes = figure.axes[0]
+    texts = [t.get_text() for t in axes.get_legend().get_texts()] + [axes.get_xlabel()]
+    assert "words$^{" in texts[1] and axes.get_xlabel().startswith("train words read")
+    assert not [t for t in texts if "tokens" in t]
