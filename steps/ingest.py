@@ -395,7 +395,7 @@ def open_source(path: Path, max_decompressed_bytes: int) -> BinaryIO:
     compression = split_name(path.name)[1]
     if not compression:
         return open(path, "rb")
-    frames = io.BufferedReader(_Frames(open(path, "rb"), compression), READ_BLOCK)
+    frames = _Frames(open(path, "rb"), compression)  # read unbuffered: a buffer would drop its text at an error
     return io.BufferedReader(_BoundedReader(frames, max_decompressed_bytes, str(path)), READ_BLOCK)
 
 

@@ -157,7 +157,7 @@ def test_every_document_read_is_kept_or_recorded_as_dropped_with_its_reason(tmp_
     end-of-run summary."""
     root = tmp_path / "raw"
     (root / "sub").mkdir(parents=True)
-    notes = "The first note is long enough to keep.\n\nok\n\n12 34 56 78 90\n\nThe first note is long enough to keep.\n\nA last note about gulls and tides.\n"
+    notes = "The first note is long enough to keep.\n\nx\n\n12 34 56 78 90\n\nThe first note is long enough to keep.\n\nA last note about gulls and tides.\n"
     (root / "notes.txt").write_text(notes)
     (root / "sub" / "log.txt").write_text("One more paragraph of the log.\n\nAnd a final one that differs.\n")
     (root / "UPPER.TXT").write_text("Not selected: the pattern is lowercase.\n")

@@ -208,3 +208,29 @@ def test_a_build_dir_that_would_run_a_command_or_reach_home_is_refused_and_runs_
     assert run.returncode != 0 and "build_dir = " in run.stdout + run.stderr
     assert not (workdir / "marker").exists() and not (tmp_path / "marker").exists()
     assert sorted(p.name for p in workdir.iterdir()) in ([], [".snakemake"])
+# Names a POSIX file system allows that are special to a shell, to argument parsing, to
+# Snakemake's {wildcard} and <pathvar> patterns, to matplotlib's $math$ text, or to HTML.
+AWKWARD_NAMES = [
+    "-rf.txt", "--source=evil.txt", "{wild}.txt", "<script>.txt", "<results>.txt", "math$\\frac$.txt",
+    "it's \"quoted\".txt", "two  spaces.txt", "$(touch marker).txt", "é ü 語.txt", "semi;colon&amp.txt",
+]  # fmt: skip
+
+
+def test_any_file_name_and_folder_name_builds_and_every_file_is_read(tmp_path: Path) -> None:
+    """Every name above, in a corpus root whose path holds a space, quotes, '$' and non-ASCII
+    letters, built into a build_dir with a space and a non-ASCII letter: each file's one
+    document (distinct text) reaches the dev/test/train streams under its own id, no command
+    runs (marker), and the accounting balances."""
+    root = tmp_path / "raw 'dir' $HOME é"
+    root.mkdir()
+    for number, name in enumerate(AWKWARD_NAMES):
+        (root / name).write_text(f"Document number {number} talks about the file {name!r} at length.\n", encoding="utf-8")
+    run = run_workflow(tmp_path / "work", {"corpus": {"root": str(root)}, "build_dir": "out dir/é"}, cores=1)
+    build = tmp_path / "work" / "out dir" / "é"
+    manifest = json.loads((build / "manifest.json").read_text(encoding="utf-8"))
+    assert [entry["path"] for entry in manifest["inputs"]] == sorted(AWKWARD_NAMES)
+    assert manifest["accounting"]["balanced"] and manifest["accounting"]["kept"] == len(AWKWARD_NAMES)
+    doc_ids = [d for path in build.glob("shards/*/stream-*.parquet") for d in pq.read_table(path)["doc_id"].to_pylist()]
+    assert sorted(d.rsplit(":", 1)[0] for d in doc_ids) == sorted(AWKWARD_NAMES)
+    assert not (tmp_path / "work" / "marker").exists() and not list(tmp_path.rglob("marker"))
+    assert f"documents: read {len(AWKWARD_NAMES)}, kept {len(AWKWARD_NAMES)}, dropped 0" in run.stderr  # the end-of-run summary
