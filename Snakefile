@@ -75,7 +75,7 @@ rule all:
 onsuccess:
     import threading
 
-    from steps.summary import format_accounting, format_table
+    from steps.summary import format_accounting, format_blocks, format_table
 
     # Snakemake starts a 1-second rate-limit timer after each scheduling round and Python waits
     # for it at exit; the run is over, so end it now (0.8-1 s sooner, measured).
@@ -93,6 +93,8 @@ onsuccess:
             print(f"corpusmill: {removed}", file=sys.stderr)
     if os.path.exists(L.coverage):
         print(format_table(settings.read_json(L.coverage)), file=sys.stderr)
+    if os.path.exists(L.manifest) and (blocks := format_blocks(settings.read_json(L.manifest))):
+        print(blocks, file=sys.stderr)
     if os.path.exists(L.accounting):
         print(format_accounting(settings.read_json(L.accounting), settings.read_json(L.corpus_plan), L.dropped), file=sys.stderr)
 

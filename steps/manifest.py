@@ -50,8 +50,9 @@ def build_manifest(
         for (name, part), stats in sorted(part_stats.items()):
             if name != split:
                 continue
-            for key in ("documents", "sentences", "tokens"):
-                figures[key] += stats[key]
+            for key in ("documents", "sentences", "tokens", "block_ids", "stream_ids"):
+                if key in stats:
+                    figures[key] = figures.get(key, 0) + stats[key]
             for kind, path in sorted(shards[(name, part)].items()):
                 rows = pq.ParquetFile(path).metadata.num_rows
                 figures["rows"][kind] = figures["rows"].get(kind, 0) + rows

@@ -39,6 +39,7 @@ from steps.laws import FLOAT32_BYTES, ModelSize, PowerFit, fit_heaps, fit_zipf, 
 from steps.layout import SPLITS
 from steps.settings import read_json
 from steps.storage import write_text
+from steps.summary import block_share, format_blocks
 from steps.vocab import escape
 
 COLOURS = {"train": "#1f5f8b", "dev": "#d9822b", "test": "#3a8f4b"}
@@ -256,8 +257,62 @@ def sizing_rows(vocabulary: int, widths: Sequence[int], context: int, hidden: in
     return rows
 
 
+def frozen_note(coverage: dict) -> str:
+    """With a frozen vocabulary, which file it is, and that its words follow another corpus."""
+    if not coverage.get("frozen"):
+        return ""
+    return (f"<p><strong>Frozen vocabulary</strong>: <code>{html.escape(coverage['frozen'])}</code>, used unchanged "
+            "(vocabulary.frozen). Its words need not be the most frequent of this corpus; the highlighted row is "
+            "figured from its own words.</p>")
+
+
+def files_not_read(manifest: dict) -> str:
+    """The files under the corpus root that were not read, and why."""
+    not_read = manifest.get("not_read", {"unselected": [], "excluded": [], "refused": []})
+    rows: list[list[object]] = [[FileName(path), "matched by no corpus.include pattern"] for path in not_read["unselected"]]
+    rows += [[FileName(path), "removed by a corpus.exclude pattern"] for path in not_read["excluded"]]
+    rows += [[FileName(entry["path"]), "refused: " + entry["reason"]] for entry in not_read["refused"]]
+    if not rows:
+        return "<p>Every file under the corpus root was read.</p>"
+    more = f"<p>{len(rows) - TABLE_FILES:,} more are listed in manifest.json, key <code>not_read</code>.</p>" if len(rows) > TABLE_FILES else ""
+    return (f"<p>{len(rows):,} files under the corpus root were not read:</p>" + table(["file", "why"], rows[:TABLE_FILES]) + more)
+
+
+def files_with_drops(manifest: dict) -> str:
+    """The input files with the most dropped, replaced or truncated documents."""
+    files = manifest["accounting"].get("files", {})
+    touched = sorted(
+        ((sum(f["dropped"].values()) + f["replaced_sequences"] + f["truncated"], source, f) for source, f in files.items()),
+        key=lambda item: (-item[0], item[1]),
+    )
+    touched = [item for item in touched if item[0]]
+    if not touched:
+        return ""
+    reasons = sorted({reason for _, _, f in touched for reason in f["dropped"]})
+    rows = [[FileName(source), f["read"]] + [f["dropped"].get(r, 0) for r in reasons] + [f["replaced_sequences"], f["truncated"]]
+            for _, source, f in touched[:TABLE_FILES]]
+    more = (f"<p>{len(touched) - TABLE_FILES:,} more files; every file's figures are in <code>stats/accounting.json</code>.</p>"
+            if len(touched) > TABLE_FILES else "")
+    return ("<p>Files with dropped, replaced or truncated documents (most first). Every dropped document, with its file, "
+            "byte offset and reason, is in <code>stats/dropped.parquet</code>.</p>"
+            + table(["file", "read"] + [f"dropped: {r.replace('_', ' ')}" for r in reasons] + ["sequences replaced", "truncated"], rows)
+            + more)
+
+
+def blocks_note(manifest: dict) -> str:
+    """How much of train the blocks hold, with the summary's warning when it is little."""
+    share = block_share(manifest["splits"]["train"])
+    if share is None:
+        return ""
+    line = format_blocks(manifest)
+    warning = line.split("; warning: ", 1)[1] if "; warning: " in line else ""
+    text = f"<p>Blocks hold {share:.1%} of the train split's ids (ids in at least one block, of all ids of the train streams)."
+    return text + (f" <strong>Warning</strong>: {html.escape(warning)}.</p>" if warning else "</p>")
+
+
 def accounting_section(manifest: dict, unit: str) -> tuple[str, str, str]:
-    """Documents read, dropped and kept (from the manifest), and rows per split; `unit` names the ids."""
+    """Documents read, dropped and kept (from the manifest), per file where something was lost,
+    the files not read, and rows per split; `unit` names the ids."""
     accounting = manifest["accounting"]
     dropped = accounting["dropped"]
     account_rows = [["documents read", accounting["read"]], ["pieces added by splitting long documents", accounting["pieces_added"]]]
@@ -271,7 +326,10 @@ def accounting_section(manifest: dict, unit: str) -> tuple[str, str, str]:
     return ("accounting", "Documents and rows", "".join([
         f"<p>Duplicates removed: {dropped.get('duplicate', 0):,}.</p>",
         table(["documents", "count"], account_rows),
+        files_with_drops(manifest),
+        files_not_read(manifest),
         table(["split", "documents", "sentences", unit] + [f"{k} rows" for k in kinds], size_rows),
+        blocks_note(manifest),
     ]))
 
 
@@ -340,6 +398,7 @@ def render(
 
     chosen_rows = coverage["sizes"]
     sections.append(("coverage", "How much the vocabulary covers", "".join([
+        frozen_note(coverage),
         f"<p>{words:,} words kept ({size:,} ids with the reserved and unknown-class symbols). "
         f"They cover {_rate(1 - splits['train']['oov_rate'], splits['train']['tokens'])} of train tokens; "
         f"{_rate(splits['dev']['oov_rate'], splits['dev']['tokens'])} of dev and "

@@ -34,7 +34,7 @@ from steps.encode import ENCODED_SCHEMA
 from steps.split import kept_part, order_keys
 from steps.storage import ParquetSink, rebased_offsets, write_json
 from steps.vocab import BOS, EOS, PAD, Lookup, Vocabulary, read_vocabulary
-from steps.windows import CorpusBlocks, document_blocks, document_streams, ngram_windows
+from steps.windows import CorpusBlocks, document_block_coverage, document_blocks, document_streams, ngram_windows
 
 # Tokens per vocabulary lookup in dev and test parts (train looks its whole part up at once).
 LOOKUP_TOKENS = 1 << 20
@@ -87,6 +87,13 @@ class RowCutter:
             if self.block["span"] == "corpus"
             else None
         )
+        # Stream ids cut so far, and of them those in at least one block (document span).
+        self.stream_ids = self.block_ids = 0
+
+    def block_coverage(self) -> tuple[int, int]:
+        """(stream ids in at least one block, stream ids) of everything cut, after `last_blocks`."""
+        covered = self.corpus_blocks.covered if self.corpus_blocks is not None else self.block_ids
+        return covered, self.stream_ids
 
     def cut(self, table: pa.Table, shuffle: np.random.Generator | None = None) -> Rows:
         """The rows of a batch of documents; with `shuffle`, n-gram windows in a random order."""
@@ -104,6 +111,8 @@ class RowCutter:
             blocks = document_blocks(
                 stream, doc_lengths, self.block["length"], self.block["stride"], self.block["remainder"], self.pad
             )
+            self.block_ids += document_block_coverage(doc_lengths, self.block["length"], self.block["stride"], self.block["remainder"])
+        self.stream_ids += len(stream)
         return Rows(context, target, blocks, table["doc_id"].to_pylist(), stream, doc_lengths)
 
     def last_blocks(self) -> np.ndarray:
@@ -248,7 +257,8 @@ def write_part(
     split: str, part: int, inputs: Iterable[pa.Table], outputs: dict[str, str], vocabulary: Vocabulary, config: dict
 ) -> dict:
     """Write one part's shard files from its id tables (doc_id, order, sentences); returns rows
-    per kind and document/sentence/token counts."""
+    per kind, document/sentence/token counts and, with blocks, how many stream ids they hold
+    (`block_ids` of `stream_ids`)."""
     windows, shards = config["windows"], config["shards"]
     ids = id_type(shards["id_type"], vocabulary.size)
     cutter = RowCutter(windows, vocabulary, np.dtype(ids.to_pandas_dtype()))
@@ -294,6 +304,8 @@ def write_part(
     for kind, sink in sinks.items():
         sink.close()
         stats["rows"][kind] = sink.rows
+    if "block" in outputs:
+        stats["block_ids"], stats["stream_ids"] = cutter.block_coverage()
     return stats
 
 

@@ -96,6 +96,18 @@ def document_blocks(
     return blocks
 
 
+def document_block_coverage(doc_lengths: np.ndarray, length: int, stride: int, remainder: str) -> int:
+    """How many stream ids lie in at least one of `document_blocks`' blocks: consecutive blocks
+    overlap or touch (stride <= L+1), so a document's blocks cover its first
+    (blocks - 1) * stride + L + 1 ids, and a padded last block the rest."""
+    lengths = np.asarray(doc_lengths, dtype=np.int64)
+    span = length + 1
+    full = np.where(lengths >= span, (lengths - span) // stride + 1, 0)
+    padded = (remainder == "pad") & (lengths - full * stride >= 2)
+    covered = np.where(padded, lengths, np.where(full > 0, (full - 1) * stride + span, 0))
+    return int(np.minimum(covered, lengths).sum())
+
+
 @dataclass
 class CorpusBlocks:
     """Blocks over documents joined in order; keeps the unfinished tail between calls."""
@@ -105,6 +117,8 @@ class CorpusBlocks:
     remainder: str
     pad_id: int
     _pending: np.ndarray = field(default_factory=lambda: np.empty(0, np.int64))
+    fed: int = 0  # ids fed so far
+    covered: int = 0  # of them, ids in at least one block (final after `finish`)
 
     def feed(self, stream: np.ndarray) -> np.ndarray:
         """Blocks completed by appending `stream`; the rest waits for more ids."""
@@ -113,8 +127,11 @@ class CorpusBlocks:
         starts = _block_starts(len(buffer), span, self.stride, pad=False)
         taken = len(starts) * self.stride
         self._pending = buffer[taken:]
+        self.fed += len(stream)
         if not len(starts):
             return np.empty((0, span), stream.dtype)
+        # The last block reaches span - stride ids into what is pending.
+        self.covered = self.fed - len(self._pending) + span - self.stride
         return sliding_window_view(buffer, span)[starts].copy()
 
     def finish(self) -> np.ndarray:
@@ -124,6 +141,7 @@ class CorpusBlocks:
         self._pending = rest[:0]
         if self.remainder != "pad" or len(rest) < 2:
             return np.empty((0, span), rest.dtype)
+        self.covered = self.fed
         block = np.full((1, span), self.pad_id, rest.dtype)
         block[0, : len(rest)] = rest
         return block

@@ -4,8 +4,10 @@ from __future__ import annotations
 
 import numpy as np
 import pytest
+from hypothesis import given, settings
+from hypothesis import strategies as st
 
-from steps.windows import CorpusBlocks, document_blocks, document_streams, ngram_windows
+from steps.windows import CorpusBlocks, document_block_coverage, document_blocks, document_streams, ngram_windows
 
 BOS, EOS, PAD = 2, 3, 0
 
@@ -77,3 +79,25 @@ def test_corpus_blocks_span_documents_and_batches_consistently():
     got = np.concatenate([pieces.feed(stream[:7]), pieces.feed(stream[7:8]), pieces.feed(stream[8:]), pieces.finish()])
     assert got.tolist() == expected.tolist()
     assert got[-1].tolist()[-1] == PAD and got.shape[1] == 6
+
+
+@settings(max_examples=200, deadline=None)
+@given(
+    lengths=st.lists(st.integers(0, 40), min_size=0, max_size=12),
+    length=st.integers(1, 12),
+    stride_back=st.integers(0, 12),
+    remainder=st.sampled_from(["drop", "pad"]),
+)
+def test_block_coverage_counts_exactly_the_ids_some_block_holds(lengths: list[int], length: int, stride_back: int, remainder: str):
+    """Reference: cut the blocks of a stream whose ids are their own positions (pad id -1) and
+    count the distinct positions they hold; document span and corpus span."""
+    stride = max(1, length + 1 - stride_back)
+    doc_lengths = np.array(lengths, dtype=np.int64)
+    stream = np.arange(int(doc_lengths.sum()), dtype=np.int64)
+    blocks = document_blocks(stream, doc_lengths, length, stride, remainder, -1)
+    assert document_block_coverage(doc_lengths, length, stride, remainder) == len(np.unique(blocks[blocks >= 0]))
+    joined = CorpusBlocks(length, stride, remainder, pad_id=-1)
+    pieces = np.split(stream, np.cumsum(doc_lengths)[:-1]) if lengths else []
+    cut = [joined.feed(piece) for piece in pieces] + [joined.finish()]
+    held = np.concatenate([block.reshape(-1) for block in cut]) if cut else np.empty(0)
+    assert joined.covered == len(np.unique(held[held >= 0]))

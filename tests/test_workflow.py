@@ -177,3 +177,21 @@ def test_disabled_kinds_write_no_files(tmp_path: Path, kinds: dict):
     written = {p.name.split("-")[0] for p in (tmp_path / "build" / "shards").rglob("*.parquet")}
     expected = {"ngram", "block", "stream"} - {{"ngram": "ngram", "blocks": "block", "streams": "stream"}[k] for k in kinds}
     assert written == expected
+
+
+def test_blocks_that_hold_little_of_train_are_flagged_in_the_summary_and_the_report(tmp_path: Path):
+    """L = 128 with span document and remainder drop on short journal paragraphs: most documents
+    are shorter than 129 ids and give no block. The share is recounted from the stream shards
+    (the same ids, cut independently): with stride 128 a document of d >= 129 ids gives blocks
+    at 0, 128, … that hold its first ((d - 129) // 128) * 128 + 129 ids."""
+    run = run_workflow(tmp_path, {"corpus": {"root": str(DEMO), "include": ["journals/*.txt"]},
+                                  "windows": {"blocks": {"length": 128, "stride": 128}}})  # fmt: skip
+    build = tmp_path / "build"
+    train = manifest(build)["splits"]["train"]
+    lengths = [len(ids) for p in build.glob("shards/train/stream-*.parquet") for ids in pq.read_table(p)["ids"].to_pylist()]
+    held = sum(min(d, ((d - 129) // 128) * 128 + 129) for d in lengths if d >= 129)
+    assert (train["block_ids"], train["stream_ids"]) == (held, sum(lengths))
+    assert held / sum(lengths) < 0.5
+    assert "of train ids; warning:" in run.stderr and "windows.blocks.length" in run.stderr
+    page = (build / "report" / "index.html").read_text(encoding="utf-8")
+    assert f"Blocks hold {held / sum(lengths):.1%} of the train split" in page and "<strong>Warning</strong>" in page
