@@ -180,6 +180,11 @@ def test_every_document_read_is_kept_or_recorded_as_dropped_with_its_reason(tmp_
     assert manifest["not_read"] == {"unselected": ["UPPER.TXT", "readme.md"], "excluded": ["sub/draft.txt"], "refused": []}
     assert "not matched by corpus.include (UPPER.TXT, readme.md)" in run.stderr and "1 excluded (sub/draft.txt)" in run.stderr
     assert "notes.txt: dropped duplicate 1, dropped too_short 2 (of 5 read)" in run.stderr
+    page = (build / "report" / "index.html").read_text(encoding="utf-8")
+    section = re.search(r'<section id="accounting">(.*?)</section>', page, re.S).group(1)
+    assert re.search(r'<td class="file">notes\.txt</td><td class="n">5</td><td class="n">1</td><td class="n">2</td>', section)
+    for name, why in (("UPPER.TXT", "matched by no corpus.include"), ("readme.md", "matched by no"), ("sub/draft.txt", "removed by a corpus.exclude")):
+        assert f'<td class="file">{name}</td><td>{why}' in section
 
 
 def test_files_of_jobs_that_no_longer_exist_are_removed_after_a_full_run(tmp_path: Path):

@@ -138,8 +138,11 @@ def word_source(train_tokens: int, train_oov: int, dev_tokens: int = 0, dev_oov:
     return {s: {"tokens": t, "oov_tokens": o, "oov_rate": round(o / t, 6) if t else 0.0} for s, (t, o) in figures.items()}
 
 
-def file_cells(page: str) -> list[str]:
-    return [html.unescape(cell) for cell in re.findall(r'<td class="file">(.*?)</td>', page)]
+def file_cells(page: str, section: str = "oov") -> list[str]:
+    """The file names of one section's tables, read back as text."""
+    found = re.search(rf'<section id="{section}">(.*?)</section>', page, re.S)
+    assert found, f"no section {section!r}"
+    return [html.unescape(cell) for cell in re.findall(r'<td class="file">(.*?)</td>', found.group(1))]
 
 
 def test_file_names_with_markup_maths_braces_quotes_and_other_scripts_show_as_text(demo_build: Path, tmp_path: Path) -> None:
