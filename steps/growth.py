@@ -25,20 +25,22 @@ import pyarrow.compute as pc
 import pyarrow.parquet as pq
 
 from steps.laws import growth_curve
-from steps.split import kept_part
+from steps.split import kept_batches
 from steps.storage import write_json
 
 BATCH_TOKENS = 1 << 20
 BATCH_ROWS = 4096
+# Stored (uncompressed) bytes of a chunk's rows read at once: bounds the job's memory.
+READ_BYTES = 64 << 20
 
 
 def _train_rows(prepared: Sequence[str], duplicates: pa.Table, column: str) -> Iterator[tuple[str, pa.Array]]:
-    """(chunk path, `column` of its kept train documents) in corpus order, a chunk at a time in
-    slices of BATCH_ROWS documents (prepare stores rows by split and doc_hash)."""
+    """(chunk path, `column` of its kept train documents) in corpus order, in slices of
+    BATCH_ROWS documents, never holding more of a chunk than READ_BYTES of stored rows."""
     for path in prepared:
-        rows = kept_part(path, "train", 0, 1, duplicates, [column])
-        for start in range(0, rows.num_rows, BATCH_ROWS):
-            yield path, rows[column].slice(start, BATCH_ROWS).combine_chunks()
+        for rows in kept_batches(path, "train", duplicates, [column], READ_BYTES):
+            for start in range(0, rows.num_rows, BATCH_ROWS):
+                yield path, rows[column].slice(start, BATCH_ROWS).combine_chunks()
 
 
 def train_token_batches(prepared: Sequence[str], duplicates: pa.Table, vocabulary: pa.Array) -> Iterator[np.ndarray]:

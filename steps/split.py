@@ -12,7 +12,7 @@ from __future__ import annotations
 
 import argparse
 import hashlib
-from collections.abc import Sequence
+from collections.abc import Iterator, Sequence
 
 import numpy as np
 import pyarrow as pa
@@ -71,11 +71,9 @@ def part_of(hashes: np.ndarray, parts: int) -> np.ndarray:
     return np.searchsorted(inner, hashes, side="right")
 
 
-def read_part(path: str, split: str, part: int, parts: int, columns: list[str]) -> pa.Table:
-    """The rows of one split and part of a chunk table, reading only the row groups that can
-    hold them (by their `split` and `doc_hash` statistics)."""
-    low, high = part_bounds(parts)[part : part + 2]
-    parquet = pq.ParquetFile(path)
+def _groups_holding(parquet: pq.ParquetFile, split: str, low: int, high: int) -> list[int]:
+    """The row groups of a chunk table that can hold rows of `split` with a `doc_hash` in
+    [low, high), by their statistics (row groups never mix splits)."""
     names = parquet.schema_arrow.names
     split_column, hash_column = names.index("split"), names.index("doc_hash")
     wanted = []
@@ -87,6 +85,15 @@ def read_part(path: str, split: str, part: int, parts: int, columns: list[str]) 
         if hash_stats is not None and hash_stats.has_min_max and (hash_stats.max < low or hash_stats.min >= high):
             continue
         wanted.append(group)
+    return wanted
+
+
+def read_part(path: str, split: str, part: int, parts: int, columns: list[str]) -> pa.Table:
+    """The rows of one split and part of a chunk table, reading only the row groups that can
+    hold them (by their `split` and `doc_hash` statistics)."""
+    low, high = part_bounds(parts)[part : part + 2]
+    parquet = pq.ParquetFile(path)
+    wanted = _groups_holding(parquet, split, low, high)
     read = sorted({*columns, "doc_hash"})
     table = parquet.read_row_groups(wanted, columns=read) if wanted else parquet.schema_arrow.empty_table().select(read)
     hashes = table["doc_hash"].to_numpy()
@@ -102,6 +109,42 @@ def kept_part(path: str, split: str, part: int, parts: int, duplicates: pa.Table
         rows = rows.filter(pc.invert(duplicate_mask(duplicates, rows["source"], rows["offset"])))
         rows = rows.sort_by([("source", "ascending"), ("offset", "ascending")])
     return rows.select(columns)
+
+
+def kept_batches(path: str, split: str, duplicates: pa.Table, columns: list[str], budget_bytes: int) -> Iterator[pa.Table]:
+    """The kept rows of one split of a chunk in corpus (file, offset) order, as tables of about
+    `budget_bytes` of stored data at most: what `kept_part` gives, in bounded memory whatever the
+    chunk's size. Rows are stored by doc_hash, so a slice of corpus order lies in many row
+    groups; each slice reads the groups it needs one at a time and keeps only its rows (a chunk
+    over the budget is decoded once per slice)."""
+    parquet = pq.ParquetFile(path)
+    groups = _groups_holding(parquet, split, 0, 1 << 64)
+    if not groups:
+        return
+    places = parquet.read_row_groups(groups, columns=["source", "offset"])
+    sizes = np.array([parquet.metadata.row_group(g).num_rows for g in groups])
+    group_of = np.repeat(np.arange(len(groups)), sizes)
+    local = np.arange(len(group_of)) - np.repeat(np.cumsum(sizes) - sizes, sizes)
+    kept = ~duplicate_mask(duplicates, places["source"], places["offset"]).to_numpy(zero_copy_only=False)
+    order = pc.sort_indices(places, [("source", "ascending"), ("offset", "ascending")]).to_numpy()
+    order = order[kept[order]]
+    row_bytes = np.array([parquet.metadata.row_group(g).total_byte_size for g in groups]) / np.maximum(sizes, 1)
+    cumulative = np.cumsum(row_bytes[group_of[order]])
+    cuts = np.searchsorted(cumulative, np.arange(budget_bytes, cumulative[-1] if len(cumulative) else 0, budget_bytes), side="right")
+    if not len(cuts):  # the whole split fits: one read
+        yield parquet.read_row_groups(groups, columns=columns).take(pa.array(order))
+        return
+    for window in np.split(order, cuts):
+        if not len(window):
+            continue
+        pieces, positions = [], []
+        for group in np.unique(group_of[window]):
+            inside = np.flatnonzero(group_of[window] == group)
+            table = parquet.read_row_group(int(groups[group]), columns=columns)
+            pieces.append(table.take(pa.array(local[window[inside]])))
+            positions.append(inside)
+        table = pa.concat_tables(pieces).combine_chunks()
+        yield table.take(pa.array(np.argsort(np.concatenate(positions), kind="stable")))
 
 
 def order_keys(doc_hashes: np.ndarray, seed: int) -> np.ndarray:

@@ -8,9 +8,10 @@ import random
 import numpy as np
 import pyarrow as pa
 import pyarrow.parquet as pq
+import pytest
 
 from steps.split import (
-    CorpusRows, assign_split, doc_hash, duplicate_mask, find_duplicates, fingerprint, first_occurrences, kept_part, order_keys,
+    CorpusRows, assign_split, doc_hash, duplicate_mask, find_duplicates, fingerprint, first_occurrences, kept_batches, kept_part, order_keys,
     part_bounds, part_of, read_part, repeated_ids, repeated_ids_message,
 )
 from steps.storage import write_table
@@ -133,6 +134,27 @@ def test_repeated_ids_are_found_within_and_across_chunks_with_every_place(tmp_pa
     assert [doc_id for doc_id, _ in repeated_ids(corpus)] == ["k1", "k2"]
     message = repeated_ids_message(repeated_ids(corpus), by_file=False)
     assert "'k1' at a.jsonl byte 0 and a.jsonl byte 20" in message and "corpus.repeated_ids: by_file" in message
+
+
+@pytest.mark.parametrize("budget", [1, 2_000, 20_000, 1 << 40])
+def test_kept_batches_give_kept_part_in_corpus_order_whatever_the_budget(tmp_path, monkeypatch, budget: int):
+    """kept_part (the whole split sorted by file and offset) is the reference; a chunk of two
+    files in over 30 row groups, read in windows from one row to all."""
+    from steps import prepare
+
+    monkeypatch.setattr(prepare, "GROUP_TOKENS", 150)
+    table = synthetic_chunk(900, sources=("a.txt", "b.txt"))
+    path = str(tmp_path / "chunk.parquet")
+    store_chunk(path, table, "word", run_bytes=20_000)
+    assert pq.ParquetFile(path).num_row_groups > 30
+    rows = table.to_pylist()
+    duplicates = pa.table({"source": [rows[i]["source"] for i in (3, 400, 899)], "offset": [rows[i]["offset"] for i in (3, 400, 899)],
+                           "doc_id": ["x"] * 3, "duplicate_of": ["y"] * 3})  # fmt: skip
+    for split in ("train", "dev"):
+        expected = kept_part(path, split, 0, 1, duplicates, ["doc_id", "tokens"])
+        batches = list(kept_batches(path, split, duplicates, ["doc_id", "tokens"], budget))
+        assert pa.concat_tables(batches).to_pylist() == expected.to_pylist()
+        assert (len(batches) > 5) == (budget <= 2_000)
 
 
 def test_parts_are_equal_ranges_of_the_doc_hash():
