@@ -31,7 +31,7 @@ from steps.storage import write_json
 BATCH_TOKENS = 1 << 20
 BATCH_ROWS = 4096
 # Stored (uncompressed) bytes of a chunk's rows read at once: bounds the job's memory.
-READ_BYTES = 64 << 20
+READ_BYTES = 16 << 20
 
 
 def _train_rows(prepared: Sequence[str], duplicates: pa.Table, column: str) -> Iterator[tuple[str, pa.Array]]:
@@ -45,16 +45,18 @@ def _train_rows(prepared: Sequence[str], duplicates: pa.Table, column: str) -> I
 
 def train_token_batches(prepared: Sequence[str], duplicates: pa.Table, vocabulary: pa.Array) -> Iterator[np.ndarray]:
     """Type ids (positions in `vocabulary`) of the train tokens in corpus order, in batches of
-    about BATCH_TOKENS tokens."""
+    at most BATCH_TOKENS tokens (however long one document is)."""
     pending: list[tuple[str, pa.Array]] = []
     size = 0
-    for path, tokens in _train_rows(prepared, duplicates, "tokens"):
-        tokens = pc.list_flatten(pc.list_flatten(tokens))
-        pending.append((path, tokens))
-        size += len(tokens)
-        if size >= BATCH_TOKENS:
-            yield _type_ids(pending, vocabulary)
-            pending, size = [], 0
+    for path, rows in _train_rows(prepared, duplicates, "tokens"):
+        tokens = pc.list_flatten(pc.list_flatten(rows))
+        for start in range(0, len(tokens), BATCH_TOKENS):
+            piece = tokens.slice(start, BATCH_TOKENS)
+            pending.append((path, piece))
+            size += len(piece)
+            if size >= BATCH_TOKENS:
+                yield _type_ids(pending, vocabulary)
+                pending, size = [], 0
     if pending:
         yield _type_ids(pending, vocabulary)
 
@@ -67,16 +69,19 @@ def whitespace_words(sentences: pa.Array) -> pa.Array:
 
 
 def train_word_batches(prepared: Sequence[str], duplicates: pa.Table) -> Iterator[pa.Array]:
-    """Whitespace words of the train sentences in corpus order (subword mode), in bounded batches."""
+    """Whitespace words of the train sentences in corpus order (subword mode), in batches of
+    at most BATCH_TOKENS words."""
     pending: list[pa.Array] = []
     size = 0
     for _, sentences in _train_rows(prepared, duplicates, "sentences"):
         words = whitespace_words(pc.list_flatten(sentences))
-        pending.append(words)
-        size += len(words)
-        if size >= BATCH_TOKENS:
-            yield pa.concat_arrays(pending)
-            pending, size = [], 0
+        for start in range(0, len(words), BATCH_TOKENS):
+            piece = words.slice(start, BATCH_TOKENS)
+            pending.append(piece)
+            size += len(piece)
+            if size >= BATCH_TOKENS:
+                yield pa.concat_arrays(pending)
+                pending, size = [], 0
     if pending:
         yield pa.concat_arrays(pending)
 

@@ -166,7 +166,19 @@ def _mix(values: np.ndarray) -> np.ndarray:
 
 def _corpus_order(table: pa.Table) -> np.ndarray:
     """Row positions of a prepared chunk table by file, then offset: corpus order."""
-    return pc.sort_indices(table, [("source", "ascending"), ("offset", "ascending")]).to_numpy()
+    codes, _ = _file_codes(table["source"])
+    return np.lexsort((table["offset"].to_numpy(), codes))
+
+
+def _file_codes(sources: pa.Array | pa.ChunkedArray) -> tuple[np.ndarray, list[str]]:
+    """Each row's file as its rank among the distinct files (code point order), and the files."""
+    encoded = pc.dictionary_encode(sources.combine_chunks() if isinstance(sources, pa.ChunkedArray) else sources)
+    if isinstance(encoded, pa.ChunkedArray):
+        encoded = encoded.combine_chunks()
+    names = encoded.dictionary.to_pylist()
+    rank = np.empty(len(names), dtype=np.int64)
+    rank[np.argsort(np.array(names, dtype=object), kind="stable")] = np.arange(len(names))
+    return rank[encoded.indices.to_numpy(zero_copy_only=False)], sorted(names)
 
 
 class CorpusRows:
@@ -182,7 +194,7 @@ class CorpusRows:
         self.words = np.empty((self.starts[-1], 2), np.uint64)
         self.hashes = np.empty(self.starts[-1], np.uint64)
         for number, path in enumerate(self.paths):
-            table = pq.read_table(path, columns=["source", "offset", "doc_hash", "fingerprint"])
+            table = pq.ParquetFile(path, read_dictionary=["source"]).read(columns=["source", "offset", "doc_hash", "fingerprint"], use_threads=False)
             if not table.num_rows:
                 continue
             order = _corpus_order(table)
@@ -201,7 +213,7 @@ class CorpusRows:
         chunk_of = np.searchsorted(self.starts, ordered, side="right") - 1
         parts = [DUPLICATES_SCHEMA.empty_table().select(["source", "offset", "doc_id"])]
         for chunk in np.unique(chunk_of):
-            table = pq.read_table(self.paths[chunk], columns=["source", "offset", "doc_id"])
+            table = pq.ParquetFile(self.paths[chunk]).read(columns=["source", "offset", "doc_id"], use_threads=False)
             local = ordered[chunk_of == chunk] - self.starts[chunk]
             parts.append(table.take(pa.array(_corpus_order(table)[local])))
         found = pa.concat_tables(parts).combine_chunks()
@@ -296,16 +308,20 @@ def removed_counts(prepared_paths: Sequence[str], duplicates: pa.Table) -> pa.Ta
 
 
 def duplicate_mask(duplicates: pa.Table, sources: pa.ChunkedArray | pa.Array, offsets: pa.ChunkedArray | pa.Array) -> pa.Array:
-    """Boolean mask over rows given by (source, offset): True where the row is a removed duplicate."""
-    mine = duplicates.filter(pc.is_in(duplicates["source"], value_set=pc.unique(sources)))
+    """Boolean mask over rows given by (source, offset): True where the row is a removed
+    duplicate. Offsets are compared file by file as integers: 8 bytes a row, no string a row."""
+    codes, names = _file_codes(sources)
+    mine = duplicates.filter(pc.is_in(duplicates["source"], value_set=pa.array(names, pa.string())))
+    mask = np.zeros(len(codes), dtype=bool)
     if not mine.num_rows:
-        return pa.array(np.zeros(len(offsets), dtype=bool))
-    return pc.is_in(_located(sources, offsets), value_set=_located(mine["source"], mine["offset"]))
-
-
-def _located(sources: pa.ChunkedArray | pa.Array, offsets: pa.ChunkedArray | pa.Array) -> pa.ChunkedArray:
-    """One string per row naming its file and byte offset (a file name holds no NUL)."""
-    return pc.binary_join_element_wise(sources, pc.cast(offsets, pa.string()), "\x00")
+        return pa.array(mask)
+    row_offsets = np.asarray(offsets.to_numpy() if isinstance(offsets, pa.Array) else offsets.combine_chunks().to_numpy())
+    removed_codes = np.searchsorted(names, np.array(mine["source"].to_pylist(), dtype=object))
+    removed_offsets = mine["offset"].to_numpy()
+    for code in np.unique(removed_codes):
+        rows = np.flatnonzero(codes == code)
+        mask[rows] = np.isin(row_offsets[rows], removed_offsets[removed_codes == code])
+    return pa.array(mask)
 
 
 def drop_suffix(prepared_path: str) -> str:
