@@ -257,8 +257,8 @@ def _value(kind: int, value: object) -> bytes:
     return bytes(out + b"\x00")
 
 
-def inflate_parquet_rows(path: Path, extra: int, row_group: int | None = None) -> None:
-    """Add `extra` to the row count in a Parquet file's footer (and to one row group's, if given).
+def inflate_parquet_rows(path: Path, extra: int, groups: dict[int, int] | None = None) -> None:
+    """Add `extra` to the row count in a Parquet file's footer, and groups[i] to row group i's count.
 
     The data pages stay as they are, so the footer then promises rows that no page holds: a
     file tampered with consistently, which only decoding the pages can tell apart.
@@ -268,13 +268,13 @@ def inflate_parquet_rows(path: Path, extra: int, row_group: int | None = None) -
     start = len(data) - 8 - length
     metadata, _ = _read_value(data, start, _STRUCT)
 
-    def bump(fields: list, field_id: int) -> None:
-        next(field for field in fields if field[0] == field_id)[2] += extra
+    def bump(fields: list, field_id: int, by: int) -> None:
+        next(field for field in fields if field[0] == field_id)[2] += by
 
-    bump(metadata, 3)
-    if row_group is not None:
-        groups = next(field for field in metadata if field[0] == 4)[2][1]
-        bump(groups[row_group], 3)
+    bump(metadata, 3, extra)
+    row_groups = next(field for field in metadata if field[0] == 4)[2][1]
+    for group, by in (groups or {}).items():
+        bump(row_groups[group], 3, by)
     footer = _value(_STRUCT, metadata)
     path.write_bytes(data[:start] + footer + len(footer).to_bytes(4, "little") + b"PAR1")
 

@@ -6,6 +6,8 @@ import hashlib
 import json
 import os
 import shutil
+import subprocess
+import sys
 from collections import Counter
 from collections.abc import Iterable
 from pathlib import Path
@@ -21,6 +23,7 @@ from steps.reader import BuildError, open_build, resolve_inside, to_numpy
 from tests import hostile
 
 Row = tuple
+REPO = Path(__file__).resolve().parent.parent
 
 
 def row_tuples(kind: str, batches: Iterable[dict]) -> list[Row]:
@@ -344,14 +347,21 @@ def test_a_vocabulary_symlinked_to_dev_zero_is_refused(demo_build: Path, tmp_pat
         open_build(build)
 
 
+OPEN_BUILD = "import sys\nfrom steps.reader import BuildError, open_build\ntry:\n    open_build(sys.argv[1])\nexcept BuildError as error:\n    sys.exit(f'BuildError: {error}')\n"
+
+
 @pytest.mark.parametrize("victim", ["vocabulary.tsv", "manifest.json", "shards/train/ngram-0002.parquet"])
 def test_a_fifo_in_place_of_a_build_file_is_refused_as_not_a_regular_file(demo_build: Path, tmp_path: Path, victim: str) -> None:
-    """POSIX: opening a FIFO for reading blocks until a writer comes, so it is refused by os.stat before any open."""
+    """POSIX: opening a FIFO for reading blocks until a writer comes, so it is refused by os.stat before any open.
+
+    open_build runs in a child process with a time limit, so a blocking open fails the test instead of hanging it.
+    """
     build = copy_build(demo_build, tmp_path / "build")
     (build / victim).unlink()
     os.mkfifo(build / victim)
-    with pytest.raises(BuildError, match=f"{victim}.*not a regular file \\(a FIFO\\)"):
-        open_build(build)
+    run = subprocess.run([sys.executable, "-c", OPEN_BUILD, str(build)], cwd=REPO, capture_output=True, text=True, timeout=60)
+    assert run.returncode == 1 and run.stderr.startswith(f"BuildError: {build / victim}: "), run.stderr
+    assert "not a regular file (a FIFO)" in run.stderr
 
 
 def test_a_vocabulary_over_the_size_limit_is_refused_before_reading(demo_build: Path, tmp_path: Path) -> None:
@@ -389,16 +399,21 @@ def test_a_shard_listed_twice_is_refused(demo_build: Path, tmp_path: Path) -> No
         open_build(build)
 
 
-@pytest.mark.parametrize("row_group", [None, 0], ids=["file-total", "row-group"])
-def test_a_footer_promising_more_rows_than_its_pages_hold_is_refused(demo_build: Path, tmp_path: Path, row_group: int | None) -> None:
-    """Parquet footer (Thrift compact protocol) edited, manifest rows and hash edited to match: reading notices."""
+FOOTER_EDITS = {"file-total": (1000, {}), "row-group": (1000, {0: 1000}), "moved-between-groups": (0, {0: 1000, 1: -1000})}
+
+
+@pytest.mark.parametrize("edit", sorted(FOOTER_EDITS))
+def test_a_footer_promising_other_rows_than_its_pages_hold_is_refused(demo_build: Path, tmp_path: Path, edit: str) -> None:
+    """Parquet footer (Thrift compact protocol) edited, manifest rows and hash edited to match: opening or reading notices."""
     build = copy_build(demo_build, tmp_path / "build")
     shard = build / "shards" / "train" / "ngram-0002.parquet"
-    hostile.inflate_parquet_rows(shard, 1000, row_group)
+    pq.write_table(pq.read_table(shard), shard, row_group_size=pq.ParquetFile(shard).metadata.num_rows // 2 + 1)
+    extra, groups = FOOTER_EDITS[edit]
+    hostile.inflate_parquet_rows(shard, extra, groups)
 
     def match(manifest: dict) -> None:
         entry = next(e for e in manifest["splits"]["train"]["shards"] if e["file"].endswith("ngram-0002.parquet"))
-        entry.update(rows=entry["rows"] + 1000, sha256=hashlib.sha256(shard.read_bytes()).hexdigest())
+        entry.update(rows=entry["rows"] + extra, sha256=hashlib.sha256(shard.read_bytes()).hexdigest())
 
     edit_manifest(build, match)
     with pytest.raises(BuildError, match=r"ngram-0002\.parquet: .*footer"):
@@ -407,12 +422,13 @@ def test_a_footer_promising_more_rows_than_its_pages_hold_is_refused(demo_build:
             pass
 
 
-def test_shard_metadata_that_is_not_a_json_object_is_refused(demo_build: Path, tmp_path: Path) -> None:
+@pytest.mark.parametrize("metadata", [b'["not", "an object"]', b"[1, 2"], ids=["array", "broken-json"])
+def test_shard_metadata_that_is_not_a_json_object_is_refused(demo_build: Path, tmp_path: Path, metadata: bytes) -> None:
     """The `corpusmill` key-value metadata must be a JSON object; anything else is not this workflow's shard."""
     build = copy_build(demo_build, tmp_path / "build")
     shard = build / "shards" / "train" / "ngram-0002.parquet"
     table = pq.read_table(shard)
-    rewrite(shard, table.replace_schema_metadata({b"corpusmill": b"[1, 2"}))
+    rewrite(shard, table.replace_schema_metadata({b"corpusmill": metadata}))
     with pytest.raises(BuildError, match=r"ngram-0002\.parquet: its 'corpusmill' metadata is not a JSON object"):
         open_build(build)
 

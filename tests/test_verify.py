@@ -257,20 +257,27 @@ def test_a_shard_listed_twice_is_reported(copy: Path) -> None:
     assert f"splits.train.shards[{len(shards) - 1}].file" in run.stderr and "names the same file as splits.train.shards[0].file" in run.stderr
 
 
-@pytest.mark.parametrize("row_group", [None, 0], ids=["file-total", "row-group"])
-def test_a_footer_row_count_raised_together_with_the_manifest_is_caught_by_decoding(copy: Path, row_group: int | None) -> None:
-    """Parquet footer (Thrift compact protocol) edited: rows decoded from the data pages, not the footer, decide."""
+FOOTER_EDITS = {"file-total": (1000, {}), "row-group": (1000, {0: 1000}), "moved-between-groups": (0, {0: 1000, 1: -1000})}
+
+
+@pytest.mark.parametrize("edit", sorted(FOOTER_EDITS))
+def test_footer_row_counts_edited_together_with_the_manifest_are_caught_by_decoding(copy: Path, edit: str) -> None:
+    """Parquet footer (Thrift compact protocol) edited, the manifest's rows and hash to match: the rows
+    decoded from each row group's data pages decide, also when the file's total stays right."""
     shard = first_shard(copy)
-    hostile.inflate_parquet_rows(shard, 1000, row_group)
+    pq.write_table(pq.read_table(shard), shard, row_group_size=pq.ParquetFile(shard).metadata.num_rows // 2 + 1)
+    extra, groups = FOOTER_EDITS[edit]
+    hostile.inflate_parquet_rows(shard, extra, groups)
     manifest = load(copy)
     name = shard.relative_to(copy).as_posix()
     entry = next(e for e in manifest["splits"]["train"]["shards"] if e["file"] == name)
-    entry.update(rows=entry["rows"] + 1000, sha256=hashlib.sha256(shard.read_bytes()).hexdigest(), bytes=shard.stat().st_size)
-    manifest["splits"]["train"]["rows"]["ngram"] += 1000
+    entry.update(rows=entry["rows"] + extra, sha256=hashlib.sha256(shard.read_bytes()).hexdigest(), bytes=shard.stat().st_size)
+    manifest["splits"]["train"]["rows"]["ngram"] += extra
     save(copy, manifest)
     run = audit(copy)
     assert run.returncode != 0
-    assert f"corpusmill audit: {name}: " in run.stderr and "rows in its data pages, but its footer says" in run.stderr
+    where = "row group 0 holds" if groups else "holds"
+    assert f"corpusmill audit: {name}: {where} " in run.stderr and "rows in its data pages, but its footer says" in run.stderr
 
 
 def test_problem_lines_name_files_relative_to_the_build_and_say_what_to_do(copy: Path) -> None:
@@ -355,11 +362,12 @@ def test_mutated_manifests_give_audit_problems_and_reader_build_errors_only(fuzz
         assert problems, "audit passed a manifest the reader refuses"
 
 
-def test_shard_metadata_that_is_not_a_json_object_is_reported(copy: Path) -> None:
+@pytest.mark.parametrize("metadata", [b'["not", "an object"]', b"[1, 2"], ids=["array", "broken-json"])
+def test_shard_metadata_that_is_not_a_json_object_is_reported(copy: Path, metadata: bytes) -> None:
     """The `corpusmill` key-value metadata must be a JSON object; anything else is not this workflow's shard."""
     shard = first_shard(copy, "block")
     table = pq.read_table(shard)
-    pq.write_table(table.replace_schema_metadata({b"corpusmill": b'["not", "an object"]'}), shard)
+    pq.write_table(table.replace_schema_metadata({b"corpusmill": metadata}), shard)
     problems = audit_build(copy).problems
     name = shard.relative_to(copy).as_posix()
     assert any(p.startswith(f"{name}: no 'corpusmill' key-value metadata holding a JSON object") for p in problems), problems
