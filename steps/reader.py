@@ -39,19 +39,26 @@ Order, shuffling and data-parallel workers (all deterministic):
   `seed=None` reads in manifest order without any shuffling (dev/test evaluation).
 
 Checks done by `open_build` (each failure raises BuildError naming the file and the fix):
-every shard listed in manifest.json exists, its Parquet footer has the recorded row count,
-its `corpusmill` metadata names the same split and kind, and its vocabulary_sha256 equals the
-SHA-256 of vocabulary.tsv, which must equal the manifest's. `verify_hashes=True` also hashes
-every shard file against the manifest (reads every byte; off by default).
+manifest.json is valid UTF-8 JSON with the fields the reader reads, of the right types (the
+message names the key path); every file it names resolves, symlinks followed, inside the build
+folder, is listed once, and is a regular file (never a FIFO or device; manifest.json at most
+256 MiB, vocabulary.tsv at most 1 GiB); every listed shard exists, its Parquet footer has the
+recorded row count, which its row groups add up to, its `corpusmill` metadata names the same
+split and kind, and its vocabulary_sha256 equals the SHA-256 of vocabulary.tsv, which must equal
+the manifest's. `verify_hashes=True` also hashes every shard file against the manifest (reads
+every byte; off by default). While reading, a row group that decodes to another number of rows
+than its footer says raises BuildError.
 """
 
 from __future__ import annotations
 
 import hashlib
 import json
+import os
+import stat
 from collections.abc import Iterator
 from dataclasses import dataclass
-from pathlib import Path
+from pathlib import Path, PurePosixPath
 
 import numpy as np
 import pyarrow as pa
@@ -61,6 +68,16 @@ MANIFEST = "manifest.json"
 VOCABULARY = "vocabulary.tsv"
 VOCABULARY_HEADER = "id\ttoken\tcount\tkind"
 REBUILD = "rerun the workflow (snakemake) on this build folder to rewrite it"
+# Far above any real build's (a manifest line per shard; a vocabulary line per id), far below
+# what would exhaust memory when read whole.
+MAX_MANIFEST_BYTES = 256 << 20
+MAX_VOCABULARY_BYTES = 1 << 30
+KINDS = ("block", "ngram", "stream")
+LARGEST_COUNT = 2**63 - 1  # Parquet's row counts are int64
+
+# The manifest fields the reader reads, with their types (see structure_problem).
+SHARD_FIELDS = {"file": str, "kind": KINDS, "part": int, "rows": int, "sha256": str}
+READER_FIELDS = {"vocabulary": {"sha256": str}, "splits": {"*": {"shards": [SHARD_FIELDS]}}}
 
 Batch = dict[str, "np.ndarray | list[str]"]
 
@@ -100,6 +117,124 @@ class VocabularyTable:
         return self.tokens.index(token)
 
 
+def key_path(where: str, key: str | int) -> str:
+    """`where` extended by one key, as `a.b[3]`, or `a["stats/x.json"]` for keys that are not identifiers."""
+    if isinstance(key, int):
+        return f"{where}[{key}]"
+    if key.isidentifier():
+        return f"{where}.{key}" if where else key
+    return f"{where}[{json.dumps(key[:80])}]"
+
+
+def _found(value: object) -> str:
+    if isinstance(value, bool) or value is None:
+        return json.dumps(value)
+    if isinstance(value, (int, float)):
+        return f"the number {str(value)[:24]}"
+    return {dict: "an object", list: "an array", str: "a string"}[type(value)]
+
+
+def _expected(spec: object) -> str:
+    if isinstance(spec, tuple):
+        return "one of " + ", ".join(map(json.dumps, spec))
+    if isinstance(spec, (dict, list)):
+        return "an object" if isinstance(spec, dict) else "an array"
+    return {str: "a string", int: "a whole number from 0 to 2^63-1", bool: "true or false"}[spec]
+
+
+def structure_problem(value: object, spec: object, where: str = "") -> str | None:
+    """Where parsed JSON first departs from `spec`, as 'key.path: expected …, found …'; None if it fits.
+
+    A spec is a dict of required keys ('*' stands for every key of the object), a one-item list
+    (an array of that), a tuple of allowed strings, or str, int (0..2^63-1) or bool. Recursion
+    follows the spec, never deeper, so any nesting of the value is safe.
+    """
+    if isinstance(spec, dict) and isinstance(value, dict):
+        for key, inner in spec.items():
+            if key != "*" and key not in value:
+                return f"{key_path(where, key)}: missing"
+            for name in value if key == "*" else [key]:
+                if problem := structure_problem(value[name], inner, key_path(where, name)):
+                    return problem
+        return None
+    if isinstance(spec, list) and isinstance(value, list):
+        for index, item in enumerate(value):
+            if problem := structure_problem(item, spec[0], key_path(where, index)):
+                return problem
+        return None
+    if isinstance(spec, tuple):
+        fits = isinstance(value, str) and value in spec
+    elif spec is int:
+        fits = type(value) is int and 0 <= value <= LARGEST_COUNT
+    else:
+        fits = spec in (str, bool) and type(value) is spec
+    return None if fits else f"{where or 'top level'}: expected {_expected(spec)}, found {_found(value)}"
+
+
+def parse_manifest(data: bytes, fields: dict) -> tuple[dict, str | None]:
+    """manifest.json's bytes parsed and checked against `fields`: (manifest, None), or ({}, what is wrong)."""
+    try:
+        manifest = json.loads(data.decode("utf-8"))
+    except UnicodeDecodeError as error:
+        return {}, f"byte {error.start}: not UTF-8"
+    except json.JSONDecodeError as error:
+        return {}, f"line {error.lineno} column {error.colno}: not valid JSON ({error.msg})"
+    except RecursionError:
+        return {}, "not valid JSON for this reader: arrays or objects nested too deeply"
+    except ValueError as error:  # an integer of more than 4300 digits
+        return {}, f"not valid JSON ({str(error).split(':')[0]})"
+    problem = structure_problem(manifest, fields)
+    return (manifest, None) if problem is None else ({}, problem)
+
+
+def _realpath(real_root: str, name: str, folders: dict[str, str]) -> str:
+    """os.path.realpath(real_root/name), resolving each parent folder once (shards share a few)."""
+    folder, _, base = name.rpartition("/")
+    if folder not in folders:
+        folders[folder] = os.path.realpath(os.path.join(real_root, folder))
+    path = os.path.join(folders[folder], base)
+    return os.path.realpath(path) if base in ("", ".", "..") or os.path.islink(path) else path
+
+
+def resolve_inside(real_root: Path, name: str, folders: dict[str, str] | None = None) -> tuple[Path, str | None]:
+    """A manifest's file name resolved (symlinks followed) under the resolved build folder, and
+    why it may not be read, if so: a build is self-contained, so nothing outside it is opened.
+    Pass one `folders` dict to the calls for one build to resolve each folder once."""
+    if PurePosixPath(name).is_absolute():
+        return Path(name), "is an absolute path; a manifest names files relative to its build folder"
+    root = str(real_root)
+    try:
+        target = _realpath(root, name, {} if folders is None else folders)
+    except (OSError, ValueError) as error:
+        return real_root / name, f"cannot be resolved to a file ({error})"
+    if not target.startswith(root.rstrip("/") + "/"):
+        shown = target if target.isprintable() else json.dumps(target)
+        return Path(target), f"leads outside the build folder (to {shown})"
+    return Path(target), None
+
+
+def _file_type(mode: int) -> str:
+    tests = {"FIFO": stat.S_ISFIFO, "character device": stat.S_ISCHR, "block device": stat.S_ISBLK, "directory": stat.S_ISDIR}
+    return next((name for name, test in tests.items() if test(mode)), "socket or other special file")
+
+
+def file_problem(path: Path, limit: int | None = None) -> str | None:
+    """Why `path` may not be read, if so: missing, not a regular file (opening a FIFO blocks,
+    /dev/zero never ends), or over `limit` bytes. Checked with os.stat, before any open."""
+    try:
+        status = os.stat(path)
+    except FileNotFoundError:
+        return "missing"
+    except (OSError, ValueError) as error:
+        return f"cannot be examined ({error})"
+    if not stat.S_ISREG(status.st_mode):
+        return f"not a regular file (a {_file_type(status.st_mode)})"
+    if limit is not None and status.st_size > limit:
+        size = f"{limit >> 30} GiB" if limit % (1 << 30) == 0 else f"{limit >> 20} MiB"
+        return f"over the {size} size limit ({status.st_size:,} bytes)"
+    return None
+
+
 def _sha256(path: Path) -> str:
     hasher = hashlib.sha256()
     with open(path, "rb") as handle:
@@ -131,8 +266,8 @@ def _read_vocabulary(path: Path) -> VocabularyTable:
 def _shard(root: Path, entry: dict, split: str, vocabulary_sha256: str, verify_hash: bool) -> Shard:
     """Check one manifest entry against its file's footer and metadata."""
     path = root / entry["file"]
-    if not path.is_file():
-        raise BuildError(f"{path}: listed in {root / MANIFEST} but missing; {REBUILD}")
+    if problem := file_problem(path):
+        raise BuildError(f"{path}: listed in {root / MANIFEST} but {problem}; {REBUILD}")
     try:
         metadata = pq.read_metadata(path)
     except (OSError, pa.ArrowException) as error:
@@ -141,10 +276,21 @@ def _shard(root: Path, entry: dict, split: str, vocabulary_sha256: str, verify_h
         raise BuildError(
             f"{path}: holds {metadata.num_rows} rows but {root / MANIFEST} records {entry['rows']}; {REBUILD}"
         )
+    groups = tuple(metadata.row_group(i).num_rows for i in range(metadata.num_row_groups))
+    if sum(groups) != metadata.num_rows:
+        raise BuildError(
+            f"{path}: its footer says {metadata.num_rows} rows, but its row groups add up to {sum(groups)}; "
+            f"the file was altered after it was written; {REBUILD}"
+        )
     raw = (metadata.metadata or {}).get(b"corpusmill")
     if raw is None:
         raise BuildError(f"{path}: no 'corpusmill' key-value metadata; not written by this workflow; {REBUILD}")
-    info = json.loads(raw)
+    try:
+        info = json.loads(raw)
+    except (ValueError, RecursionError):
+        info = None
+    if not isinstance(info, dict):
+        raise BuildError(f"{path}: its 'corpusmill' metadata is not a JSON object; not written by this workflow; {REBUILD}")
     if (info.get("split"), info.get("kind")) != (split, entry["kind"]):
         raise BuildError(
             f"{path}: metadata says split={info.get('split')!r} kind={info.get('kind')!r}, "
@@ -157,7 +303,6 @@ def _shard(root: Path, entry: dict, split: str, vocabulary_sha256: str, verify_h
         )
     if verify_hash and _sha256(path) != entry["sha256"]:
         raise BuildError(f"{path}: SHA-256 differs from {root / MANIFEST}; the file was changed after the build; {REBUILD}")
-    groups = tuple(metadata.row_group(i).num_rows for i in range(metadata.num_row_groups))
     return Shard(path, split, entry["kind"], int(entry["part"]), int(entry["rows"]), entry["sha256"], groups, info)
 
 
@@ -357,6 +502,11 @@ class Build:
                 if opened is None or opened[0] != shard.path:
                     opened = (shard.path, pq.ParquetFile(shard.path))
                 table = opened[1].read_row_group(group)
+                if table.num_rows != rows:
+                    raise BuildError(
+                        f"{shard.path}: row group {group} decodes to {table.num_rows} rows, but the file's footer says "
+                        f"{rows}; the file was altered after it was written; {REBUILD}"
+                    )
                 yield table.slice(first - start, last - first)
             start += rows
             if start >= hi:
@@ -420,16 +570,18 @@ def open_build(path: str | Path, *, verify_hashes: bool = False) -> Build:
     root = Path(path)
     if not (root / MANIFEST).is_file() and (root / "build" / MANIFEST).is_file():
         root = root / "build"
-    manifest_path = root / MANIFEST
-    if not manifest_path.is_file():
+    manifest_path, real_root = root / MANIFEST, root.resolve()
+    target, problem = resolve_inside(real_root, MANIFEST)
+    if (problem := problem or file_problem(target, MAX_MANIFEST_BYTES)) == "missing":
         raise BuildError(f"{manifest_path}: missing; point open_build at a finished build folder or run the workflow")
-    try:
-        manifest = json.loads(manifest_path.read_text(encoding="utf-8"))
-    except json.JSONDecodeError as error:
-        raise BuildError(f"{manifest_path}: line {error.lineno}: not valid JSON ({error.msg}); {REBUILD}") from error
+    if problem is None:
+        manifest, problem = parse_manifest(target.read_bytes(), READER_FIELDS)
+    if problem:
+        raise BuildError(f"{manifest_path}: {problem}; {REBUILD}")
     vocabulary_path = root / VOCABULARY
-    if not vocabulary_path.is_file():
-        raise BuildError(f"{vocabulary_path}: missing; {REBUILD}")
+    target, problem = resolve_inside(real_root, VOCABULARY)
+    if problem := problem or file_problem(target, MAX_VOCABULARY_BYTES):
+        raise BuildError(f"{vocabulary_path}: {problem}; {REBUILD}")
     vocabulary_sha256 = _sha256(vocabulary_path)
     recorded = manifest["vocabulary"]["sha256"]
     if vocabulary_sha256 != recorded:
@@ -438,9 +590,15 @@ def open_build(path: str | Path, *, verify_hashes: bool = False) -> Build:
             f"the vocabulary was edited or replaced after the build; {REBUILD}"
         )
     vocabulary = _read_vocabulary(vocabulary_path)
-    shards = [
-        _shard(root, entry, split, vocabulary_sha256, verify_hashes)
-        for split, figures in manifest["splits"].items()
-        for entry in figures["shards"]
-    ]
+    shards, seen, folders = [], {}, {}
+    for split, figures in manifest["splits"].items():
+        for index, entry in enumerate(figures["shards"]):
+            where = key_path(key_path(key_path("splits", split), "shards"), index) + ".file"
+            target, problem = resolve_inside(real_root, entry["file"], folders)
+            if problem:
+                raise BuildError(f"{manifest_path}: {where} {json.dumps(entry['file'])} {problem}; {REBUILD}")
+            if target in seen:
+                raise BuildError(f"{manifest_path}: {where} names the same file as {seen[target]}; {REBUILD}")
+            seen[target] = where
+            shards.append(_shard(root, entry, split, vocabulary_sha256, verify_hashes))
     return Build(root, manifest, vocabulary, shards)

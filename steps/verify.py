@@ -5,7 +5,14 @@ builds; training on them silently would waste a run. The audit recomputes what t
 promises: every shard's SHA-256 and row count, ids below the vocabulary size, window and block
 widths, the vocabulary hash (file, manifest and every shard's `corpusmill` metadata), the
 document accounting, and that shards/ holds exactly the listed files. It reads each shard in
-record batches, so memory stays bounded by the batch, not the shard.
+record batches, so memory stays bounded by the batch, not the shard; rows are counted as they
+decode from the data pages, so a footer edited to promise other rows is caught.
+
+A manifest is treated as hostile input: its structure is checked first (every field read, with
+its type), and a file it names is read only if it resolves, symlinks followed, inside the build
+folder, is listed once, and is a regular file (a FIFO would block, /dev/zero never ends) within
+the reader's size limits. The checked fields include all the reader's, so a build that passes
+opens in steps.reader.
 """
 
 from __future__ import annotations
@@ -21,9 +28,21 @@ import pyarrow.compute as pc
 import pyarrow.parquet as pq
 
 from steps.manifest import file_sha256
+from steps.reader import MAX_MANIFEST_BYTES, MAX_VOCABULARY_BYTES, SHARD_FIELDS, file_problem, key_path, parse_manifest, resolve_inside
 from steps.vocab import read_vocabulary
 
 BATCH_ROWS = 65_536
+FIX_FILE = "restore it from an intact copy of the build, or delete it and rerun snakemake to rebuild it"
+FIX_MANIFEST = "restore manifest.json from an intact copy of the build, or delete it and rerun snakemake to write it again"
+
+# Every manifest field the audit reads, with its type (steps.reader.structure_problem).
+MANIFEST_FIELDS = {
+    "config": {"windows": {"ngram": {"n": int}, "blocks": {"length": int}}},
+    "vocabulary": {"file": str, "sha256": str, "size": int},
+    "splits": {"*": {"rows": {"*": int}, "shards": [SHARD_FIELDS]}},
+    "files": {"*": str},
+    "accounting": {"read": int, "pieces_added": int, "kept": int, "dropped": {"*": int}, "balanced": bool},
+}
 
 
 @dataclass
@@ -44,6 +63,18 @@ def _id_columns(kind: str) -> list[str]:
     return {"ngram": ["context", "target"], "block": ["ids"], "stream": ["ids"]}[kind]
 
 
+def listed_file(real_root: Path, name: str, where: str, audit: Audit, limit: int | None = None) -> Path | None:
+    """The file a manifest entry names, or None after recording why it may not be read."""
+    target, problem = resolve_inside(real_root, name)
+    if problem:
+        audit.fail("manifest.json", f"{where} {json.dumps(name)} {problem}; {FIX_MANIFEST}")
+        return None
+    if problem := file_problem(target, limit):
+        audit.fail(name, f"listed in manifest.json but {problem}; {FIX_FILE}")
+        return None
+    return target
+
+
 def _expected_width(kind: str, config: dict) -> int | None:
     """Fixed list width of a kind's id column: n-1 context ids, or L+1 block ids."""
     if kind == "ngram":
@@ -62,52 +93,85 @@ def _max_id(column: pa.Array) -> int | None:
     return None if largest is None else int(largest)
 
 
-def check_shard(base: Path, entry: dict, config: dict, vocabulary_sha256: str, vocabulary_size: int, audit: Audit) -> None:
-    """Hash, rows, metadata, widths and id range of one listed shard file."""
+def _corpusmill_metadata(raw: bytes) -> dict | None:
+    """A shard's `corpusmill` key-value metadata as a dict, None when it is not a JSON object."""
+    try:
+        info = json.loads(raw)
+    except (ValueError, RecursionError):
+        return None
+    return info if isinstance(info, dict) else None
+
+
+def check_shard(path: Path, entry: dict, config: dict, vocabulary_sha256: str, vocabulary_size: int, audit: Audit) -> None:
+    """Hash, rows (footer and decoded), metadata, widths and id range of one listed shard file."""
     name = entry["file"]
-    path = base / name
-    if not path.is_file():
-        audit.fail(name, "listed in manifest.json but missing; rebuild (snakemake --cores N) or restore the file")
-        return
     if file_sha256(path) != entry["sha256"]:
-        audit.fail(name, f"SHA-256 differs from manifest.json ({entry['sha256'][:12]}…); the file was changed or damaged")
+        audit.fail(name, f"SHA-256 differs from manifest.json ({entry['sha256'][:12]}…); the file was changed or damaged; {FIX_FILE}")
     try:
         parquet = pq.ParquetFile(path)
     except (pa.ArrowException, OSError) as error:
-        audit.fail(name, f"not readable as Parquet ({error}); the file is damaged or truncated")
+        audit.fail(name, f"not readable as Parquet ({error}); the file is damaged or truncated; {FIX_FILE}")
         return
-    kind = entry["kind"]
-    if parquet.metadata.num_rows != entry["rows"]:
-        audit.fail(name, f"holds {parquet.metadata.num_rows} rows, manifest.json says {entry['rows']}")
+    kind, footer = entry["kind"], parquet.metadata
+    if footer.num_rows != entry["rows"]:
+        audit.fail(name, f"holds {footer.num_rows} rows, manifest.json says {entry['rows']}; {FIX_FILE}")
     raw = (parquet.schema_arrow.metadata or {}).get(b"corpusmill")
-    if raw is None:
-        audit.fail(name, "no 'corpusmill' key-value metadata; not a corpusmill shard")
-    elif json.loads(raw).get("vocabulary_sha256") != vocabulary_sha256:
-        audit.fail(name, "its metadata vocabulary_sha256 differs from vocabulary.tsv; the shard belongs to another build")
+    info = None if raw is None else _corpusmill_metadata(raw)
+    if info is None:
+        audit.fail(name, f"no 'corpusmill' key-value metadata holding a JSON object; not a corpusmill shard; {FIX_FILE}")
+    elif info.get("vocabulary_sha256") != vocabulary_sha256:
+        audit.fail(name, f"its metadata vocabulary_sha256 differs from vocabulary.tsv; the shard belongs to another build; {FIX_FILE}")
     width = _expected_width(kind, config)
     for column in _id_columns(kind):
         if column not in parquet.schema_arrow.names:
-            audit.fail(name, f"has no column {column!r} (a {kind} shard needs {', '.join(_id_columns(kind))})")
+            audit.fail(name, f"has no column {column!r} (a {kind} shard needs {', '.join(_id_columns(kind))}); {FIX_FILE}")
             return
         kind_type = parquet.schema_arrow.field(column).type
         if width is not None and column != "target":
             actual = kind_type.list_size if pa.types.is_fixed_size_list(kind_type) else None
             if actual != width:
-                audit.fail(name, f"column {column!r} is {kind_type}, expected fixed_size_list of width {width}")
+                audit.fail(name, f"column {column!r} is {kind_type}, expected fixed_size_list of width {width}; {FIX_FILE}")
+    altered = "the file was altered after it was written"
     try:
-        largest = -1
-        for batch in parquet.iter_batches(batch_size=BATCH_ROWS, columns=_id_columns(kind)):
-            for column in batch.columns:
-                value = _max_id(column)
-                if value is not None:
-                    largest = max(largest, value)
+        largest, decoded = -1, 0
+        for group in range(footer.num_row_groups):
+            rows = 0
+            for batch in parquet.iter_batches(batch_size=BATCH_ROWS, row_groups=[group], columns=_id_columns(kind)):
+                rows += batch.num_rows
+                for column in batch.columns:
+                    value = _max_id(column)
+                    if value is not None:
+                        largest = max(largest, value)
+            if rows != footer.row_group(group).num_rows:
+                audit.fail(name, f"row group {group} holds {rows} rows in its data pages, but its footer says "
+                           f"{footer.row_group(group).num_rows}; {altered}; {FIX_FILE}")  # fmt: skip
+            decoded += rows
     except (pa.ArrowException, OSError) as error:
-        audit.fail(name, f"its data cannot be read ({error}); the file is damaged or truncated")
+        audit.fail(name, f"its data cannot be read ({error}); the file is damaged or truncated; {FIX_FILE}")
         return
+    if decoded != footer.num_rows:
+        audit.fail(name, f"holds {decoded} rows in its data pages, but its footer says {footer.num_rows}; {altered}; {FIX_FILE}")
     if largest >= vocabulary_size:
-        audit.fail(name, f"holds id {largest}, but the vocabulary has only {vocabulary_size} ids (0..{vocabulary_size - 1})")
-    audit.rows += parquet.metadata.num_rows
+        audit.fail(name, f"holds id {largest}, but the vocabulary has only {vocabulary_size} ids (0..{vocabulary_size - 1}); {FIX_FILE}")
+    audit.rows += decoded
     audit.shards += 1
+
+
+def check_vocabulary(real_root: Path, listed: dict, audit: Audit) -> None:
+    """The vocabulary file against the manifest's hash and size (the shard checks use the manifest's)."""
+    path = listed_file(real_root, listed["file"], "vocabulary.file", audit, MAX_VOCABULARY_BYTES)
+    if path is None:
+        return
+    try:
+        vocabulary = read_vocabulary(path)
+    except (OSError, ValueError) as error:
+        audit.fail(listed["file"], f"unreadable ({error}); {FIX_FILE}")
+        return
+    if vocabulary.digest() != listed["sha256"]:
+        audit.fail(listed["file"], f"SHA-256 {vocabulary.digest()[:12]}… differs from manifest.json ({listed['sha256'][:12]}…); "
+                   f"the vocabulary was replaced (another build's?) or edited; {FIX_FILE}")  # fmt: skip
+    if vocabulary.size != listed["size"]:
+        audit.fail(listed["file"], f"has {vocabulary.size} ids, manifest.json says {listed['size']}; {FIX_FILE}")
 
 
 def check_accounting(accounting: dict, audit: Audit) -> None:
@@ -118,52 +182,59 @@ def check_accounting(accounting: dict, audit: Audit) -> None:
         audit.fail(
             "manifest.json",
             f"accounting does not balance: read {accounting['read']} + pieces_added {accounting['pieces_added']} = {left}, "
-            f"kept {accounting['kept']} + dropped {sum(accounting['dropped'].values())} = {right}",
+            f"kept {accounting['kept']} + dropped {sum(accounting['dropped'].values())} = {right}; {FIX_MANIFEST}",
         )
 
 
 def audit_build(build: str | Path) -> Audit:
     """Every check of the module docstring; the returned Audit lists what failed."""
     base = Path(build)
-    audit = Audit()
-    manifest_path = base / "manifest.json"
+    real_root, audit = base.resolve(), Audit()
+    target, problem = resolve_inside(real_root, "manifest.json")
+    if problem := problem or file_problem(target, MAX_MANIFEST_BYTES):
+        audit.fail("manifest.json", f"{problem}; the build is not finished or was damaged: rerun snakemake in its working "
+                   "folder (move a damaged manifest.json away first)")  # fmt: skip
+        return audit
     try:
-        manifest = json.loads(manifest_path.read_text(encoding="utf-8"))
-    except (OSError, ValueError) as error:
-        audit.fail("manifest.json", f"missing or unreadable ({error}); the build is not finished — run snakemake again")
+        manifest, problem = parse_manifest(target.read_bytes(), MANIFEST_FIELDS)
+    except OSError as error:
+        manifest, problem = {}, f"unreadable ({error})"
+    if problem:
+        audit.fail("manifest.json", f"{problem}; {FIX_MANIFEST}")
         return audit
     config = manifest["config"]
     listed = manifest["vocabulary"]
-    try:
-        vocabulary = read_vocabulary(base / listed["file"])
-    except (OSError, ValueError) as error:
-        audit.fail(listed["file"], f"unreadable ({error})")
-        return audit
-    if vocabulary.digest() != listed["sha256"]:
-        audit.fail(listed["file"], f"SHA-256 {vocabulary.digest()[:12]}… differs from manifest.json ({listed['sha256'][:12]}…); "
-                   "the vocabulary was replaced (another build's?) or edited")
-    if vocabulary.size != listed["size"]:
-        audit.fail(listed["file"], f"has {vocabulary.size} ids, manifest.json says {listed['size']}")
-    entries = [entry for split in manifest["splits"].values() for entry in split["shards"]]
-    for entry in entries:
-        check_shard(base, entry, config, listed["sha256"], listed["size"], audit)
+    check_vocabulary(real_root, listed, audit)
+    entries, seen = [], {}
+    for split, figures in manifest["splits"].items():
+        for index, entry in enumerate(figures["shards"]):
+            entries.append(entry)
+            where = key_path(key_path(key_path("splits", split), "shards"), index) + ".file"
+            path = listed_file(real_root, entry["file"], where, audit)
+            if path in seen:
+                audit.fail("manifest.json", f"{where} names the same file as {seen[path]}; {FIX_MANIFEST}")
+            elif path is not None:
+                seen[path] = where
+                check_shard(path, entry, config, listed["sha256"], listed["size"], audit)
     for split, figures in manifest["splits"].items():
         for kind, rows in figures["rows"].items():
             total = sum(e["rows"] for e in figures["shards"] if e["kind"] == kind)
             if total != rows:
-                audit.fail("manifest.json", f"splits.{split}.rows.{kind} = {rows}, but its shards list {total} rows")
+                where = key_path(key_path(key_path("splits", split), "rows"), kind)
+                audit.fail("manifest.json", f"{where} = {rows}, but its shards list {total} rows; {FIX_MANIFEST}")
     shards_dir = base / "shards"
-    present = {p.relative_to(base).as_posix() for p in shards_dir.rglob("*") if p.is_file()} if shards_dir.is_dir() else set()
+    # Every entry but a real directory: a glob over shards/ would also meet FIFOs and symlinks.
+    present = set()
+    if shards_dir.is_dir():
+        present = {p.relative_to(base).as_posix() for p in shards_dir.rglob("*") if p.is_symlink() or not p.is_dir()}
     for extra in sorted(present - {e["file"] for e in entries}):
         audit.fail(extra, "is not listed in manifest.json; remove it (a leftover or a file of another build)")
-    for name, sha256 in sorted(manifest.get("files", {}).items()):
-        path = base / name
-        if not path.is_file():
-            audit.fail(name, "listed in manifest.json but missing")
-        elif file_sha256(path) != sha256:
-            audit.fail(name, "SHA-256 differs from manifest.json; the file was changed")
+    for name, sha256 in sorted(manifest["files"].items()):
+        path = listed_file(real_root, name, "files key", audit)
+        if path is not None and file_sha256(path) != sha256:
+            audit.fail(name, f"SHA-256 differs from manifest.json; the file was changed; {FIX_FILE}")
     check_accounting(manifest["accounting"], audit)
-    audit.vocabulary_size, audit.accounting = vocabulary.size, manifest["accounting"]
+    audit.vocabulary_size, audit.accounting = listed["size"], manifest["accounting"]
     return audit
 
 
@@ -174,7 +245,7 @@ def main(argv: list[str] | None = None) -> None:
     audit = audit_build(args.build)
     if audit.problems:
         for problem in audit.problems:
-            print(f"corpusmill audit: {Path(args.build) / problem}", file=sys.stderr)
+            print(f"corpusmill audit: {problem}", file=sys.stderr)
         raise SystemExit(f"corpusmill audit: {len(audit.problems)} problem(s) in {args.build}")
     accounting = audit.accounting
     print(

@@ -142,3 +142,176 @@ def write_small_corpus(root: Path) -> None:
     root.mkdir(parents=True, exist_ok=True)
     (root / "notes.txt").write_bytes(prose(12_000, seed=11))
     (root / "letters.txt.gz").write_bytes(compress(prose(12_000, seed=12), ".gz"))
+
+
+# Parquet's footer is a FileMetaData struct in the Thrift compact protocol
+# (apache/thrift doc/specs/thrift-compact-protocol.md; apache/parquet-format parquet.thrift):
+# FileMetaData field 3 is num_rows, field 4 the row groups; RowGroup field 3 is num_rows.
+_BOOL_TRUE, _BOOL_FALSE, _BYTE, _I16, _I32, _I64, _DOUBLE, _BINARY, _LIST, _SET, _MAP, _STRUCT = range(1, 13)
+
+
+def _read_varint(data: bytes, pos: int) -> tuple[int, int]:
+    value = shift = 0
+    while True:
+        byte = data[pos]
+        pos += 1
+        value |= (byte & 0x7F) << shift
+        shift += 7
+        if byte < 0x80:
+            return value, pos
+
+
+def _varint(value: int) -> bytes:
+    out = bytearray()
+    while value >= 0x80:
+        out.append(value & 0x7F | 0x80)
+        value >>= 7
+    out.append(value)
+    return bytes(out)
+
+
+def _read_value(data: bytes, pos: int, kind: int) -> tuple[object, int]:
+    if kind in (_BOOL_TRUE, _BOOL_FALSE, _BYTE):
+        return data[pos], pos + 1
+    if kind in (_I16, _I32, _I64):
+        raw, pos = _read_varint(data, pos)
+        return (raw >> 1) ^ -(raw & 1), pos
+    if kind == _DOUBLE:
+        return data[pos : pos + 8], pos + 8
+    if kind == _BINARY:
+        size, pos = _read_varint(data, pos)
+        return data[pos : pos + size], pos + size
+    if kind in (_LIST, _SET):
+        header = data[pos]
+        pos += 1
+        size, element = header >> 4, header & 0x0F
+        if size == 15:
+            size, pos = _read_varint(data, pos)
+        items = []
+        for _ in range(size):
+            item, pos = _read_value(data, pos, element)
+            items.append(item)
+        return (element, items), pos
+    if kind == _MAP:
+        size, pos = _read_varint(data, pos)
+        if not size:
+            return (0, 0, []), pos
+        types = data[pos]
+        pos += 1
+        pairs = []
+        for _ in range(size):
+            key, pos = _read_value(data, pos, types >> 4)
+            value, pos = _read_value(data, pos, types & 0x0F)
+            pairs.append((key, value))
+        return (types >> 4, types & 0x0F, pairs), pos
+    if kind == _STRUCT:
+        fields, last = [], 0
+        while True:
+            header = data[pos]
+            pos += 1
+            if header == 0:
+                return fields, pos
+            field_kind, delta = header & 0x0F, header >> 4
+            if delta:
+                field = last + delta
+            else:
+                raw, pos = _read_varint(data, pos)
+                field = (raw >> 1) ^ -(raw & 1)
+            last = field
+            if field_kind in (_BOOL_TRUE, _BOOL_FALSE):
+                value = None
+            else:
+                value, pos = _read_value(data, pos, field_kind)
+            fields.append([field, field_kind, value])
+    raise ValueError(f"unknown Thrift compact type {kind} at byte {pos}")
+
+
+def _value(kind: int, value: object) -> bytes:
+    if kind in (_BOOL_TRUE, _BOOL_FALSE, _BYTE):
+        return bytes([value])
+    if kind in (_I16, _I32, _I64):
+        return _varint((value << 1) ^ (value >> 63))
+    if kind == _DOUBLE:
+        return value
+    if kind == _BINARY:
+        return _varint(len(value)) + value
+    if kind in (_LIST, _SET):
+        element, items = value
+        header = bytes([len(items) << 4 | element]) if len(items) < 15 else bytes([0xF0 | element]) + _varint(len(items))
+        return header + b"".join(_value(element, item) for item in items)
+    if kind == _MAP:
+        key_kind, value_kind, pairs = value
+        if not pairs:
+            return b"\x00"
+        body = b"".join(_value(key_kind, k) + _value(value_kind, v) for k, v in pairs)
+        return _varint(len(pairs)) + bytes([key_kind << 4 | value_kind]) + body
+    out, last = bytearray(), 0
+    for field, field_kind, field_value in value:
+        if 0 < field - last <= 15:
+            out.append((field - last) << 4 | field_kind)
+        else:
+            out += bytes([field_kind]) + _varint((field << 1) ^ (field >> 15))
+        last = field
+        if field_kind not in (_BOOL_TRUE, _BOOL_FALSE):
+            out += _value(field_kind, field_value)
+    return bytes(out + b"\x00")
+
+
+def inflate_parquet_rows(path: Path, extra: int, groups: dict[int, int] | None = None) -> None:
+    """Add `extra` to the row count in a Parquet file's footer, and groups[i] to row group i's count.
+
+    The data pages stay as they are, so the footer then promises rows that no page holds: a
+    file tampered with consistently, which only decoding the pages can tell apart.
+    """
+    data = path.read_bytes()
+    length = int.from_bytes(data[-8:-4], "little")
+    start = len(data) - 8 - length
+    metadata, _ = _read_value(data, start, _STRUCT)
+
+    def bump(fields: list, field_id: int, by: int) -> None:
+        next(field for field in fields if field[0] == field_id)[2] += by
+
+    bump(metadata, 3, extra)
+    row_groups = next(field for field in metadata if field[0] == 4)[2][1]
+    for group, by in (groups or {}).items():
+        bump(row_groups[group], 3, by)
+    footer = _value(_STRUCT, metadata)
+    path.write_bytes(data[:start] + footer + len(footer).to_bytes(4, "little") + b"PAR1")
+
+
+RAW = "@raw@"  # placeholder for JSON text that json.dumps cannot write (deep nesting, huge numbers, bad bytes)
+
+
+def edited_manifest(manifest: dict, keys: tuple, value: object = None, *, delete: bool = False, raw: bytes = b"") -> bytes:
+    """The manifest's JSON bytes with the value at `keys` replaced (or deleted, or set to raw JSON text)."""
+    copy = json.loads(json.dumps(manifest))
+    parent = copy
+    for key in keys[:-1]:
+        parent = parent[key]
+    if delete:
+        del parent[keys[-1]]
+    else:
+        parent[keys[-1]] = RAW if raw else value
+    return json.dumps(copy).encode("utf-8").replace(json.dumps(RAW).encode(), raw)
+
+
+FIRST_ROWS = ("splits", "train", "shards", 0, "rows")
+
+# Case → (the manifest bytes made from a real manifest, the text the refusal must contain).
+HOSTILE_MANIFESTS = {
+    "top-level-array": (lambda m: b"[]", "top level: expected an object, found an array"),
+    "splits-as-array": (lambda m: edited_manifest(m, ("splits",), list(m["splits"].values())), "splits: expected an object, found an array"),
+    "missing-vocabulary": (lambda m: edited_manifest(m, ("vocabulary",), delete=True), "vocabulary: missing"),
+    "missing-shard-file": (lambda m: edited_manifest(m, ("splits", "train", "shards", 0, "file"), delete=True), "splits.train.shards[0].file: missing"),
+    "shards-as-object": (lambda m: edited_manifest(m, ("splits", "dev", "shards"), {"file": "x"}), "splits.dev.shards: expected an array, found an object"),
+    "unknown-kind": (lambda m: edited_manifest(m, ("splits", "train", "shards", 0, "kind"), "zip"), "splits.train.shards[0].kind: expected one of"),
+    "rows-as-string": (lambda m: edited_manifest(m, FIRST_ROWS, "12"), "splits.train.shards[0].rows: expected a whole number"),
+    "rows-true": (lambda m: edited_manifest(m, FIRST_ROWS, True), "splits.train.shards[0].rows: expected a whole number"),
+    "rows-negative": (lambda m: edited_manifest(m, FIRST_ROWS, -1), "splits.train.shards[0].rows: expected a whole number"),
+    "rows-beyond-int64": (lambda m: edited_manifest(m, FIRST_ROWS, 2**64), "splits.train.shards[0].rows: expected a whole number"),
+    "rows-infinite": (lambda m: edited_manifest(m, FIRST_ROWS, raw=b"1e400"), "splits.train.shards[0].rows: expected a whole number"),
+    "rows-5000-digits": (lambda m: edited_manifest(m, FIRST_ROWS, raw=b"9" * 5000), "not valid JSON"),
+    "nested-500-deep": (lambda m: edited_manifest(m, FIRST_ROWS, raw=b"[" * 500 + b"]" * 500), "splits.train.shards[0].rows: expected a whole number"),
+    "nested-100000-deep": (lambda m: edited_manifest(m, FIRST_ROWS, raw=b"[" * 100_000 + b"]" * 100_000), "nested too deeply"),
+    "not-utf8": (lambda m: edited_manifest(m, ("vocabulary", "sha256"), raw=b'"\xff\xfe"'), "not UTF-8"),
+}

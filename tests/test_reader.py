@@ -4,7 +4,10 @@ from __future__ import annotations
 
 import hashlib
 import json
+import os
 import shutil
+import subprocess
+import sys
 from collections import Counter
 from collections.abc import Iterable
 from pathlib import Path
@@ -16,9 +19,11 @@ import pyarrow as pa
 import pyarrow.parquet as pq
 import pytest
 
-from steps.reader import BuildError, open_build, to_numpy
+from steps.reader import BuildError, open_build, resolve_inside, to_numpy
+from tests import hostile
 
 Row = tuple
+REPO = Path(__file__).resolve().parent.parent
 
 
 def row_tuples(kind: str, batches: Iterable[dict]) -> list[Row]:
@@ -300,3 +305,152 @@ def test_asking_for_an_absent_split_or_a_bad_rank_explains_what_exists(demo_buil
         build.rows("valid", "ngram")
     with pytest.raises(ValueError, match="rank=2, world_size=2"):
         next(build.batches("train", "ngram", 8, rank=2, world_size=2))
+
+
+def edit_manifest(build: Path, change) -> None:
+    manifest = json.loads((build / "manifest.json").read_text(encoding="utf-8"))
+    change(manifest)
+    (build / "manifest.json").write_text(json.dumps(manifest), encoding="utf-8")
+
+
+@pytest.mark.parametrize("route", ["dot-dot", "absolute", "symlink", "symlinked-folder"])
+def test_a_shard_outside_the_build_folder_is_refused(demo_build: Path, tmp_path: Path, route: str) -> None:
+    """A shard moved out of the build and reached by `..`, an absolute path, a symlink, or a symlinked shards/ folder."""
+    build = copy_build(demo_build, tmp_path / "build")
+    name = "shards/train/ngram-0002.parquet"
+    outside = tmp_path / "elsewhere" / "ngram-0002.parquet"
+    outside.parent.mkdir()
+    if route == "symlinked-folder":
+        (build / "shards" / "train").rename(outside.parent / "train")
+        (build / "shards" / "train").symlink_to(outside.parent / "train")
+    else:
+        (build / name).rename(outside)
+    if route == "symlink":
+        (build / name).symlink_to(outside)
+    if route in ("dot-dot", "absolute"):
+        target = "../elsewhere/ngram-0002.parquet" if route == "dot-dot" else str(outside)
+
+        def point(manifest: dict) -> None:
+            next(e for e in manifest["splits"]["train"]["shards"] if e["file"] == name)["file"] = target
+
+        edit_manifest(build, point)
+    with pytest.raises(BuildError, match=r"manifest\.json: splits\.train\.shards\[\d+\]\.file .*(outside the build folder|absolute path)"):
+        open_build(build)
+
+
+def test_a_vocabulary_symlinked_to_dev_zero_is_refused(demo_build: Path, tmp_path: Path) -> None:
+    """/dev/zero never ends; vocabulary.tsv must be a file inside the build folder."""
+    build = copy_build(demo_build, tmp_path / "build")
+    (build / "vocabulary.tsv").unlink()
+    (build / "vocabulary.tsv").symlink_to("/dev/zero")
+    with pytest.raises(BuildError, match=r"vocabulary\.tsv.*outside the build folder \(to /dev/zero\)"):
+        open_build(build)
+
+
+OPEN_BUILD = "import sys\nfrom steps.reader import BuildError, open_build\ntry:\n    open_build(sys.argv[1])\nexcept BuildError as error:\n    sys.exit(f'BuildError: {error}')\n"
+
+
+@pytest.mark.parametrize("victim", ["vocabulary.tsv", "manifest.json", "shards/train/ngram-0002.parquet"])
+def test_a_fifo_in_place_of_a_build_file_is_refused_as_not_a_regular_file(demo_build: Path, tmp_path: Path, victim: str) -> None:
+    """POSIX: opening a FIFO for reading blocks until a writer comes, so it is refused by os.stat before any open.
+
+    open_build runs in a child process with a time limit, so a blocking open fails the test instead of hanging it.
+    """
+    build = copy_build(demo_build, tmp_path / "build")
+    (build / victim).unlink()
+    os.mkfifo(build / victim)
+    run = subprocess.run([sys.executable, "-c", OPEN_BUILD, str(build)], cwd=REPO, capture_output=True, text=True, timeout=60)
+    assert run.returncode == 1 and run.stderr.startswith(f"BuildError: {build / victim}: "), run.stderr
+    assert "not a regular file (a FIFO)" in run.stderr
+
+
+def test_a_vocabulary_over_the_size_limit_is_refused_before_reading(demo_build: Path, tmp_path: Path) -> None:
+    """A sparse vocabulary.tsv one byte over 1 GiB (no disk used) is refused by its size."""
+    build = copy_build(demo_build, tmp_path / "build")
+    with open(build / "vocabulary.tsv", "r+b") as handle:
+        handle.truncate((1 << 30) + 1)
+    with pytest.raises(BuildError, match=r"vocabulary\.tsv: over the 1 GiB size limit \(1,073,741,825 bytes\)"):
+        open_build(build)
+
+
+@pytest.mark.parametrize("case", sorted(hostile.HOSTILE_MANIFESTS))
+def test_a_malformed_manifest_raises_build_error_naming_the_key_path(demo_build: Path, tmp_path: Path, case: str) -> None:
+    """Wrong types, missing keys, deep nesting, huge numbers, non-UTF-8 bytes: BuildError, nothing else."""
+    build = copy_build(demo_build, tmp_path / "build")
+    make, expected = hostile.HOSTILE_MANIFESTS[case]
+    manifest = json.loads((build / "manifest.json").read_text(encoding="utf-8"))
+    (build / "manifest.json").write_bytes(make(manifest))
+    with pytest.raises(BuildError) as error:
+        open_build(build)
+    assert "manifest.json: " in str(error.value) and expected in str(error.value)
+    assert "\n" not in str(error.value)
+
+
+def test_a_shard_listed_twice_is_refused(demo_build: Path, tmp_path: Path) -> None:
+    """One shard listed twice would be read twice per epoch."""
+    build = copy_build(demo_build, tmp_path / "build")
+
+    def twice(manifest: dict) -> None:
+        shards = manifest["splits"]["train"]["shards"]
+        shards.append(dict(shards[0], file=shards[0]["file"].replace("train/", "train/./")))
+
+    edit_manifest(build, twice)
+    with pytest.raises(BuildError, match=r"names the same file as splits\.train\.shards\[0\]\.file"):
+        open_build(build)
+
+
+FOOTER_EDITS = {"file-total": (1000, {}), "row-group": (1000, {0: 1000}), "moved-between-groups": (0, {0: 1000, 1: -1000})}
+
+
+@pytest.mark.parametrize("edit", sorted(FOOTER_EDITS))
+def test_a_footer_promising_other_rows_than_its_pages_hold_is_refused(demo_build: Path, tmp_path: Path, edit: str) -> None:
+    """Parquet footer (Thrift compact protocol) edited, manifest rows and hash edited to match: opening or reading notices."""
+    build = copy_build(demo_build, tmp_path / "build")
+    shard = build / "shards" / "train" / "ngram-0002.parquet"
+    pq.write_table(pq.read_table(shard), shard, row_group_size=pq.ParquetFile(shard).metadata.num_rows // 2 + 1)
+    extra, groups = FOOTER_EDITS[edit]
+    hostile.inflate_parquet_rows(shard, extra, groups)
+
+    def match(manifest: dict) -> None:
+        entry = next(e for e in manifest["splits"]["train"]["shards"] if e["file"].endswith("ngram-0002.parquet"))
+        entry.update(rows=entry["rows"] + extra, sha256=hashlib.sha256(shard.read_bytes()).hexdigest())
+
+    edit_manifest(build, match)
+    with pytest.raises(BuildError, match=r"ngram-0002\.parquet: .*footer"):
+        opened = open_build(build, verify_hashes=True)
+        for _ in opened.batches("train", "ngram", 4096):
+            pass
+
+
+@pytest.mark.parametrize("metadata", [b'["not", "an object"]', b"[1, 2"], ids=["array", "broken-json"])
+def test_shard_metadata_that_is_not_a_json_object_is_refused(demo_build: Path, tmp_path: Path, metadata: bytes) -> None:
+    """The `corpusmill` key-value metadata must be a JSON object; anything else is not this workflow's shard."""
+    build = copy_build(demo_build, tmp_path / "build")
+    shard = build / "shards" / "train" / "ngram-0002.parquet"
+    table = pq.read_table(shard)
+    rewrite(shard, table.replace_schema_metadata({b"corpusmill": metadata}))
+    with pytest.raises(BuildError, match=r"ngram-0002\.parquet: its 'corpusmill' metadata is not a JSON object"):
+        open_build(build)
+
+
+def test_resolving_each_folder_once_agrees_with_os_path_realpath(tmp_path: Path) -> None:
+    """os.path.realpath as reference: names through symlinked files and folders, '.', '..' and missing files."""
+    root = tmp_path / "build"
+    (root / "shards" / "train").mkdir(parents=True)
+    (root / "shards" / "train" / "a.parquet").write_bytes(b"")
+    (root / "shards" / "train" / "b.parquet").symlink_to(root / "shards" / "train" / "a.parquet")
+    (root / "shards" / "train" / "up").symlink_to("..")
+    (root / "link").symlink_to(root / "shards")
+    (root / "out").symlink_to(tmp_path)
+    names = [
+        "shards/train/a.parquet", "shards/train/b.parquet", "link/train/a.parquet", "link/train/b.parquet",
+        "shards/train/../train/a.parquet", "shards/./train/a.parquet", "shards/train/up/train/a.parquet",
+        "shards/train/up", "out/elsewhere.parquet", "out/build/shards/train/a.parquet", "shards/..", ".", "shards/train/",
+        "missing/file.parquet", "link/../../outside.parquet",
+    ]  # fmt: skip
+    real, folders = root.resolve(), {}
+    for name in names:
+        target, problem = resolve_inside(real, name, folders)
+        expected = os.path.realpath(real / name)
+        assert str(target) == expected, name
+        assert (problem is None) == expected.startswith(f"{real}/"), name
