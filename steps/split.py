@@ -36,8 +36,13 @@ def fingerprint(text: str) -> bytes:
 
 
 def split_position(key: bytes, salt: str) -> float:
-    """A uniform number in [0, 1) drawn from the key and the salt."""
-    digest = hashlib.blake2b(key, digest_size=8, key=salt.encode("utf-8")[:64]).digest()
+    """A uniform number in [0, 1] drawn from the key and the salt (exactly 1.0 only where the
+    division rounds up). The salt is BLAKE2b's key, which holds at most 64 bytes: a longer
+    salt is hashed to 64 bytes first, so every byte of it counts."""
+    secret = salt.encode("utf-8")
+    if len(secret) > 64:
+        secret = hashlib.blake2b(secret, digest_size=64).digest()
+    digest = hashlib.blake2b(key, digest_size=8, key=secret).digest()
     return int.from_bytes(digest, "big") / _TWO_64
 
 
