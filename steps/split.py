@@ -54,7 +54,7 @@ def assign_split(key: bytes, salt: str, fractions: dict[str, float]) -> str:
         bound += fractions[name]
         if position < bound:
             return name
-    return SPLITS[-1] if fractions[SPLITS[-1]] > 0 else next(n for n in reversed(SPLITS) if fractions[n] > 0)
+    return next(name for name in reversed(SPLITS) if fractions[name] > 0)
 
 
 def doc_hash(doc_id: str) -> int:

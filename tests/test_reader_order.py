@@ -18,7 +18,7 @@ import pyarrow as pa
 import pyarrow.parquet as pq
 import pytest
 
-from steps.reader import open_build
+from steps.reader import open_build, to_numpy
 
 LENGTH = 3  # block rows hold LENGTH + 1 ids
 VOCABULARY = "id\ttoken\tcount\tkind\n0\t<pad>\t0\treserved\n1\t<unk>\t0\treserved\n2\t<s>\t0\treserved\n3\t</s>\t0\treserved\n"
@@ -224,3 +224,78 @@ def test_bad_batch_sizes_and_buffers_are_refused(tmp_path: Path) -> None:
     for rank, world_size in ((-1, 2), (0, 0), (3, 3)):
         with pytest.raises(ValueError, match=f"rank={rank}, world_size={world_size}"):
             build.rows("train", "ngram", rank, world_size)
+
+
+def test_the_default_shuffle_buffer_holds_65536_rows(tmp_path: Path) -> None:
+    """README: `shuffle_buffer=65536` rows by default; 70,000 rows in two row groups read with a
+    seed and no buffer argument follow the reference order for that size."""
+    groups = [[40_000, 30_000]]
+    build = open_build(write_numbered_build(tmp_path, "ngram", groups))
+    got = [n for b in build.batches("train", "ngram", 10_000, seed=6) for n in b["target"].tolist()]
+    assert got == reference_order(groups, 6, 0, 0, 1, 65_536)
+
+
+def test_more_workers_than_rows_leaves_some_workers_without_rows(tmp_path: Path) -> None:
+    """Three rows over five workers: ranges of 0 or 1 rows; a worker without rows yields no
+    batch, shuffled or not, and no error."""
+    build = open_build(write_numbered_build(tmp_path, "ngram", [[3]]))
+    for seed in (None, 8):
+        read = [[n for b in build.batches("train", "ngram", 2, seed=seed, rank=r, world_size=5) for n in numbers_of("ngram", b)] for r in range(5)]
+        assert read == [[], [0], [], [1], [2]]
+        assert [build.rows("train", "ngram", r, 5) for r in range(5)] == [0, 1, 0, 1, 1]
+
+
+def test_the_short_last_batch_is_cast_like_the_others(numbered) -> None:
+    """dtype applies to every batch, the last, shorter one included (78 rows in batches of 20)."""
+    kind, path = numbered
+    batches = list(open_build(path).batches("train", kind, 20, seed=1, shuffle_buffer=7, dtype=np.int64))
+    assert [len(numbers_of(kind, b)) for b in batches] == [20, 20, 20, 18]
+    assert {v.dtype for b in batches for k, v in b.items() if k != "doc_id"} == {np.dtype(np.int64)}
+
+
+def test_tables_default_to_epoch_zero(tmp_path: Path) -> None:
+    """Build.tables(seed=s) is the order of epoch 0, as batches' is."""
+    build = open_build(write_numbered_build(tmp_path, "ngram", GROUPS))
+
+    def order(**options: int) -> list[int]:
+        return [n for t in build.tables("train", "ngram", seed=3, **options) for n in t["target"].to_pylist()]
+
+    assert order() == order(epoch=0) != order(epoch=1)
+    assert order() == reference_order(GROUPS, 3, 0, 0, 1, 0)
+
+
+def test_a_range_starting_at_a_row_group_boundary_reads_no_group_before_it(tmp_path: Path, monkeypatch: pytest.MonkeyPatch) -> None:
+    """Worker 5 of 6 reads rows 65..77, which start exactly where a row group starts: it gets
+    that group and the next, decodes no other group, and opens each shard file once."""
+    build = open_build(write_numbered_build(tmp_path, "ngram", GROUPS))
+    opened, decoded = [], []
+    original_init, original_read = pq.ParquetFile.__init__, pq.ParquetFile.read_row_group
+    monkeypatch.setattr(pq.ParquetFile, "__init__", lambda self, source, *a, **k: opened.append(Path(source).name) or original_init(self, source, *a, **k))
+    monkeypatch.setattr(pq.ParquetFile, "read_row_group", lambda self, i, *a, **k: decoded.append(i) or original_read(self, i, *a, **k))
+    tables = list(build.tables("train", "ngram", rank=5, world_size=6))
+    assert [t["target"].to_pylist() for t in tables] == [list(range(65, 76)), [76, 77]]
+    assert opened == ["ngram-0003.parquet"] and decoded == [0, 1]
+    opened.clear()
+    assert sum(t.num_rows for t in build.tables("train", "ngram")) == 78
+    assert opened == [f"ngram-{part:04d}.parquet" for part in range(4)]
+
+
+def test_unshuffled_batches_inside_one_row_group_are_views_of_the_arrow_buffers(tmp_path: Path) -> None:
+    """The module docstring: without a cast or shuffle, a batch that lies inside one row group is
+    a read-only view (no copy); one that straddles two groups is a copy. Groups of 10 rows in
+    batches of 5: every batch is a view; batches of 4 straddle at rows 8..11."""
+    build = open_build(write_numbered_build(tmp_path, "ngram", [[10, 10]]))
+    fives = list(build.batches("train", "ngram", 5))
+    assert [b["target"].tolist()[0] for b in fives] == [0, 5, 10, 15]
+    assert not any(b["context"].flags.owndata or b["target"].flags.owndata for b in fives)
+    fours = list(build.batches("train", "ngram", 4))
+    assert [b["target"].flags.owndata for b in fours] == [False, False, True, False, False]
+
+
+def test_to_numpy_reads_every_chunk_of_a_table(numbered) -> None:
+    """A table read whole or concatenated has several chunks per column; to_numpy takes them all."""
+    kind, path = numbered
+    table = pq.read_table(path / "shards" / "train" / f"{kind}-0000.parquet")
+    joined = pa.concat_tables([table.slice(0, 5), table.slice(5, 3), table.slice(8)])
+    assert joined.column(0).num_chunks > 1
+    assert numbers_of(kind, to_numpy(kind, joined)) == list(range(21))

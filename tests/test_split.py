@@ -192,6 +192,14 @@ def test_first_occurrences_match_a_first_seen_dict():
     assert first_occurrences(np.empty((0, 2), np.uint64))[0].size == 0
 
 
+def test_rows_equal_in_one_word_only_are_not_repeats_even_when_sorted_side_by_side():
+    """Fingerprints (5, 7) and (6, 7) share their second 64-bit word and sort next to each
+    other; (3, 9) and (3, 8) share the first. None repeats another; the exact pair (6, 7) does."""
+    words = np.array([[5, 7], [6, 7], [3, 9], [3, 8], [6, 7]], dtype=np.uint64)
+    rows, owners = first_occurrences(words)
+    assert (rows.tolist(), owners.tolist()) == ([4], [1])
+
+
 def test_duplicates_follow_offsets_not_storage_order(tmp_path):
     """Prepared chunks store rows by split and doc_hash; "first" still means first by offset."""
     write_table(tmp_path / "a.parquet", pa.table({
@@ -244,6 +252,14 @@ def test_order_keys_are_a_seeded_splitmix64_mix_of_the_doc_hash():
         assert keys.tolist() == [reference_mix(h ^ reference_mix(seed)) for h in hashes]
     assert len(set(order_keys(np.array(hashes, dtype=np.uint64), 3).tolist())) == len(set(hashes)), "a bijection"
     assert order_keys(np.array(hashes, np.uint64), 1).tolist() != order_keys(np.array(hashes, np.uint64), 2).tolist()
+
+
+def test_order_seeds_of_any_size_are_taken_modulo_2_to_the_64():
+    """shards.seed has no upper bound in the schema; the mix takes a seed modulo 2**64 (Python's
+    & on a negative int is two's complement), so 2**64 + 5 and 5, or -1 and 2**64 - 1, order alike."""
+    hashes = np.array([0, 1, 12345, (1 << 64) - 1], np.uint64)
+    assert order_keys(hashes, -1).tolist() == order_keys(hashes, (1 << 64) - 1).tolist()
+    assert order_keys(hashes, (1 << 64) + 5).tolist() == order_keys(hashes, 5).tolist() == [reference_mix(int(h) ^ reference_mix(5)) for h in hashes]
 
 
 def test_read_part_returns_exactly_its_part_and_skips_other_row_groups(tmp_path, monkeypatch):

@@ -87,11 +87,13 @@ def test_windows_streams_and_blocks_keep_the_id_type_of_their_input():
     for ids, lengths, per_doc in ((np.array([5, 6, 7], np.uint16), np.array([3]), np.array([1])), (np.empty(0, np.uint16), np.empty(0, np.int64), np.empty(0, np.int64))):
         context, target = ngram_windows(ids, lengths, 3, BOS, EOS)
         stream, doc_lengths = document_streams(ids, lengths, per_doc, BOS, EOS)
-        blocks = document_blocks(stream, doc_lengths, 8, 8, "drop", PAD)
-        corpus = CorpusBlocks(2, 2, "pad", PAD)
+        blocks = document_blocks(stream, doc_lengths, 3, 3, "pad", PAD)
+        corpus = CorpusBlocks(3, 3, "pad", PAD)
         joined = [corpus.feed(stream), corpus.finish()]
         assert {a.dtype for a in (context, target, stream, blocks, *joined)} == {np.dtype(np.uint16)}
-        assert context.shape[1] == 2 and blocks.shape[1] == 9 and all(b.shape[1] == 3 for b in joined)
+        assert context.shape[1] == 2 and all(b.shape[1] == 4 for b in (blocks, *joined))
+    assert blocks.shape == joined[1].shape == (0, 4) and joined[0].shape == (0, 4)  # the empty input
+    assert document_blocks(np.array([2, 5, 6, 7, 3], np.uint16), np.array([5]), 3, 3, "pad", PAD).tolist() == [[2, 5, 6, 7], [7, 3, PAD, PAD]]
 
 
 def test_document_blocks_match_the_reference_for_every_stride_and_remainder():
@@ -124,8 +126,8 @@ def test_corpus_blocks_match_the_reference_over_the_joined_stream():
 def test_corpus_blocks_pad_the_last_block_only_when_it_holds_a_target():
     """Two ids left (one input, one target) give a padded block; one id left gives none."""
     blocks = CorpusBlocks(4, 4, "pad", PAD)
-    assert blocks.feed(np.arange(1, 8)).tolist() == [[1, 2, 3, 4, 5]]
-    assert blocks.finish().tolist() == [[5, 6, 7, PAD, PAD]]
+    assert blocks.feed(np.arange(1, 7)).tolist() == [[1, 2, 3, 4, 5]]
+    assert blocks.finish().tolist() == [[5, 6, PAD, PAD, PAD]]
     one_left = CorpusBlocks(4, 4, "pad", PAD)
     assert one_left.feed(np.arange(1, 6)).tolist() == [[1, 2, 3, 4, 5]]
     assert one_left.finish().shape == (0, 5)
