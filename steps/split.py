@@ -36,9 +36,9 @@ def fingerprint(text: str) -> bytes:
 
 
 def split_position(key: bytes, salt: str) -> float:
-    """A uniform number in [0, 1] drawn from the key and the salt (exactly 1.0 only where the
-    division rounds up). The salt is BLAKE2b's key, which holds at most 64 bytes: a longer
-    salt is hashed to 64 bytes first, so every byte of it counts."""
+    """A uniform number in [0, 1] drawn from the key and the salt (1.0 only for the largest
+    hashes, where the float division rounds up). The salt is BLAKE2b's key, which holds at
+    most 64 bytes: a longer salt is hashed to 64 bytes first, so every byte of it counts."""
     secret = salt.encode("utf-8")
     if len(secret) > 64:
         secret = hashlib.blake2b(secret, digest_size=64).digest()

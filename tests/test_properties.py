@@ -97,7 +97,8 @@ def test_streams_and_blocks_equal_the_plain_python_cut(
     assert corpus.tolist() == reference_blocks(stream.tolist(), length, stride, remainder, pad)
 
 
-DOCUMENTS = st.lists(st.text(st.characters(exclude_categories=("Cs",)), min_size=1, max_size=60), min_size=1, max_size=12)
+# Mostly letters, so that most documents pass the cleaning filters and get a split.
+DOCUMENTS = st.lists(st.text(st.characters(categories=("Lu", "Ll", "Lo", "Mn", "Nd", "Zs", "Po")), min_size=1, max_size=60), min_size=1, max_size=12)
 
 
 @given(old=DOCUMENTS, new=DOCUMENTS, salt=st.text(max_size=80), key=st.sampled_from(["content", "id"]))
