@@ -30,8 +30,6 @@ MAX_CONFIG_VALUES = 100_000
 # <name> a path variable) and libraries that read ~ or a scheme: so letters and digits of any
 # script, spaces and a few marks only, and no leading '-' (it would read as an option).
 _SAFE_BUILD_DIR = regex.compile(r"[\p{L}\p{M}\p{N} ._+@,=/-]+", regex.V1)
-# The split hash is keyed with the salt, and a BLAKE2b key holds at most 64 bytes.
-MAX_SALT_BYTES = 64
 
 
 def load_schema() -> dict[str, Any]:
@@ -160,12 +158,7 @@ def resolve(raw: dict[str, Any]) -> dict[str, Any]:
     if fractions["train"] <= 0:
         raise ConfigError("invalid configuration: split.fractions.train = 0: allowed: a share > 0 (the vocabulary is counted on train)")
     _check_build_dir(config["build_dir"])
-    salt = config["split"]["salt"]
-    if len(salt.encode("utf-8")) > MAX_SALT_BYTES:
-        raise ConfigError(
-            f"invalid configuration: split.salt = {json.dumps(salt, ensure_ascii=False)}: allowed: at most "
-            f"{MAX_SALT_BYTES} bytes of UTF-8 (the split hash is keyed with it)"
-        )
+
     blocks = config["windows"]["blocks"]
     if blocks["stride"] > blocks["length"] + 1:
         raise ConfigError(

@@ -38,8 +38,13 @@ def fingerprint(text: str) -> bytes:
 
 
 def split_position(key: bytes, salt: str) -> float:
-    """A uniform number in [0, 1) drawn from the key and the salt."""
-    digest = hashlib.blake2b(key, digest_size=8, key=salt.encode("utf-8")[:64]).digest()
+    """A uniform number in [0, 1] drawn from the key and the salt (1.0 only for the largest
+    hashes, where the float division rounds up). The salt is BLAKE2b's key, which holds at
+    most 64 bytes: a longer salt is hashed to 64 bytes first, so every byte of it counts."""
+    secret = salt.encode("utf-8")
+    if len(secret) > 64:
+        secret = hashlib.blake2b(secret, digest_size=64).digest()
+    digest = hashlib.blake2b(key, digest_size=8, key=secret).digest()
     return int.from_bytes(digest, "big") / _TWO_64
 
 
@@ -51,7 +56,7 @@ def assign_split(key: bytes, salt: str, fractions: dict[str, float]) -> str:
         bound += fractions[name]
         if position < bound:
             return name
-    return SPLITS[-1] if fractions[SPLITS[-1]] > 0 else next(n for n in reversed(SPLITS) if fractions[n] > 0)
+    return next(name for name in reversed(SPLITS) if fractions[name] > 0)
 
 
 def doc_hash(doc_id: str) -> int:

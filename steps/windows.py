@@ -65,14 +65,10 @@ def document_streams(
     return stream, doc_lengths
 
 
-def _block_starts(length: int, span: int, stride: int, pad: bool) -> np.ndarray:
-    """Block starts within a stream of `length` ids for blocks of `span` ids."""
+def _block_starts(length: int, span: int, stride: int) -> np.ndarray:
+    """Starts of the whole blocks of `span` ids within a stream of `length` ids."""
     full = (length - span) // stride + 1 if length >= span else 0
-    starts = np.arange(full, dtype=np.int64) * stride
-    rest = full * stride
-    if pad and length - rest >= 2:
-        starts = np.append(starts, rest)
-    return starts
+    return np.arange(full, dtype=np.int64) * stride
 
 
 def document_blocks(
@@ -124,7 +120,7 @@ class CorpusBlocks:
         """Blocks completed by appending `stream`; the rest waits for more ids."""
         buffer = np.concatenate([self._pending.astype(stream.dtype), stream])
         span = self.length + 1
-        starts = _block_starts(len(buffer), span, self.stride, pad=False)
+        starts = _block_starts(len(buffer), span, self.stride)
         taken = len(starts) * self.stride
         self._pending = buffer[taken:]
         self.fed += len(stream)

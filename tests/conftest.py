@@ -13,9 +13,26 @@ os.environ.setdefault("OPENBLAS_NUM_THREADS", "1")
 
 import pytest
 import yaml
+from hypothesis import settings
+
+# Property tests: a few dozen examples per test locally, many more in CI (CI=true); a fixed
+# sequence of examples for the mutation check, so a mutant is killed or not the same way on
+# every run. HYPOTHESIS_PROFILE names one of them explicitly.
+settings.register_profile("dev", max_examples=60, deadline=None)
+settings.register_profile("ci", max_examples=1000, deadline=None)
+settings.register_profile("mutation", max_examples=60, deadline=None, derandomize=True, database=None)
+settings.load_profile(os.environ.get("HYPOTHESIS_PROFILE") or ("ci" if os.environ.get("CI") == "true" else "dev"))
 
 REPO = Path(__file__).resolve().parent.parent
 DEMO = REPO / "demo_raw"
+
+
+def pytest_collection_modifyitems(items: list[pytest.Item]) -> None:
+    """Mark the tests that need the demo corpus built by the real workflow, so that quick runs
+    (the mutation check among them) can leave them out with `-m "not demo_build"`."""
+    for item in items:
+        if "demo_build" in getattr(item, "fixturenames", ()):
+            item.add_marker(pytest.mark.demo_build)
 
 
 def run_workflow(

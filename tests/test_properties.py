@@ -1,8 +1,9 @@
 """Property-based tests (hypothesis) over random Unicode text and id sequences.
 
 Outside reference: hypothesis draws the inputs; each property is a definition the functions
-must meet for every input (lossless tokenization, id range, window and block shapes, split
-stability), not an example.
+must meet for every input (lossless tokenization, id range, windows, streams and blocks equal
+to plain-Python references, split stability), not an example. The number of examples comes
+from the hypothesis profile chosen in conftest.py (few locally, many under CI=true).
 """
 
 from __future__ import annotations
@@ -10,20 +11,21 @@ from __future__ import annotations
 import numpy as np
 import pyarrow as pa
 import regex
-from hypothesis import given, settings
+from hypothesis import given
 from hypothesis import strategies as st
 
+from steps.clean import CleanOptions, clean_text
 from steps.segment import Segmenter, is_lossless
-from steps.split import assign_split
+from steps.split import assign_split, fingerprint
 from steps.vocab import Cutoff, Lookup, build_vocabulary, sort_by_frequency
 from steps.windows import CorpusBlocks, document_blocks, document_streams, ngram_windows
+from tests.test_split import prepared_splits
+from tests.test_windows import reference_blocks, reference_stream
 
-FAST = settings(max_examples=60, deadline=None)
 TEXT = st.text(st.characters(exclude_categories=("Cs",)), max_size=200)
 WORDS = st.lists(st.text(st.characters(exclude_categories=("Cs", "Zs", "Cc")), min_size=1, max_size=6), min_size=1, max_size=40)
 
 
-@FAST
 @given(text=TEXT, words=st.sampled_from(["uax29", "pattern"]), apostrophes=st.sampled_from(["keep", "split"]),
        hyphens=st.sampled_from(["keep", "split"]))  # fmt: skip
 def test_tokenization_is_lossless_up_to_whitespace(text: str, words: str, apostrophes: str, hyphens: str) -> None:
@@ -34,7 +36,6 @@ def test_tokenization_is_lossless_up_to_whitespace(text: str, words: str, apostr
     assert all(token and not regex.search(r"\s", token) for token in tokens)  # Unicode White_Space
 
 
-@FAST
 @given(train=WORDS, queries=WORDS, min_count=st.integers(1, 3), unknown=st.sampled_from(["single", "shape"]))
 def test_every_token_maps_to_an_id_inside_the_vocabulary(train: list[str], queries: list[str], min_count: int, unknown: str) -> None:
     """0 <= id < |V| for words seen and unseen; a kept word maps to its own row."""
@@ -53,7 +54,6 @@ def test_every_token_maps_to_an_id_inside_the_vocabulary(train: list[str], queri
 SENTENCES = st.lists(st.lists(st.integers(10, 500), min_size=1, max_size=12), min_size=0, max_size=8)
 
 
-@FAST
 @given(sentences=SENTENCES, n=st.integers(2, 6), predict_end=st.booleans())
 def test_ngram_windows_hold_n_minus_1_context_ids_and_one_row_per_target(sentences: list[list[int]], n: int, predict_end: bool) -> None:
     """One row per token (plus </s> per sentence), context = the n-1 ids before it, <s>-padded."""
@@ -72,39 +72,46 @@ def test_ngram_windows_hold_n_minus_1_context_ids_and_one_row_per_target(sentenc
             row += 1
 
 
-@FAST
 @given(sentences=SENTENCES, per_doc=st.integers(1, 3), length=st.integers(1, 16), stride_part=st.floats(0.1, 1.0),
-       remainder=st.sampled_from(["drop", "pad"]))  # fmt: skip
-def test_blocks_hold_length_plus_one_ids_from_the_stream(sentences: list[list[int]], per_doc: int, length: int, stride_part: float, remainder: str) -> None:
-    """Every block has L+1 ids; document blocks are windows of one document's stream, pad-filled."""
+       remainder=st.sampled_from(["drop", "pad"]), cuts=st.lists(st.integers(0, 200), max_size=6))  # fmt: skip
+def test_streams_and_blocks_equal_the_plain_python_cut(
+    sentences: list[list[int]], per_doc: int, length: int, stride_part: float, remainder: str, cuts: list[int]
+) -> None:
+    """Streams are <s> s1 </s> s2 </s> … per document; document blocks cut each document's
+    stream alone; corpus blocks cut the joined stream, however it is fed (the references in
+    test_windows.py)."""
     pad, bos, eos = 0, 2, 3
     stride = max(1, min(length + 1, round(stride_part * (length + 1))))
+    documents = [sentences[i : i + per_doc] for i in range(0, len(sentences), per_doc)]
     ids = np.array([i for s in sentences for i in s], np.int64)
     lengths = np.array([len(s) for s in sentences], np.int64)
-    documents = [len(sentences[i : i + per_doc]) for i in range(0, len(sentences), per_doc)]
-    stream, doc_lengths = document_streams(ids, lengths, np.array(documents, np.int64), bos, eos)
+    stream, doc_lengths = document_streams(ids, lengths, np.array([len(d) for d in documents], np.int64), bos, eos)
+    assert stream.tolist() == reference_stream(documents, bos, eos)
+    assert doc_lengths.tolist() == [len(reference_stream([d], bos, eos)) for d in documents]
     blocks = document_blocks(stream, doc_lengths, length, stride, remainder, pad)
-    assert blocks.shape[1] == length + 1
-    starts = np.concatenate([[0], np.cumsum(doc_lengths)])
-    for block in blocks:
-        body = block.tolist()
-        while body and body[-1] == pad:
-            body.pop()
-        assert any(
-            body == stream[a:b].tolist()[k : k + len(body)] for a, b in zip(starts[:-1], starts[1:]) for k in range(0, b - a, stride)
-        )
+    expected = [b for d in documents for b in reference_blocks(reference_stream([d], bos, eos), length, stride, remainder, pad)]
+    assert blocks.reshape(-1, length + 1).tolist() == expected
     joined = CorpusBlocks(length, stride, remainder, pad)
-    corpus = np.concatenate([joined.feed(stream), joined.finish()])
-    assert corpus.shape[1] == length + 1
+    pieces = np.split(stream, sorted({c for c in cuts if c < len(stream)}))
+    corpus = np.concatenate([*(joined.feed(piece) for piece in pieces), joined.finish()])
+    assert corpus.tolist() == reference_blocks(stream.tolist(), length, stride, remainder, pad)
 
 
-@FAST
-@given(old=st.lists(st.binary(min_size=1, max_size=16), min_size=1, max_size=30, unique=True),
-       new=st.lists(st.binary(min_size=1, max_size=16), max_size=30), salt=st.text(max_size=10))  # fmt: skip
-def test_a_documents_split_does_not_change_when_documents_are_added(old: list[bytes], new: list[bytes], salt: str) -> None:
-    """The split is a function of the key and salt alone: adding documents moves none."""
-    fractions = {"train": 0.8, "dev": 0.1, "test": 0.1}
-    before = {key: assign_split(key, salt, fractions) for key in old}
-    after = {key: assign_split(key, salt, fractions) for key in [*new, *reversed(old)]}
-    assert all(after[key] == split for key, split in before.items())
-    assert set(after.values()) <= {"train", "dev", "test"}
+# Mostly letters, so that most documents pass the cleaning filters and get a split.
+DOCUMENTS = st.lists(st.text(st.characters(categories=("Lu", "Ll", "Lo", "Mn", "Nd", "Zs", "Po")), min_size=1, max_size=60), min_size=1, max_size=12)
+
+
+@given(old=DOCUMENTS, new=DOCUMENTS, salt=st.text(max_size=80), key=st.sampled_from(["content", "id"]))
+def test_a_documents_split_does_not_change_when_documents_are_added(old: list[str], new: list[str], salt: str, key: str) -> None:
+    """The prepare step assigns every kept document the split of its own key and the salt
+    (assign_split as the reference), whatever documents come before or after it."""
+    fractions = {"train": 0.6, "dev": 0.2, "test": 0.2}
+    before = [(f"old.txt:{i}", text) for i, text in enumerate(old)]
+    after = [(f"new.txt:{i}", text) for i, text in enumerate(new)]
+    alone = prepared_splits(before, key=key, salt=salt, fractions=fractions)
+    among = prepared_splits(after[:3] + before[::-1] + after[3:], key=key, salt=salt, fractions=fractions)
+    assert {doc_id: among[doc_id] for doc_id in alone} == alone
+    for doc_id, text in before:
+        if doc_id in alone:
+            reference = fingerprint(clean_text(text, CleanOptions())) if key == "content" else doc_id.encode("utf-8")
+            assert alone[doc_id] == assign_split(reference, salt, fractions)

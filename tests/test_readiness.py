@@ -11,12 +11,15 @@ few hundred steps suffice.
 
 from __future__ import annotations
 
+import json
 from dataclasses import dataclass
 from pathlib import Path
 
 import numpy as np
+import pyarrow.parquet as pq
 
 from steps.reader import open_build
+from steps.vocab import read_vocabulary
 
 Params = dict[str, np.ndarray]
 
@@ -116,8 +119,36 @@ def test_hand_written_gradients_match_central_finite_differences() -> None:
             assert abs((plus - minus) / (2 * step) - grads[name][index]) < 1e-6, (name, index)
 
 
+def heldout_windows(build_dir: Path, split: str, n: int) -> tuple[np.ndarray, np.ndarray]:
+    """(context, target) of every n-gram of a split, cut here from its stream shards (read with
+    pyarrow, not through steps.reader): each document is <s> s1 </s> s2 </s> …, and every
+    sentence gives one row per id and one for </s>, its context the n-1 ids before, <s>-padded."""
+    manifest = json.loads((build_dir / "manifest.json").read_text())
+    tokens = read_vocabulary(build_dir / "vocabulary.tsv").tokens
+    bos, eos = tokens.index("<s>"), tokens.index("</s>")
+    context, target = [], []
+    for entry in manifest["splits"][split]["shards"]:
+        if entry["kind"] != "stream":
+            continue
+        for ids in pq.read_table(build_dir / entry["file"], columns=["ids"])["ids"].to_pylist():
+            assert ids[0] == bos and ids[-1] == eos
+            sentence: list[int] = []
+            for token in ids[1:]:
+                sentence.append(token)
+                if token == eos:
+                    padded = [bos] * (n - 1) + sentence
+                    context += [padded[i : i + n - 1] for i in range(len(sentence))]
+                    target += sentence
+                    sentence = []
+    return np.array(context, np.int64), np.array(target, np.int64)
+
+
 def test_a_neural_language_model_trained_on_the_demo_shards_beats_the_unigram_baseline(demo_build: Path) -> None:
     """Bengio et al. (2003) feed-forward model vs the add-one unigram model from the same train counts.
+
+    Trained on the train n-gram shards through steps.reader; judged on held-out n-grams that the
+    test cuts itself from the dev documents (the stream shards), so a build whose windows let
+    the target into its context trains a model that copies it and fails here.
 
     Unigram counts: vocabulary.tsv's train counts (words and unknown classes), with </s> counted
     once per train sentence from the manifest because windows predict the end of each sentence
@@ -133,11 +164,12 @@ def test_a_neural_language_model_trained_on_the_demo_shards_beats_the_unigram_ba
     assert info["predict_end"], "the baseline below counts </s> as a target"
     counts = build.vocabulary.counts.astype(np.float64)
     counts[build.vocabulary.id("</s>")] = build.manifest["splits"]["train"]["sentences"]
-    dev = next(build.batches("dev", "ngram", build.rows("dev", "ngram"), dtype=np.int64))
-    baseline = unigram_perplexity(counts, dev["target"])
+    context, target = heldout_windows(demo_build, "dev", info["n"])
+    assert len(target) == build.rows("dev", "ngram") > 1000
+    baseline = unigram_perplexity(counts, target)
 
     model = FeedForwardLM.initialise(build.vocabulary.size, info["n"] - 1, width=32, hidden=64, seed=2003)
-    start = model.perplexity(dev["context"], dev["target"])
+    start = model.perplexity(context, target)
     optimiser = Adam(model.params, rate=0.01)
     losses, epoch = [], 0
     while optimiser.steps < 300:
@@ -148,7 +180,7 @@ def test_a_neural_language_model_trained_on_the_demo_shards_beats_the_unigram_ba
             if optimiser.steps == 300:
                 break
         epoch += 1
-    final = model.perplexity(dev["context"], dev["target"])
+    final = model.perplexity(context, target)
 
     assert start > 0.5 * build.vocabulary.size  # untrained: close to uniform over V ids
     assert np.mean(losses[-50:]) < np.mean(losses[:50])

@@ -7,6 +7,7 @@ import html
 import json
 import re
 import struct
+from collections import Counter
 from pathlib import Path
 
 import numpy as np
@@ -14,7 +15,7 @@ import pyarrow.parquet as pq
 import pytest
 
 from conftest import REPO
-from steps.laws import ModelSize
+from steps.laws import ModelSize, fit_heaps, fit_zipf
 from steps.report_page import coverage_curve, main, table
 from steps.summary import format_table
 
@@ -83,7 +84,10 @@ def test_report_page_is_byte_identical_when_written_again(demo_build: Path, tmp_
 
 
 def test_report_page_shows_the_build_figures(demo_build: Path) -> None:
-    """The page states what coverage.json and the manifest hold, and the sizing of the chosen |V|."""
+    """The page states what coverage.json and the manifest hold, the sizing of the chosen |V|,
+    and the Zipf and Heaps fits (steps.laws, checked against exact power laws in test_laws) of
+    a Counter recount of the train tokens and of growth.json (checked against a set recount in
+    test_growth)."""
     page = (demo_build / "report" / "index.html").read_text(encoding="utf-8")
     stats = json.loads((demo_build / "stats" / "coverage.json").read_text())
     manifest = json.loads((demo_build / "manifest.json").read_text())
@@ -94,7 +98,21 @@ def test_report_page_shows_the_build_figures(demo_build: Path) -> None:
     for width in OPTIONS["report"]["embedding_widths"]:
         size = ModelSize(stats["vocabulary_size"], width, 3, 100)
         assert f"{size.parameters:,} (" in page and f"{size.embedding_parameters:,} (" in page
-    assert re.search(r"Zipf exponent s = \d\.\d{3}", page) and re.search(r"β = 0\.\d{3}", page)
+    zipf, _, _ = fit_zipf(np.array(list(train_recount(demo_build).values())))
+    growth = json.loads((demo_build / "stats" / "growth.json").read_text())
+    heaps = fit_heaps(np.array(growth["read"]), np.array(growth["distinct"]))
+    assert f"Zipf exponent s = {zipf.exponent:.3f}" in page and f"β = {heaps.exponent:.3f}" in page
+    assert 0.5 < zipf.exponent < 2 and 0 < heaps.exponent < 1
+
+
+def train_recount(build: Path) -> Counter:
+    """collections.Counter of the train tokens of the kept documents, from the prepared chunks."""
+    removed = {(r["source"], r["offset"]) for r in pq.read_table(build / "interim" / "duplicates.parquet").to_pylist()}
+    counts: Counter = Counter()
+    for row in corpus_rows(build, ["split", "tokens"]):
+        if row["split"] == "train" and (row["source"], row["offset"]) not in removed:
+            counts.update(token for sentence in row["tokens"] for token in sentence)
+    return counts
 
 
 def test_coverage_curve_agrees_with_the_size_table(demo_build: Path) -> None:

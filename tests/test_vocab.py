@@ -53,6 +53,37 @@ def test_cutoffs_by_count_size_and_coverage_combine():
     assert choose_size(train, Cutoff()) == 8
 
 
+def test_words_never_seen_in_train_are_never_kept():
+    """Only train counts choose the vocabulary: words seen only in dev or test (train count 0)
+    stay out under every limit, also with none set."""
+    train = np.array([9, 4, 1, 0, 0])
+    assert choose_size(train, Cutoff()) == 3
+    assert choose_size(train, Cutoff(max_size=5)) == 3
+    assert choose_size(train, Cutoff(min_count=0)) == 3
+    assert choose_size(np.zeros(4, np.int64), Cutoff(coverage=0.5)) == 0
+    vocabulary = build_vocabulary(counts_table({"seen": 3}, dev={"held": 5}), Cutoff(), "single")
+    assert vocabulary.tokens[4:] == ["seen"]
+
+
+def test_a_coverage_met_exactly_keeps_the_prefix_that_meets_it_despite_float_rounding():
+    """0.07 × 100,000 is 7000.000000000001 in floating point; two words of 3,500 cover exactly
+    7% of 100,000 tokens, so two words are kept, not three (hand count)."""
+    train = np.array([3500] * 28 + [2000])
+    assert train.sum() == 100_000 and 0.07 * 100_000 > 7000
+    assert choose_size(train, Cutoff(coverage=0.07)) == 2
+    assert choose_size(train, Cutoff(coverage=0.0701)) == 3
+    assert choose_size(train, Cutoff(coverage=1.0)) == 29
+
+
+def test_rows_carry_their_kind_and_reserved_symbols_count_zero():
+    """vocabulary.tsv's kind column: reserved, unknown, word; <pad>, <s> and </s> never occur
+    in the text (count 0), <unk> and the classes count the train tokens they stand for."""
+    vocabulary = build_vocabulary(counts_table(TRAIN), Cutoff(min_count=2), "shape")
+    assert vocabulary.kinds == ["reserved"] * 4 + ["unknown"] * 5 + ["word"] * 4
+    assert [vocabulary.counts[i] for i in (0, 2, 3)] == [0, 0, 0]
+    assert sum(vocabulary.counts[1:9]) == sum(c for c in TRAIN.values() if c < 2)
+
+
 def test_shape_classes_for_rare_words():
     assert [unknown_class(t) for t in ["1,200", "ice-cold", "NASA", "Tüvvik", "!!", "rare"]] == [
         "<unk-digits>", "<unk-hyphenated>", "<unk-upper>", "<unk-title>", "<unk-symbol>", UNK,
@@ -66,6 +97,18 @@ def test_lookup_maps_known_words_and_classes_unknown_ones():
     assert names == ["the", "Oréla", "<unk-digits>", "<unk-title>", "<unk>", "<unk-symbol>"]
     single = build_vocabulary(counts_table(TRAIN), Cutoff(min_count=2), "single")
     assert Lookup(single, "single").ids(pa.array(["Zed", "the"])).tolist() == [1, 4]
+
+
+def test_lookup_follows_the_configured_unknown_mode_whatever_the_vocabulary_holds():
+    """A vocabulary made under the other mode (a frozen file reused): with unknown = single
+    every OOV word maps to <unk> even when shape classes exist; with unknown = shape, classes
+    the vocabulary lacks fall back to <unk>."""
+    shaped = build_vocabulary(counts_table(TRAIN), Cutoff(min_count=2), "shape")
+    words = pa.array(["1,200", "Zed", "the", "unseen", "!!"])
+    assert [shaped.tokens[i] for i in Lookup(shaped, "single").ids(words)] == ["<unk>", "<unk>", "the", "<unk>", "<unk>"]
+    single = build_vocabulary(counts_table(TRAIN), Cutoff(min_count=2), "single")
+    assert [single.tokens[i] for i in Lookup(single, "shape").ids(words)] == ["<unk>", "<unk>", "the", "<unk>", "<unk>"]
+    assert Lookup(shaped, "shape").ids(pa.array(["the", "the"])).tolist() == [9, 9]
 
 
 def test_unknown_class_counts_match_a_counter_recount():

@@ -48,37 +48,105 @@ def test_n_of_four_gives_exactly_three_context_ids():
     assert context.shape[1] == 3 and context[0].tolist() == [BOS, BOS, BOS]
 
 
+def reference_stream(documents, bos=BOS, eos=EOS):
+    """A plain-Python reference: each document as <s> s1 </s> s2 </s> …, laid end to end."""
+    return [i for document in documents for i in [bos] + [i for sentence in document for i in sentence + [eos]]]
+
+
+def reference_blocks(ids, length, stride, remainder, pad=PAD):
+    """A plain-Python reference: L+1 ids every `stride` ids while whole blocks fit; then, with
+    "pad", the ids left (when at least two, so there is a target) padded with <pad>."""
+    span, blocks, start = length + 1, [], 0
+    while start + span <= len(ids):
+        blocks.append(list(ids[start : start + span]))
+        start += stride
+    if remainder == "pad" and len(ids) - start >= 2:
+        blocks.append(list(ids[start:]) + [pad] * (span - (len(ids) - start)))
+    return blocks
+
+
 def test_streams_mark_document_and_sentence_ends():
     stream, lengths = document_streams(np.array([5, 6, 7, 8, 9]), np.array([2, 1, 2]), np.array([2, 1]), BOS, EOS)
     assert stream.tolist() == [BOS, 5, 6, EOS, 7, EOS, BOS, 8, 9, EOS]
     assert lengths.tolist() == [6, 4]
 
 
-def test_blocks_within_documents_drop_or_pad_the_remainder():
-    stream = np.arange(100, 110)
-    lengths = np.array([7, 3])
-    dropped = document_blocks(stream, lengths, 3, 3, "drop", PAD)
-    assert dropped.tolist() == [[100, 101, 102, 103], [103, 104, 105, 106]]
-    padded = document_blocks(stream, lengths, 3, 3, "pad", PAD)
-    assert padded.tolist() == [[100, 101, 102, 103], [103, 104, 105, 106], [107, 108, 109, PAD]]
-    assert all(len(b) == 4 for b in padded)
+def test_streams_match_the_reference_for_uneven_sentences_and_documents():
+    """Documents of one to three sentences of one to six ids each, against the reference."""
+    documents = [[[10, 11, 12, 13, 14, 15]], [[20], [21, 22, 23], [24]], [[30, 31], [32]], [[40, 41, 42, 43]]]
+    sentences = [s for d in documents for s in d]
+    stream, lengths = document_streams(
+        np.array([i for s in sentences for i in s], np.uint16), np.array([len(s) for s in sentences]), np.array([len(d) for d in documents]), BOS, EOS
+    )
+    assert stream.tolist() == reference_stream(documents)
+    assert lengths.tolist() == [len(reference_stream([d])) for d in documents]
+    assert stream.dtype == np.uint16
 
 
-def test_every_id_is_predicted_once_when_stride_equals_length():
-    stream = np.arange(1, 23)
-    blocks = document_blocks(stream, np.array([22]), 4, 4, "pad", PAD)
-    targets = [t for b in blocks for t in b[1:] if t != PAD]
-    assert targets == list(range(2, 23))
+def test_windows_streams_and_blocks_keep_the_id_type_of_their_input():
+    """Shard jobs cut rows in the shard's own id type (uint16 for |V| <= 65,536) to keep their
+    memory low; every function returns that type, also when there is nothing to cut."""
+    for ids, lengths, per_doc in ((np.array([5, 6, 7], np.uint16), np.array([3]), np.array([1])), (np.empty(0, np.uint16), np.empty(0, np.int64), np.empty(0, np.int64))):
+        context, target = ngram_windows(ids, lengths, 3, BOS, EOS)
+        stream, doc_lengths = document_streams(ids, lengths, per_doc, BOS, EOS)
+        blocks = document_blocks(stream, doc_lengths, 3, 3, "pad", PAD)
+        corpus = CorpusBlocks(3, 3, "pad", PAD)
+        joined = [corpus.feed(stream), corpus.finish()]
+        assert {a.dtype for a in (context, target, stream, blocks, *joined)} == {np.dtype(np.uint16)}
+        assert context.shape[1] == 2 and all(b.shape[1] == 4 for b in (blocks, *joined))
+    assert blocks.shape == joined[1].shape == (0, 4) and joined[0].shape == (0, 4)  # the empty input
+    assert document_blocks(np.array([2, 5, 6, 7, 3], np.uint16), np.array([5]), 3, 3, "pad", PAD).tolist() == [[2, 5, 6, 7], [7, 3, PAD, PAD]]
 
 
-def test_corpus_blocks_span_documents_and_batches_consistently():
-    stream = np.arange(1, 40)
-    whole = CorpusBlocks(5, 5, "pad", PAD)
-    expected = np.concatenate([whole.feed(stream), whole.finish()])
-    pieces = CorpusBlocks(5, 5, "pad", PAD)
-    got = np.concatenate([pieces.feed(stream[:7]), pieces.feed(stream[7:8]), pieces.feed(stream[8:]), pieces.finish()])
-    assert got.tolist() == expected.tolist()
-    assert got[-1].tolist()[-1] == PAD and got.shape[1] == 6
+def test_document_blocks_match_the_reference_for_every_stride_and_remainder():
+    """Each document's stream cut on its own, for documents shorter than, exactly as long as,
+    and longer than a block, at every stride from 1 to L+1."""
+    length = 4
+    documents = [list(range(100, 100 + size)) for size in (1, 2, 3, 5, 6, 7, 11, 13)]
+    stream = np.array([i for d in documents for i in d])
+    doc_lengths = np.array([len(d) for d in documents])
+    for stride in range(1, length + 2):
+        for remainder in ("drop", "pad"):
+            expected = [b for d in documents for b in reference_blocks(d, length, stride, remainder)]
+            assert document_blocks(stream, doc_lengths, length, stride, remainder, PAD).tolist() == expected, (stride, remainder)
+
+
+def test_corpus_blocks_match_the_reference_over_the_joined_stream():
+    """Blocks across documents: the whole stream cut as one, the padded last block included,
+    however the stream is fed (one piece, single ids, or uneven pieces)."""
+    stream = list(range(1, 40))
+    for length, stride in ((5, 5), (5, 6), (5, 3), (4, 1), (7, 7)):
+        for remainder in ("drop", "pad"):
+            expected = reference_blocks(stream, length, stride, remainder)
+            for cuts in ([], list(range(1, 39)), [7, 8, 20, 21, 22]):
+                blocks = CorpusBlocks(length, stride, remainder, PAD)
+                pieces = np.split(np.array(stream, np.int64), cuts)
+                got = np.concatenate([*(blocks.feed(p) for p in pieces), blocks.finish()])
+                assert got.tolist() == expected, (length, stride, remainder, cuts)
+
+
+def test_corpus_blocks_pad_the_last_block_only_when_it_holds_a_target():
+    """Two ids left (one input, one target) give a padded block; one id left gives none."""
+    blocks = CorpusBlocks(4, 4, "pad", PAD)
+    assert blocks.feed(np.arange(1, 7)).tolist() == [[1, 2, 3, 4, 5]]
+    assert blocks.finish().tolist() == [[5, 6, PAD, PAD, PAD]]
+    one_left = CorpusBlocks(4, 4, "pad", PAD)
+    assert one_left.feed(np.arange(1, 6)).tolist() == [[1, 2, 3, 4, 5]]
+    assert one_left.finish().shape == (0, 5)
+    dropped = CorpusBlocks(4, 4, "drop", PAD)
+    dropped.feed(np.arange(1, 8))
+    assert dropped.finish().shape == (0, 5)
+
+
+def test_corpus_blocks_start_over_after_finish():
+    """finish() hands out the tail and forgets it: a second finish adds nothing and the next
+    ids are cut as by a new instance."""
+    blocks = CorpusBlocks(3, 3, "pad", PAD)
+    blocks.feed(np.arange(1, 7))
+    assert blocks.finish().tolist() == [[4, 5, 6, PAD]]
+    assert blocks.finish().shape == (0, 4)
+    assert blocks.feed(np.arange(50, 56)).tolist() == [[50, 51, 52, 53]]
+    assert blocks.finish().tolist() == [[53, 54, 55, PAD]]
 
 
 @settings(max_examples=200, deadline=None)

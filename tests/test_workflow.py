@@ -29,11 +29,40 @@ def manifest(build: Path) -> dict:
     return json.loads((build / "manifest.json").read_text())
 
 
-def test_layout_puts_results_at_the_top(demo_build: Path):
-    for name in ["manifest.json", "vocabulary.tsv", "stats/coverage.json", "stats/token_counts.parquet"]:
-        assert (demo_build / name).is_file(), name
+def test_the_files_at_the_top_of_the_build_agree_with_the_manifest(demo_build: Path):
+    """README's layout: vocabulary.tsv and stats/coverage.json are the files the manifest
+    hashed (hashlib.sha256), token_counts.parquet's per-split sums are the manifest's token
+    figures, and growth.json ends at the train token count."""
+    recorded = manifest(demo_build)
+    assert sha256(demo_build / "vocabulary.tsv") == recorded["vocabulary"]["sha256"]
+    assert recorded["files"] == {"stats/coverage.json": sha256(demo_build / "stats" / "coverage.json")}
+    counts = pq.read_table(demo_build / "stats" / "token_counts.parquet")
+    assert counts.column_names == ["token", "train", "dev", "test"]
     for split in ("train", "dev", "test"):
-        assert sorted(p.name for p in (demo_build / "shards" / split).glob("*.parquet"))
+        assert pc.sum(counts[split]).as_py() == recorded["splits"][split]["tokens"] > 0
+    growth = json.loads((demo_build / "stats" / "growth.json").read_text())
+    assert growth["read"][-1] == recorded["splits"]["train"]["tokens"]
+    assert (demo_build / "report" / "index.html").read_text(encoding="utf-8").startswith("<!DOCTYPE html>")
+
+
+def test_ngram_rows_are_the_windows_of_the_stream_shards(demo_build: Path):
+    """The n-gram shards against windows cut in plain Python from the stream shards of the same
+    part (tests/test_readiness.py's heldout_windows): dev and test row for row, train as the
+    same multiset (its windows are shuffled). A context holding its own target breaks this."""
+    from tests.test_readiness import heldout_windows
+
+    for split, figures in manifest(demo_build)["splits"].items():
+        context, target = heldout_windows(demo_build, split, 4)
+        expected = list(zip(map(tuple, context.tolist()), target.tolist()))
+        rows = []
+        for entry in figures["shards"]:
+            if entry["kind"] == "ngram":
+                table = pq.read_table(demo_build / entry["file"])
+                rows += list(zip(map(tuple, table["context"].to_pylist()), table["target"].to_pylist()))
+        if split == "train":
+            assert Counter(rows) == Counter(expected)
+        else:
+            assert rows == expected, split
 
 
 def test_every_shard_matches_its_manifest_entry(demo_build: Path):
