@@ -178,8 +178,6 @@ def _corpus_order(table: pa.Table) -> np.ndarray:
 def _file_codes(sources: pa.Array | pa.ChunkedArray) -> tuple[np.ndarray, list[str]]:
     """Each row's file as its rank among the distinct files (code point order), and the files."""
     encoded = pc.dictionary_encode(sources.combine_chunks() if isinstance(sources, pa.ChunkedArray) else sources)
-    if isinstance(encoded, pa.ChunkedArray):
-        encoded = encoded.combine_chunks()
     names = encoded.dictionary.to_pylist()
     rank = np.empty(len(names), dtype=np.int64)
     rank[np.argsort(np.array(names, dtype=object), kind="stable")] = np.arange(len(names))

@@ -260,6 +260,29 @@ def test_kept_batches_give_kept_part_in_corpus_order_whatever_the_budget(tmp_pat
         assert (len(batches) > 5) == (budget <= 2_000)
 
 
+def test_duplicates_of_a_pack_stored_in_many_row_groups_follow_corpus_order(tmp_path, monkeypatch):
+    """A plain dict of first sightings over the rows sorted by (file, offset) is the reference;
+    the pack's two files are spread over 30+ row groups, each with its own file-name dictionary."""
+    from steps import prepare
+
+    monkeypatch.setattr(prepare, "GROUP_TOKENS", 150)
+    table = synthetic_chunk(900, sources=("b.txt", "a.txt"))
+    prints = [(i % 37).to_bytes(16, "big") for i in range(900)]
+    table = table.set_column(table.schema.get_field_index("fingerprint"), "fingerprint", pa.array(prints, pa.binary(16)))
+    path = str(tmp_path / "pack.parquet")
+    store_chunk(path, table, "word")
+    assert pq.ParquetFile(path).num_row_groups > 30
+    rows = sorted(table.select(["source", "offset", "doc_id", "fingerprint"]).to_pylist(), key=lambda r: (r["source"], r["offset"]))
+    first: dict[bytes, str] = {}
+    expected = []
+    for row in rows:
+        if row["fingerprint"] in first:
+            expected.append({"source": row["source"], "offset": row["offset"], "doc_id": row["doc_id"], "duplicate_of": first[row["fingerprint"]]})
+        else:
+            first[row["fingerprint"]] = row["doc_id"]
+    assert find_duplicates(CorpusRows([path])).to_pylist() == expected
+
+
 def test_parts_are_equal_ranges_of_the_doc_hash():
     """Reference: part = floor(h * parts / 2**64) in exact integer arithmetic."""
     rng = random.Random(3)
