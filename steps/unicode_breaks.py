@@ -211,7 +211,7 @@ _PERIOD_AFTER_ABBREVIATION = 0.99  # Kiss & Strunk's fixed P(period | abbreviati
 # A word with a final period, then the first character of the next word, or only blanks to the
 # end. Each word is examined once: from where the last match ended (\G), the loop steps over
 # whole words that are not such a word, so a match is never tried again from inside a word
-# (a search from every position of "a.a.a…a" took time cubic in its length).
+# (a search from every position of "a.a.a…a" took time worse than quadratic in its length).
 _PERIOD_THEN_WORD = regex.compile(
     rf"\G(?:\W*+{_WORD_WITH_INNER_PERIODS}(?!\.(?:\s++\w|\s*+$)))*+"
     rf"\W*+({_WORD_WITH_INNER_PERIODS})\.(?:\s++(\w)|\s*+$)",
