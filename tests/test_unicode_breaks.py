@@ -591,11 +591,10 @@ GCIDE = Path("/usr/share/dictd/gcide.dict.dz")
 def real_documents() -> dict[str, list[str]]:
     """Debian's English fortunes (one document per record between `%` lines) and the first 3 MB
     of dict-gcide (one per paragraph)."""
-    fortunes = [
-        record
-        for name in ENGLISH_FORTUNES
-        for record in re.split(r"(?m)^%\n", require_file(FORTUNES / name, "fortunes").read_text(encoding="utf-8", errors="replace"))
-    ]
+    fortunes = []
+    for name in ENGLISH_FORTUNES:
+        text = require_file(FORTUNES / name, "fortunes").read_text(encoding="utf-8", errors="replace")
+        fortunes += re.split(r"(?m)^%\n", text)
     with gzip.open(require_file(GCIDE, "dict-gcide"), "rb") as file:
         gcide = file.read(3_000_000).decode("utf-8", errors="ignore").split("\n\n")
     return {"fortunes": fortunes, "gcide": gcide}
