@@ -31,16 +31,17 @@ from typing import BinaryIO
 import regex
 import zstandard
 
+<<<<<<< HEAD
 from steps.accounting import Tally
+=======
+from steps import unicode_breaks
+>>>>>>> wave2-timebounds
 
 COMPRESSIONS = (".gz", ".bz2", ".xz", ".zst")
 FORMATS = (".txt", ".jsonl")
 READ_BLOCK = 1 << 20
 _TERMINATOR = re.compile(rb"\r\n|\n|\r")
 _BLANK_BYTES = b" \t\r\n\f\v"
-_GRAPHEME = regex.compile(r"\X", regex.V1)
-_CUT_WINDOW = 4096
-_REGIONAL_INDICATOR = regex.compile(r"\p{Regional_Indicator}", regex.V1)
 _ESCAPED_BYTES = "".join(map(chr, range(0xDC80, 0xDD00)))  # undecodable bytes under surrogateescape
 _LONE_SURROGATE = regex.compile(r"[\ud800-\udfff]")  # JSON escapes can spell them; UTF-8 cannot
 
@@ -478,20 +479,12 @@ def _grapheme_cut(data: bytes) -> int:
     The bytes of a character that the limit cut in two decode as escapes, one cluster each; they
     all go to the next piece, so a piece never ends inside a UTF-8 sequence. When one cluster
     fills the whole limit (e.g. a long run of combining marks), the cut falls between its code
-    points instead. Only the last few KiB are examined (clusters are short) unless that window
-    holds a single cluster or regional indicators, whose pairing depends on what precedes.
+    points instead. The clusters are found by unicode_breaks.last_cluster_start, which examines
+    only the end of the text unless the end is one long run of joined characters.
     """
-    if len(data) > _CUT_WINDOW:
-        start = len(data) - _CUT_WINDOW
-        tail = data[start:].decode("utf-8", "surrogateescape").rstrip(_ESCAPED_BYTES)
-        starts = [m.start() for m in _GRAPHEME.finditer(tail)]
-        if len(starts) > 2 and not _REGIONAL_INDICATOR.search(tail):
-            return start + len(tail[: starts[-1]].encode("utf-8", "surrogateescape"))
     text = data.decode("utf-8", "surrogateescape").rstrip(_ESCAPED_BYTES)
-    last = None
-    for last in _GRAPHEME.finditer(text):
-        pass
-    head = text[: last.start()] if last is not None and last.start() > 0 else text
+    start = unicode_breaks.last_cluster_start(text)
+    head = text[:start] if start > 0 else text
     return len(head.encode("utf-8", "surrogateescape")) or len(data)
 
 

@@ -33,13 +33,19 @@ _PATTERN_PIECES = {
     "word_hyphen": rf"[\p{{L}}\p{{N}}]{_WORD_CHARS}*(?:-{_WORD_CHARS}+)*",
     "word_plain": rf"[\p{{L}}\p{{N}}]{_WORD_CHARS}*",
     "clitic": rf"[{_APOSTROPHES}]{_WORD_CHARS}+",
-    "other": r"(?:(?!\s)\X)",
+    # One grapheme cluster; pairs flags without counting back through a run of them as \X does.
+    "other": rf"(?:(?!\s){unicode_breaks.CLUSTER_PATTERN})",
 }
 _NUMBER = regex.compile(r"[+\-]?\p{Nd}+(?:[.,:]\p{Nd}+)*%?", regex.V1)
 _PUNCTUATION_SENTENCE_END = regex.compile(r"(?<=[.!?][\"'\u2019\u201d)\]]*)\s+(?=[\"'\u2018\u201c(\[]*[\p{Lu}\p{Nd}])", regex.V1)
+<<<<<<< HEAD
 _ABBREVIATION_TAIL = regex.compile(r"(\S+)\.[\"'\u2019\u201d)\]]*$")
 # A line break with no line break beside it: inside a paragraph of hard-wrapped text.
 _SINGLE_LINE_BREAK = regex.compile(r"(?<!\n)\n(?!\n)")
+=======
+_CLOSERS = "\"'\u2019\u201d)]"
+_LAST_WORD = regex.compile(r"\S+", regex.REVERSE)  # searched from the end: the last whitespace-free run
+>>>>>>> wave2-timebounds
 
 
 def _pattern_tokenizer(apostrophes: str, hyphens: str) -> Callable[[str], list[str]]:
@@ -62,6 +68,18 @@ def _line_sentences(text: str) -> list[str]:
     return [stripped for line in text.split("\n") if (stripped := line.strip())]
 
 
+def _abbreviation_before(line: str, start: int, end: int) -> str | None:
+    """The lowercased word before the period that ends line[start:end] (closing quotes and
+    brackets may follow the period), or None; line[start:end] ends in a non-blank character.
+
+    Only the last whitespace-free run is read, so each run of a line is read once however many
+    breaks an abbreviation cancels (slicing and searching from `start` each time was quadratic
+    in the length of "Dr. A Dr. A …", and worse for "a.a.a…a! A").
+    """
+    stripped = _LAST_WORD.search(line, start, end).group().rstrip(_CLOSERS)
+    return stripped[:-1].lower() if len(stripped) > 1 and stripped.endswith(".") else None
+
+
 def _punctuation_sentences(abbreviations: frozenset[str]) -> Callable[[str], list[str]]:
     """Break after . ! ? (and closing quotes) before a capital or digit, unless an abbreviation."""
 
@@ -70,11 +88,9 @@ def _punctuation_sentences(abbreviations: frozenset[str]) -> Callable[[str], lis
         for line in text.split("\n"):
             start = 0
             for match in _PUNCTUATION_SENTENCE_END.finditer(line):
-                candidate = line[start : match.start()]
-                tail = _ABBREVIATION_TAIL.search(candidate)
-                if tail and tail.group(1).lower() in abbreviations:
+                if _abbreviation_before(line, start, match.start()) in abbreviations:
                     continue
-                sentences.append(candidate)
+                sentences.append(line[start : match.start()])
                 start = match.end()
             sentences.append(line[start:])
         return [stripped for s in sentences if (stripped := s.strip())]

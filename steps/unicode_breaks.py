@@ -203,11 +203,20 @@ def sentence_segments(text: str, abbreviations: frozenset[str] = frozenset()) ->
 
 
 # Words of the abbreviation learner: letters/digits with inner periods, and an optional final
-# period directly attached ("e.g." → ("e.g", ".")).
-_LEARNER_WORD = regex.compile(r"(\w+(?:\.\w+)*)(\.?)", _FLAGS)
-_LETTERS_AND_PERIODS = regex.compile(r"[^\W\d_]+(?:\.[^\W\d_]+)*", _FLAGS)
+# period directly attached ("e.g." → ("e.g", ".")). Possessive: a word is always taken whole.
+_WORD_WITH_INNER_PERIODS = r"\w++(?:\.\w++)*+"
+_LEARNER_WORD = regex.compile(rf"({_WORD_WITH_INNER_PERIODS})(\.?)", _FLAGS)
+_LETTERS_AND_PERIODS = regex.compile(r"[^\W\d_]++(?:\.[^\W\d_]++)*+", _FLAGS)
 _PERIOD_AFTER_ABBREVIATION = 0.99  # Kiss & Strunk's fixed P(period | abbreviation)
-_PERIOD_THEN_WORD = regex.compile(r"(\w+(?:\.\w+)*)\.(?:\s+(\w)|\s*+$)", _FLAGS)
+# A word with a final period, then the first character of the next word, or only blanks to the
+# end. Each word is examined once: from where the last match ended (\G), the loop steps over
+# whole words that are not such a word, so a match is never tried again from inside a word
+# (a search from every position of "a.a.a…a" took time worse than quadratic in its length).
+_PERIOD_THEN_WORD = regex.compile(
+    rf"\G(?:\W*+{_WORD_WITH_INNER_PERIODS}(?!\.(?:\s++\w|\s*+$)))*+"
+    rf"\W*+({_WORD_WITH_INNER_PERIODS})\.(?:\s++(\w)|\s*+$)",
+    _FLAGS,
+)
 #: Share of a candidate's "w. x" occurrences where x is lowercase or a digit (a sentence would
 #: start with a capital) below which it is taken for a sentence end, not an abbreviation.
 _MIN_CONTINUED_SHARE = 1 / 3
@@ -282,12 +291,21 @@ def learn_abbreviations(
 
 
 def _prune(counts: Counter[tuple[str, str]], target: int) -> None:
-    """Drop the rarest entries, raising the cut-off count until at most `target` remain."""
-    cutoff = 1
-    while len(counts) > target:
-        for key in [key for key, count in counts.items() if count <= cutoff]:
-            del counts[key]
-        cutoff += 1
+    """Drop every entry whose count is at most the lowest cut-off that leaves at most `target`.
+
+    The cut-off comes from a tally of how many entries have each count, so the table is walked
+    twice whatever the counts are (raising a cut-off by one per walk took as many walks as the
+    cut-off's value).
+    """
+    if len(counts) <= target:
+        return
+    remaining = len(counts)
+    for cutoff, entries in sorted(Counter(counts.values()).items()):
+        remaining -= entries
+        if remaining <= target:
+            break
+    for key in [key for key, count in counts.items() if count <= cutoff]:
+        del counts[key]
 
 
 # ---------------------------------------------------------------------------------------------
@@ -297,14 +315,43 @@ def _prune(counts: Counter[tuple[str, str]], target: int) -> None:
 # One extended grapheme cluster. A flag (two regional indicators and their marks, rules GB12,
 # GB13, GB9, GB9a) is spelled out because `regex` decides each boundary inside a run of
 # regional indicators by counting back to the run's start, which is quadratic in its length.
-_CLUSTER_PATTERN = (
+# Public for patterns elsewhere that match one cluster at a time; every match must start at a
+# cluster boundary.
+CLUSTER_PATTERN = (
     r"(?>[\U0001F1E6-\U0001F1FF]{2}[\p{GCB=Extend}\p{GCB=ZWJ}\p{GCB=SpacingMark}]*+|\X)"
 )
-_CLUSTER = regex.compile(_CLUSTER_PATTERN, _FLAGS)
-# Matched on a window one character longer than the limit: stops at the start of the window's
-# last cluster. A cluster boundary depends only on the text up to the character after it, so
-# every boundary up to the limit is the same as in the whole text.
-_UP_TO_LAST_CLUSTER = regex.compile(rf"{_CLUSTER_PATTERN}*(?={_CLUSTER_PATTERN}\Z)", _FLAGS)
+_CLUSTER = regex.compile(CLUSTER_PATTERN, _FLAGS)
+# Matched on a text that starts at a cluster boundary: stops at the start of its last cluster.
+# A cluster boundary depends only on the text up to the character after it, so a window one
+# character longer than a limit has every boundary up to the limit where the whole text has it.
+_UP_TO_LAST_CLUSTER = regex.compile(rf"{CLUSTER_PATTERN}*(?={CLUSTER_PATTERN}\Z)", _FLAGS)
+# Before a character of this class there is a cluster boundary whatever comes earlier, unless
+# a Prepend character stands right before it (GB9b): no pair rule joins it to the character
+# before it, and the rules that look further back (GB9c, GB11, GB12/GB13) join only before
+# Indic consonants, pictographs and regional indicators. Most letters, digits and punctuation
+# are in it. Searched backwards from the end of a text.
+_SURE_BOUNDARY = regex.compile(
+    r"(?<!\p{GCB=Prepend})[\p{GCB=Other}&&\p{InCB=None}--\p{Extended_Pictographic}]", _FLAGS | regex.REVERSE
+)
+#: How far back from the end to look for such a boundary before matching from the start.
+_SURE_BOUNDARY_REACH = 4096
+
+
+def last_cluster_start(text: str) -> int:
+    """Where the last grapheme cluster of ``text`` starts; 0 when it holds one cluster or none.
+
+    Why: a cut at the end of a long text should cost as much as its last few clusters. The
+    clusters are matched from the last boundary that is one whatever precedes it (see
+    _SURE_BOUNDARY), found within the last few thousand characters; without one (a long run of
+    flags or combining marks) from the start of the text, which is still linear in its length.
+    """
+    if text.isascii():  # in ASCII only CR LF is one cluster of two (rule GB3)
+        return max(len(text) - (2 if text.endswith("\r\n") else 1), 0)
+    sure = _SURE_BOUNDARY.search(text, max(len(text) - _SURE_BOUNDARY_REACH, 0))
+    if sure is None:
+        return _UP_TO_LAST_CLUSTER.match(text).end()
+    # Sliced, so that `regex` never looks back past the boundary.
+    return sure.start() + _UP_TO_LAST_CLUSTER.match(text[sure.start() :]).end()
 
 
 def _cut(text: str, start: int, max_chars: int) -> int:
@@ -314,11 +361,7 @@ def _cut(text: str, start: int, max_chars: int) -> int:
     sliced from `start` (a cluster boundary) so that `regex` never counts regional
     indicators back past it.
     """
-    window = text[start : start + max_chars + 1]
-    if window.isascii():  # in ASCII only CR LF is one cluster of two (rule GB3)
-        end = max_chars - 1 if window.endswith("\r\n") else max_chars
-        return start + (end or 2)
-    end = _UP_TO_LAST_CLUSTER.match(window).end()
+    end = last_cluster_start(text[start : start + max_chars + 1])
     if end:
         return start + end
     size = 2 * max_chars + 2

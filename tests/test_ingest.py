@@ -11,20 +11,35 @@ import random
 from pathlib import Path
 
 import pytest
+import regex
 import zstandard
 
+<<<<<<< HEAD
 from steps.ingest import (
     REFUSAL_REASONS,
+=======
+from steps import unicode_breaks
+from steps.ingest import (
+>>>>>>> wave2-timebounds
     Chunk,
     CorpusError,
     ReadOptions,
     Tally,
+<<<<<<< HEAD
     chunk_key,
     pattern_regex,
     plan_chunks,
     read_documents,
     split_name,
     survey_corpus,
+=======
+    _grapheme_cut,
+    chunk_key,
+    find_inputs,
+    plan_chunks,
+    read_documents,
+    split_name,
+>>>>>>> wave2-timebounds
 )
 
 
@@ -150,6 +165,40 @@ def test_oversize_documents_follow_the_policy_at_grapheme_boundaries(tmp_path: P
     assert tally.truncated == 1
     dropped, tally = read_all(tmp_path, "long.txt", max_document_bytes=1024, oversize="drop")
     assert dropped == [] and tally.dropped["oversize"] == 1 and tally.read == 1
+
+
+def reference_cut(data: bytes) -> int:
+    """_grapheme_cut by its definition: regex's \\X over the whole decoded piece (undecodable bytes
+    at the end left to the next piece); the last cluster's start, or the end if it is one cluster."""
+    text = data.decode("utf-8", "surrogateescape").rstrip("".join(map(chr, range(0xDC80, 0xDD00))))
+    starts = [m.start() for m in regex.finditer(r"\X", text, flags=regex.V1)]
+    head = text[: starts[-1]] if starts and starts[-1] > 0 else text
+    return len(head.encode("utf-8", "surrogateescape")) or len(data)
+
+
+def test_an_oversize_cut_falls_where_regex_X_over_the_whole_piece_puts_it(monkeypatch: pytest.MonkeyPatch):
+    """UAX #29 extended grapheme clusters (regex \\X) and RFC 3629 UTF-8: 5,000 seeded byte strings
+    of clusters of one to four bytes (flags, emoji ZWJ sequences, Hangul syllables, a conjunct,
+    Prepend, CR LF) and undecodable bytes, cut at a random length (often inside a character).
+    The reach for a boundary valid whatever precedes is shortened to 8 characters, so that runs
+    of flags and marks also take the path that matches clusters from the start."""
+    monkeypatch.setattr(unicode_breaks, "_SURE_BOUNDARY_REACH", 8)
+    units = [
+        "a", "Z", " ", "\r", "\n", "\r\n", "\u00e9", "e\u0301", "\u0301", "\U0001F1E6", "\U0001F1EB",
+        "\U0001F468\u200d\U0001F469", "\u200d", "\U0001F468", "\u1100\u1161\u11a8", "\u0600", "\u0915\u094d\u0937",
+        "\u4e2d", "\U0001F1E6" * 12, "\u0301" * 12,
+    ]  # fmt: skip
+    invalid = [b"\xff", b"\xc3", b"\x80", b"\xe2\x82"]
+    rng = random.Random(31)
+    failures = []
+    for _ in range(5000):
+        data = b"".join(
+            rng.choice(invalid) if rng.random() < 0.05 else rng.choice(units).encode("utf-8") for _ in range(rng.randint(1, 12))
+        )
+        data = data[: rng.randint(1, len(data))]
+        if _grapheme_cut(data) != reference_cut(data):
+            failures.append((data, _grapheme_cut(data), reference_cut(data)))
+    assert not failures, failures[:10]
 
 
 def test_truncated_compressed_file_is_an_error_naming_it(tmp_path: Path):

@@ -13,7 +13,9 @@ import functools
 import gzip
 import os
 import random
+import re
 import time
+from collections import Counter
 from collections.abc import Callable
 from pathlib import Path
 from typing import IO
@@ -21,7 +23,10 @@ from typing import IO
 import pytest
 import regex
 
+from conftest import require_file
+from steps import unicode_breaks
 from steps.unicode_breaks import (
+    last_cluster_start,
     learn_abbreviations,
     sentence_segments,
     split_graphemes,
@@ -567,6 +572,103 @@ def test_learn_abbreviations_needs_evidence() -> None:
     assert {"approx", "dr"} <= learn_abbreviations(iter(synthetic_corpus()), max_types=30)
 
 
+# The learner's patterns before they were made linear: each match was tried from every position,
+# so "a.a.a…a" took time worse than quadratic in its length. Kept only as the reference for the
+# tests below.
+FORMER_PERIOD_THEN_WORD = regex.compile(r"(\w+(?:\.\w+)*)\.(?:\s+(\w)|\s*+$)", regex.V1)
+FORMER_LEARNER_WORD = regex.compile(r"(\w+(?:\.\w+)*)(\.?)", regex.V1)
+FORMER_LETTERS_AND_PERIODS = regex.compile(r"[^\W\d_]+(?:\.[^\W\d_]+)*", regex.V1)
+FORTUNES = Path("/usr/share/games/fortunes")
+# English collections of Debian's `fortunes` package (the art, Chinese and bilingual files left out).
+ENGLISH_FORTUNES = (
+    "computers cookie definitions drugs education ethnic food humorists kids law linux literature love magic "
+    "medicine men-women miscellaneous news people pets platitudes politics riddles science songs-poems sports "
+    "startrek wisdom work zippy"
+).split()
+GCIDE = Path("/usr/share/dictd/gcide.dict.dz")
+
+
+def real_documents() -> dict[str, list[str]]:
+    """Debian's English fortunes (one document per record between `%` lines) and the first 3 MB
+    of dict-gcide (one per paragraph)."""
+    fortunes = []
+    for name in ENGLISH_FORTUNES:
+        text = require_file(FORTUNES / name, "fortunes").read_text(encoding="utf-8", errors="replace")
+        fortunes += re.split(r"(?m)^%\n", text)
+    with gzip.open(require_file(GCIDE, "dict-gcide"), "rb") as file:
+        gcide = file.read(3_000_000).decode("utf-8", errors="ignore").split("\n\n")
+    return {"fortunes": fortunes, "gcide": gcide}
+
+
+def test_learned_abbreviations_of_real_text_equal_those_of_the_former_patterns(monkeypatch: pytest.MonkeyPatch) -> None:
+    """Differential, reference kept in this file: the backtracking patterns the learner used
+    before (FORMER_*). On Debian's English fortunes and dict-gcide every match and the learned
+    set are the same; the sets are not empty (gcide abbreviates "e.g", "obs", "fr", …)."""
+    learned = {}
+    for name, documents in real_documents().items():
+        learned[name] = learn_abbreviations(documents)
+        for document in documents:
+            assert unicode_breaks._PERIOD_THEN_WORD.findall(document) == FORMER_PERIOD_THEN_WORD.findall(document)
+            assert unicode_breaks._LEARNER_WORD.findall(document) == FORMER_LEARNER_WORD.findall(document)
+        with monkeypatch.context() as former:
+            former.setattr(unicode_breaks, "_PERIOD_THEN_WORD", FORMER_PERIOD_THEN_WORD)
+            former.setattr(unicode_breaks, "_LEARNER_WORD", FORMER_LEARNER_WORD)
+            former.setattr(unicode_breaks, "_LETTERS_AND_PERIODS", FORMER_LETTERS_AND_PERIODS)
+            assert learn_abbreviations(documents) == learned[name], name
+        assert len(learned[name]) >= 5, (name, learned[name])
+    assert {"e.g", "obs", "fr"} <= learned["gcide"]
+
+
+def test_learner_patterns_match_as_the_former_ones_on_random_strings() -> None:
+    """Differential against FORMER_* on 100,000 seeded strings of word characters, periods,
+    blanks, marks and closing punctuation: the same matches, groups and full matches."""
+    rng = random.Random(11)
+    alphabet = ["a", "b", "A", "1", "_", ".", ".", " ", "\n", "\t", '"', ")", "\u00e9", "\u0301", "-", "\u00a0"]
+    failures = []
+    for _ in range(100_000):
+        s = "".join(rng.choice(alphabet) for _ in range(rng.randint(0, 14)))
+        if (
+            unicode_breaks._PERIOD_THEN_WORD.findall(s) != FORMER_PERIOD_THEN_WORD.findall(s)
+            or unicode_breaks._LEARNER_WORD.findall(s) != FORMER_LEARNER_WORD.findall(s)
+            or bool(unicode_breaks._LETTERS_AND_PERIODS.fullmatch(s)) != bool(FORMER_LETTERS_AND_PERIODS.fullmatch(s))
+        ):
+            failures.append(s)
+    assert not failures, failures[:10]
+
+
+class CountedWalks(Counter):
+    """A Counter that counts how often its entries are walked."""
+
+    walks = 0
+
+    def items(self):  # type: ignore[override]
+        self.walks += 1
+        return super().items()
+
+    def values(self):  # type: ignore[override]
+        self.walks += 1
+        return super().values()
+
+
+def test_pruning_drops_the_rarest_entries_by_the_lowest_sufficient_cutoff_in_two_walks() -> None:
+    """The rule of learn_abbreviations' docstring restated: raise a cut-off from 1 until at most
+    `target` entries have a higher count, and drop the rest. Pruning a table whose counts are
+    all near 1,000 reads it twice (one walk per cut-off value would be about 1,000 walks)."""
+    rng = random.Random(12)
+    for _ in range(2000):
+        counts = Counter({(str(k), ""): rng.randint(1, 12) for k in range(rng.randint(0, 30))})
+        target = rng.randint(0, 32)
+        cutoff = 0
+        while sum(count > cutoff for count in counts.values()) > target:
+            cutoff += 1
+        expected = Counter({key: count for key, count in counts.items() if count > cutoff})
+        unicode_breaks._prune(counts, target)
+        assert counts == expected
+    table = CountedWalks({(str(k), ""): 1000 + k % 7 for k in range(10_000)})
+    unicode_breaks._prune(table, 100)
+    assert table.walks <= 2 and len(table) == 0
+
+
 # ---------------------------------------------------------------------------------------------
 # Grapheme clusters
 # ---------------------------------------------------------------------------------------------
@@ -593,6 +695,56 @@ def test_split_graphemes_never_cuts_a_cluster(text: str, limit: int, pieces: lis
     """
     assert split_graphemes(text, limit) == pieces
     assert truncate_graphemes(text, limit) == (pieces[0] if pieces else "")
+
+
+def test_last_cluster_start_is_where_regex_X_starts_the_last_cluster(monkeypatch: pytest.MonkeyPatch) -> None:
+    """Random strings over all Grapheme_Cluster_Break classes and pictographs, alone and after
+    heads that leave no boundary valid whatever precedes it within the reach (flags, marks,
+    Prepend), so that the clusters are matched from the start; the reach is shortened to 8
+    characters so that the reference stays quick.
+
+    Source: UAX #29 section 3.1, as `regex`'s \\X implements it over the whole string.
+    """
+    monkeypatch.setattr(unicode_breaks, "_SURE_BOUNDARY_REACH", 8)
+    samples = class_samples("GCB", "GraphemeBreakProperty.txt")
+    pictographs = [chr(cp) for cp in sorted(extended_pictographic()) if has_pictographic(cp)][::50]
+    heads = ["", "\U0001F1E6" * 10, "\U0001F1E6" * 11, "a" + "\u0301" * 10, "\u0600" * 10, "a" * 10]
+    # Joins that look back past the character before: GB9c (a conjunct, also across a sign
+    # `regex` counts as InCB=Extend), GB11 (emoji ZWJ sequences), GB9b (Prepend).
+    joins = ["\u0915\u094d\u0915", "\u0915\u094d\u1cf5\u0915", "\U0001F468\u200d\U0001F469", "b\u0600a"]
+    failures = []
+    for s in random_strings({**samples, "Extended_Pictographic": pictographs}, 2000) + joins:
+        for text in (head + s for head in heads):
+            expected = offsets(clusters(text))[-2] if text else 0
+            if last_cluster_start(text) != expected:
+                failures.append((text, last_cluster_start(text), expected))
+    assert not failures, failures[:10]
+
+
+class RecordedMatches:
+    """Stands in for a compiled pattern and records the length of each text it is matched on."""
+
+    def __init__(self, pattern: regex.Pattern[str]) -> None:
+        self.pattern, self.lengths = pattern, []
+
+    def match(self, text: str) -> regex.Match[str] | None:
+        self.lengths.append(len(text))
+        return self.pattern.match(text)
+
+
+def test_last_cluster_start_matches_clusters_only_at_the_end_of_ordinary_text(monkeypatch: pytest.MonkeyPatch) -> None:
+    """Work, not time: on 1,000,000 characters of accented prose the cluster pattern reads only
+    the last few characters; on as many flags (no boundary is valid whatever precedes it) one
+    pass over the whole text, and so linear time either way."""
+    recorded = RecordedMatches(unicode_breaks._UP_TO_LAST_CLUSTER)
+    monkeypatch.setattr(unicode_breaks, "_UP_TO_LAST_CLUSTER", recorded)
+    prose = ("Le caf\u00e9 na\u00efve de l\u2019\u00e9t\u00e9. " * 40_000)[:1_000_000]
+    assert last_cluster_start(prose) == len(prose) - 1
+    assert max(recorded.lengths) <= 2
+    recorded.lengths.clear()
+    flags = "\U0001F1E6" * 1_000_000
+    assert last_cluster_start(flags) == len(flags) - 2
+    assert recorded.lengths == [len(flags)]
 
 
 def test_grapheme_limits_must_be_positive() -> None:

@@ -15,12 +15,12 @@ from pathlib import Path
 import pyarrow.parquet as pq
 import pytest
 import yaml
-
 from conftest import run_workflow
+
 from steps import unicode_breaks
-from steps.clean import CleanOptions, clean_text, rejection
 from steps.accounting import Tally
-from steps.ingest import Chunk, CorpusError, ReadOptions, chunk_key, read_documents
+from steps.clean import CleanOptions, clean_text, rejection
+from steps.ingest import Chunk, CorpusError, ReadOptions, _grapheme_cut, chunk_key, read_documents
 from steps.segment import Segmenter
 from steps.vocab import unknown_class
 from tests import hostile
@@ -63,7 +63,8 @@ def test_the_workflow_reports_a_bomb_as_a_failed_job_naming_the_file(tmp_path: P
 SIZE = 30_000
 
 # Inputs that make backtracking engines (or quadratic algorithms) slow: long runs without a
-# break, terminators everywhere, marks, quotes, abbreviations, hyphens and apostrophes.
+# break, terminators everywhere, marks, quotes, abbreviations, hyphens and apostrophes, and
+# runs of regional indicators (\X pairs each by counting back to the run's start).
 PATHOLOGICAL: dict[str, Callable[[int], str]] = {
     "spaces_and_tabs": lambda n: " \t" * (n // 2),
     "carriage_returns": lambda n: "\r" * n,
@@ -83,6 +84,10 @@ PATHOLOGICAL: dict[str, Callable[[int], str]] = {
     "digits_and_separators": lambda n: "1,1." * (n // 4),
     "only_periods": lambda n: "." * n,
     "narrow_spaces_in_numbers": lambda n: "1\u202f" * (n // 2),
+    "regional_indicators": lambda n: "\U0001F1E6" * n,
+    "letters_between_periods": lambda n: "a." * (n // 2) + "a",
+    "letters_between_periods_then_bang": lambda n: "a." * (n // 2) + "a! A",
+    "abbreviations_before_capitals": lambda n: "Dr. A " * (n // 6),
 }
 
 ABBREVIATIONS = frozenset({"dr", "e.g", "etc"})
@@ -94,6 +99,7 @@ TEXT_FUNCTIONS: dict[str, Callable[[str], object]] = {
     "segment pattern+punctuation split": Segmenter(sentences_mode="punctuation", words_mode="pattern", apostrophes="split", hyphens="split").segment,
     "learn_abbreviations": lambda text: unicode_breaks.learn_abbreviations([text]),
     "split_graphemes": lambda text: unicode_breaks.split_graphemes(text, 1000),
+    "oversize document cut": lambda text: _grapheme_cut(text.encode("utf-8")),
     "unknown_class": unknown_class,
 }
 
