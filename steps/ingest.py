@@ -31,11 +31,8 @@ from typing import BinaryIO
 import regex
 import zstandard
 
-<<<<<<< HEAD
-from steps.accounting import Tally
-=======
 from steps import unicode_breaks
->>>>>>> wave2-timebounds
+from steps.accounting import Tally
 
 COMPRESSIONS = (".gz", ".bz2", ".xz", ".zst")
 FORMATS = (".txt", ".jsonl")

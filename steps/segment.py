@@ -38,14 +38,10 @@ _PATTERN_PIECES = {
 }
 _NUMBER = regex.compile(r"[+\-]?\p{Nd}+(?:[.,:]\p{Nd}+)*%?", regex.V1)
 _PUNCTUATION_SENTENCE_END = regex.compile(r"(?<=[.!?][\"'\u2019\u201d)\]]*)\s+(?=[\"'\u2018\u201c(\[]*[\p{Lu}\p{Nd}])", regex.V1)
-<<<<<<< HEAD
-_ABBREVIATION_TAIL = regex.compile(r"(\S+)\.[\"'\u2019\u201d)\]]*$")
-# A line break with no line break beside it: inside a paragraph of hard-wrapped text.
-_SINGLE_LINE_BREAK = regex.compile(r"(?<!\n)\n(?!\n)")
-=======
 _CLOSERS = "\"'\u2019\u201d)]"
 _LAST_WORD = regex.compile(r"\S+", regex.REVERSE)  # searched from the end: the last whitespace-free run
->>>>>>> wave2-timebounds
+# A line break with no line break beside it: inside a paragraph of hard-wrapped text.
+_SINGLE_LINE_BREAK = regex.compile(r"(?<!\n)\n(?!\n)")
 
 
 def _pattern_tokenizer(apostrophes: str, hyphens: str) -> Callable[[str], list[str]]:

@@ -14,32 +14,20 @@ import pytest
 import regex
 import zstandard
 
-<<<<<<< HEAD
-from steps.ingest import (
-    REFUSAL_REASONS,
-=======
 from steps import unicode_breaks
 from steps.ingest import (
->>>>>>> wave2-timebounds
+    REFUSAL_REASONS,
     Chunk,
     CorpusError,
     ReadOptions,
     Tally,
-<<<<<<< HEAD
+    _grapheme_cut,
     chunk_key,
     pattern_regex,
     plan_chunks,
     read_documents,
     split_name,
     survey_corpus,
-=======
-    _grapheme_cut,
-    chunk_key,
-    find_inputs,
-    plan_chunks,
-    read_documents,
-    split_name,
->>>>>>> wave2-timebounds
 )
 
 
