@@ -85,7 +85,9 @@ def test_sigkill_at_random_moments_then_rerun_gives_the_clean_build(reference: t
 
 
 def test_a_failing_job_leaves_no_manifest_and_no_half_written_output(tmp_path: Path) -> None:
-    """Invalid UTF-8 under corpus.invalid_utf8 = stop fails the prepare job (RFC 3629)."""
+    """Invalid UTF-8 under corpus.invalid_utf8 = stop (RFC 3629): the prepare job records the file
+    as a problem and the deduplicate job, which follows every prepare job, fails naming it; that
+    job leaves no output, and nothing after it runs."""
     raw = tmp_path / "raw"
     hostile.write_small_corpus(raw)
     data, offset = hostile.invalid_utf8_text("stray_continuation")
@@ -97,6 +99,8 @@ def test_a_failing_job_leaves_no_manifest_and_no_half_written_output(tmp_path: P
     assert f"bad.txt: invalid UTF-8 at byte offset {offset}" in run.stdout + run.stderr
     build_dir = tmp_path / "build"
     assert not (build_dir / "manifest.json").exists() and not (build_dir / "shards").exists()
-    assert not list((build_dir / "interim" / "prepared").glob("bad.txt-*"))
+    tallies = [json.loads(p.read_text()) for p in (build_dir / "interim" / "prepared").glob("bad.txt-*.tally.json")]
+    assert [problem["source"] for tally in tallies for problem in tally["problems"]] == ["bad.txt"]
+    assert not (build_dir / "interim" / "duplicates.parquet").exists() and not (build_dir / "vocabulary.tsv").exists()
     assert not list(build_dir.rglob("*.partial"))
     assert_nothing_half_written(build_dir)
