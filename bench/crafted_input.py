@@ -27,9 +27,9 @@ sys.path.insert(0, str(Path(__file__).resolve().parent))
 
 from segmentation import english_fortunes  # noqa: E402
 
-from steps.ingest import _grapheme_cut  # noqa: E402
-from steps.segment import Segmenter  # noqa: E402
-from steps.unicode_breaks import learn_abbreviations  # noqa: E402
+from corpusmill.ingest import _grapheme_cut  # noqa: E402
+from corpusmill.segment import Segmenter  # noqa: E402
+from corpusmill.unicode_breaks import learn_abbreviations  # noqa: E402
 
 FLAG = "\U0001F1E6"  # REGIONAL INDICATOR SYMBOL LETTER A, 4 bytes in UTF-8
 ABBREVIATIONS = frozenset({"dr", "mr", "e.g", "etc"})

@@ -44,8 +44,8 @@ import yaml
 REPO = Path(__file__).resolve().parent.parent
 sys.path.insert(0, str(REPO))
 
-from steps import settings  # noqa: E402
-from steps.segment import Segmenter  # noqa: E402
+from corpusmill import settings  # noqa: E402
+from corpusmill.segment import Segmenter  # noqa: E402
 
 GCIDE = Path("/usr/share/dictd/gcide.dict.dz")
 DATA = REPO / "bench" / "data"

@@ -27,8 +27,8 @@ sys.path.insert(0, str(REPO))
 sys.path.insert(0, str(REPO / "bench"))
 
 from pipeline import DATA, GCIDE, RESULTS, default_config, write_corpus  # noqa: E402
-from steps.ingest import Chunk, chunk_key  # noqa: E402
-from steps.plan import RULE_SECTIONS, chunk_record, write_if_changed  # noqa: E402
+from corpusmill.ingest import Chunk, chunk_key  # noqa: E402
+from corpusmill.plan import RULE_SECTIONS, chunk_record, write_if_changed  # noqa: E402
 
 TIME = "/usr/bin/time"
 

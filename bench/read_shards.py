@@ -27,7 +27,7 @@ import pyarrow.parquet as pq
 
 sys.path.insert(0, str(Path(__file__).resolve().parent.parent))
 
-from steps.reader import open_build  # noqa: E402
+from corpusmill.reader import open_build  # noqa: E402
 
 
 def batch_ids(batch: dict) -> int:

@@ -28,8 +28,8 @@ sys.path.insert(0, str(REPO))
 sys.path.insert(0, str(REPO / "bench"))
 
 from pipeline import DATA, RESULTS, default_config, machine, run_build  # noqa: E402
-from steps.layout import SPLITS  # noqa: E402
-from steps.plan import RULE_SECTIONS  # noqa: E402
+from corpusmill.layout import SPLITS  # noqa: E402
+from corpusmill.plan import RULE_SECTIONS  # noqa: E402
 
 TIME = "/usr/bin/time"
 UNITS = {"word": {}, "subword": {"units": "subword", "subword": {"vocab_size": 500}}}

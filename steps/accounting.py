@@ -176,7 +176,7 @@ def main(argv: list[str] | None = None) -> None:
     import pyarrow.compute as pc
     import pyarrow.parquet as pq
 
-    from steps.storage import write_json, write_table
+    from .storage import write_json, write_table
 
     parser = argparse.ArgumentParser(description="Merge the chunks' tallies and drop logs with the removed duplicates.")
     parser.add_argument("--duplicates", required=True)

@@ -8,9 +8,9 @@ import signal
 import sys
 
 COMMANDS = {
-    "audit": ("steps.verify", "check a build folder against its manifest"),
-    "cutoffs": ("steps.whatif", "what a different vocabulary cutoff would give, from the stored counts"),
-    "progress": ("steps.progress", "where each running job of a build is, from its log"),
+    "audit": ("verify", "check a build folder against its manifest"),
+    "cutoffs": ("whatif", "what a different vocabulary cutoff would give, from the stored counts"),
+    "progress": ("progress", "where each running job of a build is, from its log"),
 }
 
 
@@ -24,7 +24,7 @@ def main(argv: list[str] | None = None) -> None:
         raise SystemExit(0 if args[:1] in (["-h"], ["--help"]) else 2)
     module, _ = COMMANDS[args[0]]
     try:
-        importlib.import_module(module).main(args[1:])
+        importlib.import_module(f"{__package__}.{module}").main(args[1:])
         sys.stdout.flush()
     except BrokenPipeError:
         # The reader of our output went away (`corpusmill cutoffs --json | head`): stop quietly,

@@ -24,10 +24,10 @@ import pyarrow.compute as pc
 import pyarrow.parquet as pq
 import sentencepiece as spm
 
-from steps.layout import SPLITS
-from steps.split import kept_part, order_keys, part_of
-from steps.storage import ParquetSink, rebased_offsets, write_json, write_table
-from steps.vocab import BOS, EOS, RESERVED, UNK
+from .layout import SPLITS
+from .split import kept_part, order_keys, part_of
+from .storage import ParquetSink, rebased_offsets, write_json, write_table
+from .vocab import BOS, EOS, RESERVED, UNK
 
 BATCH_ROWS = 4096
 # The statistics kept per input file and split.

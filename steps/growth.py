@@ -24,9 +24,9 @@ import pyarrow as pa
 import pyarrow.compute as pc
 import pyarrow.parquet as pq
 
-from steps.laws import growth_curve
-from steps.split import kept_batches
-from steps.storage import write_json
+from .laws import growth_curve
+from .split import kept_batches
+from .storage import write_json
 
 BATCH_TOKENS = 1 << 20
 BATCH_ROWS = 4096

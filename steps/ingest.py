@@ -31,8 +31,8 @@ from typing import BinaryIO
 import regex
 import zstandard
 
-from steps import unicode_breaks
-from steps.accounting import Tally
+from . import unicode_breaks
+from .accounting import Tally
 
 COMPRESSIONS = (".gz", ".bz2", ".xz", ".zst")
 FORMATS = (".txt", ".jsonl")

@@ -17,10 +17,10 @@ from pathlib import Path
 
 import pyarrow.parquet as pq
 
-from steps.layout import SPLITS
-from steps.settings import digest, read_json
-from steps.storage import write_json
-from steps.vocab import read_vocabulary
+from .layout import SPLITS
+from .settings import digest, read_json
+from .storage import write_json
+from .vocab import read_vocabulary
 
 SCHEMA_VERSION = 1
 

@@ -19,8 +19,8 @@ import stat
 from dataclasses import dataclass
 from pathlib import Path
 
-from steps import ingest
-from steps.layout import SPLITS, Layout, enabled_kinds
+from . import ingest
+from .layout import SPLITS, Layout, enabled_kinds
 
 STEPS_DIR = Path(__file__).resolve().parent
 

@@ -29,14 +29,14 @@ import numpy as np
 import pyarrow as pa
 import pyarrow.compute as pc
 
-from steps.clean import CleanOptions, clean_text, rejection
-from steps.accounting import Tally
-from steps.ingest import Chunk, CorpusError, Document, ReadOptions, read_documents
-from steps.progress import Progress
-from steps.segment import Segmenter
-from steps.split import assign_split, doc_hash, fingerprint
-from steps.storage import ParquetSink, write_json, write_table
-from steps.vocab import COUNTS_SCHEMA, MERGE_FILES, count_tokens, sum_counts
+from .clean import CleanOptions, clean_text, rejection
+from .accounting import Tally
+from .ingest import Chunk, CorpusError, Document, ReadOptions, read_documents
+from .progress import Progress
+from .segment import Segmenter
+from .split import assign_split, doc_hash, fingerprint
+from .storage import ParquetSink, write_json, write_table
+from .vocab import COUNTS_SCHEMA, MERGE_FILES, count_tokens, sum_counts
 
 BATCH_CHARS = 4 << 20
 BATCH_DOCUMENTS = 4096

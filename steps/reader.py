@@ -1,6 +1,6 @@
 """Reader: a finished build folder as numpy batches for a training loop (numpy + pyarrow only).
 
-    from steps.reader import open_build
+    from .reader import open_build
 
     build = open_build("build")                  # checks the manifest, raises BuildError
     build.splits                                 # ("dev", "test", "train")

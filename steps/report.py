@@ -21,11 +21,11 @@ import pyarrow as pa
 import pyarrow.compute as pc
 import pyarrow.parquet as pq
 
-from steps.layout import SPLITS
-from steps.settings import read_json
-from steps.storage import write_json
-from steps.summary import format_table
-from steps.vocab import Vocabulary, read_vocabulary
+from .layout import SPLITS
+from .settings import read_json
+from .storage import write_json
+from .summary import format_table
+from .vocab import Vocabulary, read_vocabulary
 
 TABLE_SIZES = (100, 1000, 2000, 5000, 10000, 20000, 50000, 100000)
 

@@ -35,12 +35,12 @@ import pyarrow.parquet as pq
 from matplotlib.figure import Figure
 from matplotlib.ticker import PercentFormatter
 
-from steps.laws import FLOAT32_BYTES, ModelSize, PowerFit, fit_heaps, fit_zipf, log_points
-from steps.layout import SPLITS
-from steps.settings import read_json
-from steps.storage import write_text
-from steps.summary import block_share, format_blocks
-from steps.vocab import escape
+from .laws import FLOAT32_BYTES, ModelSize, PowerFit, fit_heaps, fit_zipf, log_points
+from .layout import SPLITS
+from .settings import read_json
+from .storage import write_text
+from .summary import block_share, format_blocks
+from .vocab import escape
 
 COLOURS = {"train": "#1f5f8b", "dev": "#d9822b", "test": "#3a8f4b"}
 STYLE = """

@@ -1,4 +1,4 @@
-"""The entry the workflow's rules call: `python -m steps.run MODULE [ARGS…]` runs steps.MODULE.main.
+"""The entry the workflow's rules call: `python -m steps.run MODULE [ARGS…]` runs that step module's main.
 
 Why not `python -m steps.MODULE` directly: pyarrow imports pandas on its first array
 conversion whenever pandas is installed, about 0.45 CPU-seconds and 35 MB per job, although no
@@ -36,7 +36,7 @@ def main(argv: list[str] | None = None) -> None:
     sys.meta_path.insert(0, _WithoutPandas())
     os.environ.setdefault("OPENBLAS_NUM_THREADS", "1")
     os.environ.setdefault("ARROW_DEFAULT_MEMORY_POOL", "system")
-    importlib.import_module(f"steps.{args[0]}").main(args[1:])
+    importlib.import_module(f"{__package__}.{args[0]}").main(args[1:])
 
 
 if __name__ == "__main__":

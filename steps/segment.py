@@ -16,11 +16,11 @@ from pathlib import Path
 
 import regex
 
-from steps import unicode_breaks
-from steps.clean import CleanOptions, clean_text
-from steps.accounting import Tally
-from steps.ingest import CorpusError, ReadOptions, plan_chunks, read_documents
-from steps.storage import write_text
+from . import unicode_breaks
+from .clean import CleanOptions, clean_text
+from .accounting import Tally
+from .ingest import CorpusError, ReadOptions, plan_chunks, read_documents
+from .storage import write_text
 
 NUMBER_TOKEN = "<number>"
 

@@ -30,11 +30,11 @@ import pyarrow as pa
 import pyarrow.compute as pc
 import pyarrow.parquet as pq
 
-from steps.encode import ENCODED_SCHEMA
-from steps.split import kept_part, order_keys
-from steps.storage import ParquetSink, rebased_offsets, write_json
-from steps.vocab import BOS, EOS, PAD, Lookup, Vocabulary, read_vocabulary
-from steps.windows import CorpusBlocks, document_block_coverage, document_blocks, document_streams, ngram_windows
+from .encode import ENCODED_SCHEMA
+from .split import kept_part, order_keys
+from .storage import ParquetSink, rebased_offsets, write_json
+from .vocab import BOS, EOS, PAD, Lookup, Vocabulary, read_vocabulary
+from .windows import CorpusBlocks, document_block_coverage, document_blocks, document_streams, ngram_windows
 
 # Tokens per vocabulary lookup in dev and test parts (train looks its whole part up at once).
 LOOKUP_TOKENS = 1 << 20

@@ -19,11 +19,11 @@ import pyarrow as pa
 import pyarrow.compute as pc
 import pyarrow.parquet as pq
 
-from steps.accounting import problems_message
-from steps.layout import SPLITS
-from steps.settings import read_json
-from steps.storage import write_table
-from steps.vocab import COUNTS_SCHEMA, MERGE_FILES, count_tokens, sum_counts
+from .accounting import problems_message
+from .layout import SPLITS
+from .settings import read_json
+from .storage import write_table
+from .vocab import COUNTS_SCHEMA, MERGE_FILES, count_tokens, sum_counts
 
 _TWO_64 = float(1 << 64)
 

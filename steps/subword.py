@@ -38,9 +38,9 @@ import pyarrow.compute as pc
 import pyarrow.parquet as pq
 import sentencepiece as spm
 
-from steps.split import duplicate_mask
-from steps.storage import atomic_path, write_text
-from steps.vocab import BOS, EOS, PAD, RESERVED, UNK
+from .split import duplicate_mask
+from .storage import atomic_path, write_text
+from .vocab import BOS, EOS, PAD, RESERVED, UNK
 
 SAMPLE_BATCH = 8192
 KEY_LENGTH = 20

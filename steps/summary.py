@@ -6,7 +6,7 @@ Kept apart from steps.report so that Snakemake's `onsuccess` handler imports no 
 
 from __future__ import annotations
 
-from steps.layout import SPLITS
+from .layout import SPLITS
 
 # Shown for a rate whose denominator is zero (0 of 0 tokens): coverage.json stores 0.0 there.
 DASH = "—"

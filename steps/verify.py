@@ -27,9 +27,9 @@ import pyarrow as pa
 import pyarrow.compute as pc
 import pyarrow.parquet as pq
 
-from steps.manifest import file_sha256
-from steps.reader import MAX_MANIFEST_BYTES, MAX_VOCABULARY_BYTES, SHARD_FIELDS, file_problem, key_path, parse_manifest, resolve_inside
-from steps.vocab import read_vocabulary
+from .manifest import file_sha256
+from .reader import MAX_MANIFEST_BYTES, MAX_VOCABULARY_BYTES, SHARD_FIELDS, file_problem, key_path, parse_manifest, resolve_inside
+from .vocab import read_vocabulary
 
 BATCH_ROWS = 65_536
 FIX_FILE = "restore it from an intact copy of the build, or delete it and rerun snakemake to rebuild it"

@@ -34,8 +34,8 @@ import pyarrow.parquet as pq
 import regex
 import sentencepiece as spm
 
-from steps.layout import SPLITS
-from steps.storage import write_table, write_text
+from .layout import SPLITS
+from .storage import write_table, write_text
 
 PAD, UNK, BOS, EOS = "<pad>", "<unk>", "<s>", "</s>"
 RESERVED = (PAD, UNK, BOS, EOS)

@@ -21,7 +21,7 @@ import pyarrow.compute as pc
 import pyarrow.csv as pa_csv
 import pyarrow.parquet as pq
 
-from steps.vocab import HEADER, Cutoff, Vocabulary, choose_size
+from .vocab import HEADER, Cutoff, Vocabulary, choose_size
 
 TSV_TYPES = {"id": pa.int64(), "token": pa.string(), "count": pa.int64(), "kind": pa.string()}
 

@@ -19,10 +19,10 @@ import pytest
 import zstandard
 
 from conftest import REPO, run_workflow
-from steps.accounting import FileTally, Tally, merge, problems_message
-from steps.ingest import Chunk, CorpusError, ReadOptions, chunk_key, foreign_encoding, read_documents
-from steps.progress import Progress, running_jobs
-from steps.tidy import stale_files
+from corpusmill.accounting import FileTally, Tally, merge, problems_message
+from corpusmill.ingest import Chunk, CorpusError, ReadOptions, chunk_key, foreign_encoding, read_documents
+from corpusmill.progress import Progress, running_jobs
+from corpusmill.tidy import stale_files
 
 # --- the tally of a chunk ----------------------------------------------------------------------
 
@@ -207,7 +207,7 @@ def test_files_of_jobs_that_no_longer_exist_are_removed_after_a_full_run(tmp_pat
     assert all(p.exists() for p in old)
     run = run_workflow(tmp_path / "run", options)
     assert not any(p.exists() for p in old) and "file(s) of earlier runs that no current job uses" in run.stderr
-    audit = subprocess.run([sys.executable, "-m", "steps.cli", "audit", str(build)], capture_output=True, text=True, cwd=REPO)
+    audit = subprocess.run([sys.executable, "-m", "corpusmill.cli", "audit", str(build)], capture_output=True, text=True, cwd=REPO)
     assert audit.returncode == 0, audit.stderr
     assert stale_files(build, [p for p in build.rglob("*") if p.is_file()]) == []
 
@@ -231,7 +231,7 @@ def test_progress_lines_say_documents_bytes_and_rate_and_mark_running_jobs(tmp_p
 
 def test_a_closed_pipe_ends_a_command_without_a_traceback(demo_build: Path):
     """POSIX pipes: `head` closing its end early sends SIGPIPE / EPIPE to the writer."""
-    command = f"{sys.executable} -m steps.cli cutoffs {demo_build} --json --show-changes 5000 | head -n 1"
+    command = f"{sys.executable} -m corpusmill.cli cutoffs {demo_build} --json --show-changes 5000 | head -n 1"
     run = subprocess.run(["bash", "-c", command], capture_output=True, text=True, cwd=REPO)
     assert run.stdout.strip() == "{" and "Traceback" not in run.stderr and "BrokenPipe" not in run.stderr
 

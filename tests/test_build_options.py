@@ -20,7 +20,7 @@ import pyarrow.parquet as pq
 import pytest
 
 from conftest import REPO, run_workflow
-from steps.split import assign_split
+from corpusmill.split import assign_split
 from tests.test_windows import reference_blocks
 
 SALT = "harbour-ledger-2026"
@@ -124,7 +124,7 @@ def test_pieces_of_split_documents_are_accounted_for(build: Path) -> None:
     assert accounting["read"] + accounting["pieces_added"] == accounting["kept"] + sum(accounting["dropped"].values())
     assert accounting["balanced"] is True
     assert accounting["kept"] == sum(len(stream_rows(build, split)) for split in ("train", "dev", "test"))
-    audit = subprocess.run([sys.executable, "-m", "steps.cli", "audit", str(build)], cwd=REPO, capture_output=True, text=True)
+    audit = subprocess.run([sys.executable, "-m", "corpusmill.cli", "audit", str(build)], cwd=REPO, capture_output=True, text=True)
     assert audit.returncode == 0, audit.stdout + audit.stderr
 
 

@@ -14,8 +14,8 @@ import pyarrow.parquet as pq
 import pytest
 
 from conftest import run_workflow
-from steps.accounting import Tally
-from steps.ingest import ReadOptions, plan_chunks, read_documents
+from corpusmill.accounting import Tally
+from corpusmill.ingest import ReadOptions, plan_chunks, read_documents
 
 WORDS = (
     "the of and a to in is was that for it with as his on be at by had not are but from or have an they which "

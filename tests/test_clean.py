@@ -6,8 +6,8 @@ import pytest
 from hypothesis import given, settings
 from hypothesis import strategies as st
 
-from steps import clean
-from steps.clean import CleanOptions, clean_text, normalize, rejection, stream_safe
+from corpusmill import clean
+from corpusmill.clean import CleanOptions, clean_text, normalize, rejection, stream_safe
 
 DEFAULT = CleanOptions()
 

@@ -14,7 +14,7 @@ import pytest
 import yaml
 
 from conftest import run_workflow
-from steps import settings
+from corpusmill import settings
 
 REPO = Path(__file__).resolve().parent.parent
 

@@ -9,8 +9,8 @@ import pyarrow as pa
 import pyarrow.parquet as pq
 import pytest
 
-from steps.growth import train_token_batches
-from steps.laws import growth_curve
+from corpusmill.growth import train_token_batches
+from corpusmill.laws import growth_curve
 from tests.test_report_page import corpus_order, corpus_rows
 
 

@@ -18,12 +18,12 @@ import pytest
 import regex
 
 from conftest import run_workflow
-from steps import settings
-from steps.accounting import Tally
-from steps.ingest import Chunk, CorpusError, Document, ReadOptions, chunk_key, read_documents
-from steps.plan import chunk_record, write_if_changed
-from steps.prepare import prepare_chunk
-from steps.segment import Segmenter, is_lossless
+from corpusmill import settings
+from corpusmill.accounting import Tally
+from corpusmill.ingest import Chunk, CorpusError, Document, ReadOptions, chunk_key, read_documents
+from corpusmill.plan import chunk_record, write_if_changed
+from corpusmill.prepare import prepare_chunk
+from corpusmill.segment import Segmenter, is_lossless
 from tests import hostile
 
 REPO = Path(__file__).resolve().parent.parent
@@ -430,7 +430,7 @@ def test_the_workflow_builds_the_hostile_corpus_under_lenient_policies_and_balan
     assert {"bad_json", "no_text", "empty"} <= set(accounting["dropped"])
     assert accounting["replaced_sequences"] >= len(hostile.INVALID_UTF8)
     audit = subprocess.run(
-        [sys.executable, "-m", "steps.cli", "audit", str(tmp_path / "build")], cwd=REPO, capture_output=True, text=True
+        [sys.executable, "-m", "corpusmill.cli", "audit", str(tmp_path / "build")], cwd=REPO, capture_output=True, text=True
     )
     assert audit.returncode == 0, audit.stdout + audit.stderr
 

@@ -14,8 +14,8 @@ import pytest
 import regex
 import zstandard
 
-from steps import unicode_breaks
-from steps.ingest import (
+from corpusmill import unicode_breaks
+from corpusmill.ingest import (
     REFUSAL_REASONS,
     Chunk,
     CorpusError,

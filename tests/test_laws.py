@@ -12,7 +12,7 @@ import pytest
 import regex
 
 from conftest import require_file
-from steps.laws import GrowthCounter, ModelSize, fit_heaps, fit_power, fit_zipf, growth_curve, log_points
+from corpusmill.laws import GrowthCounter, ModelSize, fit_heaps, fit_power, fit_zipf, growth_curve, log_points
 
 FORTUNES = Path("/usr/share/games/fortunes")
 # English collections of Debian's `fortunes` package (the art, Chinese and bilingual files left out).

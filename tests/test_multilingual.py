@@ -13,9 +13,9 @@ from pathlib import Path
 import pytest
 
 from conftest import require_file, run_workflow
-from steps.clean import CleanOptions, clean_text
-from steps.segment import Segmenter, is_lossless
-from steps.settings import resolve
+from corpusmill.clean import CleanOptions, clean_text
+from corpusmill.segment import Segmenter, is_lossless
+from corpusmill.settings import resolve
 
 FORTUNES = Path("/usr/share/games/fortunes")
 LANGUAGES = {

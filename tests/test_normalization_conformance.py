@@ -17,7 +17,7 @@ from pathlib import Path
 
 import pytest
 
-from steps.clean import normalize
+from corpusmill.clean import normalize
 
 UNICODE_DIR = Path("/usr/share/unicode")
 #: Lines of Unicode 15.0 additions that may be skipped (82 of 19,074 with Unicode 14.0).

@@ -8,9 +8,9 @@ import random
 import pyarrow as pa
 import pyarrow.parquet as pq
 
-from steps import prepare
-from steps.prepare import ChunkTableWriter, chunk_schema
-from steps.split import doc_hash, read_part
+from corpusmill import prepare
+from corpusmill.prepare import ChunkTableWriter, chunk_schema
+from corpusmill.split import doc_hash, read_part
 
 
 def store_chunk(path: str, table: pa.Table, units: str, run_bytes: int = 1 << 40, batch_rows: int = 1 << 30) -> int:

@@ -14,11 +14,11 @@ import regex
 from hypothesis import given
 from hypothesis import strategies as st
 
-from steps.clean import CleanOptions, clean_text
-from steps.segment import Segmenter, is_lossless
-from steps.split import assign_split, fingerprint
-from steps.vocab import Cutoff, Lookup, build_vocabulary, sort_by_frequency
-from steps.windows import CorpusBlocks, document_blocks, document_streams, ngram_windows
+from corpusmill.clean import CleanOptions, clean_text
+from corpusmill.segment import Segmenter, is_lossless
+from corpusmill.split import assign_split, fingerprint
+from corpusmill.vocab import Cutoff, Lookup, build_vocabulary, sort_by_frequency
+from corpusmill.windows import CorpusBlocks, document_blocks, document_streams, ngram_windows
 from tests.test_split import prepared_splits
 from tests.test_windows import reference_blocks, reference_stream
 

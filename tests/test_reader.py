@@ -19,7 +19,7 @@ import pyarrow as pa
 import pyarrow.parquet as pq
 import pytest
 
-from steps.reader import BuildError, open_build, resolve_inside, to_numpy
+from corpusmill.reader import BuildError, open_build, resolve_inside, to_numpy
 from tests import hostile
 
 Row = tuple
@@ -347,7 +347,7 @@ def test_a_vocabulary_symlinked_to_dev_zero_is_refused(demo_build: Path, tmp_pat
         open_build(build)
 
 
-OPEN_BUILD = "import sys\nfrom steps.reader import BuildError, open_build\ntry:\n    open_build(sys.argv[1])\nexcept BuildError as error:\n    sys.exit(f'BuildError: {error}')\n"
+OPEN_BUILD = "import sys\nfrom corpusmill.reader import BuildError, open_build\ntry:\n    open_build(sys.argv[1])\nexcept BuildError as error:\n    sys.exit(f'BuildError: {error}')\n"
 
 
 @pytest.mark.parametrize("victim", ["vocabulary.tsv", "manifest.json", "shards/train/ngram-0002.parquet"])

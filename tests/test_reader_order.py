@@ -18,7 +18,7 @@ import pyarrow as pa
 import pyarrow.parquet as pq
 import pytest
 
-from steps.reader import open_build, to_numpy
+from corpusmill.reader import open_build, to_numpy
 
 LENGTH = 3  # block rows hold LENGTH + 1 ids
 VOCABULARY = "id\ttoken\tcount\tkind\n0\t<pad>\t0\treserved\n1\t<unk>\t0\treserved\n2\t<s>\t0\treserved\n3\t</s>\t0\treserved\n"

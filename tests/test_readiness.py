@@ -18,8 +18,8 @@ from pathlib import Path
 import numpy as np
 import pyarrow.parquet as pq
 
-from steps.reader import open_build
-from steps.vocab import read_vocabulary
+from corpusmill.reader import open_build
+from corpusmill.vocab import read_vocabulary
 
 Params = dict[str, np.ndarray]
 

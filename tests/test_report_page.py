@@ -15,9 +15,9 @@ import pyarrow.parquet as pq
 import pytest
 
 from conftest import REPO
-from steps.laws import ModelSize, fit_heaps, fit_zipf
-from steps.report_page import coverage_curve, main, table
-from steps.summary import format_table
+from corpusmill.laws import ModelSize, fit_heaps, fit_zipf
+from corpusmill.report_page import coverage_curve, main, table
+from corpusmill.summary import format_table
 
 PNG_SIGNATURE = b"\x89PNG\r\n\x1a\n"
 OPTIONS = {"report": {"embedding_widths": [100, 300, 1000], "hidden_width": 100, "top_oov": 25}, "windows": {"ngram": {"n": 4}}}

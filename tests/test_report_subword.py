@@ -24,11 +24,11 @@ import pytest
 from conftest import DEMO, require_file, run_workflow
 from test_report_browser import CHROMIUM, DevTools, start_chromium, websocket_module
 from test_report_page import OPTIONS, corpus_order, corpus_rows, file_cells, png_chunks, png_size
-from steps.laws import ModelSize, PowerFit, fit_zipf
-from steps.growth import train_word_batches, whitespace_words, word_growth
-from steps.report_page import growth_figure, main, source_figures
-from steps.summary import format_subword_table
-from steps.vocab import read_vocabulary
+from corpusmill.laws import ModelSize, PowerFit, fit_zipf
+from corpusmill.growth import train_word_batches, whitespace_words, word_growth
+from corpusmill.report_page import growth_figure, main, source_figures
+from corpusmill.summary import format_subword_table
+from corpusmill.vocab import read_vocabulary
 
 OVERRIDES = {"corpus": {"root": str(DEMO)}, "units": "subword", "subword": {"vocab_size": 500}}
 # RE2's \s, which the encode step's word count uses, is ASCII whitespace only.

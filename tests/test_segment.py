@@ -9,9 +9,9 @@ import pytest
 import regex
 from conftest import require_file
 
-from steps import segment
-from steps.clean import CleanOptions, clean_text
-from steps.segment import NUMBER_TOKEN, Segmenter, is_lossless
+from corpusmill import segment
+from corpusmill.clean import CleanOptions, clean_text
+from corpusmill.segment import NUMBER_TOKEN, Segmenter, is_lossless
 
 
 def pattern(**options) -> Segmenter:
@@ -76,8 +76,8 @@ def test_segment_drops_sentences_without_tokens():
 
 
 def test_abbreviations_are_learned_from_the_start_of_each_file(tmp_path):
-    from steps.segment import learned_abbreviations
-    from steps.settings import resolve
+    from corpusmill.segment import learned_abbreviations
+    from corpusmill.settings import resolve
 
     text = "".join(
         f"The crate weighs approx. {i} stone and the barge carries it. Lamps burn all night long.\n\n" for i in range(40)

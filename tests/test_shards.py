@@ -9,9 +9,9 @@ from collections import Counter
 import pyarrow as pa
 import pyarrow.parquet as pq
 
-from steps.shards import TokenIds
-from steps.split import doc_hash
-from steps.vocab import Vocabulary, read_vocabulary, unknown_class
+from corpusmill.shards import TokenIds
+from corpusmill.split import doc_hash
+from corpusmill.vocab import Vocabulary, read_vocabulary, unknown_class
 
 
 def test_oov_per_source_and_unknown_classes_match_a_recount(demo_build):

@@ -10,15 +10,15 @@ import pyarrow as pa
 import pyarrow.parquet as pq
 import pytest
 
-from steps.accounting import Tally
-from steps.ingest import Document
-from steps.prepare import ChunkPreparer
-from steps.settings import resolve
-from steps.split import (
+from corpusmill.accounting import Tally
+from corpusmill.ingest import Document
+from corpusmill.prepare import ChunkPreparer
+from corpusmill.settings import resolve
+from corpusmill.split import (
     CorpusRows, assign_split, doc_hash, duplicate_mask, find_duplicates, fingerprint, first_occurrences, kept_batches, kept_part, order_keys,
     part_bounds, part_of, read_part, repeated_ids, repeated_ids_message, split_position,
 )
-from steps.storage import write_table
+from corpusmill.storage import write_table
 from tests.test_prepare import store_chunk, synthetic_chunk
 
 FRACTIONS = {"train": 0.8, "dev": 0.1, "test": 0.1}
@@ -109,7 +109,7 @@ def test_a_position_at_the_top_of_the_range_goes_to_the_last_split_with_a_share(
     """Eight hash bytes divided by 2**64 in floating point round up to exactly 1.0 for the
     largest values, and shares like 0.7 + 0.2 + 0.1 add up to just under 1: such a position
     falls past every bound and must go to the last split with a share, never an empty one."""
-    from steps import split
+    from corpusmill import split
 
     assert split_position(b"k", "s") < 1.0 and (2**64 - 1) / float(2**64) == 1.0
     monkeypatch.setattr(split, "split_position", lambda key, salt: 1.0)
@@ -121,7 +121,7 @@ def test_a_position_at_the_top_of_the_range_goes_to_the_last_split_with_a_share(
 def test_cumulative_bounds_put_positions_below_a_bound_in_its_split(monkeypatch):
     """Shares 0.8/0.1/0.1: positions in [0, 0.8) are train, [0.8, 0.9) dev, [0.9, 1) test
     (SPLITS order, half-open intervals)."""
-    from steps import split
+    from corpusmill import split
 
     for position, expected in ((0.0, "train"), (0.7999, "train"), (0.8, "dev"), (0.8999, "dev"), (0.9, "test"), (0.9999, "test")):
         monkeypatch.setattr(split, "split_position", lambda key, salt, p=position: p)
@@ -243,7 +243,7 @@ def test_repeated_ids_are_found_within_and_across_chunks_with_every_place(tmp_pa
 def test_kept_batches_give_kept_part_in_corpus_order_whatever_the_budget(tmp_path, monkeypatch, budget: int):
     """kept_part (the whole split sorted by file and offset) is the reference; a chunk of two
     files in over 30 row groups, read in windows from one row to all."""
-    from steps import prepare
+    from corpusmill import prepare
 
     monkeypatch.setattr(prepare, "GROUP_TOKENS", 150)
     table = synthetic_chunk(900, sources=("a.txt", "b.txt"))
@@ -263,7 +263,7 @@ def test_kept_batches_give_kept_part_in_corpus_order_whatever_the_budget(tmp_pat
 def test_duplicates_of_a_pack_stored_in_many_row_groups_follow_corpus_order(tmp_path, monkeypatch):
     """A plain dict of first sightings over the rows sorted by (file, offset) is the reference;
     the pack's two files are spread over 30+ row groups, each with its own file-name dictionary."""
-    from steps import prepare
+    from corpusmill import prepare
 
     monkeypatch.setattr(prepare, "GROUP_TOKENS", 150)
     table = synthetic_chunk(900, sources=("b.txt", "a.txt"))
@@ -333,7 +333,7 @@ def test_order_seeds_of_any_size_are_taken_modulo_2_to_the_64():
 
 
 def test_read_part_returns_exactly_its_part_and_skips_other_row_groups(tmp_path, monkeypatch):
-    from steps import prepare
+    from corpusmill import prepare
 
     monkeypatch.setattr(prepare, "GROUP_TOKENS", 200)
     table = synthetic_chunk(2000)
@@ -380,8 +380,8 @@ def test_removed_counts_equal_a_counter_recount_of_the_removed_documents(tmp_pat
     files stored in many row groups."""
     from collections import Counter
 
-    from steps import prepare
-    from steps.split import removed_counts
+    from corpusmill import prepare
+    from corpusmill.split import removed_counts
 
     monkeypatch.setattr(prepare, "GROUP_TOKENS", 150)
     table = synthetic_chunk(900, sources=("a.txt", "b.txt"))

@@ -20,10 +20,10 @@ import pytest
 import sentencepiece as spm
 
 from conftest import DEMO, run_workflow
-from steps.encode import PieceEncoder, PieceTally
-from steps.split import assign_split, duplicate_mask
-from steps.subword import TRAIN_THREADS, BottomK, check_model, read_sample, sentence_keys, train_model
-from steps.vocab import Vocabulary, read_vocabulary
+from corpusmill.encode import PieceEncoder, PieceTally
+from corpusmill.split import assign_split, duplicate_mask
+from corpusmill.subword import TRAIN_THREADS, BottomK, check_model, read_sample, sentence_keys, train_model
+from corpusmill.vocab import Vocabulary, read_vocabulary
 
 SALT = "corpusmill-split-v1"
 FRACTIONS = {"train": 0.9, "dev": 0.05, "test": 0.05}
@@ -122,7 +122,7 @@ def stream_sentences(build: Path, split: str) -> dict[str, list[list[int]]]:
 
 
 def test_dev_and_test_streams_keep_corpus_order(workdir: Path) -> None:
-    from steps.split import doc_hash
+    from corpusmill.split import doc_hash
     from tests.test_shards import heldout_corpus_order
 
     build = workdir / "build"

@@ -24,8 +24,8 @@ import pytest
 import regex
 
 from conftest import require_file
-from steps import unicode_breaks
-from steps.unicode_breaks import (
+from corpusmill import unicode_breaks
+from corpusmill.unicode_breaks import (
     last_cluster_start,
     learn_abbreviations,
     sentence_segments,

@@ -17,12 +17,12 @@ import pytest
 import yaml
 from conftest import run_workflow
 
-from steps import unicode_breaks
-from steps.accounting import Tally
-from steps.clean import CleanOptions, clean_text, rejection
-from steps.ingest import Chunk, CorpusError, ReadOptions, _grapheme_cut, chunk_key, read_documents
-from steps.segment import Segmenter
-from steps.vocab import unknown_class
+from corpusmill import unicode_breaks
+from corpusmill.accounting import Tally
+from corpusmill.clean import CleanOptions, clean_text, rejection
+from corpusmill.ingest import Chunk, CorpusError, ReadOptions, _grapheme_cut, chunk_key, read_documents
+from corpusmill.segment import Segmenter
+from corpusmill.vocab import unknown_class
 from tests import hostile
 
 REPO = Path(__file__).resolve().parent.parent

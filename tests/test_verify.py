@@ -19,8 +19,8 @@ import pytest
 from hypothesis import HealthCheck, given, settings
 from hypothesis import strategies as st
 
-from steps.reader import BuildError, open_build
-from steps.verify import audit_build
+from corpusmill.reader import BuildError, open_build
+from corpusmill.verify import audit_build
 from tests import hostile
 
 REPO = Path(__file__).resolve().parent.parent
@@ -57,7 +57,7 @@ def copy(builds: tuple[Path, Path], tmp_path: Path) -> Path:
 
 
 def audit(build_dir: Path) -> subprocess.CompletedProcess[str]:
-    return subprocess.run([sys.executable, "-m", "steps.cli", "audit", str(build_dir)], cwd=REPO, capture_output=True, text=True)
+    return subprocess.run([sys.executable, "-m", "corpusmill.cli", "audit", str(build_dir)], cwd=REPO, capture_output=True, text=True)
 
 
 def first_shard(build_dir: Path, kind: str = "ngram") -> Path:
@@ -202,7 +202,7 @@ def test_a_symlink_to_dev_zero_as_vocabulary_is_refused_without_reading_it(copy:
     """/dev/zero never ends: the vocabulary named by the manifest must resolve to a file inside the build."""
     (copy / "vocabulary.tsv").unlink()
     (copy / "vocabulary.tsv").symlink_to("/dev/zero")
-    run = subprocess.run([sys.executable, "-m", "steps.cli", "audit", str(copy)], cwd=REPO, capture_output=True, text=True, timeout=60)
+    run = subprocess.run([sys.executable, "-m", "corpusmill.cli", "audit", str(copy)], cwd=REPO, capture_output=True, text=True, timeout=60)
     assert run.returncode != 0
     assert 'manifest.json: vocabulary.file "vocabulary.tsv" leads outside the build folder (to /dev/zero)' in run.stderr
 
@@ -213,7 +213,7 @@ def test_a_fifo_in_place_of_a_build_file_is_refused_without_opening_it(copy: Pat
     name = {"shard": first_shard(copy).relative_to(copy).as_posix(), "files": next(iter(load(copy)["files"]))}.get(victim, victim)
     (copy / name).unlink()
     os.mkfifo(copy / name)
-    run = subprocess.run([sys.executable, "-m", "steps.cli", "audit", str(copy)], cwd=REPO, capture_output=True, text=True, timeout=60)
+    run = subprocess.run([sys.executable, "-m", "corpusmill.cli", "audit", str(copy)], cwd=REPO, capture_output=True, text=True, timeout=60)
     assert run.returncode != 0
     assert f"corpusmill audit: {name}: " in run.stderr and "not a regular file (a FIFO)" in run.stderr
 
@@ -229,7 +229,7 @@ def test_a_vocabulary_over_the_size_limit_is_refused_before_reading(copy: Path) 
     """A sparse file one byte over 1 GiB (no disk used): refused by its size, never read."""
     with open(copy / "vocabulary.tsv", "r+b") as handle:
         handle.truncate((1 << 30) + 1)
-    run = subprocess.run([sys.executable, "-m", "steps.cli", "audit", str(copy)], cwd=REPO, capture_output=True, text=True, timeout=60)
+    run = subprocess.run([sys.executable, "-m", "corpusmill.cli", "audit", str(copy)], cwd=REPO, capture_output=True, text=True, timeout=60)
     assert run.returncode != 0
     assert "vocabulary.tsv: listed in manifest.json but over the 1 GiB size limit (1,073,741,825 bytes)" in run.stderr
 

@@ -14,7 +14,7 @@ import pyarrow.parquet as pq
 import pytest
 
 from conftest import DEMO, run_workflow
-from steps.vocab import (
+from corpusmill.vocab import (
     HEADER, RESERVED, UNK, Cutoff, Lookup, VocabularyError, build_vocabulary, check_frozen, choose_size, read_vocabulary,
     sort_by_frequency, unknown_class,
 )

@@ -18,9 +18,9 @@ import pyarrow.parquet as pq
 import pytest
 
 from conftest import REPO
-from steps.report import TABLE_SIZES
-from steps.vocab import SHAPE_CLASSES, UNK, Cutoff, read_vocabulary, unknown_class
-from steps.whatif import Figures, WordList, format_answer, what_if
+from corpusmill.report import TABLE_SIZES
+from corpusmill.vocab import SHAPE_CLASSES, UNK, Cutoff, read_vocabulary, unknown_class
+from corpusmill.whatif import Figures, WordList, format_answer, what_if
 
 SPLITS = ("train", "dev", "test")
 
@@ -158,7 +158,7 @@ def test_cutoffs_command_keeps_the_build_limits_it_is_not_given(demo_build: Path
     stats = json.loads((demo_build / "stats" / "coverage.json").read_text())
 
     def run(*options: str) -> dict:
-        command = [sys.executable, "-m", "steps.cli", "cutoffs", str(demo_build), "--json", *options]
+        command = [sys.executable, "-m", "corpusmill.cli", "cutoffs", str(demo_build), "--json", *options]
         return json.loads(subprocess.run(command, cwd=REPO, check=True, capture_output=True, text=True).stdout)
 
     unchanged = run()
@@ -174,7 +174,7 @@ def test_cutoffs_command_keeps_the_build_limits_it_is_not_given(demo_build: Path
 
 def test_cutoffs_command_names_the_missing_file(tmp_path: Path) -> None:
     """Error messages name the file and the fix (project convention)."""
-    result = subprocess.run([sys.executable, "-m", "steps.cli", "cutoffs", str(tmp_path)], cwd=REPO, capture_output=True, text=True)
+    result = subprocess.run([sys.executable, "-m", "corpusmill.cli", "cutoffs", str(tmp_path)], cwd=REPO, capture_output=True, text=True)
     assert result.returncode != 0
     assert "token_counts.parquet: not found" in result.stderr and "Run the workflow" in result.stderr
 

@@ -7,7 +7,7 @@ import pytest
 from hypothesis import given, settings
 from hypothesis import strategies as st
 
-from steps.windows import CorpusBlocks, document_block_coverage, document_blocks, document_streams, ngram_windows
+from corpusmill.windows import CorpusBlocks, document_block_coverage, document_blocks, document_streams, ngram_windows
 
 BOS, EOS, PAD = 2, 3, 0
 

@@ -16,9 +16,9 @@ import pyarrow.parquet as pq
 import pytest
 
 from conftest import DEMO, run_workflow
-from steps import settings
-from steps.plan import Plan
-from steps.vocab import read_vocabulary
+from corpusmill import settings
+from corpusmill.plan import Plan
+from corpusmill.vocab import read_vocabulary
 
 
 def sha256(path: Path) -> str:
