@@ -1,11 +1,11 @@
 # corpusmill: raw text folder → cleaned, tokenized, vocabulary-mapped, windowed, split Parquet shards.
 # Stages, in order (rules/*.smk): prepare (per chunk: read, clean, segment, split, count) →
-# deduplicate → vocabulary (for subword units: a sentencepiece model learned on train, then
-# encode per chunk) → shard (per split part; word units map their tokens to ids here), and
-# beside it growth (the vocabulary growth curve) → coverage → manifest → report. The logic of
-# every stage lives in steps/; each rule runs one step through `python -m steps.run`.
+# deduplicate → vocabulary (word cutoff, or a sentencepiece model learned on train) → shards (per
+# chunk: ids, rows, files) → vocabulary table, accounting, growth, coverage → manifest → report.
+# Each rule runs one step of steps/ (`python -m steps.run MODULE [ENTRY] --build DIR`), which
+# finds its files through steps/layout.py and its options in the rule's options file.
 
-import json
+import hashlib
 import shlex
 import sys
 
@@ -14,23 +14,24 @@ from snakemake.utils import min_version
 min_version("9.18")
 
 sys.path.insert(0, workflow.basedir)
-from steps import settings
+from steps import plan, settings
 from steps.ingest import CorpusError
-from steps.plan import Plan, code_hash
 
 configfile: os.path.join(workflow.basedir, "workflow_config", "config.yaml")
 
 try:
     CONFIG = settings.resolve(config)
-    PLAN = Plan.from_config(CONFIG)
+    PLAN = plan.Plan.from_config(CONFIG)
 except (settings.ConfigError, CorpusError) as error:
     sys.exit(f"corpusmill: {error}")
 
 L = PLAN.layout
 if workflow.is_main_process:
-    PLAN.write_files([L.coverage])
+    PLAN.write_files()
     if os.path.exists(L.failed_jobs):
         os.remove(L.failed_jobs)
+code_hash = plan.code_hash
+module_constant = plan.module_constant
 
 
 def literal(text):
@@ -41,25 +42,35 @@ def literal(text):
 PY = f"PYTHONPATH={literal(workflow.basedir)} {literal(sys.executable)}"
 
 
-def step(name, args):
-    """Shell command running steps.<name>; output goes to the job's log, whose end is shown on failure.
-    Every value in `args` is quoted (`:q` or shlex.quote)."""
-    failed = literal(L.failed_jobs)
+def step(rule, extra="", chunk=False):
+    """The shell command of a rule: its step module (and entry) on the build folder, output to
+    the job's log, whose end is shown on failure and whose path is noted for the run's end."""
+    name = plan.module_of(rule)
+    entry = rule[len(name) + 1 :]
+    args = f"{name} {entry} --build {literal(L.root)}" + (" --chunk {wildcards.chunk}" if chunk else "") + (f" {extra}" if extra else "")
     return (
-        "{{ " + PY + " -m steps.run " + name + " " + args + " ; }} > {log:q} 2>&1 "
-        "|| {{ tail -n 20 {log:q} >&2; echo {log:q} >> " + failed + "; exit 1; }}"
+        "{{ " + PY + " -m steps.run " + args + " ; }} > {log:q} 2>&1 "
+        "|| {{ tail -n 20 {log:q} >&2; echo {log:q} >> " + literal(L.failed_jobs) + "; exit 1; }}"
     )
+
+
+def digest_of(*paths):
+    """SHA-256 of files' contents: the parameter that reruns a job reading them as ancient inputs."""
+    hasher = hashlib.sha256()
+    for path in paths:
+        with open(path, "rb") as handle:
+            hasher.update(handle.read())
+    return hasher.hexdigest()[:16]
 
 
 wildcard_constraints:
     chunk=r"[^/]+",
-    split=r"train|dev|test",
-    part=r"\d{4}",
 
 include: "rules/prepare.smk"
-include: "rules/subword.smk"
+include: "rules/deduplicate.smk"
 include: "rules/vocabulary.smk"
 include: "rules/shards.smk"
+include: "rules/statistics.smk"
 include: "rules/manifest.smk"
 include: "rules/report.smk"
 
@@ -75,6 +86,7 @@ rule all:
 onsuccess:
     import threading
 
+    from steps import tidy
     from steps.summary import format_accounting, format_blocks, format_table
 
     # Snakemake starts a 1-second rate-limit timer after each scheduling round and Python waits
@@ -83,11 +95,10 @@ onsuccess:
         if isinstance(thread, threading.Timer):
             thread.cancel()
 
-    from steps import tidy
-
     jobs = list(workflow.dag.jobs)
     if any(job.rule.name == "all" for job in jobs):
-        current = [path for job in jobs for path in [*job.input, *job.output, *job.log]]
+        current = [path for job in jobs for path in [*job.input, *job.output, *job.log]] + [L.chunk_list, L.corpus_plan]
+        current += [L.options(rule) for rule in plan.RULES]
         removed = tidy.remove(tidy.stale_files(L.root, current))
         if removed:
             print(f"corpusmill: {removed}", file=sys.stderr)

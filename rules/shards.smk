@@ -1,26 +1,51 @@
-# One job per part of each split: gather that part from every chunk, cut rows, write shards.
-# Word units read their part's slice of every prepared chunk and map it to ids here; subword
-# units read the parts the encode jobs wrote (rules/vocabulary.smk).
+# Per chunk: its documents as ids, cut into rows, written as shard files per split and kind
+# (steps/shards.py). A chunk's job needs its own prepared table, its list of removed documents
+# and the ids; the last two come from checkpoints (rules/deduplicate.smk,
+# rules/vocabulary.smk) and are ancient inputs whose digests are parameters, so a change
+# elsewhere in the corpus reruns this job only when it changes what the chunk removes or what
+# the ids are.
 
-rule shard:
+
+def ids_input(wildcards):
+    checkpoints.vocabulary.get()
+    return ancient(L.ids)
+
+
+def ids_digest(wildcards):
+    checkpoints.vocabulary.get()
+    return digest_of(L.ids)
+
+
+def removed_input(wildcards):
+    checkpoints.deduplicate.get()
+    return ancient(L.removed(wildcards.chunk))
+
+
+def removed_digest(wildcards):
+    checkpoints.deduplicate.get()
+    return digest_of(L.removed(wildcards.chunk))
+
+
+rule shards:
     input:
-        parts=lambda w: [L.encoded(c, w.split, w.part) for c in PLAN.chunk_keys] if SUBWORD else [L.prepared(c) for c in PLAN.chunk_keys],
-        duplicates=[] if SUBWORD else [L.duplicates],
-        vocabulary=L.vocabulary,
+        table=L.prepared("{chunk}"),
+        removed=removed_input,
+        ids=ids_input,
+        model=[L.subword_model] if SUBWORD else [],
+        options=L.options("shards"),
     output:
-        **PLAN.shard_files("{split}", "{part}"),
-        stats=L.shard_stats("{split}", "{part}"),
+        **PLAN.shards_of("{chunk}"),
+        stats=L.shard_stats("{chunk}"),
+        id_counts=L.id_counts("{chunk}"),
     log:
-        L.log("shard", "{split}-{part}"),
+        L.log("shards", "{chunk}"),
     params:
-        outputs=lambda w, output: " ".join(f"--output {shlex.quote(kind + '=' + getattr(output, kind))}" for kind in PLAN.kinds),
-        duplicates=lambda w, input: " ".join(f"--duplicates {shlex.quote(p)}" for p in input.duplicates),
-        options=PLAN.options("shard"),
-        code=code_hash("shard"),
-    threads: 1
+        removed=removed_digest,
+        ids=ids_digest,
+        code=code_hash("shards"),
+    threads: module_constant("shards", "THREADS") if SUBWORD else 1
     resources:
         mem_mb=CONFIG["resources"]["shard_mem_mb"],
         runtime=CONFIG["resources"]["runtime_min"],
     shell:
-        step("shards", "--split {wildcards.split} --part {wildcards.part} --vocabulary {input.vocabulary:q} {params.duplicates} "
-             "--options {params.options:q} --stats {output.stats:q} {params.outputs} {input.parts:q}")
+        step("shards", chunk=True)

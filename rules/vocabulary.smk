@@ -1,51 +1,137 @@
-# The chunks' counts (written by prepare) merged, duplicates subtracted, into the vocabulary;
-# the shard jobs map words to ids (rules/shards.smk).
-# Subword units (SUBWORD, rules/subword.smk): per-chunk encode jobs use the sentencepiece model
-# and write piece ids and piece counts; the vocabulary is then the model's pieces with those counts.
+# The ids the shards use (steps/vocabulary.py): word units cut the chunks' counts; subword units
+# learn a sentencepiece model on a seeded sample of train sentences (steps/subword.py). The ids
+# are a checkpoint like the duplicates (see rules/shards.smk). After the shards,
+# vocabulary.tsv gets the build's count of every id.
+#
+# Subword models are cached under interim/subword/models/<key>.model, the key a hash of the
+# sample and the training settings; `subword_train` reads the sample as ancient input, so it runs
+# only for a key without a model: an edit to a dev or test document redraws the same sample.
 
-rule vocabulary:
+SUBWORD = CONFIG["units"] == "subword"
+SUBWORD_FROZEN = CONFIG["subword"]["frozen"]
+
+
+def removed_lists(wildcards=None):
+    """Every chunk's removed documents, ancient: their digest (`removed_digests`) is a parameter
+    that reruns what reads them."""
+    checkpoints.deduplicate.get()
+    return [ancient(L.removed(c)) for c in PLAN.chunk_keys]
+
+
+def removed_digests(wildcards=None):
+    checkpoints.deduplicate.get()
+    return digest_of(*[L.removed(c) for c in PLAN.chunk_keys])
+
+
+checkpoint subword_sample:
     input:
-        counts=[L.piece_counts(c) if SUBWORD else L.counts(c) for c in PLAN.chunk_keys],
-        model=[L.subword_model] if SUBWORD else [],
-        removed=[] if SUBWORD else [L.removed_counts],
+        tables=[L.prepared(c) for c in PLAN.chunk_keys],
+        removed=removed_lists,
+        options=L.options("subword_sample"),
     output:
-        vocabulary=L.vocabulary,
-        token_counts=L.token_counts,
+        sample=L.subword_sample,
+        key=L.subword_key,
+    log:
+        L.log("subword_sample"),
+    params:
+        removed=removed_digests,
+        code=code_hash("subword_sample"),
+    threads: 1
+    resources:
+        mem_mb=CONFIG["resources"]["aggregate_mem_mb"],
+        runtime=CONFIG["resources"]["runtime_min"],
+    shell:
+        step("subword_sample")
+
+
+rule subword_train:
+    input:
+        sample=ancient(L.subword_sample),
+        options=L.options("subword_train"),
+    output:
+        L.subword_trained("{key}"),
+    log:
+        L.log("subword_train", "{key}"),
+    params:
+        code=code_hash("subword_train"),
+    # Reserves cores only: training always runs this many threads, since the learned pieces
+    # depend on sentencepiece's thread count.
+    threads: module_constant("subword", "TRAIN_THREADS")
+    resources:
+        mem_mb=CONFIG["resources"]["aggregate_mem_mb"],
+        runtime=CONFIG["resources"]["runtime_min"],
+    shell:
+        step("subword_train", "--output {output:q}")
+
+
+def learned_model(wildcards):
+    """The cached model named by the current sample's key; none with a frozen model, which is
+    not a Snakemake input (its name may hold wildcard characters) but reruns this rule through
+    its content hash, a parameter."""
+    if SUBWORD_FROZEN:
+        return []
+    with open(checkpoints.subword_sample.get().output.key, encoding="utf-8") as handle:
+        return L.subword_trained(handle.read().strip())
+
+
+rule subword_model:
+    input:
+        learned=learned_model,
+        options=L.options("subword_model"),
+    output:
+        L.subword_model,
+    log:
+        L.log("subword_model"),
+    params:
+        model=lambda w, input: SUBWORD_FROZEN or input.learned,
+        frozen=PLAN.frozen.get("subword.frozen", ""),
+        code=code_hash("subword_model"),
+    threads: 1
+    resources:
+        mem_mb=CONFIG["resources"]["prepare_mem_mb"],
+        runtime=CONFIG["resources"]["runtime_min"],
+    shell:
+        step("subword_model", "--model {params.model:q}")
+
+
+checkpoint vocabulary:
+    input:
+        counts=[] if SUBWORD else [L.counts(c) for c in PLAN.chunk_keys],
+        removed_counts=[] if SUBWORD else [L.removed_counts],
+        model=[L.subword_model] if SUBWORD else [],
+        options=L.options("vocabulary"),
+    output:
+        ids=L.ids,
+        counts=[] if SUBWORD else [L.word_counts],
     log:
         L.log("vocabulary"),
     params:
-        options=PLAN.options("vocabulary"),
         frozen=PLAN.frozen.get("vocabulary.frozen", ""),
-        counts_from=f"--model {shlex.quote(L.subword_model)}" if SUBWORD else f"--removed {shlex.quote(L.removed_counts)}",
         code=code_hash("vocabulary"),
     threads: 1
     resources:
         mem_mb=CONFIG["resources"]["aggregate_mem_mb"],
         runtime=CONFIG["resources"]["runtime_min"],
     shell:
-        step("vocab build", "--options {params.options:q} --vocabulary {output.vocabulary:q} "
-             "--token-counts {output.token_counts:q} {params.counts_from} {input.counts:q}")
+        step("vocabulary_ids")
 
 
-rule encode:
+rule vocabulary_table:
     input:
-        table=L.prepared("{chunk}"),
-        duplicates=L.duplicates,
-        model=L.subword_model,
+        ids=L.ids,
+        id_counts=[L.id_counts(c) for c in PLAN.chunk_keys],
+        counts=[] if SUBWORD else [L.word_counts],
+        options=L.options("vocabulary_table"),
     output:
-        parts=PLAN.encoded_outputs("{chunk}"),
-        stats=L.encode_stats("{chunk}"),
-        pieces=L.piece_counts("{chunk}"),
+        vocabulary=L.vocabulary,
+        token_counts=L.token_counts,
     log:
-        L.log("encode", "{chunk}"),
+        L.log("vocabulary_table"),
     params:
-        options=PLAN.options("encode"),
-        code=code_hash("encode"),
-    threads: 2
+        code=code_hash("vocabulary_table"),
+    threads: 1
     resources:
-        mem_mb=CONFIG["resources"]["prepare_mem_mb"],
+        mem_mb=CONFIG["resources"]["aggregate_mem_mb"],
         runtime=CONFIG["resources"]["runtime_min"],
     shell:
-        step("encode", "--prepared {input.table:q} --duplicates {input.duplicates:q} "
-             "--model {input.model:q} --pieces {output.pieces:q} --threads {threads} --options {params.options:q} "
-             "--stats {output.stats:q} {output.parts:q}")
+        step("vocabulary_table")

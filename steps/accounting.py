@@ -15,7 +15,6 @@ read + pieces_added = kept + sum(dropped).
 
 from __future__ import annotations
 
-import argparse
 import json
 from array import array
 from collections import Counter
@@ -23,6 +22,10 @@ from collections.abc import Sequence
 from dataclasses import dataclass, field
 from pathlib import Path
 
+from . import job
+
+RULE = "accounting"
+SECTIONS: tuple[str, ...] = ()
 REASONS = (
     "invalid_utf8", "oversize", "bad_json", "no_text", "empty", "too_short", "few_letters", "no_tokens", "duplicate",
 )  # fmt: skip
@@ -178,23 +181,18 @@ def main(argv: list[str] | None = None) -> None:
 
     from .storage import write_json, write_table
 
-    parser = argparse.ArgumentParser(description="Merge the chunks' tallies and drop logs with the removed duplicates.")
-    parser.add_argument("--duplicates", required=True)
-    parser.add_argument("--summary", required=True, help="output: stats/accounting.json")
-    parser.add_argument("--dropped", required=True, help="output: stats/dropped.parquet")
-    parser.add_argument("--drop-log", action="append", default=[], help="a chunk's drop log; repeated, in chunk order")
-    parser.add_argument("tallies", nargs="*", help="the chunks' tally files")
-    args = parser.parse_args(argv)
-    tallies = [json.loads(Path(path).read_text(encoding="utf-8")) for path in args.tallies]
-    duplicates = pq.read_table(args.duplicates, columns=["source", "offset"])
+    run = job.start(argv, RULE, "Merge the chunks' tallies and drop logs with the removed duplicates.")
+    layout, chunks = run.layout, run.chunks()
+    tallies = [json.loads(Path(layout.tally(chunk)).read_text(encoding="utf-8")) for chunk in chunks]
+    duplicates = pq.ParquetFile(layout.duplicates).read(columns=["source", "offset"], use_threads=False)
     per_file = pc.value_counts(duplicates["source"]).to_pylist() if duplicates.num_rows else []
-    write_json(args.summary, merge(tallies, {entry["values"]: entry["counts"] for entry in per_file}))
-    logs = [pq.read_table(path) for path in args.drop_log]
+    write_json(layout.accounting, merge(tallies, {entry["values"]: entry["counts"] for entry in per_file}))
+    logs = [pq.ParquetFile(layout.drop_log(chunk)).read(use_threads=False) for chunk in chunks]
     removed = pa.table(
         {"source": duplicates["source"], "offset": duplicates["offset"], "reason": pa.array(["duplicate"] * duplicates.num_rows, pa.string())}
     )
     dropped = pa.concat_tables([dropped_schema().empty_table(), *logs, removed.cast(dropped_schema())])
-    write_table(args.dropped, dropped.sort_by([("source", "ascending"), ("offset", "ascending"), ("reason", "ascending")]))
+    write_table(layout.dropped, dropped.sort_by([("source", "ascending"), ("offset", "ascending"), ("reason", "ascending")]))
     print(f"{dropped.num_rows} dropped documents recorded")
 
 

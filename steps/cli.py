@@ -8,8 +8,8 @@ import signal
 import sys
 
 COMMANDS = {
-    "audit": ("verify", "check a build folder against its manifest"),
-    "cutoffs": ("whatif", "what a different vocabulary cutoff would give, from the stored counts"),
+    "audit": ("audit", "check a build folder against its manifest"),
+    "cutoffs": ("cutoffs", "what a different vocabulary cutoff would give, from the stored counts"),
     "progress": ("progress", "where each running job of a build is, from its log"),
 }
 

@@ -2,7 +2,7 @@
 Heaps plot and fit (stats/growth.json).
 
 The stream is the train documents of the prepared chunks in corpus order, duplicates left out:
-exactly what the vocabulary counts. Word units count word tokens; subword units count
+exactly what the vocabulary counts (word units: interim/vocabulary/counts.parquet). Word units count word tokens; subword units count
 whitespace-separated words of the cleaned sentences, not pieces, because the model fixes the
 number of pieces and nearly all of them occur early in the stream, while words describe the
 corpus the model has to cover. Memory grows with the number of distinct types, never with the
@@ -15,8 +15,6 @@ among the first `read` tokens), lists of equal length.
 
 from __future__ import annotations
 
-import argparse
-import json
 from collections.abc import Iterable, Iterator, Sequence
 
 import numpy as np
@@ -24,31 +22,35 @@ import pyarrow as pa
 import pyarrow.compute as pc
 import pyarrow.parquet as pq
 
+from . import job
+from .chunks import kept_batches
 from .laws import growth_curve
-from .split import kept_batches
 from .storage import write_json
 
+RULE = "growth"
+SECTIONS = ("units",)
 BATCH_TOKENS = 1 << 20
 BATCH_ROWS = 4096
 # Stored (uncompressed) bytes of a chunk's rows read at once: bounds the job's memory.
 READ_BYTES = 16 << 20
 
 
-def _train_rows(prepared: Sequence[str], duplicates: pa.Table, column: str) -> Iterator[tuple[str, pa.Array]]:
-    """(chunk path, `column` of its kept train documents) in corpus order, in slices of
-    BATCH_ROWS documents, never holding more of a chunk than READ_BYTES of stored rows."""
-    for path in prepared:
-        for rows in kept_batches(path, "train", duplicates, [column], READ_BYTES):
+def _train_rows(chunks: Sequence[tuple[str, pa.Table]], column: str) -> Iterator[tuple[str, pa.Array]]:
+    """(chunk path, `column` of its kept train documents) in corpus order, for each (prepared
+    chunk, its removed documents), in slices of BATCH_ROWS documents, never holding more of a
+    chunk than READ_BYTES of stored rows."""
+    for path, removed in chunks:
+        for rows in kept_batches(path, "train", removed, [column], READ_BYTES):
             for start in range(0, rows.num_rows, BATCH_ROWS):
                 yield path, rows[column].slice(start, BATCH_ROWS).combine_chunks()
 
 
-def train_token_batches(prepared: Sequence[str], duplicates: pa.Table, vocabulary: pa.Array) -> Iterator[np.ndarray]:
+def train_token_batches(chunks: Sequence[tuple[str, pa.Table]], vocabulary: pa.Array) -> Iterator[np.ndarray]:
     """Type ids (positions in `vocabulary`) of the train tokens in corpus order, in batches of
     at most BATCH_TOKENS tokens (however long one document is)."""
     pending: list[tuple[str, pa.Array]] = []
     size = 0
-    for path, rows in _train_rows(prepared, duplicates, "tokens"):
+    for path, rows in _train_rows(chunks, "tokens"):
         tokens = pc.list_flatten(pc.list_flatten(rows))
         for start in range(0, len(tokens), BATCH_TOKENS):
             piece = tokens.slice(start, BATCH_TOKENS)
@@ -68,12 +70,12 @@ def whitespace_words(sentences: pa.Array) -> pa.Array:
     return parts.filter(pc.greater(pc.binary_length(parts), 0))
 
 
-def train_word_batches(prepared: Sequence[str], duplicates: pa.Table) -> Iterator[pa.Array]:
+def train_word_batches(chunks: Sequence[tuple[str, pa.Table]]) -> Iterator[pa.Array]:
     """Whitespace words of the train sentences in corpus order (subword mode), in batches of
     at most BATCH_TOKENS words."""
     pending: list[pa.Array] = []
     size = 0
-    for _, sentences in _train_rows(prepared, duplicates, "sentences"):
+    for _, sentences in _train_rows(chunks, "sentences"):
         words = whitespace_words(pc.list_flatten(sentences))
         for start in range(0, len(words), BATCH_TOKENS):
             piece = words.slice(start, BATCH_TOKENS)
@@ -118,27 +120,22 @@ def _type_ids(pieces: list[tuple[str, pa.Array]], vocabulary: pa.Array) -> np.nd
         token = encoded.dictionary[int(np.argmax(positions < 0))]
         path = next(path for path, tokens in pieces if pc.any(pc.equal(tokens, token)).as_py())
         raise SystemExit(
-            f"corpusmill: {path}: train token {token.as_py()!r} is not in stats/token_counts.parquet; "
+            f"corpusmill: {path}: train token {token.as_py()!r} is not in the build's token counts; "
             "the counts are older than the prepared chunks: rerun the workflow"
         )
     return positions[encoded.indices.to_numpy(zero_copy_only=False)]
 
 
 def main(argv: list[str] | None = None) -> None:
-    parser = argparse.ArgumentParser(description="Measure vocabulary growth over the train stream of a build.")
-    parser.add_argument("--token-counts", required=True, help="stats/token_counts.parquet (word units)")
-    parser.add_argument("--duplicates", required=True)
-    parser.add_argument("--options", required=True, help="JSON with the units section")
-    parser.add_argument("--output", required=True)
-    parser.add_argument("prepared", nargs="*", help="prepared chunk files in corpus order")
-    args = parser.parse_args(argv)
-    duplicates = pq.read_table(args.duplicates)
-    if json.loads(args.options)["units"] == "subword":
-        read, distinct = word_growth(train_word_batches(args.prepared, duplicates))
+    run = job.start(argv, RULE, "Measure vocabulary growth over the train stream of a build.")
+    layout = run.layout
+    chunks = [(layout.prepared(c), pq.ParquetFile(layout.removed(c)).read(use_threads=False)) for c in run.chunks()]
+    if run.options["units"] == "subword":
+        read, distinct = word_growth(train_word_batches(chunks))
     else:
-        vocabulary = pq.read_table(args.token_counts, columns=["token"])["token"].combine_chunks()
-        read, distinct = growth_curve(train_token_batches(args.prepared, duplicates, vocabulary), len(vocabulary))
-    write_json(args.output, {"unit": "words", "read": read.tolist(), "distinct": distinct.tolist()})
+        vocabulary = pq.ParquetFile(layout.word_counts).read(columns=["token"], use_threads=False)["token"].combine_chunks()
+        read, distinct = growth_curve(train_token_batches(chunks, vocabulary), len(vocabulary))
+    write_json(layout.growth, {"unit": "words", "read": read.tolist(), "distinct": distinct.tolist()})
 
 
 if __name__ == "__main__":

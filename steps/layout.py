@@ -1,4 +1,9 @@
-"""Where every file of a build lives, in one place, so the Snakefile, the steps and the docs agree."""
+"""Where every file of a build lives, in one place, so the Snakefile, the steps and the docs agree.
+
+Public results sit at the top of the build folder; what the steps hand each other lies under
+interim/, what the workflow decided before any job under interim/plan/, and one log per job
+under logs/. Chunk keys (steps.ingest.chunk_key) hold only letters, digits and `_.+-`.
+"""
 
 from __future__ import annotations
 
@@ -6,23 +11,11 @@ from dataclasses import dataclass
 from pathlib import Path
 
 SPLITS = ("train", "dev", "test")
-KINDS = ("ngram", "block", "stream")
-# The windows section that enables each kind.
-KIND_SECTIONS = {"ngram": "ngram", "block": "blocks", "stream": "streams"}
-
-
-def enabled_kinds(windows: dict) -> list[str]:
-    return [kind for kind in KINDS if windows[KIND_SECTIONS[kind]]["enabled"]]
-
-
-def _part(part: int | str) -> str:
-    """Parts are four digits in file names; a string (e.g. a wildcard) is used as given."""
-    return f"{part:04d}" if isinstance(part, int) else part
 
 
 @dataclass(frozen=True)
 class Layout:
-    """Paths inside one build folder. Public results sit at the top; intermediates under interim/."""
+    """Paths inside one build folder."""
 
     root: str
 
@@ -66,25 +59,33 @@ class Layout:
     def report(self) -> str:
         return self._join("report", "index.html")
 
-    def shard(self, split: str, kind: str, part: int | str) -> str:
-        return self._join("shards", split, f"{kind}-{_part(part)}.parquet")
-
+    @property
     def shards_dir(self) -> str:
         return self._join("shards")
 
-    # The plan, written when the workflow is read: what each chunk reads, and the corpus survey.
+    def shard(self, split: str, kind: str, chunk: str) -> str:
+        return self._join("shards", split, f"{kind}-{chunk}.parquet")
+
+    # The plan, written when the workflow is read.
+    @property
+    def chunk_list(self) -> str:
+        """The chunk keys in corpus order."""
+        return self._join("interim", "plan", "chunks.json")
+
     def chunk_plan(self, chunk: str) -> str:
+        """What one chunk reads: its files with size and time, its place in a cut file."""
         return self._join("interim", "plan", "chunks", f"{chunk}.json")
 
     @property
     def corpus_plan(self) -> str:
+        """The corpus survey: files read, unselected, excluded, refused."""
         return self._join("interim", "plan", "corpus.json")
 
-    @property
-    def manifest_plan(self) -> str:
-        return self._join("interim", "plan", "manifest.json")
+    def options(self, rule: str) -> str:
+        """The configuration sections one rule reads."""
+        return self._join("interim", "plan", "options", f"{rule}.json")
 
-    # Intermediates, one set per input chunk.
+    # Per chunk.
     def prepared(self, chunk: str) -> str:
         return self._join("interim", "prepared", f"{chunk}.parquet")
 
@@ -97,22 +98,35 @@ class Layout:
     def counts(self, chunk: str) -> str:
         return self._join("interim", "counts", f"{chunk}.parquet")
 
-    def encoded(self, chunk: str, split: str, part: int | str) -> str:
-        return self._join("interim", "encoded", chunk, f"{split}-{_part(part)}.parquet")
+    def removed(self, chunk: str) -> str:
+        """The chunk's documents that deduplication removes."""
+        return self._join("interim", "removed", f"{chunk}.parquet")
 
-    def encode_stats(self, chunk: str) -> str:
-        return self._join("interim", "encoded", chunk, "stats.json")
+    def shard_stats(self, chunk: str) -> str:
+        return self._join("interim", "shards", f"{chunk}.json")
 
-    def shard_stats(self, split: str, part: int | str) -> str:
-        return self._join("interim", "shards", f"{split}-{_part(part)}.json")
+    def id_counts(self, chunk: str) -> str:
+        """Occurrences of each id per split in the chunk's shards."""
+        return self._join("interim", "shards", f"{chunk}.ids.parquet")
+
+    # Corpus-wide intermediates.
+    @property
+    def duplicates(self) -> str:
+        return self._join("interim", "duplicates.parquet")
 
     @property
     def removed_counts(self) -> str:
         return self._join("interim", "duplicates.counts.parquet")
 
     @property
-    def duplicates(self) -> str:
-        return self._join("interim", "duplicates.parquet")
+    def ids(self) -> str:
+        """The ids the shards use (vocabulary.tsv's format; counts as far as known then)."""
+        return self._join("interim", "vocabulary", "ids.tsv")
+
+    @property
+    def word_counts(self) -> str:
+        """Every token's train, dev and test count (word units), before the shards."""
+        return self._join("interim", "vocabulary", "counts.parquet")
 
     @property
     def abbreviations(self) -> str:
@@ -130,9 +144,7 @@ class Layout:
         """A learned model, cached under the key of its sample and settings."""
         return self._join("interim", "subword", "models", f"{key}.model")
 
-    def piece_counts(self, chunk: str) -> str:
-        return self._join("interim", "encoded", chunk, "pieces.parquet")
-
+    # Logs.
     def log(self, rule: str, name: str = "") -> str:
         return self._join("logs", rule, f"{name or rule}.log")
 

@@ -9,84 +9,68 @@ by splitting = kept + dropped (by reason).
 
 from __future__ import annotations
 
-import argparse
-import hashlib
 import json
 from collections.abc import Sequence
 from pathlib import Path
 
-import pyarrow.parquet as pq
-
-from .layout import SPLITS
+from . import job
+from .formats import Figures, ShardStats, file_sha256, read_shard_stats, read_vocabulary
+from .layout import SPLITS, Layout
 from .settings import digest, read_json
 from .storage import write_json
-from .vocab import read_vocabulary
 
-SCHEMA_VERSION = 1
-
-
-def file_sha256(path: str | Path) -> str:
-    hasher = hashlib.sha256()
-    with open(path, "rb") as handle:
-        while block := handle.read(1 << 22):
-            hasher.update(block)
-    return hasher.hexdigest()
+RULE = "manifest"
+SECTIONS = "all"  # the manifest records the whole resolved configuration
+SCHEMA_VERSION = 2
 
 
 def build_manifest(
-    config: dict,
-    corpus: dict,
-    build_dir: str,
-    accounting: dict,
-    part_stats: dict[tuple[str, int], dict],
-    shards: dict[tuple[str, int], dict[str, str]],
-    extra_files: Sequence[str],
+    config: dict, corpus: dict, layout: Layout, accounting: dict, stats: Sequence[ShardStats], inputs: dict[str, dict], extra_files: Sequence[str]
 ) -> dict:
-    base = Path(build_dir)
-    vocabulary = read_vocabulary(base / "vocabulary.tsv")
+    """The manifest from the shard jobs' statistics (every file with rows, bytes and SHA-256, as
+    written), the accounting, the corpus survey and the inputs' sizes and SHA-256 (hashed by
+    the prepare jobs while they read them)."""
+    base = Path(layout.root)
+    vocabulary = read_vocabulary(layout.vocabulary)
     splits = {}
     for split in SPLITS:
-        figures = {"documents": 0, "sentences": 0, "tokens": 0, "rows": {}, "shards": []}
-        for (name, part), stats in sorted(part_stats.items()):
-            if name != split:
-                continue
-            for key in ("documents", "sentences", "tokens", "block_ids", "stream_ids"):
-                if key in stats:
-                    figures[key] = figures.get(key, 0) + stats[key]
-            for kind, path in sorted(shards[(name, part)].items()):
-                rows = pq.ParquetFile(path).metadata.num_rows
+        totals = Figures()
+        figures: dict = {"rows": {}, "shards": []}
+        for chunk in stats:
+            for per_split in chunk.sources.values():
+                if split in per_split:
+                    totals.add(per_split[split])
+            for kind, rows in chunk.rows.get(split, {}).items():
                 figures["rows"][kind] = figures["rows"].get(kind, 0) + rows
-                figures["shards"].append(
-                    {
-                        "file": Path(path).relative_to(base).as_posix(),
-                        "kind": kind,
-                        "part": part,
-                        "rows": rows,
-                        "bytes": Path(path).stat().st_size,
-                        "sha256": file_sha256(path),
-                    }
-                )
+            for key in ("block_ids", "stream_ids"):
+                if split in getattr(chunk, key):
+                    figures[key] = figures.get(key, 0) + getattr(chunk, key)[split]
+            figures["shards"] += [
+                {"file": f.file, "kind": f.kind, "chunk": f.chunk, "rows": f.rows, "bytes": f.bytes, "sha256": f.sha256}
+                for f in chunk.files
+                if f.split == split
+            ]
+        figures.update(documents=totals.documents, sentences=totals.sentences, tokens=totals.tokens)
+        figures["rows"] = dict(sorted(figures["rows"].items()))
         splits[split] = figures
-    inputs = []
-    for source in corpus["sources"]:
-        path = Path(corpus["root"]) / source
-        inputs.append({"path": source, "bytes": path.stat().st_size, "sha256": file_sha256(path)})
+    listed = [{"path": source, **inputs[source]} for source in corpus["sources"]]
     return {
         "schema_version": SCHEMA_VERSION,
         "config": config,
         "config_sha256": digest(config),
-        "inputs": inputs,
-        "inputs_sha256": digest(inputs),
+        "inputs": listed,
+        "inputs_sha256": digest(listed),
         "not_read": {key: corpus[key] for key in ("unselected", "excluded", "refused")},
         "vocabulary": {
             "file": "vocabulary.tsv",
-            "sha256": vocabulary.digest(),
+            "sha256": vocabulary.sha256,
+            "ids_sha256": vocabulary.ids_digest,
             "size": vocabulary.size,
             "words": vocabulary.size - vocabulary.first_word_id,
             "reserved": vocabulary.reserved,
             **(
-                {"subword_model": {"file": "subword.model", "sha256": file_sha256(base / "subword.model")}}
-                if config.get("units") == "subword"
+                {"subword_model": {"file": "subword.model", "sha256": file_sha256(layout.subword_model)}}
+                if vocabulary.units == "subword"
                 else {}
             ),
         },
@@ -97,19 +81,16 @@ def build_manifest(
 
 
 def main(argv: list[str] | None = None) -> None:
-    parser = argparse.ArgumentParser(description="Write the manifest of a build.")
-    parser.add_argument("--options", required=True)
-    parser.add_argument("--plan", required=True, help="the manifest's plan file (steps/plan.py): the build's files")
-    parser.add_argument("--output", required=True)
-    args = parser.parse_args(argv)
-    config = json.loads(args.options)
-    plan = read_json(args.plan)
-    part_stats = {(s["split"], s["part"]): read_json(s["stats"]) for s in plan["parts"]}
-    shards = {(s["split"], s["part"]): s["files"] for s in plan["parts"]}
+    run = job.start(argv, RULE, "Write the manifest of a build.")
+    layout, chunks = run.layout, run.chunks()
+    stats = [read_shard_stats(layout.shard_stats(chunk)) for chunk in chunks]
+    inputs: dict[str, dict] = {}
+    for chunk in chunks:
+        inputs.update(read_json(layout.tally(chunk))["inputs"])
     manifest = build_manifest(
-        config, read_json(plan["corpus"]), plan["build_dir"], read_json(plan["accounting"]), part_stats, shards, plan["extra_files"]
+        run.options, read_json(layout.corpus_plan), layout, read_json(layout.accounting), stats, inputs, [layout.coverage]
     )
-    write_json(args.output, manifest)
+    write_json(layout.manifest, manifest)
     print(json.dumps({key: value for key, value in manifest["accounting"].items() if key != "files"}, sort_keys=True))
 
 

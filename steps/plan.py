@@ -1,4 +1,4 @@
-"""The build plan the Snakefile reads: inputs, chunks, shard parts and per-rule options.
+"""The build plan the Snakefile reads: inputs, chunks, each rule's options and code hash.
 
 Everything here is decided from the configuration and the corpus folder's listing and file
 sizes, before any job runs. Corpus files are not handed to Snakemake as inputs: a file name may
@@ -6,12 +6,19 @@ hold characters Snakemake reads as wildcards (`{x}`) or path variables (`<x>`), 
 thousands of small files would not fit on one command line. Instead the plan writes one small
 JSON file per chunk (`Layout.chunk_plan`) naming its files with their size and modification
 time; that file is the prepare job's input, so a changed file reruns its own chunk. It also
-writes the corpus survey (`Layout.corpus_plan`): the files read, left unselected, excluded or
-refused. Both are rewritten only when their content changes.
+writes the chunk list, the corpus survey (`Layout.corpus_plan`: the files read, left
+unselected, excluded or refused) and each rule's options file: the configuration sections its
+step module declares it reads (SECTIONS), so changing an option reruns exactly the rules that
+read it. Each is rewritten only when its content changes.
+
+A rule's code hash covers the module it runs and every step module that one imports, found
+from the sources' import statements: editing any of them reruns the rule. Nothing here imports
+numpy or Arrow, as the Snakemake process runs it.
 """
 
 from __future__ import annotations
 
+import ast
 import hashlib
 import json
 import os
@@ -20,56 +27,99 @@ from dataclasses import dataclass
 from pathlib import Path
 
 from . import ingest
-from .layout import SPLITS, Layout, enabled_kinds
+from .formats import enabled_kinds
+from .layout import SPLITS, Layout
 
 STEPS_DIR = Path(__file__).resolve().parent
 
-# The step modules each rule runs; editing one reruns the rules that use it.
-RULE_MODULES = {
-    "prepare": ("ingest", "clean", "segment", "unicode_breaks", "split", "prepare", "vocab", "storage", "accounting", "progress"),
-    "abbreviations": ("segment", "unicode_breaks", "clean", "ingest", "storage"),
-    "deduplicate": ("split", "vocab", "storage", "accounting", "settings"),
-    "subword_sample": ("subword", "split", "vocab", "storage"),
-    "subword_train": ("subword", "vocab", "storage"),
-    "subword_model": ("subword", "vocab", "storage"),
-    "vocabulary": ("vocab", "storage"),
-    "encode": ("encode", "vocab", "split", "storage"),
-    "shard": ("shards", "windows", "vocab", "split", "encode", "storage"),
-    "coverage": ("report", "summary", "vocab", "storage"),
-    "manifest": ("manifest", "vocab", "settings", "storage"),
-    "accounting": ("accounting", "storage"),
-    "growth": ("growth", "laws", "split", "storage", "vocab"),
-    "report": ("report_page", "laws", "settings", "storage", "vocab"),
-}
+# The rules of the workflow, each named after the step module it runs; a module with several
+# entries runs as several rules named `<module>_<entry>` (rules/*.smk).
+RULES = (
+    "abbreviations", "prepare", "deduplicate", "subword_sample", "subword_train", "subword_model", "vocabulary", "shards",
+    "vocabulary_table", "accounting", "growth", "coverage", "manifest", "report",
+)  # fmt: skip
 
-# The configuration sections each rule reads; changing another section does not rerun it.
-RULE_SECTIONS = {
-    "prepare": ("corpus", "clean", "segment", "split", "units"),
-    "abbreviations": ("corpus", "clean"),
-    "vocabulary": ("vocabulary", "units"),
-    "encode": ("shards", "units", "subword"),
-    "subword_sample": ("subword",),
-    "subword_train": ("subword",),
-    "shard": ("windows", "shards", "vocabulary", "units"),
-    "coverage": ("report", "units", "vocabulary"),
-    "growth": ("units",),
-    "report": ("report", "windows"),
-}
+
+def module_of(rule: str) -> str:
+    """The step module a rule runs: its name, or the longest module name it starts with."""
+    if (STEPS_DIR / f"{rule}.py").exists():
+        return rule
+    candidates = [name for name in _module_names() if rule.startswith(name + "_")]
+    if not candidates:
+        raise KeyError(f"no step module runs rule {rule!r}")
+    return max(candidates, key=len)
+
+
+def _module_names() -> list[str]:
+    return sorted(path.stem for path in STEPS_DIR.glob("*.py"))
+
+
+def _parsed(module: str) -> ast.Module:
+    return ast.parse((STEPS_DIR / f"{module}.py").read_text(encoding="utf-8"))
+
+
+def imports_of(module: str) -> set[str]:
+    """The step modules `module` imports (relative imports, at any depth of the file)."""
+    found = set()
+    for node in ast.walk(_parsed(module)):
+        if isinstance(node, ast.ImportFrom) and node.level == 1:
+            if node.module:
+                found.add(node.module.split(".")[0])
+            else:
+                found.update(alias.name for alias in node.names)
+    return found
+
+
+def import_closure(module: str) -> list[str]:
+    """`module` and every step module it imports, directly or not, sorted."""
+    seen, pending = set(), [module]
+    while pending:
+        name = pending.pop()
+        if name not in seen:
+            seen.add(name)
+            pending.extend(imports_of(name) - seen)
+    return sorted(seen)
+
+
+def sections_of(module: str) -> tuple[str, ...] | str:
+    """The configuration sections a step module declares it reads (its SECTIONS), read from its
+    source, so the workflow process imports no step module's dependencies."""
+    for node in _parsed(module).body:
+        target = node.target if isinstance(node, ast.AnnAssign) else (node.targets[0] if isinstance(node, ast.Assign) else None)
+        if isinstance(target, ast.Name) and target.id == "SECTIONS" and node.value is not None:
+            return ast.literal_eval(node.value)
+    raise KeyError(f"steps/{module}.py declares no SECTIONS")
+
+
+def code_hash(rule: str) -> str:
+    """SHA-256 over the source of the module a rule runs and every step module it imports:
+    editing any of them reruns the rule."""
+    hasher = hashlib.sha256()
+    for module in import_closure(module_of(rule)):
+        hasher.update(module.encode() + b"\0" + (STEPS_DIR / f"{module}.py").read_bytes())
+    return hasher.hexdigest()[:16]
+
+
+def rule_options(config: dict, rule: str) -> dict:
+    """The configuration a rule's module reads: whole sections, or single options named
+    `section.option` (so another option of that section does not rerun the rule)."""
+    sections = sections_of(module_of(rule))
+    if sections == "all":
+        return dict(config)
+    options: dict = {}
+    for name in sections:
+        section, _, option = name.partition(".")
+        if option:
+            options.setdefault(section, {})[option] = config[section][option]
+        else:
+            options[section] = config[section]
+    return options
+
 
 # Largest file accepted as a frozen vocabulary or subword model: far above any real one, and
 # low enough that a wrong path (a disk image, /dev/zero) stops with a message, not a hang.
 MAX_FROZEN_BYTES = 1 << 30
 VOCABULARY_HEADER = "id\ttoken\tcount\tkind"
-
-
-def code_hash(rule: str) -> str:
-    """SHA-256 over the source of the step modules a rule runs."""
-    hasher = hashlib.sha256()
-    for module in RULE_MODULES[rule]:
-        path = STEPS_DIR / f"{module}.py"
-        if path.exists():
-            hasher.update(path.read_bytes())
-    return hasher.hexdigest()[:16]
 
 
 def frozen_file(field: str, value: str, header: str | None) -> str:
@@ -117,13 +167,12 @@ class Plan:
     root: str
     survey: ingest.CorpusSurvey
     chunks: list[ingest.Chunk]
-    parts: dict[str, int]
     kinds: list[str]
     layout: Layout
     frozen: dict[str, str]
 
     @classmethod
-    def from_config(cls, config: dict) -> "Plan":
+    def from_config(cls, config: dict) -> Plan:
         corpus = config["corpus"]
         root = corpus["root"]
         survey = ingest.survey_corpus(root, corpus["include"], corpus["exclude"], corpus["outside_links"] == "follow")
@@ -134,10 +183,8 @@ class Plan:
         chunk_bytes = int(corpus["chunk_mb"] * (1 << 20))
         pack_bytes = int(corpus["pack_mb"] * (1 << 20))
         chunks = ingest.plan_chunks(root, survey.sources, chunk_bytes, corpus["text_unit"], pack_bytes)
-        shards = config["shards"]
-        parts = {"train": shards["train_files"], "dev": shards["heldout_files"], "test": shards["heldout_files"]}
         layout = Layout(config["build_dir"])
-        return cls(config, root, survey, chunks, parts, enabled_kinds(config["windows"]), layout, frozen_digests(config))
+        return cls(config, root, survey, chunks, enabled_kinds(config["windows"]), layout, frozen_digests(config))
 
     @property
     def sources(self) -> list[str]:
@@ -147,27 +194,12 @@ class Plan:
     def chunk_keys(self) -> list[str]:
         return [c.key for c in self.chunks]
 
-    def chunk(self, key: str) -> ingest.Chunk:
-        return self._by_key[key]
-
-    def __post_init__(self) -> None:
-        self._by_key = {c.key: c for c in self.chunks}
-
-    def options(self, rule: str) -> str:
-        """The JSON configuration sections a rule reads."""
-        return json.dumps({k: self.config[k] for k in RULE_SECTIONS[rule]}, sort_keys=True)
-
-    def split_parts(self) -> list[tuple[str, int]]:
-        return [(split, part) for split in SPLITS for part in range(self.parts[split])]
-
-    def encoded_outputs(self, chunk: str) -> list[str]:
-        return [self.layout.encoded(chunk, split, part) for split, part in self.split_parts()]
-
-    def shard_files(self, split: str, part: int | str) -> dict[str, str]:
-        return {kind: self.layout.shard(split, kind, part) for kind in self.kinds}
+    def shards_of(self, chunk: str) -> dict[str, str]:
+        """The shard files one chunk's job writes, by `<split>_<kind>` (Snakemake output names)."""
+        return {f"{split}_{kind}": self.layout.shard(split, kind, chunk) for split in SPLITS for kind in self.kinds}
 
     def all_shards(self) -> list[str]:
-        return [path for split, part in self.split_parts() for path in self.shard_files(split, part).values()]
+        return [path for chunk in self.chunk_keys for path in self.shards_of(chunk).values()]
 
     def corpus_record(self) -> dict:
         """The survey of the corpus folder, for the manifest and the report."""
@@ -180,27 +212,15 @@ class Plan:
             "refused": [{"path": path, "reason": reason} for path, reason in survey.refused],
         }
 
-    def write_files(self, extra_files: list[str]) -> None:
-        """Write the chunk plans, the corpus survey and the manifest's plan, each only when its
-        content changed."""
+    def write_files(self) -> None:
+        """Write the chunk list and plans, the corpus survey and every rule's options, each only
+        when its content changed (so its time, a rerun trigger, stays)."""
+        write_if_changed(self.layout.chunk_list, self.chunk_keys)
         for chunk in self.chunks:
             write_if_changed(self.layout.chunk_plan(chunk.key), chunk_record(self.root, chunk))
         write_if_changed(self.layout.corpus_plan, self.corpus_record())
-        write_if_changed(self.layout.manifest_plan, self.manifest_record(extra_files))
-
-    def manifest_record(self, extra_files: list[str]) -> dict:
-        """What the manifest step needs to know besides the corpus survey: every file of the
-        build it lists."""
-        return {
-            "build_dir": self.layout.root,
-            "corpus": self.layout.corpus_plan,
-            "accounting": self.layout.accounting,
-            "parts": [
-                {"split": s, "part": p, "stats": self.layout.shard_stats(s, p), "files": self.shard_files(s, p)}
-                for s, p in self.split_parts()
-            ],
-            "extra_files": extra_files,
-        }
+        for rule in RULES:
+            write_if_changed(self.layout.options(rule), rule_options(self.config, rule))
 
 
 def chunk_record(root: str | Path, chunk: ingest.Chunk) -> dict:
@@ -213,7 +233,7 @@ def chunk_record(root: str | Path, chunk: ingest.Chunk) -> dict:
     return {"key": chunk.key, "index": chunk.index, "count": chunk.count, "files": files}
 
 
-def write_if_changed(path: str | Path, value: dict) -> None:
+def write_if_changed(path: str | Path, value: object) -> None:
     """Write JSON atomically unless the file already holds exactly it (its time then stays)."""
     text = json.dumps(value, indent=1, sort_keys=True, ensure_ascii=False) + "\n"
     target = Path(path)
@@ -226,3 +246,11 @@ def write_if_changed(path: str | Path, value: dict) -> None:
     temporary = target.with_name(f".{target.name}.partial")
     temporary.write_text(text, encoding="utf-8")
     os.replace(temporary, target)
+
+
+def module_constant(module: str, name: str) -> object:
+    """A constant a step module defines (e.g. the threads a step runs), read from its source."""
+    for node in _parsed(module).body:
+        if isinstance(node, ast.Assign) and isinstance(node.targets[0], ast.Name) and node.targets[0].id == name:
+            return ast.literal_eval(node.value)
+    raise KeyError(f"steps/{module}.py defines no {name}")

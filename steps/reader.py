@@ -64,9 +64,10 @@ import numpy as np
 import pyarrow as pa
 import pyarrow.parquet as pq
 
+from .formats import FormatError, Vocabulary, read_vocabulary
+
 MANIFEST = "manifest.json"
 VOCABULARY = "vocabulary.tsv"
-VOCABULARY_HEADER = "id\ttoken\tcount\tkind"
 REBUILD = "rerun the workflow (snakemake) on this build folder to rewrite it"
 # Far above any real build's (a manifest line per shard; a vocabulary line per id), far below
 # what would exhaust memory when read whole.
@@ -76,8 +77,8 @@ KINDS = ("block", "ngram", "stream")
 LARGEST_COUNT = 2**63 - 1  # Parquet's row counts are int64
 
 # The manifest fields the reader reads, with their types (see structure_problem).
-SHARD_FIELDS = {"file": str, "kind": KINDS, "part": int, "rows": int, "sha256": str}
-READER_FIELDS = {"vocabulary": {"sha256": str}, "splits": {"*": {"shards": [SHARD_FIELDS]}}}
+SHARD_FIELDS = {"file": str, "kind": KINDS, "chunk": str, "rows": int, "sha256": str}
+READER_FIELDS = {"vocabulary": {"sha256": str, "ids_sha256": str}, "splits": {"*": {"shards": [SHARD_FIELDS]}}}
 
 Batch = dict[str, "np.ndarray | list[str]"]
 
@@ -93,28 +94,11 @@ class Shard:
     path: Path
     split: str
     kind: str
-    part: int
+    chunk: str
     rows: int
     sha256: str
     group_rows: tuple[int, ...]
     info: dict
-
-
-@dataclass(frozen=True)
-class VocabularyTable:
-    """vocabulary.tsv as parallel lists; `tokens[i]` is the token with id i."""
-
-    tokens: list[str]
-    counts: np.ndarray
-    kinds: list[str]
-
-    @property
-    def size(self) -> int:
-        return len(self.tokens)
-
-    def id(self, token: str) -> int:
-        """The id of a token (e.g. '</s>'); KeyError when absent."""
-        return self.tokens.index(token)
 
 
 def key_path(where: str, key: str | int) -> str:
@@ -243,27 +227,14 @@ def _sha256(path: Path) -> str:
     return hasher.hexdigest()
 
 
-def _read_vocabulary(path: Path) -> VocabularyTable:
-    """Parse vocabulary.tsv without the workflow's code, so the reader stays dependency-light."""
-    lines = path.read_text(encoding="utf-8").split("\n")
-    if lines[0] != VOCABULARY_HEADER:
-        raise BuildError(f"{path}: line 1: expected the header {VOCABULARY_HEADER!r}; {REBUILD}")
-    tokens: list[str] = []
-    counts: list[int] = []
-    kinds: list[str] = []
-    for number, line in enumerate(lines[1:], start=2):
-        if not line:
-            continue
-        fields = line.split("\t")
-        if len(fields) != 4 or fields[0] != str(len(tokens)) or not fields[2].isdigit():
-            raise BuildError(f"{path}: line {number}: expected '{len(tokens)}<TAB>token<TAB>count<TAB>kind'; {REBUILD}")
-        tokens.append(fields[1])
-        counts.append(int(fields[2]))
-        kinds.append(fields[3])
-    return VocabularyTable(tokens, np.asarray(counts, dtype=np.int64), kinds)
+def _read_vocabulary(path: Path) -> Vocabulary:
+    try:
+        return read_vocabulary(path)
+    except (FormatError, UnicodeDecodeError) as error:
+        raise BuildError(f"{error}; {REBUILD}") from None
 
 
-def _shard(root: Path, entry: dict, split: str, vocabulary_sha256: str, verify_hash: bool) -> Shard:
+def _shard(root: Path, entry: dict, split: str, ids_sha256: str, verify_hash: bool) -> Shard:
     """Check one manifest entry against its file's footer and metadata."""
     path = root / entry["file"]
     if problem := file_problem(path):
@@ -296,14 +267,14 @@ def _shard(root: Path, entry: dict, split: str, vocabulary_sha256: str, verify_h
             f"{path}: metadata says split={info.get('split')!r} kind={info.get('kind')!r}, "
             f"{root / MANIFEST} says split={split!r} kind={entry['kind']!r}; {REBUILD}"
         )
-    if info.get("vocabulary_sha256") != vocabulary_sha256:
+    if info.get("ids_sha256") != ids_sha256:
         raise BuildError(
-            f"{path}: written with vocabulary sha256 {info.get('vocabulary_sha256')}, but {root / VOCABULARY} "
-            f"has sha256 {vocabulary_sha256}; its ids mean other tokens; {REBUILD}"
+            f"{path}: written with the ids {str(info.get('ids_sha256'))[:12]}…, but {root / VOCABULARY} holds the ids "
+            f"{ids_sha256[:12]}…; its ids mean other tokens; {REBUILD}"
         )
     if verify_hash and _sha256(path) != entry["sha256"]:
         raise BuildError(f"{path}: SHA-256 differs from {root / MANIFEST}; the file was changed after the build; {REBUILD}")
-    return Shard(path, split, entry["kind"], int(entry["part"]), int(entry["rows"]), entry["sha256"], groups, info)
+    return Shard(path, split, entry["kind"], entry["chunk"], int(entry["rows"]), entry["sha256"], groups, info)
 
 
 def _worker_range(total: int, rank: int, world_size: int) -> tuple[int, int]:
@@ -444,7 +415,7 @@ class _Batcher:
 class Build:
     """A checked build folder; use `open_build` to make one."""
 
-    def __init__(self, root: Path, manifest: dict, vocabulary: VocabularyTable, shards: list[Shard]) -> None:
+    def __init__(self, root: Path, manifest: dict, vocabulary: Vocabulary, shards: list[Shard]) -> None:
         self.root = root
         self.manifest = manifest
         self.vocabulary = vocabulary
@@ -468,9 +439,9 @@ class Build:
         return chosen
 
     def info(self, split: str, kind: str) -> dict:
-        """The shards' `corpusmill` metadata (n or length, reserved ids, vocabulary size), minus the part."""
+        """The shards' `corpusmill` metadata (n or length, reserved ids, vocabulary size), minus the chunk."""
         info = dict(self.shards(split, kind)[0].info)
-        info.pop("part", None)
+        info.pop("chunk", None)
         return info
 
     def rows(self, split: str, kind: str, rank: int = 0, world_size: int = 1) -> int:
@@ -590,6 +561,8 @@ def open_build(path: str | Path, *, verify_hashes: bool = False) -> Build:
             f"the vocabulary was edited or replaced after the build; {REBUILD}"
         )
     vocabulary = _read_vocabulary(vocabulary_path)
+    if vocabulary.ids_digest != manifest["vocabulary"]["ids_sha256"]:
+        raise BuildError(f"{vocabulary_path}: its ids differ from those {manifest_path} records; {REBUILD}")
     shards, seen, folders = [], {}, {}
     for split, figures in manifest["splits"].items():
         for index, entry in enumerate(figures["shards"]):
@@ -600,5 +573,5 @@ def open_build(path: str | Path, *, verify_hashes: bool = False) -> Build:
             if target in seen:
                 raise BuildError(f"{manifest_path}: {where} names the same file as {seen[target]}; {REBUILD}")
             seen[target] = where
-            shards.append(_shard(root, entry, split, vocabulary_sha256, verify_hashes))
+            shards.append(_shard(root, entry, split, vocabulary.ids_digest, verify_hashes))
     return Build(root, manifest, vocabulary, shards)

@@ -1,190 +1,546 @@
-"""Coverage statistics: how well the vocabulary covers each split, and at other sizes.
+"""The vocabulary coverage report: one self-contained HTML page per build (build/report/index.html).
 
-Figures come from the merged token counts (stats/token_counts.parquet, frequency-sorted) and
-the vocabulary; the shard jobs' statistics (word units) add the unknown-class breakdown and
-OOV per source file.
+It reads the coverage statistics, the manifest, the merged token counts and the vocabulary
+growth curve (stats/growth.json, steps/growth.py, computed beside the shard jobs). Plots are PNG
+images embedded as base64, drawn with matplotlib's Agg backend without metadata, so the page
+needs no network and its bytes are the same on every run.
 
-In subword mode (units = subword) the figures are per split: pieces per whitespace word,
-pieces per sentence, the <unk> rate as encoded, the share of byte pieces, and the <unk> rate
-the same model would have without byte fallback (each run of byte pieces would be one <unk>),
-from the per-chunk encode statistics.
+Subword mode (coverage.json has `units: subword`) shows what applies to a piece model instead:
+pieces per word and per sentence, the <unk> rate with and without byte fallback (by split and by
+input file, from the encode statistics), the rank-frequency law of the pieces, and vocabulary
+growth measured in whitespace-separated words (see steps/growth.py).
+
+No text from the corpus is drawn into a plot: file names and words go into HTML tables, plots
+label them by rank. DejaVu, matplotlib's only font here, lacks CJK glyphs, and matplotlib reads
+`$…$` in a label as mathematics.
 """
 
 from __future__ import annotations
 
-import argparse
-import json
-from collections.abc import Sequence
+import base64
+import heapq
+import html
+import io
+from collections.abc import Callable, Sequence
+
+import matplotlib
+
+matplotlib.use("Agg")
 
 import numpy as np
 import pyarrow as pa
-import pyarrow.compute as pc
 import pyarrow.parquet as pq
+from matplotlib.figure import Figure
+from matplotlib.ticker import PercentFormatter
 
+from . import job
+from .formats import escape
+from .laws import FLOAT32_BYTES, ModelSize, PowerFit, fit_heaps, fit_zipf, log_points
 from .layout import SPLITS
 from .settings import read_json
-from .storage import write_json
-from .summary import format_table
-from .vocab import Vocabulary, read_vocabulary
+from .storage import write_text
+from .summary import block_share, format_blocks
 
-TABLE_SIZES = (100, 1000, 2000, 5000, 10000, 20000, 50000, 100000)
-
-
-def _rate(part: float, whole: float) -> float:
-    """part / whole to six decimals; 0.0 for 0 of 0, which JSON cannot mark otherwise. Each rate's
-    denominator is in coverage.json too, and the page and the summary show a dash where it is zero."""
-    return round(part / whole, 6) if whole else 0.0
-
-
-def in_vocabulary(counts: pa.Table, vocabulary: Vocabulary) -> np.ndarray:
-    words = pa.array(vocabulary.tokens[vocabulary.first_word_id :], pa.string())
-    return pc.is_in(counts["token"], value_set=words).to_numpy(zero_copy_only=False)
-
-
-def split_figures(counts: pa.Table, known: np.ndarray, split: str, top: int) -> dict:
-    column = counts[split].to_numpy()
-    present = column > 0
-    oov = present & ~known
-    tokens = int(column.sum())
-    oov_tokens = int(column[oov].sum())
-    figures = {
-        "tokens": tokens,
-        "types": int(present.sum()),
-        "oov_tokens": oov_tokens,
-        "oov_rate": _rate(oov_tokens, tokens),
-        "oov_types": int(oov.sum()),
-    }
-    if split != "train":
-        order = np.argsort(-column[oov], kind="stable")[:top]
-        names = counts["token"].filter(pa.array(oov)).to_pylist()
-        values = column[oov]
-        figures["top_oov"] = [[names[i], int(values[i])] for i in order]
-    return figures
+RULE = "report"
+SECTIONS = ("report", "windows.ngram")
+COLOURS = {"train": "#1f5f8b", "dev": "#d9822b", "test": "#3a8f4b"}
+STYLE = """
+body{font-family:system-ui,-apple-system,"Segoe UI",sans-serif;max-width:62rem;margin:2rem auto;padding:0 1rem;color:#1b1f24;line-height:1.45}
+h1{font-size:1.6rem;margin-bottom:.2rem} h2{font-size:1.25rem;margin-top:2.4rem;border-bottom:1px solid #d0d7de;padding-bottom:.2rem}
+h3{font-size:1.05rem} p.lead{color:#57606a;margin-top:0} nav ol{columns:2}
+table{border-collapse:collapse;margin:.6rem 0 1rem;font-size:.92rem} th,td{padding:.22rem .6rem;border-bottom:1px solid #eaeef2}
+th{text-align:left;background:#f6f8fa} td.n{text-align:right;font-variant-numeric:tabular-nums} tr.chosen td{font-weight:600;background:#fff8c5}
+td.file{overflow-wrap:anywhere;min-width:12rem}
+figure{margin:1rem 0} figure img{max-width:100%;height:auto;border:1px solid #eaeef2} figcaption{color:#57606a;font-size:.9rem}
+.pair{display:flex;gap:2rem;flex-wrap:wrap} code{background:#f6f8fa;padding:0 .2rem}
+"""
+# Shown for a rate whose denominator is zero (0 of 0 tokens): coverage.json stores 0.0 there.
+DASH = "—"
+# Input files shown per file in the chart and in the table: those with the most out-of-vocabulary
+# (or would-be <unk>) tokens. Bounds the page and the report job's memory whatever the number of
+# files; coverage.json and the encode statistics keep every file.
+CHART_FILES = 20
+TABLE_FILES = 100
 
 
-def size_table(counts: pa.Table, sizes: Sequence[int], known: np.ndarray, words: int) -> list[dict]:
-    """Train coverage and dev/test OOV rate if the vocabulary were the k most frequent words,
-    and the row of the build's own `words` words (`chosen`), figured from the words themselves
-    (`known`): a frozen vocabulary need not be the most frequent words of this corpus, and
-    may hold words it never uses."""
+# ---------------------------------------------------------------- data
+
+
+def top_sources(sources: dict[str, dict], weight: Callable[[dict], int], count: int) -> list[tuple[str, dict]]:
+    """The `count` files of largest `weight` (largest first, then by name), without sorting them all."""
+    return heapq.nsmallest(count, sources.items(), key=lambda item: (-weight(item[1]), item[0]))
+
+
+def coverage_curve(counts: pa.Table, points: int = 300) -> dict[str, np.ndarray]:
+    """Train coverage and dev/test OOV rate if the vocabulary were the k most frequent train words."""
     train = counts["train"].to_numpy()
-    distinct = int(np.count_nonzero(train))
-    cumulative = {split: np.concatenate([[0], np.cumsum(counts[split].to_numpy())]) for split in SPLITS}
-
-    def row(size: int, covered: dict[str, int], chosen: bool) -> dict:
-        figures = {"size": size, "chosen": chosen, "train_coverage": _rate(covered["train"], cumulative["train"][-1])}
-        for split in ("dev", "test"):
-            total = cumulative[split][-1]
-            figures[f"{split}_oov_rate"] = _rate(total - covered[split], total)
-        return figures
-
-    rows = [row(k, {split: cumulative[split][k] for split in SPLITS}, False) for k in sorted({k for k in sizes if k < distinct} | {distinct}) if k != words]
-    rows.append(row(words, {split: int(counts[split].to_numpy()[known].sum()) for split in SPLITS}, True))
-    return sorted(rows, key=lambda r: (r["size"], not r["chosen"]))
+    sizes = log_points(int(np.count_nonzero(train)), points)
+    curve = {"size": sizes}
+    for split in SPLITS:
+        column = counts[split].to_numpy()
+        cumulative = np.concatenate([[0], np.cumsum(column, dtype=np.int64)])
+        total = cumulative[-1]
+        covered = cumulative[sizes] / total if total else np.zeros(len(sizes))
+        curve[split] = covered if split == "train" else 1.0 - covered
+    return curve
 
 
-def coverage_statistics(counts: pa.Table, vocabulary: Vocabulary, part_stats: Sequence[dict], top: int, frozen: str | None = None) -> dict:
-    """Word-unit coverage; `part_stats` are the shard jobs' statistics, each holding its split's
-    tokens, OOV tokens and unknown ids per input file."""
-    known = in_vocabulary(counts, vocabulary)
-    train = counts["train"].to_numpy()
-    singletons = train == 1
-    words = vocabulary.size - vocabulary.first_word_id
-    unknown = {split: {} for split in SPLITS}
-    by_source: dict[str, dict] = {}
-    for stats in part_stats:
-        split = stats["split"]
-        for name, figures in stats["sources"].items():
-            source = by_source.setdefault(name, {s: {"tokens": 0, "oov_tokens": 0} for s in SPLITS})
-            source[split]["tokens"] += figures["tokens"]
-            source[split]["oov_tokens"] += figures["oov_tokens"]
-            for key, value in figures["unknown"].items():
-                token = vocabulary.tokens[int(key)]
-                unknown[split][token] = unknown[split].get(token, 0) + value
-    for source in by_source.values():
-        for figures in source.values():
-            figures["oov_rate"] = _rate(figures["oov_tokens"], figures["tokens"])
-    return {
-        "vocabulary_size": vocabulary.size,
-        "words": words,
-        "frozen": frozen,
-        "splits": {split: split_figures(counts, known, split, top) for split in SPLITS},
-        "train_singletons": {
-            "types_share": _rate(int(singletons.sum()), int(np.count_nonzero(train))),
-            "tokens_share": _rate(int(singletons.sum()), int(train.sum())),
-        },
-        "sizes": size_table(counts, TABLE_SIZES, known, words),
-        "unknown_classes": {split: dict(sorted(v.items())) for split, v in unknown.items()},
-        "sources": dict(sorted(by_source.items())),
-    }
+# ---------------------------------------------------------------- plots
 
 
-def subword_statistics(counts: pa.Table, vocabulary: Vocabulary, encode_stats: Sequence[dict]) -> dict:
-    """Subword coverage figures from the encode statistics and the piece counts."""
-    totals = {
-        split: dict.fromkeys(("documents", "sentences", "tokens", "oov_tokens", "words", "byte_pieces", "byte_runs"), 0)
-        for split in SPLITS
-    }
-    for stats in encode_stats:
-        for figures in stats["sources"].values():
-            for split in SPLITS:
-                for key in totals[split]:
-                    totals[split][key] += figures[split][key]
-    splits = {}
-    for split, t in totals.items():
-        pieces, runs = t["tokens"], t["byte_runs"]
-        without_fallback = pieces - t["byte_pieces"] + runs
-        splits[split] = {
-            "documents": t["documents"],
-            "sentences": t["sentences"],
-            "words": t["words"],
-            "pieces": pieces,
-            "pieces_per_word": _rate(pieces, t["words"]),
-            "pieces_per_sentence": _rate(pieces, t["sentences"]),
-            "unknown_pieces": t["oov_tokens"],
-            "unknown_rate": _rate(t["oov_tokens"], pieces),
-            "byte_pieces": t["byte_pieces"],
-            "byte_piece_rate": _rate(t["byte_pieces"], pieces),
-            "unknown_rate_without_byte_fallback": _rate(t["oov_tokens"] + runs, without_fallback),
-        }
-    kinds = np.array(vocabulary.kinds)
-    train = np.array(vocabulary.counts)
-    return {
-        "units": "subword",
-        "vocabulary_size": vocabulary.size,
-        "pieces": int(np.count_nonzero(kinds == "piece")),
-        "byte_pieces": int(np.count_nonzero(kinds == "byte")),
-        "unused_in_train": int(np.count_nonzero((kinds != "control") & (train == 0))),
-        "splits": splits,
-        "most_frequent_train_pieces": [[t, int(c)] for t, c in zip(counts["token"].to_pylist()[:10], counts["train"].to_pylist()[:10])],
-    }
+def _png(figure: Figure) -> str:
+    """The figure as a base64 PNG without metadata (no software version, no date)."""
+    buffer = io.BytesIO()
+    figure.savefig(buffer, format="png", dpi=96, metadata={"Software": None})
+    return base64.b64encode(buffer.getvalue()).decode("ascii")
+
+
+def _figure() -> tuple[Figure, object]:
+    # Fixed margins that fit these plots' tick labels and axis titles: the constrained layout
+    # engine measured every text box again and took 1.3 of the report job's 6.4 s (cProfile).
+    figure = Figure(figsize=(8.0, 4.3))
+    figure.subplots_adjust(left=0.09, right=0.98, bottom=0.12, top=0.97)
+    axes = figure.add_subplot()
+    axes.grid(True, which="major", color="#dddddd", linewidth=0.6)
+    return figure, axes
+
+
+def _percent(axis: object) -> None:
+    axis.set_major_formatter(PercentFormatter(1.0))
+
+
+def plot_coverage(curve: dict[str, np.ndarray], chosen: int) -> str:
+    figure, axes = _figure()
+    axes.plot(curve["size"], curve["train"], color=COLOURS["train"], label="train tokens covered")
+    for split in ("dev", "test"):
+        axes.plot(curve["size"], curve[split], color=COLOURS[split], label=f"{split} tokens out of vocabulary")
+    axes.axvline(chosen, color="#8250df", linestyle="--", linewidth=1.2, label=f"this build: {chosen:,} words")
+    axes.set_xscale("log")
+    axes.set_ylim(0, 1)
+    _percent(axes.yaxis)
+    axes.set_xlabel("words kept (most frequent in train first)")
+    axes.set_ylabel("share of tokens")
+    axes.legend(loc="center right", fontsize=9)
+    return _png(figure)
+
+
+def plot_zipf(ranks: np.ndarray, counts: np.ndarray, fit: PowerFit, unit: str = "words") -> str:
+    figure, axes = _figure()
+    axes.loglog(ranks, counts, ".", color=COLOURS["train"], markersize=4, label=f"train {unit}")
+    axes.loglog(ranks, fit.constant * ranks.astype(np.float64) ** (-fit.exponent), color="#cf222e", linewidth=1.2,
+                label=f"fit: count ≈ {fit.constant:,.0f} · rank$^{{-{fit.exponent:.3f}}}$")
+    axes.set_xlabel("rank")
+    axes.set_ylabel("train count")
+    axes.legend(fontsize=9)
+    return _png(figure)
+
+
+def growth_figure(read: np.ndarray, types: np.ndarray, fit: PowerFit, unit: str, order: str) -> Figure:
+    """Distinct words after each prefix of the stream; `unit` is what the stream counts (tokens or words)."""
+    figure, axes = _figure()
+    axes.loglog(read, types, color=COLOURS["train"], label="distinct words seen")
+    axes.loglog(read, fit(read), color="#cf222e", linestyle="--", linewidth=1.2,
+                label=f"fit: types ≈ {fit.constant:.2f} · {unit}$^{{{fit.exponent:.3f}}}$")
+    axes.axvspan(fit.fit_from, float(read.max()), color="#cf222e", alpha=0.06, label="fitted range")
+    axes.set_xlabel(f"train {unit} read ({order})")
+    axes.set_ylabel("distinct words")
+    axes.legend(fontsize=9)
+    return figure
+
+
+def plot_sources(ranked: Sequence[tuple[str, dict]], key: str, label: str) -> str:
+    """One bar per split for each file, labelled by its rank (the row number of the table beside)."""
+    inches = 0.9 + 0.42 * len(ranked)
+    figure = Figure(figsize=(8.0, inches))
+    figure.subplots_adjust(left=0.09, right=0.98, bottom=0.6 / inches, top=1 - 0.1 / inches)
+    axes = figure.add_subplot()
+    axes.grid(True, axis="x", color="#dddddd", linewidth=0.6)
+    height = 0.8 / len(SPLITS)
+    positions = np.arange(len(ranked))
+    for index, split in enumerate(SPLITS):
+        rates = [figures[split][key] for _, figures in ranked]
+        axes.barh(positions + (index - 1) * height, rates, height=height, color=COLOURS[split], label=split)
+    axes.set_yticks(positions, [str(rank) for rank in range(1, len(ranked) + 1)], fontsize=8)
+    axes.invert_yaxis()
+    axes.set_ylabel("input file, # in the table")
+    _percent(axes.xaxis)
+    axes.set_xlabel(label)
+    axes.legend(fontsize=9)
+    return _png(figure)
+
+
+# ---------------------------------------------------------------- HTML
+
+
+class Shown(str):
+    """A number already formatted for display (a rate, a byte size): right-aligned like numbers."""
+
+
+class FileName(str):
+    """An input file's path: may wrap anywhere, as long paths have no spaces to wrap at."""
+
+
+def _cell(value: object) -> str:
+    if isinstance(value, bool):
+        return f"<td>{'yes' if value else 'no'}</td>"
+    if isinstance(value, int):
+        return f'<td class="n">{value:,}</td>'
+    if isinstance(value, Shown):
+        return f'<td class="n">{html.escape(value)}</td>'
+    if isinstance(value, FileName):
+        return f'<td class="file">{html.escape(value)}</td>'
+    return f"<td>{html.escape(str(value))}</td>"
+
+
+def table(headers: Sequence[str], rows: Sequence[Sequence[object]], marked: Sequence[bool] = ()) -> str:
+    head = "".join(f"<th>{html.escape(h)}</th>" for h in headers)
+    body = []
+    for index, row in enumerate(rows):
+        mark = ' class="chosen"' if index < len(marked) and marked[index] else ""
+        body.append(f"<tr{mark}>" + "".join(_cell(v) for v in row) + "</tr>")
+    return f"<table><thead><tr>{head}</tr></thead><tbody>{''.join(body)}</tbody></table>"
+
+
+def image(png: str, alt: str, caption: str) -> str:
+    return (f'<figure><img src="data:image/png;base64,{png}" alt="{html.escape(alt)}">'
+            f"<figcaption>{html.escape(caption)}</figcaption></figure>")
+
+
+def _rate(value: float, whole: float) -> Shown:
+    """A percentage; a dash when its denominator `whole` is zero (0 of 0 tokens is no rate)."""
+    return Shown(f"{value:.2%}" if whole else DASH)
+
+
+def _bytes(count: int) -> str:
+    for unit, scale in (("GiB", 1 << 30), ("MiB", 1 << 20), ("KiB", 1 << 10)):
+        if count >= scale:
+            return f"{count / scale:,.1f} {unit}"
+    return f"{count:,} B"
+
+
+def _sized(count: int) -> Shown:
+    """A parameter or value count with its float32 size beside it."""
+    return Shown(f"{count:,} ({_bytes(count * FLOAT32_BYTES)})")
+
+
+SIZING_ROWS = (
+    ("embedding table, |V|·m parameters", "embedding_parameters"),
+    ("context input, (n−1)·m values per example", "input_values"),
+    ("hidden layer, (n−1)·m·h + h parameters", "hidden_parameters"),
+    ("output layer, h·|V| + |V| parameters", "output_parameters"),
+    ("all parameters", "parameters"),
+)
+
+
+def sizing_rows(vocabulary: int, widths: Sequence[int], context: int, hidden: int) -> list[list[object]]:
+    """One row per figure, one column per embedding width; counts with float32 bytes."""
+    tables = [ModelSize(vocabulary, width, context, hidden).table() for width in widths]
+    rows: list[list[object]] = [[label] + [_sized(t[key]) for t in tables] for label, key in SIZING_ROWS]
+    rows.append(["softmax multiply-adds per predicted token, h·|V|"] + [t["softmax_multiply_adds"] for t in tables])
+    return rows
+
+
+def frozen_note(coverage: dict) -> str:
+    """With a frozen vocabulary, which file it is, and that its words follow another corpus."""
+    if not coverage.get("frozen"):
+        return ""
+    return (f"<p><strong>Frozen vocabulary</strong>: <code>{html.escape(coverage['frozen'])}</code>, used unchanged "
+            "(vocabulary.frozen). Its words need not be the most frequent of this corpus; the highlighted row is "
+            "figured from its own words.</p>")
+
+
+def files_not_read(manifest: dict) -> str:
+    """The files under the corpus root that were not read, and why."""
+    not_read = manifest.get("not_read", {"unselected": [], "excluded": [], "refused": []})
+    rows: list[list[object]] = [[FileName(path), "matched by no corpus.include pattern"] for path in not_read["unselected"]]
+    rows += [[FileName(path), "removed by a corpus.exclude pattern"] for path in not_read["excluded"]]
+    rows += [[FileName(entry["path"]), "refused: " + entry["reason"]] for entry in not_read["refused"]]
+    if not rows:
+        return "<p>Every file under the corpus root was read.</p>"
+    more = f"<p>{len(rows) - TABLE_FILES:,} more are listed in manifest.json, key <code>not_read</code>.</p>" if len(rows) > TABLE_FILES else ""
+    return (f"<p>{len(rows):,} files under the corpus root were not read:</p>" + table(["file", "why"], rows[:TABLE_FILES]) + more)
+
+
+def files_with_drops(manifest: dict) -> str:
+    """The input files with the most dropped, replaced or truncated documents."""
+    files = manifest["accounting"].get("files", {})
+    touched = sorted(
+        ((sum(f["dropped"].values()) + f["replaced_sequences"] + f["truncated"], source, f) for source, f in files.items()),
+        key=lambda item: (-item[0], item[1]),
+    )
+    touched = [item for item in touched if item[0]]
+    if not touched:
+        return ""
+    reasons = sorted({reason for _, _, f in touched for reason in f["dropped"]})
+    rows = [[FileName(source), f["read"]] + [f["dropped"].get(r, 0) for r in reasons] + [f["replaced_sequences"], f["truncated"]]
+            for _, source, f in touched[:TABLE_FILES]]
+    more = (f"<p>{len(touched) - TABLE_FILES:,} more files; every file's figures are in <code>stats/accounting.json</code>.</p>"
+            if len(touched) > TABLE_FILES else "")
+    return ("<p>Files with dropped, replaced or truncated documents (most first). Every dropped document, with its file, "
+            "byte offset and reason, is in <code>stats/dropped.parquet</code>.</p>"
+            + table(["file", "read"] + [f"dropped: {r.replace('_', ' ')}" for r in reasons] + ["sequences replaced", "truncated"], rows)
+            + more)
+
+
+def blocks_note(manifest: dict) -> str:
+    """How much of train the blocks hold, with the summary's warning when it is little."""
+    share = block_share(manifest["splits"]["train"])
+    if share is None:
+        return ""
+    line = format_blocks(manifest)
+    warning = line.split("; warning: ", 1)[1] if "; warning: " in line else ""
+    text = f"<p>Blocks hold {share:.1%} of the train split's ids (ids in at least one block, of all ids of the train streams)."
+    return text + (f" <strong>Warning</strong>: {html.escape(warning)}.</p>" if warning else "</p>")
+
+
+def accounting_section(manifest: dict, unit: str) -> tuple[str, str, str]:
+    """Documents read, dropped and kept (from the manifest), per file where something was lost,
+    the files not read, and rows per split; `unit` names the ids."""
+    accounting = manifest["accounting"]
+    dropped = accounting["dropped"]
+    account_rows = [["documents read", accounting["read"]], ["pieces added by splitting long documents", accounting["pieces_added"]]]
+    account_rows += [[f"dropped: {reason.replace('_', ' ')}", count] for reason, count in dropped.items()]
+    account_rows += [["kept", accounting["kept"]], ["truncated", accounting["truncated"]],
+                     ["invalid UTF-8 sequences replaced", accounting["replaced_sequences"]],
+                     ["read + pieces = kept + dropped", accounting["balanced"]]]
+    kinds = sorted({kind for figures in manifest["splits"].values() for kind in figures["rows"]})
+    size_rows = [[s, manifest["splits"][s]["documents"], manifest["splits"][s]["sentences"], manifest["splits"][s]["tokens"]]
+                 + [manifest["splits"][s]["rows"].get(k, 0) for k in kinds] for s in SPLITS]
+    return ("accounting", "Documents and rows", "".join([
+        f"<p>Duplicates removed: {dropped.get('duplicate', 0):,}.</p>",
+        table(["documents", "count"], account_rows),
+        files_with_drops(manifest),
+        files_not_read(manifest),
+        table(["split", "documents", "sentences", unit] + [f"{k} rows" for k in kinds], size_rows),
+        blocks_note(manifest),
+    ]))
+
+
+def sizing_section(size: int, options: dict, context_unit: str) -> tuple[str, str, str]:
+    """Parameters, bytes and softmax cost of a feed-forward model over `size` ids."""
+    report = options["report"]
+    context = options["windows"]["ngram"]["n"] - 1
+    return ("sizing", "What a model of this vocabulary costs", "".join([
+        f"<p>A feed-forward model over {size:,} ids with {context} context {context_unit}, hidden width h = {report['hidden_width']}, "
+        "one column per embedding width m. Counts with their size as float32; the output layer's multiply-adds "
+        "score every id for each predicted token.</p>",
+        table(["figure"] + [f"m = {width:,}" for width in report["embedding_widths"]],
+              sizing_rows(size, report["embedding_widths"], context, report["hidden_width"])),
+    ]))
+
+
+def ranked_lead(files: int, listed: int, what: str) -> str:
+    """What orders the per-file chart and table, which share the rank numbers."""
+    return (f"<p>{files:,} input files, ranked by {html.escape(what)}. "
+            f"The chart shows the first {min(CHART_FILES, listed)}, numbered as in the table.</p>")
+
+
+def left_out(files: int, listed: int, where: str) -> str:
+    """How many files the table leaves out and where (`where`, HTML) every file's figures are."""
+    if files <= listed:
+        return ""
+    return f"<p>{files - listed:,} more input files are not listed; the figures of every file are in {where}.</p>"
+
+
+def page(sections: list[tuple[str, str, str]], lead: str, manifest: dict) -> str:
+    """The sections as one HTML page with a table of contents."""
+    nav = "".join(f'<li><a href="#{key}">{html.escape(title)}</a></li>' for key, title, _ in sections)
+    body = "".join(f'<section id="{key}"><h2>{html.escape(title)}</h2>{content}</section>' for key, title, content in sections)
+    return (
+        '<!DOCTYPE html>\n<html lang="en"><head><meta charset="utf-8">'
+        '<meta name="viewport" content="width=device-width, initial-scale=1">'
+        f"<title>Vocabulary coverage report</title><style>{STYLE}</style></head><body>"
+        "<h1>Vocabulary coverage report</h1>"
+        f'<p class="lead">{lead}; '
+        f"configuration {html.escape(manifest.get('config_sha256', '')[:12])}, vocabulary {html.escape(manifest['vocabulary']['sha256'][:12])}.</p>"
+        f"<nav><ol>{nav}</ol></nav>{body}</body></html>\n"
+    )
+
+
+def _would_be_unknown(figures: dict) -> int:
+    """A file's unknown tokens over all splits, each run of byte pieces counted as the one
+    <unk> it would be without byte fallback: what ranks the files on the page."""
+    return sum(figures[split]["unknown_tokens"] + figures[split]["byte_runs"] for split in SPLITS)
+
+
+def _fine_rate(value: float, whole: float) -> Shown:
+    """A rate as a percentage with four decimals: exactly the six decimals coverage.json keeps;
+    a dash when its denominator `whole` is zero."""
+    return Shown(f"{value:.4%}" if whole else DASH)
+
+
+def _ratio(value: float, whole: float) -> Shown:
+    return Shown(f"{value:.3f}" if whole else DASH)
+
+
+def cutoff_sections(coverage: dict, curve: dict[str, np.ndarray], options: dict) -> list[tuple[str, str, str]]:
+    """What describes a word cutoff: coverage at every size, the words missing, where they go."""
+    words, size, splits = coverage["words"], coverage["vocabulary_size"], coverage["splits"]
+    chosen_rows = coverage["sizes"]
+    sections = [("coverage", "How much the vocabulary covers", "".join([
+        frozen_note(coverage),
+        f"<p>{words:,} words kept ({size:,} ids with the reserved and unknown-class symbols). "
+        f"They cover {_rate(1 - splits['train']['unknown_rate'], splits['train']['tokens'])} of train tokens; "
+        f"{_rate(splits['dev']['unknown_rate'], splits['dev']['tokens'])} of dev and "
+        f"{_rate(splits['test']['unknown_rate'], splits['test']['tokens'])} of test tokens are out of vocabulary.</p>",
+        image(plot_coverage(curve, words), "coverage curve",
+              "Keeping the k most frequent train words: share of train tokens covered, and dev/test tokens left out."),
+        table(["words kept", "train covered", "dev OOV", "test OOV"],
+              [[r["size"], _rate(r["train_coverage"], splits["train"]["tokens"]), _rate(r["dev_oov_rate"], splits["dev"]["tokens"]),
+                _rate(r["test_oov_rate"], splits["test"]["tokens"])] for r in chosen_rows],
+              [r["chosen"] for r in chosen_rows]),
+        f"<p>Words seen once in train: {_rate(coverage['train_singletons']['types_share'], splits['train']['types'])} of train types, "
+        f"{_rate(coverage['train_singletons']['tokens_share'], splits['train']['tokens'])} of train tokens. "
+        "Try other cutoffs without rebuilding: <code>corpusmill cutoffs BUILD --min-count N</code>.</p>",
+    ]))]
+    lists = []
+    for split in ("dev", "test"):
+        top = splits[split].get("top_oov", [])[: options["report"]["top_oov"]]
+        lists.append(f"<div><h3>{split}</h3>" + table(["word", "count"], top) + "</div>")
+    sections.append(("top-oov", "Most frequent words missing from the vocabulary", f'<div class="pair">{"".join(lists)}</div>'))
+    classes = sorted({name for per in coverage["unknown_classes"].values() for name in per})
+    class_rows = []
+    for name in classes:
+        row: list[object] = [name]
+        for split in SPLITS:
+            count = coverage["unknown_classes"][split].get(name, 0)
+            total = splits[split]["unknown_tokens"]
+            row += [count, _rate(count / total if total else 0.0, total)]
+        class_rows.append(row)
+    sections.append(("classes", "Where out-of-vocabulary tokens go", "".join([
+        "<p>Each out-of-vocabulary token maps to one unknown-class symbol; the share is of that split's OOV tokens.</p>",
+        table(["symbol"] + [f"{s} {label}" for s in SPLITS for label in ("tokens", "share")], class_rows),
+    ])))
+    return sections
+
+
+def model_sections(coverage: dict) -> list[tuple[str, str, str]]:
+    """What describes a piece model: its ids, the most frequent pieces, pieces per word."""
+    size, splits = coverage["vocabulary_size"], coverage["splits"]
+    controls = size - coverage["piece_ids"] - coverage["byte_ids"]
+    model_rows = [["learned pieces", coverage["piece_ids"]], ["byte pieces", coverage["byte_ids"]],
+                  ["reserved symbols", controls], ["all ids, |V|", size],
+                  ["pieces and byte pieces never used in train", coverage["unused_in_train"]]]
+    length_rows = [[s, splits[s]["documents"], splits[s]["sentences"], splits[s]["words"], splits[s]["tokens"],
+                    _ratio(splits[s]["tokens_per_word"], splits[s]["words"]), _ratio(splits[s]["tokens_per_sentence"], splits[s]["sentences"])]
+                   for s in SPLITS]
+    return [
+        ("model", "The subword model", "".join([
+            f"<p>{size:,} ids: {coverage['piece_ids']:,} learned pieces, {coverage['byte_ids']:,} byte pieces and {controls:,} reserved symbols. "
+            "Every word of every split is spelled by pieces, so there is no word cutoff and no out-of-vocabulary word; "
+            "what remains to measure is how many pieces a word takes and how often the model falls back to bytes or &lt;unk&gt;.</p>",
+            table(["ids", "count"], model_rows),
+            "<h3>Most frequent train pieces</h3>",
+            table(["piece", "train count"], [[escape(piece), count] for piece, count in coverage["most_frequent_train_pieces"]]),
+        ])),
+        ("lengths", "Pieces per word and per sentence", "".join([
+            f"<p>A train word takes {_ratio(splits['train']['tokens_per_word'], splits['train']['words'])} pieces on average "
+            f"(dev {_ratio(splits['dev']['tokens_per_word'], splits['dev']['words'])}, "
+            f"test {_ratio(splits['test']['tokens_per_word'], splits['test']['words'])}); "
+            "words are runs of non-space characters of the cleaned sentences. "
+            "More pieces per word mean longer id sequences for the same text: n-gram contexts and blocks span fewer words. "
+            "A dev or test figure well above train's suggests text unlike the train sample (a rule of thumb).</p>",
+            table(["split", "documents", "sentences", "words", "pieces", "pieces per word", "pieces per sentence"], length_rows),
+        ])),
+    ]
+
+
+def unknown_section(coverage: dict, unit: str) -> tuple[str, str, str]:
+    """Unknown tokens by split and input file. With byte pieces in the build, the byte share and
+    the rate without byte fallback (each run of byte pieces one <unk>) too."""
+    splits, sources = coverage["splits"], coverage["sources"]
+    bytes_shown = any(splits[s]["byte_pieces"] for s in SPLITS) or bool(coverage.get("byte_ids"))
+    headers = ["split", unit, f"unknown {unit}", "unknown rate"]
+    rows = [[s, splits[s]["tokens"], splits[s]["unknown_tokens"], _fine_rate(splits[s]["unknown_rate"], splits[s]["tokens"])] for s in SPLITS]
+    if bytes_shown:
+        headers += ["byte pieces", "byte-piece share", "unknown rate without byte fallback"]
+        for row, s in zip(rows, SPLITS):
+            row += [splits[s]["byte_pieces"], _fine_rate(splits[s]["byte_piece_rate"], splits[s]["tokens"]),
+                    _fine_rate(splits[s]["unknown_rate_without_byte_fallback"], splits[s]["tokens"])]
+    else:
+        headers += ["types", "OOV types"]
+        for row, s in zip(rows, SPLITS):
+            row += [splits[s].get("types", 0), splits[s].get("oov_types", 0)]
+    lead = ("<p>Unknown tokens: words outside the vocabulary (mapped to &lt;unk&gt; or an unknown class) or &lt;unk&gt; pieces. "
+            + ("Byte-piece share: pieces that are UTF-8 bytes of characters outside the model. Without byte fallback the same "
+               "model would write one &lt;unk&gt; for each run of byte pieces (sentencepiece merges adjacent unknown characters); "
+               "the last column is that rate.</p>" if bytes_shown else "</p>"))
+    parts = [lead, table(headers, rows)]
+    if sources:
+        what = f"unknown {unit}" + (" (a run of byte pieces counted as one)" if bytes_shown else "")
+        listed = top_sources(sources, _would_be_unknown, TABLE_FILES)
+        parts += [
+            ranked_lead(len(sources), len(listed), f"{what}, in all splits"),
+            image(plot_sources(listed[:CHART_FILES], "unknown_rate_without_byte_fallback", f"share of {unit} unknown"
+                               + (" without byte fallback" if bytes_shown else "")),
+                  "unknown rate by source file", f"Share of unknown {unit} per input file and split, numbered as in the table."),
+            table(["#", "input file", f"unknown {unit}"] + [f"{s} {label}" for s in SPLITS for label in (unit, "unknown")],
+                  [[rank, FileName(name), _would_be_unknown(figures)]
+                   + [v for s in SPLITS for v in (figures[s]["tokens"], _fine_rate(figures[s]["unknown_rate_without_byte_fallback"], figures[s]["tokens"]))]
+                   for rank, (name, figures) in enumerate(listed, 1)]),
+            left_out(len(sources), len(listed), "<code>stats/coverage.json</code>, key <code>sources</code>"),
+        ]
+    return ("unknown", "Unknown tokens by split and source", "".join(parts))
+
+
+def render(coverage: dict, manifest: dict, counts: pa.Table, growth: tuple[np.ndarray, np.ndarray], options: dict) -> str:
+    """The whole page as one HTML string: the section that describes the vocabulary (a word
+    cutoff or a piece model), then what every build has."""
+    pieces = "piece_ids" in coverage
+    unit = "pieces" if pieces else "tokens"
+    size, splits = coverage["vocabulary_size"], coverage["splits"]
+    zipf_fit, ranks, ranked = fit_zipf(counts["train"].to_numpy())
+    read, types = growth
+    heaps_fit = fit_heaps(read, types)
+    # A piece model is described first; a word cutoff by its coverage first and, after the
+    # unknown tokens, by the words missing and where they go.
+    description = model_sections(coverage) if pieces else cutoff_sections(coverage, coverage_curve(counts), options)
+    sections, later = (description, []) if pieces else (description[:1], description[1:])
+    described = "the {:,} pieces used in train".format(int(ranks.max()) if len(ranks) else 0) if pieces else (
+        f"{int(ranks.max()) if len(ranks) else 0:,} train types")
+    note = ("A small piece inventory rarely follows one straight line: single characters and frequent short pieces fill the head, "
+            "rarely used byte pieces the tail, so read s as a summary of the slope rather than as the word law." if pieces
+            else "Zipf's law gives exponents near 1 for the words of natural-language text.")
+    sections.append(("zipf", f"Rank and frequency{' of pieces' if pieces else ''}", "".join([
+        f"<p>Fitted Zipf exponent s = {zipf_fit.exponent:.3f} (least squares on log–log axes at {len(ranks)} log-spaced ranks of {described}). {note}</p>",
+        image(plot_zipf(ranks, ranked, zipf_fit, "pieces" if pieces else "words"), f"rank-frequency plot{' of pieces' if pieces else ''}",
+              f"Train count of the {'piece' if pieces else 'word'} at each rank, log–log axes."),
+    ])))
+    stream = "words" if pieces else "tokens"
+    sections.append(("growth", "Vocabulary growth", "".join([
+        ("<p>Measured in words, not pieces: distinct whitespace-separated words of the train sentences, in corpus order, "
+         "duplicates left out; the number of pieces is fixed at |V| by the model and does not grow. " if pieces else "<p>")
+        + f"Heaps fit: types ≈ K · {stream}<sup>β</sup> with K = {heaps_fit.constant:.2f}, β = {heaps_fit.exponent:.3f}, "
+        f"fitted from a tenth of the stream to its end, the last decade on the log axis (from {int(heaps_fit.fit_from):,} "
+        f"of {int(read.max()) if len(read) else 0:,} {stream}; {int(types[-1]) if len(types) else 0:,} distinct words; shaded in the plot). "
+        "Large English collections usually give β between 0.4 and 0.6; a small or mixed corpus gives more.</p>",
+        image(_png(growth_figure(read, types, heaps_fit, stream, "whitespace-separated, corpus order" if pieces else "corpus order")),
+              "vocabulary growth plot", f"Distinct words after each prefix of the train {stream}, in corpus order, duplicates left out."),
+    ])))
+    sections.append(unknown_section(coverage, unit))
+    sections += later
+    sections.append(accounting_section(manifest, unit))
+    sections.append(sizing_section(size, options, "pieces" if pieces else "words"))
+    lead = (f"{splits['train']['tokens']:,} train pieces, subword model of {size:,} ids" if pieces
+            else f"{splits['train']['tokens']:,} train tokens, {coverage['words']:,} words kept")
+    return page(sections, lead, manifest)
+
+
+def read_growth(path: str) -> tuple[np.ndarray, np.ndarray]:
+    """(stream positions, distinct types seen) from stats/growth.json."""
+    growth = read_json(path)
+    return np.array(growth["read"], dtype=np.int64), np.array(growth["distinct"], dtype=np.int64)
 
 
 def main(argv: list[str] | None = None) -> None:
-    parser = argparse.ArgumentParser(description="Compute coverage statistics of a build.")
-    parser.add_argument("--token-counts", required=True)
-    parser.add_argument("--vocabulary", required=True)
-    parser.add_argument("--options", required=True)
-    parser.add_argument("--output", required=True)
-    parser.add_argument("stats", nargs="*", help="the shard jobs' statistics (word units) or the encode jobs' (subword units)")
-    args = parser.parse_args(argv)
-    config = json.loads(args.options)
-    if config["units"] == "subword":
-        stats = subword_statistics(
-            pq.read_table(args.token_counts), read_vocabulary(args.vocabulary), [read_json(p) for p in args.stats]
-        )
-        write_json(args.output, stats)
-        print(format_table(stats))
-        return
-    stats = coverage_statistics(
-        pq.read_table(args.token_counts),
-        read_vocabulary(args.vocabulary),
-        [read_json(p) for p in args.stats],
-        config["report"]["top_oov"],
-        config["vocabulary"]["frozen"],
-    )
-    write_json(args.output, stats)
-    print(format_table(stats))
+    run = job.start(argv, RULE, "Write the vocabulary coverage report of a build as one HTML page.")
+    layout = run.layout
+    text = render(
+        read_json(layout.coverage), read_json(layout.manifest), pq.ParquetFile(layout.token_counts).read(use_threads=False),
+        read_growth(layout.growth), run.options,
+    )  # fmt: skip
+    write_text(layout.report, text)
+    print(f"report: {layout.report} ({len(text):,} bytes)")
 
 
 if __name__ == "__main__":

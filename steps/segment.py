@@ -8,19 +8,12 @@ sentence, in order and joined with the whitespace between them, rebuild it.
 
 from __future__ import annotations
 
-import argparse
-import json
 from collections.abc import Callable
 from dataclasses import dataclass, field
-from pathlib import Path
 
 import regex
 
 from . import unicode_breaks
-from .clean import CleanOptions, clean_text
-from .accounting import Tally
-from .ingest import CorpusError, ReadOptions, plan_chunks, read_documents
-from .storage import write_text
 
 NUMBER_TOKEN = "<number>"
 
@@ -175,43 +168,3 @@ def is_lossless(text: str, tokens: list[str]) -> bool:
             return False
         position = found + len(token)
     return not text[position:].strip()
-
-
-def learned_abbreviations(root: str, sources: list[str], config: dict, sample_bytes: int) -> frozenset[str]:
-    """Abbreviations learned (steps.unicode_breaks.learn_abbreviations) from the cleaned text of
-    at most `sample_bytes` of documents from the start of each input file."""
-    clean = CleanOptions.from_config(config["clean"])
-    read = ReadOptions.from_config(config["corpus"])
-
-    def texts():
-        for source in sources:
-            chunk = plan_chunks(root, [source], 1 << 62, config["corpus"]["text_unit"])[0]
-            taken = 0
-            for document in read_documents(root, chunk, 1 << 62, read, Tally()):
-                yield clean_text(document.text, clean)
-                taken += len(document.text)
-                if taken >= sample_bytes:
-                    break
-
-    return unicode_breaks.learn_abbreviations(texts())
-
-
-def main(argv: list[str] | None = None) -> None:
-    parser = argparse.ArgumentParser(description="Learn abbreviations from the corpus (segment.learn_abbreviations).")
-    parser.add_argument("--options", required=True, help="JSON: corpus, clean sections")
-    parser.add_argument("--sample-mb", type=float, default=16.0, help="text read from the start of each file")
-    parser.add_argument("--output", required=True)
-    parser.add_argument("plans", nargs="+", help="the chunk plan files (steps/plan.py) naming the input files")
-    args = parser.parse_args(argv)
-    config = json.loads(args.options)
-    sources = sorted({name for path in args.plans for name, _, _ in json.loads(Path(path).read_text(encoding="utf-8"))["files"]})
-    try:
-        found = learned_abbreviations(config["corpus"]["root"], sources, config, int(args.sample_mb * (1 << 20)))
-    except CorpusError as error:
-        raise SystemExit(f"corpusmill: {error}") from None
-    write_text(args.output, "".join(f"{word}\n" for word in sorted(found)))
-    print(f"{len(found)} abbreviations learned")
-
-
-if __name__ == "__main__":
-    main()

@@ -1,64 +1,68 @@
-"""Shards: gather one part of one split from every chunk, as ids, and write its Parquet files.
+"""Shards: one chunk's training rows, written as Parquet files per split and kind.
 
-Word units: the job reads its part's slice of every prepared chunk (`steps.split.kept_part`),
-leaves out removed duplicates and maps tokens to ids with the vocabulary, counting tokens, OOV
-tokens and unknown classes per input file for the coverage statistics. Subword units: it reads
-the parts the encode step wrote with the sentencepiece model.
+The job reads its chunk's kept rows (steps.chunks: removed duplicates left out), encodes them
+(steps.encoder: words or pieces → ids), cuts n-gram windows, blocks and streams
+(steps.windows) and writes, for each split and enabled kind, `shards/<split>/<kind>-<chunk>.parquet`
+(columns and metadata: steps.formats). It needs nothing of other chunks but the ids and its own
+list of removed documents, so a change elsewhere in the corpus reruns it only when one of
+those changes.
 
-Train parts order their documents by `order`, a seeded mix of their `doc_hash` (so chunking
-never matters), cut rows, and shuffle them with a seeded permutation; a part holds only its
-own documents (about 1/train_files of train), which bounds memory. Dev and test parts stream
-their chunks in corpus order and keep that order.
+Train: documents in a seeded order of their `doc_hash` (steps.split.order_keys), a bounded
+batch of the chunk at a time; n-gram windows and blocks shuffled with a generator seeded by
+`shards.seed` and the chunk; streams in that document order. Readers mix rows across chunks by
+permuting row groups and a shuffle buffer (steps.reader). Dev and test keep corpus order, so
+reading a split's files in manifest (chunk) order gives the corpus order.
 
-Files per part, one per enabled kind:
-  ngram-PPPP.parquet  context: fixed_size_list<id>[n-1], target: id
-  block-PPPP.parquet  ids: fixed_size_list<id>[L+1]
-  stream-PPPP.parquet doc_id: string, ids: list<id>
-Each file's key-value metadata `corpusmill` holds JSON: split, kind, part, vocabulary hash and
-size, the reserved ids, and n or L.
+Blocks with `span: corpus` join the documents of one chunk in that order (a chunk's last
+partial block is dropped or padded): the only rows whose content depends on where chunks end.
+
+Beside the files: interim/shards/<chunk>.json (steps.formats.ShardStats: each file's rows,
+bytes and SHA-256; rows per kind; ids held by blocks; figures per input file) and
+interim/shards/<chunk>.ids.parquet (occurrences of each id per split, <s> once per document
+and </s> once per sentence, for vocabulary.tsv's counts).
 """
 
 from __future__ import annotations
 
-import argparse
-import json
-from collections.abc import Iterable, Iterator
+import hashlib
+from collections.abc import Iterator
 from dataclasses import dataclass
+from pathlib import Path
 
 import numpy as np
 import pyarrow as pa
-import pyarrow.compute as pc
 import pyarrow.parquet as pq
 
-from .encode import ENCODED_SCHEMA
-from .split import kept_part, order_keys
-from .storage import ParquetSink, rebased_offsets, write_json
-from .vocab import BOS, EOS, PAD, Lookup, Vocabulary, read_vocabulary
+from . import job
+from .chunks import kept_batches, split_groups
+from .encoder import Encoder, encoder_for
+from .formats import (
+    BOS,
+    EOS,
+    PAD,
+    ShardFile,
+    ShardStats,
+    Vocabulary,
+    enabled_kinds,
+    file_sha256,
+    id_type_name,
+    read_vocabulary,
+    shard_metadata,
+    shard_schema,
+)  # fmt: skip
+from .layout import SPLITS, Layout
+from .split import order_keys
+from .storage import ParquetSink, write_json, write_table
 from .windows import CorpusBlocks, document_block_coverage, document_blocks, document_streams, ngram_windows
 
-# Tokens per vocabulary lookup in dev and test parts (train looks its whole part up at once).
-LOOKUP_TOKENS = 1 << 20
-
-ID_TYPES = {"uint16": pa.uint16(), "uint32": pa.uint32(), "int64": pa.int64()}
-
-
-def id_type(name: str, vocabulary_size: int) -> pa.DataType:
-    """The configured id type, or the narrowest unsigned one holding every id."""
-    if name == "auto":
-        return pa.uint16() if vocabulary_size <= 1 << 16 else pa.uint32()
-    chosen = ID_TYPES[name]
-    if name == "uint16" and vocabulary_size > 1 << 16:
-        raise SystemExit(f"corpusmill: shards.id_type = uint16 cannot hold {vocabulary_size} ids; use auto or uint32")
-    return chosen
-
-
-def kind_schema(kind: str, ids: pa.DataType, windows: dict) -> pa.Schema:
-    if kind == "ngram":
-        n = windows["ngram"]["n"]
-        return pa.schema([("context", pa.list_(ids, n - 1)), ("target", ids)])
-    if kind == "block":
-        return pa.schema([("ids", pa.list_(ids, windows["blocks"]["length"] + 1))])
-    return pa.schema([("doc_id", pa.string()), ("ids", pa.list_(ids))])
+RULE = "shards"
+SECTIONS = ("shards", "units", "vocabulary.unknown", "windows")
+# Stored bytes of a chunk's rows encoded and cut at once: bounds the job's memory for a chunk of
+# any size (a compressed file is one chunk); train rows are shuffled within such a batch.
+BATCH_BYTES = 64 << 20
+# Threads of the piece encoder; the rule reserves as many cores.
+THREADS = 2
+ID_COUNTS_SCHEMA = pa.schema([("split", pa.string()), ("id", pa.int64()), ("count", pa.int64())])
 
 
 @dataclass
@@ -120,13 +124,59 @@ class RowCutter:
         return self.corpus_blocks.finish() if self.corpus_blocks is not None else np.empty((0, width), self.dtype)
 
 
+class RowCutter:
+    """Cuts n-gram windows, blocks and streams from encoded documents, counting the stream ids
+    and the ids that lie in at least one block."""
+
+    def __init__(self, windows: dict, vocabulary: Vocabulary, dtype: np.dtype) -> None:
+        # Cutting in the shard's own id type (e.g. uint16) keeps the job's memory 2-4x below int64.
+        self.dtype = dtype
+        reserved = vocabulary.reserved
+        self.pad, self.bos, self.eos = reserved[PAD], reserved[BOS], reserved[EOS]
+        self.ngram, self.block = windows["ngram"], windows["blocks"]
+        self.corpus_blocks = (
+            CorpusBlocks(self.block["length"], self.block["stride"], self.block["remainder"], self.pad)
+            if self.block["span"] == "corpus"
+            else None
+        )
+        self.stream_ids = self.block_ids = 0
+
+    def cut(self, nested: pa.ListArray, doc_ids: list[str], shuffle: np.random.Generator | None = None) -> Rows:
+        """The rows of a batch of documents (their ids as documents → sentences → ids); with
+        `shuffle`, n-gram windows in a random order."""
+        sentences = nested.flatten()
+        ids = sentences.flatten().to_numpy().astype(self.dtype)
+        sentence_lengths = np.diff(sentences.offsets.to_numpy()).astype(np.int64)
+        per_doc = np.diff(nested.offsets.to_numpy()).astype(np.int64)
+        eos = self.eos if self.ngram["predict_end"] else None
+        context, target = ngram_windows(ids, sentence_lengths, self.ngram["n"], self.bos, eos, shuffle)
+        stream, doc_lengths = document_streams(ids, sentence_lengths, per_doc, self.bos, self.eos)
+        if self.corpus_blocks is not None:
+            blocks = self.corpus_blocks.feed(stream)
+        else:
+            blocks = document_blocks(stream, doc_lengths, self.block["length"], self.block["stride"], self.block["remainder"], self.pad)
+            self.block_ids += document_block_coverage(doc_lengths, self.block["length"], self.block["stride"], self.block["remainder"])
+        self.stream_ids += len(stream)
+        return Rows(context, target, blocks, doc_ids, stream, doc_lengths)
+
+    def last_blocks(self) -> np.ndarray:
+        width = self.block["length"] + 1
+        return self.corpus_blocks.finish() if self.corpus_blocks is not None else np.empty((0, width), self.dtype)
+
+    def block_coverage(self) -> int:
+        """Stream ids in at least one block, of everything cut (after `last_blocks`)."""
+        return self.corpus_blocks.covered if self.corpus_blocks is not None else self.block_ids
+
+
 def _fixed(values: np.ndarray, width: int, ids: pa.DataType) -> pa.Array:
     flat = pa.array(np.ascontiguousarray(values).reshape(-1), type=ids)
     return pa.FixedSizeListArray.from_arrays(flat, width)
 
 
-def kind_table(kind: str, rows: Rows, ids: pa.DataType, schema: pa.Schema) -> pa.Table:
+def kind_table(kind: str, rows: Rows, schema: pa.Schema) -> pa.Table:
     """An Arrow table of one kind's rows."""
+    ids = schema.field("target" if kind == "ngram" else "ids").type
+    ids = ids.value_type if pa.types.is_list(ids) or pa.types.is_fixed_size_list(ids) else ids
     if kind == "ngram":
         columns = [_fixed(rows.context, rows.context.shape[1], ids), pa.array(rows.target, type=ids)]
     elif kind == "block":
@@ -136,94 +186,6 @@ def kind_table(kind: str, rows: Rows, ids: pa.DataType, schema: pa.Schema) -> pa
         values = pa.array(rows.streams, type=ids)
         columns = [pa.array(rows.doc_ids, pa.string()), pa.LargeListArray.from_arrays(offsets, values).cast(pa.list_(ids))]
     return pa.Table.from_arrays(columns, schema=schema)
-
-
-def _metadata(split: str, kind: str, part: int, vocabulary: Vocabulary, windows: dict) -> dict[bytes, bytes]:
-    detail = {"ngram": {"n": windows["ngram"]["n"], "predict_end": windows["ngram"]["predict_end"]}, "block": dict(windows["blocks"]), "stream": {}}[kind]
-    detail.pop("enabled", None)
-    value = {
-        "split": split,
-        "kind": kind,
-        "part": part,
-        "vocabulary_sha256": vocabulary.digest(),
-        "vocabulary_size": vocabulary.size,
-        "reserved": vocabulary.reserved,
-        **detail,
-    }
-    return {b"corpusmill": json.dumps(value, sort_keys=True).encode("utf-8")}
-
-
-def encoded_parts(paths: list[str]) -> Iterator[pa.Table]:
-    """The encode step's part files (subword units), in bounded batches."""
-    for path in paths:
-        parquet = pq.ParquetFile(path)
-        for batch in parquet.iter_batches(batch_size=2048):
-            yield pa.Table.from_batches([batch])
-
-
-class TokenIds:
-    """Maps prepared token lists to id lists and counts, per input file, tokens, OOV tokens and
-    each unknown class (word units)."""
-
-    def __init__(self, vocabulary: Vocabulary, unknown: str) -> None:
-        self._lookup = Lookup(vocabulary, unknown)
-        self._unknown_ids = np.array(sorted(vocabulary.unknown_ids().values()), dtype=np.int64)
-        self.sources: dict[str, dict] = {}
-
-    def encode(self, rows: pa.Table) -> pa.ListArray:
-        """The id lists of `rows` (columns source, tokens), which may hold several input files."""
-        nested = rows["tokens"].combine_chunks()
-        sentences = nested.flatten()
-        ids = self._lookup.ids(sentences.flatten())
-        sources = pc.dictionary_encode(rows["source"].combine_chunks())
-        tokens_per_row = np.diff(np.asarray(sentences.offsets)[np.asarray(rebased_offsets(nested))])
-        source_of_token = np.repeat(sources.indices.to_numpy(zero_copy_only=False), tokens_per_row)
-        names = sources.dictionary.to_pylist()
-        tokens = np.bincount(source_of_token, minlength=len(names))
-        # One key per (source, unknown id): unknown ids are below `span`.
-        span = int(self._unknown_ids[-1]) + 1
-        unknown = np.isin(ids, self._unknown_ids)
-        keys, counts = np.unique(source_of_token[unknown] * span + ids[unknown], return_counts=True)
-        for code, name in enumerate(names):
-            figures = self.sources.setdefault(name, {"tokens": 0, "oov_tokens": 0, "unknown": {}})
-            figures["tokens"] += int(tokens[code])
-        for key, count in zip(keys.tolist(), counts.tolist()):
-            code, value = divmod(key, span)
-            figures = self.sources[names[code]]
-            figures["oov_tokens"] += count
-            figures["unknown"][str(value)] = figures["unknown"].get(str(value), 0) + count
-        inner = pa.ListArray.from_arrays(rebased_offsets(sentences), pa.array(ids.astype(np.uint32), pa.uint32()))
-        return pa.ListArray.from_arrays(rebased_offsets(nested), inner)
-
-
-def prepared_parts(
-    paths: list[str], split: str, part: int, parts: int, duplicates: pa.Table, token_ids: TokenIds, seed: int
-) -> Iterator[pa.Table]:
-    """One part of a split as id tables (doc_id, order, sentences), chunks in corpus order,
-    each chunk's documents in corpus order, removed duplicates left out (word units).
-
-    Tokens are looked up a batch of chunks at a time: each lookup hashes the vocabulary once,
-    so one per chunk would cost more than the lookup itself. A train part comes as one table
-    (its shard job holds the whole part to shuffle it anyway); dev and test in batches of
-    about LOOKUP_TOKENS tokens, which bounds their memory."""
-    budget = None if split == "train" else LOOKUP_TOKENS
-    pending: list[pa.Table] = []
-    held = 0
-    for path in paths:
-        rows = kept_part(path, split, part, parts, duplicates, ["doc_id", "doc_hash", "source", "tokens"])
-        if rows.num_rows:
-            pending.append(rows)
-            held += len(pc.list_flatten(pc.list_flatten(rows["tokens"])))
-        if pending and budget is not None and held >= budget:
-            yield _encoded(pa.concat_tables(pending), token_ids, seed)
-            pending, held = [], 0
-    if pending:
-        yield _encoded(pa.concat_tables(pending), token_ids, seed)
-
-
-def _encoded(rows: pa.Table, token_ids: TokenIds, seed: int) -> pa.Table:
-    order = pa.array(order_keys(rows["doc_hash"].to_numpy(), seed), pa.uint64())
-    return pa.Table.from_arrays([rows["doc_id"], order, token_ids.encode(rows)], schema=ENCODED_SCHEMA)
 
 
 class RowGroups:
@@ -253,96 +215,96 @@ class RowGroups:
         self.pending, self.rows = [], 0
 
 
-def write_part(
-    split: str, part: int, inputs: Iterable[pa.Table], outputs: dict[str, str], vocabulary: Vocabulary, config: dict
-) -> dict:
-    """Write one part's shard files from its id tables (doc_id, order, sentences); returns rows
-    per kind, document/sentence/token counts and, with blocks, how many stream ids they hold
-    (`block_ids` of `stream_ids`)."""
-    windows, shards = config["windows"], config["shards"]
-    ids = id_type(shards["id_type"], vocabulary.size)
-    cutter = RowCutter(windows, vocabulary, np.dtype(ids.to_pandas_dtype()))
-    schemas = {kind: kind_schema(kind, ids, windows).with_metadata(_metadata(split, kind, part, vocabulary, windows)) for kind in outputs}
-    # No dictionary pages: id columns do not shrink by them, and without them the files write
-    # and read faster (reading the train shards: 56 → 78 M ids per CPU-second, measured).
+def chunk_seed(seed: int, chunk: str) -> list[int]:
+    """The train shuffle's seed for one chunk: shards.seed and a hash of the chunk's key."""
+    return [seed, int.from_bytes(hashlib.blake2b(chunk.encode("utf-8"), digest_size=8).digest(), "big")]
+
+
+def train_batches(path: str, removed: pa.Table, column: str, seed: int) -> Iterator[pa.Table]:
+    """The chunk's kept train rows, a bounded batch at a time, each in the seeded document order."""
+    for rows in split_groups(path, "train", removed, ["doc_id", "doc_hash", "source", column], BATCH_BYTES):
+        order = np.lexsort((np.arange(rows.num_rows), order_keys(rows["doc_hash"].to_numpy(), seed)))
+        yield rows.take(pa.array(order))
+
+
+def id_counts(nested: pa.ListArray, size: int) -> np.ndarray:
+    """Occurrences of each id in the streams of these documents: their ids, and <s> once per
+    document and </s> once per sentence (the reserved ids 2 and 3)."""
+    ids = nested.flatten().flatten().to_numpy()
+    counts = np.bincount(ids, minlength=size).astype(np.int64)
+    counts[2] += len(nested)
+    counts[3] += len(nested.flatten())
+    return counts
+
+
+def write_chunk(layout: Layout, chunk: str, removed: pa.Table, encoder: Encoder, options: dict) -> tuple[ShardStats, dict[str, np.ndarray]]:
+    """Write one chunk's shard files for every split and enabled kind; return its statistics
+    and its id counts per split."""
+    prepared = layout.prepared(chunk)
+    windows, shards = options["windows"], options["shards"]
+    vocabulary = encoder.vocabulary
+    id_type = id_type_name(shards["id_type"], vocabulary.size)
+    kinds = enabled_kinds(windows)
+    stats = ShardStats(chunk)
+    counts = {split: np.zeros(vocabulary.size, np.int64) for split in SPLITS}
     codec = {"compression": shards["compression"], "level": shards["compression_level"], "dictionary": False}
-    stats = {"split": split, "part": part, "documents": 0, "sentences": 0, "tokens": 0, "rows": dict.fromkeys(outputs, 0)}
-    sinks = {kind: ParquetSink(path, schemas[kind], **codec) for kind, path in outputs.items()}
     group = shards["row_group_rows"]
-    try:
-        if split == "train":
-            parts = list(inputs)
-            table = pa.concat_tables(parts) if parts else None
-            if table is not None and table.num_rows:
-                table = table.sort_by([("order", "ascending"), ("doc_id", "ascending")])
-                rng = np.random.default_rng([shards["seed"], part])
-                rows = cutter.cut(table, shuffle=rng)
-                rows.blocks = np.concatenate([rows.blocks, cutter.last_blocks()])
-                _count(stats, table)
-                rows.blocks = rows.blocks[rng.permutation(len(rows.blocks))]
-                for kind, sink in sinks.items():
-                    whole = kind_table(kind, rows, ids, schemas[kind])
-                    for start in range(0, whole.num_rows, group):
-                        sink.write(whole.slice(start, group))
-        else:
-            groups = {kind: RowGroups(sink, group) for kind, sink in sinks.items()}
-            for table in inputs:
-                _count(stats, table)
-                rows = cutter.cut(table)
-                for kind in sinks:
-                    groups[kind].write(kind_table(kind, rows, ids, schemas[kind]))
-            if "block" in sinks:
-                tail = cutter.last_blocks()
-                rows = Rows(np.empty((0, 1)), np.empty(0), tail, [], np.empty(0), np.empty(0, np.int64))
-                groups["block"].write(kind_table("block", rows, ids, schemas["block"]))
-            for rows_of_kind in groups.values():
-                rows_of_kind.flush()
-    except BaseException:
-        for sink in sinks.values():
-            sink.abort()
-        raise
-    for kind, sink in sinks.items():
-        sink.close()
-        stats["rows"][kind] = sink.rows
-    if "block" in outputs:
-        stats["block_ids"], stats["stream_ids"] = cutter.block_coverage()
-    return stats
-
-
-def _count(stats: dict, table: pa.Table) -> None:
-    nested = table["sentences"].combine_chunks()
-    stats["documents"] += len(nested)
-    stats["sentences"] += len(nested.flatten())
-    stats["tokens"] += len(nested.flatten().flatten())
+    for split in SPLITS:
+        schemas = {kind: shard_schema(kind, id_type, windows).with_metadata(shard_metadata(split, kind, chunk, vocabulary, windows)) for kind in kinds}
+        sinks = {kind: ParquetSink(layout.shard(split, kind, chunk), schemas[kind], **codec) for kind in kinds}
+        writers = {kind: RowGroups(sink, group) for kind, sink in sinks.items()}
+        cutter = RowCutter(windows, vocabulary, np.dtype(id_type))
+        try:
+            if split == "train":
+                rng = np.random.default_rng(chunk_seed(shards["seed"], chunk))
+                batches = train_batches(prepared, removed, encoder.column, shards["seed"])
+            else:
+                rng = None
+                batches = kept_batches(prepared, split, removed, ["doc_id", "source", encoder.column], BATCH_BYTES)
+            for rows in batches:
+                nested = encoder.encode(rows, split, stats)
+                counts[split] += id_counts(nested, vocabulary.size)
+                cut = cutter.cut(nested, rows["doc_id"].to_pylist(), shuffle=rng)
+                if rng is not None:
+                    cut.blocks = cut.blocks[rng.permutation(len(cut.blocks))]
+                for kind in kinds:
+                    writers[kind].write(kind_table(kind, cut, schemas[kind]))
+            if "block" in kinds:
+                tail = Rows(np.empty((0, 1)), np.empty(0), cutter.last_blocks(), [], np.empty(0), np.empty(0, np.int64))
+                writers["block"].write(kind_table("block", tail, schemas["block"]))
+            for kind_writer in writers.values():
+                kind_writer.flush()
+        except BaseException:
+            for sink in sinks.values():
+                sink.abort()
+            raise
+        for kind, sink in sinks.items():
+            sink.close()
+            path = layout.shard(split, kind, chunk)
+            relative = Path(path).relative_to(layout.root).as_posix()
+            stats.files.append(ShardFile(relative, split, kind, chunk, sink.rows, Path(path).stat().st_size, file_sha256(path)))
+            stats.rows.setdefault(split, {})[kind] = sink.rows
+        if "block" in kinds:
+            stats.block_ids[split], stats.stream_ids[split] = cutter.block_coverage(), cutter.stream_ids
+    return stats, counts
 
 
 def main(argv: list[str] | None = None) -> None:
-    parser = argparse.ArgumentParser(description="Write the shard files of one part of one split.")
-    parser.add_argument("--split", required=True)
-    parser.add_argument("--part", type=int, required=True)
-    parser.add_argument("--vocabulary", required=True)
-    parser.add_argument("--duplicates", help="removed duplicates (word units)")
-    parser.add_argument("--options", required=True)
-    parser.add_argument("--stats", required=True)
-    parser.add_argument("--output", action="append", default=[], help="KIND=PATH, once per enabled kind")
-    parser.add_argument(
-        "inputs", nargs="*", help="in corpus order: prepared chunk tables (word units) or this part's encoded files (subword units)"
+    run = job.start(argv, RULE, "Write one chunk's shard files.", per_chunk=True)
+    layout, chunk = run.layout, run.chunk
+    vocabulary = read_vocabulary(layout.ids)
+    encoder = encoder_for(vocabulary, run.options["vocabulary"]["unknown"], layout.subword_model, THREADS)
+    removed = pq.ParquetFile(layout.removed(chunk)).read(use_threads=False)
+    stats, counts = write_chunk(layout, chunk, removed, encoder, run.options)
+    table = pa.concat_tables(
+        [
+            pa.table({"split": [split] * int(np.count_nonzero(c)), "id": np.flatnonzero(c), "count": c[np.flatnonzero(c)]}, schema=ID_COUNTS_SCHEMA)
+            for split, c in counts.items()
+        ]
     )
-    args = parser.parse_args(argv)
-    config = json.loads(args.options)
-    outputs = dict(item.split("=", 1) for item in args.output)
-    vocabulary = read_vocabulary(args.vocabulary)
-    if config["units"] == "subword":
-        write_json(args.stats, write_part(args.split, args.part, encoded_parts(args.inputs), outputs, vocabulary, config))
-        return
-    if not args.duplicates:
-        raise SystemExit("corpusmill: shards: units = word needs --duplicates")
-    shards = config["shards"]
-    parts = shards["train_files"] if args.split == "train" else shards["heldout_files"]
-    token_ids = TokenIds(vocabulary, config["vocabulary"]["unknown"])
-    tables = prepared_parts(args.inputs, args.split, args.part, parts, pq.read_table(args.duplicates), token_ids, shards["seed"])
-    stats = write_part(args.split, args.part, tables, outputs, vocabulary, config)
-    write_json(args.stats, {**stats, "sources": dict(sorted(token_ids.sources.items()))})
+    write_table(layout.id_counts(chunk), table)
+    write_json(layout.shard_stats(chunk), stats.to_json())
+    print(f"{chunk}: " + ", ".join(f"{split} {sum(kinds.values()):,} rows" for split, kinds in stats.rows.items()))
 
 
 if __name__ == "__main__":

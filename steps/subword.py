@@ -38,9 +38,12 @@ import pyarrow.compute as pc
 import pyarrow.parquet as pq
 import sentencepiece as spm
 
-from .split import duplicate_mask
+from . import job
+from .chunks import removed_mask
+from .formats import BOS, EOS, PAD, RESERVED, UNK
 from .storage import atomic_path, write_text
-from .vocab import BOS, EOS, PAD, RESERVED, UNK
+
+SECTIONS = ("subword",)
 
 SAMPLE_BATCH = 8192
 KEY_LENGTH = 20
@@ -91,23 +94,24 @@ class BottomK:
         return self.sentences[order].tolist()
 
 
-def train_sentences(prepared: str, duplicates: pa.Table) -> Iterator[list[str]]:
+def train_sentences(prepared: str, removed: pa.Table) -> Iterator[list[str]]:
     """Batches of the train sentences of one prepared chunk, removed duplicates left out."""
     parquet = pq.ParquetFile(prepared)
     for batch in parquet.iter_batches(batch_size=SAMPLE_BATCH, columns=["source", "offset", "split", "sentences"]):
         table = pa.Table.from_batches([batch])
         table = table.filter(pc.equal(table["split"], "train"))
-        table = table.filter(pc.invert(duplicate_mask(duplicates, table["source"], table["offset"])))
+        table = table.filter(pa.array(~removed_mask(removed, table["source"], table["offset"])))
         sentences = pc.list_flatten(table["sentences"]).to_pylist()
         if sentences:
             yield sentences
 
 
-def draw_sample(prepared_paths: Sequence[str], duplicates: pa.Table, k: int, seed: int) -> tuple[list[str], int]:
-    """The bottom-k sample of all train sentences, and how many train sentences there were."""
+def draw_sample(chunks: Sequence[tuple[str, pa.Table]], k: int, seed: int) -> tuple[list[str], int]:
+    """The bottom-k sample of all train sentences of the (prepared chunk, its removed documents)
+    pairs, and how many train sentences there were."""
     sample = BottomK(k)
-    for path in prepared_paths:
-        for sentences in train_sentences(path, duplicates):
+    for path, removed in chunks:
+        for sentences in train_sentences(path, removed):
             sample.add(sentence_keys(sentences, seed), sentences)
     return sample.result(), sample.seen
 
@@ -187,52 +191,52 @@ def check_model(path: str | Path) -> spm.SentencePieceProcessor:
     return processor
 
 
-def main(argv: list[str] | None = None) -> None:
-    parser = argparse.ArgumentParser(description="Sample train sentences, learn a subword model, or install one.")
-    sub = parser.add_subparsers(dest="command", required=True)
-    sample = sub.add_parser("sample")
-    sample.add_argument("--options", required=True, help="JSON with the subword section")
-    sample.add_argument("--duplicates", required=True)
-    sample.add_argument("--sample", required=True)
-    sample.add_argument("--key", required=True)
-    sample.add_argument("prepared", nargs="+", help="prepared chunk files")
-    train = sub.add_parser("train")
-    train.add_argument("--options", required=True)
-    train.add_argument("--sample", required=True)
-    train.add_argument("--output", required=True)
-    install = sub.add_parser("install")
-    install.add_argument("--model", required=True)
-    install.add_argument("--output", required=True)
+def main_sample(argv: list[str]) -> None:
+    run = job.start(argv, "subword_sample", "Sample the train sentences a subword model is learned on.")
+    layout, subword = run.layout, run.options["subword"]
+    chunks = [(layout.prepared(c), pq.ParquetFile(layout.removed(c)).read(use_threads=False)) for c in run.chunks()]
+    sentences, seen = draw_sample(chunks, subword["max_sentences"], subword["seed"])
+    if not sentences:
+        raise SystemExit(
+            "corpusmill: no train sentences to learn a subword model from; check split.fractions (train > 0) and that the corpus has text"
+        )
+    text = sample_text(sentences)
+    write_text(layout.subword_sample, text)
+    write_text(layout.subword_key, sample_key(text, subword) + "\n")
+    print(f"subword sample: {len(sentences)} of {seen} train sentences")
+
+
+def main_train(argv: list[str]) -> None:
+    parser = argparse.ArgumentParser(prog="python -m steps.run subword train")
+    parser.add_argument("--build", required=True)
+    parser.add_argument("--output", required=True, help="the cached model for the sample's key")
     args = parser.parse_args(argv)
-    if args.command == "install":
-        check_model(args.model)
-        with atomic_path(args.output) as temporary:
-            temporary.write_bytes(Path(args.model).read_bytes())
-        return
-    subword = json.loads(args.options)["subword"]
-    if args.command == "sample":
-        sentences, seen = draw_sample(args.prepared, pq.read_table(args.duplicates), subword["max_sentences"], subword["seed"])
-        if not sentences:
-            raise SystemExit(
-                "corpusmill: no train sentences to learn a subword model from; "
-                "check split.fractions (train > 0) and that the corpus has text"
-            )
-        text = sample_text(sentences)
-        write_text(args.sample, text)
-        write_text(args.key, sample_key(text, subword) + "\n")
-        print(f"subword sample: {len(sentences)} of {seen} train sentences")
-        return
+    run = job.start(["--build", args.build], "subword_train", "Learn a subword model from the sample.")
+    subword = run.options["subword"]
     try:
-        model = train_model(read_sample(args.sample), subword, TRAIN_THREADS)
+        model = train_model(read_sample(run.layout.subword_sample), subword, TRAIN_THREADS)
     except RuntimeError as error:
         raise SystemExit(
-            f"corpusmill: {args.sample}: sentencepiece could not learn the model: {error}; "
+            f"corpusmill: {run.layout.subword_sample}: sentencepiece could not learn the model: {error}; "
             "lower subword.vocab_size or give the corpus more train text"
         ) from None
     with atomic_path(args.output) as temporary:
         temporary.write_bytes(model)
     print(f"subword model: {len(model)} bytes, {subword['vocab_size']} pieces")
 
+
+def main_install(argv: list[str]) -> None:
+    parser = argparse.ArgumentParser(prog="python -m steps.run subword model")
+    parser.add_argument("--build", required=True)
+    parser.add_argument("--model", required=True, help="the learned or frozen model")
+    args = parser.parse_args(argv)
+    run = job.start(["--build", args.build], "subword_model", "Install the subword model the build uses.")
+    check_model(args.model)
+    with atomic_path(run.layout.subword_model) as temporary:
+        temporary.write_bytes(Path(args.model).read_bytes())
+
+
+main = job.entries(sample=main_sample, train=main_train, model=main_install)
 
 if __name__ == "__main__":
     main()

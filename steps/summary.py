@@ -1,7 +1,7 @@
 """Summary: the coverage statistics as a short plain-text table, printed at the end of a run.
 
-Kept apart from steps.report so that Snakemake's `onsuccess` handler imports no Arrow or numpy
-(about 0.3 s at the end of every run).
+Kept apart from the other steps so that Snakemake's `onsuccess` handler imports no Arrow or
+numpy (about 0.3 s at the end of every run).
 """
 
 from __future__ import annotations
@@ -17,38 +17,44 @@ def _shown(value: float, whole: float, spec: str) -> str:
     return format(value, spec) if whole else DASH
 
 
-def format_subword_table(stats: dict) -> str:
-    """The summary of a subword build: pieces per word and sentence, <unk> and byte rates."""
-    lines = [f"subword vocabulary: {stats['vocabulary_size']} ids, {stats['pieces']} pieces, {stats['byte_pieces']} byte pieces"]
-    lines.append(f"{'split':<6} {'pieces':>10} {'per word':>9} {'per sent.':>9} {'<unk>':>8} {'bytes':>8} {'<unk> w/o fallback':>19}")
-    for split in SPLITS:
-        f = stats["splits"][split]
-        lines.append(
-            f"{split:<6} {f['pieces']:>10} {_shown(f['pieces_per_word'], f['words'], '.3f'):>9} "
-            f"{_shown(f['pieces_per_sentence'], f['sentences'], '.2f'):>9} {_shown(f['unknown_rate'], f['pieces'], '.3%'):>8} "
-            f"{_shown(f['byte_piece_rate'], f['pieces'], '.3%'):>8} {_shown(f['unknown_rate_without_byte_fallback'], f['pieces'], '.3%'):>19}"
-        )
-    return "\n".join(lines)
+def _vocabulary_line(stats: dict) -> str:
+    if "piece_ids" in stats:
+        return f"vocabulary: {stats['vocabulary_size']} ids, {stats['piece_ids']} pieces, {stats['byte_ids']} byte pieces"
+    frozen = f" (frozen: {stats['frozen']})" if stats.get("frozen") else ""
+    return f"vocabulary: {stats['vocabulary_size']} ids, {stats['words']} words{frozen}"
 
 
 def format_table(stats: dict) -> str:
-    """A short plain-text summary for the end of a run."""
-    if stats.get("units") == "subword":
-        return format_subword_table(stats)
-    frozen = f" (frozen: {stats['frozen']})" if stats.get("frozen") else ""
-    lines = [f"vocabulary: {stats['vocabulary_size']} ids, {stats['words']} words{frozen}"]
-    lines.append(f"{'split':<6} {'tokens':>10} {'types':>8} {'OOV tokens':>11} {'OOV rate':>9} {'OOV types':>9}")
+    """A short plain-text summary for the end of a run: the vocabulary, a row per split, and for
+    a word cutoff its size table and the most frequent dev OOV words."""
+    pieces = "piece_ids" in stats
+    lines = [_vocabulary_line(stats)]
+    header = f"{'split':<6} {'tokens':>10} {'unknown':>9} {'rate':>8}"
+    header += f" {'per word':>9} {'bytes':>8} {'unknown w/o fallback':>21}" if pieces else f" {'types':>8} {'OOV types':>9}"
+    lines.append(header)
     for split in SPLITS:
         f = stats["splits"][split]
-        lines.append(f"{split:<6} {f['tokens']:>10} {f['types']:>8} {f['oov_tokens']:>11} {_shown(f['oov_rate'], f['tokens'], '.2%'):>9} {f['oov_types']:>9}")
-    lines.append(f"{'size':>8} {'train coverage':>15} {'dev OOV':>8}")
-    train, dev = stats["splits"]["train"]["tokens"], stats["splits"]["dev"]["tokens"]
-    for row in stats["sizes"]:
-        mark = "  <- chosen" if row["chosen"] else ""
-        lines.append(f"{row['size']:>8} {_shown(row['train_coverage'], train, '.2%'):>15} {_shown(row['dev_oov_rate'], dev, '.2%'):>8}{mark}")
-    top = stats["splits"]["dev"].get("top_oov", [])[:10]
-    if top:
-        lines.append("most frequent dev OOV words: " + ", ".join(f"{w} ({c})" for w, c in top))
+        row = f"{split:<6} {f['tokens']:>10} {f['unknown_tokens']:>9} {_shown(f['unknown_rate'], f['tokens'], '.3%'):>8}"
+        if pieces:
+            row += (
+                f" {_shown(f['tokens_per_word'], f['words'], '.3f'):>9} {_shown(f['byte_piece_rate'], f['tokens'], '.3%'):>8}"
+                f" {_shown(f['unknown_rate_without_byte_fallback'], f['tokens'], '.3%'):>21}"
+            )
+        else:
+            row += f" {f['types']:>8} {f['oov_types']:>9}"
+        lines.append(row)
+    if "sizes" in stats:
+        lines.append(f"{'size':>8} {'train coverage':>15} {'dev OOV':>8}")
+        train, dev = stats["splits"]["train"]["tokens"], stats["splits"]["dev"]["tokens"]
+        for row_figures in stats["sizes"]:
+            mark = "  <- chosen" if row_figures["chosen"] else ""
+            lines.append(
+                f"{row_figures['size']:>8} {_shown(row_figures['train_coverage'], train, '.2%'):>15} "
+                f"{_shown(row_figures['dev_oov_rate'], dev, '.2%'):>8}{mark}"
+            )
+        top = stats["splits"]["dev"].get("top_oov", [])[:10]
+        if top:
+            lines.append("most frequent dev OOV words: " + ", ".join(f"{w} ({c})" for w, c in top))
     return "\n".join(lines)
 
 

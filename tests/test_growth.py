@@ -11,7 +11,7 @@ import pytest
 
 from corpusmill.growth import train_token_batches
 from corpusmill.laws import growth_curve
-from tests.test_report_page import corpus_order, corpus_rows
+from tests.test_report import corpus_order, corpus_rows
 
 
 def test_growth_curve_equals_a_set_recount_of_the_train_stream(demo_build: Path) -> None:

@@ -23,10 +23,10 @@ import pytest
 
 from conftest import DEMO, require_file, run_workflow
 from test_report_browser import CHROMIUM, DevTools, start_chromium, websocket_module
-from test_report_page import OPTIONS, corpus_order, corpus_rows, file_cells, png_chunks, png_size
+from test_report import OPTIONS, corpus_order, corpus_rows, file_cells, png_chunks, png_size
 from corpusmill.laws import ModelSize, PowerFit, fit_zipf
 from corpusmill.growth import train_word_batches, whitespace_words, word_growth
-from corpusmill.report_page import growth_figure, main, source_figures
+from corpusmill.report import growth_figure, main, source_figures
 from corpusmill.summary import format_subword_table
 from corpusmill.vocab import read_vocabulary
 

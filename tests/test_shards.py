@@ -77,7 +77,7 @@ def test_token_ids_add_up_over_calls_and_count_shape_classes():
 
 def heldout_corpus_order(build, split: str) -> list[str]:
     """doc_ids of a held-out split's kept documents by input file (manifest order), then offset."""
-    from tests.test_report_page import corpus_rows
+    from tests.test_report import corpus_rows
 
     removed = {(r["source"], r["offset"]) for r in pq.read_table(build / "interim" / "duplicates.parquet").to_pylist()}
     rows = corpus_rows(build, ["doc_id", "split"])

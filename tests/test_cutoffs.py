@@ -20,7 +20,7 @@ import pytest
 from conftest import REPO
 from corpusmill.report import TABLE_SIZES
 from corpusmill.vocab import SHAPE_CLASSES, UNK, Cutoff, read_vocabulary, unknown_class
-from corpusmill.whatif import Figures, WordList, format_answer, what_if
+from corpusmill.cutoffs import Figures, WordList, format_answer, what_if
 
 SPLITS = ("train", "dev", "test")
 

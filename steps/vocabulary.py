@@ -1,51 +1,36 @@
-"""Vocabulary: token counts per chunk and split, their merge, the cutoff, and the vocabulary file.
+"""Vocabulary: the ids a build's shards use, and the vocabulary file with the build's counts.
 
-Only train counts choose the vocabulary; dev and test counts are kept for the OOV statistics.
-Ids: reserved symbols first (fixed, see RESERVED), then the unknown classes, then words by
-descending train count, ties broken by the token's code points.
+Word units: token counts per chunk and split (written by the prepare jobs) are merged, the
+removed duplicates' counts subtracted, and the cutoff keeps words by train count only (dev and
+test counts are kept for the OOV statistics). Ids: the reserved symbols first (RESERVED),
+then the unknown classes, then words by descending train count, ties broken by the token's
+code points; or a frozen vocabulary, checked, used unchanged. Subword units: the ids are the
+sentencepiece model's pieces (steps.subword).
 
-vocabulary.tsv: a header line `id<TAB>token<TAB>count<TAB>kind`, then one row per id in id
-order. kind is `reserved`, `unknown` (an out-of-vocabulary class; count = train tokens mapped
-to it) or `word` (count = train occurrences); in subword mode `piece`, `byte` or `control`.
-
-Subword mode: the rows are exactly the sentencepiece model's pieces in id order (ids 0-3 are
-<pad> <unk> <s> </s> with kind `control`, then byte pieces with kind `byte` when byte fallback
-is on, then learned pieces with kind `piece`); count = occurrences in the encoded train split.
-Pieces may hold a line break (the model keeps the cleaned text as it is), so piece fields of
-subword rows are written with backslash escapes for backslash, tab, line feed and carriage
-return (a backslash and one of \\, t, n, r); word rows are written as they are.
+Rule `vocabulary` writes the ids (interim/vocabulary/ids.tsv, in vocabulary.tsv's format;
+steps.formats) before the shards; rule `vocabulary_table` writes the public vocabulary.tsv with
+the count of every id in the build's train streams, summed from the shard jobs' id counts, and
+stats/token_counts.parquet (every word's train, dev and test counts, or every piece's).
 """
 
 from __future__ import annotations
 
-import argparse
-import hashlib
-import json
 from collections.abc import Sequence
 from dataclasses import dataclass
-from functools import cached_property
 from pathlib import Path
 
 import numpy as np
 import pyarrow as pa
 import pyarrow.compute as pc
-import pyarrow.csv as pa_csv
 import pyarrow.parquet as pq
 import regex
-import sentencepiece as spm
 
+from . import job
+from .formats import BOS, EOS, RESERVED, UNK, FormatError, Vocabulary, read_vocabulary
 from .layout import SPLITS
 from .storage import write_table, write_text
 
-PAD, UNK, BOS, EOS = "<pad>", "<unk>", "<s>", "</s>"
-RESERVED = (PAD, UNK, BOS, EOS)
-HEADER = "id\ttoken\tcount\tkind"
-VOCABULARY_COLUMNS = {"id": pa.int64(), "token": pa.string(), "count": pa.int64(), "kind": pa.string()}
-SUBWORD_KINDS = frozenset({"piece", "byte", "control"})
-_ESCAPES = {"\\": "\\\\", "\t": "\\t", "\n": "\\n", "\r": "\\r"}
-_ESCAPED = regex.compile(r"[\\\t\n\r]")
-_UNESCAPED = regex.compile(r"\\(.)")
-_UNESCAPES = {"\\": "\\", "t": "\t", "n": "\n", "r": "\r"}
+SECTIONS = ("units", "vocabulary")
 
 # Unknown classes by word shape, tried in this order; a word matching none maps to <unk>.
 SHAPE_CLASSES = (
@@ -152,101 +137,6 @@ def choose_size(train_counts: np.ndarray, cutoff: Cutoff) -> int:
     return keep
 
 
-@dataclass
-class Vocabulary:
-    """Ids of tokens; `tokens[i]` is the token with id i. Never changed once built, so the
-    figures derived from it (reserved ids, digest) are computed once."""
-
-    tokens: list[str]
-    counts: list[int]
-    kinds: list[str]
-
-    @property
-    def size(self) -> int:
-        return len(self.tokens)
-
-    @cached_property
-    def reserved(self) -> dict[str, int]:
-        return {token: i for i, (token, kind) in enumerate(zip(self.tokens, self.kinds)) if kind in ("reserved", "unknown", "control")}
-
-    @cached_property
-    def first_word_id(self) -> int:
-        return next((i for i, kind in enumerate(self.kinds) if kind not in ("reserved", "unknown", "control")), self.size)
-
-    def unknown_ids(self) -> dict[str, int]:
-        return {token: i for i, (token, kind) in enumerate(zip(self.tokens, self.kinds)) if kind == "unknown" or token == UNK}
-
-    def to_tsv(self) -> str:
-        rows = [HEADER] + [
-            f"{i}\t{escape(t) if k in SUBWORD_KINDS else t}\t{c}\t{k}"
-            for i, (t, c, k) in enumerate(zip(self.tokens, self.counts, self.kinds))
-        ]
-        return "\n".join(rows) + "\n"
-
-    def digest(self) -> str:
-        return self._digest
-
-    @cached_property
-    def _digest(self) -> str:
-        return hashlib.sha256(self.to_tsv().encode("utf-8")).hexdigest()
-
-
-def escape(piece: str) -> str:
-    """A subword piece as one TSV field: backslash, tab, line feed and carriage return escaped."""
-    return _ESCAPED.sub(lambda m: _ESCAPES[m.group()], piece)
-
-
-def unescape(field: str) -> str:
-    return _UNESCAPED.sub(lambda m: _UNESCAPES.get(m.group(1), m.group()), field)
-
-
-def read_vocabulary(path: str | Path) -> Vocabulary:
-    """Read a vocabulary.tsv, checking the header and that ids run 0, 1, 2, … without gaps.
-
-    Arrow's CSV reader parses it (a 120k-word file in about 30 ms instead of 0.4 s line by line);
-    a file it cannot parse is read again line by line to name the first bad line."""
-    with open(path, "rb") as handle:
-        first = handle.readline().rstrip(b"\n").decode("utf-8", "replace")
-    if first != HEADER:
-        raise ValueError(f"{path}: line 1: expected the header {HEADER!r}; is this a corpusmill vocabulary file?")
-    try:
-        table = pa_csv.read_csv(
-            path,
-            read_options=pa_csv.ReadOptions(use_threads=False, block_size=16 << 20),
-            parse_options=pa_csv.ParseOptions(delimiter="\t", quote_char=False, escape_char=False),
-            convert_options=pa_csv.ConvertOptions(
-                column_types=VOCABULARY_COLUMNS, strings_can_be_null=False, quoted_strings_can_be_null=False
-            ),
-        )
-    except pa.ArrowInvalid as error:
-        _raise_bad_line(path, str(error).splitlines()[0])
-    ids = table["id"].to_numpy()
-    if not np.array_equal(ids, np.arange(len(ids))):
-        _raise_bad_line(path, "ids do not run 0, 1, 2, …")
-    tokens, kinds = table["token"].to_pylist(), table["kind"].to_pylist()
-    for i, kind in enumerate(kinds):
-        if kind in SUBWORD_KINDS:
-            tokens[i] = unescape(tokens[i])
-    return Vocabulary(tokens, table["count"].to_pylist(), kinds)
-
-
-def _raise_bad_line(path: str | Path, reason: str) -> None:
-    """Raise a ValueError naming the first line of a vocabulary file that is not a valid row,
-    or, when every line looks right, the reason the file could not be read."""
-    expected = 0
-    with open(path, encoding="utf-8", errors="replace") as handle:
-        next(handle)
-        for number, line in enumerate(handle, start=2):
-            line = line.rstrip("\n")
-            if not line:
-                continue
-            fields = line.split("\t")
-            if len(fields) != 4 or not fields[0].isdigit() or int(fields[0]) != expected or not fields[2].lstrip("-").isdigit():
-                raise ValueError(f"{path}: line {number}: expected '{expected}<TAB>token<TAB>count<TAB>kind', got {line[:80]!r}")
-            expected += 1
-    raise ValueError(f"{path}: cannot be read as a vocabulary file ({reason}); write it with corpusmill or fix that value")
-
-
 def build_vocabulary(counts: pa.Table, cutoff: Cutoff, unknown: str, boundaries: dict[str, int] | None = None) -> Vocabulary:
     """Reserved symbols, unknown classes, then the words that pass the cutoff. `boundaries`
     gives the train counts of <s> and </s> (documents and sentences)."""
@@ -262,35 +152,6 @@ def build_vocabulary(counts: pa.Table, cutoff: Cutoff, unknown: str, boundaries:
     numbers = [0, unknown_counts[UNK], ends.get(BOS, 0), ends.get(EOS, 0)] + [unknown_counts[c] for c in classes[1:]] + train[:keep].tolist()
     kinds = ["reserved"] * len(RESERVED) + ["unknown"] * (len(classes) - 1) + ["word"] * keep
     return Vocabulary(tokens, numbers, kinds)
-
-
-class Lookup:
-    """Maps token arrays to id arrays; OOV tokens go to their unknown class.
-
-    Each call dictionary-encodes its tokens and finds only the distinct ones among the words
-    with Arrow's `index_in` (10 ms for 120k distinct tokens against 120k words, where a Python
-    dict lookup of each took 45 ms, measured); only OOV tokens are classified in Python."""
-
-    def __init__(self, vocabulary: Vocabulary, unknown: str) -> None:
-        self._first = vocabulary.first_word_id
-        self._words = pa.array(vocabulary.tokens[self._first :], pa.string())
-        self._unknown = unknown
-        self._classes = vocabulary.unknown_ids()
-
-    def ids(self, tokens: pa.Array) -> np.ndarray:
-        """int64 ids of `tokens` (a string array)."""
-        encoded = pc.dictionary_encode(tokens)
-        found = pc.index_in(encoded.dictionary, value_set=self._words)
-        distinct = pc.fill_null(found, -1).to_numpy().astype(np.int64) + self._first
-        missing = np.flatnonzero(distinct < self._first)
-        unk = self._classes[UNK]
-        if self._unknown == "shape" and len(missing):
-            classes = self._classes
-            oov = pc.take(encoded.dictionary, pa.array(missing)).to_pylist()
-            distinct[missing] = [classes.get(unknown_class(t), unk) for t in oov]
-        else:
-            distinct[missing] = unk
-        return distinct[encoded.indices.to_numpy(zero_copy_only=False)]
 
 
 class VocabularyError(ValueError):
@@ -339,7 +200,7 @@ def vocabulary_from_counts(
     if frozen:
         try:
             vocabulary = read_vocabulary(frozen)
-        except (OSError, ValueError) as error:
+        except (OSError, FormatError) as error:
             raise VocabularyError(str(error)) from None
         check_frozen(vocabulary, vocabulary_config["unknown"], frozen)
         return vocabulary, counts
@@ -348,63 +209,75 @@ def vocabulary_from_counts(
     return build_vocabulary(counts, cutoff, vocabulary_config["unknown"], train_ends), counts
 
 
-def piece_kind(processor: spm.SentencePieceProcessor, piece_id: int) -> str:
-    if processor.is_byte(piece_id):
-        return "byte"
-    if processor.is_control(piece_id) or processor.is_unknown(piece_id):
-        return "control"
-    return "piece"
+def model_vocabulary(model: str) -> Vocabulary:
+    """The ids of a sentencepiece model: its pieces in id order (kinds control, byte, piece)."""
+    import sentencepiece as spm
 
-
-def vocabulary_from_model(model: str, count_paths: Sequence[str]) -> tuple[Vocabulary, pa.Table]:
-    """The model's pieces in id order with their train counts, and token counts per split
-    (pieces only: <s> and </s>, counted in the vocabulary, are not tokens of the text).
-
-    `count_paths` are the encode step's piece counts (split, id, count) per chunk."""
     processor = spm.SentencePieceProcessor(model_file=model)
-    size = processor.get_piece_size()
-    pieces = [processor.id_to_piece(i) for i in range(size)]
-    per_split = {split: np.zeros(size, np.int64) for split in SPLITS}
-    for path in count_paths:
-        table = pq.read_table(path)
+    kinds = []
+    for number in range(processor.get_piece_size()):
+        if processor.is_byte(number):
+            kinds.append("byte")
+        elif processor.is_control(number) or processor.is_unknown(number):
+            kinds.append("control")
+        else:
+            kinds.append("piece")
+    pieces = [processor.id_to_piece(i) for i in range(processor.get_piece_size())]
+    return Vocabulary(pieces, [0] * len(pieces), kinds)
+
+
+def id_counts(paths: Sequence[str], size: int) -> dict[str, np.ndarray]:
+    """Occurrences of each id per split, summed over the shard jobs' id counts (split, id, count)."""
+    totals = {split: np.zeros(size, np.int64) for split in SPLITS}
+    for path in paths:
+        table = pq.ParquetFile(path).read(use_threads=False)
         for split in SPLITS:
             rows = table.filter(pc.equal(table["split"], split))
-            np.add.at(per_split[split], rows["id"].to_numpy(), rows["count"].to_numpy())
-    vocabulary = Vocabulary(pieces, per_split["train"].tolist(), [piece_kind(processor, i) for i in range(size)])
-    counts = pa.table({"token": pa.array(pieces, pa.string()), **{split: pa.array(per_split[split], pa.int64()) for split in SPLITS}})
-    boundary = np.isin(np.arange(size), [RESERVED.index(BOS), RESERVED.index(EOS)])
-    return vocabulary, sort_by_frequency(counts.filter(pa.array(~boundary)))
+            np.add.at(totals[split], rows["id"].to_numpy(), rows["count"].to_numpy())
+    return totals
 
 
-def main(argv: list[str] | None = None) -> None:
-    parser = argparse.ArgumentParser(description="Build the vocabulary from the chunks' counts.")
-    sub = parser.add_subparsers(dest="command", required=True)
-    build = sub.add_parser("build")
-    build.add_argument("--options", required=True)
-    build.add_argument("--removed", help="counts of the removed duplicate documents, subtracted")
-    build.add_argument("--vocabulary", required=True)
-    build.add_argument("--token-counts", required=True)
-    build.add_argument("--model", help="sentencepiece model (units = subword; counts are then piece counts)")
-    build.add_argument("counts", nargs="*")
-    args = parser.parse_args(argv)
-    config = json.loads(args.options)
-    if config["units"] == "subword":
-        if not args.model:
-            raise SystemExit("corpusmill: vocab build: units = subword needs --model")
-        vocabulary, counts = vocabulary_from_model(args.model, args.counts)
-        write_table(args.token_counts, counts)
-        write_text(args.vocabulary, vocabulary.to_tsv())
-        print(f"vocabulary: {vocabulary.size} ids from {args.model} ({vocabulary.kinds.count('byte')} byte pieces)")
+def piece_counts(vocabulary: Vocabulary, totals: dict[str, np.ndarray]) -> pa.Table:
+    """token → train, dev and test occurrences of every piece (not <s> and </s>, which are not
+    pieces of the text), most frequent in train first."""
+    keep = np.array([token not in (BOS, EOS) for token in vocabulary.tokens])
+    table = pa.table({"token": pa.array(vocabulary.tokens, pa.string()), **{split: pa.array(totals[split], pa.int64()) for split in SPLITS}})
+    return sort_by_frequency(table.filter(pa.array(keep)))
+
+
+def main_ids(argv: list[str]) -> None:
+    run = job.start(argv, "vocabulary", "The ids the shards use (rule vocabulary).")
+    layout, options = run.layout, run.options
+    if options["units"] == "subword":
+        vocabulary = model_vocabulary(layout.subword_model)
+        write_text(layout.ids, vocabulary.to_tsv())
+        print(f"ids: {vocabulary.size} pieces of {layout.subword_model}")
         return
-    frozen = config["vocabulary"]["frozen"]
+    frozen = options["vocabulary"]["frozen"]
+    chunks = run.chunks()
     try:
-        vocabulary, counts = vocabulary_from_counts(args.counts, args.removed, config, frozen)
+        vocabulary, counts = vocabulary_from_counts([layout.counts(c) for c in chunks], layout.removed_counts, options, frozen)
     except VocabularyError as error:
         raise SystemExit(f"corpusmill: {'vocabulary.frozen: ' if frozen else ''}{error}") from None
-    write_table(args.token_counts, counts)
-    write_text(args.vocabulary, vocabulary.to_tsv())
-    print(f"vocabulary: {vocabulary.size} ids ({vocabulary.size - vocabulary.first_word_id} words)")
+    write_table(layout.word_counts, counts)
+    write_text(layout.ids, vocabulary.to_tsv())
+    print(f"ids: {vocabulary.size} ({vocabulary.size - vocabulary.first_word_id} words)")
 
+
+def main_table(argv: list[str]) -> None:
+    run = job.start(argv, "vocabulary_table", "vocabulary.tsv with the build's train counts (rule vocabulary_table).")
+    layout = run.layout
+    ids = read_vocabulary(layout.ids)
+    totals = id_counts([layout.id_counts(chunk) for chunk in run.chunks()], ids.size)
+    write_text(layout.vocabulary, ids.with_counts(totals["train"]).to_tsv())
+    if run.options["units"] == "subword":
+        write_table(layout.token_counts, piece_counts(ids, totals))
+    else:
+        write_table(layout.token_counts, pq.ParquetFile(layout.word_counts).read(use_threads=False))
+    print(f"vocabulary.tsv: {ids.size} ids, {int(totals['train'].sum()):,} train ids")
+
+
+main = job.entries(ids=main_ids, table=main_table)
 
 if __name__ == "__main__":
     main()

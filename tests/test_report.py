@@ -16,7 +16,7 @@ import pytest
 
 from conftest import REPO
 from corpusmill.laws import ModelSize, fit_heaps, fit_zipf
-from corpusmill.report_page import coverage_curve, main, table
+from corpusmill.report import coverage_curve, main, table
 from corpusmill.summary import format_table
 
 PNG_SIGNATURE = b"\x89PNG\r\n\x1a\n"

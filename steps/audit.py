@@ -27,9 +27,8 @@ import pyarrow as pa
 import pyarrow.compute as pc
 import pyarrow.parquet as pq
 
-from .manifest import file_sha256
+from .formats import file_sha256, id_columns, kind_width, read_vocabulary
 from .reader import MAX_MANIFEST_BYTES, MAX_VOCABULARY_BYTES, SHARD_FIELDS, file_problem, key_path, parse_manifest, resolve_inside
-from .vocab import read_vocabulary
 
 BATCH_ROWS = 65_536
 FIX_FILE = "restore it from an intact copy of the build, or delete it and rerun snakemake to rebuild it"
@@ -38,7 +37,7 @@ FIX_MANIFEST = "restore manifest.json from an intact copy of the build, or delet
 # Every manifest field the audit reads, with its type (steps.reader.structure_problem).
 MANIFEST_FIELDS = {
     "config": {"windows": {"ngram": {"n": int}, "blocks": {"length": int}}},
-    "vocabulary": {"file": str, "sha256": str, "size": int},
+    "vocabulary": {"file": str, "sha256": str, "ids_sha256": str, "size": int},
     "splits": {"*": {"rows": {"*": int}, "shards": [SHARD_FIELDS]}},
     "files": {"*": str},
     "accounting": {"read": int, "pieces_added": int, "kept": int, "dropped": {"*": int}, "balanced": bool},
@@ -59,10 +58,6 @@ class Audit:
         self.problems.append(f"{file}: {problem}")
 
 
-def _id_columns(kind: str) -> list[str]:
-    return {"ngram": ["context", "target"], "block": ["ids"], "stream": ["ids"]}[kind]
-
-
 def listed_file(real_root: Path, name: str, where: str, audit: Audit, limit: int | None = None) -> Path | None:
     """The file a manifest entry names, or None after recording why it may not be read."""
     target, problem = resolve_inside(real_root, name)
@@ -73,15 +68,6 @@ def listed_file(real_root: Path, name: str, where: str, audit: Audit, limit: int
         audit.fail(name, f"listed in manifest.json but {problem}; {FIX_FILE}")
         return None
     return target
-
-
-def _expected_width(kind: str, config: dict) -> int | None:
-    """Fixed list width of a kind's id column: n-1 context ids, or L+1 block ids."""
-    if kind == "ngram":
-        return config["windows"]["ngram"]["n"] - 1
-    if kind == "block":
-        return config["windows"]["blocks"]["length"] + 1
-    return None
 
 
 def _max_id(column: pa.Array) -> int | None:
@@ -102,7 +88,7 @@ def _corpusmill_metadata(raw: bytes) -> dict | None:
     return info if isinstance(info, dict) else None
 
 
-def check_shard(path: Path, entry: dict, config: dict, vocabulary_sha256: str, vocabulary_size: int, audit: Audit) -> None:
+def check_shard(path: Path, entry: dict, config: dict, ids_sha256: str, vocabulary_size: int, audit: Audit) -> None:
     """Hash, rows (footer and decoded), metadata, widths and id range of one listed shard file."""
     name = entry["file"]
     if file_sha256(path) != entry["sha256"]:
@@ -119,12 +105,12 @@ def check_shard(path: Path, entry: dict, config: dict, vocabulary_sha256: str, v
     info = None if raw is None else _corpusmill_metadata(raw)
     if info is None:
         audit.fail(name, f"no 'corpusmill' key-value metadata holding a JSON object; not a corpusmill shard; {FIX_FILE}")
-    elif info.get("vocabulary_sha256") != vocabulary_sha256:
-        audit.fail(name, f"its metadata vocabulary_sha256 differs from vocabulary.tsv; the shard belongs to another build; {FIX_FILE}")
-    width = _expected_width(kind, config)
-    for column in _id_columns(kind):
+    elif info.get("ids_sha256") != ids_sha256:
+        audit.fail(name, f"its metadata ids_sha256 differs from the ids of vocabulary.tsv; the shard belongs to another build; {FIX_FILE}")
+    width = kind_width(kind, config["windows"])
+    for column in id_columns(kind):
         if column not in parquet.schema_arrow.names:
-            audit.fail(name, f"has no column {column!r} (a {kind} shard needs {', '.join(_id_columns(kind))}); {FIX_FILE}")
+            audit.fail(name, f"has no column {column!r} (a {kind} shard needs {', '.join(id_columns(kind))}); {FIX_FILE}")
             return
         kind_type = parquet.schema_arrow.field(column).type
         if width is not None and column != "target":
@@ -136,7 +122,7 @@ def check_shard(path: Path, entry: dict, config: dict, vocabulary_sha256: str, v
         largest, decoded = -1, 0
         for group in range(footer.num_row_groups):
             rows = 0
-            for batch in parquet.iter_batches(batch_size=BATCH_ROWS, row_groups=[group], columns=_id_columns(kind)):
+            for batch in parquet.iter_batches(batch_size=BATCH_ROWS, row_groups=[group], columns=id_columns(kind)):
                 rows += batch.num_rows
                 for column in batch.columns:
                     value = _max_id(column)
@@ -167,8 +153,10 @@ def check_vocabulary(real_root: Path, listed: dict, audit: Audit) -> None:
     except (OSError, ValueError) as error:
         audit.fail(listed["file"], f"unreadable ({error}); {FIX_FILE}")
         return
-    if vocabulary.digest() != listed["sha256"]:
-        audit.fail(listed["file"], f"SHA-256 {vocabulary.digest()[:12]}… differs from manifest.json ({listed['sha256'][:12]}…); "
+    if vocabulary.ids_digest != listed["ids_sha256"]:
+        audit.fail(listed["file"], f"its ids differ from manifest.json's ids_sha256 ({listed['ids_sha256'][:12]}…); {FIX_FILE}")
+    if (found := file_sha256(path)) != listed["sha256"]:
+        audit.fail(listed["file"], f"SHA-256 {found[:12]}… differs from manifest.json ({listed['sha256'][:12]}…); "
                    f"the vocabulary was replaced (another build's?) or edited; {FIX_FILE}")  # fmt: skip
     if vocabulary.size != listed["size"]:
         audit.fail(listed["file"], f"has {vocabulary.size} ids, manifest.json says {listed['size']}; {FIX_FILE}")
@@ -215,7 +203,7 @@ def audit_build(build: str | Path) -> Audit:
                 audit.fail("manifest.json", f"{where} names the same file as {seen[path]}; {FIX_MANIFEST}")
             elif path is not None:
                 seen[path] = where
-                check_shard(path, entry, config, listed["sha256"], listed["size"], audit)
+                check_shard(path, entry, config, listed["ids_sha256"], listed["size"], audit)
     for split, figures in manifest["splits"].items():
         for kind, rows in figures["rows"].items():
             total = sum(e["rows"] for e in figures["shards"] if e["kind"] == kind)

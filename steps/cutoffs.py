@@ -18,12 +18,10 @@ from pathlib import Path
 import numpy as np
 import pyarrow as pa
 import pyarrow.compute as pc
-import pyarrow.csv as pa_csv
 import pyarrow.parquet as pq
 
-from .vocab import HEADER, Cutoff, Vocabulary, choose_size
-
-TSV_TYPES = {"id": pa.int64(), "token": pa.string(), "count": pa.int64(), "kind": pa.string()}
+from .formats import FormatError, Vocabulary, read_vocabulary
+from .vocabulary import Cutoff, choose_size
 
 
 @dataclass(frozen=True)
@@ -93,29 +91,14 @@ class WordList:
 
     @classmethod
     def read(cls, path: Path) -> "WordList":
-        """Read vocabulary.tsv with Arrow's CSV reader (a million rows in well under a second), checking
-        the header and that ids run 0, 1, 2, … as steps.vocab.read_vocabulary does."""
+        """The word list of a vocabulary.tsv (steps.formats.read_vocabulary checks it)."""
         try:
-            table = pa_csv.read_csv(
-                path,
-                parse_options=pa_csv.ParseOptions(delimiter="\t", quote_char=False, escape_char=False),
-                convert_options=pa_csv.ConvertOptions(column_types=TSV_TYPES, strings_can_be_null=False),
-            )
-        except pa.ArrowInvalid as error:
-            raise SystemExit(f"corpusmill: {path}: {error}; is this a corpusmill vocabulary file?") from None
-        if table.column_names != list(TSV_TYPES):
-            raise SystemExit(f"corpusmill: {path}: line 1: expected the header {HEADER!r}; is this a corpusmill vocabulary file?")
-        ids = table["id"].to_numpy()
-        wrong = np.flatnonzero(ids != np.arange(len(ids)))
-        if len(wrong):
-            raise SystemExit(f"corpusmill: {path}: line {wrong[0] + 2}: expected id {wrong[0]}, got {ids[wrong[0]]}")
-        kinds = table["kind"]
-        if not pc.all(pc.is_in(kinds, value_set=pa.array(["reserved", "unknown", "word"]))).as_py():
+            vocabulary = read_vocabulary(path)
+        except FormatError as error:
+            raise SystemExit(f"corpusmill: {error}") from None
+        if vocabulary.units != "word":
             raise SystemExit(f"corpusmill: {path}: a subword vocabulary; cutoffs apply to word vocabularies (units: word)")
-        is_word = pc.equal(kinds, "word")
-        reserved = int(pc.index(is_word, True).as_py())
-        reserved = len(ids) if reserved < 0 else reserved
-        return cls(reserved, table["token"].combine_chunks().slice(reserved))
+        return cls.of(vocabulary)
 
 
 def what_if(counts: pa.Table, vocabulary: WordList, cutoff: Cutoff, show: int) -> Answer:

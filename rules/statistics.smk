@@ -1,0 +1,63 @@
+# What the build holds: the record of every document (steps/accounting.py), the vocabulary growth
+# curve (steps/growth.py) and the coverage statistics (steps/coverage.py).
+
+rule accounting:
+    input:
+        tallies=[L.tally(c) for c in PLAN.chunk_keys],
+        drop_logs=[L.drop_log(c) for c in PLAN.chunk_keys],
+        duplicates=L.duplicates,
+        options=L.options("accounting"),
+    output:
+        summary=L.accounting,
+        dropped=L.dropped,
+    log:
+        L.log("accounting"),
+    params:
+        code=code_hash("accounting"),
+    threads: 1
+    resources:
+        mem_mb=CONFIG["resources"]["aggregate_mem_mb"],
+        runtime=CONFIG["resources"]["runtime_min"],
+    shell:
+        step("accounting")
+
+
+rule growth:
+    input:
+        tables=[L.prepared(c) for c in PLAN.chunk_keys],
+        removed=removed_lists,
+        counts=[] if SUBWORD else [L.word_counts],
+        options=L.options("growth"),
+    output:
+        L.growth,
+    log:
+        L.log("growth"),
+    params:
+        removed=removed_digests,
+        code=code_hash("growth"),
+    threads: 1
+    resources:
+        mem_mb=CONFIG["resources"]["aggregate_mem_mb"],
+        runtime=CONFIG["resources"]["runtime_min"],
+    shell:
+        step("growth")
+
+
+rule coverage:
+    input:
+        stats=[L.shard_stats(c) for c in PLAN.chunk_keys],
+        vocabulary=L.vocabulary,
+        token_counts=L.token_counts,
+        options=L.options("coverage"),
+    output:
+        L.coverage,
+    log:
+        L.log("coverage"),
+    params:
+        code=code_hash("coverage"),
+    threads: 1
+    resources:
+        mem_mb=CONFIG["resources"]["aggregate_mem_mb"],
+        runtime=CONFIG["resources"]["runtime_min"],
+    shell:
+        step("coverage")

@@ -1,0 +1,222 @@
+"""Deduplicate: exact duplicate documents across the whole corpus, and ids that name two documents.
+
+Every document's 16-byte content fingerprint (written by its prepare job) is compared with all
+others in corpus order (chunks in corpus order, rows by file and byte offset): the first is
+kept, every later one is removed. Before anything, the job stops the run if any chunk's tally
+recorded a file it could not read as configured (naming them all), or if one id names two
+documents.
+
+Outputs: interim/duplicates.parquet (source, offset, doc_id, duplicate_of for every removed
+document); per chunk, interim/removed/<chunk>.parquet (the chunk's removed documents: source,
+offset), which a chunk's later jobs read, so that a change elsewhere in the corpus that does
+not change which of its documents are removed reruns none of them; and the word counts per
+split of the removed documents (word units), which the vocabulary subtracts from the chunks'
+counts, so an unchanged chunk's counts never need recounting.
+"""
+
+from __future__ import annotations
+
+from collections.abc import Sequence
+
+import numpy as np
+import pyarrow as pa
+import pyarrow.compute as pc
+import pyarrow.parquet as pq
+
+from . import job
+from .accounting import problems_message
+from .chunks import removed_mask
+from .settings import read_json
+from .storage import write_table
+from .vocabulary import COUNTS_SCHEMA, MERGE_FILES, count_tokens, sum_counts
+
+RULE = "deduplicate"
+SECTIONS = ("corpus", "split", "units")
+
+DUPLICATES_SCHEMA = pa.schema(
+    [("source", pa.string()), ("offset", pa.int64()), ("doc_id", pa.string()), ("duplicate_of", pa.string())]
+)
+REMOVED_SCHEMA = pa.schema([("source", pa.string()), ("offset", pa.int64())])
+# Uncompressed bytes of row groups read at once while counting removed documents: bounds the
+# job's memory whatever the chunk (a chunk of many duplicates would otherwise be read whole).
+REMOVED_READ_BYTES = 64 << 20
+
+
+def corpus_order(table: pa.Table) -> np.ndarray:
+    """Row positions of a prepared chunk table by file, then offset: corpus order."""
+    codes, _ = _file_codes(table["source"])
+    return np.lexsort((table["offset"].to_numpy(), codes))
+
+
+def _file_codes(sources: pa.Array | pa.ChunkedArray) -> tuple[np.ndarray, list[str]]:
+    """Each row's file as its rank among the distinct files (code point order), and the files."""
+    encoded = pc.dictionary_encode(sources.combine_chunks() if isinstance(sources, pa.ChunkedArray) else sources)
+    names = encoded.dictionary.to_pylist()
+    rank = np.empty(len(names), dtype=np.int64)
+    rank[np.argsort(np.array(names, dtype=object), kind="stable")] = np.arange(len(names))
+    return rank[encoded.indices.to_numpy(zero_copy_only=False)], sorted(names)
+
+
+class CorpusRows:
+    """The documents of all prepared chunks numbered 0..n-1 in corpus order (chunks in corpus
+    order, rows by file and offset), holding only their 16-byte fingerprints (`words`, an
+    (n, 2) uint64 array) and `doc_hash`es: 24 bytes a document. Names and places of chosen
+    rows are read back from the chunk files (`locate`)."""
+
+    def __init__(self, paths: Sequence[str]) -> None:
+        self.paths = list(paths)
+        sizes = [pq.ParquetFile(p).metadata.num_rows for p in self.paths]
+        self.starts = np.cumsum([0, *sizes])
+        self.words = np.empty((self.starts[-1], 2), np.uint64)
+        self.hashes = np.empty(self.starts[-1], np.uint64)
+        for number, path in enumerate(self.paths):
+            table = pq.ParquetFile(path, read_dictionary=["source"]).read(columns=["source", "offset", "doc_hash", "fingerprint"], use_threads=False)
+            if not table.num_rows:
+                continue
+            order = corpus_order(table)
+            column = table["fingerprint"].combine_chunks()
+            words = np.frombuffer(column.buffers()[1], dtype=np.uint64, count=2 * len(column), offset=column.offset * 16)
+            span = slice(self.starts[number], self.starts[number + 1])
+            self.words[span] = words.reshape(-1, 2)[order]
+            self.hashes[span] = table["doc_hash"].to_numpy()[order]
+
+    def locate(self, rows: np.ndarray) -> pa.Table:
+        """(source, offset, doc_id) of the given rows, in the order given (Arrow columns, no
+        Python objects per row)."""
+        rows = np.asarray(rows, dtype=np.int64)
+        order = np.argsort(rows, kind="stable")
+        ordered = rows[order]
+        chunk_of = np.searchsorted(self.starts, ordered, side="right") - 1
+        parts = [DUPLICATES_SCHEMA.empty_table().select(["source", "offset", "doc_id"])]
+        for chunk in np.unique(chunk_of):
+            table = pq.ParquetFile(self.paths[chunk]).read(columns=["source", "offset", "doc_id"], use_threads=False)
+            local = ordered[chunk_of == chunk] - self.starts[chunk]
+            parts.append(table.take(pa.array(corpus_order(table)[local])))
+        found = pa.concat_tables(parts).combine_chunks()
+        return found.take(pa.array(np.argsort(order, kind="stable")))
+
+
+def first_occurrences(words: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
+    """(rows, owners): every row of `words` ((n, 2) uint64 fingerprints) equal to an earlier
+    row, ascending, and the first row it equals.
+
+    A stable sort by both words puts equal fingerprints next to each other in row order, so
+    each group's first row is its earliest. Memory: the fingerprints plus about 24 bytes per
+    row (the sort order and one key column at a time), not np.unique's copies of everything."""
+    order = np.lexsort((words[:, 1], words[:, 0]))
+    same = np.ones(max(len(order) - 1, 0), dtype=bool)
+    for word in (0, 1):
+        key = words[order, word]
+        same &= key[1:] == key[:-1]
+        del key
+    later = np.flatnonzero(same) + 1  # sorted positions holding a repeat
+    group_starts = np.flatnonzero(np.concatenate([[True], ~same]))
+    owners = order[group_starts[np.searchsorted(group_starts, later, side="right") - 1]]
+    rows = order[later]
+    ascending = np.argsort(rows, kind="stable")
+    return rows[ascending], owners[ascending]
+
+
+def find_duplicates(corpus: CorpusRows) -> tuple[pa.Table, np.ndarray]:
+    """Rows (source, offset, doc_id, duplicate_of) for every document whose fingerprint was seen
+    earlier in corpus order, and the chunk (position in `corpus.paths`) each lies in."""
+    rows, owners = first_occurrences(corpus.words)
+    if not len(rows):
+        return DUPLICATES_SCHEMA.empty_table(), np.zeros(0, np.int64)
+    located = corpus.locate(np.concatenate([rows, owners]))
+    removed, kept = located.slice(0, len(rows)), located.slice(len(rows))
+    table = pa.Table.from_arrays([removed["source"], removed["offset"], removed["doc_id"], kept["doc_id"]], schema=DUPLICATES_SCHEMA)
+    return table, np.searchsorted(corpus.starts, rows, side="right") - 1
+
+
+def repeated_ids(corpus: CorpusRows) -> list[tuple[str, list[tuple[str, int]]]]:
+    """Every document id that names more than one document, with the places (source, offset)
+    of its documents in corpus order. Candidates are rows sharing a `doc_hash`; their ids are
+    then compared as strings, so a hash collision of two ids is not reported."""
+    order = np.argsort(corpus.hashes, kind="stable")
+    same = np.flatnonzero(corpus.hashes[order][1:] == corpus.hashes[order][:-1])
+    if not len(same):
+        return []
+    candidates = np.unique(np.concatenate([order[same], order[same + 1]]))
+    located = corpus.locate(candidates)
+    places: dict[str, list[tuple[str, int]]] = {}
+    for doc_id, source, offset in zip(*(located[c].to_pylist() for c in ("doc_id", "source", "offset"))):
+        places.setdefault(doc_id, []).append((source, offset))
+    return sorted((doc_id, found) for doc_id, found in places.items() if len(found) > 1)
+
+
+def repeated_ids_message(repeats: list[tuple[str, list[tuple[str, int]]]], by_file: bool) -> str:
+    """What the user reads when ids repeat: the first few ids with both places, and the fixes."""
+    shown = "; ".join(
+        f"{doc_id!r} at {places[0][0]} byte {places[0][1]} and {places[1][0]} byte {places[1][1]}"
+        + (f" (+{len(places) - 2} more)" if len(places) > 2 else "")
+        for doc_id, places in repeats[:5]
+    )
+    more = f"; and {len(repeats) - 5} more ids" if len(repeats) > 5 else ""
+    fix = (
+        "ids repeat inside one file: fix the records, or set corpus.jsonl_id_field: null to use path:offset ids"
+        if by_file
+        else "fix the records, set corpus.repeated_ids: by_file to qualify JSONL ids by their file, "
+        "or corpus.jsonl_id_field: null to use path:offset ids"
+    )
+    return f"corpusmill: {len(repeats)} document id(s) name more than one document: {shown}{more}; every id must name one document: {fix}"
+
+
+def removed_counts(path: str, removed: pa.Table) -> pa.Table:
+    """Word counts per split (with <s> and </s>, steps.vocabulary.count_tokens) of a chunk's
+    removed documents, reading only the row groups that hold them, a bounded batch at a time."""
+    parquet = pq.ParquetFile(path)
+    if not removed.num_rows or "tokens" not in parquet.schema_arrow.names:
+        return COUNTS_SCHEMA.empty_table()
+    located = parquet.read(columns=["source", "offset"], use_threads=False)
+    rows = np.flatnonzero(removed_mask(removed, located["source"], located["offset"]))
+    sizes = np.array([parquet.metadata.row_group(g).num_rows for g in range(parquet.num_row_groups)])
+    starts = np.cumsum(sizes) - sizes
+    group_of = np.searchsorted(starts, rows, side="right") - 1
+    parts: list[pa.Table] = []
+    batch: list[int] = []
+    held = 0
+    for group in np.unique(group_of).tolist():
+        batch.append(group)
+        held += parquet.metadata.row_group(group).total_byte_size
+        if held >= REMOVED_READ_BYTES or group == group_of[-1]:
+            table = parquet.read_row_groups(batch, columns=["split", "tokens"], use_threads=False)
+            read_starts = np.cumsum(sizes[batch]) - sizes[batch]
+            chosen = np.isin(group_of, batch)
+            positions = read_starts[np.searchsorted(batch, group_of[chosen])] + rows[chosen] - starts[group_of[chosen]]
+            parts.append(count_tokens(table.take(pa.array(positions))))
+            if len(parts) >= MERGE_FILES:
+                parts = [sum_counts(parts)]
+            batch, held = [], 0
+    return sum_counts(parts)
+
+
+def main(argv: list[str] | None = None) -> None:
+    run = job.start(argv, RULE, "Find exact duplicate documents across the prepared chunks; refuse repeated ids.")
+    layout, chunks = run.layout, run.chunks()
+    message = problems_message([read_json(layout.tally(chunk)) for chunk in chunks])
+    if message:
+        raise SystemExit(message)
+    corpus = CorpusRows([layout.prepared(chunk) for chunk in chunks])
+    repeats = repeated_ids(corpus)
+    if repeats:
+        raise SystemExit(repeated_ids_message(repeats, run.options["corpus"]["repeated_ids"] == "by_file"))
+    if run.options["split"]["deduplicate"]:
+        table, chunk_of = find_duplicates(corpus)
+    else:
+        table, chunk_of = DUPLICATES_SCHEMA.empty_table(), np.zeros(0, np.int64)
+    del corpus
+    write_table(layout.duplicates, table)
+    counted = []
+    for number, chunk in enumerate(chunks):
+        mine = table.filter(pa.array(chunk_of == number)).select(REMOVED_SCHEMA.names)
+        write_table(layout.removed(chunk), mine.sort_by([("source", "ascending"), ("offset", "ascending")]))
+        if run.options["units"] == "word" and mine.num_rows:
+            counted.append(removed_counts(layout.prepared(chunk), mine))
+    totals = sum_counts(counted) if counted else COUNTS_SCHEMA.empty_table()
+    write_table(layout.removed_counts, totals.sort_by([("split", "ascending"), ("token", "ascending")]))
+    print(f"{table.num_rows} duplicate documents removed")
+
+
+if __name__ == "__main__":
+    main()
