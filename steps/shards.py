@@ -78,53 +78,6 @@ class Rows:
 
 
 class RowCutter:
-    """Cuts n-gram windows, blocks and streams from encoded documents."""
-
-    def __init__(self, windows: dict, vocabulary: Vocabulary, dtype: np.dtype = np.dtype(np.int64)) -> None:
-        # Cutting in the shard's own id type (e.g. uint16) keeps the job's memory 2-4x below int64.
-        self.dtype = dtype
-        reserved = vocabulary.reserved
-        self.pad, self.bos, self.eos = reserved[PAD], reserved[BOS], reserved[EOS]
-        self.ngram, self.block = windows["ngram"], windows["blocks"]
-        self.corpus_blocks = (
-            CorpusBlocks(self.block["length"], self.block["stride"], self.block["remainder"], self.pad)
-            if self.block["span"] == "corpus"
-            else None
-        )
-        # Stream ids cut so far, and of them those in at least one block (document span).
-        self.stream_ids = self.block_ids = 0
-
-    def block_coverage(self) -> tuple[int, int]:
-        """(stream ids in at least one block, stream ids) of everything cut, after `last_blocks`."""
-        covered = self.corpus_blocks.covered if self.corpus_blocks is not None else self.block_ids
-        return covered, self.stream_ids
-
-    def cut(self, table: pa.Table, shuffle: np.random.Generator | None = None) -> Rows:
-        """The rows of a batch of documents; with `shuffle`, n-gram windows in a random order."""
-        nested = table["sentences"].combine_chunks()
-        sentences = nested.flatten()
-        ids = sentences.flatten().to_numpy().astype(self.dtype)
-        sentence_lengths = np.diff(sentences.offsets.to_numpy()).astype(np.int64)
-        per_doc = np.diff(nested.offsets.to_numpy()).astype(np.int64)
-        eos = self.eos if self.ngram["predict_end"] else None
-        context, target = ngram_windows(ids, sentence_lengths, self.ngram["n"], self.bos, eos, shuffle)
-        stream, doc_lengths = document_streams(ids, sentence_lengths, per_doc, self.bos, self.eos)
-        if self.corpus_blocks is not None:
-            blocks = self.corpus_blocks.feed(stream)
-        else:
-            blocks = document_blocks(
-                stream, doc_lengths, self.block["length"], self.block["stride"], self.block["remainder"], self.pad
-            )
-            self.block_ids += document_block_coverage(doc_lengths, self.block["length"], self.block["stride"], self.block["remainder"])
-        self.stream_ids += len(stream)
-        return Rows(context, target, blocks, table["doc_id"].to_pylist(), stream, doc_lengths)
-
-    def last_blocks(self) -> np.ndarray:
-        width = self.block["length"] + 1
-        return self.corpus_blocks.finish() if self.corpus_blocks is not None else np.empty((0, width), self.dtype)
-
-
-class RowCutter:
     """Cuts n-gram windows, blocks and streams from encoded documents, counting the stream ids
     and the ids that lie in at least one block."""
 
