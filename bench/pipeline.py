@@ -9,10 +9,18 @@ One run measures, on this machine:
   same command once more with nothing to do (the least any rebuild costs);
 - reading every train shard back into numpy arrays (ids/s).
 
+- a hand-written script doing less (bench/handwritten_baseline.py: two worker processes, NFC,
+  simple regular expressions for sentences and words, exact dedup, a Counter vocabulary,
+  4-gram windows, Parquet) on the same 1x corpus in the same run: corpusmill's wall time over
+  the script's, and the largest job's peak memory over the script's whole process tree;
+- at the largest scale, appending one new file with a frozen vocabulary (the build's own
+  vocabulary.tsv): the seconds, as a share of that scale's full build, and whether every shard
+  file of the other chunks kept its bytes.
+
 The 10x corpus holds ten copies of every file; each paragraph of copy k starts with the token
 `copyk`, so copies stay distinct documents and deduplication removes exactly what it removes
-at 1x. The 10x build also uses ten times as many train shard files, so one shard job holds as
-much text at 10x as at 1x (the config's advice: train_files grows with the corpus).
+at 1x. Shard files follow the chunks (a chunk's job holds one chunk), so nothing changes with
+the scale but the number of chunks.
 
 Usage: python bench/pipeline.py [--cores 2] [--scales 1 10] [--pack-mb MB] [--keep]   (needs `pip install -e '.[bench]'`)
 Corpus and builds go to bench/data/, results to bench/results/pipeline.json (both gitignored).
@@ -44,26 +52,15 @@ import yaml
 REPO = Path(__file__).resolve().parent.parent
 sys.path.insert(0, str(REPO))
 
-from corpusmill import settings  # noqa: E402
+from corpusmill import plan, settings  # noqa: E402
 from corpusmill.segment import Segmenter  # noqa: E402
+from handwritten_baseline import run_script  # noqa: E402
 
 GCIDE = Path("/usr/share/dictd/gcide.dict.dz")
 DATA = REPO / "bench" / "data"
 RESULTS = REPO / "bench" / "results"
 FILES = 20
 _PARAGRAPH_BREAK = re.compile(r"\n[ \t]*\n")
-# The step module a job runs (`python -m steps.run MODULE …`) → its rule name.
-_RULES = {
-    "prepare": "prepare",
-    "split": "deduplicate",
-    "vocab": "vocabulary",
-    "encode": "encode",
-    "shards": "shard",
-    "report": "coverage",
-    "manifest": "manifest",
-    "report_page": "report",
-    "growth": "growth",
-}
 
 
 def default_config() -> dict:
@@ -129,10 +126,14 @@ class JobSampler:
     _stop: threading.Event = field(default_factory=threading.Event)
 
     def _rule(self, cmdline: list[str]) -> str | None:
+        """The rule of a step process (`python -m steps.run MODULE [ENTRY] --build …`)."""
         if "-m" not in cmdline or cmdline[cmdline.index("-m") + 1 :][:1] != ["steps.run"]:
             return None
-        module = cmdline[cmdline.index("-m") + 2 :][:1]
-        return _RULES.get(module[0]) if module else None
+        words = cmdline[cmdline.index("-m") + 2 :][:2]
+        if not words:
+            return None
+        named = f"{words[0]}_{words[1]}" if len(words) > 1 else words[0]
+        return named if named in plan.RULES else words[0]
 
     def run(self) -> None:
         try:
@@ -267,16 +268,51 @@ def change_one_file(folder: Path) -> str:
     return path.name
 
 
-def scale_run(scale: int, cores: int, config: dict) -> dict:
-    """Build one scale from scratch, and at 1x also rebuild after one file changed."""
+def shard_hashes(build: Path) -> dict[str, str]:
+    return {entry["file"]: entry["sha256"] for split in json.loads((build / "manifest.json").read_text())["splits"].values() for entry in split["shards"]}
+
+
+def append_run(corpus: Path, directory: Path, overrides: dict, cores: int, full_seconds: float) -> dict:
+    """Freeze the build's vocabulary, build once with it (the ids are the same: nothing but the
+    vocabulary job should run), then add one new 2 MB file and rebuild: the seconds, the jobs,
+    and whether the shard files of every other chunk kept their bytes."""
+    frozen = directory / "frozen-vocabulary.tsv"
+    shutil.copy2(directory / "build" / "vocabulary.tsv", frozen)
+    overrides = {**overrides, "vocabulary": {"frozen": str(frozen)}}
+    settle = run_build(directory, overrides, cores)
+    before = shard_hashes(directory / "build")
+    source = sorted(corpus.glob("*.txt"))[3]
+    added = corpus / "appended-part.txt"
+    added.write_text(re.sub(r"(?m)^(?=\S)", "appended ", source.read_text(encoding="utf-8"), count=0), encoding="utf-8")
+    try:
+        append = run_build(directory, overrides, cores)
+        after = shard_hashes(directory / "build")
+    finally:
+        added.unlink()
+    kept = [name for name, digest in before.items() if after.get(name) == digest]
+    return {
+        "first_frozen_build": {"seconds": settle["seconds"], "jobs": settle["jobs"]},
+        "seconds": append["seconds"],
+        "cpu_seconds": append["cpu_seconds"],
+        "jobs": append["jobs"],
+        "share_of_full_build": round(append["seconds"] / full_seconds, 3),
+        "shard_files_before": len(before),
+        "shard_files_kept": len(kept),
+        "new_shard_files": len(set(after) - set(before)),
+        "rules": append["rules"],
+    }
+
+
+def scale_run(scale: int, cores: int, config: dict, append: bool) -> dict:
+    """Build one scale from scratch; at 1x also rebuild after one file changed; with `append`,
+    add one file with a frozen vocabulary."""
     corpus = DATA / f"x{scale}"
     size = write_corpus(corpus, scale)
     directory = DATA / "runs" / f"x{scale}"
     if directory.exists():
         shutil.rmtree(directory)
-    train_files = config["shards"]["train_files"] * scale
-    overrides = {"corpus": {"root": str(corpus), "pack_mb": config["corpus"]["pack_mb"]}, "shards": {"train_files": train_files}}
-    result = {"input_mb": round(size / 1e6, 2), "files": FILES * scale, "train_files": train_files}
+    overrides = {"corpus": {"root": str(corpus), "pack_mb": config["corpus"]["pack_mb"]}}
+    result = {"input_mb": round(size / 1e6, 2), "files": FILES * scale}
     result["build"] = run_build(directory, overrides, cores)
     result.update(build_figures(directory / "build"))
     seconds = result["build"]["seconds"]
@@ -300,7 +336,19 @@ def scale_run(scale: int, cores: int, config: dict) -> dict:
         result["rebuild"] = rebuild
         result["up_to_date_run"] = {"seconds": idle["seconds"], "cpu_seconds": idle["cpu_seconds"], "jobs": idle["jobs"],
                                     "share_of_full_build": round(idle["seconds"] / seconds, 3)}
+    if append:
+        result["append"] = append_run(corpus, directory, overrides, cores, seconds)
     return result
+
+
+def handwritten_run(cores: int) -> dict:
+    """The hand-written script on the 1x corpus (its own process; figures as it reports them)."""
+    output = DATA / "runs" / "handwritten"
+    shutil.rmtree(output, ignore_errors=True)
+    try:
+        return run_script(DATA / "x1", output, workers=cores)
+    finally:
+        shutil.rmtree(output, ignore_errors=True)
 
 
 def machine() -> dict:
@@ -337,7 +385,20 @@ def print_table(results: dict) -> None:
         if prepare:
             tail = run["build"]["seconds"] - prepare["last_seen_s"]
             print(f"  after the last prepare job: {tail:.1f} s = {tail / floor['seconds']:.2f} x F (the corpus-wide stages)")
+    script = results.get("handwritten")
     one = results["scales"].get("1x")
+    if script and one:
+        peak = max(v["peak_rss_mib"] for v in one["build"]["rules"].values())
+        print(f"hand-written script (same corpus, {script.get('workers', 2)} workers): {script['outside_seconds']:.1f} s wall, "
+              f"{script['cpu_seconds']:.1f} CPU s, {script['peak_rss_tree_mib']:.0f} MiB peak (process tree); corpusmill 1x / script: "
+              f"{one['build']['seconds'] / script['outside_seconds']:.2f} (wall), {one['build']['cpu_seconds'] / script['cpu_seconds']:.2f} (CPU), "
+              f"largest job's peak / script's: {peak / script['peak_rss_tree_mib']:.2f}")
+    for scale, run in results["scales"].items():
+        if "append" in run:
+            a = run["append"]
+            print(f"append one file at {scale} with a frozen vocabulary: {a['seconds']:.1f} s = {a['share_of_full_build']:.1%} of the full build "
+                  f"({a['jobs']} jobs); shard files kept byte for byte: {a['shard_files_kept']} of {a['shard_files_before']}, "
+                  f"{a['new_shard_files']} new (first frozen build: {a['first_frozen_build']['seconds']:.1f} s, {a['first_frozen_build']['jobs']} jobs)")
     if one and "rebuild" in one:
         r = one["rebuild"]
         print(f"rebuild after changing {r['changed_file']}: {r['seconds']:.1f} s = {r['share_of_full_build']:.0%} of the full build "
@@ -357,6 +418,7 @@ def main(argv: list[str] | None = None) -> None:
     parser.add_argument("--keep", action="store_true", help="keep the build folders under bench/data/runs")
     parser.add_argument("--output", default=str(RESULTS / "pipeline.json"))
     parser.add_argument("--pack-mb", type=float, default=None, help="corpus.pack_mb (default: the configuration's; 0: a job per file)")
+    parser.add_argument("--no-script", action="store_true", help="leave out the hand-written script")
     args = parser.parse_args(argv)
     if not GCIDE.exists():
         raise SystemExit(f"bench: {GCIDE} is missing; install Debian's dict-gcide package (apt-get install -y dict-gcide)")
@@ -365,8 +427,10 @@ def main(argv: list[str] | None = None) -> None:
         config["corpus"]["pack_mb"] = args.pack_mb
     write_corpus(DATA / "x1", 1)
     results = {"machine": machine(), "cores": args.cores, "pack_mb": config["corpus"]["pack_mb"], "floor": floor_pass(DATA / "x1", config), "scales": {}}
+    if not args.no_script:
+        results["handwritten"] = handwritten_run(args.cores)
     for scale in args.scales:
-        results["scales"][f"{scale}x"] = scale_run(scale, args.cores, config)
+        results["scales"][f"{scale}x"] = scale_run(scale, args.cores, config, append=scale == max(args.scales))
         if not args.keep:
             shutil.rmtree(DATA / "runs" / f"x{scale}", ignore_errors=True)
     Path(args.output).parent.mkdir(parents=True, exist_ok=True)
