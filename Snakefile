@@ -32,6 +32,7 @@ if workflow.is_main_process:
         os.remove(L.failed_jobs)
 code_hash = plan.code_hash
 module_constant = plan.module_constant
+WORKER = []  # the worker process of this run, once started
 
 
 def literal(text):
@@ -83,10 +84,19 @@ rule all:
     default_target: True
 
 
+onstart:
+    from steps import worker
+
+    # Jobs on this machine start with their imports done (steps/worker.py); a cluster's jobs
+    # never see the worker and start as plain processes.
+    if workflow.local_exec and not os.environ.get("CORPUSMILL_NO_WORKER"):
+        WORKER.extend(worker.start(L.root))
+
+
 onsuccess:
     import threading
 
-    from steps import tidy
+    from steps import tidy, worker
     from steps.summary import format_accounting, format_blocks, format_table
 
     # Snakemake starts a 1-second rate-limit timer after each scheduling round and Python waits
@@ -95,6 +105,7 @@ onsuccess:
         if isinstance(thread, threading.Timer):
             thread.cancel()
 
+    worker.stop(WORKER)
     jobs = list(workflow.dag.jobs)
     if any(job.rule.name == "all" for job in jobs):
         current = [path for job in jobs for path in [*job.input, *job.output, *job.log]] + [L.chunk_list, L.corpus_plan]
@@ -111,8 +122,10 @@ onsuccess:
 
 
 onerror:
+    from steps import worker
     from steps.summary import format_failures
 
+    worker.stop(WORKER)
     # After Snakemake's account of the failed jobs: each one's own message, so it is the last thing read.
     if os.path.exists(L.failed_jobs):
         print(format_failures(L.failed_jobs), file=sys.stderr)

@@ -10,6 +10,9 @@ OpenBLAS' thread pool costs about 0.15 CPU-seconds per job on import (measured w
 pyarrow's default (mimalloc) kept jobs 15-45 % larger at their peak (e.g. the vocabulary job
 of 300k words 365-435 MiB against 265-282 MiB, measured with `/usr/bin/time`). Both are
 defaults: a value already in the environment wins.
+
+In a local run a pre-started worker (steps.worker) runs the job with its imports already done;
+without one (on a cluster node, or when it cannot be reached) the job runs here.
 """
 
 from __future__ import annotations
@@ -18,6 +21,8 @@ import importlib
 import importlib.abc
 import os
 import sys
+
+from .worker import end_like, run_through_worker
 
 
 class _WithoutPandas(importlib.abc.MetaPathFinder):
@@ -29,11 +34,19 @@ class _WithoutPandas(importlib.abc.MetaPathFinder):
         return None
 
 
+def hide_pandas() -> None:
+    if not any(isinstance(finder, _WithoutPandas) for finder in sys.meta_path):
+        sys.meta_path.insert(0, _WithoutPandas())
+
+
 def main(argv: list[str] | None = None) -> None:
     args = sys.argv[1:] if argv is None else argv
     if not args:
         raise SystemExit("usage: python -m steps.run MODULE [ARGS…]")
-    sys.meta_path.insert(0, _WithoutPandas())
+    status = run_through_worker(args)
+    if status is not None:
+        end_like(status)
+    hide_pandas()
     os.environ.setdefault("OPENBLAS_NUM_THREADS", "1")
     os.environ.setdefault("ARROW_DEFAULT_MEMORY_POOL", "system")
     importlib.import_module(f"{__package__}.{args[0]}").main(args[1:])

@@ -1,0 +1,236 @@
+"""A pre-started worker for the jobs of one local run: jobs start with their imports done.
+
+Every job of the workflow is `python -m steps.run MODULE …`, and a fresh interpreter spends
+about 0.3 CPU-seconds importing numpy, Arrow, regex and the step modules before any work,
+more than many jobs then do. For a run on this machine the Snakefile starts this worker
+once (`onstart`); it imports every step module, then listens on an abstract Unix socket whose
+name the jobs find in the environment (CORPUSMILL_WORKER). `steps.run` connects, hands over
+its command line, working folder, environment and its standard streams (file descriptors
+passed over the socket, so the job writes to its own log), and waits. For each job the worker
+forks a supervisor, which forks the job (copy-on-write: the imports are already in memory),
+waits for it and sends its exit status back; `steps.run` then ends the same way the job did
+(the same exit code, or killed by the same signal). When the job's `steps.run` goes away
+(Snakemake cancels the job), the supervisor kills the job.
+
+Only the user who started the worker may use it (the socket's peer credentials are checked).
+It ends when the run ends (`onsuccess`/`onerror`) or when the process that started it is gone.
+Jobs on a cluster never see it (the variable is not passed to other machines) and start as
+plain processes, as does any job when the worker cannot be reached.
+"""
+
+from __future__ import annotations
+
+import array
+import ctypes
+import importlib
+import json
+import os
+import select
+import signal
+import socket
+import struct
+import sys
+import traceback
+
+ENV = "CORPUSMILL_WORKER"
+# The step modules every rule runs, imported once by the worker.
+PRELOAD = (
+    "abbreviations", "prepare", "deduplicate", "subword", "vocabulary", "shards", "accounting", "growth", "coverage", "manifest", "report",
+)  # fmt: skip
+_STREAMS = 3  # stdin, stdout, stderr
+_MAX_MESSAGE = 1 << 22
+
+
+def _peer_uid(connection: socket.socket) -> int:
+    credentials = connection.getsockopt(socket.SOL_SOCKET, socket.SO_PEERCRED, struct.calcsize("3i"))
+    return struct.unpack("3i", credentials)[2]
+
+
+def _name_process(text: str) -> None:
+    """Name this process (ps, /proc/PID/comm) after the job it runs: Linux prctl(PR_SET_NAME)."""
+    try:
+        ctypes.CDLL(None).prctl(15, text.encode()[:15], 0, 0, 0)
+    except (OSError, AttributeError):
+        pass
+
+
+def _receive(connection: socket.socket) -> tuple[dict, list[int]]:
+    """One request: a JSON message and the job's standard streams as file descriptors."""
+    descriptors = array.array("i")
+    message, ancillary, _, _ = connection.recvmsg(_MAX_MESSAGE, socket.CMSG_LEN(_STREAMS * descriptors.itemsize))
+    for level, kind, data in ancillary:
+        if level == socket.SOL_SOCKET and kind == socket.SCM_RIGHTS:
+            descriptors.frombytes(data[: len(data) - (len(data) % descriptors.itemsize)])
+    return json.loads(message.decode("utf-8")), list(descriptors)
+
+
+def _run_job(request: dict, streams: list[int]) -> None:
+    """In the forked job: become the requested command and run it; never returns."""
+    code = 1
+    try:
+        os.chdir(request["cwd"])
+        os.environ.clear()
+        os.environ.update(request["env"])
+        for target, descriptor in enumerate(streams):
+            os.dup2(descriptor, target)
+        sys.stdin = open(0, closefd=False)
+        sys.stdout = open(1, "w", closefd=False, buffering=1)
+        sys.stderr = open(2, "w", closefd=False, buffering=1)
+        argv = request["argv"]
+        _name_process("cm-" + "-".join(argv[:2]))
+        sys.argv = ["steps.run", *argv]
+        try:
+            importlib.import_module(f"{__package__}.{argv[0]}").main(argv[1:])
+            code = 0
+        except SystemExit as exit:
+            if exit.code is None or isinstance(exit.code, int):
+                code = exit.code or 0
+            else:
+                print(exit.code, file=sys.stderr)
+                code = 1
+        except BaseException:
+            traceback.print_exc()
+            code = 1
+        finally:
+            sys.stdout.flush()
+            sys.stderr.flush()
+    finally:
+        os._exit(code)
+
+
+def _supervise(connection: socket.socket) -> None:
+    """In the forked supervisor of one job: fork it, wait for it, report its status; kill it if
+    the client goes away. Never returns."""
+    try:
+        request, streams = _receive(connection)
+        job = os.fork()
+        if job == 0:
+            connection.close()
+            _run_job(request, streams)
+        for descriptor in streams:
+            os.close(descriptor)
+        while True:
+            done, status = os.waitpid(job, os.WNOHANG)
+            if done:
+                connection.sendall(json.dumps({"status": status}).encode())
+                break
+            readable, _, _ = select.select([connection], [], [], 0.05)
+            if readable and not connection.recv(1):  # the client is gone: the job was cancelled
+                os.kill(job, signal.SIGTERM)
+                os.waitpid(job, 0)
+                break
+    finally:
+        os._exit(0)
+
+
+def serve(name: str, owner: int) -> None:
+    """Import every step, then run each job asked for until `owner` (the process that started
+    the worker) is gone or the socket is closed."""
+    os.environ.setdefault("OPENBLAS_NUM_THREADS", "1")
+    os.environ.setdefault("ARROW_DEFAULT_MEMORY_POOL", "system")
+    from .run import hide_pandas
+
+    hide_pandas()
+    for module in PRELOAD:
+        importlib.import_module(f"{__package__}.{module}")
+    listener = socket.socket(socket.AF_UNIX, socket.SOCK_STREAM)
+    listener.bind("\0" + name)
+    listener.listen(64)
+    _name_process("cm-worker")
+    print("ready", flush=True)
+    uid = os.getuid()
+    while True:
+        readable, _, _ = select.select([listener], [], [], 1.0)
+        while True:  # reap finished supervisors
+            try:
+                if os.waitpid(-1, os.WNOHANG)[0] == 0:
+                    break
+            except ChildProcessError:
+                break
+        if not _alive(owner):
+            return
+        if not readable:
+            continue
+        connection, _ = listener.accept()
+        if _peer_uid(connection) != uid:
+            connection.close()
+            continue
+        if os.fork() == 0:
+            listener.close()
+            _supervise(connection)
+        connection.close()
+
+
+def _alive(pid: int) -> bool:
+    try:
+        os.kill(pid, 0)
+    except ProcessLookupError:
+        return False
+    except PermissionError:
+        return True
+    return True
+
+
+def run_through_worker(argv: list[str]) -> int | None:
+    """Run a job through the worker named in the environment; its wait status, or None when
+    there is no worker to run it (the caller then runs the job itself)."""
+    name = os.environ.get(ENV)
+    if not name:
+        return None
+    connection = socket.socket(socket.AF_UNIX, socket.SOCK_STREAM)
+    try:
+        connection.connect("\0" + name)
+    except OSError:
+        return None
+    request = json.dumps({"argv": argv, "cwd": os.getcwd(), "env": dict(os.environ)}).encode("utf-8")
+    descriptors = array.array("i", range(_STREAMS))
+    connection.sendmsg([request], [(socket.SOL_SOCKET, socket.SCM_RIGHTS, descriptors)])
+    reply = b""
+    while chunk := connection.recv(4096):
+        reply += chunk
+    if not reply:  # the worker ended before the job did
+        return 1 << 8
+    return int(json.loads(reply.decode("utf-8"))["status"])
+
+
+def start(build: str) -> list:
+    """Start the worker for a run building `build` and point this process's environment (which
+    its jobs inherit) at it; [the process], or [] when it does not come up."""
+    import hashlib
+    import subprocess
+
+    name = f"corpusmill-{os.getpid()}-{hashlib.sha256(os.path.abspath(build).encode()).hexdigest()[:12]}"
+    package = os.path.dirname(os.path.dirname(os.path.abspath(__file__)))
+    environment = {**os.environ, "PYTHONPATH": os.pathsep.join(filter(None, [package, os.environ.get("PYTHONPATH")]))}
+    process = subprocess.Popen(
+        [sys.executable, "-m", f"{__package__}.worker", name, str(os.getpid())],
+        stdout=subprocess.PIPE, env=environment, start_new_session=True,
+    )  # fmt: skip
+    ready = select.select([process.stdout], [], [], 30)[0] and process.stdout.readline().strip() == b"ready"
+    if not ready:
+        process.kill()
+        return []
+    os.environ[ENV] = name
+    return [process]
+
+
+def stop(processes: list) -> None:
+    """End the worker of this run (its running jobs are done: the run is over)."""
+    os.environ.pop(ENV, None)
+    for process in processes:
+        process.terminate()
+        process.wait()
+    processes.clear()
+
+
+def end_like(status: int) -> None:
+    """End this process as the job ended: its exit code, or the signal that killed it."""
+    if os.WIFSIGNALED(status):
+        number = os.WTERMSIG(status)
+        signal.signal(number, signal.SIG_DFL)
+        os.kill(os.getpid(), number)
+    raise SystemExit(os.WEXITSTATUS(status))
+
+
+if __name__ == "__main__":
+    serve(sys.argv[1], int(sys.argv[2]))

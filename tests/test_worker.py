@@ -1,0 +1,139 @@
+"""The pre-started worker: a job run through it ends exactly as a job run by itself would (exit
+code, output in its own streams, killed by the same signal), and a cancelled job is stopped.
+
+The worker is forked from this test process with a stand-in step module registered in
+sys.modules, so the jobs can exit, crash or hang on purpose; the rest is the real code."""
+
+from __future__ import annotations
+
+import faulthandler
+import os
+import signal
+import sys
+import time
+import types
+from pathlib import Path
+
+import pytest
+
+from corpusmill import worker
+
+
+def stand_in(argv: list[str]) -> None:
+    """A step that does what its arguments say."""
+    what = argv[0]
+    print(f"stdout of {what}", flush=True)
+    print(f"stderr of {what}", file=sys.stderr, flush=True)
+    if what == "exit":
+        raise SystemExit(int(argv[1]))
+    if what == "message":
+        raise SystemExit("corpusmill: something a user can act on")
+    if what == "raise":
+        raise ValueError("an unexpected error")
+    if what == "signal":
+        faulthandler.disable()  # pytest's, inherited through the fork: it would print to the terminal
+        os.kill(os.getpid(), getattr(signal, argv[1]))
+    if what == "hang":
+        Path(argv[1]).write_text(str(os.getpid()))
+        time.sleep(60)
+
+
+@pytest.fixture()
+def running_worker(monkeypatch: pytest.MonkeyPatch):
+    sys.modules["corpusmill.standin"] = types.SimpleNamespace(main=stand_in)
+    monkeypatch.setattr(worker, "PRELOAD", ())
+    name = f"corpusmill-test-{os.getpid()}"
+    server = os.fork()
+    if server == 0:
+        try:
+            worker.serve(name, os.getppid())
+        finally:
+            os._exit(0)
+    monkeypatch.setenv(worker.ENV, name)
+    for _ in range(200):  # until the socket exists
+        if worker.run_through_worker(["standin", "exit", "0"]) is not None:
+            break
+        time.sleep(0.02)
+    yield name
+    os.kill(server, signal.SIGTERM)
+    os.waitpid(server, 0)
+    del sys.modules["corpusmill.standin"]
+
+
+def run(argv: list[str], tmp_path: Path) -> tuple[int, str, str]:
+    """Run a job through the worker with stdout and stderr going to files, as a job's log does."""
+    out, err = tmp_path / "out", tmp_path / "err"
+    saved = os.dup(1), os.dup(2)
+    with open(out, "w") as o, open(err, "w") as e:
+        os.dup2(o.fileno(), 1)
+        os.dup2(e.fileno(), 2)
+        try:
+            status = worker.run_through_worker(argv)
+        finally:
+            os.dup2(saved[0], 1)
+            os.dup2(saved[1], 2)
+    return status, out.read_text(), err.read_text()
+
+
+@pytest.mark.parametrize(("argv", "code"), [(["exit", "0"], 0), (["exit", "3"], 3), (["message"], 1), (["raise"], 1)])
+def test_a_job_through_the_worker_exits_with_its_own_code_writing_to_its_own_streams(running_worker, tmp_path: Path, argv, code):
+    status, out, err = run(["standin", *argv], tmp_path)
+    assert os.WIFEXITED(status) and os.WEXITSTATUS(status) == code
+    assert out == f"stdout of {argv[0]}\n" and err.startswith(f"stderr of {argv[0]}\n")
+    if argv[0] == "message":
+        assert err.endswith("corpusmill: something a user can act on\n")
+    if argv[0] == "raise":
+        assert "Traceback" in err and err.endswith("ValueError: an unexpected error\n")
+
+
+@pytest.mark.parametrize("name", ["SIGKILL", "SIGSEGV", "SIGTERM"])
+def test_a_job_killed_by_a_signal_is_reported_as_killed_by_it(running_worker, tmp_path: Path, name: str):
+    """POSIX wait status: WIFSIGNALED with the signal's number, as for a process killed directly."""
+    status, _, _ = run(["standin", "signal", name], tmp_path)
+    assert os.WIFSIGNALED(status) and os.WTERMSIG(status) == getattr(signal, name)
+
+
+def test_a_cancelled_client_stops_its_job(running_worker, tmp_path: Path):
+    """Snakemake cancels a job by killing its process: the job the worker runs for it must end."""
+    marker = tmp_path / "pid"
+    client = os.fork()
+    if client == 0:
+        try:
+            worker.run_through_worker(["standin", "hang", str(marker)])
+        finally:
+            os._exit(0)
+    for _ in range(250):
+        if marker.exists() and marker.read_text():
+            break
+        time.sleep(0.02)
+    job = int(marker.read_text())
+    os.kill(client, signal.SIGKILL)
+    os.waitpid(client, 0)
+    for _ in range(250):
+        try:
+            os.kill(job, 0)
+        except ProcessLookupError:
+            break
+        time.sleep(0.02)
+    else:
+        pytest.fail(f"job {job} still runs after its client was killed")
+
+
+def test_without_a_worker_a_job_runs_itself(monkeypatch: pytest.MonkeyPatch):
+    monkeypatch.delenv(worker.ENV, raising=False)
+    assert worker.run_through_worker(["standin", "exit", "0"]) is None
+    monkeypatch.setenv(worker.ENV, "corpusmill-nobody-listens-here")
+    assert worker.run_through_worker(["standin", "exit", "0"]) is None
+
+
+def test_end_like_ends_the_client_as_the_job_ended():
+    """The client re-raises the job's fate: an exit code as SystemExit, a signal as itself."""
+    with pytest.raises(SystemExit) as caught:
+        worker.end_like(3 << 8)
+    assert caught.value.code == 3
+    child = os.fork()
+    if child == 0:
+        worker.end_like(signal.SIGTERM)
+        os._exit(0)
+    _, status = os.waitpid(child, 0)
+    assert os.WIFSIGNALED(status) and os.WTERMSIG(status) == signal.SIGTERM
