@@ -125,8 +125,12 @@ class JobSampler:
     snakemake_peak: int = 0
     _stop: threading.Event = field(default_factory=threading.Event)
 
-    def _rule(self, cmdline: list[str]) -> str | None:
-        """The rule of a step process (`python -m steps.run MODULE [ENTRY] --build …`)."""
+    def _rule(self, name: str, cmdline: list[str]) -> str | None:
+        """The rule of a step process: a job the worker runs is named `cm-MODULE[_ENTRY]`
+        (15 characters at most); a job run by itself is `python -m steps.run MODULE [ENTRY] --build …`."""
+        if name.startswith("cm-") and name != "cm-worker":
+            named = name[3:]
+            return next((rule for rule in plan.RULES if rule == named or (len(named) == 12 and rule.startswith(named))), named)
         if "-m" not in cmdline or cmdline[cmdline.index("-m") + 1 :][:1] != ["steps.run"]:
             return None
         words = cmdline[cmdline.index("-m") + 2 :][:2]
@@ -149,7 +153,9 @@ class JobSampler:
             now = time.perf_counter()
             for child in children:
                 try:
-                    rule = self._rule(child.cmdline())
+                    rule = self._rule(child.name(), child.cmdline())
+                    if rule is not None and not child.name().startswith("cm-") and "CORPUSMILL_WORKER" in child.environ():
+                        continue  # a job's client waiting for the worker, which runs the job itself
                     rss = child.memory_info().rss
                     times = child.cpu_times()
                 except (psutil.NoSuchProcess, psutil.AccessDenied, psutil.ZombieProcess):

@@ -77,7 +77,7 @@ def _run_job(request: dict, streams: list[int]) -> None:
         sys.stdout = open(1, "w", closefd=False, buffering=1)
         sys.stderr = open(2, "w", closefd=False, buffering=1)
         argv = request["argv"]
-        _name_process("cm-" + "-".join(argv[:2]))
+        _name_process("cm-" + "_".join(word for word in argv[:2] if not word.startswith("-")))
         sys.argv = ["steps.run", *argv]
         try:
             importlib.import_module(f"{__package__}.{argv[0]}").main(argv[1:])
