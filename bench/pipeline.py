@@ -288,8 +288,9 @@ def append_run(corpus: Path, directory: Path, overrides: dict, cores: int, full_
     settle = run_build(directory, overrides, cores)
     before = shard_hashes(directory / "build")
     source = sorted(corpus.glob("*.txt"))[3]
-    added = corpus / "appended-part.txt"
-    added.write_text(re.sub(r"(?m)^(?=\S)", "appended ", source.read_text(encoding="utf-8"), count=0), encoding="utf-8")
+    added = corpus / "zz-appended.txt"  # after the others, as new files of a growing corpus usually are
+    paragraphs = _PARAGRAPH_BREAK.split(source.read_text(encoding="utf-8"))
+    added.write_text("\n\n".join(f"appended {paragraph}" for paragraph in paragraphs), encoding="utf-8")
     try:
         append = run_build(directory, overrides, cores)
         after = shard_hashes(directory / "build")

@@ -102,6 +102,7 @@ checkpoint vocabulary:
         options=L.options("vocabulary"),
     output:
         ids=L.ids,
+        digest=L.ids_digest,
         counts=[] if SUBWORD else [L.word_counts],
     log:
         L.log("vocabulary"),

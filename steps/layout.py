@@ -124,6 +124,11 @@ class Layout:
         return self._join("interim", "vocabulary", "ids.tsv")
 
     @property
+    def ids_digest(self) -> str:
+        """The ids' SHA-256 (steps.formats.ids_digest): what reruns the shard jobs."""
+        return self._join("interim", "vocabulary", "ids.sha256")
+
+    @property
     def word_counts(self) -> str:
         """Every token's train, dev and test count (word units), before the shards."""
         return self._join("interim", "vocabulary", "counts.parquet")

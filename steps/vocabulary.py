@@ -251,6 +251,7 @@ def main_ids(argv: list[str]) -> None:
     if options["units"] == "subword":
         vocabulary = model_vocabulary(layout.subword_model)
         write_text(layout.ids, vocabulary.to_tsv())
+        write_text(layout.ids_digest, vocabulary.ids_digest + "\n")
         print(f"ids: {vocabulary.size} pieces of {layout.subword_model}")
         return
     frozen = options["vocabulary"]["frozen"]
@@ -261,6 +262,7 @@ def main_ids(argv: list[str]) -> None:
         raise SystemExit(f"corpusmill: {'vocabulary.frozen: ' if frozen else ''}{error}") from None
     write_table(layout.word_counts, counts)
     write_text(layout.ids, vocabulary.to_tsv())
+    write_text(layout.ids_digest, vocabulary.ids_digest + "\n")
     print(f"ids: {vocabulary.size} ({vocabulary.size - vocabulary.first_word_id} words)")
 
 
