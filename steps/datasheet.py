@@ -14,7 +14,6 @@ import argparse
 import json
 import re
 from collections.abc import Callable
-from pathlib import Path
 
 from steps.croissant import dataset_name, license_url
 from steps.layout import KINDS, SPLITS
@@ -280,7 +279,10 @@ def _vocabulary(manifest: dict, coverage: dict | None) -> str:
     else:
         cutoff = config["vocabulary"]
         limits = ", ".join(f"{key} {cutoff[key]}" for key in ("min_count", "max_size", "coverage") if cutoff[key] is not None)
-        how = f"reused unchanged from {_code(str(cutoff['frozen']))}" if cutoff.get("frozen") else f"chosen on train ({limits or 'no limit'})"
+        how = (
+            f"reused unchanged from {_code(str(cutoff['frozen']))}" if cutoff.get("frozen")
+            else f"chosen on train ({limits or 'no limit'})"
+        )
         lines = [f"{ids}, {how}; out-of-vocabulary words map to " + ("shape classes." if cutoff["unknown"] == "shape" else "<unk>.")]
     if coverage is not None:
         chosen_size = next((row for row in coverage.get("sizes", []) if row.get("chosen")), None)
@@ -465,7 +467,6 @@ def main(argv: list[str] | None = None) -> None:
     parser.add_argument("--output", required=True, help="datasheet.md")
     args = parser.parse_args(argv)
     coverage = read_json(args.coverage) if args.coverage else None
-    Path(args.output).parent.mkdir(parents=True, exist_ok=True)
     write_text(args.output, build_datasheet(read_json(args.manifest), coverage))
 
 

@@ -24,6 +24,12 @@ from steps.vocab import read_vocabulary
 
 mlc = pytest.importorskip("mlcroissant")
 
+# mlcroissant itself calls an rdflib class and a pandas keyword that their authors deprecated.
+pytestmark = [
+    pytest.mark.filterwarnings("ignore:ConjunctiveGraph is deprecated"),
+    pytest.mark.filterwarnings("ignore:The inplace keyword in DataFrame.reset_index"),
+]
+
 FILLED_METADATA = {
     "name": "harbour-town",
     "description": "Letters, logs and minutes of a harbour town, for training small language models.",
@@ -97,7 +103,7 @@ def test_croissant_loads_with_only_the_warnings_of_the_blank_metadata_fields(bui
     assert dataset.metadata.name == "demo_raw"
 
 
-def test_croissant_with_the_metadata_filled_in_loads_without_any_warning(build: Path, caplog: pytest.LogCaptureFixture, tmp_path: Path) -> None:
+def test_croissant_with_the_metadata_filled_in_loads_without_any_warning(build: Path, caplog: pytest.LogCaptureFixture) -> None:
     manifest = manifest_of(build)
     manifest["config"]["metadata"] = FILLED_METADATA
     document = croissant.build_croissant(
@@ -137,7 +143,9 @@ def test_every_row_record_set_loaded_by_mlcroissant_equals_what_pyarrow_reads(bu
     assert checked == {f"{kind}-{split}" for kind in ("ngram", "block", "stream") for split in ("train", "dev", "test")}
 
 
-def test_the_vocabulary_record_set_equals_vocabulary_tsv_even_for_tokens_csv_readers_mangle(build: Path, caplog: pytest.LogCaptureFixture) -> None:
+def test_the_vocabulary_record_set_equals_vocabulary_tsv_even_for_tokens_csv_readers_mangle(
+    build: Path, caplog: pytest.LogCaptureFixture
+) -> None:
     """Loaded through mlcroissant, the vocabulary equals vocabulary.tsv as corpusmill reads it (pyarrow's
     CSV reader, quoting off). The demo vocabulary holds the token `"`, which a CSV reader takes for
     a quote: the reason the record set reads the Parquet copy."""
@@ -198,7 +206,8 @@ def test_a_subword_build_lists_its_sentencepiece_model_and_still_loads_cleanly(b
     manifest["config"]["metadata"] = FILLED_METADATA
     manifest["vocabulary"]["subword_model"] = {"file": "subword.model", "sha256": "ab" * 32}
     sizes = {"vocabulary.tsv": 10, "subword.model": 12345}
-    document = croissant.build_croissant(manifest, croissant.read_schemas(build, manifest), sizes, croissant.LocalFile("v.parquet", "cd" * 32, 5))
+    copy = croissant.LocalFile("v.parquet", "cd" * 32, 5)
+    document = croissant.build_croissant(manifest, croissant.read_schemas(build, manifest), sizes, copy)
     model = next(item for item in document["distribution"] if item["@id"] == "subword.model")
     assert (model["encodingFormat"], model["contentSize"], model["sha256"]) == (croissant.SENTENCEPIECE, "12345 B", "ab" * 32)
     dataset = mlc.Dataset(document)
