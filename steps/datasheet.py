@@ -21,7 +21,8 @@ from steps.settings import read_json
 from steps.storage import write_text
 
 BLANK = "**To be answered by the dataset's maintainers.**"
-# Files named one by one in a list; the manifest lists them all.
+# Files named one by one in a list or table (the manifest lists them all), so that a datasheet
+# stays short for a corpus of many files.
 LISTED_FILES = 20
 # Manifest keys whose figures the datasheet shows as known caveats when a build records them.
 CAVEAT_KEYS = ("near_duplicates", "contamination")
@@ -134,8 +135,7 @@ def _sample(manifest: dict, _: dict | None) -> str:
     named += [(entry["path"], "refused: " + entry["reason"]) for entry in not_read["refused"]]
     if named:
         lines += ["", *(f"- {_code(path)}: {why}" for path, why in named[:LISTED_FILES])]
-        if len(named) > LISTED_FILES:
-            lines.append(f"- … and {len(named) - LISTED_FILES:,} more (manifest.json, key `not_read`).")
+        lines += _more(len(named), "key `not_read`")
     lines += ["", "Whether the corpus folder is itself a sample of a larger set: " + BLANK]
     return "\n".join(lines)
 
@@ -213,8 +213,9 @@ def _self_contained(manifest: dict, _: dict | None) -> str:
 def _acquired(manifest: dict, _: dict | None) -> str:
     corpus = manifest["config"]["corpus"]
     files = manifest["accounting"].get("files", {})
+    inputs = manifest["inputs"]
     rows = []
-    for entry in manifest["inputs"]:
+    for entry in sorted(inputs, key=lambda entry: (-entry["bytes"], entry["path"]))[:LISTED_FILES]:
         tally = files.get(entry["path"], {})
         rows.append(
             [_code(entry["path"]), _number(entry["bytes"]), _number(tally.get("read", 0)), _number(tally.get("kept", 0)),
@@ -223,13 +224,20 @@ def _acquired(manifest: dict, _: dict | None) -> str:
     lines = [
         f"Read from the files under the corpus folder selected by corpus.include {_code(json.dumps(corpus['include']))} "
         f"less corpus.exclude {_code(json.dumps(corpus['exclude']))}; a .txt document is one {corpus['text_unit']}, "
-        f"a .jsonl document one record's {_code(corpus['jsonl_text_field'])} field. Sources and their sizes:",
+        f"a .jsonl document one record's {_code(corpus['jsonl_text_field'])} field. Sources: {len(inputs):,} files, "
+        f"{sum(entry['bytes'] for entry in inputs):,} bytes; the largest:",
         "",
         _table(["file", "bytes", "documents read", "kept", "SHA-256 (first 16)"], rows),
+        *_more(len(inputs), "keys inputs and accounting.files"),
         "",
         "Where the source text itself came from: " + BLANK,
     ]
     return "\n".join(lines)
+
+
+def _more(count: int, where: str) -> list[str]:
+    """The line under a list cut at LISTED_FILES saying how many more the manifest holds."""
+    return ["", f"… and {count - LISTED_FILES:,} more (manifest.json, {where})."] if count > LISTED_FILES else []
 
 
 # Preprocessing.
@@ -247,12 +255,17 @@ def _preprocessing(manifest: dict, _: dict | None) -> str:
     ]
     reasons = sorted(totals["dropped"].items())
     table = _table(["reason", "documents", "meaning"], [[_code(r), _number(n), meanings.get(r, "")] for r, n in reasons])
-    per_file = []
-    for path, tally in sorted(totals.get("files", {}).items()):
-        dropped = ", ".join(f"{reason} {count:,}" for reason, count in sorted(tally["dropped"].items())) or "none"
-        per_file.append([_code(path), _number(tally["read"]), _number(tally["kept"]), dropped])
+    losing = [(path, tally) for path, tally in totals.get("files", {}).items() if tally["dropped"]]
+    losing.sort(key=lambda item: (-sum(item[1]["dropped"].values()), item[0]))
+    per_file = [
+        [_code(path), _number(tally["read"]), _number(tally["kept"]),
+         ", ".join(f"{reason} {count:,}" for reason, count in sorted(tally["dropped"].items()))]
+        for path, tally in losing[:LISTED_FILES]
+    ]  # fmt: skip
     lines = [f"- {step}" for step in steps] + ["", table if reasons else "No document was dropped."]
-    lines += ["", "Per input file:", "", _table(["file", "read", "kept", "dropped"], per_file)]
+    if losing:
+        lines += ["", f"Input files that lost documents ({len(losing):,} of {len(totals.get('files', {})):,}), most first:", ""]
+        lines += [_table(["file", "read", "kept", "dropped"], per_file), *_more(len(losing), "key accounting.files")]
     if totals.get("truncated") or totals.get("replaced_sequences") or totals.get("pieces_added"):
         lines += [
             "",

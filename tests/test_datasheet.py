@@ -140,8 +140,11 @@ def test_the_counts_table_holds_each_split_s_figures_from_the_manifest(sheet: Sh
 def test_sources_their_sizes_and_what_was_dropped_and_why_match_the_manifest_accounting(sheet: Sheet, manifest: dict) -> None:
     accounting = manifest["accounting"]
     sources = sheet.table("How was the data associated with each instance acquired?")
-    assert [row["file"] for row in sources] == [entry["path"] for entry in manifest["inputs"]]
-    for row, entry in zip(sources, manifest["inputs"]):
+    largest_first = sorted(manifest["inputs"], key=lambda entry: (-entry["bytes"], entry["path"]))
+    assert [row["file"] for row in sources] == [entry["path"] for entry in largest_first]
+    total = f"Sources: {len(manifest['inputs'])} files, {sum(entry['bytes'] for entry in manifest['inputs']):,} bytes"
+    assert total in sheet.text["How was the data associated with each instance acquired?"]
+    for row, entry in zip(sources, largest_first):
         assert number(row["bytes"]) == entry["bytes"]
         assert entry["sha256"].startswith(row["SHA-256 (first 16)"])
         tally = accounting["files"][entry["path"]]
@@ -150,9 +153,10 @@ def test_sources_their_sizes_and_what_was_dropped_and_why_match_the_manifest_acc
     reasons = {row["reason"]: number(row["documents"]) for row in sheet.table(question, 0)}
     assert reasons == accounting["dropped"] and reasons["duplicate"] == 6 and reasons["few_letters"] == 1
     per_file = {row["file"]: row for row in sheet.table(question, 1)}
-    for path, tally in accounting["files"].items():
-        dropped = ", ".join(f"{reason} {count}" for reason, count in sorted(tally["dropped"].items())) or "none"
-        row = per_file[path]
+    assert set(per_file) == {path for path, tally in accounting["files"].items() if tally["dropped"]}
+    for path, row in per_file.items():
+        tally = accounting["files"][path]
+        dropped = ", ".join(f"{reason} {count}" for reason, count in sorted(tally["dropped"].items()))
         assert (number(row["read"]), number(row["kept"]), row["dropped"]) == (tally["read"], tally["kept"], dropped)
     assert f"Exact duplicates (same cleaned text) were removed: {accounting['dropped']['duplicate']} documents." in sheet.text[
         "Are there any errors, sources of noise, or redundancies in the dataset?"
@@ -219,6 +223,30 @@ def test_files_not_read_are_counted_and_named_up_to_a_limit(manifest: dict) -> N
     assert "25 matched by no corpus.include pattern, 1 removed by a corpus.exclude pattern, 1 refused" in text
     assert "notes/19.md: unselected" in text and "notes/20.md" not in text
     assert f"… and {27 - datasheet.LISTED_FILES} more (manifest.json, key not_read)." in text
+
+
+def test_a_corpus_of_many_files_keeps_its_tables_short_naming_the_largest_and_the_most_dropped(manifest: dict) -> None:
+    many = copy.deepcopy(manifest)
+    many["inputs"] = [{"path": f"part/{i:02d}.txt", "bytes": 1000 + i % 7, "sha256": "ab" * 32} for i in range(30)]
+    many["accounting"]["files"] = {
+        f"part/{i:02d}.txt": {"read": 10, "kept": 10 - i % 4, "pieces_added": 0, "truncated": 0, "replaced_sequences": 0,
+                              "dropped": {"too_short": i % 4} if i % 4 else {}}
+        for i in range(30)
+    }  # fmt: skip
+    sheet = Sheet(build_datasheet(many))
+    sources = sheet.table("How was the data associated with each instance acquired?")
+    expected = sorted(many["inputs"], key=lambda entry: (-entry["bytes"], entry["path"]))[: datasheet.LISTED_FILES]
+    assert [row["file"] for row in sources] == [entry["path"] for entry in expected]
+    assert f"… and {30 - datasheet.LISTED_FILES} more (manifest.json, keys inputs and accounting.files)." in sheet.text[
+        "How was the data associated with each instance acquired?"
+    ]
+    question = "Was any preprocessing, cleaning or labeling of the data done?"
+    losing = [row["file"] for row in sheet.table(question, 1)]
+    ranked = sorted((path for path, tally in many["accounting"]["files"].items() if tally["dropped"]),
+                    key=lambda path: (-sum(many["accounting"]["files"][path]["dropped"].values()), path))  # fmt: skip
+    assert losing == ranked[: datasheet.LISTED_FILES] and len(ranked) == 22
+    assert "Input files that lost documents (22 of 30), most first:" in sheet.text[question]
+    assert f"… and {22 - datasheet.LISTED_FILES} more (manifest.json, key accounting.files)." in sheet.text[question]
 
 
 @pytest.mark.parametrize("path", ["a|b.txt", "tick`s.txt", "``two``.txt", "`edge.txt", "tab\there.txt"])
