@@ -38,10 +38,12 @@ def _percent(rate: float) -> str:
     return f"{100 * rate:.2f} %"
 
 
-def _code(text: str) -> str:
-    """`text` as a Markdown code span safe inside a table cell: non-printable characters escaped,
-    pipes escaped, and a backtick fence longer than any run of backticks in the text."""
-    shown = "".join(c if c.isprintable() else c.encode("unicode_escape").decode("ascii") for c in text).replace("|", "\\|")
+def _code(text: str, cell: bool = False) -> str:
+    """`text` as a Markdown code span: non-printable characters escaped, a backtick fence longer
+    than any run of backticks in the text, and in a table `cell` pipes escaped (GFM tables read
+    a pipe as the end of a cell even inside a code span)."""
+    shown = "".join(c if c.isprintable() else c.encode("unicode_escape").decode("ascii") for c in text)
+    shown = shown.replace("|", "\\|") if cell else shown
     fence = "`" * (max(map(len, re.findall("`+", shown)), default=0) + 1)
     pad = " " if shown.startswith("`") or shown.endswith("`") else ""
     return f"{fence}{pad}{shown}{pad}{fence}"
@@ -218,8 +220,8 @@ def _acquired(manifest: dict, _: dict | None) -> str:
     for entry in sorted(inputs, key=lambda entry: (-entry["bytes"], entry["path"]))[:LISTED_FILES]:
         tally = files.get(entry["path"], {})
         rows.append(
-            [_code(entry["path"]), _number(entry["bytes"]), _number(tally.get("read", 0)), _number(tally.get("kept", 0)),
-             _code(entry["sha256"][:16])]
+            [_code(entry["path"], cell=True), _number(entry["bytes"]), _number(tally.get("read", 0)),
+             _number(tally.get("kept", 0)), _code(entry["sha256"][:16], cell=True)]
         )
     lines = [
         f"Read from the files under the corpus folder selected by corpus.include {_code(json.dumps(corpus['include']))} "
@@ -254,11 +256,11 @@ def _preprocessing(manifest: dict, _: dict | None) -> str:
         f"Documents dropped by reason ({sum(totals['dropped'].values()):,} of {totals['read'] + totals['pieces_added']:,}):",
     ]
     reasons = sorted(totals["dropped"].items())
-    table = _table(["reason", "documents", "meaning"], [[_code(r), _number(n), meanings.get(r, "")] for r, n in reasons])
+    table = _table(["reason", "documents", "meaning"], [[_code(r, cell=True), _number(n), meanings.get(r, "")] for r, n in reasons])
     losing = [(path, tally) for path, tally in totals.get("files", {}).items() if tally["dropped"]]
     losing.sort(key=lambda item: (-sum(item[1]["dropped"].values()), item[0]))
     per_file = [
-        [_code(path), _number(tally["read"]), _number(tally["kept"]),
+        [_code(path, cell=True), _number(tally["read"]), _number(tally["kept"]),
          ", ".join(f"{reason} {count:,}" for reason, count in sorted(tally["dropped"].items()))]
         for path, tally in losing[:LISTED_FILES]
     ]  # fmt: skip

@@ -250,13 +250,17 @@ def test_a_corpus_of_many_files_keeps_its_tables_short_naming_the_largest_and_th
 
 
 @pytest.mark.parametrize("path", ["a|b.txt", "tick`s.txt", "``two``.txt", "`edge.txt", "tab\there.txt"])
-def test_a_source_path_reads_back_unchanged_from_its_table_cell(manifest: dict, path: str) -> None:
-    """A path with pipes or backticks stays one cell and one code span; a control character is
-    shown escaped (Python's unicode_escape)."""
+def test_a_source_path_reads_back_unchanged_from_its_table_cell_and_list_item(manifest: dict, path: str) -> None:
+    """A path with pipes or backticks stays one cell and one code span, in a table and in a list;
+    a control character is shown escaped (Python's unicode_escape)."""
     odd = copy.deepcopy(manifest)
     odd["inputs"] = [{"path": path, "bytes": 10, "sha256": "ab" * 32}]
-    rows = Sheet(build_datasheet(odd)).table("How was the data associated with each instance acquired?")
+    odd["not_read"]["excluded"] = [path]
+    sheet = Sheet(build_datasheet(odd))
+    rows = sheet.table("How was the data associated with each instance acquired?")
     assert [row["file"] for row in rows] == [path.replace("\t", "\\t")]
+    listed = sheet.text["Does the dataset contain all possible instances or is it a sample of instances from a larger set?"]
+    assert f"\n{path.replace(chr(9), chr(92) + 't')}: excluded\n" in listed
 
 
 def test_a_subword_build_says_how_its_pieces_were_learned(manifest: dict) -> None:
