@@ -1,7 +1,8 @@
 # corpusmill: raw text folder → cleaned, tokenized, vocabulary-mapped, windowed, split Parquet shards.
 # Stages, in order (rules/*.smk): prepare (per chunk: read, clean, segment, split, count) →
 # deduplicate → vocabulary (word cutoff, or a sentencepiece model learned on train) → shards (per
-# chunk: ids, rows, files) → vocabulary table, accounting, growth, coverage → manifest → report.
+# chunk: ids, rows, files) → vocabulary table, accounting, growth, coverage → manifest → Croissant description,
+# datasheet, report.
 # Each rule runs one step of steps/ (`python -m steps.run MODULE [ENTRY] --build DIR`), which
 # finds its files through steps/layout.py and its options in the rule's options file.
 
@@ -73,6 +74,7 @@ include: "rules/vocabulary.smk"
 include: "rules/shards.smk"
 include: "rules/statistics.smk"
 include: "rules/manifest.smk"
+include: "rules/describe.smk"
 include: "rules/report.smk"
 
 
@@ -80,6 +82,8 @@ rule all:
     input:
         L.manifest,
         L.coverage,
+        L.croissant,
+        L.datasheet,
         L.report,
     default_target: True
 

@@ -32,6 +32,15 @@ class Layout:
         return self._join("vocabulary.tsv")
 
     @property
+    def vocabulary_parquet(self) -> str:
+        """vocabulary.tsv as a Parquet table, for readers that parse TSV with CSV conventions."""
+        return self._join("vocabulary.parquet")
+
+    @property
+    def croissant(self) -> str:
+        return self._join("croissant.json")
+
+    @property
     def subword_model(self) -> str:
         return self._join("subword.model")
 
@@ -58,6 +67,10 @@ class Layout:
     @property
     def report(self) -> str:
         return self._join("report", "index.html")
+
+    @property
+    def datasheet(self) -> str:
+        return self._join("report", "datasheet.md")
 
     @property
     def shards_dir(self) -> str:

@@ -27,7 +27,7 @@ from dataclasses import dataclass
 from pathlib import Path
 
 from . import ingest
-from .formats import enabled_kinds
+from .formats import VOCABULARY_HEADER, enabled_kinds
 from .layout import SPLITS, Layout
 
 STEPS_DIR = Path(__file__).resolve().parent
@@ -36,7 +36,7 @@ STEPS_DIR = Path(__file__).resolve().parent
 # entries runs as several rules named `<module>_<entry>` (rules/*.smk).
 RULES = (
     "abbreviations", "prepare", "deduplicate", "subword_sample", "subword_train", "subword_model", "vocabulary", "shards",
-    "vocabulary_table", "accounting", "growth", "coverage", "manifest", "report",
+    "vocabulary_table", "accounting", "growth", "coverage", "manifest", "croissant", "datasheet", "report",
 )  # fmt: skip
 
 
@@ -119,7 +119,6 @@ def rule_options(config: dict, rule: str) -> dict:
 # Largest file accepted as a frozen vocabulary or subword model: far above any real one, and
 # low enough that a wrong path (a disk image, /dev/zero) stops with a message, not a hang.
 MAX_FROZEN_BYTES = 1 << 30
-VOCABULARY_HEADER = "id\ttoken\tcount\tkind"
 
 
 def frozen_file(field: str, value: str, header: str | None) -> str:

@@ -147,7 +147,9 @@ def resolve(raw: dict[str, Any]) -> dict[str, Any]:
                 field = ".".join([*map(str, error.absolute_path), ",".join(extra)])
                 lines.append(f"  {field}: unknown key; {_allowed(error)}")
             else:
-                lines.append(f"  {_field(error.absolute_path)} = {json.dumps(error.instance)}: allowed: {_allowed(error)}")
+                # A value JSON cannot show (e.g. an unquoted YAML date) is shown with its type.
+                shown = json.dumps(error.instance, default=lambda value: f"{value} (a YAML {type(value).__name__}; quote it)")
+                lines.append(f"  {_field(error.absolute_path)} = {shown}: allowed: {_allowed(error)}")
         raise ConfigError("invalid configuration:\n" + "\n".join(lines))
     fractions = config["split"]["fractions"]
     total = sum(fractions.values())
