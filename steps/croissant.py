@@ -32,7 +32,7 @@ import pyarrow.parquet as pq
 
 from . import job
 from .formats import KINDS, VOCABULARY_HEADER, file_sha256, read_vocabulary
-from .layout import SPLITS, Layout
+from .layout import SPLITS
 from .settings import read_json
 from .storage import write_json, write_table
 

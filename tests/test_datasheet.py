@@ -117,7 +117,7 @@ def test_the_datasheet_asks_the_questions_of_gebru_et_al_under_their_seven_secti
 
 def test_questions_the_build_cannot_answer_are_marked_for_the_maintainers(sheet: Sheet) -> None:
     blank = SEEN_BLANK
-    for section, questions in datasheet.QUESTIONS:
+    for _section, questions in datasheet.QUESTIONS:
         for question, answer in questions:
             if answer is None:
                 assert sheet.text[question].strip() == blank, question
