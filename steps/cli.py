@@ -9,6 +9,7 @@ import sys
 
 COMMANDS = {
     "audit": ("steps.verify", "check a build folder against its manifest"),
+    "baseline": ("steps.baseline", "n-gram (Kneser-Ney) perplexity of every split: the baseline to beat"),
     "cutoffs": ("steps.whatif", "what a different vocabulary cutoff would give, from the stored counts"),
     "progress": ("steps.progress", "where each running job of a build is, from its log"),
 }
