@@ -256,6 +256,8 @@ def main(argv: list[str] | None = None) -> None:
         try:
             with open(args.arpa, "w", encoding="utf-8") as out:
                 written = kneser_ney.write_arpa(baseline.model, tokens_of(build), out)
+        except BrokenPipeError:
+            raise  # `--arpa /dev/stdout | head`: ends quietly, like a closed standard output
         except OSError as error:
             raise fail(f"--arpa {args.arpa}: cannot be written ({error.strerror}); choose a writable path") from None
     if args.json:
