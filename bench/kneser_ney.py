@@ -6,16 +6,18 @@ vocabulary is every train word seen at least twice (a Counter), other words map 
 The segmentation pass is timed as the floor F of bench/pipeline.py (read, cut paragraphs,
 segment), so the baseline's CPU time is compared with F measured in the same run.
 
-10x: ten copies of the 1x ids, the word ids of copy j permuted by a seeded permutation (the
-reserved ids kept), train and dev alike. The copies share no n-gram above the unigrams of the
-reserved ids, so the tables hold about ten times the distinct n-grams of 1x: the case where
-memory grows the most.
+Two 10x corpora, train and dev alike, bracket real ones:
+- `10x`: ten copies of the 1x ids: ten times the tokens, the same distinct n-grams;
+- `10xd`: ten copies with the word ids of copy j permuted by a seeded permutation (reserved
+  ids kept): the copies share almost no n-gram, so the tables hold about ten times the
+  distinct n-grams of 1x, the case where memory grows the most.
 
 Each measurement runs in a child process under `/usr/bin/time -f %M` (peak RSS): count
 order 4 in batches of 1 M tokens, estimate orders 2..4 (modified), the train perplexity from
-the counts, and the dev perplexity token by token; `--arpa` also writes the order-4 model.
+the counts, and the dev perplexity token by token; `--arpa` adds a run of 1x that also writes
+the order-4 model as an ARPA file.
 
-Usage: python bench/kneser_ney.py [--scales 1 10] [--arpa]
+Usage: python bench/kneser_ney.py [--scales 1x 10x 10xd] [--arpa]
 Ids go to bench/data/kneser_ney/, figures to bench/results/kneser_ney.json.
 """
 
@@ -57,17 +59,22 @@ def flatten(documents: list[list[list[str]]], ids: dict[str, int]) -> tuple[np.n
     return flat, lengths
 
 
-def make_ids() -> dict:
-    """Segment gcide once (timing the pass as F) and store the 1x and 10x id arrays."""
-    marker = FOLDER / "ready.json"
-    if marker.exists():
-        return json.loads(marker.read_text())
+def segment_corpus() -> tuple[list, dict]:
+    """The floor F: read gcide, cut paragraphs, segment (timed on one core)."""
     segmenter = Segmenter.from_config(default_config()["segment"])
     load = os.getloadavg()[0]
     cpu = time.process_time()
     text = gzip.decompress(GCIDE.read_bytes()).decode("utf-8", "replace")
     documents = [segmenter.segment(p) for p in _PARAGRAPH_BREAK.split(text) if p.strip()]
     floor = time.process_time() - cpu
+    return documents, {"floor_cpu_seconds": round(floor, 2), "load_before": round(load, 2), "text_mb": round(len(text.encode()) / 1e6, 1)}
+
+
+def make_ids(documents: list) -> int:
+    """Store the id arrays of every scale (once); returns the vocabulary size."""
+    marker = FOLDER / "ready.json"
+    if marker.exists():
+        return json.loads(marker.read_text())["vocabulary_size"]
     train = [d for i, d in enumerate(documents) if i % DEV_EVERY]
     dev = [d for i, d in enumerate(documents) if not i % DEV_EVERY]
     counts = Counter(token for document in train for sentence in document for token in sentence)
@@ -75,24 +82,20 @@ def make_ids() -> dict:
     ids = {word: index for index, word in enumerate(words, start=4)}
     size = 4 + len(words)
     rng = np.random.default_rng(10)
-    for scale in (1, 10):
-        folder = FOLDER / f"{scale}x"
-        folder.mkdir(parents=True, exist_ok=True)
-        for name, part in (("train", train), ("dev", dev)):
-            flat, lengths = flatten(part, ids)
-            if scale > 1:
-                copies = [flat]
-                for _ in range(scale - 1):
-                    mapping = np.arange(size, dtype=np.int32)
-                    mapping[4:] = 4 + rng.permutation(size - 4).astype(np.int32)
-                    copies.append(mapping[flat])
-                flat, lengths = np.concatenate(copies), np.tile(lengths, scale)
-            np.save(folder / f"{name}_ids.npy", flat)
-            np.save(folder / f"{name}_lengths.npy", lengths)
-    figures = {"floor_cpu_seconds": round(floor, 2), "load_before": round(load, 2), "vocabulary_size": size,
-               "text_mb": round(len(text.encode()) / 1e6, 1)}
-    marker.write_text(json.dumps(figures))
-    return figures
+    mappings = [np.arange(size, dtype=np.int32)]
+    for _ in range(9):
+        mapping = np.arange(size, dtype=np.int32)
+        mapping[4:] = 4 + rng.permutation(size - 4).astype(np.int32)
+        mappings.append(mapping)
+    for name, part in (("train", train), ("dev", dev)):
+        flat, lengths = flatten(part, ids)
+        for scale, copies in (("1x", [flat]), ("10x", [flat] * 10), ("10xd", [mapping[flat] for mapping in mappings])):
+            folder = FOLDER / scale
+            folder.mkdir(parents=True, exist_ok=True)
+            np.save(folder / f"{name}_ids.npy", np.concatenate(copies))
+            np.save(folder / f"{name}_lengths.npy", np.tile(lengths, len(copies)))
+    marker.write_text(json.dumps({"vocabulary_size": size}))
+    return size
 
 
 def child(folder: Path, vocabulary_size: int, arpa: bool) -> None:
@@ -133,7 +136,7 @@ def child(folder: Path, vocabulary_size: int, arpa: bool) -> None:
         lap("arpa")
     print(json.dumps({
         "train_tokens": counts.tokens, "dev_tokens": dev.tokens,
-        "distinct": {k: len(level.keys) for k, level in enumerate(counts.levels, start=1)},
+        "distinct": {k: len(level) for k, level in enumerate(counts.levels, start=1)},
         "train_perplexity": {m: round(train.perplexity(m), 2) for m in models},
         "dev_perplexity": {m: round(dev.perplexity(m), 2) for m in models},
         "dev_unigram_perplexity": round(dev.unigram_perplexity, 2),
@@ -141,13 +144,13 @@ def child(folder: Path, vocabulary_size: int, arpa: bool) -> None:
     }))
 
 
-def measure(scale: int, vocabulary_size: int, arpa: bool) -> dict:
-    command = [TIME, "-f", "%M %U %S %e", sys.executable, __file__, "--child", str(FOLDER / f"{scale}x"), str(vocabulary_size)]
+def measure(scale: str, vocabulary_size: int, arpa: bool) -> dict:
+    command = [TIME, "-f", "%M %U %S %e", sys.executable, __file__, "--child", str(FOLDER / scale), str(vocabulary_size)]
     load = os.getloadavg()[0]
     result = subprocess.run(command + (["--arpa"] if arpa else []), capture_output=True, text=True,
                             env={**os.environ, "OPENBLAS_NUM_THREADS": "1"})
     if result.returncode != 0:
-        raise SystemExit(f"bench: the {scale}x child failed:\n{result.stderr[-3000:]}")
+        raise SystemExit(f"bench: the {scale} child failed:\n{result.stderr[-3000:]}")
     kib, user, system, wall = result.stderr.strip().splitlines()[-1].split()
     figures = json.loads(result.stdout)
     figures.update(peak_rss_mib=round(int(kib) / 1024, 1), cpu_seconds=round(float(user) + float(system), 2),
@@ -157,8 +160,8 @@ def measure(scale: int, vocabulary_size: int, arpa: bool) -> dict:
 
 def main(argv: list[str] | None = None) -> None:
     parser = argparse.ArgumentParser(description=__doc__.split("\n\n")[0])
-    parser.add_argument("--scales", type=int, nargs="+", default=[1, 10], choices=[1, 10])
-    parser.add_argument("--arpa", action="store_true", help="also write the order-4 model as an ARPA file")
+    parser.add_argument("--scales", nargs="+", default=["1x", "10x", "10xd"], choices=["1x", "10x", "10xd"])
+    parser.add_argument("--arpa", action="store_true", help="add a 1x run that also writes the order-4 model as an ARPA file")
     parser.add_argument("--child", nargs=2, metavar=("FOLDER", "V"), help=argparse.SUPPRESS)
     args = parser.parse_args(argv)
     if args.child:
@@ -166,20 +169,25 @@ def main(argv: list[str] | None = None) -> None:
         return
     if not GCIDE.exists():
         raise SystemExit(f"bench: {GCIDE} is missing: apt-get install -y dict-gcide")
-    ids = make_ids()
-    results = {"machine": machine(), "corpus": ids, "scales": {}}
-    floor = ids["floor_cpu_seconds"]
-    print(f"floor F (segmenting {ids['text_mb']} MB of gcide, 1 core): {floor:.2f} CPU-s (load {ids['load_before']}); |V| = {ids['vocabulary_size']:,}")
-    for scale in args.scales:
-        figures = measure(scale, ids["vocabulary_size"], args.arpa)
-        results["scales"][f"{scale}x"] = figures
-        print(f"{scale}x: {figures['train_tokens']:,} train tokens, {figures['dev_tokens']:,} dev; CPU {figures['cpu_seconds']:.2f} s "
-              f"= {figures['cpu_seconds'] / floor:.2f} x F; peak RSS {figures['peak_rss_mib']:.0f} MiB; load {figures['load_before']}")
+    documents, floor = segment_corpus()
+    size = make_ids(documents)
+    del documents
+    results = {"machine": machine(), "floor": floor, "vocabulary_size": size, "scales": {}}
+    f = floor["floor_cpu_seconds"]
+    print(f"floor F (segmenting {floor['text_mb']} MB of gcide, 1 core): {f:.2f} CPU-s (load {floor['load_before']}); |V| = {size:,}")
+    runs = [(scale, scale, False) for scale in args.scales] + ([("1x + ARPA", "1x", True)] if args.arpa else [])
+    for name, scale, arpa in runs:
+        figures = measure(scale, size, arpa)
+        results["scales"][name] = figures
+        print(f"{name}: {figures['train_tokens']:,} train tokens, {figures['dev_tokens']:,} dev; CPU {figures['cpu_seconds']:.2f} s "
+              f"= {figures['cpu_seconds'] / f:.2f} x F; peak RSS {figures['peak_rss_mib']:.0f} MiB; load {figures['load_before']}")
         print(f"    phases (CPU-s): {figures['phases_cpu_seconds']}; distinct n-grams {figures['distinct']}")
         print(f"    perplexity train {figures['train_perplexity']}, dev {figures['dev_perplexity']}, dev unigram {figures['dev_unigram_perplexity']}")
-    if {"1x", "10x"} <= results["scales"].keys():
-        one, ten = results["scales"]["1x"], results["scales"]["10x"]
-        print(f"10x / 1x: CPU {ten['cpu_seconds'] / one['cpu_seconds']:.2f}, peak RSS {ten['peak_rss_mib'] / one['peak_rss_mib']:.2f}")
+    one = results["scales"].get("1x")
+    for scale in ("10x", "10xd"):
+        if one and scale in results["scales"]:
+            ten = results["scales"][scale]
+            print(f"{scale} / 1x: CPU {ten['cpu_seconds'] / one['cpu_seconds']:.2f}, peak RSS {ten['peak_rss_mib'] / one['peak_rss_mib']:.2f}")
     RESULTS.mkdir(parents=True, exist_ok=True)
     (RESULTS / "kneser_ney.json").write_text(json.dumps(results, indent=2))
 

@@ -43,15 +43,15 @@ def fail(message: str) -> SystemExit:
     return SystemExit(f"corpusmill: {message}")
 
 
-def sentences(batch: dict, split: str, vocabulary_size: int) -> tuple[np.ndarray, np.ndarray]:
+def sentences(batch: dict, where: str, vocabulary_size: int) -> tuple[np.ndarray, np.ndarray]:
     """(ids laid end to end, sentence lengths) of a batch of stream rows: each document's
-    leading <s> dropped, sentences cut at </s>. Raises naming the first document that is not
-    a stream of this vocabulary."""
+    leading <s> dropped, sentences cut at </s>. Raises naming `where` (build and split) and the
+    first document that is not a stream of this vocabulary."""
     ids, offsets = batch["ids"], batch["offsets"]
     starts, ends = offsets[:-1], offsets[1:]
 
     def refuse(document: int | np.integer, what: str) -> SystemExit:
-        return fail(f"split {split}, document {batch['doc_id'][document]!r}: {what}; not a corpusmill stream shard of this vocabulary; {REBUILD}")
+        return fail(f"{where}, document {batch['doc_id'][document]!r}: {what}; not a corpusmill stream shard of this vocabulary; {REBUILD}")
 
     if np.any(ends <= starts):
         raise refuse(np.argmax(ends <= starts), "an empty stream (every stream starts with <s>)")
@@ -77,7 +77,7 @@ def sentences(batch: dict, split: str, vocabulary_size: int) -> tuple[np.ndarray
 def split_sentences(build: Build, split: str) -> Iterator[tuple[np.ndarray, np.ndarray]]:
     """The split's sentences, a bounded number of documents at a time, in manifest order."""
     for batch in build.batches(split, "stream", DOCUMENTS_PER_BATCH):
-        yield sentences(batch, split, build.vocabulary.size)
+        yield sentences(batch, f"{build.root}: split {split}", build.vocabulary.size)
 
 
 @dataclass(frozen=True)

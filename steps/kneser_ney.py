@@ -10,11 +10,13 @@ Conventions (those of the n-gram shard rows, steps.windows.ngram_windows):
   (an id or a padding <s>) and the continuation count of a (k-1)-gram is the number of distinct
   ids seen before it.
 
-Keys: the ids of a k-gram are packed into unsigned 64-bit words with ceil(log2 V) bits per id,
-first id in the highest bits, so numeric order is lexicographic order of the ids. When k ids do
-not fit in one word, the key is several words stored big-endian as one fixed-size byte string
-(numpy void), which numpy sorts and searches bytewise, the same lexicographic order (exact, no
-hashing; sorting such keys is several times slower than sorting uint64).
+Keys: the ids of a k-gram are packed into one number, ceil(log2 V) bits per id, first id in
+the highest bits, so numeric order is the lexicographic order of the ids. When k ids take more
+than 64 bits the number is two unsigned 64-bit words, high and low (exact, no hashing; at most
+128 bits, so n <= 128 // bits, e.g. 7 for 125,000 ids), sorted by the low word and then stably
+by the high word, a radix sort when it holds at most 16 bits. Tables keep each k-gram as its
+context's index and its last id, one word whatever the order, so lookups are binary searches
+of uint64 (the queries sorted first, so the searches walk the table in order).
 
 Counting sorts the keys of a bounded batch of tokens, counts equal neighbours, and merges the
 batch tables into the running table once they outgrow it, so memory follows the number of
@@ -222,11 +224,13 @@ def _count_run(keys: Keys) -> tuple[Keys, np.ndarray]:
 
 
 def _merge(tables: list[tuple[Keys, np.ndarray]]) -> tuple[Keys, np.ndarray]:
-    """One sorted table of distinct keys with summed counts from several."""
+    """One sorted table of distinct keys with summed counts from several. Empties the list, so
+    the tables are freed once copied when the caller holds no other reference to them."""
     if len(tables) == 1:
-        return tables[0]
+        return tables.pop()
     keys = Keys.concatenate([k for k, _ in tables])
     counts = np.concatenate([c for _, c in tables])
+    tables.clear()
     # A stable sort is a merge sort that finds the sorted runs the tables already are.
     order = keys.order(kind="stable")
     keys, counts = keys[order], counts[order]
@@ -297,17 +301,21 @@ class NgramCounter:
             self._pending.append(_count_run(keys))
             held = sum(len(k) for k, _ in self._pending)
             if held >= max(self.batch_tokens, 0 if self._table is None else len(self._table[0])):
-                self._table = _merge(([self._table] if self._table else []) + self._pending)
-                self._pending = []
+                self._table = _merge(self._take())
+
+    def _take(self) -> list[tuple[Keys, np.ndarray]]:
+        """The table and the pending batch tables, the counter left empty."""
+        parts = ([self._table] if self._table else []) + self._pending
+        self._table, self._pending = None, []
+        return parts
 
     def finish(self) -> "Counts":
         """The counts of every order, from 1 to `order`."""
-        parts = ([self._table] if self._table else []) + self._pending
+        parts = self._take()
         if parts:
             keys, raw = _merge(parts)
         else:
             keys, raw = self.format.pack([np.empty(0, np.uint64)] * self.order), np.empty(0, np.int64)
-        self._table, self._pending = None, []
         levels = []
         continuation = None
         for k in range(self.order, 1, -1):
@@ -318,10 +326,11 @@ class NgramCounter:
             runs = _lengths(starts, len(suffix))
             # Where each k-gram's last k-1 ids are in the table of order k-1.
             suffixes = np.empty(len(order), np.min_scalar_type(max(len(starts) - 1, 0)))
-            suffixes[order] = np.repeat(np.arange(len(starts)), runs)
+            suffixes[order] = np.repeat(np.arange(len(starts), dtype=suffixes.dtype), runs)
             levels.append(Level.of(k, keys, raw, continuation, suffixes, self.format))
             keys, continuation = suffix[starts], runs
             raw = np.add.reduceat(raw[order], starts) if len(starts) else raw[:0]
+            del suffix, order, suffixes
         levels.append(Level.of(1, keys, raw, continuation, np.empty(0, np.uint8), self.format))
         return Counts(self.vocabulary_size, tuple(reversed(levels)))
 
@@ -356,8 +365,9 @@ class Level:
         starts = prefix.starts()
         if len(starts) >> (64 - keys_format.bits):
             raise ValueError(f"{len(starts):,} contexts of order {k} are too many to index with {keys_format.bits}-bit ids")
-        context = np.repeat(np.arange(len(starts), dtype=np.uint64), _lengths(starts, len(keys)))
-        local = (context << np.uint64(keys_format.bits)) | keys_format.last(keys)
+        local = np.repeat(np.arange(len(starts), dtype=np.uint64), _lengths(starts, len(keys)))
+        local <<= np.uint64(keys_format.bits)
+        local |= keys_format.last(keys)
         return cls(k, *counted, suffixes, prefix[starts], starts, local)
 
     def __len__(self) -> int:
@@ -412,8 +422,8 @@ def count(ids: np.ndarray, sentence_lengths: np.ndarray, order: int, vocabulary_
 
 def count_of_counts(counts: np.ndarray) -> tuple[int, int, int, int]:
     """(n1, n2, n3, n4): how many k-grams have count 1, 2, 3 and 4."""
-    tally = np.bincount(np.minimum(counts, 5).astype(np.intp), minlength=6)
-    return int(tally[1]), int(tally[2]), int(tally[3]), int(tally[4])
+    n1, n2, n3, n4 = (int(np.count_nonzero(counts == r)) for r in (1, 2, 3, 4))
+    return n1, n2, n3, n4
 
 
 @dataclass(frozen=True)
@@ -456,16 +466,18 @@ class Weights:
     @classmethod
     def of(cls, level: Level, top: bool, discounts: Discounts) -> "Weights":
         counts = level.counts(top)
+        alpha = counts.astype(np.float64)
         taken = discounts.of(counts)
         if level.k == 1:
-            total = np.array([counts.sum(dtype=np.float64)])
+            total = np.array([alpha.sum()])
             gamma = np.array([taken.sum()]) / total
-            per_entry = np.repeat(total, len(counts))
         else:
-            total = np.add.reduceat(counts, level.context_starts, dtype=np.float64)
+            total = np.add.reduceat(alpha, level.context_starts)
             gamma = np.add.reduceat(taken, level.context_starts) / total
-            per_entry = np.repeat(total, _lengths(level.context_starts, len(counts)))
-        return cls((counts - taken) / per_entry, gamma, discounts, count_of_counts(counts))
+        alpha -= taken
+        del taken
+        alpha /= total if level.k == 1 else np.repeat(total, _lengths(level.context_starts, len(counts)))
+        return cls(alpha, gamma, discounts, count_of_counts(counts))
 
 
 @dataclass(frozen=True)
@@ -505,13 +517,6 @@ def locate_windows(counts: Counts, columns: Sequence[np.ndarray]) -> Located:
         entries.append(entry)
         contexts.append(context)
     return Located(tuple(entries), tuple(contexts))
-
-
-def locate(counts: Counts, ids: np.ndarray, sentence_lengths: np.ndarray) -> Located:
-    """Look up every predicted token of these sentences (ids laid end to end)."""
-    lengths = np.asarray(sentence_lengths, np.int64)
-    check_ids(ids, lengths, counts.vocabulary_size)
-    return locate_windows(counts, _windows(ids, lengths, counts.order))
 
 
 def _interpolate(weights: Weights, k: int, located: Located, lower: np.ndarray) -> np.ndarray:

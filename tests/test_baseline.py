@@ -107,7 +107,7 @@ def stream_batch(*documents: list[int]) -> dict:
 
 def test_streams_become_sentences_cut_at_the_end_symbol_without_the_document_start() -> None:
     """steps.windows.document_streams' layout: <s> s1 </s> s2 </s> …; a document may hold no sentence."""
-    ids, lengths = baseline.sentences(stream_batch([2, 5, 6, 3, 7, 3], [2], [2, 3], [2, 1, 3]), "dev", 10)
+    ids, lengths = baseline.sentences(stream_batch([2, 5, 6, 3, 7, 3], [2], [2, 3], [2, 1, 3]), "build: split dev", 10)
     assert ids.tolist() == [5, 6, 7, 1] and lengths.tolist() == [2, 1, 0, 1]
 
 
@@ -122,8 +122,8 @@ def test_streams_become_sentences_cut_at_the_end_symbol_without_the_document_sta
     ],
 )
 def test_a_stream_that_is_not_one_of_this_vocabulary_is_refused_naming_the_document(documents: list, message: str) -> None:
-    with pytest.raises(SystemExit, match=r"^corpusmill: split dev, " + message):
-        baseline.sentences(stream_batch(*documents), "dev", 10)
+    with pytest.raises(SystemExit, match=r"^corpusmill: build: split dev, " + message):
+        baseline.sentences(stream_batch(*documents), "build: split dev", 10)
 
 
 def test_a_closed_pipe_ends_the_command_without_a_traceback(demo_build: Path) -> None:

@@ -48,6 +48,12 @@ def windows(sentences: Sentences, n: int) -> list[tuple[int, ...]]:
     return found
 
 
+def located(counts: kn.Counts, ids: np.ndarray, lengths: np.ndarray) -> kn.Located:
+    """The windows of sentences looked up in `counts` (of their order)."""
+    context, target = ngram_windows(ids, lengths, counts.order, BOS_ID, EOS_ID)
+    return kn.locate_windows(counts, [*context.T, target])
+
+
 class Reference:
     """Chen and Goodman's interpolated Kneser–Ney written out with Counters, one probability at a time."""
 
@@ -298,7 +304,7 @@ def test_models_of_lower_order_from_one_count_equal_models_counted_at_that_order
         alone = kn.count(ids, lengths, order, 11)
         own = kn.estimate_models(alone, "modified", [order])[order]
         np.testing.assert_allclose(
-            models[order].probabilities(kn.locate(high, dev, dev_lengths)), own.probabilities(kn.locate(alone, dev, dev_lengths)), rtol=1e-13
+            models[order].probabilities(located(high, dev, dev_lengths)), own.probabilities(located(alone, dev, dev_lengths)), rtol=1e-13
         )
 
 
