@@ -356,7 +356,9 @@ class Level:
     local: np.ndarray  # (context index << bits) | last id, sorted
 
     @classmethod
-    def of(cls, k: int, keys: Keys, raw: np.ndarray, continuation: np.ndarray | None, suffixes: np.ndarray, keys_format: KeyFormat) -> "Level":
+    def of(
+        cls, k: int, keys: Keys, raw: np.ndarray, continuation: np.ndarray | None, suffixes: np.ndarray, keys_format: KeyFormat
+    ) -> "Level":
         """From the sorted distinct keys of the k-grams."""
         counted = (_narrow(raw), None if continuation is None else _narrow(continuation))
         if k == 1:

@@ -21,7 +21,7 @@ from hypothesis import strategies as st
 
 from conftest import require_file
 from steps import kneser_ney as kn
-from steps.kneser_ney import BOS_ID, EOS_ID, Discounts, KeyFormat, Keys
+from steps.kneser_ney import BOS_ID, EOS_ID, Discounts, KeyFormat
 from steps.segment import Segmenter
 from steps.windows import ngram_windows
 
@@ -112,7 +112,8 @@ def test_keys_order_like_the_ids_lexicographically_and_unpack_to_them(size: int,
     keys_format = KeyFormat(size)
     k = min(k, keys_format.largest_order())
     small = st.sampled_from([0, 1, 2, size - 1, size // 3])
-    rows = np.array(data.draw(st.lists(st.lists(st.one_of(small, st.integers(0, size - 1)), min_size=k, max_size=k), min_size=1, max_size=40)), np.uint64)
+    row = st.lists(st.one_of(small, st.integers(0, size - 1)), min_size=k, max_size=k)
+    rows = np.array(data.draw(st.lists(row, min_size=1, max_size=40)), np.uint64)
     columns = [rows[:, j] for j in range(k)]
     keys = keys_format.pack(columns)
     assert (keys.high is None) == (k * keys_format.bits <= 64)
@@ -198,7 +199,8 @@ def test_probabilities_follow_chen_and_goodmans_formulas_written_out_with_counte
     models = kn.estimate_models(counts, smoothing, range(2, n + 1))
     reference = Reference(sentences, n, size)
     ids = sorted({i for s in sentences for i in s} | {1, 3, 4, size - 1}) + [BOS_ID]
-    queried = windows(sentences, n) + data.draw(st.lists(st.tuples(*[st.sampled_from(ids)] * (n - 1), st.sampled_from(ids[:-1])), max_size=30))
+    drawn = st.tuples(*[st.sampled_from(ids)] * (n - 1), st.sampled_from(ids[:-1]))
+    queried = windows(sentences, n) + data.draw(st.lists(drawn, max_size=30))
     rows = np.array(queried, np.int64)
     located = kn.locate_windows(counts, [rows[:, j] for j in range(n)])
     together = kn.probabilities_by_order(models, located)
