@@ -9,6 +9,7 @@ import sys
 
 COMMANDS = {
     "audit": ("audit", "check a build folder against its manifest"),
+    "baseline": ("baseline", "n-gram (Kneser-Ney) perplexity of every split: the baseline to beat"),
     "cutoffs": ("cutoffs", "what a different vocabulary cutoff would give, from the stored counts"),
     "progress": ("progress", "where each running job of a build is, from its log"),
 }

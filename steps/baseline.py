@@ -1,0 +1,275 @@
+"""`corpusmill baseline BUILD …`: the n-gram baseline a neural model has to beat, from a finished build.
+
+Reads the train, dev and test stream shards through steps.reader (each document is <s>, then
+every sentence's ids followed by </s>), counts train with steps.kneser_ney, and prints the
+perplexity of every split for each order 2..n, an add-one unigram baseline beside it, and the
+share of dev and test n-grams that occur in train. Nothing is rebuilt, so another order or
+smoothing costs one pass over the shards; `--arpa` writes the order-n model for other tools.
+
+The leakage warning is our own rule: an n-gram model scores the text it was counted from far
+better than new text, so a held-out split whose perplexity at the highest order is below
+LEAK_RATIO x train's probably shares much of its text with train.
+"""
+
+from __future__ import annotations
+
+import argparse
+import json
+import math
+from collections.abc import Callable, Iterator
+from dataclasses import dataclass
+from pathlib import Path
+
+import numpy as np
+
+from . import kneser_ney
+from .formats import SUBWORD_KINDS, unescape
+from .kneser_ney import BOS_ID, EOS_ID, SMOOTHINGS, AddOneUnigram, KneserNey, SplitScore
+from .reader import MANIFEST, REBUILD, Build, BuildError, open_build
+
+SPLITS = ("train", "dev", "test")
+DEFAULT_ORDER = 4
+LEAK_RATIO = 1.1
+DOCUMENTS_PER_BATCH = 1024
+CONVENTIONS = (
+    "every id of a sentence and the </s> after it are predicted, <s> never; each sentence is preceded by n-1 <s>; "
+    "<unk> and the unknown classes are ordinary tokens (an out-of-vocabulary word is scored as its class); "
+    "the predictable vocabulary is every id but <pad> and <s>"
+)
+ENABLE_STREAMS = "set windows.streams.enabled: true in the workflow config and rerun the workflow (snakemake)"
+
+
+def fail(message: str) -> SystemExit:
+    return SystemExit(f"corpusmill: {message}")
+
+
+def sentences(batch: dict, where: str, vocabulary_size: int) -> tuple[np.ndarray, np.ndarray]:
+    """(ids laid end to end, sentence lengths) of a batch of stream rows: each document's
+    leading <s> dropped, sentences cut at </s>. Raises naming `where` (build and split) and the
+    first document that is not a stream of this vocabulary."""
+    ids, offsets = batch["ids"], batch["offsets"]
+    starts, ends = offsets[:-1], offsets[1:]
+
+    def refuse(document: int | np.integer, what: str) -> SystemExit:
+        return fail(f"{where}, document {batch['doc_id'][document]!r}: {what}; not a corpusmill stream shard of this vocabulary; {REBUILD}")
+
+    if np.any(ends <= starts):
+        raise refuse(np.argmax(ends <= starts), "an empty stream (every stream starts with <s>)")
+    if np.any(ids[starts] != BOS_ID):
+        raise refuse(np.argmax(ids[starts] != BOS_ID), f"the stream does not start with <s> (id {BOS_ID})")
+    unended = (ends - starts > 1) & (ids[ends - 1] != EOS_ID)
+    if unended.any():
+        raise refuse(np.argmax(unended), f"the stream does not end with </s> (id {EOS_ID})")
+    body = np.ones(len(ids), bool)
+    body[starts] = False
+    wrong = body & ((ids == BOS_ID) | (ids == kneser_ney.PAD_ID) | (ids >= vocabulary_size))
+    if wrong.any():
+        at = int(np.argmax(wrong))
+        document = int(np.searchsorted(offsets, at, side="right")) - 1
+        raise refuse(document, f"id {int(ids[at])} at position {at - int(starts[document])} "
+                               f"(ids run from 0 to {vocabulary_size - 1}; <pad> and <s> occur only as padding and document start)")
+    tokens = ids[body]
+    ends_of_sentences = np.flatnonzero(tokens == EOS_ID)
+    lengths = np.diff(np.concatenate([[-1], ends_of_sentences])) - 1
+    return tokens[tokens != EOS_ID], lengths
+
+
+def split_sentences(build: Build, split: str) -> Iterator[tuple[np.ndarray, np.ndarray]]:
+    """The split's sentences, a bounded number of documents at a time, in manifest order."""
+    for batch in build.batches(split, "stream", DOCUMENTS_PER_BATCH):
+        yield sentences(batch, f"{build.root}: split {split}", build.vocabulary.size)
+
+
+@dataclass(frozen=True)
+class Baseline:
+    """Everything the command reports."""
+
+    build: Path
+    order: int
+    smoothing: str
+    vocabulary_size: int
+    scores: dict[str, SplitScore | None]  # None: the split has no documents
+    model: KneserNey
+
+    @property
+    def orders(self) -> list[int]:
+        return list(range(2, self.order + 1))
+
+    def warnings(self) -> list[str]:
+        """Held-out splits implausibly close to train (see LEAK_RATIO)."""
+        train = self.scores["train"]
+        found = []
+        for split in ("dev", "test"):
+            score = self.scores[split]
+            if train is None or score is None or not score.tokens:
+                continue
+            held_out, counted = score.perplexity(self.order), train.perplexity(self.order)
+            if held_out < LEAK_RATIO * counted:
+                found.append(
+                    f"{split} perplexity {held_out:,.2f} at order {self.order} is below {LEAK_RATIO} x train's {counted:,.2f}, "
+                    f"and {score.seen_share(self.order):.1%} of its {self.order}-grams occur in train: {split} probably "
+                    "shares text with train (documents copied between splits, or near-duplicates kept apart); "
+                    "check the deduplication settings and the sources"
+                )
+        return found
+
+    def to_json(self) -> dict:
+        def figures(score: SplitScore | None) -> dict | None:
+            if score is None:
+                return None
+            return {
+                "tokens": score.tokens,
+                "perplexity": {str(order): score.perplexity(order) for order in self.orders},
+                "unigram_perplexity": score.unigram_perplexity,
+                "seen_in_train": {str(k): score.seen_share(k) for k in range(1, self.order + 1)},
+            }
+
+        return {
+            "build": str(self.build),
+            "order": self.order,
+            "smoothing": self.smoothing,
+            "vocabulary_size": self.vocabulary_size,
+            "predictable_ids": kneser_ney.predictable(self.vocabulary_size),
+            "conventions": CONVENTIONS,
+            "splits": {split: figures(score) for split, score in self.scores.items()},
+            "discounts": {
+                str(k): {"d1": w.discounts.d1, "d2": w.discounts.d2, "d3+": w.discounts.d3, "fallback": w.discounts.fallback,
+                         "count_of_counts": list(w.count_of_counts), "counts": "raw" if k == self.order else "continuation"}
+                for k, w in enumerate(self.model.weights, start=1)
+            },
+            "warnings": self.warnings(),
+        }
+
+
+def _number(value: float) -> str:
+    return "—" if value is None or math.isnan(value) else f"{value:,.2f}"
+
+
+def format_baseline(baseline: Baseline) -> str:
+    """The report as plain text: perplexity per split and order, seen shares, discounts, warnings."""
+    scores = baseline.scores
+    name = {"modified": "interpolated modified Kneser-Ney", "interpolated": "interpolated Kneser-Ney"}[baseline.smoothing]
+    train = scores["train"]
+    lines = [
+        f"baseline of {baseline.build}: {name} (Chen and Goodman 1998), order {baseline.order}, "
+        f"counted on train ({train.tokens:,} predicted tokens)",
+        f"vocabulary: {baseline.vocabulary_size:,} ids, {kneser_ney.predictable(baseline.vocabulary_size):,} predictable",
+        "",
+        f"{'perplexity':<22}" + "".join(f"{split:>14}" for split in scores),
+    ]
+
+    def row(label: str, value: Callable[[SplitScore], float]) -> str:
+        return f"  {label:<20}" + "".join(f"{_number(value(s)) if s else '—':>14}" for s in scores.values())
+
+    for order in baseline.orders:
+        lines.append(row(f"order {order}", lambda s, order=order: s.perplexity(order)))
+    lines.append(row("unigram (add-one)", lambda s: s.unigram_perplexity))
+    lines.append(f"  {'predicted tokens':<20}" + "".join(f"{s.tokens if s else 0:>14,}" for s in scores.values()))
+    lines += ["", f"{'seen in train':<22}" + "".join(f"{split:>14}" for split in scores if split != "train")]
+    for k in range(1, baseline.order + 1):
+        shares = [scores[split] for split in scores if split != "train"]
+        lines.append(f"  {f'{k}-grams':<20}" + "".join(f"{s.seen_share(k):>14.1%}" if s and s.tokens else f"{'—':>14}" for s in shares))
+    lines += ["", "discounts D1 / D2 / D3+ (from the count-of-counts n1..n4 of each order):"]
+    for k, weights in enumerate(baseline.model.weights, start=1):
+        d = weights.discounts
+        kind = "raw" if k == baseline.order else "continuation"
+        note = "  (fallback: the count-of-counts cannot give them)" if d.fallback else ""
+        lines.append(f"  {k}-grams ({kind} counts): {d.d1:.4f} / {d.d2:.4f} / {d.d3:.4f}{note}")
+    lines += ["", f"conventions: {CONVENTIONS}."]
+    lines += [f"warning: {warning}" for warning in baseline.warnings()]
+    return "\n".join(lines)
+
+
+def default_order(build: Build) -> int:
+    """The build's n-gram order, or DEFAULT_ORDER without n-gram shards."""
+    if "ngram" in build.kinds("train"):
+        return int(build.info("train", "ngram")["n"])
+    return DEFAULT_ORDER
+
+
+def run(build: Build, order: int | None, smoothing: str) -> Baseline:
+    """Count train, estimate the models of orders 2..n, and score every split."""
+    missing = [split for split in SPLITS if split in build.splits and "stream" not in build.kinds(split)]
+    if "train" not in build.splits or missing:
+        raise fail(f"{build.root / MANIFEST}: no stream shards for {', '.join(missing) or 'train'}; "
+                   f"the baseline reads each split's document streams: {ENABLE_STREAMS}")
+    order = default_order(build) if order is None else order
+    size = build.vocabulary.size
+    try:
+        counter = kneser_ney.NgramCounter(order, size)
+    except ValueError as error:
+        raise fail(f"--order {order}: {error}") from None
+    for ids, lengths in split_sentences(build, "train"):
+        counter.add(ids, lengths)
+    counts = counter.finish()
+    if not counts.tokens:
+        raise fail(f"{build.root / MANIFEST}: the train split has no sentences; nothing to count")
+    models = kneser_ney.estimate_models(counts, smoothing, range(2, order + 1))
+    unigram = AddOneUnigram.of(counts)
+    scores: dict[str, SplitScore | None] = {"train": kneser_ney.training_score(models, unigram)}
+    for split in ("dev", "test"):
+        if split not in build.splits:
+            scores[split] = None
+            continue
+        score = SplitScore()
+        for ids, lengths in split_sentences(build, split):
+            kneser_ney.score_split(score, models, unigram, ids, lengths)
+        scores[split] = score
+    return Baseline(build.root, order, smoothing, size, scores, models[order])
+
+
+def tokens_of(build: Build) -> list[str]:
+    """The vocabulary's tokens as they are (subword pieces are stored escaped)."""
+    vocabulary = build.vocabulary
+    return [unescape(token) if kind in SUBWORD_KINDS else token for token, kind in zip(vocabulary.tokens, vocabulary.kinds)]
+
+
+def _order(text: str) -> int:
+    try:
+        value = int(text)
+    except ValueError:
+        raise argparse.ArgumentTypeError(f"expected a whole number, got {text!r}") from None
+    if value < 2:
+        raise argparse.ArgumentTypeError(f"the order must be at least 2 (a bigram model), got {value}")
+    return value
+
+
+def main(argv: list[str] | None = None) -> None:
+    parser = argparse.ArgumentParser(
+        prog="corpusmill baseline",
+        description="Perplexity of Kneser-Ney n-gram models counted on a build's train split, on every split "
+        "(the baseline a neural language model has to beat), from the stream shards; nothing is rebuilt.",
+    )
+    parser.add_argument("build", type=Path, help="a finished build folder (holding manifest.json)")
+    parser.add_argument("--order", type=_order, help="highest order n (default: the build's windows.ngram.n, else 4)")
+    parser.add_argument("--smoothing", choices=SMOOTHINGS, default="modified",
+                        help="modified: three discounts per order (default); interpolated: one discount per order")
+    parser.add_argument("--arpa", type=Path, metavar="PATH", help="also write the order-n model in the ARPA back-off format")
+    parser.add_argument("--json", action="store_true", help="print the figures as JSON")
+    args = parser.parse_args(argv)
+    try:
+        build = open_build(args.build)
+        baseline = run(build, args.order, args.smoothing)
+    except BuildError as error:
+        raise fail(str(error)) from None
+    if args.arpa:
+        try:
+            with open(args.arpa, "w", encoding="utf-8") as out:
+                written = kneser_ney.write_arpa(baseline.model, tokens_of(build), out)
+        except BrokenPipeError:
+            raise  # `--arpa /dev/stdout | head`: ends quietly, like a closed standard output
+        except OSError as error:
+            raise fail(f"--arpa {args.arpa}: cannot be written ({error.strerror}); choose a writable path") from None
+    if args.json:
+        figures = baseline.to_json()
+        if args.arpa:
+            figures["arpa"] = {"path": str(args.arpa), "ngrams": {str(k): v for k, v in written.items()}}
+        print(json.dumps(figures, indent=2, ensure_ascii=False))
+    else:
+        print(format_baseline(baseline))
+        if args.arpa:
+            print(f"ARPA model written to {args.arpa} ({', '.join(f'{v:,} {k}-grams' for k, v in written.items())})")
+
+
+if __name__ == "__main__":
+    main()
