@@ -23,7 +23,6 @@ from pathlib import Path
 import numpy as np
 
 from . import kneser_ney
-from .formats import SUBWORD_KINDS, unescape
 from .kneser_ney import BOS_ID, EOS_ID, SMOOTHINGS, AddOneUnigram, KneserNey, SplitScore
 from .reader import MANIFEST, REBUILD, Build, BuildError, open_build
 
@@ -218,12 +217,6 @@ def run(build: Build, order: int | None, smoothing: str) -> Baseline:
     return Baseline(build.root, order, smoothing, size, scores, models[order])
 
 
-def tokens_of(build: Build) -> list[str]:
-    """The vocabulary's tokens as they are (subword pieces are stored escaped)."""
-    vocabulary = build.vocabulary
-    return [unescape(token) if kind in SUBWORD_KINDS else token for token, kind in zip(vocabulary.tokens, vocabulary.kinds)]
-
-
 def _order(text: str) -> int:
     try:
         value = int(text)
@@ -255,7 +248,7 @@ def main(argv: list[str] | None = None) -> None:
     if args.arpa:
         try:
             with open(args.arpa, "w", encoding="utf-8") as out:
-                written = kneser_ney.write_arpa(baseline.model, tokens_of(build), out)
+                written = kneser_ney.write_arpa(baseline.model, build.vocabulary.tokens, out)
         except BrokenPipeError:
             raise  # `--arpa /dev/stdout | head`: ends quietly, like a closed standard output
         except OSError as error:
