@@ -28,9 +28,23 @@ from conftest import DEMO, run_workflow
 from corpusmill.audit import audit_build
 from corpusmill.cutoffs import WordList
 from corpusmill.formats import (
-    METADATA_KEY, VOCABULARY_HEADER, Figures, FormatError, ShardFile, ShardStats, Vocabulary, escape, file_sha256, id_type_name, ids_digest,
-    read_shard_stats, read_vocabulary, shard_metadata, shard_schema, unescape,
-)  # fmt: skip
+    METADATA_KEY,
+    VOCABULARY_HEADER,
+    Figures,
+    FormatError,
+    ShardFile,
+    ShardStats,
+    Vocabulary,
+    escape,
+    file_sha256,
+    id_type_name,
+    ids_digest,
+    read_shard_stats,
+    read_vocabulary,
+    shard_metadata,
+    shard_schema,
+    unescape,
+)
 from corpusmill.reader import open_build
 from corpusmill.subword import trainer_options
 
