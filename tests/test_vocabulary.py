@@ -17,9 +17,7 @@ import pytest
 from conftest import DEMO, run_workflow
 from corpusmill.encoder import WordEncoder
 from corpusmill.formats import RESERVED, UNK, VOCABULARY_HEADER, FormatError, read_vocabulary
-from corpusmill.vocabulary import (
-    Cutoff, VocabularyError, build_vocabulary, choose_size, read_frozen, sort_by_frequency, unknown_class,
-)  # fmt: skip
+from corpusmill.vocabulary import Cutoff, VocabularyError, build_vocabulary, choose_size, read_frozen, sort_by_frequency, unknown_class
 
 
 def counts_table(train: dict[str, int], dev: dict[str, int] | None = None) -> pa.Table:
@@ -151,7 +149,7 @@ def test_file_round_trips_and_rejects_a_foreign_file(tmp_path):
 def test_file_keeps_tokens_that_look_like_csv_syntax(tmp_path):
     """Quotes, commas, 'null' and 'NA' are ordinary word tokens, read back unchanged."""
     odd = ['"', '""', "'quoted'", "a,b", "null", "NA", "nan", "#", "\\"]
-    vocabulary = build_vocabulary(counts_table({token: 5 for token in odd}), Cutoff(min_count=1), "shape")
+    vocabulary = build_vocabulary(counts_table(dict.fromkeys(odd, 5)), Cutoff(min_count=1), "shape")
     path = tmp_path / "vocabulary.tsv"
     path.write_text(vocabulary.to_tsv(), encoding="utf-8")
     assert read_vocabulary(path).tokens == vocabulary.tokens
