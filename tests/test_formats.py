@@ -53,8 +53,9 @@ RESERVED_WITH_CLASSES = {
     "<pad>": 0, "<unk>": 1, "<s>": 2, "</s>": 3,
     "<unk-digits>": 4, "<unk-hyphenated>": 5, "<unk-upper>": 6, "<unk-title>": 7, "<unk-symbol>": 8,
 }  # fmt: skip
-# Pieces holding every character the file format escapes, and pieces that look like escapes.
-ODD_PIECES = ["a\tb", "x\ny", "r\rs", "\\", "a\\tb", "\\\\n", "\t", "\n", "\\t\t"]
+# Pieces holding every character the file format escapes, pieces that look like escapes, and
+# CSV quoting that must stay plain text.
+ODD_PIECES = ["a\tb", "x\ny", "r\rs", "\\", "a\\tb", "\\\\n", "\t", "\n", "\\t\t", '"', '"q""', "null"]
 
 
 def reference_escape(piece: str) -> str:
