@@ -3,7 +3,7 @@
 The same figures for either units come from the shard jobs' statistics (steps.formats.Figures,
 summed): per split and per input file, documents, sentences, tokens (words or pieces), unknown
 tokens (out-of-vocabulary words mapped to <unk> or an unknown class; <unk> pieces) and their
-rate, whitespace words and tokens per word and per sentence, byte pieces and the <unk> rate the
+rate, words (Figures.words) and tokens per word and per sentence, byte pieces and the <unk> rate the
 same model would have without byte fallback (each run of byte pieces one <unk>), and where
 unknown tokens went (per symbol). Then what describes the vocabulary itself, from
 stats/token_counts.parquet and vocabulary.tsv: for a word cutoff, types and OOV types per

@@ -4,7 +4,7 @@ It answers from two files of a finished build: stats/token_counts.parquet (train
 count of every token, most frequent in train first) and vocabulary.tsv. The new cutoff is the
 build's own (from manifest.json; none without one) with the limits given on the command line
 replaced; `off` removes a limit. The word list it implies is the one the vocabulary step would
-choose, since both call steps.vocab.choose_size on the same counts.
+choose, since both call steps.vocabulary.choose_size on the same counts.
 """
 
 from __future__ import annotations

@@ -3,10 +3,11 @@
 Both encoders take prepared rows (column `source` and their unit column) and return the
 documents' ids as nested lists (documents → sentences → uint32 ids), adding the figures of
 each input file and split to a ShardStats (steps.formats.Figures): documents, sentences,
-tokens, unknown tokens. The word encoder looks words up in the build's ids and maps the others
-to their unknown class (by shape, or <unk>), counting each class; the piece encoder runs the
-sentencepiece model, counting whitespace words, byte pieces and runs of them (each run one
-<unk> without byte fallback). Nothing after the encoder asks which units it has.
+tokens, words, unknown tokens and the symbol each went to. The word encoder looks words up in
+the build's ids and maps the others to their unknown class (by shape, or <unk>); each token is
+a word. The piece encoder runs the sentencepiece model, counting whitespace words, <unk>
+pieces, byte pieces and runs of them (each run one <unk> without byte fallback). Nothing after
+the encoder asks which units it has.
 """
 
 from __future__ import annotations
@@ -95,6 +96,8 @@ class WordEncoder:
         names, source_of_row = _per_source(rows)
         figures = {name: stats.figures(name, split) for name in names}
         source_of_token = _add_shape(figures, names, source_of_row, nested)
+        for code, words in enumerate(np.bincount(source_of_token, minlength=len(names)).tolist()):
+            figures[names[code]].words += words  # each token is a word of the text
         unknown = np.isin(ids, self._unknown_ids)
         span = int(self._unknown_ids[-1]) + 1  # one key per (source, unknown id)
         keys, counts = np.unique(source_of_token[unknown] * span + ids[unknown], return_counts=True)
@@ -141,7 +144,10 @@ class PieceEncoder:
         for code, name in enumerate(names):
             mine = source_of_token == code
             target = figures[name]
-            target.unknown += int(np.count_nonzero(ids[mine] == self._unk))
+            unknown = int(np.count_nonzero(ids[mine] == self._unk))
+            if unknown:
+                target.unknown += unknown
+                target.by_unknown[str(self._unk)] = target.by_unknown.get(str(self._unk), 0) + unknown
             target.byte_pieces += int(is_byte[mine].sum())
             target.byte_runs += int(run_starts[mine].sum())
             target.words += int(words_per_sentence[source_of_row[sentence_row] == code].sum())

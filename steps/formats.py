@@ -275,10 +275,10 @@ class Figures:
     """What one split of one input file (or of a chunk, or of the build) holds once encoded.
 
     tokens: ids of the text (words or pieces; not <s> </s>); unknown: of them, ids for text
-    outside the vocabulary (<unk> and unknown classes); words: whitespace-separated words of the
-    sentences (the unit pieces are counted against); byte_pieces and byte_runs: byte-fallback
-    pieces and runs of them (each run one <unk> without byte fallback); by_unknown: unknown
-    tokens per symbol id (word units)."""
+    outside the vocabulary (<unk> and unknown classes); words: the words tokens are counted
+    against (word units: the tokens themselves; subword units: whitespace-separated words of
+    the sentences); byte_pieces and byte_runs: byte-fallback pieces and runs of them (each run
+    one <unk> without byte fallback); by_unknown: unknown tokens per symbol id."""
 
     documents: int = 0
     sentences: int = 0

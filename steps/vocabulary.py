@@ -184,6 +184,17 @@ def check_frozen(vocabulary: Vocabulary, unknown: str, path: str | Path) -> None
         seen[token] = index
 
 
+def read_frozen(path: str | Path, unknown: str) -> Vocabulary:
+    """A frozen vocabulary file, read (steps.formats) and checked (check_frozen); raise
+    VocabularyError naming the file and line of the first problem."""
+    try:
+        vocabulary = read_vocabulary(path)
+    except (OSError, FormatError) as error:
+        raise VocabularyError(str(error)) from None
+    check_frozen(vocabulary, unknown, path)
+    return vocabulary
+
+
 def vocabulary_from_counts(
     count_paths: Sequence[str], removed: str | None, config: dict, frozen: str | None
 ) -> tuple[Vocabulary, pa.Table]:
@@ -198,12 +209,7 @@ def vocabulary_from_counts(
         )
     vocabulary_config = config["vocabulary"]
     if frozen:
-        try:
-            vocabulary = read_vocabulary(frozen)
-        except (OSError, FormatError) as error:
-            raise VocabularyError(str(error)) from None
-        check_frozen(vocabulary, vocabulary_config["unknown"], frozen)
-        return vocabulary, counts
+        return read_frozen(frozen, vocabulary_config["unknown"]), counts
     cutoff = Cutoff.from_config(vocabulary_config)
     train_ends = {symbol: boundaries[symbol]["train"] for symbol in (BOS, EOS)}
     return build_vocabulary(counts, cutoff, vocabulary_config["unknown"], train_ends), counts

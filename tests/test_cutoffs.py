@@ -18,9 +18,10 @@ import pyarrow.parquet as pq
 import pytest
 
 from conftest import REPO
-from corpusmill.report import TABLE_SIZES
-from corpusmill.vocab import SHAPE_CLASSES, UNK, Cutoff, read_vocabulary, unknown_class
+from corpusmill.coverage import TABLE_SIZES
 from corpusmill.cutoffs import Figures, WordList, format_answer, what_if
+from corpusmill.formats import UNK, Vocabulary, read_vocabulary
+from corpusmill.vocabulary import SHAPE_CLASSES, Cutoff, unknown_class
 
 SPLITS = ("train", "dev", "test")
 
@@ -80,11 +81,11 @@ def test_every_coverage_figure_equals_a_counter_recount(demo_build: Path, counte
     for split in SPLITS:
         counter, figures = per_split[split], stats["splits"][split]
         oov = {t: c for t, c in counter.items() if t not in words}
-        assert figures["tokens"] == sum(counter.values())
+        assert figures["tokens"] == figures["words"] == sum(counter.values())
         assert figures["types"] == len(counter)
-        assert figures["oov_tokens"] == sum(oov.values())
+        assert figures["unknown_tokens"] == sum(oov.values())
         assert figures["oov_types"] == len(oov)
-        assert figures["oov_rate"] == round(sum(oov.values()) / sum(counter.values()), 6)
+        assert figures["unknown_rate"] == round(sum(oov.values()) / sum(counter.values()), 6)
         if split != "train":
             listed = dict(figures["top_oov"])
             assert all(oov[t] == c for t, c in listed.items())
@@ -113,7 +114,7 @@ def test_oov_per_source_and_unknown_classes_equal_a_counter_recount(demo_build: 
     for (source, split), counter in per_source.items():
         figures = stats["sources"][source][split]
         assert figures["tokens"] == sum(counter.values())
-        assert figures["oov_tokens"] == sum(c for t, c in counter.items() if t not in words)
+        assert figures["unknown_tokens"] == sum(c for t, c in counter.items() if t not in words)
     for split in SPLITS:
         classes = Counter()
         for token, count in per_split[split].items():
@@ -164,7 +165,7 @@ def test_cutoffs_command_keeps_the_build_limits_it_is_not_given(demo_build: Path
     unchanged = run()
     assert unchanged["cutoff"] == {"min_count": 2, "max_size": None, "coverage": None}
     assert unchanged["proposed"] == unchanged["current"]
-    assert round(unchanged["current"]["dev_oov_rate"], 6) == stats["splits"]["dev"]["oov_rate"]
+    assert round(unchanged["current"]["dev_oov_rate"], 6) == stats["splits"]["dev"]["unknown_rate"]
     assert unchanged["entering"]["words"] == unchanged["leaving"]["words"] == 0
     changed = run("--min-count", "off", "--max-size", "250")
     assert changed["cutoff"] == {"min_count": None, "max_size": 250, "coverage": None}
@@ -179,16 +180,21 @@ def test_cutoffs_command_names_the_missing_file(tmp_path: Path) -> None:
     assert "token_counts.parquet: not found" in result.stderr and "Run the workflow" in result.stderr
 
 
-def test_vocabulary_reader_agrees_with_the_reference_reader(demo_build: Path, tmp_path: Path) -> None:
-    """steps.vocab.read_vocabulary as the reference; a wrong id is reported with its line number."""
-    vocabulary = read_vocabulary(demo_build / "vocabulary.tsv")
-    fast = WordList.read(demo_build / "vocabulary.tsv")
-    assert fast.reserved == vocabulary.first_word_id
-    assert fast.words.to_pylist() == vocabulary.tokens[vocabulary.first_word_id :]
+def test_the_word_list_is_the_words_of_the_vocabulary_file(demo_build: Path, tmp_path: Path) -> None:
+    """The rows of kind 'word', read by splitting vocabulary.tsv's lines at tabs (word tokens are
+    never escaped); a wrong id is reported with its line number, a piece vocabulary is refused."""
+    rows = [line.split("\t") for line in (demo_build / "vocabulary.tsv").read_text(encoding="utf-8").split("\n")[1:-1]]
+    words = WordList.read(demo_build / "vocabulary.tsv")
+    assert words.reserved == sum(1 for row in rows if row[3] != "word") == 9
+    assert words.words.to_pylist() == [row[1] for row in rows if row[3] == "word"]
     broken = tmp_path / "vocabulary.tsv"
     broken.write_text("id\ttoken\tcount\tkind\n0\t<pad>\t0\treserved\n2\t<unk>\t0\treserved\n", encoding="utf-8")
-    with pytest.raises(SystemExit, match=r"vocabulary\.tsv: line 3: expected id 1"):
+    with pytest.raises(SystemExit, match=r"^corpusmill: .*vocabulary\.tsv: line 3: expected '1<TAB>token<TAB>count<TAB>kind', got '2"):
         WordList.read(broken)
+    pieces = tmp_path / "pieces.tsv"
+    pieces.write_text(Vocabulary(["<pad>", "<unk>", "<s>", "</s>", "\u2581a"], [0] * 5, ["control"] * 4 + ["piece"]).to_tsv(), encoding="utf-8")
+    with pytest.raises(SystemExit, match=r"pieces\.tsv: a subword vocabulary; cutoffs apply to word vocabularies \(units: word\)"):
+        WordList.read(pieces)
 
 
 def test_words_of_a_frozen_vocabulary_unseen_in_the_counts_leave_with_count_zero() -> None:

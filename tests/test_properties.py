@@ -17,7 +17,8 @@ from hypothesis import strategies as st
 from corpusmill.clean import CleanOptions, clean_text
 from corpusmill.segment import Segmenter, is_lossless
 from corpusmill.split import assign_split, fingerprint
-from corpusmill.vocab import Cutoff, Lookup, build_vocabulary, sort_by_frequency
+from corpusmill.encoder import WordEncoder
+from corpusmill.vocabulary import Cutoff, build_vocabulary, sort_by_frequency
 from corpusmill.windows import CorpusBlocks, document_blocks, document_streams, ngram_windows
 from tests.test_split import prepared_splits
 from tests.test_windows import reference_blocks, reference_stream
@@ -43,7 +44,7 @@ def test_every_token_maps_to_an_id_inside_the_vocabulary(train: list[str], queri
     table = sort_by_frequency(pa.table({"token": pa.array(list(values), pa.string()), "train": pa.array(counts, pa.int64()),
                                         "dev": pa.array([0] * len(values), pa.int64()), "test": pa.array([0] * len(values), pa.int64())}))  # fmt: skip
     vocabulary = build_vocabulary(table, Cutoff(min_count=min_count), unknown)
-    ids = Lookup(vocabulary, unknown).ids(pa.array(train + queries, pa.string()))
+    ids = WordEncoder(vocabulary, unknown).ids(pa.array(train + queries, pa.string()))
     assert ((0 <= ids) & (ids < vocabulary.size)).all()
     for token, token_id in zip(train + queries, ids):
         if token in vocabulary.tokens[vocabulary.first_word_id :]:

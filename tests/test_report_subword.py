@@ -1,4 +1,5 @@
-"""The coverage report page of a subword build (units: subword): piece figures instead of word cutoffs.
+"""The coverage report page of a subword build (units: subword): the piece model described
+instead of a word cutoff, by the one renderer of steps/report.py.
 
 A small piece model (vocab_size 500) on the demo corpus, built with the default target, so the
 report is part of `snakemake` with no target. coverage.json (itself checked against recounts of
@@ -8,6 +9,7 @@ the shards in test_subword) is the reference for the figures the page shows.
 from __future__ import annotations
 
 import base64
+import dataclasses
 import html
 import json
 import re
@@ -22,16 +24,18 @@ import pyarrow.parquet as pq
 import pytest
 
 from conftest import DEMO, require_file, run_workflow
-from test_report_browser import CHROMIUM, DevTools, start_chromium, websocket_module
-from test_report import OPTIONS, corpus_order, corpus_rows, file_cells, png_chunks, png_size
-from corpusmill.laws import ModelSize, PowerFit, fit_zipf
+from corpusmill.coverage import encoded_figures
+from corpusmill.formats import Figures, ShardStats, read_vocabulary
 from corpusmill.growth import train_word_batches, whitespace_words, word_growth
-from corpusmill.report import growth_figure, main, source_figures
-from corpusmill.summary import format_subword_table
-from corpusmill.vocab import read_vocabulary
+from corpusmill.laws import ModelSize, PowerFit, fit_zipf
+from corpusmill.report import growth_figure, main, read_growth, render
+from corpusmill.summary import format_table
+from tests.test_report import file_cells, png_chunks, png_size
+from tests.test_report_browser import CHROMIUM, DevTools, start_chromium, websocket_module
+from tests.test_shards import corpus_rows
 
 OVERRIDES = {"corpus": {"root": str(DEMO)}, "units": "subword", "subword": {"vocab_size": 500}}
-# RE2's \s, which the encode step's word count uses, is ASCII whitespace only.
+# RE2's \s, which the piece encoder's word count uses, is ASCII whitespace only.
 WORD = re.compile(r"[^\t\n\f\r ]+")
 
 
@@ -55,8 +59,13 @@ def rows(fragment: str) -> list[list[str]]:
     return [row for row in cells if row]
 
 
-def encode_stats(build: Path) -> list[Path]:
-    return sorted((build / "interim" / "encoded").glob("*/stats.json"))
+def read_json(path: Path) -> dict:
+    return json.loads(path.read_text(encoding="utf-8"))
+
+
+def options(build: Path) -> dict:
+    """The options the report job of the build read (interim/plan/options/report.json)."""
+    return read_json(build / "interim" / "plan" / "options" / "report.json")
 
 
 def test_the_default_target_builds_the_report_in_subword_mode(subword_run: tuple[Path, str]) -> None:
@@ -74,8 +83,8 @@ def test_pieces_per_word_and_per_sentence_by_split_equal_coverage_json(subword_r
     build, _ = subword_run
     page = (build / "report" / "index.html").read_text(encoding="utf-8")
     splits = json.loads((build / "stats" / "coverage.json").read_text())["splits"]
-    expected = [[s, f"{f['documents']:,}", f"{f['sentences']:,}", f"{f['words']:,}", f"{f['pieces']:,}",
-                 f"{f['pieces_per_word']:.3f}", f"{f['pieces_per_sentence']:.3f}"] for s, f in splits.items()]
+    expected = [[s, f"{f['documents']:,}", f"{f['sentences']:,}", f"{f['words']:,}", f"{f['tokens']:,}",
+                 f"{f['tokens_per_word']:.3f}", f"{f['tokens_per_sentence']:.3f}"] for s, f in splits.items()]
     assert sorted(rows(section(page, "lengths"))) == sorted(expected)
 
 
@@ -86,23 +95,25 @@ def test_unknown_rates_with_and_without_byte_fallback_equal_coverage_json(subwor
     splits = json.loads((build / "stats" / "coverage.json").read_text())["splits"]
     by_split = {row[0]: row for row in rows(section(page, "unknown")) if row[0] in splits}
     for split, f in splits.items():
-        assert by_split[split] == [split, f"{f['pieces']:,}", f"{f['unknown_pieces']:,}", f"{f['unknown_rate']:.4%}",
+        assert by_split[split] == [split, f"{f['tokens']:,}", f"{f['unknown_tokens']:,}", f"{f['unknown_rate']:.4%}",
                                    f"{f['byte_pieces']:,}", f"{f['byte_piece_rate']:.4%}", f"{f['unknown_rate_without_byte_fallback']:.4%}"]
         assert float(by_split[split][6].rstrip("%")) / 100 == pytest.approx(f["unknown_rate_without_byte_fallback"], abs=1e-9)
     assert any(f["byte_pieces"] for f in splits.values())  # the demo corpus exercises byte fallback
 
 
 def test_unknown_rates_by_source_add_up_to_the_split_totals(subword_run: tuple[Path, str]) -> None:
-    """coverage.json's split totals: the per-file pieces and unknown-without-fallback pieces sum to them."""
+    """coverage.json's split totals: the per-file pieces, byte pieces, runs and
+    unknown-without-fallback pieces sum to them; every input file has its figures."""
     build, _ = subword_run
-    splits = json.loads((build / "stats" / "coverage.json").read_text())["splits"]
-    sources = source_figures([json.loads(p.read_text()) for p in encode_stats(build)])
-    assert len(sources) == len(json.loads((build / "manifest.json").read_text())["inputs"])
+    coverage = json.loads((build / "stats" / "coverage.json").read_text())
+    splits, sources = coverage["splits"], coverage["sources"]
+    assert sorted(sources) == sorted(entry["path"] for entry in json.loads((build / "manifest.json").read_text())["inputs"])
     for split, f in splits.items():
-        assert sum(s[split]["tokens"] for s in sources.values()) == f["pieces"]
+        for key in ("documents", "sentences", "tokens", "words", "byte_pieces", "byte_runs"):
+            assert sum(s[split][key] for s in sources.values()) == f[key], key
         would_be_unknown = sum(s[split]["unknown_rate_without_byte_fallback"] * (s[split]["tokens"] - s[split]["byte_pieces"] + s[split]["byte_runs"])
                                for s in sources.values())
-        total = f["pieces"] - f["byte_pieces"] + sum(s[split]["byte_runs"] for s in sources.values())
+        total = f["tokens"] - f["byte_pieces"] + f["byte_runs"]
         assert would_be_unknown / total == pytest.approx(f["unknown_rate_without_byte_fallback"], abs=1e-6)
     page = (build / "report" / "index.html").read_text(encoding="utf-8")
     table = {row[1]: row for row in rows(section(page, "unknown")) if len(row) > 1 and row[1] in sources}
@@ -122,8 +133,9 @@ def test_zipf_fit_and_model_sizing_use_the_pieces(subword_run: tuple[Path, str])
     assert f"Zipf exponent s = {fit.exponent:.3f}" in section(page, "zipf")
     assert f"ranks of the {int(ranks.max()):,} pieces used in train" in page
     assert int(ranks.max()) == sum(1 for c in pieces if c > 0)
-    for width in OPTIONS["report"]["embedding_widths"]:
-        size = ModelSize(vocabulary.size, width, 3, 100)
+    report = options(build)["report"]
+    for width in report["embedding_widths"]:
+        size = ModelSize(vocabulary.size, width, options(build)["windows"]["ngram"]["n"] - 1, report["hidden_width"])
         assert f"{size.parameters:,} (" in section(page, "sizing") and f"{size.output_parameters:,} (" in page
 
 
@@ -132,9 +144,9 @@ def test_growth_counts_whitespace_words_of_the_train_sentences(subword_run: tupl
     counted with a Python set over re.findall (ASCII whitespace, as RE2's \\s); the total equals
     coverage.json's train words."""
     build, _ = subword_run
-    duplicates = pq.read_table(build / "interim" / "duplicates.parquet")
-    removed = {(r["source"], r["offset"]) for r in duplicates.to_pylist()}
-    prepared = corpus_order(build)
+    removed = {(r["source"], r["offset"]) for r in pq.read_table(build / "interim" / "duplicates.parquet").to_pylist()}
+    chunks = [(str(build / "interim" / "prepared" / f"{chunk}.parquet"), pq.read_table(build / "interim" / "removed" / f"{chunk}.parquet"))
+              for chunk in read_json(build / "interim" / "plan" / "chunks.json")]
     seen: set[str] = set()
     after = [0]
     for row in corpus_rows(build, ["split", "sentences"]):
@@ -143,7 +155,7 @@ def test_growth_counts_whitespace_words_of_the_train_sentences(subword_run: tupl
         for word in (w for sentence in row["sentences"] for w in WORD.findall(sentence)):
             seen.add(word)
             after.append(len(seen))
-    words, types = word_growth(train_word_batches(prepared, duplicates))
+    words, types = word_growth(train_word_batches(chunks))
     assert words[-1] == len(after) - 1 == json.loads((build / "stats" / "coverage.json").read_text())["splits"]["train"]["words"]
     assert types.tolist() == [after[n] for n in words]
     growth = json.loads((build / "stats" / "growth.json").read_text())
@@ -169,7 +181,8 @@ def test_word_growth_does_not_depend_on_how_the_stream_is_batched() -> None:
 
 
 def test_subword_page_is_self_contained_and_byte_identical_when_written_again(subword_run: tuple[Path, str], tmp_path: Path) -> None:
-    """PNG specification (no text or time chunks) and determinism (project rule): same build, same bytes."""
+    """PNG specification (no text or time chunks) and determinism (project rule): the report
+    step run again on a copy of the build writes the same bytes."""
     build, _ = subword_run
     original = (build / "report" / "index.html").read_bytes()
     page = original.decode("utf-8")
@@ -178,14 +191,11 @@ def test_subword_page_is_self_contained_and_byte_identical_when_written_again(su
     assert len(images) == page.count("<img") == 3
     for encoded in images:
         assert not {b"tEXt", b"iTXt", b"zTXt", b"tIME"} & set(png_chunks(base64.b64decode(encoded)))
-    again = tmp_path / "again.html"
-    stats_arguments = [a for p in encode_stats(build) for a in ("--encode-stats", str(p))]
-    main([
-        "--coverage", str(build / "stats" / "coverage.json"), "--manifest", str(build / "manifest.json"),
-        "--token-counts", str(build / "stats" / "token_counts.parquet"), "--growth", str(build / "stats" / "growth.json"),
-        *stats_arguments, "--options", json.dumps(OPTIONS), "--output", str(again),
-    ])
-    assert again.read_bytes() == original
+    copy = tmp_path / "build"
+    shutil.copytree(build, copy)
+    (copy / "report" / "index.html").unlink()
+    main(["--build", str(copy)])
+    assert (copy / "report" / "index.html").read_bytes() == original
 
 
 def test_subword_page_renders_in_chromium_without_errors(subword_run: tuple[Path, str]) -> None:
@@ -220,33 +230,32 @@ def test_subword_page_renders_in_chromium_without_errors(subword_run: tuple[Path
               or (e.get("method") == "Log.entryAdded" and e["params"]["entry"]["level"] == "error")]
     assert errors == []
     assert len(images) == 3 and all(complete and width > 0 for complete, width in images), images
-    assert "Unknown pieces and byte fallback" in headings and "Pieces per word and per sentence" in headings
+    assert "Unknown tokens by split and source" in headings and "Pieces per word and per sentence" in headings
+    assert "The subword model" in headings
 
 
-def subword_page(build: Path, tmp_path: Path, encode_stats: list[dict], **changes: object) -> str:
-    """The page of a subword build from the given encode statistics, with some of coverage.json's keys replaced."""
-    coverage = json.loads((build / "stats" / "coverage.json").read_text())
+def subword_page(build: Path, stats: list[ShardStats], **changes: object) -> str:
+    """The page of a subword build whose per-file figures come from the given shard statistics
+    (summed per file by steps.coverage as the coverage step does), with some of coverage.json's
+    other keys replaced."""
+    coverage = read_json(build / "stats" / "coverage.json")
+    coverage["sources"] = encoded_figures(stats, read_vocabulary(build / "vocabulary.tsv"))["sources"]
     coverage.update(changes)
-    (tmp_path / "coverage.json").write_text(json.dumps(coverage), encoding="utf-8")
-    arguments = []
-    for index, stats in enumerate(encode_stats):
-        path = tmp_path / f"stats-{index}.json"
-        path.write_text(json.dumps(stats), encoding="utf-8")
-        arguments += ["--encode-stats", str(path)]
-    main(["--coverage", str(tmp_path / "coverage.json"), "--manifest", str(build / "manifest.json"),
-          "--token-counts", str(build / "stats" / "token_counts.parquet"), "--growth", str(build / "stats" / "growth.json"),
-          *arguments, "--options", json.dumps(OPTIONS), "--output", str(tmp_path / "page.html")])
-    return (tmp_path / "page.html").read_text(encoding="utf-8")
+    counts = pq.read_table(build / "stats" / "token_counts.parquet")
+    return render(coverage, read_json(build / "manifest.json"), counts, read_growth(str(build / "stats" / "growth.json")), options(build))
 
 
-def piece_source(pieces: int, byte_pieces: int, byte_runs: int) -> dict:
-    """One file's encode statistics: all in train, none in dev or test."""
-    train = {"tokens": pieces, "words": pieces // 2, "oov_tokens": 0, "byte_pieces": byte_pieces, "byte_runs": byte_runs,
-             "documents": 1, "sentences": 1}
-    return {"train": train, **{split: dict.fromkeys(train, 0) for split in ("dev", "test")}}
+def piece_source(pieces: int, byte_pieces: int, byte_runs: int) -> dict[str, Figures]:
+    """One file's figures: all in train, none in dev or test."""
+    train = Figures(documents=1, sentences=1, tokens=pieces, words=pieces // 2, byte_pieces=byte_pieces, byte_runs=byte_runs)
+    return {"train": train, "dev": Figures(), "test": Figures()}
 
 
-def test_subword_page_and_its_largest_image_stay_small_with_8000_input_files(subword_run: tuple[Path, str], tmp_path: Path) -> None:
+def chunk_stats(chunk: str, sources: dict[str, dict[str, Figures]]) -> ShardStats:
+    return ShardStats(chunk, sources={name: {split: Figures(**dataclasses.asdict(f)) for split, f in per.items()} for name, per in sources.items()})
+
+
+def test_subword_page_and_its_largest_image_stay_small_with_8000_input_files(subword_run: tuple[Path, str]) -> None:
     """PNG specification (IHDR) for the pixels; sorted() over every file as the reference for which
     are listed: the most pieces that would be <unk> without byte fallback first, then by name; files
     spread over two chunks' statistics count once, their figures added."""
@@ -254,30 +263,29 @@ def test_subword_page_and_its_largest_image_stay_small_with_8000_input_files(sub
     sources = {f"a-folder-with-a-long-name-{i % 40:02d}/and-another-below-it/document-{i:05d}-of-the-archive.txt":
                piece_source(300 + i % 11, 2 * (i % 89), i % 89) for i in range(8000)}
     names = list(sources)
-    halves = [{"units": "subword", "sources": {n: sources[n] for n in names[:5000]}},
-              {"units": "subword", "sources": {n: sources[n] for n in names[4000:]}}]
-    page = subword_page(build, tmp_path, halves)
+    halves = [chunk_stats("a", {n: sources[n] for n in names[:5000]}), chunk_stats("b", {n: sources[n] for n in names[4000:]})]
+    page = subword_page(build, halves)
     assert len(page.encode("utf-8")) < 1_000_000
     sizes = [png_size(base64.b64decode(e)) for e in re.findall(r'<img src="data:image/png;base64,([A-Za-z0-9+/=]+)"', page)]
     assert max(width * height for width, height in sizes) < 1_000_000
     would_be_unknown = {n: (2 if 4000 <= i < 5000 else 1) * (i % 89) for i, n in enumerate(names)}
     assert file_cells(page, "unknown") == sorted(names, key=lambda n: (-would_be_unknown[n], n))[:100]
-    assert "7,900 more input files are not listed; the figures of every file are in the encode statistics" in page
+    assert "7,900 more input files are not listed; the figures of every file are in <code>stats/coverage.json</code>, key <code>sources</code>" in page
 
 
-def test_subword_rates_of_an_empty_split_show_a_dash_on_the_page_and_in_the_summary(subword_run: tuple[Path, str], tmp_path: Path) -> None:
+def test_subword_rates_of_an_empty_split_show_a_dash_on_the_page_and_in_the_summary(subword_run: tuple[Path, str]) -> None:
     """0 of 0 pieces has no rate: coverage.json stores 0.0, the page and the summary show a dash."""
     build, _ = subword_run
     coverage = json.loads((build / "stats" / "coverage.json").read_text())
     empty = {key: 0.0 if isinstance(value, float) else 0 for key, value in coverage["splits"]["test"].items()}
     splits = {**coverage["splits"], "test": empty}
-    page = subword_page(build, tmp_path, [{"units": "subword", "sources": {"one.txt": piece_source(40, 6, 2)}}], splits=splits)
+    page = subword_page(build, [chunk_stats("a", {"one.txt": piece_source(40, 6, 2)})], splits=splits)
     assert ["test", "0", "0", "0", "0", "—", "—"] in rows(section(page, "lengths"))
     assert ["test", "0", "0", "—", "0", "—", "—"] in rows(section(page, "unknown"))
     assert ["1", "one.txt", "2", "40", "5.5556%", "0", "—", "0", "—"] in rows(section(page, "unknown"))
     assert ", test —); words are runs" in section(page, "lengths")
-    line = next(line for line in format_subword_table({**coverage, "splits": splits}).splitlines() if line.startswith("test"))
-    assert line.split() == ["test", "0", "—", "—", "—", "—", "—"]
+    line = next(line for line in format_table({**coverage, "splits": splits}).splitlines() if line.startswith("test"))
+    assert line.split() == ["test", "0", "0", "—", "—", "—", "—"]
 
 
 def test_growth_plot_names_the_unit_its_axis_counts_in_the_legend() -> None:

@@ -20,10 +20,13 @@ import pytest
 import sentencepiece as spm
 
 from conftest import DEMO, run_workflow
-from corpusmill.encode import PieceEncoder, PieceTally
-from corpusmill.split import assign_split, duplicate_mask
+from corpusmill.chunks import removed_mask
+from corpusmill.encoder import PieceEncoder
+from corpusmill.formats import ShardStats, Vocabulary, read_vocabulary
+from corpusmill.split import assign_split, doc_hash
 from corpusmill.subword import TRAIN_THREADS, BottomK, check_model, read_sample, sentence_keys, train_model
-from corpusmill.vocab import Vocabulary, read_vocabulary
+from corpusmill.vocabulary import model_vocabulary
+from tests.test_shards import heldout_corpus_order, stream_doc_ids
 
 SALT = "corpusmill-split-v1"
 FRACTIONS = {"train": 0.9, "dev": 0.05, "test": 0.05}
@@ -35,7 +38,6 @@ OVERRIDES = {
     "split": {"key": "id"},
     "units": "subword",
     "subword": SUBWORD,
-    "shards": {"train_files": 1},
 }
 SENTINEL = {"train": "kjaxplodrient", "dev": "vquombelradix", "test": "zhyrtwexolpan"}
 
@@ -100,7 +102,7 @@ def prepared_sentences(build: Path, split: str) -> dict[str, list[str]]:
     for path in sorted((build / "interim" / "prepared").glob("*.parquet")):
         table = pq.read_table(path)
         table = table.filter(pc.equal(table["split"], split))
-        table = table.filter(pc.invert(duplicate_mask(duplicates, table["source"], table["offset"])))
+        table = table.filter(pa.array(~removed_mask(duplicates, table["source"], table["offset"])))
         found.update(zip(table["doc_id"].to_pylist(), table["sentences"].to_pylist()))
     return found
 
@@ -122,14 +124,12 @@ def stream_sentences(build: Path, split: str) -> dict[str, list[list[int]]]:
 
 
 def test_dev_and_test_streams_keep_corpus_order(workdir: Path) -> None:
-    from corpusmill.split import doc_hash
-    from tests.test_shards import heldout_corpus_order
-
+    """The prepared rows sorted by input file and byte offset as the reference; stream files
+    read in manifest order."""
     build = workdir / "build"
     for split in ("dev", "test"):
-        streams = pq.read_table(build / "shards" / split / "stream-0000.parquet", columns=["doc_id"])
         expected = heldout_corpus_order(build, split)
-        assert streams["doc_id"].to_pylist() == expected
+        assert stream_doc_ids(build, split) == expected
         assert expected != sorted(expected, key=doc_hash), "storage order would pass too"
 
 
@@ -178,7 +178,8 @@ def test_model_has_exactly_the_requested_size_and_the_reserved_ids(workdir: Path
 
 
 def test_vocabulary_rows_are_the_model_pieces_in_id_order(workdir: Path):
-    """sentencepiece's id_to_piece and piece types; train counts recounted from the train shards."""
+    """sentencepiece's id_to_piece and piece types; train counts recounted from the train stream
+    shards (numpy add.at over each sentence's ids, <s> once per document, </s> once per sentence)."""
     build = workdir / "build"
     model = processor(build)
     vocabulary = read_vocabulary(build / "vocabulary.tsv")
@@ -188,9 +189,12 @@ def test_vocabulary_rows_are_the_model_pieces_in_id_order(workdir: Path):
     assert vocabulary.kinds.count("byte") == 256
     recount = np.zeros(vocabulary.size, np.int64)
     for sentences in stream_sentences(build, "train").values():
+        recount[2] += 1
         for ids in sentences:
             np.add.at(recount, ids, 1)
-    assert recount[4:].tolist() == vocabulary.counts[4:]
+            recount[3] += 1
+    assert recount.tolist() == vocabulary.counts
+    assert vocabulary.counts[0] == 0 and vocabulary.counts[2] == len(stream_sentences(build, "train"))
 
 
 def test_decoding_the_ids_of_every_dev_sentence_gives_back_the_cleaned_sentence(workdir: Path):
@@ -286,24 +290,25 @@ def test_byte_runs_count_the_unk_pieces_of_the_same_model_without_byte_fallback(
     """sentencepiece with byte fallback switched off in a copy of the model; str.split word counts."""
     model_path = workdir / "build" / "subword.model"
     sentences = [["Snow \u2603\u2603 fell on the \u65e5\u672c quay.", "Plain words only."], ["\u00de\u00f0 at the end \u2603"]]
-    encoder = PieceEncoder(str(model_path), threads=2)
-    column = pa.chunked_array([pa.array(sentences, pa.list_(pa.string()))])
-    encoded = encoder.encode(column)
-    figures = PieceTally(encoder).add("dev", column, encoded)
+    encoder = PieceEncoder(str(model_path), model_vocabulary(str(model_path)), threads=2)
+    stats = ShardStats("chunk")
+    encoded = encoder.encode(pa.table({"source": ["a.txt", "a.txt"], "sentences": pa.array(sentences, pa.list_(pa.string()))}), "dev", stats)
+    figures = stats.sources["a.txt"]["dev"]
     copy = tmp_path / "no_fallback.model"
     copy.write_bytes(_without_byte_fallback(model_path.read_bytes()))
     plain = spm.SentencePieceProcessor(model_file=str(copy))
     flat = [s for document in sentences for s in document]
     unknown = sum(ids.count(plain.unk_id()) for ids in plain.encode(flat))
     assert unknown > 0
-    assert figures["byte_runs"] == unknown
-    assert figures["words"] == sum(len(s.split()) for s in flat)
+    assert figures.byte_runs == unknown
+    assert figures.words == sum(len(s.split()) for s in flat)
     reference = spm.SentencePieceProcessor(model_file=str(model_path)).encode(flat)
     assert [ids for document in encoded.to_pylist() for ids in document] == reference
 
 
 def test_coverage_reports_pieces_per_word_and_unknown_rates_by_split(workdir: Path):
-    """Pieces and words recounted from the stream shards and prepared sentences (str.split)."""
+    """Pieces (coverage.json's tokens) and words recounted from the stream shards and prepared
+    sentences (str.split)."""
     build = workdir / "build"
     coverage = json.loads((build / "stats" / "coverage.json").read_text())
     assert coverage["units"] == "subword"
@@ -311,8 +316,8 @@ def test_coverage_reports_pieces_per_word_and_unknown_rates_by_split(workdir: Pa
         figures = coverage["splits"][split]
         pieces = sum(len(ids) for doc in stream_sentences(build, split).values() for ids in doc)
         words = sum(len(s.split()) for doc in prepared_sentences(build, split).values() for s in doc)
-        assert figures["pieces"] == pieces and figures["words"] == words
-        assert figures["pieces_per_word"] == pytest.approx(pieces / words, abs=1e-6)
+        assert figures["tokens"] == pieces and figures["words"] == words
+        assert figures["tokens_per_word"] == pytest.approx(pieces / words, abs=1e-6)
         assert figures["unknown_rate"] == 0.0  # byte fallback leaves no <unk>
         assert 0.0 <= figures["unknown_rate_without_byte_fallback"] <= figures["byte_piece_rate"]
 
@@ -356,7 +361,7 @@ def test_dev_and_test_edits_do_not_retrain_but_train_edits_do(workdir: Path, tmp
     dry = run_workflow(copy, OVERRIDES, "-n", *TARGETS)
     assert "prepare" in jobs_run(dry) and "subword_train" not in jobs_run(dry)
     ran = jobs_run(run_workflow(copy, OVERRIDES, *TARGETS))
-    assert "subword_sample" in ran and "encode" in ran
+    assert "subword_sample" in ran and "shards" in ran
     assert not ran & {"subword_train", "subword_model"}
     assert (model.read_bytes(), model.stat().st_mtime_ns) == before
 

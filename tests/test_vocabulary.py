@@ -1,4 +1,5 @@
-"""Vocabulary: cutoffs, deterministic ids, reserved symbols, unknown classes, the file format."""
+"""Vocabulary: cutoffs, deterministic ids, reserved symbols, unknown classes, the counts of
+vocabulary.tsv, frozen vocabularies."""
 
 from __future__ import annotations
 
@@ -14,10 +15,9 @@ import pyarrow.parquet as pq
 import pytest
 
 from conftest import DEMO, run_workflow
-from corpusmill.vocab import (
-    HEADER, RESERVED, UNK, Cutoff, Lookup, VocabularyError, build_vocabulary, check_frozen, choose_size, read_vocabulary,
-    sort_by_frequency, unknown_class,
-)
+from corpusmill.encoder import WordEncoder
+from corpusmill.formats import RESERVED, UNK, VOCABULARY_HEADER, FormatError, read_vocabulary
+from corpusmill.vocabulary import Cutoff, VocabularyError, build_vocabulary, choose_size, read_frozen, sort_by_frequency, unknown_class
 
 
 def counts_table(train: dict[str, int], dev: dict[str, int] | None = None) -> pa.Table:
@@ -75,13 +75,15 @@ def test_a_coverage_met_exactly_keeps_the_prefix_that_meets_it_despite_float_rou
     assert choose_size(train, Cutoff(coverage=1.0)) == 29
 
 
-def test_rows_carry_their_kind_and_reserved_symbols_count_zero():
-    """vocabulary.tsv's kind column: reserved, unknown, word; <pad>, <s> and </s> never occur
-    in the text (count 0), <unk> and the classes count the train tokens they stand for."""
-    vocabulary = build_vocabulary(counts_table(TRAIN), Cutoff(min_count=2), "shape")
+def test_rows_carry_their_kind_and_symbols_count_what_they_stand_for_in_the_train_streams():
+    """vocabulary.tsv's kind column: reserved, unknown, word. Counts are those of the train id
+    streams: <pad> never occurs (0), <s> once per document and </s> once per sentence (the
+    train boundary counts given), <unk> and the classes the train tokens they stand for."""
+    vocabulary = build_vocabulary(counts_table(TRAIN), Cutoff(min_count=2), "shape", {"<s>": 3, "</s>": 11})
     assert vocabulary.kinds == ["reserved"] * 4 + ["unknown"] * 5 + ["word"] * 4
-    assert [vocabulary.counts[i] for i in (0, 2, 3)] == [0, 0, 0]
-    assert sum(vocabulary.counts[1:9]) == sum(c for c in TRAIN.values() if c < 2)
+    assert [vocabulary.counts[i] for i in (0, 2, 3)] == [0, 3, 11]
+    assert vocabulary.counts[1] + sum(vocabulary.counts[4:9]) == sum(c for c in TRAIN.values() if c < 2)
+    assert build_vocabulary(counts_table(TRAIN), Cutoff(min_count=2), "shape").counts[2:4] == [0, 0]
 
 
 def test_shape_classes_for_rare_words():
@@ -90,25 +92,25 @@ def test_shape_classes_for_rare_words():
     ]
 
 
-def test_lookup_maps_known_words_and_classes_unknown_ones():
+def test_the_word_encoder_maps_known_words_and_classes_unknown_ones():
     vocabulary = build_vocabulary(counts_table(TRAIN), Cutoff(min_count=2), "shape")
-    ids = Lookup(vocabulary, "shape").ids(pa.array(["the", "Oréla", "1,200", "Zed", "unseen", "!!"]))
+    ids = WordEncoder(vocabulary, "shape").ids(pa.array(["the", "Oréla", "1,200", "Zed", "unseen", "!!"]))
     names = [vocabulary.tokens[i] for i in ids]
     assert names == ["the", "Oréla", "<unk-digits>", "<unk-title>", "<unk>", "<unk-symbol>"]
     single = build_vocabulary(counts_table(TRAIN), Cutoff(min_count=2), "single")
-    assert Lookup(single, "single").ids(pa.array(["Zed", "the"])).tolist() == [1, 4]
+    assert WordEncoder(single, "single").ids(pa.array(["Zed", "the"])).tolist() == [1, 4]
 
 
-def test_lookup_follows_the_configured_unknown_mode_whatever_the_vocabulary_holds():
+def test_the_word_encoder_follows_the_configured_unknown_mode_whatever_the_vocabulary_holds():
     """A vocabulary made under the other mode (a frozen file reused): with unknown = single
     every OOV word maps to <unk> even when shape classes exist; with unknown = shape, classes
     the vocabulary lacks fall back to <unk>."""
     shaped = build_vocabulary(counts_table(TRAIN), Cutoff(min_count=2), "shape")
     words = pa.array(["1,200", "Zed", "the", "unseen", "!!"])
-    assert [shaped.tokens[i] for i in Lookup(shaped, "single").ids(words)] == ["<unk>", "<unk>", "the", "<unk>", "<unk>"]
+    assert [shaped.tokens[i] for i in WordEncoder(shaped, "single").ids(words)] == ["<unk>", "<unk>", "the", "<unk>", "<unk>"]
     single = build_vocabulary(counts_table(TRAIN), Cutoff(min_count=2), "single")
-    assert [single.tokens[i] for i in Lookup(single, "shape").ids(words)] == ["<unk>", "<unk>", "the", "<unk>", "<unk>"]
-    assert Lookup(shaped, "shape").ids(pa.array(["the", "the"])).tolist() == [9, 9]
+    assert [single.tokens[i] for i in WordEncoder(single, "shape").ids(words)] == ["<unk>", "<unk>", "the", "<unk>", "<unk>"]
+    assert WordEncoder(shaped, "shape").ids(pa.array(["the", "the"])).tolist() == [9, 9]
 
 
 def test_unknown_class_counts_match_a_counter_recount():
@@ -128,26 +130,26 @@ def test_file_round_trips_and_rejects_a_foreign_file(tmp_path):
     path = tmp_path / "vocabulary.tsv"
     path.write_text(vocabulary.to_tsv(), encoding="utf-8")
     again = read_vocabulary(path)
-    assert again == vocabulary and again.digest() == vocabulary.digest()
-    assert path.read_text(encoding="utf-8").splitlines()[0] == HEADER
-    (tmp_path / "bad.tsv").write_text(HEADER + "\n0\t<pad>\t0\treserved\n2\tx\t1\tword\n")
-    with pytest.raises(ValueError, match=r"bad\.tsv: line 3"):
+    assert again == vocabulary and (again.sha256, again.ids_digest) == (vocabulary.sha256, vocabulary.ids_digest)
+    assert path.read_text(encoding="utf-8").splitlines()[0] == VOCABULARY_HEADER
+    (tmp_path / "bad.tsv").write_text(VOCABULARY_HEADER + "\n0\t<pad>\t0\treserved\n2\tx\t1\tword\n")
+    with pytest.raises(FormatError, match=r"bad\.tsv: line 3"):
         read_vocabulary(tmp_path / "bad.tsv")
-    (tmp_path / "wide.tsv").write_text(HEADER + "\n0\t<pad>\t0\treserved\n1\tx\t1\tword\textra\n")
-    with pytest.raises(ValueError, match=r"wide\.tsv: line 3"):
+    (tmp_path / "wide.tsv").write_text(VOCABULARY_HEADER + "\n0\t<pad>\t0\treserved\n1\tx\t1\tword\textra\n")
+    with pytest.raises(FormatError, match=r"wide\.tsv: line 3"):
         read_vocabulary(tmp_path / "wide.tsv")
-    (tmp_path / "count.tsv").write_text(HEADER + "\n0\t<pad>\t0\treserved\n1\tx\tmany\tword\n")
-    with pytest.raises(ValueError, match=r"count\.tsv: line 3"):
+    (tmp_path / "count.tsv").write_text(VOCABULARY_HEADER + "\n0\t<pad>\t0\treserved\n1\tx\tmany\tword\n")
+    with pytest.raises(FormatError, match=r"count\.tsv: line 3"):
         read_vocabulary(tmp_path / "count.tsv")
-    (tmp_path / "huge.tsv").write_text(HEADER + "\n0\t<pad>\t99999999999999999999999\treserved\n")
-    with pytest.raises(ValueError, match=r"huge\.tsv: cannot be read as a vocabulary file \(.*Row #2.*99999999999999999999999"):
+    (tmp_path / "huge.tsv").write_text(VOCABULARY_HEADER + "\n0\t<pad>\t99999999999999999999999\treserved\n")
+    with pytest.raises(FormatError, match=r"huge\.tsv: cannot be read as a vocabulary file \(.*Row #2.*99999999999999999999999"):
         read_vocabulary(tmp_path / "huge.tsv")
 
 
 def test_file_keeps_tokens_that_look_like_csv_syntax(tmp_path):
     """Quotes, commas, 'null' and 'NA' are ordinary word tokens, read back unchanged."""
     odd = ['"', '""', "'quoted'", "a,b", "null", "NA", "nan", "#", "\\"]
-    vocabulary = build_vocabulary(counts_table({token: 5 for token in odd}), Cutoff(min_count=1), "shape")
+    vocabulary = build_vocabulary(counts_table(dict.fromkeys(odd, 5)), Cutoff(min_count=1), "shape")
     path = tmp_path / "vocabulary.tsv"
     path.write_text(vocabulary.to_tsv(), encoding="utf-8")
     assert read_vocabulary(path).tokens == vocabulary.tokens
@@ -180,7 +182,7 @@ def renumbered(rows: list[list]) -> list[list]:
         (lambda rows: renumbered([*rows[:4], rows[0], *rows[4:]]), "line 6: expected '<unk-digits>' of kind 'unknown'"),
         (lambda rows: renumbered([*rows, rows[-1]]), "is listed again (first on line"),
         (lambda rows: renumbered([*rows, ["", "", "3", "word"]]), "is not a word with a count >= 0"),
-        (lambda rows: renumbered([*rows, ["", "again", "-1", "word"]]), "is not a word with a count >= 0"),
+        (lambda rows: renumbered([*rows[:9], ["", "again", "-1", "word"], *rows[9:]]), "variant-0.tsv: line 11: a negative count"),
         (lambda rows: renumbered([*rows, ["", "x", "1", "unknown"]]), "kind 'unknown' after the reserved and unknown ids"),
         (lambda rows: renumbered([*rows[:4], *rows[9:]]), "line 6: expected '<unk-digits>'"),
     ],
@@ -190,14 +192,14 @@ def test_a_frozen_vocabulary_is_checked_fully_naming_the_line(tmp_path: Path, de
     """The frozen file must keep the layout every shard relies on (README, "Vocabulary")."""
     variant = frozen_variant(tmp_path, demo_build / "vocabulary.tsv", edit)
     with pytest.raises(VocabularyError, match=re.escape(message)):
-        check_frozen(read_vocabulary(variant), "shape", variant)
+        read_frozen(variant, "shape")
 
 
 def test_a_frozen_vocabulary_without_classes_needs_unknown_single(tmp_path: Path, demo_build: Path):
     variant = frozen_variant(tmp_path, demo_build / "vocabulary.tsv", lambda rows: renumbered([*rows[:4], *rows[9:]]))
-    check_frozen(read_vocabulary(variant), "single", variant)
+    read_frozen(variant, "single")
     with pytest.raises(VocabularyError, match="with vocabulary.unknown = 'shape' ids 0-8 are"):
-        check_frozen(read_vocabulary(variant), "shape", variant)
+        read_frozen(variant, "shape")
 
 
 def test_a_missing_frozen_vocabulary_stops_before_any_job_in_a_fresh_and_a_built_folder(tmp_path: Path):
@@ -226,34 +228,69 @@ def test_a_frozen_path_that_is_not_a_regular_file_is_refused_at_once(tmp_path: P
     assert run.returncode != 0 and f"vocabulary.frozen = {path!r}: not a regular file" in run.stderr
 
 
+def train_stream_counts(build: Path, size: int) -> np.ndarray:
+    """Occurrences of each id in the train stream shards (numpy bincount, an independent count)."""
+    ids = [np.concatenate(pq.read_table(p)["ids"].to_numpy(zero_copy_only=False)) for p in sorted(build.glob("shards/train/stream-*.parquet"))]
+    return np.bincount(np.concatenate(ids).astype(np.int64), minlength=size)
+
+
+def test_vocabulary_counts_are_each_ids_occurrences_in_the_train_streams(demo_build: Path):
+    """numpy bincount over the train stream shards (<s> once per document, </s> once per
+    sentence, as the streams hold them); the ids file the shards were written from names the
+    same ids, and in a fresh build already the same counts (predicted from the chunks' counts)."""
+    vocabulary = read_vocabulary(demo_build / "vocabulary.tsv")
+    assert vocabulary.counts == train_stream_counts(demo_build, vocabulary.size).tolist()
+    manifest = json.loads((demo_build / "manifest.json").read_text())
+    assert vocabulary.counts[2:4] == [manifest["splits"]["train"]["documents"], manifest["splits"]["train"]["sentences"]]
+    assert read_vocabulary(demo_build / "interim" / "vocabulary" / "ids.tsv") == vocabulary
+
+
+def dry_run_rules(result) -> set[str]:
+    """Rule names of the jobs a dry run lists (its job table: rule name, then a count)."""
+    names = set()
+    for line in result.stdout.splitlines():
+        words = line.split()
+        if len(words) == 2 and words[1].isdigit() and words[0] not in ("total", "job"):
+            names.add(words[0])
+    return names
+
+
 def test_a_frozen_vocabulary_larger_than_the_corpus_builds_with_consistent_figures(tmp_path: Path):
     """A frozen vocabulary may hold words the corpus never uses: 5,000 extra words on the two
     journal files (it crashed the coverage step). The chosen size row, the split figures and a
     recount of the shards' ids (numpy bincount, an independent count) agree; the summary and
-    coverage.json say the vocabulary is frozen. Changing the file's content reruns the
-    vocabulary and shard jobs; the ids follow the new file."""
+    coverage.json say the vocabulary is frozen. vocabulary.tsv keeps the frozen file's ids
+    (the same ids_sha256) with this build's counts, whatever counts the frozen file holds.
+    Changing the file's content reruns the vocabulary and shard jobs; the ids follow the new file."""
     run_workflow(tmp_path / "first", JOURNALS)
     original = tmp_path / "first" / "build" / "vocabulary.tsv"
-    frozen = frozen_variant(tmp_path, original, lambda rows: renumbered([*rows, *([0, f"unseenword{n}", 0, "word"] for n in range(5000))]))
+    extra = ([0, f"unseenword{n}", 0, "word"] for n in range(5000))
+    frozen = frozen_variant(tmp_path, original, lambda rows: renumbered([[i, t, 7, k] for i, t, _, k in rows] + list(extra)))
     run = run_workflow(tmp_path / "second", {**JOURNALS, "vocabulary": {"frozen": str(frozen)}})
     build = tmp_path / "second" / "build"
-    assert (build / "vocabulary.tsv").read_bytes() == frozen.read_bytes()
+    given, written = read_vocabulary(frozen), read_vocabulary(build / "vocabulary.tsv")
+    assert (written.tokens, written.kinds, written.ids_digest) == (given.tokens, given.kinds, given.ids_digest)
+    manifest = json.loads((build / "manifest.json").read_text())
+    assert manifest["vocabulary"]["ids_sha256"] == given.ids_digest
+    assert written.counts == train_stream_counts(build, given.size).tolist() != given.counts
+    assert written.counts[: read_vocabulary(original).size] == read_vocabulary(original).counts and not any(written.counts[-5000:])
     coverage = json.loads((build / "stats" / "coverage.json").read_text())
     assert coverage["frozen"] == str(frozen) and f"(frozen: {frozen})" in run.stderr
     chosen = [row for row in coverage["sizes"] if row["chosen"]]
-    assert len(chosen) == 1 and chosen[0]["size"] == coverage["words"] == read_vocabulary(frozen).size - 9
-    assert chosen[0]["dev_oov_rate"] == coverage["splits"]["dev"]["oov_rate"]
-    assert chosen[0]["train_coverage"] == pytest.approx(1 - coverage["splits"]["train"]["oov_rate"], abs=2e-6)
+    assert len(chosen) == 1 and chosen[0]["size"] == coverage["words"] == given.size - 9
+    assert chosen[0]["dev_oov_rate"] == coverage["splits"]["dev"]["unknown_rate"]
+    assert chosen[0]["train_coverage"] == pytest.approx(1 - coverage["splits"]["train"]["unknown_rate"], abs=2e-6)
     targets = np.concatenate([pq.read_table(p)["target"].to_numpy() for p in build.glob("shards/dev/ngram-*.parquet")])
     unknown = np.isin(targets, [1, 4, 5, 6, 7, 8])  # <unk> and the five shape classes
-    sentences = json.loads((build / "manifest.json").read_text())["splits"]["dev"]["sentences"]
-    assert unknown.sum() / (len(targets) - sentences) == pytest.approx(coverage["splits"]["dev"]["oov_rate"], abs=1e-6)
+    sentences = manifest["splits"]["dev"]["sentences"]
+    assert unknown.sum() / (len(targets) - sentences) == pytest.approx(coverage["splits"]["dev"]["unknown_rate"], abs=1e-6)
     with open(frozen, "a", encoding="utf-8") as handle:
-        handle.write(f"{read_vocabulary(frozen).size}\tlateword\t0\tword\n")
-    plan = run_workflow(tmp_path / "second", {**JOURNALS, "vocabulary": {"frozen": str(frozen)}}, "-n", "--quiet", "rules").stdout
-    assert "vocabulary" in plan and "shard" in plan and "prepare" not in plan
+        handle.write(f"{given.size}\tlateword\t0\tword\n")
+    plan = dry_run_rules(run_workflow(tmp_path / "second", {**JOURNALS, "vocabulary": {"frozen": str(frozen)}}, "-n"))
+    assert {"vocabulary", "shards", "vocabulary_table"} <= plan and "prepare" not in plan
     run_workflow(tmp_path / "second", {**JOURNALS, "vocabulary": {"frozen": str(frozen)}})
-    assert (build / "vocabulary.tsv").read_bytes() == frozen.read_bytes()
+    written = read_vocabulary(build / "vocabulary.tsv")
+    assert written.ids_digest == read_vocabulary(frozen).ids_digest and written.tokens[-1] == "lateword"
 
 
 def test_a_corpus_with_no_train_document_stops_at_the_vocabulary_saying_so(tmp_path: Path):
