@@ -27,6 +27,8 @@ except (settings.ConfigError, CorpusError) as error:
     sys.exit(f"corpusmill: {error}")
 
 L = PLAN.layout
+SUBWORD = CONFIG["units"] == "subword"  # ids from a sentencepiece model rather than a word cutoff
+BASELINE = CONFIG["baseline"]["enabled"]
 if workflow.is_main_process:
     PLAN.write_files()
     if os.path.exists(L.failed_jobs):
@@ -82,6 +84,7 @@ rule all:
     input:
         L.manifest,
         L.coverage,
+        [L.baseline] if BASELINE else [],
         L.croissant,
         L.datasheet,
         L.report,
@@ -101,7 +104,7 @@ onsuccess:
     import threading
 
     from steps import tidy, worker
-    from steps.summary import format_accounting, format_blocks, format_table
+    from steps.summary import format_accounting, format_baseline, format_blocks, format_table
 
     # Snakemake starts a 1-second rate-limit timer after each scheduling round and Python waits
     # for it at exit; the run is over, so end it now (0.8-1 s sooner, measured).
@@ -121,6 +124,8 @@ onsuccess:
         print(format_table(settings.read_json(L.coverage)), file=sys.stderr)
     if os.path.exists(L.manifest) and (blocks := format_blocks(settings.read_json(L.manifest))):
         print(blocks, file=sys.stderr)
+    if BASELINE and os.path.exists(L.baseline):
+        print(format_baseline(settings.read_json(L.baseline)), file=sys.stderr)
     if os.path.exists(L.accounting):
         print(format_accounting(settings.read_json(L.accounting), settings.read_json(L.corpus_plan), L.dropped), file=sys.stderr)
 

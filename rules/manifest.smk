@@ -7,6 +7,7 @@ rule manifest:
         accounting=L.accounting,
         vocabulary=L.vocabulary,
         coverage=L.coverage,
+        baseline=[L.baseline] if BASELINE else [],
         corpus=L.corpus_plan,
         model=[L.subword_model] if SUBWORD else [],
         options=L.options("manifest"),

@@ -1,5 +1,6 @@
 # What the build holds: the record of every document (steps/accounting.py), the vocabulary growth
-# curve (steps/growth.py) and the coverage statistics (steps/coverage.py).
+# curve (steps/growth.py), the coverage statistics (steps/coverage.py) and the n-gram baseline
+# (steps/baseline.py).
 
 rule accounting:
     input:
@@ -61,3 +62,22 @@ rule coverage:
         runtime=CONFIG["resources"]["runtime_min"],
     shell:
         step("coverage")
+
+
+rule baseline:
+    input:
+        stats=[L.shard_stats(c) for c in PLAN.chunk_keys],
+        ids=ids_input,  # only its size is read; the shards' statistics change with the ids
+        options=L.options("baseline"),
+    output:
+        L.baseline,
+    log:
+        L.log("baseline"),
+    params:
+        code=code_hash("baseline"),
+    threads: 1
+    resources:
+        mem_mb=CONFIG["resources"]["aggregate_mem_mb"],
+        runtime=CONFIG["resources"]["runtime_min"],
+    shell:
+        step("baseline")

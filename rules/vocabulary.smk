@@ -7,7 +7,6 @@
 # sample and the training settings; `subword_train` reads the sample as ancient input, so it runs
 # only for a key without a model: an edit to a dev or test document redraws the same sample.
 
-SUBWORD = CONFIG["units"] == "subword"
 SUBWORD_FROZEN = CONFIG["subword"]["frozen"]
 
 

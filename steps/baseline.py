@@ -1,10 +1,13 @@
-"""`corpusmill baseline BUILD …`: the n-gram baseline a neural model has to beat, from a finished build.
+"""Baseline: the n-gram model a neural model has to beat, from the build's stream shards.
 
-Reads the train, dev and test stream shards through steps.reader (each document is <s>, then
-every sentence's ids followed by </s>), counts train with steps.kneser_ney, and prints the
-perplexity of every split for each order 2..n, an add-one unigram baseline beside it, and the
-share of dev and test n-grams that occur in train. Nothing is rebuilt, so another order or
-smoothing costs one pass over the shards; `--arpa` writes the order-n model for other tools.
+Reads the train, dev and test stream shards (each document is <s>, then every sentence's ids
+followed by </s>), counts train with steps.kneser_ney, and gives the perplexity of every split
+for each order 2..n, an add-one unigram baseline beside it, and the share of dev and test
+n-grams that occur in train. Two entries: the workflow's `baseline` step (stats/baseline.json,
+with the options of the `baseline` section, reading the files the shard jobs recorded), and
+the command `corpusmill baseline BUILD …` on a finished build (through steps.reader), where
+another order or smoothing costs one pass over the shards and `--arpa` writes the order-n model
+for other tools.
 
 The leakage warning is our own rule: an n-gram model scores the text it was counted from far
 better than new text, so a held-out split whose perplexity at the highest order is below
@@ -21,12 +24,17 @@ from dataclasses import dataclass
 from pathlib import Path
 
 import numpy as np
+import pyarrow.parquet as pq
 
-from . import kneser_ney
+from . import job, kneser_ney
+from .formats import read_shard_stats, read_vocabulary
 from .kneser_ney import BOS_ID, EOS_ID, SMOOTHINGS, AddOneUnigram, KneserNey, SplitScore
+from .layout import SPLITS
 from .reader import MANIFEST, REBUILD, Build, BuildError, open_build
+from .storage import write_json
 
-SPLITS = ("train", "dev", "test")
+RULE = "baseline"
+SECTIONS = ("baseline", "windows.ngram")
 DEFAULT_ORDER = 4
 LEAK_RATIO = 1.1
 DOCUMENTS_PER_BATCH = 1024
@@ -73,17 +81,32 @@ def sentences(batch: dict, where: str, vocabulary_size: int) -> tuple[np.ndarray
     return tokens[tokens != EOS_ID], lengths
 
 
+Sentences = Callable[[], Iterator[tuple[np.ndarray, np.ndarray]]]
+
+
 def split_sentences(build: Build, split: str) -> Iterator[tuple[np.ndarray, np.ndarray]]:
     """The split's sentences, a bounded number of documents at a time, in manifest order."""
     for batch in build.batches(split, "stream", DOCUMENTS_PER_BATCH):
         yield sentences(batch, f"{build.root}: split {split}", build.vocabulary.size)
 
 
+def file_sentences(paths: list[Path], where: str, vocabulary_size: int) -> Iterator[tuple[np.ndarray, np.ndarray]]:
+    """The sentences of stream shard files, a bounded number of documents at a time, in the
+    order given (the workflow's step, before any manifest exists)."""
+    for path in paths:
+        for batch in pq.ParquetFile(path).iter_batches(DOCUMENTS_PER_BATCH, columns=["doc_id", "ids"], use_threads=False):
+            lists = batch.column("ids")
+            offsets = lists.offsets.to_numpy().astype(np.int64)
+            rows = {"ids": lists.flatten().to_numpy(), "offsets": offsets - offsets[0],
+                    "doc_id": batch.column("doc_id").to_numpy(zero_copy_only=False)}
+            yield sentences(rows, f"{where}: {path}", vocabulary_size)
+
+
 @dataclass(frozen=True)
 class Baseline:
     """Everything the command reports."""
 
-    build: Path
+    name: str  # what was scored: the build folder
     order: int
     smoothing: str
     vocabulary_size: int
@@ -124,7 +147,6 @@ class Baseline:
             }
 
         return {
-            "build": str(self.build),
             "order": self.order,
             "smoothing": self.smoothing,
             "vocabulary_size": self.vocabulary_size,
@@ -150,7 +172,7 @@ def format_baseline(baseline: Baseline) -> str:
     name = {"modified": "interpolated modified Kneser-Ney", "interpolated": "interpolated Kneser-Ney"}[baseline.smoothing]
     train = scores["train"]
     lines = [
-        f"baseline of {baseline.build}: {name} (Chen and Goodman 1998), order {baseline.order}, "
+        f"baseline of {baseline.name}: {name} (Chen and Goodman 1998), order {baseline.order}, "
         f"counted on train ({train.tokens:,} predicted tokens)",
         f"vocabulary: {baseline.vocabulary_size:,} ids, {kneser_ney.predictable(baseline.vocabulary_size):,} predictable",
         "",
@@ -186,35 +208,71 @@ def default_order(build: Build) -> int:
     return DEFAULT_ORDER
 
 
-def run(build: Build, order: int | None, smoothing: str) -> Baseline:
-    """Count train, estimate the models of orders 2..n, and score every split."""
-    missing = [split for split in SPLITS if split in build.splits and "stream" not in build.kinds(split)]
-    if "train" not in build.splits or missing:
-        raise fail(f"{build.root / MANIFEST}: no stream shards for {', '.join(missing) or 'train'}; "
-                   f"the baseline reads each split's document streams: {ENABLE_STREAMS}")
-    order = default_order(build) if order is None else order
-    size = build.vocabulary.size
+def score(name: str, splits: dict[str, Sentences | None], vocabulary_size: int, order: int, smoothing: str) -> Baseline:
+    """Count train, estimate the models of orders 2..n, and score every split (`splits` gives
+    each split's sentences, None for a split without documents)."""
     try:
-        counter = kneser_ney.NgramCounter(order, size)
+        counter = kneser_ney.NgramCounter(order, vocabulary_size)
     except ValueError as error:
-        raise fail(f"--order {order}: {error}") from None
-    for ids, lengths in split_sentences(build, "train"):
+        raise fail(f"order {order}: {error}") from None
+    train = splits["train"]
+    if train is None:
+        raise fail(f"{name}: the train split has no documents; nothing to count")
+    for ids, lengths in train():
         counter.add(ids, lengths)
     counts = counter.finish()
     if not counts.tokens:
-        raise fail(f"{build.root / MANIFEST}: the train split has no sentences; nothing to count")
+        raise fail(f"{name}: the train split has no sentences; nothing to count")
     models = kneser_ney.estimate_models(counts, smoothing, range(2, order + 1))
     unigram = AddOneUnigram.of(counts)
     scores: dict[str, SplitScore | None] = {"train": kneser_ney.training_score(models, unigram)}
     for split in ("dev", "test"):
-        if split not in build.splits:
+        read = splits.get(split)
+        if read is None:
             scores[split] = None
             continue
-        score = SplitScore()
-        for ids, lengths in split_sentences(build, split):
-            kneser_ney.score_split(score, models, unigram, ids, lengths)
-        scores[split] = score
-    return Baseline(build.root, order, smoothing, size, scores, models[order])
+        figures = SplitScore()
+        for ids, lengths in read():
+            kneser_ney.score_split(figures, models, unigram, ids, lengths)
+        scores[split] = figures
+    return Baseline(name, order, smoothing, vocabulary_size, scores, models[order])
+
+
+def run(build: Build, order: int | None, smoothing: str) -> Baseline:
+    """The baseline of a finished build, read through steps.reader."""
+    missing = [split for split in SPLITS if split in build.splits and "stream" not in build.kinds(split)]
+    if "train" not in build.splits or missing:
+        raise fail(f"{build.root / MANIFEST}: no stream shards for {', '.join(missing) or 'train'}; "
+                   f"the baseline reads each split's document streams: {ENABLE_STREAMS}")
+    splits: dict[str, Sentences | None] = {
+        split: (lambda split=split: split_sentences(build, split)) if split in build.splits else None for split in SPLITS
+    }
+    return score(str(build.root), splits, build.vocabulary.size, default_order(build) if order is None else order, smoothing)
+
+
+def step_order(options: dict) -> int:
+    """baseline.order, else the n of the n-gram rows (when enabled), else DEFAULT_ORDER."""
+    ngram = options["windows"]["ngram"]
+    return options["baseline"]["order"] or (ngram["n"] if ngram["enabled"] else DEFAULT_ORDER)
+
+
+def step(argv: list[str] | None = None) -> None:
+    """The workflow's step: stats/baseline.json from the stream shards the shard jobs wrote."""
+    run_ = job.start(argv, RULE, "Count an n-gram baseline on train and score every split.")
+    layout = run_.layout
+    files: dict[str, list[Path]] = {split: [] for split in SPLITS}
+    for chunk in run_.chunks():
+        for written in read_shard_stats(layout.shard_stats(chunk)).files:
+            if written.kind == "stream":
+                files[written.split].append(Path(layout.root, written.file))
+    size = read_vocabulary(layout.ids).size
+    splits: dict[str, Sentences | None] = {
+        split: (lambda paths=paths, split=split: file_sentences(paths, f"split {split}", size)) if paths else None
+        for split, paths in files.items()
+    }
+    baseline = score(layout.root, splits, size, step_order(run_.options), run_.options["baseline"]["smoothing"])
+    write_json(layout.baseline, baseline.to_json())
+    print(format_baseline(baseline))
 
 
 def _order(text: str) -> int:
@@ -227,7 +285,8 @@ def _order(text: str) -> int:
     return value
 
 
-def main(argv: list[str] | None = None) -> None:
+def command(argv: list[str] | None = None) -> None:
+    """`corpusmill baseline BUILD …`."""
     parser = argparse.ArgumentParser(
         prog="corpusmill baseline",
         description="Perplexity of Kneser-Ney n-gram models counted on a build's train split, on every split "
@@ -263,6 +322,8 @@ def main(argv: list[str] | None = None) -> None:
         if args.arpa:
             print(f"ARPA model written to {args.arpa} ({', '.join(f'{v:,} {k}-grams' for k, v in written.items())})")
 
+
+main = step
 
 if __name__ == "__main__":
     main()

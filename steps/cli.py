@@ -7,11 +7,12 @@ import os
 import signal
 import sys
 
+# command → (step module, its function taking the arguments, summary)
 COMMANDS = {
-    "audit": ("audit", "check a build folder against its manifest"),
-    "baseline": ("baseline", "n-gram (Kneser-Ney) perplexity of every split: the baseline to beat"),
-    "cutoffs": ("cutoffs", "what a different vocabulary cutoff would give, from the stored counts"),
-    "progress": ("progress", "where each running job of a build is, from its log"),
+    "audit": ("audit", "main", "check a build folder against its manifest"),
+    "baseline": ("baseline", "command", "n-gram (Kneser-Ney) perplexity of every split: the baseline to beat"),
+    "cutoffs": ("cutoffs", "main", "what a different vocabulary cutoff would give, from the stored counts"),
+    "progress": ("progress", "main", "where each running job of a build is, from its log"),
 }
 
 
@@ -19,13 +20,13 @@ def main(argv: list[str] | None = None) -> None:
     args = sys.argv[1:] if argv is None else argv
     if not args or args[0] not in COMMANDS:
         lines = ["usage: corpusmill COMMAND [options]", "", "commands:"]
-        lines += [f"  {name:<10} {summary}" for name, (_, summary) in COMMANDS.items()]
+        lines += [f"  {name:<10} {summary}" for name, (_, _, summary) in COMMANDS.items()]
         lines += ["", "Build with snakemake (see README); `corpusmill COMMAND --help` for options."]
         print("\n".join(lines), file=sys.stderr)
         raise SystemExit(0 if args[:1] in (["-h"], ["--help"]) else 2)
-    module, _ = COMMANDS[args[0]]
+    module, function, _ = COMMANDS[args[0]]
     try:
-        importlib.import_module(f"{__package__}.{module}").main(args[1:])
+        getattr(importlib.import_module(f"{__package__}.{module}"), function)(args[1:])
         sys.stdout.flush()
     except BrokenPipeError:
         # The reader of our output went away (`corpusmill cutoffs --json | head`): stop quietly,

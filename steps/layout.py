@@ -57,6 +57,10 @@ class Layout:
         return self._join("stats", "growth.json")
 
     @property
+    def baseline(self) -> str:
+        return self._join("stats", "baseline.json")
+
+    @property
     def accounting(self) -> str:
         return self._join("stats", "accounting.json")
 

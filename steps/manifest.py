@@ -25,11 +25,18 @@ SCHEMA_VERSION = 2
 
 
 def build_manifest(
-    config: dict, corpus: dict, layout: Layout, accounting: dict, stats: Sequence[ShardStats], inputs: dict[str, dict], extra_files: Sequence[str]
+    config: dict,
+    corpus: dict,
+    layout: Layout,
+    accounting: dict,
+    stats: Sequence[ShardStats],
+    inputs: dict[str, dict],
+    extra_files: Sequence[str],
+    baseline: dict | None = None,
 ) -> dict:
     """The manifest from the shard jobs' statistics (every file with rows, bytes and SHA-256, as
-    written), the accounting, the corpus survey and the inputs' sizes and SHA-256 (hashed by
-    the prepare jobs while they read them)."""
+    written), the accounting, the corpus survey, the inputs' sizes and SHA-256 (hashed by the
+    prepare jobs while they read them) and, when counted, the n-gram baseline's figures."""
     base = Path(layout.root)
     vocabulary = read_vocabulary(layout.vocabulary)
     splits = {}
@@ -77,6 +84,7 @@ def build_manifest(
         "files": {Path(p).relative_to(base).as_posix(): file_sha256(p) for p in extra_files},
         "splits": splits,
         "accounting": accounting,
+        **({"baseline": baseline} if baseline is not None else {}),
     }
 
 
@@ -87,9 +95,12 @@ def main(argv: list[str] | None = None) -> None:
     inputs: dict[str, dict] = {}
     for chunk in chunks:
         inputs.update(read_json(layout.tally(chunk))["inputs"])
+    counted = run.options["baseline"]["enabled"]
+    extra = [layout.coverage, *([layout.baseline] if counted else [])]
     manifest = build_manifest(
-        run.options, read_json(layout.corpus_plan), layout, read_json(layout.accounting), stats, inputs, [layout.coverage]
-    )
+        run.options, read_json(layout.corpus_plan), layout, read_json(layout.accounting), stats, inputs, extra,
+        read_json(layout.baseline) if counted else None,
+    )  # fmt: skip
     write_json(layout.manifest, manifest)
     print(json.dumps({key: value for key, value in manifest["accounting"].items() if key != "files"}, sort_keys=True))
 

@@ -36,7 +36,7 @@ STEPS_DIR = Path(__file__).resolve().parent
 # entries runs as several rules named `<module>_<entry>` (rules/*.smk).
 RULES = (
     "abbreviations", "prepare", "deduplicate", "subword_sample", "subword_train", "subword_model", "vocabulary", "shards",
-    "vocabulary_table", "accounting", "growth", "coverage", "manifest", "croissant", "datasheet", "report",
+    "vocabulary_table", "accounting", "growth", "coverage", "baseline", "manifest", "croissant", "datasheet", "report",
 )  # fmt: skip
 
 

@@ -316,6 +316,36 @@ def accounting_section(manifest: dict, unit: str) -> tuple[str, str, str]:
     ]))
 
 
+def baseline_section(baseline: dict) -> tuple[str, str, str]:
+    """The n-gram model a neural model has to beat: perplexity per split and order, the share of
+    held-out n-grams seen in train, and the warnings (from stats/baseline.json)."""
+    order, splits = baseline["order"], baseline["splits"]
+    orders = range(2, order + 1)
+
+    def value(split: str, pick: Callable[[dict], float]) -> object:
+        figures = splits.get(split)
+        return Shown(f"{pick(figures):,.2f}") if figures and figures["tokens"] else Shown(DASH)
+
+    rows = [[f"order {k}"] + [value(split, lambda f, k=k: f["perplexity"][str(k)]) for split in SPLITS] for k in orders]
+    rows.append(["add-one unigram"] + [value(split, lambda f: f["unigram_perplexity"]) for split in SPLITS])
+    rows.append(["predicted tokens"] + [(splits.get(split) or {}).get("tokens", 0) for split in SPLITS])
+    held_out = [split for split in SPLITS if split != "train"]
+    seen = [[f"{k}-grams"] + [Shown(f"{splits[s]['seen_in_train'][str(k)]:.1%}") if splits.get(s) and splits[s]["tokens"] else Shown(DASH)
+                              for s in held_out] for k in range(1, order + 1)]
+    warnings = "".join(f"<p><strong>Warning</strong>: {html.escape(w)}.</p>" for w in baseline["warnings"])
+    name = {"modified": "interpolated modified Kneser–Ney", "interpolated": "interpolated Kneser–Ney"}[baseline["smoothing"]]
+    return ("baseline", "The n-gram model to beat", "".join([
+        f"<p>Perplexity of {name} models (Chen &amp; Goodman 1998) of orders 2 to {order}, counted on the train ids of this "
+        f"build, on every split; a neural model of these ids should score below them on dev and test. Conventions: "
+        f"{html.escape(baseline['conventions'])}. Another order or smoothing: <code>corpusmill baseline BUILD --order N</code>.</p>",
+        warnings,
+        table(["perplexity"] + list(SPLITS), rows),
+        "<p>Share of the predicted tokens of dev and test whose n-gram (the token with its n−1 preceding ids) occurs in train. "
+        "A high share at the highest order means the held-out text repeats train's.</p>",
+        table(["seen in train"] + held_out, seen),
+    ]))
+
+
 def sizing_section(size: int, options: dict, context_unit: str) -> tuple[str, str, str]:
     """Parameters, bytes and softmax cost of a feed-forward model over `size` ids."""
     report = options["report"]
@@ -520,6 +550,8 @@ def render(coverage: dict, manifest: dict, counts: pa.Table, growth: tuple[np.nd
     sections.append(unknown_section(coverage, unit))
     sections += later
     sections.append(accounting_section(manifest, unit))
+    if "baseline" in manifest:
+        sections.append(baseline_section(manifest["baseline"]))
     sections.append(sizing_section(size, options, "pieces" if pieces else "words"))
     lead = (f"{splits['train']['tokens']:,} train pieces, subword model of {size:,} ids" if pieces
             else f"{splits['train']['tokens']:,} train tokens, {coverage['words']:,} words kept")

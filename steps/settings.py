@@ -169,6 +169,11 @@ def resolve(raw: dict[str, Any]) -> dict[str, Any]:
         )
     if not any(config["windows"][kind]["enabled"] for kind in ("ngram", "blocks", "streams")):
         raise ConfigError("invalid configuration: windows: allowed: at least one of ngram, blocks, streams enabled")
+    if config["baseline"]["enabled"] and not config["windows"]["streams"]["enabled"]:
+        raise ConfigError(
+            "invalid configuration: baseline.enabled = true needs windows.streams.enabled = true (the baseline counts the "
+            "document streams): enable the streams, or set baseline.enabled: false"
+        )
     return config
 
 

@@ -149,3 +149,28 @@ def format_blocks(manifest: dict) -> str:
             "last partial block is dropped): use a smaller windows.blocks.length, span: corpus or remainder: pad"
         )
     return line
+
+
+SMOOTHING_NAMES = {"modified": "interpolated modified Kneser-Ney", "interpolated": "interpolated Kneser-Ney"}
+
+
+def format_baseline(baseline: dict) -> str:
+    """The n-gram baseline's perplexity per split at its highest order, with the add-one unigram
+    beside it, and its warnings."""
+    order, splits = str(baseline["order"]), baseline["splits"]
+
+    def perplexity(split: str, key: str) -> str:
+        figures = splits.get(split)
+        if not figures or not figures["tokens"]:
+            return f"{split} {DASH}"
+        value = figures["perplexity"][order] if key == "order" else figures["unigram_perplexity"]
+        return f"{split} {value:,.2f}"
+
+    lines = [
+        f"n-gram baseline ({SMOOTHING_NAMES[baseline['smoothing']]}, order {order}, counted on train): perplexity "
+        + ", ".join(perplexity(split, "order") for split in SPLITS)
+        + "; add-one unigram "
+        + ", ".join(perplexity(split, "unigram") for split in SPLITS)
+    ]
+    lines += [f"warning: {warning}" for warning in baseline["warnings"]]
+    return "\n".join(lines)

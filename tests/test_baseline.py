@@ -22,7 +22,7 @@ FORTUNE_FILES = ["fortunes", "computers", "science", "wisdom", "work", "law"]
 
 
 def run_command(capsys: pytest.CaptureFixture, *args: str) -> str:
-    baseline.main([str(a) for a in args])
+    baseline.command([str(a) for a in args])
     return capsys.readouterr().out
 
 
@@ -50,6 +50,39 @@ def test_the_demo_build_has_perplexity_per_split_and_order_and_no_warning(demo_b
     assert figures["discounts"][str(n)]["counts"] == "raw" and figures["discounts"]["1"]["counts"] == "continuation"
     assert "</s> after it are predicted" in figures["conventions"] and "unknown classes are ordinary tokens" in figures["conventions"]
     assert figures["warnings"] == []
+
+
+def test_the_workflow_counts_the_same_baseline_as_the_command(demo_build: Path, capsys: pytest.CaptureFixture) -> None:
+    """The workflow's step reads the stream files its shard jobs recorded, before any manifest;
+    the command reads a finished build through the reader: the same figures either way, in
+    stats/baseline.json, in the manifest and on the report page."""
+    recorded = json.loads((demo_build / "stats" / "baseline.json").read_text(encoding="utf-8"))
+    assert recorded == json.loads(run_command(capsys, demo_build, "--json"))
+    assert json.loads((demo_build / "manifest.json").read_text(encoding="utf-8"))["baseline"] == recorded
+    page = (demo_build / "report" / "index.html").read_text(encoding="utf-8")
+    section = page[page.index('<section id="baseline">') :].split("</section>", 1)[0]
+    for split in ("train", "dev", "test"):
+        assert f'<td class="n">{recorded["splits"][split]["perplexity"]["4"]:,.2f}</td>' in section
+
+
+def test_the_summary_line_gives_the_highest_order_and_the_unigram_per_split(demo_build: Path) -> None:
+    from corpusmill.summary import format_baseline
+
+    recorded = json.loads((demo_build / "stats" / "baseline.json").read_text(encoding="utf-8"))
+    line = format_baseline(recorded)
+    dev = recorded["splits"]["dev"]
+    assert line.startswith("n-gram baseline (interpolated modified Kneser-Ney, order 4, counted on train): perplexity train ")
+    assert f"dev {dev['perplexity']['4']:,.2f}" in line and f"dev {dev['unigram_perplexity']:,.2f}" in line
+    empty = {**recorded, "splits": {**recorded["splits"], "test": None}, "warnings": ["w"]}
+    assert "test —" in format_baseline(empty) and format_baseline(empty).endswith("\nwarning: w")
+
+
+def test_the_baseline_needs_the_streams_and_says_which_options_to_change() -> None:
+    from corpusmill.settings import ConfigError, resolve
+
+    with pytest.raises(ConfigError, match=r"baseline.enabled = true needs windows.streams.enabled = true"):
+        resolve({"windows": {"streams": {"enabled": False}}})
+    assert not resolve({"windows": {"streams": {"enabled": False}}, "baseline": {"enabled": False}})["baseline"]["enabled"]
 
 
 def test_the_text_report_shows_the_figures_of_the_json(demo_build: Path, capsys: pytest.CaptureFixture) -> None:
@@ -88,15 +121,15 @@ def test_a_build_without_stream_shards_is_refused_saying_how_to_enable_them(demo
     (copy / "manifest.json").write_text(json.dumps(manifest), encoding="utf-8")
     with pytest.raises(SystemExit, match=r"^corpusmill: .*manifest\.json: no stream shards for train, dev, test; .*"
                        r"set windows\.streams\.enabled: true in the workflow config and rerun"):
-        baseline.main([str(copy)])
+        baseline.command([str(copy)])
 
 
 def test_an_order_below_two_and_a_missing_build_are_refused(tmp_path: Path, capsys: pytest.CaptureFixture) -> None:
     with pytest.raises(SystemExit):
-        baseline.main([str(tmp_path), "--order", "1"])
+        baseline.command([str(tmp_path), "--order", "1"])
     assert "the order must be at least 2" in capsys.readouterr().err
     with pytest.raises(SystemExit, match=r"^corpusmill: .*manifest\.json: missing"):
-        baseline.main([str(tmp_path)])
+        baseline.command([str(tmp_path)])
 
 
 def stream_batch(*documents: list[int]) -> dict:
@@ -164,9 +197,14 @@ def test_a_build_whose_dev_copies_train_warns_and_an_honest_one_does_not(
     for copy in ("a", "b"):
         shutil.copytree(fortune_corpus, doubled / copy)
     leaking = tmp_path / "leaking"
-    run_workflow(leaking, {"corpus": {"root": str(doubled)}, "split": {"key": "id", "deduplicate": False}})
+    result = run_workflow(leaking, {"corpus": {"root": str(doubled)}, "split": {"key": "id", "deduplicate": False}})
     figures = json.loads(run_command(capsys, leaking / "build", "--json"))
     warnings = figures["warnings"]
     assert any(w.startswith("dev perplexity ") and "below 1.1 x train's" in w for w in warnings), warnings
     assert any(w.startswith("test perplexity ") for w in warnings), warnings
     assert "warning: dev perplexity" in run_command(capsys, leaking / "build")
+    # The workflow counted the same baseline: its summary, report and manifest carry the warnings.
+    assert f"warning: {warnings[0]}" in result.stderr
+    assert json.loads((leaking / "build" / "manifest.json").read_text(encoding="utf-8"))["baseline"]["warnings"] == warnings
+    page = (leaking / "build" / "report" / "index.html").read_text(encoding="utf-8")
+    assert "<strong>Warning</strong>: dev perplexity" in page
