@@ -39,7 +39,7 @@ class CleanOptions:
     min_letter_share: float = 0.5
 
     @classmethod
-    def from_config(cls, clean: dict) -> "CleanOptions":
+    def from_config(cls, clean: dict) -> CleanOptions:
         return cls(**clean)
 
 

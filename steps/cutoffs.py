@@ -85,12 +85,12 @@ class WordList:
     words: pa.Array
 
     @classmethod
-    def of(cls, vocabulary: Vocabulary) -> "WordList":
+    def of(cls, vocabulary: Vocabulary) -> WordList:
         start = vocabulary.first_word_id
         return cls(start, pa.array(vocabulary.tokens[start:], pa.string()))
 
     @classmethod
-    def read(cls, path: Path) -> "WordList":
+    def read(cls, path: Path) -> WordList:
         """The word list of a vocabulary.tsv (steps.formats.read_vocabulary checks it)."""
         try:
             vocabulary = read_vocabulary(path)

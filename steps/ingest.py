@@ -79,7 +79,7 @@ class ReadOptions:
     max_decompressed_bytes: int = 8 << 30
 
     @classmethod
-    def from_config(cls, corpus: dict) -> "ReadOptions":
+    def from_config(cls, corpus: dict) -> ReadOptions:
         return cls(
             text_unit=corpus["text_unit"],
             jsonl_text_field=corpus["jsonl_text_field"],

@@ -305,7 +305,7 @@ class _Rows:
         self.stream = stream
 
     @classmethod
-    def from_table(cls, kind: str, table: pa.Table) -> "_Rows":
+    def from_table(cls, kind: str, table: pa.Table) -> _Rows:
         if kind == "ngram":
             context = _single(table.column("context"))
             width = context.type.list_size
@@ -325,7 +325,7 @@ class _Rows:
     def __len__(self) -> int:
         return len(self.columns["doc_id" if self.stream else next(iter(self.columns))])
 
-    def slice(self, start: int, stop: int) -> "_Rows":
+    def slice(self, start: int, stop: int) -> _Rows:
         if not self.stream:
             return _Rows({name: value[start:stop] for name, value in self.columns.items()}, stream=False)
         columns = dict(self.columns)
@@ -338,7 +338,7 @@ class _Rows:
         offsets = self.columns["offsets"]
         return self.columns["ids"][offsets[0] : offsets[-1]], offsets - offsets[0]
 
-    def take(self, order: np.ndarray) -> "_Rows":
+    def take(self, order: np.ndarray) -> _Rows:
         """The rows in the given order (a copy; np.take is several times faster than fancy indexing here)."""
         if not self.stream:
             return _Rows({name: np.take(value, order, axis=0) for name, value in self.columns.items()}, stream=False)
@@ -351,7 +351,7 @@ class _Rows:
         return _Rows({"ids": ids, "offsets": placed, "doc_id": self.columns["doc_id"][order]}, stream=True)
 
     @staticmethod
-    def concat(parts: list["_Rows"]) -> "_Rows":
+    def concat(parts: list[_Rows]) -> _Rows:
         """The parts' rows one after another (a copy)."""
         if len(parts) == 1:
             return parts[0]

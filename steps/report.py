@@ -526,7 +526,7 @@ def render(coverage: dict, manifest: dict, counts: pa.Table, growth: tuple[np.nd
     # unknown tokens, by the words missing and where they go.
     description = model_sections(coverage) if pieces else cutoff_sections(coverage, coverage_curve(counts), options)
     sections, later = (description, []) if pieces else (description[:1], description[1:])
-    described = "the {:,} pieces used in train".format(int(ranks.max()) if len(ranks) else 0) if pieces else (
+    described = f"the {int(ranks.max()) if len(ranks) else 0:,} pieces used in train" if pieces else (
         f"{int(ranks.max()) if len(ranks) else 0:,} train types")
     note = ("A small piece inventory rarely follows one straight line: single characters and frequent short pieces fill the head, "
             "rarely used byte pieces the tail, so read s as a summary of the slope rather than as the word law." if pieces

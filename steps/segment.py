@@ -131,7 +131,7 @@ class Segmenter:
             self._tokens = unicode_breaks.word_tokenizer(self.apostrophes, self.hyphens)
 
     @classmethod
-    def from_config(cls, segment: dict, learned: frozenset[str] = frozenset()) -> "Segmenter":
+    def from_config(cls, segment: dict, learned: frozenset[str] = frozenset()) -> Segmenter:
         return cls(
             sentences_mode=segment["sentences"],
             line_ends=segment["line_ends"],

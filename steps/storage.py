@@ -72,7 +72,7 @@ class ParquetSink:
         self._writer.close()
         self._temporary.unlink(missing_ok=True)
 
-    def __enter__(self) -> "ParquetSink":
+    def __enter__(self) -> ParquetSink:
         return self
 
     def __exit__(self, kind: object, *_: object) -> None:

@@ -10,7 +10,7 @@ Every function here is pure and runs in time linear in its input.
 from __future__ import annotations
 
 from collections.abc import Callable
-from functools import lru_cache
+from functools import cache, lru_cache
 
 import regex
 
@@ -112,7 +112,7 @@ def _joined_hyphen_tokenizer(apostrophes: str) -> Callable[[str], list[str]]:
     return tokens
 
 
-@lru_cache(maxsize=None)
+@cache
 def word_tokenizer(apostrophes: str = "keep", hyphens: str = "keep") -> Callable[[str], list[str]]:
     """The function `word_tokens` applies for these modes, for callers that tokenize many texts."""
     if (apostrophes, hyphens) not in _WORD_PATTERNS:

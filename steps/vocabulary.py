@@ -118,7 +118,7 @@ class Cutoff:
     coverage: float | None = None
 
     @classmethod
-    def from_config(cls, vocabulary: dict) -> "Cutoff":
+    def from_config(cls, vocabulary: dict) -> Cutoff:
         return cls(vocabulary["min_count"], vocabulary["max_size"], vocabulary["coverage"])
 
 
