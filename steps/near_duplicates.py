@@ -44,7 +44,7 @@ from __future__ import annotations
 import functools
 import hashlib
 import math
-from collections.abc import Callable, Iterable
+from collections.abc import Callable, Iterable, Iterator
 from dataclasses import dataclass
 
 import numpy as np
@@ -408,27 +408,26 @@ class ClusterStats:
 RUN_LIMIT = 64
 
 
-def _run_pairs(members: np.ndarray, run_starts: np.ndarray, limit: int, stats: ClusterStats) -> np.ndarray:
-    """Candidate pairs among runs of `members` (grouped, run r = members[run_starts[r]:
-    run_starts[r + 1]]): all pairs in runs of at most `limit`, else each member with the
-    run's first and with its predecessor."""
+def _run_pairs(members: np.ndarray, run_starts: np.ndarray, limit: int, stats: ClusterStats) -> Iterator[np.ndarray]:
+    """Candidate pairs among runs of `members` (run r = members[run_starts[r]:run_starts[r + 1]]),
+    a batch at a time: in runs of at most `limit` members every pair, by the gap between the
+    two members (gap 1 first, so most later pairs are already joined and never fetched); in
+    longer runs each member with the run's first and with its predecessor."""
     sizes = np.diff(run_starts)
     run_of = np.repeat(np.arange(len(sizes)), sizes)
     position = np.arange(len(members))
     end = run_starts[1:][run_of]
     small = sizes[run_of] <= limit
-    pieces = []
     for gap in range(1, int(min(sizes.max(initial=1), limit))):
         take = np.flatnonzero(small & (position + gap < end))
         if not len(take):
             break
-        pieces.append(np.stack([members[take], members[take + gap]], axis=1))
+        yield np.stack([members[take], members[take + gap]], axis=1)
     big = np.flatnonzero(~small & (position > run_starts[:-1][run_of]))
     if len(big):
         stats.long_runs += int(np.count_nonzero(sizes > limit))
-        pieces.append(np.stack([members[run_starts[:-1][run_of[big]]], members[big]], axis=1))
-        pieces.append(np.stack([members[big - 1], members[big]], axis=1))
-    return np.concatenate(pieces) if pieces else np.zeros((0, 2), dtype=np.int64)
+        yield np.stack([members[run_starts[:-1][run_of[big]]], members[big]], axis=1)
+        yield np.stack([members[big - 1], members[big]], axis=1)
 
 
 def _grouped(keys: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
@@ -460,8 +459,8 @@ def cluster(
     band, rows sharing a key are reduced to one row per distinct digest, paired, and a pair
     not yet joined is confirmed by fetching both signatures (`signatures_of(rows)` returns
     their rows, any dtype) and comparing slots. Memory: about 40 bytes a document (one band
-    column, its sort order, the digests, the union-find) plus the candidate pairs of a band and
-    their signatures."""
+    column, its sort order, the digests, the union-find) plus one batch of candidate pairs (at
+    most one a document) and their signatures."""
     found = UnionFind(len(digests))
     stats = ClusterStats()
     rows, run_starts = _grouped(digests)
@@ -478,20 +477,17 @@ def cluster(
         first = np.concatenate([[True], (run_of[1:] != run_of[:-1]) | (digests[rows[1:]] != digests[rows[:-1]])])
         rows, run_of = rows[first], run_of[first]
         kept_starts = np.append(np.flatnonzero(np.concatenate([[True], run_of[1:] != run_of[:-1]])), len(rows))
-        pairs = _run_pairs(rows, kept_starts, limit, stats)
-        if not len(pairs):
-            continue
-        pairs = pairs[found.roots(pairs[:, 0]) != found.roots(pairs[:, 1])]
-        if not len(pairs):
-            continue
-        pairs = np.unique(np.sort(pairs, axis=1), axis=0)
-        involved, inverse = np.unique(pairs, return_inverse=True)
-        fetched = signatures_of(involved)
-        inverse = inverse.reshape(pairs.shape)
-        agree = estimated_jaccard(fetched[inverse[:, 0]], fetched[inverse[:, 1]]) >= threshold
-        stats.compared += len(pairs)
-        stats.confirmed += int(agree.sum())
-        found.union(pairs[agree, 0], pairs[agree, 1])
+        for pairs in _run_pairs(rows, kept_starts, limit, stats):
+            pairs = pairs[found.roots(pairs[:, 0]) != found.roots(pairs[:, 1])]
+            if not len(pairs):
+                continue
+            involved, inverse = np.unique(pairs, return_inverse=True)
+            fetched = signatures_of(involved)
+            inverse = inverse.reshape(pairs.shape)
+            agree = estimated_jaccard(fetched[inverse[:, 0]], fetched[inverse[:, 1]]) >= threshold
+            stats.compared += len(pairs)
+            stats.confirmed += int(agree.sum())
+            found.union(pairs[agree, 0], pairs[agree, 1])
     return found, stats
 
 
