@@ -10,8 +10,8 @@ number of its grams; a document without words has no share (NaN). n = 13 is comm
 of 13 words rarely recurs by chance in natural text.
 
 The train grams are kept exactly: a sorted array of distinct uint64 hashes, 8 bytes a distinct
-train gram, built by sorting each batch and merging sorted runs of similar size (so each hash
-takes part in O(log) merges; the last merge holds twice the set). For bounded memory the hash
+train gram, built by sorting each batch and merging the sorted batches into the set once they
+add up to the set's size (so each hash takes part in few merges; a merge holds twice the set). For bounded memory the hash
 space splits into `parts` equal ranges (`part_of`); a job holds one part's set at a time and
 adds the shared counts of all parts up. Two different grams share a hash with probability
 2**-64, so a share counts a false match with a chance of about (distinct train grams) * 2**-64
@@ -37,37 +37,49 @@ def part_of(hashes: np.ndarray, parts: int) -> np.ndarray:
     return np.searchsorted(inner, hashes, side="right")
 
 
-def _merge(first: np.ndarray, second: np.ndarray) -> np.ndarray:
-    """The distinct values of two sorted arrays, sorted (a stable sort merges the two runs)."""
-    merged = np.concatenate([first, second])
+def _merge(runs: list[np.ndarray]) -> np.ndarray:
+    """The distinct values of sorted arrays, sorted (a stable sort merges sorted runs)."""
+    merged = np.concatenate(runs)
     merged.sort(kind="stable")
     keep = np.ones(len(merged), dtype=bool)
     keep[1:] = merged[1:] != merged[:-1]
     return merged[keep]
 
 
-class TrainGrams:
-    """The distinct train gram hashes of one part of the hash space, gathered batch by batch."""
+# Hashes held in sorted batches before they are merged into the set: merging only once the
+# batches add up to this many or to the set's size keeps each hash in few merges.
+PENDING = 1 << 22
 
-    def __init__(self, part: int = 0, parts: int = 1) -> None:
-        self.part, self.parts = part, parts
-        self.runs: list[np.ndarray] = []
+
+class TrainGrams:
+    """The distinct train gram hashes of one part of the hash space, gathered batch by batch.
+    Memory: the set (8 bytes a distinct gram) plus at most max(`pending`, set size) pending
+    hashes, twice that while merging."""
+
+    def __init__(self, part: int = 0, parts: int = 1, pending: int = PENDING) -> None:
+        self.part, self.parts, self.budget = part, parts, pending
+        self.merged = np.zeros(0, dtype=np.uint64)
+        self.pending: list[np.ndarray] = []
+        self.held = 0
 
     def add(self, grams: np.ndarray) -> None:
         """Take in a batch of train gram hashes (any order, repeats allowed)."""
         if self.parts > 1:
             grams = grams[part_of(grams, self.parts) == self.part]
-        self.runs.append(np.unique(grams))
-        while len(self.runs) > 1 and len(self.runs[-2]) <= 2 * len(self.runs[-1]):
-            last = self.runs.pop()
-            self.runs[-1] = _merge(self.runs[-1], last)
+        self.pending.append(np.unique(grams))
+        self.held += len(self.pending[-1])
+        if self.held >= max(self.budget, len(self.merged)):
+            self._merge()
+
+    def _merge(self) -> None:
+        self.merged = _merge([self.merged, *self.pending])
+        self.pending, self.held = [], 0
 
     def finish(self) -> np.ndarray:
         """The sorted distinct hashes gathered."""
-        while len(self.runs) > 1:
-            last = self.runs.pop()
-            self.runs[-1] = _merge(self.runs[-1], last)
-        return self.runs[0] if self.runs else np.zeros(0, dtype=np.uint64)
+        if self.pending:
+            self._merge()
+        return self.merged
 
 
 def shared_counts(grams: np.ndarray, starts: np.ndarray, train: np.ndarray, part: int = 0, parts: int = 1) -> np.ndarray:
@@ -78,9 +90,13 @@ def shared_counts(grams: np.ndarray, starts: np.ndarray, train: np.ndarray, part
     if parts > 1:
         mine = part_of(grams, parts) == part
         grams, owner = grams[mine], owner[mine]
-    place = np.searchsorted(train, grams)
-    found = train[np.minimum(place, len(train) - 1)] == grams if len(train) else np.zeros(len(grams), dtype=bool)
-    return np.bincount(owner[found], minlength=len(starts) - 1)
+    if not len(train):
+        return np.zeros(len(starts) - 1, dtype=np.int64)
+    # Looked up in ascending order: neighbouring searches share their path through `train`.
+    order = np.argsort(grams)
+    ordered = grams[order]
+    found = train[np.minimum(np.searchsorted(train, ordered), len(train) - 1)] == ordered
+    return np.bincount(owner[order[found]], minlength=len(starts) - 1)
 
 
 def shares(shared: np.ndarray, starts: np.ndarray) -> np.ndarray:
