@@ -109,7 +109,7 @@ def prepare(folder: Path, copies: int) -> dict:
         grams, starts = near_duplicates.run_hashes(words, contamination.NGRAM)
         started = clock.time("13-gram hashes", started)
         owner = np.repeat(np.arange(len(batch)), np.diff(starts))
-        train_run = np.unique(grams[splits[owner] == 0])
+        train_run = contamination.distinct_sorted(grams[splits[owner] == 0])
         started = clock.time("train grams sorted", started)
         for band in range(options.bands):
             files[f"band{band:02d}"].write(np.ascontiguousarray(keys[:, band]).tobytes())
@@ -160,7 +160,7 @@ def aggregate(folder: Path) -> dict:
     started = clock.time("clusters", started)
     members = np.flatnonzero(np.bincount(labels, minlength=size)[labels] > 1)
     prints = np.memmap(folder / "fingerprints.bin", dtype=np.uint8, mode="r", shape=(size, 16))
-    ranks = near_duplicates.anchor_ranks((prints[m].tobytes() for m in members), "corpusmill-split-v1")
+    ranks = near_duplicates.anchor_ranks(np.asarray(prints[members]), "corpusmill-split-v1")
     keep, _ = near_duplicates.drop_policy(labels[members], ranks, members)
     started = clock.time("drop policy", started)
     train = contamination.TrainGrams()

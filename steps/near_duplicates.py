@@ -406,13 +406,49 @@ class ClusterStats:
 
 # Distinct signatures sharing one band key that are all compared with each other.
 RUN_LIMIT = 64
+# Candidate pairs confirmed at once: bounds the signatures fetched to twice as many rows.
+PAIR_BLOCK = 1 << 16
+
+
+def _runs(keys: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
+    """(members, run_starts): the rows whose nonzero key some other row shares, grouped by key
+    (run r = members[run_starts[r]:run_starts[r + 1]]). Keys are compared by their top 64 - w
+    bits, w the bits of a row number, so that one sort of key bits and row together groups
+    them (a plain sort is several times faster than an argsort); keys that agree there by
+    chance, about n**2 / 2**(65 - w) pairs, only cost a comparison of signatures."""
+    width = np.uint64(max(1, (len(keys) - 1).bit_length()))
+    rows = np.flatnonzero(keys).astype(np.uint64)
+    packed = np.sort(((keys[rows] >> width) << width) | rows)
+    prefix = packed >> width
+    same = prefix[1:] == prefix[:-1]
+    inside = np.zeros(len(packed), dtype=bool)
+    inside[1:] |= same
+    inside[:-1] |= same
+    positions = np.flatnonzero(inside)
+    opens = np.ones(len(positions), dtype=bool)
+    opens[1:] = ~same[positions[1:] - 1]
+    members = (packed[positions] & ((np.uint64(1) << width) - np.uint64(1))).astype(np.int64)
+    return members, np.append(np.flatnonzero(opens), len(positions))
+
+
+def _open_runs(found: UnionFind, members: np.ndarray, run_starts: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
+    """The runs whose members are not all joined yet: the others need no pair."""
+    if not len(members):
+        return members, run_starts
+    roots = found.roots(members)
+    open_run = np.minimum.reduceat(roots, run_starts[:-1]) != np.maximum.reduceat(roots, run_starts[:-1])
+    run_of = np.repeat(np.arange(len(open_run)), np.diff(run_starts))
+    members, run_of = members[open_run[run_of]], run_of[open_run[run_of]]
+    opens = np.ones(len(members), dtype=bool)
+    opens[1:] = run_of[1:] != run_of[:-1]
+    return members, np.append(np.flatnonzero(opens), len(members))
 
 
 def _run_pairs(members: np.ndarray, run_starts: np.ndarray, limit: int, stats: ClusterStats) -> Iterator[np.ndarray]:
-    """Candidate pairs among runs of `members` (run r = members[run_starts[r]:run_starts[r + 1]]),
-    a batch at a time: in runs of at most `limit` members every pair, by the gap between the
-    two members (gap 1 first, so most later pairs are already joined and never fetched); in
-    longer runs each member with the run's first and with its predecessor."""
+    """Candidate pairs among runs of `members` (rows ascending in each), a batch at a time: in
+    runs of at most `limit` members every pair, by the gap between the two members (gap 1
+    first, so most later pairs are already joined and never fetched); in longer runs each
+    member with the run's first and with its predecessor."""
     sizes = np.diff(run_starts)
     run_of = np.repeat(np.arange(len(sizes)), sizes)
     position = np.arange(len(members))
@@ -430,21 +466,34 @@ def _run_pairs(members: np.ndarray, run_starts: np.ndarray, limit: int, stats: C
         yield np.stack([members[big - 1], members[big]], axis=1)
 
 
-def _grouped(keys: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
-    """(rows, run_starts): the rows whose nonzero key some other row shares, grouped by key
-    (rows ascending inside a group), and where each group starts."""
-    order = np.argsort(keys, kind="stable")
-    ordered = keys[order]
-    same = (ordered[1:] == ordered[:-1]) & (ordered[1:] != 0)
-    inside = np.zeros(len(keys), dtype=bool)
-    inside[1:] |= same
-    inside[:-1] |= same
-    positions = np.flatnonzero(inside)
-    if not len(positions):
-        return np.zeros(0, dtype=np.int64), np.zeros(1, dtype=np.int64)
-    opens = np.concatenate([[True], ~same[positions[1:] - 1]]) if len(positions) > 1 else np.array([True])
-    run_starts = np.append(np.flatnonzero(opens), len(positions))
-    return order[positions], run_starts
+def _pair_codes(pairs: np.ndarray) -> np.ndarray:
+    """One uint64 a pair of rows (below 2**32), whichever comes first."""
+    low, high = np.minimum(pairs[:, 0], pairs[:, 1]), np.maximum(pairs[:, 0], pairs[:, 1])
+    return (low.astype(np.uint64) << np.uint64(32)) | high.astype(np.uint64)
+
+
+def _confirm(
+    found: UnionFind, pairs: np.ndarray, rejected: np.ndarray, signatures_of: Callable[[np.ndarray], np.ndarray], threshold: float, stats: ClusterStats
+) -> np.ndarray:
+    """Join the pairs, neither joined yet nor rejected before (`rejected`: sorted pair codes),
+    whose signatures agree in >= threshold of their slots, PAIR_BLOCK pairs at a time; returns
+    the codes of the pairs rejected now."""
+    failed = []
+    for low in range(0, len(pairs), PAIR_BLOCK):
+        block = pairs[low : low + PAIR_BLOCK]
+        block = block[found.roots(block[:, 0]) != found.roots(block[:, 1])]
+        codes = _pair_codes(block)
+        if len(rejected):
+            seen = rejected[np.minimum(np.searchsorted(rejected, codes), len(rejected) - 1)] == codes
+            block, codes = block[~seen], codes[~seen]
+        if not len(block):
+            continue
+        agree = estimated_jaccard(signatures_of(block[:, 0]), signatures_of(block[:, 1])) >= threshold
+        stats.compared += len(block)
+        stats.confirmed += int(agree.sum())
+        found.union(block[agree, 0], block[agree, 1])
+        failed.append(codes[~agree])
+    return np.concatenate(failed) if failed else np.zeros(0, dtype=np.uint64)
 
 
 def cluster(
@@ -455,39 +504,27 @@ def cluster(
     limit: int = RUN_LIMIT,
 ) -> tuple[UnionFind, ClusterStats]:
     """Clusters over all documents (rows 0..n-1) from their band keys, one band column at a
-    time, and their signature digests. Rows with equal digests are joined directly; in each
-    band, rows sharing a key are reduced to one row per distinct digest, paired, and a pair
-    not yet joined is confirmed by fetching both signatures (`signatures_of(rows)` returns
-    their rows, any dtype) and comparing slots. Memory: about 40 bytes a document (one band
-    column, its sort order, the digests, the union-find) plus one batch of candidate pairs (at
-    most one a document) and their signatures."""
+    time, and their signature digests (rows below 2**32). Rows with equal digests are joined
+    directly and one of them stands for all. In each band, the standing rows sharing a key form
+    a run; runs already joined are skipped, the others paired, and a pair neither joined nor
+    rejected in an earlier band is confirmed by fetching both signatures (`signatures_of(rows)`
+    returns their rows, any dtype) and comparing slots. Memory: about 40 bytes a document (one
+    band column, its sort order, the digests, the union-find), 8 bytes a rejected pair, one
+    batch of candidate pairs (at most one a document) and the signatures of PAIR_BLOCK
+    pairs."""
     found = UnionFind(len(digests))
     stats = ClusterStats()
-    rows, run_starts = _grouped(digests)
+    rows, run_starts = _runs(digests)
     same = np.flatnonzero(np.diff(np.repeat(np.arange(len(run_starts) - 1), np.diff(run_starts))) == 0)
     found.union(rows[same], rows[same + 1])
+    # One row stands for each digest: the others have its signature, hence its pairs.
+    standing = np.ones(len(digests), dtype=bool)
+    standing[rows[same + 1]] = False
+    rejected = np.zeros(0, dtype=np.uint64)
     for keys in band_columns:
-        rows, run_starts = _grouped(keys)
-        if not len(rows):
-            continue
-        run_of = np.repeat(np.arange(len(run_starts) - 1), np.diff(run_starts))
-        # One row per (run, digest): the first, rows being ascending.
-        order = np.lexsort((digests[rows], run_of))
-        rows, run_of = rows[order], run_of[order]
-        first = np.concatenate([[True], (run_of[1:] != run_of[:-1]) | (digests[rows[1:]] != digests[rows[:-1]])])
-        rows, run_of = rows[first], run_of[first]
-        kept_starts = np.append(np.flatnonzero(np.concatenate([[True], run_of[1:] != run_of[:-1]])), len(rows))
-        for pairs in _run_pairs(rows, kept_starts, limit, stats):
-            pairs = pairs[found.roots(pairs[:, 0]) != found.roots(pairs[:, 1])]
-            if not len(pairs):
-                continue
-            involved, inverse = np.unique(pairs, return_inverse=True)
-            fetched = signatures_of(involved)
-            inverse = inverse.reshape(pairs.shape)
-            agree = estimated_jaccard(fetched[inverse[:, 0]], fetched[inverse[:, 1]]) >= threshold
-            stats.compared += len(pairs)
-            stats.confirmed += int(agree.sum())
-            found.union(pairs[agree, 0], pairs[agree, 1])
+        members, run_starts = _open_runs(found, *_runs(np.where(standing, keys, np.uint64(0))))
+        failed = [_confirm(found, pairs, rejected, signatures_of, threshold, stats) for pairs in _run_pairs(members, run_starts, limit, stats)]
+        rejected = np.sort(np.concatenate([rejected, *failed]), kind="stable")
     return found, stats
 
 
@@ -514,15 +551,16 @@ def cluster(
 # member and never move a kept one.
 
 
-def anchor_ranks(fingerprints: Iterable[bytes], salt: str) -> np.ndarray:
-    """The rank of each document in its cluster: BLAKE2b-8 of its 16-byte content fingerprint
-    keyed by the salt (hashed first when longer than 64 bytes), personalised so that it is
-    independent of the split drawn from the same salt, and so unbiased towards any split."""
-    secret = salt.encode("utf-8")
-    if len(secret) > 64:
-        secret = hashlib.blake2b(secret, digest_size=64).digest()
-    digests = b"".join(hashlib.blake2b(bytes(f), digest_size=8, key=secret, person=b"anchor").digest() for f in fingerprints)
-    return np.frombuffer(digests, dtype=">u8").astype(np.uint64)
+def anchor_ranks(fingerprints: np.ndarray, salt: str) -> np.ndarray:
+    """The rank of each document in its cluster from its 16-byte content fingerprint ((n, 16)
+    uint8, or (n, 2) uint64 as steps.split.CorpusRows holds them): the two little-endian words
+    w0, w1 keyed by k0, k1 = BLAKE2b-16 of the salt (personalised "anchor"), as
+    mix64(mix64(w0 ^ k0) ^ w1 ^ k1). A function of the content and the salt alone, and not the
+    split draw's, so anchors land in each split as often as single documents do."""
+    key = hashlib.blake2b(salt.encode("utf-8"), digest_size=16, person=b"anchor").digest()
+    k0, k1 = np.frombuffer(key, dtype="<u8").astype(np.uint64)
+    words = np.ascontiguousarray(fingerprints).view("<u8").reshape(-1, 2).astype(np.uint64)
+    return mix64(mix64(words[:, 0] ^ k0) ^ words[:, 1] ^ k1)
 
 
 def cluster_anchors(labels: np.ndarray, ranks: np.ndarray, positions: np.ndarray) -> np.ndarray:

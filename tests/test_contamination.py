@@ -12,7 +12,7 @@ import pyarrow as pa
 from hypothesis import given
 from hypothesis import strategies as st
 
-from steps.contamination import NGRAM, THRESHOLD, TrainGrams, part_of, shared_counts, shares, summary
+from steps.contamination import NGRAM, THRESHOLD, TrainGrams, distinct_sorted, part_of, shared_counts, shares, summary
 from steps.near_duplicates import document_words, run_hashes
 from steps.segment import Segmenter
 from steps.settings import resolve
@@ -105,6 +105,13 @@ def test_a_hash_lies_in_the_part_of_its_range(values: list[int], parts: int) -> 
     values = values + edges + [e - 1 for e in edges if e] + [(1 << 64) - 1]
     found = part_of(np.array(values, dtype=np.uint64), parts)
     assert found.tolist() == [v * parts >> 64 for v in values]
+
+
+@given(values=st.lists(st.integers(0, (1 << 64) - 1) | st.integers(0, 5), max_size=60))
+def test_a_prepare_job_keeps_its_train_grams_sorted_and_distinct(values: list[int]) -> None:
+    """distinct_sorted equals numpy's unique (sorted distinct values)."""
+    array = np.array(values, dtype=np.uint64)
+    np.testing.assert_array_equal(distinct_sorted(array), np.unique(array))
 
 
 @given(batches=st.lists(st.lists(st.integers(0, 200), max_size=40), max_size=12), pending=st.sampled_from([1, 16, 1 << 22]))

@@ -125,15 +125,15 @@ def edited(words: list[str], rate: float, rng: random.Random, vocab: list[str]) 
     return ["".join(cosmetic)]
 
 
-def pair_corpus(pairs: int, seed: int) -> tuple[list[list[str]], list[float]]:
-    """2 * pairs documents, document 2i and 2i + 1 a base text and an edited copy at a random
-    edit rate, and the exact Jaccard of each pair's shingle sets."""
+def pair_corpus(pairs: int, seed: int, rates: tuple[float, float] = (0.0, 0.12)) -> tuple[list[list[str]], list[float]]:
+    """2 * pairs documents, document 2i and 2i + 1 a base text and an edited copy at an edit
+    rate drawn from `rates`, and the exact Jaccard of each pair's shingle sets."""
     rng = random.Random(seed)
     vocab = vocabulary(rng)
     documents, similarities = [], []
     for _ in range(pairs):
         base = [rng.choice(vocab) for _ in range(rng.randint(60, 200))]
-        copy = edited(base, rng.uniform(0.0, 0.12), rng, vocab)
+        copy = edited(base, rng.uniform(*rates), rng, vocab)
         documents += [[" ".join(base)], copy]
         similarities.append(jaccard(shingle_set(reference_words([" ".join(base)])), shingle_set(reference_words(copy))))
     return documents, similarities
@@ -308,6 +308,15 @@ def test_candidates_and_detections_follow_the_s_curve_per_similarity_bucket() ->
 # --- clusters ---------------------------------------------------------------------------------------
 
 
+def candidate_count(found: np.ndarray) -> int:
+    """Distinct pairs of documents with different signatures that share a band key."""
+    keys = band_keys(found, OPTIONS.bands)
+    return sum(
+        1 for i in range(len(found)) for j in range(i + 1, len(found))
+        if ((keys[i] == keys[j]) & (keys[i] != 0)).any() and not (found[i] == found[j]).all()
+    )
+
+
 def brute_force_clusters(found: np.ndarray, threshold: float) -> list[set[int]]:
     """Connected components of the pairs that share a band key and agree in >= threshold of
     their slots, every pair compared (Python sets)."""
@@ -369,6 +378,32 @@ def test_clusters_equal_the_components_of_every_pair_compared(seed: int) -> None
     expected = brute_force_clusters(found, OPTIONS.threshold)
     assert partition(union.labels()) == expected
     assert stats.long_runs == 0 and stats.confirmed > 0 and len(expected) >= 5
+    # A pair is compared at most once, however many bands it shares.
+    assert stats.compared - stats.confirmed > 0 and stats.compared <= candidate_count(found)
+
+
+def test_a_rejected_pair_is_compared_once_however_many_bands_it_shares() -> None:
+    """Pairs near J = 0.7 often share several bands yet fall short of the threshold; each is
+    compared once: comparisons never exceed the distinct candidate pairs."""
+    documents, similarities = pair_corpus(150, seed=19, rates=(0.035, 0.05))
+    found = minhash(documents)
+    keys = band_keys(found, OPTIONS.bands)
+    shared = ((keys[0::2] == keys[1::2]) & (keys[0::2] != 0)).sum(axis=1)
+    union, stats = cluster(keys.T, signature_digests(keys), in_memory(found), OPTIONS.threshold)
+    assert (shared >= 2).sum() > 20 and stats.compared - stats.confirmed > 20
+    assert stats.compared <= candidate_count(found)
+
+
+def test_copies_with_equal_signatures_stand_as_one_in_band_runs() -> None:
+    """Hundreds of copies differing only in case and punctuation have one signature: one of them
+    stands for all in the band runs, so they never make a run longer than the limit."""
+    rng = random.Random(9)
+    vocab = vocabulary(rng, 500)
+    base = [rng.choice(vocab) for _ in range(50)]
+    found = minhash([edited(base, 0.0, rng, vocab) for _ in range(200)] + [[" ".join(base[:40])]])
+    keys = band_keys(found, OPTIONS.bands)
+    union, stats = cluster(keys.T, signature_digests(keys), in_memory(found), OPTIONS.threshold, limit=3)
+    assert stats.long_runs == 0 and partition(union.labels()) == brute_force_clusters(found, OPTIONS.threshold)
 
 
 def test_runs_over_the_limit_are_counted_and_still_joined_where_similar() -> None:
@@ -473,6 +508,10 @@ def test_fortunes_copies_differing_in_case_punctuation_or_spacing_are_found() ->
 # --- policies: the growth guarantee ---------------------------------------------------------------------
 
 
+def as_array(prints: list[bytes]) -> np.ndarray:
+    return np.frombuffer(b"".join(prints), dtype=np.uint8).reshape(-1, 16)
+
+
 def decide(policy: str, labels: np.ndarray, ranks: np.ndarray, positions: np.ndarray, splits: np.ndarray):
     if policy == "drop":
         return drop_policy(labels, ranks, positions)
@@ -492,7 +531,7 @@ def outcome(policy: str, present: list[int], prints: list[bytes], splits: list[s
     result = {doc: (True, splits[doc], doc, frozenset([doc])) for doc in present}
     if len(members):
         docs = [order[m] for m in members]
-        keep, anchor = decide(policy, labels[members], anchor_ranks([prints[d] for d in docs], salt), members, np.array([splits[d] for d in docs]))
+        keep, anchor = decide(policy, labels[members], anchor_ranks(as_array([prints[d] for d in docs]), salt), members, np.array([splits[d] for d in docs]))
         groups: dict[int, set[int]] = {}
         for doc, label in zip(docs, labels[members].tolist()):
             groups.setdefault(label, set()).add(doc)
@@ -539,7 +578,7 @@ def test_adding_documents_never_moves_a_kept_document_and_drops_one_only_for_a_n
     pairs = set(data.draw(st.lists(st.tuples(st.integers(0, size - 1), st.integers(0, size - 1)), max_size=40)))
     prints = [hashlib.blake2b(f"document {d}".encode(), digest_size=16).digest() for d in range(size)]
     splits = [assign_split(p, salt, SPREAD) for p in prints]
-    ranks = dict(enumerate(anchor_ranks(prints, salt).tolist()))
+    ranks = dict(enumerate(anchor_ranks(as_array(prints), salt).tolist()))
     arrival = data.draw(st.permutations(range(size)))
     steps = data.draw(st.lists(st.integers(1, 4), min_size=1, max_size=size))
     present: list[int] = []
@@ -559,7 +598,7 @@ def test_a_new_document_near_two_old_clusters_merges_them_under_the_least_rank()
     same_split the members outside the new anchor's split are dropped. No kept document moves."""
     prints = [fingerprint(name) for name in ("A1", "A2", "B1", "B2", "C")]
     splits = [assign_split(p, "corpusmill-split-v1", SPREAD) for p in prints]
-    ranks = dict(enumerate(anchor_ranks(prints, "corpusmill-split-v1").tolist()))
+    ranks = dict(enumerate(anchor_ranks(as_array(prints), "corpusmill-split-v1").tolist()))
     old = {(0, 1), (2, 3)}
     for policy in ("drop", "same_split"):
         before = outcome(policy, [0, 1, 2, 3], prints, splits, old, [0, 1, 2, 3], "corpusmill-split-v1")
@@ -585,7 +624,7 @@ def test_growth_guarantee_holds_end_to_end_with_real_signatures() -> None:
     rng = random.Random(4)
     for policy in ("drop", "same_split"):
         splits = [assign_split(p, "corpusmill-split-v1", SPREAD) for p in prints]
-        ranks = dict(enumerate(anchor_ranks(prints, "corpusmill-split-v1").tolist()))
+        ranks = dict(enumerate(anchor_ranks(as_array(prints), "corpusmill-split-v1").tolist()))
         arrival = rng.sample(range(len(texts)), len(texts))
         before: dict = {}
         merges = drops = 0
@@ -611,7 +650,7 @@ def test_anchor_ranks_are_salted_and_independent_of_the_split_draw() -> None:
     shares (a cluster lands in train about as often as a single document does), checked over
     2,000 pairs within the binomial 99.9% interval."""
     prints = [fingerprint(f"text {i}") for i in range(4000)]
-    first, second = anchor_ranks(prints, "corpusmill-split-v1"), anchor_ranks(prints, "another")
+    first, second = anchor_ranks(as_array(prints), "corpusmill-split-v1"), anchor_ranks(as_array(prints), "another")
     assert (first != second).all()
     labels = np.repeat(np.arange(2000), 2)
     splits = np.array([assign_split(p, "corpusmill-split-v1", SPREAD) for p in prints])
