@@ -1,7 +1,9 @@
 """Benchmark near-duplicate detection and the contamination audit on real English text
 (Debian's dict-gcide, about 40 MB; paragraphs as documents) at 1x and 10x.
 
-Two child processes per scale, each run under `/usr/bin/time` for its peak resident memory:
+Two child processes per scale, each run under `/usr/bin/time` for its peak resident memory
+(which counts the pages of the memory-mapped signature file; the anonymous part is sampled
+apart):
 - prepare: what the per-chunk prepare jobs will add. It reads the corpus in batches of 4,096
   documents (the prepare step's batch), tokenises each with the default segmenter
   (`steps.segment.Segmenter`, UAX #29; its CPU time is the floor F) and then, timed apart,
@@ -23,12 +25,14 @@ Files go to bench/data/near_duplicates/, results to bench/results/near_duplicate
 from __future__ import annotations
 
 import argparse
+import contextlib
 import gzip
 import json
 import os
 import re
 import subprocess
 import sys
+import threading
 import time
 from collections.abc import Iterator
 from pathlib import Path
@@ -63,6 +67,30 @@ def paragraphs(copies: int) -> Iterator[tuple[str, str]]:
             yield f"copy{copy}-part-{number * 20 // len(found):02d}.txt", prefix + paragraph
 
 
+class MemorySampler:
+    """The largest anonymous and file-backed resident memory of this process, sampled every
+    20 ms from /proc/self/status: /usr/bin/time's peak counts the pages of memory-mapped files
+    too, which the kernel drops first when memory is short."""
+
+    def __init__(self) -> None:
+        self.peaks = {"RssAnon": 0, "RssFile": 0}
+        self._stop = threading.Event()
+        self._thread = threading.Thread(target=self._run, daemon=True)
+        self._thread.start()
+
+    def _run(self) -> None:
+        while not self._stop.wait(0.02):
+            for line in Path("/proc/self/status").read_text().splitlines():
+                name, _, value = line.partition(":")
+                if name in self.peaks:
+                    self.peaks[name] = max(self.peaks[name], int(value.split()[0]))
+
+    def stop(self) -> dict:
+        self._stop.set()
+        self._thread.join()
+        return {f"peak_{name.lower()}_mib": round(kib / 1024, 1) for name, kib in self.peaks.items()}
+
+
 class Clock:
     """CPU seconds per phase."""
 
@@ -78,13 +106,18 @@ class Clock:
 def prepare(folder: Path, copies: int) -> dict:
     """The per-chunk work, batch by batch; writes what the aggregate reads."""
     folder.mkdir(parents=True, exist_ok=True)
+    with contextlib.ExitStack() as stack:
+        return _prepare(folder, copies, stack)
+
+
+def _prepare(folder: Path, copies: int, stack: contextlib.ExitStack) -> dict:
     options = near_duplicates.MinHashOptions()
     segmenter = Segmenter.from_config(resolve({})["segment"])
     fractions = {"train": 0.8, "dev": 0.1, "test": 0.1}
     clock = Clock()
-    files = {name: open(folder / f"{name}.bin", "wb") for name in
-             [*(f"band{b:02d}" for b in range(options.bands)), "digests", "verification", "fingerprints", "splits",
-              "train_runs", "train_sizes", "dev_grams", "dev_counts", "dev_sources"]}
+    names = [*(f"band{b:02d}" for b in range(options.bands)), "digests", "verification", "fingerprints", "splits",
+             "train_runs", "train_sizes", "dev_grams", "dev_counts", "dev_sources"]
+    files = {name: stack.enter_context(open(folder / f"{name}.bin", "wb")) for name in names}
     documents = characters = tokens = 0
     batch: list[tuple[str, str]] = []
 
@@ -135,8 +168,6 @@ def prepare(folder: Path, copies: int) -> dict:
             batch = []
     if batch:
         flush()
-    for handle in files.values():
-        handle.close()
     return {"documents": documents, "text_mb": round(characters / 1e6, 1), "tokens": tokens,
             "cpu_seconds": {k: round(v, 2) for k, v in clock.seconds.items()}}
 
@@ -183,10 +214,10 @@ def aggregate(folder: Path) -> dict:
     summary = contamination.summary(shares, sources)
     clock.time("summary", started)
     return {
-        "documents": size, "clustered_documents": int(len(members)), "clusters": int(len(np.unique(labels[members]))),
+        "documents": size, "clustered_documents": len(members), "clusters": len(np.unique(labels[members])),
         "dropped_by_drop_policy": int(np.count_nonzero(~keep)), "compared_pairs": stats.compared,
-        "confirmed_pairs": stats.confirmed, "long_runs": stats.long_runs, "distinct_train_grams": int(len(train_set)),
-        "dev_test_documents": int(len(shares)), "contamination": {k: v for k, v in summary.items() if k != "by_source"},
+        "confirmed_pairs": stats.confirmed, "long_runs": stats.long_runs, "distinct_train_grams": len(train_set),
+        "dev_test_documents": len(shares), "contamination": {k: v for k, v in summary.items() if k != "by_source"},
         "cpu_seconds": {k: round(v, 2) for k, v in clock.seconds.items()},
     }
 
@@ -212,11 +243,10 @@ def main(argv: list[str] | None = None) -> None:
     parser.add_argument("--stage", choices=["prepare", "aggregate"], help=argparse.SUPPRESS)
     parser.add_argument("--scale", type=int, default=1, help=argparse.SUPPRESS)
     args = parser.parse_args(argv)
-    if args.stage == "prepare":
-        print(json.dumps(prepare(DATA / f"x{args.scale}", args.scale)))
-        return
-    if args.stage == "aggregate":
-        print(json.dumps(aggregate(DATA / f"x{args.scale}")))
+    if args.stage:
+        sampler = MemorySampler()
+        result = (prepare if args.stage == "prepare" else lambda folder, _: aggregate(folder))(DATA / f"x{args.scale}", args.scale)
+        print(json.dumps({**result, **sampler.stop()}))
         return
     results = {}
     for scale in args.scales:
@@ -230,7 +260,8 @@ def main(argv: list[str] | None = None) -> None:
                                 "total_added_cpu_seconds": round(total, 2), "total_over_floor": round(total / floor, 3)}
         print(f"{scale}x: {prepared['text_mb']} MB, {prepared['documents']:,} documents; floor F {floor:.2f} CPU-s; "
               f"added in prepare {added:.2f} CPU-s ({added / prepared['text_mb'] * 1000:.1f} ms/MB): {prepared['cpu_seconds']}; "
-              f"aggregate {aggregated['cpu_seconds']} peak {aggregated['peak_rss_mib']} MiB; prepare child peak {prepared['peak_rss_mib']} MiB; "
+              f"aggregate {aggregated['cpu_seconds']} peak {aggregated['peak_rss_mib']} MiB (anonymous {aggregated['peak_rssanon_mib']}, "
+              f"mapped files {aggregated['peak_rssfile_mib']}); prepare child peak {prepared['peak_rss_mib']} MiB; "
               f"total {total:.2f} CPU-s = {total / floor:.3f} x F; load {prepared['load_before']}/{aggregated['load_before']}")
     RESULTS.mkdir(parents=True, exist_ok=True)
     (RESULTS / "near_duplicates.json").write_text(json.dumps(results, indent=1))

@@ -123,7 +123,7 @@ def summary(values: np.ndarray, sources: list[str] | np.ndarray, threshold: floa
     def describe(share: np.ndarray) -> dict:
         scored = share[~np.isnan(share)]
         return {
-            "documents": int(len(share)),
+            "documents": len(share),
             "without_words": int(len(share) - len(scored)),
             "with_shared_gram": int(np.count_nonzero(scored > 0)),
             "at_or_above_threshold": int(np.count_nonzero(scored >= threshold)),

@@ -61,7 +61,7 @@ EMPTY = np.uint64((1 << 64) - 1)
 # everything else is deleted.
 WORD, SPACE = 1, 2
 # Shingles handled at once while computing signatures: keeps the per-slot arrays in cache.
-BLOCK_SHINGLES = 1 << 16
+BLOCK_SHINGLES = 1 << 15
 
 
 @dataclass(frozen=True)
@@ -186,8 +186,10 @@ def _run_hash(symbols: np.ndarray, first: np.ndarray, size: np.ndarray) -> np.nd
 
 
 def _powers(base: int, count: int) -> np.ndarray:
-    """base**0 .. base**(count-1) mod 2**64 (a view of a table kept for later calls)."""
-    return _power_table(base, max(1 << 16, 1 << (count - 1).bit_length()))[:count]
+    """base**0 .. base**(count-1) mod 2**64: a view of a table kept for later calls, up to
+    2**22 of them (32 MB); more, for one very long string, are computed each time."""
+    size = max(1 << 16, 1 << (count - 1).bit_length())
+    return (_power_table(base, size) if size <= 1 << 22 else _power_table.__wrapped__(base, size))[:count]
 
 
 @functools.cache
@@ -223,7 +225,8 @@ def _slice_words(strings: pa.Array) -> tuple[np.ndarray, np.ndarray]:
 
 
 # Bytes of text handled at once while finding words (cut at string ends): bounds the memory of
-# the per-byte arrays, about 40 bytes a byte.
+# the per-byte arrays, about 40 bytes a byte, but for a single longer string (a token or
+# sentence longer than this), handled whole.
 SLICE_BYTES = 1 << 20
 
 

@@ -12,7 +12,16 @@ import pyarrow as pa
 from hypothesis import given
 from hypothesis import strategies as st
 
-from steps.contamination import NGRAM, THRESHOLD, TrainGrams, distinct_sorted, part_of, shared_counts, shares, summary
+from steps.contamination import (
+    NGRAM,
+    THRESHOLD,
+    TrainGrams,
+    distinct_sorted,
+    part_of,
+    shared_counts,
+    shares,
+    summary,
+)
 from steps.near_duplicates import document_words, run_hashes
 from steps.segment import Segmenter
 from steps.settings import resolve

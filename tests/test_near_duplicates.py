@@ -5,6 +5,7 @@ real copies among Debian's fortunes, and the policies' growth guarantee."""
 from __future__ import annotations
 
 import hashlib
+import itertools
 import math
 import random
 import re
@@ -19,9 +20,24 @@ from hypothesis import given
 from hypothesis import strategies as st
 
 from steps.near_duplicates import (
-    EMPTY, MERSENNE, RUN_BASE, MinHashOptions, UnionFind, Words, anchor_ranks, band_keys, cluster, cluster_anchors,
-    detection_probability, document_words, drop_policy, estimated_jaccard, run_hashes, same_split_policy,
-    signature_digests, signatures, verification,
+    EMPTY,
+    MERSENNE,
+    RUN_BASE,
+    MinHashOptions,
+    UnionFind,
+    anchor_ranks,
+    band_keys,
+    cluster,
+    cluster_anchors,
+    detection_probability,
+    document_words,
+    drop_policy,
+    estimated_jaccard,
+    run_hashes,
+    same_split_policy,
+    signature_digests,
+    signatures,
+    verification,
 )
 from steps.segment import Segmenter
 from steps.settings import resolve
@@ -292,7 +308,7 @@ def test_candidates_and_detections_follow_the_s_curve_per_similarity_bucket() ->
     curve = 1 - (1 - s**OPTIONS.rows) ** OPTIONS.bands
     exact = np.array([detection_probability(value) for value in s])
     edges = np.linspace(0.0, 1.0, 11)
-    for low, high in zip(edges[:-1], edges[1:]):
+    for low, high in itertools.pairwise(edges):
         inside = (s >= low) & ((s < high) | (high == 1.0))
         if inside.sum() < 20:
             continue
@@ -385,11 +401,11 @@ def test_clusters_equal_the_components_of_every_pair_compared(seed: int) -> None
 def test_a_rejected_pair_is_compared_once_however_many_bands_it_shares() -> None:
     """Pairs near J = 0.7 often share several bands yet fall short of the threshold; each is
     compared once: comparisons never exceed the distinct candidate pairs."""
-    documents, similarities = pair_corpus(150, seed=19, rates=(0.035, 0.05))
+    documents, _ = pair_corpus(150, seed=19, rates=(0.035, 0.05))
     found = minhash(documents)
     keys = band_keys(found, OPTIONS.bands)
     shared = ((keys[0::2] == keys[1::2]) & (keys[0::2] != 0)).sum(axis=1)
-    union, stats = cluster(keys.T, signature_digests(keys), in_memory(found), OPTIONS.threshold)
+    _, stats = cluster(keys.T, signature_digests(keys), in_memory(found), OPTIONS.threshold)
     assert (shared >= 2).sum() > 20 and stats.compared - stats.confirmed > 20
     assert stats.compared <= candidate_count(found)
 
