@@ -511,10 +511,10 @@ def cluster(
     directly and one of them stands for all. In each band, the standing rows sharing a key form
     a run; runs already joined are skipped, the others paired, and a pair neither joined nor
     rejected in an earlier band is confirmed by fetching both signatures (`signatures_of(rows)`
-    returns their rows, any dtype) and comparing slots. Memory: about 40 bytes a document (one
-    band column, its sort order, the digests, the union-find), 8 bytes a rejected pair, one
-    batch of candidate pairs (at most one a document) and the signatures of PAIR_BLOCK
-    pairs."""
+    returns their rows, any dtype) and comparing slots. Memory: about 50 bytes a document (the
+    digests, the union-find, one band column and its sorted copy, the runs and a batch of
+    candidate pairs, at most one a document), 8 bytes a rejected pair, and the signatures of
+    PAIR_BLOCK pairs (16 MB of 16-bit slots)."""
     found = UnionFind(len(digests))
     stats = ClusterStats()
     rows, run_starts = _runs(digests)
