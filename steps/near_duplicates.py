@@ -514,7 +514,7 @@ def cluster(
     returns their rows, any dtype) and comparing slots. Memory: about 50 bytes a document (the
     digests, the union-find, one band column and its sorted copy, the runs and a batch of
     candidate pairs, at most one a document), 8 bytes a rejected pair, and the signatures of
-    PAIR_BLOCK pairs (16 MB of 16-bit slots)."""
+    PAIR_BLOCK pairs (32 MB of 16-bit slots)."""
     found = UnionFind(len(digests))
     stats = ClusterStats()
     rows, run_starts = _runs(digests)
