@@ -1,0 +1,145 @@
+"""Contamination: how much of each dev or test document also occurs in train, by shared word
+n-grams.
+
+A document's grams are `steps.near_duplicates.run_hashes(words, n)`: the hashes of its runs of
+n consecutive words (the same normalised words as for near-duplicates, so case, punctuation and
+spacing do not hide a copy). A document shorter than n words has one gram, all its words, which
+only a train document of exactly those words shares. A document's share is the number of its
+grams (counted where they occur, a repeated gram each time) found among the train grams over the
+number of its grams; a document without words has no share (NaN). n = 13 is common practice for decontaminating evaluation sets: a run
+of 13 words rarely recurs by chance in natural text.
+
+The train grams are kept exactly: a sorted array of distinct uint64 hashes, 8 bytes a distinct
+train gram, built by sorting each batch and merging the sorted batches into the set once they
+add up to the set's size (so each hash takes part in few merges; a merge holds twice the set). For bounded memory the hash
+space splits into `parts` equal ranges (`part_of`); a job holds one part's set at a time and
+adds the shared counts of all parts up. Two different grams share a hash with probability
+2**-64, so a share counts a false match with a chance of about (distinct train grams) * 2**-64
+a gram.
+"""
+
+from __future__ import annotations
+
+import math
+
+import numpy as np
+
+NGRAM = 13
+# A document at or above this share is listed as contaminated (and dropped when the option to
+# drop them is on): most of its text then occurs in train.
+THRESHOLD = 0.5
+QUANTILES = (0.5, 0.9, 0.99)
+
+
+def part_of(hashes: np.ndarray, parts: int) -> np.ndarray:
+    """The part of each hash: parts split [0, 2**64) into equal ranges."""
+    inner = np.array([-(-(p << 64) // parts) for p in range(1, parts)], dtype=np.uint64)
+    return np.searchsorted(inner, hashes, side="right")
+
+
+def distinct_sorted(grams: np.ndarray) -> np.ndarray:
+    """The distinct values of a hash array, ascending: what a prepare job keeps of its train
+    grams (a sort and a comparison; numpy's unique is many times slower on uint64)."""
+    ordered = np.sort(grams)
+    keep = np.ones(len(ordered), dtype=bool)
+    keep[1:] = ordered[1:] != ordered[:-1]
+    return ordered[keep]
+
+
+def _merge(runs: list[np.ndarray]) -> np.ndarray:
+    """The distinct values of sorted arrays, sorted (a stable sort merges sorted runs)."""
+    merged = np.concatenate(runs)
+    merged.sort(kind="stable")
+    keep = np.ones(len(merged), dtype=bool)
+    keep[1:] = merged[1:] != merged[:-1]
+    return merged[keep]
+
+
+# Hashes held in sorted batches before they are merged into the set: merging only once the
+# batches add up to this many or to the set's size keeps each hash in few merges.
+PENDING = 1 << 22
+
+
+class TrainGrams:
+    """The distinct train gram hashes of one part of the hash space, gathered batch by batch.
+    Memory: the set (8 bytes a distinct gram) plus at most max(`pending`, set size) pending
+    hashes, twice that while merging."""
+
+    def __init__(self, part: int = 0, parts: int = 1, pending: int = PENDING) -> None:
+        self.part, self.parts, self.budget = part, parts, pending
+        self.merged = np.zeros(0, dtype=np.uint64)
+        self.pending: list[np.ndarray] = []
+        self.held = 0
+
+    def add(self, grams: np.ndarray) -> None:
+        """Take in a batch of train gram hashes (any order, repeats allowed)."""
+        if self.parts > 1:
+            grams = grams[part_of(grams, self.parts) == self.part]
+        self.pending.append(distinct_sorted(grams))
+        self.held += len(self.pending[-1])
+        if self.held >= max(self.budget, len(self.merged)):
+            self._merge()
+
+    def _merge(self) -> None:
+        self.merged = _merge([self.merged, *self.pending])
+        self.pending, self.held = [], 0
+
+    def finish(self) -> np.ndarray:
+        """The sorted distinct hashes gathered."""
+        if self.pending:
+            self._merge()
+        return self.merged
+
+
+def shared_counts(grams: np.ndarray, starts: np.ndarray, train: np.ndarray, part: int = 0, parts: int = 1) -> np.ndarray:
+    """How many of each document's grams (`run_hashes`, document d holding
+    grams[starts[d]:starts[d + 1]]) in the given part of the hash space occur in `train`, that
+    part's sorted train grams."""
+    owner = np.repeat(np.arange(len(starts) - 1), np.diff(starts))
+    if parts > 1:
+        mine = part_of(grams, parts) == part
+        grams, owner = grams[mine], owner[mine]
+    if not len(train):
+        return np.zeros(len(starts) - 1, dtype=np.int64)
+    # Looked up in ascending order: neighbouring searches share their path through `train`.
+    order = np.argsort(grams)
+    ordered = grams[order]
+    found = train[np.minimum(np.searchsorted(train, ordered), len(train) - 1)] == ordered
+    return np.bincount(owner[order[found]], minlength=len(starts) - 1)
+
+
+def shares(shared: np.ndarray, starts: np.ndarray) -> np.ndarray:
+    """Each document's share of grams found in train; NaN without words."""
+    totals = np.diff(starts)
+    with np.errstate(invalid="ignore", divide="ignore"):
+        return np.where(totals > 0, shared / np.maximum(totals, 1), math.nan)
+
+
+def summary(values: np.ndarray, sources: list[str] | np.ndarray, threshold: float = THRESHOLD) -> dict:
+    """The distribution of dev/test shares (quantiles, mean, a histogram of ten equal bins
+    over [0, 1], documents with any shared gram and at or above `threshold`), overall and per
+    source file. Documents without words are counted apart."""
+
+    def describe(share: np.ndarray) -> dict:
+        scored = share[~np.isnan(share)]
+        return {
+            "documents": len(share),
+            "without_words": int(len(share) - len(scored)),
+            "with_shared_gram": int(np.count_nonzero(scored > 0)),
+            "at_or_above_threshold": int(np.count_nonzero(scored >= threshold)),
+            "mean": round(float(scored.mean()), 6) if len(scored) else None,
+            "quantiles": {str(q): round(float(np.quantile(scored, q)), 6) for q in QUANTILES} if len(scored) else {},
+            "max": round(float(scored.max()), 6) if len(scored) else None,
+        }
+
+    values = np.asarray(values, dtype=np.float64)
+    sources = np.asarray(sources, dtype=object)
+    overall = describe(values)
+    scored = values[~np.isnan(values)]
+    overall["histogram"] = np.histogram(scored, bins=10, range=(0.0, 1.0))[0].tolist()
+    if not len(sources):
+        return {"threshold": threshold, **overall, "by_source": {}}
+    names, codes = np.unique(sources, return_inverse=True)
+    order = np.argsort(codes, kind="stable")
+    groups = np.split(values[order], np.flatnonzero(np.diff(codes[order])) + 1)
+    return {"threshold": threshold, **overall, "by_source": {str(name): describe(group) for name, group in zip(names, groups)}}
