@@ -8,7 +8,6 @@ from __future__ import annotations
 import random
 from collections import Counter
 
-import numpy as np
 import pyarrow as pa
 import pyarrow.parquet as pq
 import pytest

@@ -59,7 +59,7 @@ def test_a_chunk_job_writes_its_table_counts_tally_and_drop_log_at_the_layout_pa
     (every one read is kept or dropped with its reason, exact duplicates are still kept here:
     the deduplicate step removes them), collections.Counter over the stored tokens for the
     counts, and hashlib.sha256 and the file size for each input."""
-    files = {"a.txt": "\n\n".join(PARAGRAPHS).encode(), "b.txt": "One more paragraph of the log.\n\nAnd a final one that differs.\n".encode()}
+    files = {"a.txt": "\n\n".join(PARAGRAPHS).encode(), "b.txt": b"One more paragraph of the log.\n\nAnd a final one that differs.\n"}
     layout, chunks = planned_build(tmp_path, monkeypatch, files)
     assert len(chunks) == 1
     prepare.main(["--build", "build", "--chunk", chunks[0]])
