@@ -1,7 +1,7 @@
 """Progress lines for long jobs: what a job has done so far, written to its log every so often.
 
-A prepare job on a large file, or a shard job of a big part, runs for minutes (on a cluster
-for hours) and would otherwise print nothing until it ends. `Progress` writes one line to
+A prepare job on a large file runs for minutes (on a cluster for hours) and would otherwise
+print nothing until it ends. `Progress` writes one line to
 standard error (the job's log) at most every `every` seconds, so `corpusmill progress BUILD`
 or `tail -f` on a log shows where each running job is.
 """

@@ -46,15 +46,17 @@ def assign_split(key: bytes, salt: str, fractions: dict[str, float]) -> str:
 
 
 def doc_hash(doc_id: str) -> int:
-    """The unseeded 64-bit hash of a document id that places it in a shard part."""
+    """The unseeded 64-bit hash of a document id: the order of rows in a chunk table
+    (steps.chunks) and the input of the train order (order_keys)."""
     return int.from_bytes(hashlib.blake2b(doc_id.encode("utf-8"), digest_size=8).digest(), "big")
 
 
 def order_keys(doc_hashes: np.ndarray, seed: int) -> np.ndarray:
-    """The order of train documents inside their part: a seeded 64-bit mix of each document's
-    `doc_hash` (uint64 array), vectorized. The mix is splitmix64's finalizer, a bijection in
-    which every input bit moves every output bit, so the order inside a part, whose hashes
-    share a range, looks random and changes completely with the seed."""
+    """The order of train documents inside a batch of their chunk: a seeded 64-bit mix of each
+    document's `doc_hash` (uint64 array), vectorized. The mix is splitmix64's finalizer, a
+    bijection in which every input bit moves every output bit, so the order of a batch of
+    consecutive row groups, whose hashes share a range, looks random and changes completely
+    with the seed."""
     keys = doc_hashes.astype(np.uint64) ^ _mix(np.array([seed & ((1 << 64) - 1)], np.uint64))[0]
     return _mix(keys)
 

@@ -1,10 +1,10 @@
 """Tidy: remove what earlier runs left in a build folder that no job of the current plan reads
 or writes.
 
-A removed input file, a changed chunk or pack size, fewer shard files, another unit mode: each
-leaves files of jobs that no longer exist (old chunk tables and counts, shard files of parts
-that are gone, their logs). They waste space, and stale shards would be taken for part of the
-build. After a successful run of the whole workflow, every file under the build folder that is
+A removed input file, a changed chunk or pack size, a row kind turned off, another unit mode:
+each leaves files of jobs that no longer exist (old chunk tables and counts, shard files of
+chunks or kinds that are gone, their logs). They waste space, and stale shards would be taken
+for part of the build. After a successful run of the whole workflow, every file under the build folder that is
 neither an input, an output nor a log of a job of the run's plan is removed, except the cache
 of learned subword models (a setting changed back reuses its model). Only a run of the default
 target knows the whole plan, so a run of a single target removes nothing.

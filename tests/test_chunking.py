@@ -1,5 +1,7 @@
-"""Chunking: cutting input files into byte-range chunks never splits a document and never
-changes any output, whatever the chunk size, line ends or document sizes."""
+"""Chunking: cutting input files into byte-range chunks never splits a document, whatever the
+chunk size, line ends or document sizes; and whatever the chunk and pack sizes, a build holds the
+same rows per split, the same vocabulary and the same coverage (its shard files follow its
+chunks, so their bytes differ), while two builds with one configuration are byte-identical."""
 
 from __future__ import annotations
 
@@ -8,6 +10,7 @@ import hashlib
 import json
 import random
 import re
+from collections import Counter
 from pathlib import Path
 
 import pyarrow.parquet as pq
@@ -142,16 +145,63 @@ def test_tiny_chunks_yield_exactly_the_documents_of_one_chunk(corpus: Path, sour
     assert chunked_tally == whole_tally
 
 
+def frozen(value: object) -> object:
+    """A row value made hashable: lists become tuples, at any depth."""
+    return tuple(frozen(item) for item in value) if isinstance(value, list) else value
+
+
+def split_rows(build: Path) -> dict[tuple[str, str], list[tuple]]:
+    """Every row of each (split, kind), reading the split's shard files in manifest order (after
+    checking that the manifest lists every shard file of the build)."""
+    manifest = json.loads((build / "manifest.json").read_text(encoding="utf-8"))
+    entries = [(split, entry) for split, figures in manifest["splits"].items() for entry in figures["shards"]]
+    assert sorted(entry["file"] for _, entry in entries) == sorted(p.relative_to(build).as_posix() for p in (build / "shards").rglob("*.parquet"))
+    rows: dict[tuple[str, str], list[tuple]] = {}
+    for split, entry in entries:
+        table = pq.read_table(build / entry["file"])
+        rows.setdefault((split, entry["kind"]), []).extend(tuple(frozen(v) for v in row.values()) for row in table.to_pylist())
+    return rows
+
+
+def split_figures(build: Path) -> dict:
+    """The manifest's figures per split (documents, sentences, tokens, rows, …) without its list of files."""
+    manifest = json.loads((build / "manifest.json").read_text(encoding="utf-8"))
+    return {split: {k: v for k, v in figures.items() if k != "shards"} for split, figures in manifest["splits"].items()}
+
+
+def assert_same_build_content(build: Path, reference: Path) -> None:
+    """What holds whatever chunk_mb and pack_mb (a build's shard files follow its chunks): each
+    split holds the same rows, as a multiset for train (collections.Counter) and as the same
+    sequence for dev and test read in manifest order; vocabulary.tsv and stats/token_counts.parquet
+    are the same bytes (hashlib.sha256); coverage.json and the manifest's figures per split are
+    equal (json.loads)."""
+    rows, expected = split_rows(build), split_rows(reference)
+    assert set(rows) == set(expected) == {(split, kind) for split in ("train", "dev", "test") for kind in ("ngram", "block", "stream")}
+    for (split, kind), reference_rows in expected.items():
+        assert reference_rows, (split, kind)
+        if split == "train":
+            assert Counter(rows[split, kind]) == Counter(reference_rows), (split, kind)
+        else:
+            assert rows[split, kind] == reference_rows, (split, kind)
+    for name in ("vocabulary.tsv", "stats/token_counts.parquet"):
+        assert hashlib.sha256((build / name).read_bytes()).digest() == hashlib.sha256((reference / name).read_bytes()).digest(), name
+    assert json.loads((build / "stats" / "coverage.json").read_text()) == json.loads((reference / "stats" / "coverage.json").read_text())
+    assert split_figures(build) == split_figures(reference)
+
+
 def build_fingerprints(build: Path) -> dict[str, str]:
-    """SHA-256 of every shard file, the vocabulary and the coverage statistics of a build."""
-    files = sorted((build / "shards").rglob("*.parquet")) + [build / "vocabulary.tsv", build / "stats" / "coverage.json"]
+    """SHA-256 of every shard file, the vocabulary, the token counts, the coverage statistics and
+    the manifest of a build."""
+    named = ("vocabulary.tsv", "stats/token_counts.parquet", "stats/coverage.json", "manifest.json")
+    files = sorted((build / "shards").rglob("*.parquet")) + [build / name for name in named]
     return {str(p.relative_to(build)): hashlib.sha256(p.read_bytes()).hexdigest() for p in files}
 
 
-def test_chunk_and_pack_sizes_give_byte_identical_shards_and_vocabulary(tmp_path: Path):
-    """Hashlib SHA-256 of each output file: a build with corpus.chunk_mb = 0.002 (about 2 KB,
-    several chunks per file, some inside a document) and one with every file its own job
-    (pack_mb 0) equal the default build, where the four small files are one pack, byte for byte."""
+def test_chunk_and_pack_sizes_give_the_same_rows_vocabulary_and_coverage(tmp_path: Path):
+    """A build with corpus.chunk_mb = 0.002 (about 2 KB, several chunks per file, some inside a
+    document) and one with every file its own job (pack_mb 0) hold what the default build holds,
+    where the four small files are one pack (assert_same_build_content). A second build with
+    the tiny chunks is byte for byte the first (hashlib SHA-256 of every output file)."""
     root = tmp_path / "corpus"
     root.mkdir()
     (root / "lf.txt").write_bytes(text_corpus(11, "\n", 40, long=60).encode("utf-8"))
@@ -160,30 +210,34 @@ def test_chunk_and_pack_sizes_give_byte_identical_shards_and_vocabulary(tmp_path
     (root / "records.jsonl").write_bytes(jsonl_corpus(14, "\n", 40, long=60).encode("utf-8"))
     sources = sorted(p.name for p in root.iterdir())
     chunk_mb = 0.002
-    assert len(plan_chunks(root, sources, int(chunk_mb * (1 << 20)), "paragraph", 1 << 20)) >= 15
+    tiny_chunks = plan_chunks(root, sources, int(chunk_mb * (1 << 20)), "paragraph", 1 << 20)
+    assert len(tiny_chunks) >= 15
     assert [c.sources for c in plan_chunks(root, sources, 32 << 20, "paragraph", 1 << 20)] == [tuple(sources)]
-    base = {"corpus": {"root": str(root)}, "shards": {"train_files": 2}}
+    base = {"corpus": {"root": str(root)}}
+    tiny = {"corpus": {"root": str(root), "chunk_mb": chunk_mb}}
     run_workflow(tmp_path / "default", base)
-    run_workflow(tmp_path / "tiny", {**base, "corpus": {"root": str(root), "chunk_mb": chunk_mb}})
-    run_workflow(tmp_path / "unpacked", {**base, "corpus": {"root": str(root), "pack_mb": 0}})
-    default = build_fingerprints(tmp_path / "default" / "build")
-    assert len(default) == 3 * 4 + 2  # 2 train + 1 dev + 1 test parts, 3 kinds each
-    assert build_fingerprints(tmp_path / "tiny" / "build") == default
-    assert build_fingerprints(tmp_path / "unpacked" / "build") == default
+    run_workflow(tmp_path / "tiny", tiny)
+    run_workflow(tmp_path / "unpacked", {"corpus": {"root": str(root), "pack_mb": 0}})
+    run_workflow(tmp_path / "tiny-again", tiny)
+    default = tmp_path / "default" / "build"
+    assert len(list((default / "shards").rglob("*.parquet"))) == 3 * 3  # one chunk: 3 splits x 3 kinds
+    assert len(list((tmp_path / "tiny" / "build" / "shards").rglob("*.parquet"))) == 3 * 3 * len(tiny_chunks)
+    assert_same_build_content(tmp_path / "tiny" / "build", default)
+    assert_same_build_content(tmp_path / "unpacked" / "build", default)
+    first, second = build_fingerprints(tmp_path / "tiny" / "build"), build_fingerprints(tmp_path / "tiny-again" / "build")
+    assert len(first) == 3 * 3 * len(tiny_chunks) + 4 and first == second
 
 
 def test_a_compressed_file_larger_than_the_run_budget_gives_the_same_build(tmp_path: Path):
     """A compressed file is one chunk whatever its size; a prepare job writes it in runs once
     it holds RUN_FACTOR x chunk_mb of rows in Arrow memory, so memory stays bounded. With
-    chunk_mb 0.01 the gzipped corpus (about 100 KB of text) takes several runs, and the shards,
-    vocabulary and statistics equal those of the default build (one run) byte for byte
-    (hashlib SHA-256)."""
+    chunk_mb 0.01 the gzipped corpus (about 100 KB of text) takes several runs, and the build
+    holds what the default build (one run) holds (assert_same_build_content)."""
     root = tmp_path / "corpus"
     root.mkdir()
     (root / "big.txt.gz").write_bytes(gzip.compress(text_corpus(21, "\n", 400, long=60).encode("utf-8")))
-    base = {"corpus": {"root": str(root)}, "shards": {"train_files": 2}}
-    run_workflow(tmp_path / "a", base)
-    run_workflow(tmp_path / "b", {**base, "corpus": {"root": str(root), "chunk_mb": 0.01}})
+    run_workflow(tmp_path / "a", {"corpus": {"root": str(root)}})
+    run_workflow(tmp_path / "b", {"corpus": {"root": str(root), "chunk_mb": 0.01}})
     runs = {}
     for name in ("a", "b"):
         table = pq.ParquetFile(next((tmp_path / name / "build" / "interim" / "prepared").glob("*.parquet")))
@@ -191,4 +245,4 @@ def test_a_compressed_file_larger_than_the_run_budget_gives_the_same_build(tmp_p
         splits = [table.metadata.row_group(g).column(column).statistics.min for g in range(table.num_row_groups)]
         runs[name] = 1 + sum(1 for a, b in zip(splits, splits[1:]) if b < a)  # each run starts over at dev
     assert runs["a"] == 1 and runs["b"] >= 4
-    assert build_fingerprints(tmp_path / "b" / "build") == build_fingerprints(tmp_path / "a" / "build")
+    assert_same_build_content(tmp_path / "b" / "build", tmp_path / "a" / "build")

@@ -19,9 +19,9 @@ import regex
 
 from conftest import run_workflow
 from corpusmill import settings
-from corpusmill.accounting import Tally
+from corpusmill.accounting import Tally, merge
 from corpusmill.ingest import Chunk, CorpusError, Document, ReadOptions, chunk_key, read_documents
-from corpusmill.plan import chunk_record, write_if_changed
+from corpusmill.plan import Plan
 from corpusmill.prepare import prepare_chunk
 from corpusmill.segment import Segmenter, is_lossless
 from tests import hostile
@@ -143,34 +143,36 @@ def test_crlf_and_lone_cr_line_ends_give_the_same_documents_as_lf(tmp_path: Path
 # --- size: one huge line, oversize documents ------------------------------------------------
 
 
-def _peak_rss_mib(root: Path, name: str, out: Path, corpus: dict) -> float:
-    """Peak resident memory (MiB) of `python -m steps.prepare` on one file, from wait4(2)."""
-    config = settings.resolve({"corpus": {"root": str(root), **corpus}})
-    plan = out / f"{name}.plan.json"
-    write_if_changed(plan, chunk_record(root, Chunk(chunk_key(name, 0), (name,))))
-    command = [
-        sys.executable, "-m", "steps.prepare", "--plan", str(plan),
-        "--options", json.dumps(config), "--output", str(out / f"{name}.parquet"), "--tally", str(out / f"{name}.json"),
-        "--counts", str(out / f"{name}.counts.parquet"), "--drops", str(out / f"{name}.drops.parquet"),
-    ]  # fmt: skip
-    process = subprocess.Popen(command, cwd=REPO, env={**os.environ, "PYTHONPATH": str(REPO)})
-    _, status, usage = os.wait4(process.pid, 0)
-    assert status == 0
-    return usage.ru_maxrss / 1024  # Linux reports KiB
+def _peak_rss_mib(root: Path, name: str, work: Path, corpus: dict, monkeypatch: pytest.MonkeyPatch) -> tuple[float, dict]:
+    """Peak resident memory (MiB) of the prepare jobs of one file, each run as the workflow runs
+    it (`python -m steps.run prepare --build … --chunk …`, measured by wait4(2)): the largest
+    over the file's chunks, and the file's tallies merged over them."""
+    work.mkdir(parents=True, exist_ok=True)
+    monkeypatch.chdir(work)
+    plan = Plan.from_config(settings.resolve({"corpus": {"root": str(root), "include": [name], **corpus}, "build_dir": "build"}))
+    plan.write_files()
+    peak = 0.0
+    for key in plan.chunk_keys:
+        command = [sys.executable, "-m", "steps.run", "prepare", "--build", "build", "--chunk", key]
+        process = subprocess.Popen(command, cwd=work, env={**os.environ, "PYTHONPATH": str(REPO)})
+        _, status, usage = os.wait4(process.pid, 0)
+        assert status == 0
+        peak = max(peak, usage.ru_maxrss / 1024)  # Linux reports KiB
+    return peak, merge([json.loads(Path(plan.layout.tally(key)).read_text()) for key in plan.chunk_keys], {})
 
 
 @pytest.mark.parametrize("oversize", ["truncate", "drop"])
-def test_a_single_50_mb_line_is_read_in_bounded_memory(tmp_path: Path, oversize: str) -> None:
-    """getrusage(2) ru_maxrss of the child: holding the line whole (bytes plus decoded text) would
-    take at least 100 MiB over the step's baseline; streaming stays well below that."""
+def test_a_single_50_mb_line_is_read_in_bounded_memory(tmp_path: Path, oversize: str, monkeypatch: pytest.MonkeyPatch) -> None:
+    """getrusage(2) ru_maxrss of each child: holding the line whole (bytes plus decoded text) would
+    take at least 100 MiB over the step's baseline; streaming stays well below that, in the job
+    of the chunk where the line starts as in those it runs through."""
     line = hostile.prose(50_000_000).replace(b"\n", b" ") + b"\n"
-    big = write(tmp_path, "one_line.txt", line)
-    small = write(tmp_path, "small.txt", hostile.prose(2_000))
+    big = write(tmp_path / "raw", "one_line.txt", line)
+    small = write(tmp_path / "raw", "small.txt", hostile.prose(2_000))
     corpus = {"oversize": oversize}
-    baseline = _peak_rss_mib(tmp_path, small, tmp_path, corpus)
-    peak = _peak_rss_mib(tmp_path, big, tmp_path, corpus)
+    baseline, _ = _peak_rss_mib(tmp_path / "raw", small, tmp_path / "small", corpus, monkeypatch)
+    peak, tally = _peak_rss_mib(tmp_path / "raw", big, tmp_path / "big", corpus, monkeypatch)
     assert peak - baseline < 100, f"peak {peak:.0f} MiB vs baseline {baseline:.0f} MiB"
-    tally = json.loads((tmp_path / f"{big}.json").read_text())
     assert tally["read"] == 1 and balanced(tally)
     assert tally["truncated" if oversize == "truncate" else "dropped"] in (1, {"oversize": 1})
 
@@ -417,7 +419,7 @@ def test_the_workflow_builds_the_hostile_corpus_under_lenient_policies_and_balan
     hostile.write_hostile_corpus(raw)
     override = tmp_path / "over.yaml"
     override.write_text(
-        json.dumps({"corpus": {"root": str(raw), "invalid_utf8": "replace", "bad_records": "drop"}, "shards": {"train_files": 1}})
+        json.dumps({"corpus": {"root": str(raw), "invalid_utf8": "replace", "bad_records": "drop"}})
     )
     run = subprocess.run(
         [sys.executable, "-m", "snakemake", "--snakefile", str(REPO / "Snakefile"), "--directory", str(tmp_path),

@@ -1,109 +1,119 @@
-"""Prepare: how a chunk table is stored, so that shard jobs read only their part of it, in
-bounded memory whatever the size of the chunk."""
+"""Prepare: one chunk's job reads its files, cleans, segments and splits every document, and
+writes the chunk table (tests/test_chunks.py covers its storage), the chunk's word counts, its
+tally with each input file's size and SHA-256, and the log of its dropped documents, all at the
+paths of the build's layout."""
 
 from __future__ import annotations
 
-import random
+import gzip
+import hashlib
+import json
+from collections import Counter
+from pathlib import Path
 
-import pyarrow as pa
 import pyarrow.parquet as pq
+import pytest
 
 from corpusmill import prepare
-from corpusmill.prepare import ChunkTableWriter, chunk_schema
-from corpusmill.split import doc_hash, read_part
+from corpusmill.layout import Layout
+from corpusmill.plan import Plan
+from corpusmill.settings import resolve
+
+PARAGRAPHS = [
+    "The lamp was lit at dusk. The keeper wrote it down.",
+    "x",
+    "Gulls circled the pier at noon, and the ferry was late.",
+    "The lamp was lit at dusk. The keeper wrote it down.",
+    "12 34 56 78 90",
+    "A storm came in from the west; the boats stayed in.",
+]
 
 
-def store_chunk(path: str, table: pa.Table, units: str, run_bytes: int = 1 << 40, batch_rows: int = 1 << 30) -> int:
-    """Store `table` as prepare does, handed over in batches of `batch_rows`; returns the runs written."""
-    with ChunkTableWriter(path, table.schema, units, run_bytes) as writer:
-        for start in range(0, table.num_rows, batch_rows):
-            writer.add(table.slice(start, batch_rows))
-    return writer.runs
+def planned_build(tmp_path: Path, monkeypatch: pytest.MonkeyPatch, files: dict[str, bytes], **sections: dict) -> tuple[Layout, list[str]]:
+    """A build folder planned as the workflow plans it (chunk list, chunk plans, options files)
+    for a corpus of `files`; returns its layout and chunk keys in corpus order."""
+    root = tmp_path / "raw"
+    root.mkdir()
+    for name, data in files.items():
+        (root / name).write_bytes(data)
+    monkeypatch.chdir(tmp_path)
+    config = resolve({**sections, "corpus": {"root": str(root), **sections.get("corpus", {})}, "build_dir": "build"})
+    plan = Plan.from_config(config)
+    plan.write_files()
+    return plan.layout, plan.chunk_keys
 
 
-def synthetic_chunk(documents: int, seed: int = 7, sources: tuple[str, ...] = ("notes.txt",)) -> pa.Table:
-    """A word-unit chunk table in corpus (file, offset) order with random splits and lengths;
-    the documents are shared out over `sources` in order."""
-    rng = random.Random(seed)
-    rows = {name: [] for name in chunk_schema("word").names}
-    for number in range(documents):
-        source = sources[number * len(sources) // documents]
-        offset = number * 40
-        doc_id = f"{source}:{offset}"
-        rows["doc_id"].append(doc_id)
-        rows["doc_hash"].append(doc_hash(doc_id))
-        rows["source"].append(source)
-        rows["offset"].append(offset * 40)
-        rows["split"].append(rng.choices(["train", "dev", "test"], [8, 1, 1])[0])
-        rows["fingerprint"].append(number.to_bytes(16, "big"))
-        rows["tokens"].append([[f"w{rng.randrange(50)}" for _ in range(rng.randint(1, 9))] for _ in range(rng.randint(1, 4))])
-    return pa.table(rows, schema=chunk_schema("word"))
+def recount(rows: list[dict]) -> Counter:
+    """(split, token) → count over the rows' tokens, with <s> once per document and </s> once
+    per sentence (collections.Counter)."""
+    counts: Counter = Counter()
+    for row in rows:
+        counts.update((row["split"], token) for sentence in row["tokens"] for token in sentence)
+        counts[(row["split"], "<s>")] += 1
+        counts[(row["split"], "</s>")] += len(row["tokens"])
+    return counts
 
 
-def test_rows_are_stored_by_split_then_doc_hash_in_groups_of_one_split(tmp_path, monkeypatch):
-    monkeypatch.setattr(prepare, "GROUP_TOKENS", 100)
-    table = synthetic_chunk(600)
-    path = tmp_path / "chunk.parquet"
-    assert store_chunk(str(path), table, "word") == 1
-    stored = pq.read_table(path)
-    assert sorted(stored.to_pylist(), key=lambda r: r["offset"]) == table.to_pylist()
-    keys = list(zip(stored["split"].to_pylist(), stored["doc_hash"].to_pylist()))
-    assert keys == sorted(keys)
-    parquet = pq.ParquetFile(path)
-    assert parquet.num_row_groups > 20
-    for group in range(parquet.num_row_groups):
-        rows = parquet.read_row_group(group)
-        assert len(set(rows["split"].to_pylist())) == 1
-        per_document = [sum(len(s) for s in doc) for doc in rows["tokens"].to_pylist()]
-        assert sum(per_document) < 100 + max(per_document)
+def test_a_chunk_job_writes_its_table_counts_tally_and_drop_log_at_the_layout_paths(tmp_path, monkeypatch, capsys):
+    """Two small files packed into one chunk. References: a recount by hand of the paragraphs
+    (every one read is kept or dropped with its reason, exact duplicates are still kept here:
+    the deduplicate step removes them), collections.Counter over the stored tokens for the
+    counts, and hashlib.sha256 and the file size for each input."""
+    files = {"a.txt": "\n\n".join(PARAGRAPHS).encode(), "b.txt": b"One more paragraph of the log.\n\nAnd a final one that differs.\n"}
+    layout, chunks = planned_build(tmp_path, monkeypatch, files)
+    assert len(chunks) == 1
+    prepare.main(["--build", "build", "--chunk", chunks[0]])
+    offsets = [sum(len(p) + 2 for p in PARAGRAPHS[:n]) for n in range(len(PARAGRAPHS))]
+    rows = pq.read_table(layout.prepared(chunks[0])).to_pylist()
+    kept = [("a.txt", offsets[n]) for n in (0, 2, 3, 5)] + [("b.txt", 0), ("b.txt", 32)]
+    assert sorted((r["source"], r["offset"]) for r in rows) == kept
+    assert all(r["doc_id"] == f"{r['source']}:{r['offset']}" for r in rows)
+    counts = pq.read_table(layout.counts(chunks[0])).to_pylist()
+    assert {(r["split"], r["token"]): r["count"] for r in counts} == recount(rows)
+    tally = json.loads(Path(layout.tally(chunks[0])).read_text())
+    assert (tally["read"], tally["kept"], tally["dropped"]) == (8, 6, {"too_short": 2})
+    assert tally["inputs"] == {name: {"bytes": len(data), "sha256": hashlib.sha256(data).hexdigest()} for name, data in files.items()}
+    drops = pq.read_table(layout.drop_log(chunks[0])).to_pylist()
+    assert drops == [{"source": "a.txt", "offset": offsets[n], "reason": "too_short"} for n in (1, 4)]
+    assert json.loads(capsys.readouterr().out.strip().splitlines()[-1])["kept"] == 6
 
 
-def test_an_empty_chunk_is_stored_as_an_empty_table(tmp_path):
-    path = tmp_path / "empty.parquet"
-    assert store_chunk(str(path), chunk_schema("subword").empty_table(), "subword") == 0
-    assert pq.read_table(path).num_rows == 0
+def test_only_the_first_chunk_of_a_cut_file_records_its_size_and_sha256(tmp_path, monkeypatch):
+    """A file cut into several chunks is hashed once (hashlib.sha256 as the reference), by the
+    job of its first chunk; the others record no inputs, so the manifest never sums them twice."""
+    data = "".join(f"Paragraph {n} of the harbour log tells of tides and ships.\n\n" for n in range(400)).encode()
+    layout, chunks = planned_build(tmp_path, monkeypatch, {"log.txt": data}, corpus={"chunk_mb": 0.004})
+    assert len(chunks) >= 5
+    kept = 0
+    for chunk in chunks:
+        prepare.main(["--build", "build", "--chunk", chunk])
+        tally = json.loads(Path(layout.tally(chunk)).read_text())
+        expected = {"log.txt": {"bytes": len(data), "sha256": hashlib.sha256(data).hexdigest()}} if chunk == chunks[0] else {}
+        assert tally["inputs"] == expected, chunk
+        kept += tally["kept"]
+    assert kept == 400
 
 
-def test_subword_rows_are_grouped_by_sentence_characters(tmp_path, monkeypatch):
-    monkeypatch.setattr(prepare, "GROUP_TOKENS", 50)
-    schema = chunk_schema("subword")
-    texts = [["a sentence of some length."] * (i % 5 + 1) for i in range(200)]
-    ids = [f"f.txt:{i}" for i in range(200)]
-    table = pa.table(
-        {
-            "doc_id": ids, "doc_hash": pa.array([doc_hash(d) for d in ids], pa.uint64()), "source": ["f.txt"] * 200,
-            "offset": list(range(200)), "split": ["train"] * 200, "fingerprint": [i.to_bytes(16, "big") for i in range(200)],
-            "sentences": texts,
-        },
-        schema=schema,
-    )
-    path = tmp_path / "sub.parquet"
-    store_chunk(str(path), table, "subword")
-    parquet = pq.ParquetFile(path)
-    assert parquet.metadata.num_rows == 200 and parquet.num_row_groups > 10
-    for group in range(parquet.num_row_groups):
-        documents = parquet.read_row_group(group)["sentences"].to_pylist()
-        weights = [max(sum(len(s.encode()) for s in doc) // 4, 1) for doc in documents]
-        assert sum(weights) < 50 + max(weights)
-
-
-def test_a_chunk_larger_than_the_run_budget_is_stored_in_sorted_runs(tmp_path, monkeypatch):
-    """Rows held past the budget are written as a run of their own (bounded memory for a big
-    compressed file); every row is stored once, each run in (split, doc_hash) order, and a
-    part read by row-group statistics still finds all its rows."""
-    monkeypatch.setattr(prepare, "GROUP_TOKENS", 100)
-    table = synthetic_chunk(1200, sources=("a.txt", "b.txt", "c.txt"))
-    path = str(tmp_path / "chunk.parquet")
-    runs = store_chunk(path, table, "word", run_bytes=table.slice(0, 250).nbytes, batch_rows=100)
-    assert runs == 4  # batches of 100 rows, a run closes at the first batch that reaches 250 rows
-    stored = pq.read_table(path)
-    key = lambda r: (r["source"], r["offset"])  # noqa: E731
-    assert sorted(stored.to_pylist(), key=key) == table.to_pylist()
-    keys = list(zip(stored["split"].to_pylist(), stored["doc_hash"].to_pylist()))
-    run_starts = [0] + [i for i in range(1, len(keys)) if keys[i] < keys[i - 1]]
-    assert len(run_starts) == runs
-    for start, stop in zip(run_starts, [*run_starts[1:], len(keys)]):
-        assert keys[start:stop] == sorted(keys[start:stop])
-    for part in range(3):
-        got = read_part(path, "dev", part, 3, ["doc_id"])["doc_id"].to_pylist()
-        assert sorted(got) == sorted(r["doc_id"] for r in table.to_pylist() if r["split"] == "dev" and r["doc_hash"] * 3 >> 64 == part)
+def test_a_chunk_written_in_several_runs_holds_the_rows_and_counts_of_one_run(tmp_path, monkeypatch):
+    """A compressed file is one chunk whatever its size; a chunk_mb far below its text makes the
+    job write its table in several runs (bounded memory). The rows (as a multiset, Python's
+    sorted() by place) and the counts equal those of a job that holds the chunk in one run."""
+    text = "".join(f"Paragraph {n}: the ferry left at {n % 24} o'clock and the crew sang. Gulls followed.\n\n" for n in range(3000))
+    layout, chunks = planned_build(tmp_path, monkeypatch, {"log.txt.gz": gzip.compress(text.encode())})
+    (chunk,) = chunks
+    options = json.loads(Path(layout.options("prepare")).read_text())
+    results = {}
+    for name, chunk_mb in (("one", 64), ("many", 0.02)):
+        options["corpus"]["chunk_mb"] = chunk_mb
+        Path(layout.options("prepare")).write_text(json.dumps(options))
+        prepare.main(["--build", "build", "--chunk", chunk])
+        parquet = pq.ParquetFile(layout.prepared(chunk))
+        column = parquet.schema_arrow.names.index("split")
+        minima = [parquet.metadata.row_group(g).column(column).statistics.min for g in range(parquet.num_row_groups)]
+        runs = 1 + sum(1 for a, b in zip(minima, minima[1:]) if b < a)  # each run starts over at its first split
+        table = parquet.read().to_pylist()
+        counts = {(r["split"], r["token"]): r["count"] for r in pq.read_table(layout.counts(chunk)).to_pylist()}
+        results[name] = (runs, sorted(table, key=lambda r: (r["source"], r["offset"])), counts)
+    assert results["one"][0] == 1 and results["many"][0] >= 4
+    assert results["many"][1] == results["one"][1] and len(results["one"][1]) == 3000
+    assert results["many"][2] == results["one"][2] == recount(results["one"][1])

@@ -75,20 +75,6 @@ def test_segment_drops_sentences_without_tokens():
     assert pattern().segment("One. Two.") == [["One", "."], ["Two", "."]]
 
 
-def test_abbreviations_are_learned_from_the_start_of_each_file(tmp_path):
-    from corpusmill.segment import learned_abbreviations
-    from corpusmill.settings import resolve
-
-    text = "".join(
-        f"The crate weighs approx. {i} stone and the barge carries it. Lamps burn all night long.\n\n" for i in range(40)
-    )
-    (tmp_path / "a.txt").write_text(text)
-    config = resolve({"corpus": {"root": str(tmp_path)}})
-    found = learned_abbreviations(str(tmp_path), ["a.txt"], config, sample_bytes=1 << 20)
-    assert "approx" in found
-    assert not found & {"it", "long", "night"}  # sentence ends before a capital are not abbreviations
-
-
 WRAPPED = "The ferry left the harbour at dawn and\nreached the island by noon. The crew\nunloaded the crates.\n\nA second paragraph\nstarts here."
 
 

@@ -13,9 +13,7 @@ import functools
 import gzip
 import os
 import random
-import re
 import time
-from collections import Counter
 from collections.abc import Callable
 from pathlib import Path
 from typing import IO
@@ -23,11 +21,9 @@ from typing import IO
 import pytest
 import regex
 
-from conftest import require_file
 from corpusmill import unicode_breaks
 from corpusmill.unicode_breaks import (
     last_cluster_start,
-    learn_abbreviations,
     sentence_segments,
     split_graphemes,
     truncate_graphemes,
@@ -531,142 +527,6 @@ def test_sentence_segments_are_lossless() -> None:
     for s in random_strings(samples, 500, extra=("Dr", ". ", " A")):
         assert "".join(sentence_segments(s, frozenset({"dr"}))) == s
         assert all(sentence_segments(s))
-
-
-def synthetic_corpus() -> list[str]:
-    """Documents where "approx." recurs before lowercase words and numbers."""
-    rng = random.Random(7)
-    nouns = ["box", "crate", "river", "road", "table", "garden", "engine", "letter"]
-    verbs = ["weighs", "measures", "holds", "spans", "needs", "costs"]
-    docs = []
-    for _ in range(400):
-        noun, verb, other = rng.choice(nouns), rng.choice(verbs), rng.choice(nouns)
-        docs.append(
-            f"The {noun} {verb} approx. {rng.randint(2, 90)} units and the {other} {verb} approx. "
-            f"twice the {noun}. Dr. Ames saw the {other} near the {noun}. The {other} left the {noun}."
-        )
-    return docs
-
-
-def test_learn_abbreviations_finds_recurring_period_words() -> None:
-    """Kiss & Strunk (2006) type-based stage: words nearly always followed by a period.
-
-    Source: Kiss & Strunk, "Unsupervised Multilingual Sentence Boundary Detection",
-    Computational Linguistics 32(4), 2006 — log-likelihood with P(period | abbreviation) =
-    0.99, length, inner-period and no-period penalty factors, threshold 0.3.
-    """
-    learned = learn_abbreviations(synthetic_corpus())
-    assert {"approx", "dr"} <= learned
-    # Sentence-final words also occur without a period and are penalized.
-    assert not learned & {"box", "crate", "river", "ames", "units"}
-    text = "Dr. Ames weighs approx. 5 kg."
-    assert sentence_segments(text, learned) == [text]
-
-
-def test_learn_abbreviations_needs_evidence() -> None:
-    """A word seen with a period fewer than min_count times is not learned (Kiss & Strunk's
-    counts are unreliable for rare types); no periods at all give nothing."""
-    assert learn_abbreviations(["I saw Dr. Who once. And then nothing"], min_count=2) == frozenset()
-    assert learn_abbreviations(["no periods here at all"]) == frozenset()
-    # Pruning to a small table drops rare entries, not the frequent abbreviations.
-    assert {"approx", "dr"} <= learn_abbreviations(iter(synthetic_corpus()), max_types=30)
-
-
-# The learner's patterns before they were made linear: each match was tried from every position,
-# so "a.a.a…a" took time worse than quadratic in its length. Kept only as the reference for the
-# tests below.
-FORMER_PERIOD_THEN_WORD = regex.compile(r"(\w+(?:\.\w+)*)\.(?:\s+(\w)|\s*+$)", regex.V1)
-FORMER_LEARNER_WORD = regex.compile(r"(\w+(?:\.\w+)*)(\.?)", regex.V1)
-FORMER_LETTERS_AND_PERIODS = regex.compile(r"[^\W\d_]+(?:\.[^\W\d_]+)*", regex.V1)
-FORTUNES = Path("/usr/share/games/fortunes")
-# English collections of Debian's `fortunes` package (the art, Chinese and bilingual files left out).
-ENGLISH_FORTUNES = (
-    "computers cookie definitions drugs education ethnic food humorists kids law linux literature love magic "
-    "medicine men-women miscellaneous news people pets platitudes politics riddles science songs-poems sports "
-    "startrek wisdom work zippy"
-).split()
-GCIDE = Path("/usr/share/dictd/gcide.dict.dz")
-
-
-def real_documents() -> dict[str, list[str]]:
-    """Debian's English fortunes (one document per record between `%` lines) and the first 3 MB
-    of dict-gcide (one per paragraph)."""
-    fortunes = []
-    for name in ENGLISH_FORTUNES:
-        text = require_file(FORTUNES / name, "fortunes").read_text(encoding="utf-8", errors="replace")
-        fortunes += re.split(r"(?m)^%\n", text)
-    with gzip.open(require_file(GCIDE, "dict-gcide"), "rb") as file:
-        gcide = file.read(3_000_000).decode("utf-8", errors="ignore").split("\n\n")
-    return {"fortunes": fortunes, "gcide": gcide}
-
-
-def test_learned_abbreviations_of_real_text_equal_those_of_the_former_patterns(monkeypatch: pytest.MonkeyPatch) -> None:
-    """Differential, reference kept in this file: the backtracking patterns the learner used
-    before (FORMER_*). On Debian's English fortunes and dict-gcide every match and the learned
-    set are the same; the sets are not empty (gcide abbreviates "e.g", "obs", "fr", …)."""
-    learned = {}
-    for name, documents in real_documents().items():
-        learned[name] = learn_abbreviations(documents)
-        for document in documents:
-            assert unicode_breaks._PERIOD_THEN_WORD.findall(document) == FORMER_PERIOD_THEN_WORD.findall(document)
-            assert unicode_breaks._LEARNER_WORD.findall(document) == FORMER_LEARNER_WORD.findall(document)
-        with monkeypatch.context() as former:
-            former.setattr(unicode_breaks, "_PERIOD_THEN_WORD", FORMER_PERIOD_THEN_WORD)
-            former.setattr(unicode_breaks, "_LEARNER_WORD", FORMER_LEARNER_WORD)
-            former.setattr(unicode_breaks, "_LETTERS_AND_PERIODS", FORMER_LETTERS_AND_PERIODS)
-            assert learn_abbreviations(documents) == learned[name], name
-        assert len(learned[name]) >= 5, (name, learned[name])
-    assert {"e.g", "obs", "fr"} <= learned["gcide"]
-
-
-def test_learner_patterns_match_as_the_former_ones_on_random_strings() -> None:
-    """Differential against FORMER_* on 100,000 seeded strings of word characters, periods,
-    blanks, marks and closing punctuation: the same matches, groups and full matches."""
-    rng = random.Random(11)
-    alphabet = ["a", "b", "A", "1", "_", ".", ".", " ", "\n", "\t", '"', ")", "\u00e9", "\u0301", "-", "\u00a0"]
-    failures = []
-    for _ in range(100_000):
-        s = "".join(rng.choice(alphabet) for _ in range(rng.randint(0, 14)))
-        if (
-            unicode_breaks._PERIOD_THEN_WORD.findall(s) != FORMER_PERIOD_THEN_WORD.findall(s)
-            or unicode_breaks._LEARNER_WORD.findall(s) != FORMER_LEARNER_WORD.findall(s)
-            or bool(unicode_breaks._LETTERS_AND_PERIODS.fullmatch(s)) != bool(FORMER_LETTERS_AND_PERIODS.fullmatch(s))
-        ):
-            failures.append(s)
-    assert not failures, failures[:10]
-
-
-class CountedWalks(Counter):
-    """A Counter that counts how often its entries are walked."""
-
-    walks = 0
-
-    def items(self):  # type: ignore[override]
-        self.walks += 1
-        return super().items()
-
-    def values(self):  # type: ignore[override]
-        self.walks += 1
-        return super().values()
-
-
-def test_pruning_drops_the_rarest_entries_by_the_lowest_sufficient_cutoff_in_two_walks() -> None:
-    """The rule of learn_abbreviations' docstring restated: raise a cut-off from 1 until at most
-    `target` entries have a higher count, and drop the rest. Pruning a table whose counts are
-    all near 1,000 reads it twice (one walk per cut-off value would be about 1,000 walks)."""
-    rng = random.Random(12)
-    for _ in range(2000):
-        counts = Counter({(str(k), ""): rng.randint(1, 12) for k in range(rng.randint(0, 30))})
-        target = rng.randint(0, 32)
-        cutoff = 0
-        while sum(count > cutoff for count in counts.values()) > target:
-            cutoff += 1
-        expected = Counter({key: count for key, count in counts.items() if count > cutoff})
-        unicode_breaks._prune(counts, target)
-        assert counts == expected
-    table = CountedWalks({(str(k), ""): 1000 + k % 7 for k in range(10_000)})
-    unicode_breaks._prune(table, 100)
-    assert table.walks <= 2 and len(table) == 0
 
 
 # ---------------------------------------------------------------------------------------------

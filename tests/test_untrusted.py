@@ -17,12 +17,12 @@ import pytest
 import yaml
 from conftest import run_workflow
 
-from corpusmill import unicode_breaks
+from corpusmill import abbreviations, unicode_breaks
 from corpusmill.accounting import Tally
 from corpusmill.clean import CleanOptions, clean_text, rejection
 from corpusmill.ingest import Chunk, CorpusError, ReadOptions, _grapheme_cut, chunk_key, read_documents
 from corpusmill.segment import Segmenter
-from corpusmill.vocab import unknown_class
+from corpusmill.vocabulary import unknown_class
 from tests import hostile
 
 REPO = Path(__file__).resolve().parent.parent
@@ -97,7 +97,7 @@ TEXT_FUNCTIONS: dict[str, Callable[[str], object]] = {
     "segment uax29 split": Segmenter(apostrophes="split", hyphens="split").segment,
     "segment pattern+punctuation keep": Segmenter(sentences_mode="punctuation", words_mode="pattern", abbreviations=ABBREVIATIONS).segment,
     "segment pattern+punctuation split": Segmenter(sentences_mode="punctuation", words_mode="pattern", apostrophes="split", hyphens="split").segment,
-    "learn_abbreviations": lambda text: unicode_breaks.learn_abbreviations([text]),
+    "learn_abbreviations": lambda text: abbreviations.learn_abbreviations([text]),
     "split_graphemes": lambda text: unicode_breaks.split_graphemes(text, 1000),
     "oversize document cut": lambda text: _grapheme_cut(text.encode("utf-8")),
     "unknown_class": unknown_class,

@@ -1,0 +1,272 @@
+"""Deduplicate: exact duplicate documents across the whole corpus (the first in corpus order is
+kept), ids that name two documents, and what the job hands each chunk: its list of removed
+documents and the word counts of those documents."""
+
+from __future__ import annotations
+
+import random
+from collections import Counter
+from pathlib import Path
+
+import numpy as np
+import pyarrow as pa
+import pyarrow.parquet as pq
+import pytest
+
+from corpusmill import chunks, deduplicate, prepare
+from corpusmill.chunks import removed_mask
+from corpusmill.deduplicate import CorpusRows, find_duplicates, first_occurrences, removed_counts, repeated_ids, repeated_ids_message
+from corpusmill.split import doc_hash, fingerprint
+from corpusmill.storage import write_table
+from tests.test_chunks import recorded_reads, store_chunk, synthetic_chunk
+from tests.test_prepare import planned_build, recount
+
+
+def write_chunk(path, columns: dict) -> None:
+    """A prepared chunk's columns that deduplication reads, doc_hash derived from doc_id."""
+    write_table(path, pa.table({**columns, "doc_hash": pa.array([doc_hash(d) for d in columns["doc_id"]], pa.uint64())}))
+
+
+def test_duplicates_keep_the_first_in_corpus_order(tmp_path):
+    def chunk(path, source, texts):
+        write_chunk(
+            path,
+            {
+                "source": [source] * len(texts),
+                "offset": list(range(len(texts))),
+                "doc_id": [f"{source}:{i}" for i in range(len(texts))],
+                "fingerprint": pa.array([fingerprint(t) for t in texts], pa.binary(16)),
+            },
+        )
+
+    chunk(tmp_path / "a.parquet", "a.txt", ["x", "y", "x"])
+    chunk(tmp_path / "b.parquet", "b.txt", ["y", "z"])
+    duplicates, chunk_of = find_duplicates(CorpusRows([str(tmp_path / "a.parquet"), str(tmp_path / "b.parquet")]))
+    assert duplicates.to_pylist() == [
+        {"source": "a.txt", "offset": 2, "doc_id": "a.txt:2", "duplicate_of": "a.txt:0"},
+        {"source": "b.txt", "offset": 0, "doc_id": "b.txt:0", "duplicate_of": "a.txt:1"},
+    ]
+    assert chunk_of.tolist() == [0, 1]
+    assert removed_mask(duplicates, pa.array(["a.txt"] * 3), pa.array([0, 1, 2])).tolist() == [False, False, True]
+
+
+def test_duplicates_of_a_pack_of_files_are_found_in_corpus_order(tmp_path):
+    """A pack holds several files whose offsets overlap; rows are stored out of corpus order."""
+    write_chunk(
+        tmp_path / "pack.parquet",
+        {
+            "source": ["b.txt", "a.txt", "b.txt", "a.txt"],
+            "offset": [0, 0, 5, 5],
+            "doc_id": ["b.txt:0", "a.txt:0", "b.txt:5", "a.txt:5"],
+            "fingerprint": pa.array([fingerprint(t) for t in ["x", "y", "z", "x"]], pa.binary(16)),
+        },
+    )
+    duplicates, chunk_of = find_duplicates(CorpusRows([str(tmp_path / "pack.parquet")]))
+    assert duplicates.to_pylist() == [{"source": "b.txt", "offset": 0, "doc_id": "b.txt:0", "duplicate_of": "a.txt:5"}]
+    assert chunk_of.tolist() == [0]
+    mask = removed_mask(duplicates, pa.array(["a.txt", "b.txt", "a.txt", "b.txt"]), pa.array([0, 0, 5, 5]))
+    assert mask.tolist() == [False, True, False, False]
+    assert removed_mask(duplicates, pa.array(["c.txt"]), pa.array([0])).tolist() == [False]
+
+
+def test_first_occurrences_match_a_first_seen_dict():
+    """Reference: a plain dict of the first row each fingerprint was seen at, over 20,000 rows
+    drawn from 3,000 values; values equal in one 64-bit half only must not count as repeats."""
+    rng = random.Random(7)
+    values = [fingerprint(str(i).encode().hex()) for i in range(3000)]
+    values += [values[0][:8] + bytes(8), bytes(8) + values[0][8:]]  # share one half with values[0]
+    prints = [rng.choice(values) for _ in range(20000)]
+    words = np.frombuffer(b"".join(prints), dtype=np.uint64).reshape(-1, 2)
+    first_seen: dict[bytes, int] = {}
+    expected = []
+    for row, value in enumerate(prints):
+        if value in first_seen:
+            expected.append((row, first_seen[value]))
+        else:
+            first_seen[value] = row
+    rows, owners = first_occurrences(words)
+    assert list(zip(rows.tolist(), owners.tolist())) == expected
+    assert first_occurrences(np.empty((0, 2), np.uint64))[0].size == 0
+
+
+def test_rows_equal_in_one_word_only_are_not_repeats_even_when_sorted_side_by_side():
+    """Fingerprints (5, 7) and (6, 7) share their second 64-bit word and sort next to each
+    other; (3, 9) and (3, 8) share the first. None repeats another; the exact pair (6, 7) does."""
+    words = np.array([[5, 7], [6, 7], [3, 9], [3, 8], [6, 7]], dtype=np.uint64)
+    rows, owners = first_occurrences(words)
+    assert (rows.tolist(), owners.tolist()) == ([4], [1])
+
+
+def test_duplicates_follow_offsets_not_storage_order(tmp_path):
+    """Prepared chunks store rows by split and doc_hash; "first" still means first by offset."""
+    write_chunk(
+        tmp_path / "a.parquet",
+        {
+            "source": ["a.txt"] * 3,
+            "offset": [80, 0, 40],
+            "doc_id": ["a.txt:80", "a.txt:0", "a.txt:40"],
+            "fingerprint": pa.array([fingerprint(t) for t in ["x", "x", "x"]], pa.binary(16)),
+        },
+    )
+    duplicates, _ = find_duplicates(CorpusRows([str(tmp_path / "a.parquet")]))
+    assert duplicates.to_pylist() == [
+        {"source": "a.txt", "offset": 40, "doc_id": "a.txt:40", "duplicate_of": "a.txt:0"},
+        {"source": "a.txt", "offset": 80, "doc_id": "a.txt:80", "duplicate_of": "a.txt:0"},
+    ]
+
+
+def test_repeated_ids_are_found_within_and_across_chunks_with_every_place(tmp_path):
+    """A plain dict of id -> places over the same rows is the reference; ids that share a
+    doc_hash but differ as strings (a forced collision) are not repeats."""
+    write_chunk(
+        tmp_path / "a.parquet",
+        {
+            "source": ["a.jsonl"] * 3,
+            "offset": [0, 10, 20],
+            "doc_id": ["k1", "k2", "k1"],
+            "fingerprint": pa.array([fingerprint(t) for t in "xyz"], pa.binary(16)),
+        },
+    )
+    write_chunk(
+        tmp_path / "b.parquet",
+        {
+            "source": ["b.jsonl"] * 2,
+            "offset": [0, 7],
+            "doc_id": ["k2", "solo"],
+            "fingerprint": pa.array([fingerprint(t) for t in "uv"], pa.binary(16)),
+        },
+    )
+    corpus = CorpusRows([str(tmp_path / "a.parquet"), str(tmp_path / "b.parquet")])
+    assert repeated_ids(corpus) == [("k1", [("a.jsonl", 0), ("a.jsonl", 20)]), ("k2", [("a.jsonl", 10), ("b.jsonl", 0)])]
+    corpus.hashes[:] = 7  # every id in one hash bucket: only equal strings are repeats
+    assert [doc_id for doc_id, _ in repeated_ids(corpus)] == ["k1", "k2"]
+    message = repeated_ids_message(repeated_ids(corpus), by_file=False)
+    assert "'k1' at a.jsonl byte 0 and a.jsonl byte 20" in message and "corpus.repeated_ids: by_file" in message
+
+
+def test_duplicates_of_a_pack_stored_in_many_row_groups_follow_corpus_order(tmp_path, monkeypatch):
+    """A plain dict of first sightings over the rows sorted by (file, offset) is the reference;
+    the pack's two files, whose offsets overlap, are spread over 30+ row groups, each with its
+    own file-name dictionary."""
+    monkeypatch.setattr(chunks, "GROUP_TOKENS", 150)
+    table = synthetic_chunk(900, sources=("b.txt", "a.txt"))
+    prints = [(i % 37).to_bytes(16, "big") for i in range(900)]
+    table = table.set_column(table.schema.get_field_index("fingerprint"), "fingerprint", pa.array(prints, pa.binary(16)))
+    path = str(tmp_path / "pack.parquet")
+    store_chunk(path, table, "word")
+    assert pq.ParquetFile(path).num_row_groups > 30
+    rows = sorted(table.select(["source", "offset", "doc_id", "fingerprint"]).to_pylist(), key=lambda r: (r["source"], r["offset"]))
+    first: dict[bytes, str] = {}
+    expected = []
+    for row in rows:
+        if row["fingerprint"] in first:
+            expected.append({"source": row["source"], "offset": row["offset"], "doc_id": row["doc_id"], "duplicate_of": first[row["fingerprint"]]})
+        else:
+            first[row["fingerprint"]] = row["doc_id"]
+    duplicates, chunk_of = find_duplicates(CorpusRows([path]))
+    assert duplicates.to_pylist() == expected and chunk_of.tolist() == [0] * len(expected)
+
+
+@pytest.mark.parametrize(("read_bytes", "merge_files"), [(deduplicate.REMOVED_READ_BYTES, deduplicate.MERGE_FILES), (1, 2)])
+def test_removed_counts_equal_a_counter_recount_of_the_removed_documents(tmp_path, monkeypatch, read_bytes: int, merge_files: int):
+    """collections.Counter over the tokens of the documents named in a chunk's removed list, per
+    split, with <s> once per document and </s> once per sentence; the chunk is a pack of two
+    files, whose offsets overlap, stored in many row groups. Only row groups holding a removed
+    document are read, in batches of the read budget (one group at a time for a budget of one
+    byte, partial counts merged every two batches): the counts stay the same."""
+    monkeypatch.setattr(chunks, "GROUP_TOKENS", 150)
+    monkeypatch.setattr(deduplicate, "REMOVED_READ_BYTES", read_bytes)
+    monkeypatch.setattr(deduplicate, "MERGE_FILES", merge_files)
+    table = synthetic_chunk(900, sources=("a.txt", "b.txt"))
+    path = str(tmp_path / "chunk.parquet")
+    store_chunk(path, table, "word")
+    parquet = pq.ParquetFile(path)
+    assert parquet.num_row_groups > 30
+    rows = table.to_pylist()
+    removed = [rows[5], rows[17], rows[450], rows[899], *rows[100:700:41]]
+    assert {r["offset"] for r in rows if r["source"] == "b.txt"} & {r["offset"] for r in removed if r["source"] == "a.txt"}
+    places = pa.table({"source": [r["source"] for r in removed], "offset": pa.array([r["offset"] for r in removed], pa.int64())})
+    expected = Counter((r["split"], token) for r in removed for sentence in r["tokens"] for token in sentence)
+    expected.update((r["split"], "<s>") for r in removed)
+    expected.update((r["split"], "</s>") for r in removed for _ in r["tokens"])
+    reads = recorded_reads(monkeypatch)
+    counts = removed_counts(path, places)
+    assert {(r["split"], r["token"]): r["count"] for r in counts.to_pylist()} == dict(expected)
+    wanted = {(r["source"], r["offset"]) for r in removed}
+    holding = {g for g in range(parquet.num_row_groups) if wanted & set(zip(*parquet.read_row_group(g, columns=["source", "offset"]).to_pydict().values()))}
+    assert sorted(g for read in reads for g in read) == sorted(holding) and len(holding) > 10
+    assert len(reads) == (len(holding) if read_bytes == 1 else 1)
+    assert removed_counts(path, places.slice(0, 0)).num_rows == 0
+
+
+FILES = {
+    "a.txt": ["The lamp was lit at dusk by the keeper.", "Gulls circled the pier at noon today.", "The lamp was lit at dusk by the keeper."],
+    "b.txt": ["A storm came in from the west at night.", "Gulls circled the pier at noon today."],
+    "c.txt": ["Nothing here repeats anything said before."],
+    "d.txt": ["A storm came in from the west at night.", "The lamp was lit at dusk by the keeper.", "The tide turned late."],
+}
+
+
+def run_deduplicate(tmp_path, monkeypatch, **split: object):
+    """Prepare every chunk of FILES (one chunk per file) and run the deduplicate job; returns
+    the layout and chunk keys."""
+    files = {name: "\n\n".join(paragraphs).encode() for name, paragraphs in FILES.items()}
+    layout, keys = planned_build(tmp_path, monkeypatch, files, corpus={"pack_mb": 0}, split=split)
+    assert len(keys) == 4
+    for key in keys:
+        prepare.main(["--build", "build", "--chunk", key])
+    deduplicate.main(["--build", "build"])
+    return layout, keys
+
+
+def test_the_job_hands_each_chunk_its_own_removed_documents_and_their_word_counts(tmp_path, monkeypatch):
+    """Four files, one chunk each, with repeats inside a file and across files. References: a
+    plain dict of first sightings over the paragraphs in corpus order (files by path, then byte
+    offset); each chunk's list holds exactly its own removed places, sorted (a chunk with none
+    gets an empty list); the counts are a collections.Counter recount of the removed documents'
+    tokens read back from the chunk tables."""
+    layout, keys = run_deduplicate(tmp_path, monkeypatch)
+    first: dict[str, str] = {}
+    expected = []
+    for name, paragraphs in FILES.items():
+        offset = 0
+        for text in paragraphs:
+            doc_id = f"{name}:{offset}"
+            if text in first:
+                expected.append({"source": name, "offset": offset, "doc_id": doc_id, "duplicate_of": first[text]})
+            else:
+                first[text] = doc_id
+            offset += len(text) + 2
+    assert pq.read_table(layout.duplicates).to_pylist() == expected and len(expected) == 4
+    removed_rows = []
+    for key, name in zip(keys, FILES):
+        listed = pq.read_table(layout.removed(key)).to_pylist()
+        assert listed == [{"source": r["source"], "offset": r["offset"]} for r in expected if r["source"] == name], name
+        places = {(r["source"], r["offset"]) for r in listed}
+        removed_rows += [r for r in pq.read_table(layout.prepared(key)).to_pylist() if (r["source"], r["offset"]) in places]
+    assert pq.read_table(layout.removed(keys[2])).num_rows == 0
+    counts = pq.read_table(layout.removed_counts).to_pylist()
+    assert {(r["split"], r["token"]): r["count"] for r in counts} == recount(removed_rows)
+    assert [(r["split"], r["token"]) for r in counts] == sorted((r["split"], r["token"]) for r in counts)
+
+
+def test_with_deduplication_off_every_chunk_gets_an_empty_list(tmp_path, monkeypatch):
+    """split.deduplicate: false keeps every document: no duplicates, an empty removed list per
+    chunk (the shard jobs still find one) and no counts to subtract."""
+    layout, keys = run_deduplicate(tmp_path, monkeypatch, deduplicate=False)
+    assert pq.read_table(layout.duplicates).num_rows == 0
+    assert all(pq.read_table(layout.removed(key)).num_rows == 0 for key in keys)
+    assert pq.read_table(layout.removed_counts).num_rows == 0
+
+
+def test_a_chunk_with_a_file_it_could_not_read_stops_the_job_naming_it(tmp_path, monkeypatch):
+    """RFC 3629: a lone continuation byte is invalid UTF-8; under corpus.invalid_utf8: stop the
+    prepare job records the file and the deduplicate job stops before writing anything."""
+    layout, keys = planned_build(tmp_path, monkeypatch, {"a.txt": b"Good text of a paragraph.\n", "b.txt": b"Bad \x80 byte here.\n"}, corpus={"pack_mb": 0})
+    for key in keys:
+        prepare.main(["--build", "build", "--chunk", key])
+    with pytest.raises(SystemExit) as stopped:
+        deduplicate.main(["--build", "build"])
+    message = str(stopped.value)
+    assert message.startswith("corpusmill: 1 input file(s) cannot be read as configured") and "b.txt: invalid UTF-8 at byte offset 4" in message
+    assert not Path(layout.duplicates).exists() and not any(Path(layout.removed(key)).exists() for key in keys)
