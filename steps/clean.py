@@ -63,7 +63,7 @@ def clean_text(text: str, options: CleanOptions) -> str:
 
     A pass is skipped when the text cannot hold what it replaces (a substring test, or for ASCII
     text a byte-table test): most documents need few of the passes, and a regex pass over a whole
-    document costs far more than the test (the passes took 13 % of a prepare job, cProfile)."""
+    document costs far more than the test (profiled on a prepare job)."""
     if "\r" in text:
         text = _LINE_ENDS.sub("\n", text)
     ascii_text = text.isascii()

@@ -109,8 +109,8 @@ def _type_ids(pieces: list[tuple[str, pa.Array]], vocabulary: pa.Array) -> np.nd
     """Positions of the tokens of (chunk path, tokens) pieces in the token-count table.
 
     Arrow finds each count-table token among the batch's distinct tokens (hashing the batch's
-    60k distinct tokens beats hashing the table's 300k per batch: 10 against 35 ms, measured),
-    and the result is inverted."""
+    distinct tokens is cheaper than hashing the whole, larger table for every batch), and the
+    result is inverted."""
     encoded = pc.dictionary_encode(pa.concat_arrays([tokens for _, tokens in pieces]))
     in_batch = pc.index_in(vocabulary, value_set=encoded.dictionary)
     present = np.flatnonzero(pc.is_valid(in_batch).to_numpy(zero_copy_only=False))

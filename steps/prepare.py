@@ -1,8 +1,8 @@
 """Prepare one chunk: ingest → clean → segment → split, read in bounded batches.
 
 Writes the chunk's table (steps.chunks: one row per kept document, stored in runs of at most
-RUN_FACTOR x corpus.chunk_mb of Arrow memory, so memory stays bounded whatever the file size:
-one .txt.gz of 40, 83 and 166 MB of text peaked at 354, 374 and 414 MiB), its word counts per
+RUN_FACTOR x corpus.chunk_mb of Arrow memory, so memory stays bounded whatever the file size;
+bench/prepare_memory.py measures it), its word counts per
 split (word units), the tally of what happened to every document read and the log of every
 dropped one (steps.accounting).
 """

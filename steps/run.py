@@ -1,15 +1,13 @@
 """The entry the workflow's rules call: `python -m steps.run MODULE [ARGS…]` runs that step module's main.
 
 Why not `python -m steps.MODULE` directly: pyarrow imports pandas on its first array
-conversion whenever pandas is installed, about 0.45 CPU-seconds and 35 MB per job, although no
-step uses it. Hiding pandas here keeps short jobs short; nothing else changes.
+conversion whenever pandas is installed, a large share of a short job's time and memory,
+although no step uses it. Hiding pandas here keeps short jobs short; nothing else changes.
 
 For the same reason numpy's BLAS runs on one thread: no step does linear algebra, and starting
-OpenBLAS' thread pool costs about 0.15 CPU-seconds per job on import (measured with
-`/usr/bin/time python -m steps.run encode --help`). Arrow allocates from the system allocator:
-pyarrow's default (mimalloc) kept jobs 15-45 % larger at their peak (e.g. the vocabulary job
-of 300k words 365-435 MiB against 265-282 MiB, measured with `/usr/bin/time`). Both are
-defaults: a value already in the environment wins.
+OpenBLAS' thread pool costs CPU time on every import. Arrow allocates from the system
+allocator: pyarrow's default (mimalloc) kept jobs larger at their peak (measured with
+`/usr/bin/time`; bench/README.md). Both are defaults: a value already in the environment wins.
 
 In a local run a pre-started worker (steps.worker) runs the job with its imports already done;
 without one (on a cluster node, or when it cannot be reached) the job runs here.

@@ -1,8 +1,8 @@
 """A pre-started worker for the jobs of one local run: jobs start with their imports done.
 
-Every job of the workflow is `python -m steps.run MODULE …`, and a fresh interpreter spends
-about 0.3 CPU-seconds importing numpy, Arrow, regex and the step modules before any work,
-more than many jobs then do. For a run on this machine the Snakefile starts this worker
+Every job of the workflow is `python -m steps.run MODULE …`, and a fresh interpreter spends a
+good part of a CPU-second importing numpy, Arrow, regex and the step modules before any work,
+more than many jobs then do (bench/README.md). For a run on this machine the Snakefile starts this worker
 once (`onstart`); it imports every step module, then listens on an abstract Unix socket whose
 name the jobs find in the environment (CORPUSMILL_WORKER). `steps.run` connects, hands over
 its command line, working folder, environment and its standard streams (file descriptors
