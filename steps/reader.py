@@ -65,9 +65,10 @@ import pyarrow as pa
 import pyarrow.parquet as pq
 
 from .formats import FormatError, Vocabulary, read_vocabulary
+from .layout import RELATIVE
 
-MANIFEST = "manifest.json"
-VOCABULARY = "vocabulary.tsv"
+MANIFEST = RELATIVE.manifest
+VOCABULARY = RELATIVE.vocabulary
 REBUILD = "rerun the workflow (snakemake) on this build folder to rewrite it"
 # Far above any real build's (a manifest line per shard; a vocabulary line per id), far below
 # what would exhaust memory when read whole.
