@@ -19,8 +19,8 @@ import pytest
 from hypothesis import HealthCheck, given, settings
 from hypothesis import strategies as st
 
-from corpusmill.reader import BuildError, open_build
 from corpusmill.audit import audit_build
+from corpusmill.reader import BuildError, open_build
 from tests import hostile
 
 REPO = Path(__file__).resolve().parent.parent

@@ -142,7 +142,11 @@ def test_the_workflow_process_imports_neither_numpy_nor_pyarrow(traced: dict[str
     assert not named & set(HEAVY), sorted(named & set(HEAVY))
     steps = sorted({module for *_, module in statements if module and module.startswith("steps")})
     others = sorted(named - {"steps", "snakemake"} - set(sys.stdlib_module_names))
-    probe = "import importlib, sys\n" + f"for name in {steps + others!r}:\n    importlib.import_module(name)\n" + f"print(sorted(n for n in {HEAVY!r} if n in sys.modules))"
+    probe = (
+        "import importlib, sys\n"
+        + f"for name in {steps + others!r}:\n    importlib.import_module(name)\n"
+        + f"print(sorted(n for n in {HEAVY!r} if n in sys.modules))"
+    )
     loaded = subprocess.run([sys.executable, "-c", probe], capture_output=True, text=True, cwd=REPO, env={**os.environ, "PYTHONPATH": str(REPO)})
     assert loaded.returncode == 0, loaded.stderr
     assert "steps.plan" in steps and loaded.stdout.strip() == "[]", (steps, others, loaded.stdout)

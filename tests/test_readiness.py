@@ -18,8 +18,8 @@ from pathlib import Path
 import numpy as np
 import pyarrow.parquet as pq
 
-from corpusmill.reader import open_build
 from corpusmill.formats import read_vocabulary
+from corpusmill.reader import open_build
 
 Params = dict[str, np.ndarray]
 

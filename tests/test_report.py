@@ -18,8 +18,8 @@ import pytest
 from conftest import REPO
 from corpusmill.coverage import derived
 from corpusmill.formats import Figures
-from corpusmill.layout import Layout
 from corpusmill.laws import ModelSize, fit_heaps, fit_zipf
+from corpusmill.layout import Layout
 from corpusmill.report import coverage_curve, main, table
 from corpusmill.summary import format_table
 

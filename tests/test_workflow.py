@@ -17,8 +17,8 @@ import pytest
 
 from conftest import DEMO, run_workflow
 from corpusmill import settings
-from corpusmill.plan import Plan
 from corpusmill.formats import read_vocabulary
+from corpusmill.plan import Plan
 
 
 def sha256(path: Path) -> str:
