@@ -23,7 +23,11 @@ from .ingest import CorpusError, ReadOptions, plan_chunks, read_documents
 from .storage import write_text
 
 RULE = "abbreviations"
-SECTIONS = ("clean", "corpus")
+# Of corpus, what reading a file takes.
+SECTIONS = (
+    "clean", "corpus.root", "corpus.text_unit", "corpus.jsonl_text_field", "corpus.jsonl_id_field", "corpus.repeated_ids",
+    "corpus.bad_records", "corpus.invalid_utf8", "corpus.max_document_bytes", "corpus.oversize", "corpus.max_decompressed_mb",
+)  # fmt: skip
 SAMPLE_BYTES = 16 << 20  # text read from the start of each file
 _FLAGS = regex.V1
 

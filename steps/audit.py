@@ -28,7 +28,8 @@ import pyarrow.compute as pc
 import pyarrow.parquet as pq
 
 from .formats import file_sha256, id_columns, kind_width, read_vocabulary
-from .reader import MAX_MANIFEST_BYTES, MAX_VOCABULARY_BYTES, SHARD_FIELDS, file_problem, key_path, parse_manifest, resolve_inside
+from .layout import RELATIVE
+from .reader import MANIFEST, MAX_MANIFEST_BYTES, MAX_VOCABULARY_BYTES, SHARD_FIELDS, file_problem, key_path, parse_manifest, resolve_inside
 
 BATCH_ROWS = 65_536
 FIX_FILE = "restore it from an intact copy of the build, or delete it and rerun snakemake to rebuild it"
@@ -62,7 +63,7 @@ def listed_file(real_root: Path, name: str, where: str, audit: Audit, limit: int
     """The file a manifest entry names, or None after recording why it may not be read."""
     target, problem = resolve_inside(real_root, name)
     if problem:
-        audit.fail("manifest.json", f"{where} {json.dumps(name)} {problem}; {FIX_MANIFEST}")
+        audit.fail(MANIFEST, f"{where} {json.dumps(name)} {problem}; {FIX_MANIFEST}")
         return None
     if problem := file_problem(target, limit):
         audit.fail(name, f"listed in manifest.json but {problem}; {FIX_FILE}")
@@ -168,7 +169,7 @@ def check_accounting(accounting: dict, audit: Audit) -> None:
     right = accounting["kept"] + sum(accounting["dropped"].values())
     if left != right or not accounting.get("balanced", False):
         audit.fail(
-            "manifest.json",
+            MANIFEST,
             f"accounting does not balance: read {accounting['read']} + pieces_added {accounting['pieces_added']} = {left}, "
             f"kept {accounting['kept']} + dropped {sum(accounting['dropped'].values())} = {right}; {FIX_MANIFEST}",
         )
@@ -178,9 +179,9 @@ def audit_build(build: str | Path) -> Audit:
     """Every check of the module docstring; the returned Audit lists what failed."""
     base = Path(build)
     real_root, audit = base.resolve(), Audit()
-    target, problem = resolve_inside(real_root, "manifest.json")
+    target, problem = resolve_inside(real_root, MANIFEST)
     if problem := problem or file_problem(target, MAX_MANIFEST_BYTES):
-        audit.fail("manifest.json", f"{problem}; the build is not finished or was damaged: rerun snakemake in its working "
+        audit.fail(MANIFEST, f"{problem}; the build is not finished or was damaged: rerun snakemake in its working "
                    "folder (move a damaged manifest.json away first)")  # fmt: skip
         return audit
     try:
@@ -188,7 +189,7 @@ def audit_build(build: str | Path) -> Audit:
     except OSError as error:
         manifest, problem = {}, f"unreadable ({error})"
     if problem:
-        audit.fail("manifest.json", f"{problem}; {FIX_MANIFEST}")
+        audit.fail(MANIFEST, f"{problem}; {FIX_MANIFEST}")
         return audit
     config = manifest["config"]
     listed = manifest["vocabulary"]
@@ -200,7 +201,7 @@ def audit_build(build: str | Path) -> Audit:
             where = key_path(key_path(key_path("splits", split), "shards"), index) + ".file"
             path = listed_file(real_root, entry["file"], where, audit)
             if path in seen:
-                audit.fail("manifest.json", f"{where} names the same file as {seen[path]}; {FIX_MANIFEST}")
+                audit.fail(MANIFEST, f"{where} names the same file as {seen[path]}; {FIX_MANIFEST}")
             elif path is not None:
                 seen[path] = where
                 check_shard(path, entry, config, listed["ids_sha256"], listed["size"], audit)
@@ -209,8 +210,8 @@ def audit_build(build: str | Path) -> Audit:
             total = sum(e["rows"] for e in figures["shards"] if e["kind"] == kind)
             if total != rows:
                 where = key_path(key_path(key_path("splits", split), "rows"), kind)
-                audit.fail("manifest.json", f"{where} = {rows}, but its shards list {total} rows; {FIX_MANIFEST}")
-    shards_dir = base / "shards"
+                audit.fail(MANIFEST, f"{where} = {rows}, but its shards list {total} rows; {FIX_MANIFEST}")
+    shards_dir = base / RELATIVE.shards_dir
     # Every entry but a real directory: a glob over shards/ would also meet FIFOs and symlinks.
     present = set()
     if shards_dir.is_dir():

@@ -21,6 +21,7 @@ import pyarrow.compute as pc
 import pyarrow.parquet as pq
 
 from .formats import FormatError, Vocabulary, read_vocabulary
+from .layout import Layout
 from .vocabulary import Cutoff, choose_size
 
 
@@ -133,7 +134,7 @@ def what_if(counts: pa.Table, vocabulary: WordList, cutoff: Cutoff, show: int) -
 
 def build_cutoff(build: Path, args: argparse.Namespace) -> Cutoff:
     """The build's own cutoff with the command-line limits put in its place."""
-    manifest = build / "manifest.json"
+    manifest = Path(Layout(str(build)).manifest)
     base = Cutoff()
     if manifest.exists():
         base = Cutoff.from_config(json.loads(manifest.read_text(encoding="utf-8"))["config"]["vocabulary"])
@@ -198,8 +199,8 @@ def main(argv: list[str] | None = None) -> None:
     parser.add_argument("--show-changes", type=int, default=10, metavar="K", help="list the K most frequent words entering and leaving")
     parser.add_argument("--json", action="store_true", help="print the answer as JSON")
     args = parser.parse_args(argv)
-    counts_path = args.build / "stats" / "token_counts.parquet"
-    vocabulary_path = args.build / "vocabulary.tsv"
+    layout = Layout(str(args.build))
+    counts_path, vocabulary_path = Path(layout.token_counts), Path(layout.vocabulary)
     for path in (counts_path, vocabulary_path):
         if not path.exists():
             raise SystemExit(f"corpusmill: {path}: not found; is {args.build} a finished build folder? Run the workflow first")

@@ -31,7 +31,7 @@ from .storage import write_table
 from .vocabulary import COUNTS_SCHEMA, MERGE_FILES, count_tokens, sum_counts
 
 RULE = "deduplicate"
-SECTIONS = ("corpus", "split", "units")
+SECTIONS = ("corpus.repeated_ids", "split.deduplicate", "units")
 
 DUPLICATES_SCHEMA = pa.schema(
     [("source", pa.string()), ("offset", pa.int64()), ("doc_id", pa.string()), ("duplicate_of", pa.string())]

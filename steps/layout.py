@@ -3,6 +3,8 @@
 Public results sit at the top of the build folder; what the steps hand each other lies under
 interim/, what the workflow decided before any job under interim/plan/, and one log per job
 under logs/. Chunk keys (steps.ingest.chunk_key) hold only letters, digits and `_.+-`.
+`RELATIVE` (a layout rooted at "") gives the paths relative to the build folder: the names the
+manifest records and the reader resolves.
 """
 
 from __future__ import annotations
@@ -162,15 +164,27 @@ class Layout:
     def subword_key(self) -> str:
         return self._join("interim", "subword", "train_sample.key")
 
+    @property
+    def subword_models(self) -> str:
+        """The cache of learned models, kept although no current job may name them."""
+        return self._join("interim", "subword", "models")
+
     def subword_trained(self, key: str) -> str:
         """A learned model, cached under the key of its sample and settings."""
-        return self._join("interim", "subword", "models", f"{key}.model")
+        return str(Path(self.subword_models, f"{key}.model"))
 
     # Logs.
+    @property
+    def logs_dir(self) -> str:
+        return self._join("logs")
+
     def log(self, rule: str, name: str = "") -> str:
-        return self._join("logs", rule, f"{name or rule}.log")
+        return str(Path(self.logs_dir, rule, f"{name or rule}.log"))
 
     @property
     def failed_jobs(self) -> str:
         """The logs of the jobs that failed in the current run, one path a line."""
         return self._join("logs", "failed-jobs.txt")
+
+
+RELATIVE = Layout("")

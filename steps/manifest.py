@@ -15,7 +15,7 @@ from pathlib import Path
 
 from . import job
 from .formats import Figures, ShardStats, file_sha256, read_shard_stats, read_vocabulary
-from .layout import SPLITS, Layout
+from .layout import RELATIVE, SPLITS, Layout
 from .settings import digest, read_json
 from .storage import write_json
 
@@ -69,14 +69,14 @@ def build_manifest(
         "inputs_sha256": digest(listed),
         "not_read": {key: corpus[key] for key in ("unselected", "excluded", "refused")},
         "vocabulary": {
-            "file": "vocabulary.tsv",
+            "file": RELATIVE.vocabulary,
             "sha256": vocabulary.sha256,
             "ids_sha256": vocabulary.ids_digest,
             "size": vocabulary.size,
             "words": vocabulary.size - vocabulary.first_word_id,
             "reserved": vocabulary.reserved,
             **(
-                {"subword_model": {"file": "subword.model", "sha256": file_sha256(layout.subword_model)}}
+                {"subword_model": {"file": RELATIVE.subword_model, "sha256": file_sha256(layout.subword_model)}}
                 if vocabulary.units == "subword"
                 else {}
             ),

@@ -12,7 +12,8 @@ step module declares it reads (SECTIONS), so changing an option reruns exactly t
 read it. Each is rewritten only when its content changes.
 
 A rule's code hash covers the module it runs and every step module that one imports, found
-from the sources' import statements: editing any of them reruns the rule. Nothing here imports
+from the sources' import statements, and the package and steps/run.py that every job starts
+with: editing any of them reruns the rule. Nothing here imports
 numpy or Arrow, as the Snakemake process runs it.
 """
 
@@ -81,9 +82,10 @@ def import_closure(module: str) -> list[str]:
     return sorted(seen)
 
 
-def sections_of(module: str) -> tuple[str, ...] | str:
-    """The configuration sections a step module declares it reads (its SECTIONS), read from its
-    source, so the workflow process imports no step module's dependencies."""
+def sections_of(module: str) -> tuple[str, ...] | str | dict[str, tuple[str, ...]]:
+    """The configuration sections a step module declares it reads (its SECTIONS: for a module
+    whose entries read different options, a dict by rule), read from its source, so the
+    workflow process imports no step module's dependencies."""
     for node in _parsed(module).body:
         target = node.target if isinstance(node, ast.AnnAssign) else (node.targets[0] if isinstance(node, ast.Assign) else None)
         if isinstance(target, ast.Name) and target.id == "SECTIONS" and node.value is not None:
@@ -92,10 +94,11 @@ def sections_of(module: str) -> tuple[str, ...] | str:
 
 
 def code_hash(rule: str) -> str:
-    """SHA-256 over the source of the module a rule runs and every step module it imports:
-    editing any of them reruns the rule."""
+    """SHA-256 over the source of the module a rule runs, every step module it imports, and
+    what every job starts with (the package and steps/run.py): editing any of them reruns the
+    rule."""
     hasher = hashlib.sha256()
-    for module in import_closure(module_of(rule)):
+    for module in sorted({"__init__", "run", *import_closure(module_of(rule))}):
         hasher.update(module.encode() + b"\0" + (STEPS_DIR / f"{module}.py").read_bytes())
     return hasher.hexdigest()[:16]
 
@@ -104,6 +107,8 @@ def rule_options(config: dict, rule: str) -> dict:
     """The configuration a rule's module reads: whole sections, or single options named
     `section.option` (so another option of that section does not rerun the rule)."""
     sections = sections_of(module_of(rule))
+    if isinstance(sections, dict):
+        sections = sections[rule]
     if sections == "all":
         return dict(config)
     options: dict = {}

@@ -31,7 +31,13 @@ from .storage import write_json, write_table
 from .vocabulary import COUNTS_SCHEMA, MERGE_FILES, count_tokens, sum_counts
 
 RULE = "prepare"
-SECTIONS = ("clean", "corpus", "segment", "split", "units")
+# Of corpus, what reading a chunk takes (not include, exclude, outside_links or pack_mb, which
+# only shape the plan); of split, what assigns one.
+SECTIONS = (
+    "clean", "corpus.root", "corpus.chunk_mb", "corpus.text_unit", "corpus.jsonl_text_field", "corpus.jsonl_id_field", "corpus.repeated_ids",
+    "corpus.bad_records", "corpus.invalid_utf8", "corpus.max_document_bytes", "corpus.oversize", "corpus.max_decompressed_mb",
+    "segment", "split.key", "split.salt", "split.fractions", "units",
+)  # fmt: skip
 BATCH_CHARS = 4 << 20
 BATCH_DOCUMENTS = 4096
 # Arrow bytes held before a run is written, per byte of corpus.chunk_mb.

@@ -14,6 +14,8 @@ import time
 from pathlib import Path
 from typing import TextIO
 
+from .layout import Layout
+
 PREFIX = "progress: "
 
 
@@ -51,7 +53,8 @@ def running_jobs(build: Path, within_seconds: float, now: float | None = None) -
     work (a job that finished or failed ends its log with another line)."""
     now = time.time() if now is None else now
     found = []
-    for log in sorted((build / "logs").rglob("*.log")):
+    logs = Path(Layout(str(build)).logs_dir)
+    for log in sorted(logs.rglob("*.log")):
         age = now - log.stat().st_mtime
         if age > within_seconds:
             continue
@@ -59,7 +62,7 @@ def running_jobs(build: Path, within_seconds: float, now: float | None = None) -
             handle.seek(max(0, log.stat().st_size - 4096))
             lines = [line for line in handle.read().decode("utf-8", "replace").splitlines() if line.strip()]
         if lines and lines[-1].startswith(PREFIX):
-            found.append((log.relative_to(build / "logs").as_posix(), lines[-1].removeprefix(PREFIX), age))
+            found.append((log.relative_to(logs).as_posix(), lines[-1].removeprefix(PREFIX), age))
     return found
 
 
@@ -68,8 +71,9 @@ def main(argv: list[str] | None = None) -> None:
     parser.add_argument("build", type=Path, help="the build folder")
     parser.add_argument("--minutes", type=float, default=60.0, help="only logs written within this many minutes")
     args = parser.parse_args(argv)
-    if not (args.build / "logs").is_dir():
-        raise SystemExit(f"corpusmill: {args.build / 'logs'}: not found; is {args.build} a build folder?")
+    logs = Layout(str(args.build)).logs_dir
+    if not Path(logs).is_dir():
+        raise SystemExit(f"corpusmill: {logs}: not found; is {args.build} a build folder?")
     jobs = running_jobs(args.build, args.minutes * 60)
     if not jobs:
         print(f"no job of {args.build} reported progress in the last {args.minutes:g} minutes")

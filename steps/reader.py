@@ -44,8 +44,8 @@ message names the key path); every file it names resolves, symlinks followed, in
 folder, is listed once, and is a regular file (never a FIFO or device; manifest.json at most
 256 MiB, vocabulary.tsv at most 1 GiB); every listed shard exists, its Parquet footer has the
 recorded row count, which its row groups add up to, its `corpusmill` metadata names the same
-split and kind, and its vocabulary_sha256 equals the SHA-256 of vocabulary.tsv, which must equal
-the manifest's. `verify_hashes=True` also hashes every shard file against the manifest (reads
+split and kind, and its ids_sha256 equals the digest of vocabulary.tsv's ids (formats.ids_digest),
+which must equal the manifest's, as the file's SHA-256 must. `verify_hashes=True` also hashes every shard file against the manifest (reads
 every byte; off by default). While reading, a row group that decodes to another number of rows
 than its footer says raises BuildError.
 """
@@ -65,9 +65,10 @@ import pyarrow as pa
 import pyarrow.parquet as pq
 
 from .formats import FormatError, Vocabulary, read_vocabulary
+from .layout import RELATIVE
 
-MANIFEST = "manifest.json"
-VOCABULARY = "vocabulary.tsv"
+MANIFEST = RELATIVE.manifest
+VOCABULARY = RELATIVE.vocabulary
 REBUILD = "rerun the workflow (snakemake) on this build folder to rewrite it"
 # Far above any real build's (a manifest line per shard; a vocabulary line per id), far below
 # what would exhaust memory when read whole.

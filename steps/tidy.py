@@ -16,15 +16,15 @@ import os
 from collections.abc import Iterable
 from pathlib import Path
 
-# Kept although no current job names them: learned subword models by sample key.
-CACHES = ("interim/subword/models",)
+from .layout import Layout
 
 
 def stale_files(build_root: str | Path, current: Iterable[str | Path]) -> list[Path]:
     """Files under `build_root` that are not in `current`, nor in a cache, sorted."""
     root = Path(build_root)
     keep = {os.path.normpath(path) for path in current}
-    caches = [os.path.normpath(root / cache) for cache in CACHES]
+    # Kept although no current job names them: learned subword models by sample key.
+    caches = [os.path.normpath(Layout(str(root)).subword_models)]
     stale = []
     for folder, _, names in os.walk(root):
         for name in names:

@@ -30,7 +30,7 @@ from .formats import BOS, EOS, RESERVED, UNK, FormatError, Vocabulary, read_voca
 from .layout import SPLITS
 from .storage import write_table, write_text
 
-SECTIONS = ("units", "vocabulary")
+SECTIONS = {"vocabulary": ("units", "vocabulary"), "vocabulary_table": ("units",)}  # by rule: the ids, the table
 
 # Unknown classes by word shape, tried in this order; a word matching none maps to <unk>.
 SHAPE_CLASSES = (

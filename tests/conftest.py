@@ -31,7 +31,7 @@ def pytest_collection_modifyitems(items: list[pytest.Item]) -> None:
     """Mark the tests that need the demo corpus built by the real workflow, so that quick runs
     (the mutation check among them) can leave them out with `-m "not demo_build"`."""
     for item in items:
-        if "demo_build" in getattr(item, "fixturenames", ()):
+        if {"demo_build", "demo_chunks_build"} & set(getattr(item, "fixturenames", ())):
             item.add_marker(pytest.mark.demo_build)
 
 
@@ -68,4 +68,13 @@ def demo_build(tmp_path_factory: pytest.TempPathFactory) -> Path:
     """The demo corpus built once with the default configuration; returns the build folder."""
     directory = tmp_path_factory.mktemp("demo")
     run_workflow(directory, {"corpus": {"root": str(DEMO)}})
+    return directory / "build"
+
+
+@pytest.fixture(scope="session")
+def demo_chunks_build(tmp_path_factory: pytest.TempPathFactory) -> Path:
+    """The demo corpus built with one chunk per file (corpus.pack_mb: 0), so every split has a
+    shard file per chunk; returns the build folder."""
+    directory = tmp_path_factory.mktemp("demo-chunks")
+    run_workflow(directory, {"corpus": {"root": str(DEMO), "pack_mb": 0}})
     return directory / "build"

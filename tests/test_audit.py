@@ -19,18 +19,19 @@ import pytest
 from hypothesis import HealthCheck, given, settings
 from hypothesis import strategies as st
 
-from corpusmill.reader import BuildError, open_build
 from corpusmill.audit import audit_build
+from corpusmill.reader import BuildError, open_build
 from tests import hostile
 
 REPO = Path(__file__).resolve().parent.parent
 
 
 def build(workdir: Path, raw: Path, cores: int = 2, **sections: dict) -> Path:
-    """Run the real workflow on `raw` into workdir/build."""
+    """Run the real workflow on `raw` into workdir/build, one chunk (so one shard file of each
+    split and kind) per input file."""
     override = workdir / "over.json"
     workdir.mkdir(parents=True, exist_ok=True)
-    override.write_text(json.dumps({"corpus": {"root": str(raw)}, "shards": {"train_files": 2}, **sections}))
+    override.write_text(json.dumps({"corpus": {"root": str(raw), "pack_mb": 0}, **sections}))
     run = subprocess.run(
         [sys.executable, "-m", "snakemake", "--snakefile", str(REPO / "Snakefile"), "--directory", str(workdir),
          "--cores", str(cores), "--configfile", str(override), "--quiet"],
@@ -104,35 +105,37 @@ def test_a_missing_shard_is_reported(copy: Path) -> None:
 
 def test_an_extra_file_under_shards_is_reported(copy: Path) -> None:
     """A leftover (a .partial, a shard of another build) would be read by a glob over shards/."""
-    extra = copy / "shards" / "train" / "ngram-0099.parquet"
+    extra = copy / "shards" / "train" / "ngram-gone.txt-00000000-0000.parquet"
     shutil.copy(first_shard(copy), extra)
-    (copy / "shards" / "dev" / ".ngram-0000.parquet.partial").write_bytes(b"half")
+    partial = f".{first_shard(copy).name}.partial"
+    (copy / "shards" / "dev" / partial).write_bytes(b"half")
     run = audit(copy)
     assert run.returncode != 0
-    assert "shards/train/ngram-0099.parquet: is not listed in manifest.json" in run.stderr
-    assert "shards/dev/.ngram-0000.parquet.partial: is not listed in manifest.json" in run.stderr
+    assert "shards/train/ngram-gone.txt-00000000-0000.parquet: is not listed in manifest.json" in run.stderr
+    assert f"shards/dev/{partial}: is not listed in manifest.json" in run.stderr
 
 
 def test_a_vocabulary_swapped_for_another_builds_is_reported(copy: Path, builds: tuple[Path, Path]) -> None:
-    """vocabulary_sha256 in each shard's Parquet key-value metadata ties the shard to its vocabulary."""
+    """vocabulary.tsv's SHA-256 in the manifest ties the file to the build."""
     shutil.copy(builds[1] / "vocabulary.tsv", copy / "vocabulary.tsv")
     run = audit(copy)
     assert run.returncode != 0
     assert "vocabulary.tsv: SHA-256" in run.stderr and "differs from manifest.json" in run.stderr
 
 
-def test_shards_mixed_from_another_build_are_reported_by_their_vocabulary_hash(copy: Path, builds: tuple[Path, Path]) -> None:
-    """A shard and manifest copied together from another build: the hash in its metadata differs."""
+def test_shards_mixed_from_another_build_are_reported_by_their_ids_hash(copy: Path, builds: tuple[Path, Path]) -> None:
+    """A shard and its manifest entry copied from another build: ids_sha256 in its metadata
+    (the digest of the ids it was written with) differs from this vocabulary's ids."""
     manifest = json.loads((copy / "manifest.json").read_text())
     other = json.loads((builds[1] / "manifest.json").read_text())
     entry = next(e for e in other["splits"]["dev"]["shards"] if e["kind"] == "ngram")
     shutil.copy(builds[1] / entry["file"], copy / entry["file"])
-    mine = next(e for e in manifest["splits"]["dev"]["shards"] if e["kind"] == "ngram")
+    mine = next(e for e in manifest["splits"]["dev"]["shards"] if e["file"] == entry["file"])
+    manifest["splits"]["dev"]["rows"]["ngram"] += entry["rows"] - mine["rows"]
     mine.update(sha256=entry["sha256"], rows=entry["rows"], bytes=entry["bytes"])
-    manifest["splits"]["dev"]["rows"]["ngram"] = entry["rows"]
     (copy / "manifest.json").write_text(json.dumps(manifest))
     problems = audit_build(copy).problems
-    assert any("metadata vocabulary_sha256 differs from vocabulary.tsv" in p for p in problems), problems
+    assert any(p.startswith(f"{entry['file']}: its metadata ids_sha256 differs from the ids of vocabulary.tsv") for p in problems), problems
 
 
 def test_an_unbalanced_accounting_is_reported(copy: Path) -> None:
@@ -220,9 +223,9 @@ def test_a_fifo_in_place_of_a_build_file_is_refused_without_opening_it(copy: Pat
 
 def test_an_unlisted_fifo_under_shards_is_reported(copy: Path) -> None:
     """A glob over shards/ would pick up any entry there, so every non-directory entry must be listed."""
-    os.mkfifo(copy / "shards" / "dev" / "ngram-0099.parquet")
+    os.mkfifo(copy / "shards" / "dev" / "ngram-gone.txt-00000000-0000.parquet")
     run = audit(copy)
-    assert run.returncode != 0 and "shards/dev/ngram-0099.parquet: is not listed in manifest.json" in run.stderr
+    assert run.returncode != 0 and "shards/dev/ngram-gone.txt-00000000-0000.parquet: is not listed in manifest.json" in run.stderr
 
 
 def test_a_vocabulary_over_the_size_limit_is_refused_before_reading(copy: Path) -> None:

@@ -29,9 +29,8 @@ LENGTH, STRIDE = 16, 16
 PAD = 0
 OVERRIDES = {
     "split": {"salt": SALT, "fractions": FRACTIONS, "deduplicate": False},
-    "corpus": {"max_document_bytes": 2048, "oversize": "split"},
+    "corpus": {"max_document_bytes": 2048, "oversize": "split", "pack_mb": 0},
     "windows": {"blocks": {"span": "corpus", "remainder": "pad", "length": LENGTH, "stride": STRIDE}},
-    "shards": {"train_files": 2},
 }
 WORDS = "harbour ferry lantern copper meadow river signal winter kettle stone tide quay barrel clerk ledger rope gull".split()
 
@@ -129,20 +128,23 @@ def test_pieces_of_split_documents_are_accounted_for(build: Path) -> None:
 
 
 def test_corpus_blocks_are_the_joined_streams_cut_with_a_padded_last_block(build: Path) -> None:
-    """Blocks across documents: each part's stream shard, documents joined in file order, cut
-    every STRIDE ids into L+1 ids with the last partial block padded (the plain-Python
-    reference); dev and test keep the order, train parts hold the same blocks shuffled."""
+    """Blocks across documents: each chunk's stream shard (one chunk per input file here),
+    documents joined in file order, cut every STRIDE ids into L+1 ids with the last partial
+    block padded (the plain-Python reference); dev and test keep the order, a chunk's train
+    blocks are the same blocks shuffled."""
     manifest = json.loads((build / "manifest.json").read_text())
     padded = 0
     for split, figures in manifest["splits"].items():
-        files = {(e["kind"], e["part"]): build / e["file"] for e in figures["shards"]}
-        for part in sorted({p for _, p in files}):
-            stream = [i for ids in pq.read_table(files[("stream", part)])["ids"].to_pylist() for i in ids]
+        files = {(e["kind"], e["chunk"]): build / e["file"] for e in figures["shards"]}
+        chunks = sorted({c for _, c in files})
+        assert len(chunks) == 3, split
+        for chunk in chunks:
+            stream = [i for ids in pq.read_table(files[("stream", chunk)])["ids"].to_pylist() for i in ids]
             expected = reference_blocks(stream, LENGTH, STRIDE, "pad", PAD)
-            got = pq.read_table(files[("block", part)])["ids"].to_pylist()
+            got = pq.read_table(files[("block", chunk)])["ids"].to_pylist()
             if split == "train":
-                assert Counter(map(tuple, got)) == Counter(map(tuple, expected)), (split, part)
+                assert Counter(map(tuple, got)) == Counter(map(tuple, expected)), (split, chunk)
             else:
-                assert got == expected, (split, part)
-            padded += expected[-1][-1] == PAD
-    assert padded >= 1  # at least one part ends in a padded block
+                assert got == expected, (split, chunk)
+            padded += bool(expected) and expected[-1][-1] == PAD
+    assert padded >= 1  # at least one chunk ends in a padded block

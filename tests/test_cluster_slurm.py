@@ -142,8 +142,9 @@ def builds(slurm_env, tmp_path_factory) -> Builds:
         (corpus / name).parent.mkdir(parents=True, exist_ok=True)
         (corpus / name).write_text(text, encoding="utf-8")
     override = work / "override.yaml"
-    # Two train shards instead of four: fewer jobs, still more than one bucket.
-    override.write_text(yaml.safe_dump({"corpus": {"root": str(corpus)}, "shards": {"train_files": 2}}), encoding="utf-8")
+    # One chunk per file: three prepare and three shard jobs, so the shards of several chunks
+    # are written on the cluster.
+    override.write_text(yaml.safe_dump({"corpus": {"root": str(corpus), "pack_mb": 0}}), encoding="utf-8")
 
     snakemake = [sys.executable, "-m", "snakemake", "--snakefile", str(REPO / "Snakefile"), "--configfile", str(override)]
 
@@ -187,11 +188,11 @@ def test_every_job_ran_as_a_slurm_job(builds, slurm_env):
 
 
 def _digests(build: Path) -> dict[str, str]:
-    files = sorted((build / "build" / "shards").glob("**/*.parquet")) + [build / "build" / "manifest.json"]
+    files = sorted((build / "build" / "shards").glob("**/*.parquet")) + [build / "build" / name for name in ("vocabulary.tsv", "manifest.json")]
     return {str(f.relative_to(build)): hashlib.sha256(f.read_bytes()).hexdigest() for f in files}
 
 
 def test_slurm_build_matches_local_build(builds):
     local = _digests(builds.local)
-    assert any(name.endswith(".parquet") for name in local), "the local build wrote no shard"
+    assert len([name for name in local if name.endswith(".parquet")]) == 3 * 3 * 3, "a shard per split, kind and chunk"
     assert _digests(builds.slurm) == local

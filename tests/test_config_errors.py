@@ -27,8 +27,16 @@ def error_of(raw: dict) -> str:
 
 def test_a_wrong_type_names_the_field_the_value_and_the_type_allowed() -> None:
     """JSON Schema `type`: an integer field given a string."""
-    message = error_of({"shards": {"train_files": "four"}})
-    assert 'shards.train_files = "four"' in message and "type integer" in message
+    message = error_of({"shards": {"row_group_rows": "four"}})
+    assert 'shards.row_group_rows = "four"' in message and "type integer" in message
+
+
+@pytest.mark.parametrize("option", ["train_files", "heldout_files"])
+def test_the_shard_counts_of_older_configs_are_unknown_keys_now(option: str) -> None:
+    """Shard files follow the chunks (one set per chunk): an older config's shards.train_files or
+    shards.heldout_files is refused by name rather than silently ignored."""
+    message = error_of({"shards": {option: 4}})
+    assert f"shards.{option}: unknown key" in message and "seed" in message.split("known keys:")[1]
 
 
 def test_an_out_of_range_value_names_the_bounds() -> None:

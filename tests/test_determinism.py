@@ -9,7 +9,7 @@ from pathlib import Path
 import pytest
 
 from tests import hostile
-from tests.test_verify import build
+from tests.test_audit import build
 
 
 def digests(build_dir: Path) -> dict[str, str]:

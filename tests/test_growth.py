@@ -14,31 +14,30 @@ from corpusmill.laws import growth_curve
 from tests.test_report import corpus_order, corpus_rows
 
 
-def test_growth_curve_equals_a_set_recount_of_the_train_stream(demo_build: Path) -> None:
-    """Brute force: distinct train tokens after each prefix of the prepared chunks in corpus order
-    (duplicates left out), counted with a Python set."""
-    removed = {(r["source"], r["offset"]) for r in pq.read_table(demo_build / "interim" / "duplicates.parquet").to_pylist()}
-    prepared = corpus_order(demo_build)
+def test_growth_curve_equals_a_set_recount_of_the_train_stream(demo_chunks_build: Path) -> None:
+    """Brute force: distinct train tokens after each prefix of the prepared documents in corpus
+    order (duplicates left out), counted with a Python set, over a build of one chunk per file."""
+    removed = {(r["source"], r["offset"]) for r in pq.read_table(demo_chunks_build / "interim" / "duplicates.parquet").to_pylist()}
+    prepared = corpus_order(demo_chunks_build)
     seen: set[str] = set()
     after: list[int] = [0]
-    for row in corpus_rows(demo_build, ["split", "tokens"]):
+    for row in corpus_rows(demo_chunks_build, ["split", "tokens"]):
         if row["split"] != "train" or (row["source"], row["offset"]) in removed:
             continue
         for token in (t for sentence in row["tokens"] for t in sentence):
             seen.add(token)
             after.append(len(seen))
-    vocabulary = pq.read_table(demo_build / "stats" / "token_counts.parquet")["token"].combine_chunks()
-    tokens, types = growth_curve(train_token_batches(prepared, pq.read_table(demo_build / "interim" / "duplicates.parquet"), vocabulary), len(vocabulary))
+    vocabulary = pq.read_table(demo_chunks_build / "stats" / "token_counts.parquet")["token"].combine_chunks()
+    duplicates = pq.read_table(demo_chunks_build / "interim" / "duplicates.parquet")
+    tokens, types = growth_curve(train_token_batches([(path, duplicates) for path in prepared], vocabulary), len(vocabulary))
     assert tokens[-1] == len(after) - 1
     assert types.tolist() == [after[n] for n in tokens]
-    growth = json.loads((demo_build / "stats" / "growth.json").read_text())
+    growth = json.loads((demo_chunks_build / "stats" / "growth.json").read_text())
     assert growth == {"unit": "words", "read": tokens.tolist(), "distinct": types.tolist()}
 
 
-
-
-def test_stale_counts_are_reported_with_the_file_and_the_fix(tmp_path: Path, demo_build: Path) -> None:
+def test_stale_counts_are_reported_with_the_file_and_the_fix(tmp_path: Path, demo_chunks_build: Path) -> None:
     """Error messages name the file and the fix (project convention)."""
-    prepared = sorted(str(p) for p in (demo_build / "interim" / "prepared").glob("*.parquet"))[:1]
+    prepared = sorted(str(p) for p in (demo_chunks_build / "interim" / "prepared").glob("*.parquet"))[:1]
     with pytest.raises(SystemExit, match=r"\.parquet: train token .* rerun the workflow"):
-        list(train_token_batches(prepared, pq.read_table(demo_build / "interim" / "duplicates.parquet"), pa.array(["the"])))
+        list(train_token_batches([(path, pq.read_table(demo_chunks_build / "interim" / "duplicates.parquet")) for path in prepared], pa.array(["the"])))

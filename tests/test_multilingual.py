@@ -79,8 +79,8 @@ def test_statistics_are_sane_per_language(fortunes_build: Path, language: str):
     train = manifest["splits"]["train"]
     assert low <= train["tokens"] / train["sentences"] <= 80
     assert source["train"]["tokens"] > 1000
-    assert source["train"]["oov_rate"] < 0.30
-    assert source["dev"]["tokens"] == 0 or source["dev"]["oov_rate"] < 0.40
+    assert source["train"]["unknown_rate"] < 0.30
+    assert source["dev"]["tokens"] == 0 or source["dev"]["unknown_rate"] < 0.40
     sentences = _sentences_per_language(language)
     per_sentence = sum(sentences) / len(sentences)
     assert low <= per_sentence <= high, per_sentence

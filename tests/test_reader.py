@@ -5,6 +5,7 @@ from __future__ import annotations
 import hashlib
 import json
 import os
+import re
 import shutil
 import subprocess
 import sys
@@ -19,6 +20,7 @@ import pyarrow as pa
 import pyarrow.parquet as pq
 import pytest
 
+from corpusmill.formats import read_vocabulary
 from corpusmill.reader import BuildError, open_build, resolve_inside, to_numpy
 from tests import hostile
 
@@ -70,19 +72,22 @@ def split_kinds(build_path: Path) -> list[tuple[str, str]]:
 def write_synthetic_build(root: Path, group_sizes: list[list[int]]) -> Path:
     """A minimal build folder whose ngram rows are numbered: row i has context (i, i, i) and target i.
 
-    One shard per inner list, one row group per size; numbered rows make disjointness checkable
-    by row index, and the uneven row groups exercise ranges that cut row groups apart.
+    One shard (one chunk) per inner list, one row group per size; numbered rows make
+    disjointness checkable by row index, and the uneven row groups exercise ranges that cut row
+    groups apart.
     """
     root.mkdir(parents=True, exist_ok=True)
     vocabulary = "id\ttoken\tcount\tkind\n0\t<pad>\t0\treserved\n1\t<unk>\t0\treserved\n2\t<s>\t0\treserved\n3\t</s>\t0\treserved\n"
     (root / "vocabulary.tsv").write_text(vocabulary, encoding="utf-8")
     digest = hashlib.sha256(vocabulary.encode("utf-8")).hexdigest()
+    ids = read_vocabulary(root / "vocabulary.tsv").ids_digest
     shards, start = [], 0
-    for part, sizes in enumerate(group_sizes):
-        info = {"split": "train", "kind": "ngram", "part": part, "n": 4, "vocabulary_sha256": digest}
+    for index, sizes in enumerate(group_sizes):
+        chunk = f"{index:04d}"
+        info = {"split": "train", "kind": "ngram", "chunk": chunk, "n": 4, "ids_sha256": ids}
         schema = pa.schema([("context", pa.list_(pa.uint32(), 3)), ("target", pa.uint32())])
         schema = schema.with_metadata({b"corpusmill": json.dumps(info).encode()})
-        path = root / "shards" / "train" / f"ngram-{part:04d}.parquet"
+        path = root / "shards" / "train" / f"ngram-{chunk}.parquet"
         path.parent.mkdir(parents=True, exist_ok=True)
         with pq.ParquetWriter(path, schema) as writer:
             for size in sizes:
@@ -90,9 +95,9 @@ def write_synthetic_build(root: Path, group_sizes: list[list[int]]) -> Path:
                 context = pa.FixedSizeListArray.from_arrays(pa.array(np.repeat(numbers, 3)), 3)
                 writer.write_table(pa.Table.from_arrays([context, pa.array(numbers)], schema=schema))
                 start += size
-        entry = {"file": f"shards/train/ngram-{part:04d}.parquet", "kind": "ngram", "part": part, "rows": sum(sizes)}
+        entry = {"file": f"shards/train/ngram-{chunk}.parquet", "kind": "ngram", "chunk": chunk, "rows": sum(sizes)}
         shards.append({**entry, "sha256": hashlib.sha256(path.read_bytes()).hexdigest()})
-    manifest = {"vocabulary": {"sha256": digest}, "splits": {"train": {"shards": shards}}}
+    manifest = {"vocabulary": {"sha256": digest, "ids_sha256": ids}, "splits": {"train": {"shards": shards}}}
     (root / "manifest.json").write_text(json.dumps(manifest), encoding="utf-8")
     return root
 
@@ -105,10 +110,10 @@ def targets(batches: Iterable[dict]) -> list[int]:
     return [int(t) for batch in batches for t in batch["target"]]
 
 
-def test_open_build_lists_the_splits_and_kinds_of_the_manifest(demo_build: Path) -> None:
+def test_open_build_lists_the_splits_and_kinds_of_the_manifest(demo_chunks_build: Path) -> None:
     """The manifest as reference: the reader's splits, kinds and row totals are the recorded ones."""
-    build = open_build(demo_build)
-    manifest = json.loads((demo_build / "manifest.json").read_text())
+    build = open_build(demo_chunks_build)
+    manifest = json.loads((demo_chunks_build / "manifest.json").read_text())
     assert set(build.splits) == {"train", "dev", "test"}
     for split in build.splits:
         assert set(build.kinds(split)) == {"ngram", "block", "stream"}
@@ -118,25 +123,25 @@ def test_open_build_lists_the_splits_and_kinds_of_the_manifest(demo_build: Path)
     assert build.vocabulary.size == manifest["vocabulary"]["size"]
 
 
-def test_unshuffled_rows_equal_duckdb_rows_file_by_file(demo_build: Path) -> None:
+def test_unshuffled_rows_equal_duckdb_rows_file_by_file(demo_chunks_build: Path) -> None:
     """DuckDB as an independent Parquet reader: without a seed the reader yields every shard's rows in file order."""
-    build = open_build(demo_build)
-    for split, kind in split_kinds(demo_build):
+    build = open_build(demo_chunks_build)
+    for split, kind in split_kinds(demo_chunks_build):
         expected = [row for shard in build.shards(split, kind) for row in duckdb_rows(kind, shard.path)]
         assert row_tuples(kind, build.batches(split, kind, 100)) == expected, (split, kind)
 
 
-def test_unshuffled_rows_equal_polars_rows_file_by_file(demo_build: Path) -> None:
+def test_unshuffled_rows_equal_polars_rows_file_by_file(demo_chunks_build: Path) -> None:
     """polars as a second independent Parquet reader, with batches that straddle row groups."""
-    build = open_build(demo_build)
-    for split, kind in split_kinds(demo_build):
+    build = open_build(demo_chunks_build)
+    for split, kind in split_kinds(demo_chunks_build):
         expected = [row for shard in build.shards(split, kind) for row in polars_rows(kind, shard.path)]
         assert row_tuples(kind, build.batches(split, kind, 7)) == expected, (split, kind)
 
 
-def test_batches_have_the_documented_shapes_and_types(demo_build: Path) -> None:
+def test_batches_have_the_documented_shapes_and_types(demo_chunks_build: Path) -> None:
     """The module docstring as specification: [B, n-1] and [B] n-gram arrays, [B, L+1] blocks, CSR streams."""
-    build = open_build(demo_build)
+    build = open_build(demo_chunks_build)
     n, length = build.info("train", "ngram")["n"], build.info("train", "block")["length"]
     ngram = next(build.batches("train", "ngram", 32))
     assert ngram["context"].shape == (32, n - 1) and ngram["target"].shape == (32,)
@@ -164,9 +169,9 @@ def test_fixed_size_lists_become_numpy_views_without_a_copy() -> None:
     assert not batch["context"].flags.owndata
 
 
-def test_workers_of_the_demo_split_share_no_rows_and_together_read_all_of_it(demo_build: Path) -> None:
+def test_workers_of_the_demo_split_share_no_rows_and_together_read_all_of_it(demo_chunks_build: Path) -> None:
     """collections.Counter multisets: the workers' shuffled row tuples add up exactly to the split's, for several world sizes."""
-    build = open_build(demo_build)
+    build = open_build(demo_chunks_build)
     for kind in ("ngram", "block", "stream"):
         whole = Counter(row_tuples(kind, build.batches("train", kind, 256)))
         for world_size in (2, 3):
@@ -233,6 +238,12 @@ def test_shuffle_buffer_mixes_rows_of_different_row_groups(tmp_path: Path) -> No
     assert len({index // 50 for index in first}) > 1
 
 
+def listed_shard(build: Path, split: str, kind: str, index: int = 2) -> str:
+    """The file name (relative to the build) of the manifest's `index`-th shard of a split and kind."""
+    manifest = json.loads((build / "manifest.json").read_text(encoding="utf-8"))
+    return [e["file"] for e in manifest["splits"][split]["shards"] if e["kind"] == kind][index]
+
+
 def copy_build(source: Path, target: Path) -> Path:
     """The files the reader needs, copied so they can be damaged."""
     target.mkdir(parents=True)
@@ -251,10 +262,10 @@ def drop_first_row(shard: Path) -> None:
     rewrite(shard, table.slice(1))
 
 
-def foreign_vocabulary(shard: Path) -> None:
+def foreign_ids(shard: Path) -> None:
     table = pq.read_table(shard)
     info = json.loads(table.schema.metadata[b"corpusmill"])
-    info["vocabulary_sha256"] = "0" * 64
+    info["ids_sha256"] = "0" * 64
     rewrite(shard, table.replace_schema_metadata({b"corpusmill": json.dumps(info).encode()}))
 
 
@@ -270,37 +281,37 @@ def other_split(shard: Path) -> None:
     [
         (lambda build, shard: shard.unlink(), "missing"),
         (lambda build, shard: drop_first_row(shard), "rows but"),
-        (lambda build, shard: foreign_vocabulary(shard), "vocabulary sha256"),
+        (lambda build, shard: foreign_ids(shard), "written with the ids 000000000000…, but .*vocabulary.tsv holds the ids"),
         (lambda build, shard: other_split(shard), "split='dev'"),
         (lambda build, shard: shard.write_bytes(b"not parquet"), "not a readable Parquet file"),
         (lambda build, shard: (build / "vocabulary.tsv").write_text("id\ttoken\tcount\tkind\n", encoding="utf-8"), "vocabulary.tsv: sha256"),
     ],
-    ids=["missing-shard", "row-count", "shard-vocabulary", "shard-split", "not-parquet", "edited-vocabulary"],
+    ids=["missing-shard", "row-count", "shard-ids", "shard-split", "not-parquet", "edited-vocabulary"],
 )
-def test_a_build_that_disagrees_with_its_manifest_is_refused_naming_the_file(demo_build: Path, tmp_path: Path, damage, message: str) -> None:
+def test_a_build_that_disagrees_with_its_manifest_is_refused_naming_the_file(demo_chunks_build: Path, tmp_path: Path, damage, message: str) -> None:
     """The manifest as reference: every recorded fact about a shard is checked, and the error names the file."""
-    build = copy_build(demo_build, tmp_path / "build")
-    shard = build / "shards" / "train" / "ngram-0002.parquet"
+    build = copy_build(demo_chunks_build, tmp_path / "build")
+    shard = build / listed_shard(build, "train", "ngram")
     damage(build, shard)
     with pytest.raises(BuildError, match=message) as error:
         open_build(build)
-    named = "vocabulary.tsv" if message.startswith("vocabulary.tsv") else "ngram-0002.parquet"
+    named = "vocabulary.tsv" if message.startswith("vocabulary.tsv") else shard.name
     assert named in str(error.value)
 
 
-def test_hash_check_catches_a_shard_rewritten_with_the_same_rows(demo_build: Path, tmp_path: Path) -> None:
+def test_hash_check_catches_a_shard_rewritten_with_the_same_rows(demo_chunks_build: Path, tmp_path: Path) -> None:
     """SHA-256 as reference: a shard recompressed with equal rows passes the footer checks but not verify_hashes."""
-    build = copy_build(demo_build, tmp_path / "build")
-    shard = build / "shards" / "train" / "block-0001.parquet"
+    build = copy_build(demo_chunks_build, tmp_path / "build")
+    shard = build / listed_shard(build, "train", "block", 1)
     rewrite(shard, pq.read_table(shard), compression="snappy")
     open_build(build)
-    with pytest.raises(BuildError, match="block-0001.parquet: SHA-256 differs"):
+    with pytest.raises(BuildError, match=f"{re.escape(shard.name)}: SHA-256 differs"):
         open_build(build, verify_hashes=True)
 
 
-def test_asking_for_an_absent_split_or_a_bad_rank_explains_what_exists(demo_build: Path) -> None:
+def test_asking_for_an_absent_split_or_a_bad_rank_explains_what_exists(demo_chunks_build: Path) -> None:
     """The manifest as reference: the error lists the split/kind pairs that do exist."""
-    build = open_build(demo_build)
+    build = open_build(demo_chunks_build)
     with pytest.raises(BuildError, match="available: dev/block"):
         build.rows("valid", "ngram")
     with pytest.raises(ValueError, match="rank=2, world_size=2"):
@@ -314,11 +325,11 @@ def edit_manifest(build: Path, change) -> None:
 
 
 @pytest.mark.parametrize("route", ["dot-dot", "absolute", "symlink", "symlinked-folder"])
-def test_a_shard_outside_the_build_folder_is_refused(demo_build: Path, tmp_path: Path, route: str) -> None:
+def test_a_shard_outside_the_build_folder_is_refused(demo_chunks_build: Path, tmp_path: Path, route: str) -> None:
     """A shard moved out of the build and reached by `..`, an absolute path, a symlink, or a symlinked shards/ folder."""
-    build = copy_build(demo_build, tmp_path / "build")
-    name = "shards/train/ngram-0002.parquet"
-    outside = tmp_path / "elsewhere" / "ngram-0002.parquet"
+    build = copy_build(demo_chunks_build, tmp_path / "build")
+    name = listed_shard(build, "train", "ngram")
+    outside = tmp_path / "elsewhere" / Path(name).name
     outside.parent.mkdir()
     if route == "symlinked-folder":
         (build / "shards" / "train").rename(outside.parent / "train")
@@ -328,7 +339,7 @@ def test_a_shard_outside_the_build_folder_is_refused(demo_build: Path, tmp_path:
     if route == "symlink":
         (build / name).symlink_to(outside)
     if route in ("dot-dot", "absolute"):
-        target = "../elsewhere/ngram-0002.parquet" if route == "dot-dot" else str(outside)
+        target = f"../elsewhere/{outside.name}" if route == "dot-dot" else str(outside)
 
         def point(manifest: dict) -> None:
             next(e for e in manifest["splits"]["train"]["shards"] if e["file"] == name)["file"] = target
@@ -338,9 +349,9 @@ def test_a_shard_outside_the_build_folder_is_refused(demo_build: Path, tmp_path:
         open_build(build)
 
 
-def test_a_vocabulary_symlinked_to_dev_zero_is_refused(demo_build: Path, tmp_path: Path) -> None:
+def test_a_vocabulary_symlinked_to_dev_zero_is_refused(demo_chunks_build: Path, tmp_path: Path) -> None:
     """/dev/zero never ends; vocabulary.tsv must be a file inside the build folder."""
-    build = copy_build(demo_build, tmp_path / "build")
+    build = copy_build(demo_chunks_build, tmp_path / "build")
     (build / "vocabulary.tsv").unlink()
     (build / "vocabulary.tsv").symlink_to("/dev/zero")
     with pytest.raises(BuildError, match=r"vocabulary\.tsv.*outside the build folder \(to /dev/zero\)"):
@@ -350,13 +361,14 @@ def test_a_vocabulary_symlinked_to_dev_zero_is_refused(demo_build: Path, tmp_pat
 OPEN_BUILD = "import sys\nfrom corpusmill.reader import BuildError, open_build\ntry:\n    open_build(sys.argv[1])\nexcept BuildError as error:\n    sys.exit(f'BuildError: {error}')\n"
 
 
-@pytest.mark.parametrize("victim", ["vocabulary.tsv", "manifest.json", "shards/train/ngram-0002.parquet"])
-def test_a_fifo_in_place_of_a_build_file_is_refused_as_not_a_regular_file(demo_build: Path, tmp_path: Path, victim: str) -> None:
+@pytest.mark.parametrize("victim", ["vocabulary.tsv", "manifest.json", "shard"])
+def test_a_fifo_in_place_of_a_build_file_is_refused_as_not_a_regular_file(demo_chunks_build: Path, tmp_path: Path, victim: str) -> None:
     """POSIX: opening a FIFO for reading blocks until a writer comes, so it is refused by os.stat before any open.
 
     open_build runs in a child process with a time limit, so a blocking open fails the test instead of hanging it.
     """
-    build = copy_build(demo_build, tmp_path / "build")
+    build = copy_build(demo_chunks_build, tmp_path / "build")
+    victim = listed_shard(build, "train", "ngram") if victim == "shard" else victim
     (build / victim).unlink()
     os.mkfifo(build / victim)
     run = subprocess.run([sys.executable, "-c", OPEN_BUILD, str(build)], cwd=REPO, capture_output=True, text=True, timeout=60)
@@ -364,9 +376,9 @@ def test_a_fifo_in_place_of_a_build_file_is_refused_as_not_a_regular_file(demo_b
     assert "not a regular file (a FIFO)" in run.stderr
 
 
-def test_a_vocabulary_over_the_size_limit_is_refused_before_reading(demo_build: Path, tmp_path: Path) -> None:
+def test_a_vocabulary_over_the_size_limit_is_refused_before_reading(demo_chunks_build: Path, tmp_path: Path) -> None:
     """A sparse vocabulary.tsv one byte over 1 GiB (no disk used) is refused by its size."""
-    build = copy_build(demo_build, tmp_path / "build")
+    build = copy_build(demo_chunks_build, tmp_path / "build")
     with open(build / "vocabulary.tsv", "r+b") as handle:
         handle.truncate((1 << 30) + 1)
     with pytest.raises(BuildError, match=r"vocabulary\.tsv: over the 1 GiB size limit \(1,073,741,825 bytes\)"):
@@ -374,9 +386,9 @@ def test_a_vocabulary_over_the_size_limit_is_refused_before_reading(demo_build: 
 
 
 @pytest.mark.parametrize("case", sorted(hostile.HOSTILE_MANIFESTS))
-def test_a_malformed_manifest_raises_build_error_naming_the_key_path(demo_build: Path, tmp_path: Path, case: str) -> None:
+def test_a_malformed_manifest_raises_build_error_naming_the_key_path(demo_chunks_build: Path, tmp_path: Path, case: str) -> None:
     """Wrong types, missing keys, deep nesting, huge numbers, non-UTF-8 bytes: BuildError, nothing else."""
-    build = copy_build(demo_build, tmp_path / "build")
+    build = copy_build(demo_chunks_build, tmp_path / "build")
     make, expected = hostile.HOSTILE_MANIFESTS[case]
     manifest = json.loads((build / "manifest.json").read_text(encoding="utf-8"))
     (build / "manifest.json").write_bytes(make(manifest))
@@ -386,9 +398,9 @@ def test_a_malformed_manifest_raises_build_error_naming_the_key_path(demo_build:
     assert "\n" not in str(error.value)
 
 
-def test_a_shard_listed_twice_is_refused(demo_build: Path, tmp_path: Path) -> None:
+def test_a_shard_listed_twice_is_refused(demo_chunks_build: Path, tmp_path: Path) -> None:
     """One shard listed twice would be read twice per epoch."""
-    build = copy_build(demo_build, tmp_path / "build")
+    build = copy_build(demo_chunks_build, tmp_path / "build")
 
     def twice(manifest: dict) -> None:
         shards = manifest["splits"]["train"]["shards"]
@@ -403,33 +415,33 @@ FOOTER_EDITS = {"file-total": (1000, {}), "row-group": (1000, {0: 1000}), "moved
 
 
 @pytest.mark.parametrize("edit", sorted(FOOTER_EDITS))
-def test_a_footer_promising_other_rows_than_its_pages_hold_is_refused(demo_build: Path, tmp_path: Path, edit: str) -> None:
+def test_a_footer_promising_other_rows_than_its_pages_hold_is_refused(demo_chunks_build: Path, tmp_path: Path, edit: str) -> None:
     """Parquet footer (Thrift compact protocol) edited, manifest rows and hash edited to match: opening or reading notices."""
-    build = copy_build(demo_build, tmp_path / "build")
-    shard = build / "shards" / "train" / "ngram-0002.parquet"
+    build = copy_build(demo_chunks_build, tmp_path / "build")
+    shard = build / listed_shard(build, "train", "ngram")
     pq.write_table(pq.read_table(shard), shard, row_group_size=pq.ParquetFile(shard).metadata.num_rows // 2 + 1)
     extra, groups = FOOTER_EDITS[edit]
     hostile.inflate_parquet_rows(shard, extra, groups)
 
     def match(manifest: dict) -> None:
-        entry = next(e for e in manifest["splits"]["train"]["shards"] if e["file"].endswith("ngram-0002.parquet"))
+        entry = next(e for e in manifest["splits"]["train"]["shards"] if e["file"].endswith(shard.name))
         entry.update(rows=entry["rows"] + extra, sha256=hashlib.sha256(shard.read_bytes()).hexdigest())
 
     edit_manifest(build, match)
-    with pytest.raises(BuildError, match=r"ngram-0002\.parquet: .*footer"):
+    with pytest.raises(BuildError, match=rf"{re.escape(shard.name)}: .*footer"):
         opened = open_build(build, verify_hashes=True)
         for _ in opened.batches("train", "ngram", 4096):
             pass
 
 
 @pytest.mark.parametrize("metadata", [b'["not", "an object"]', b"[1, 2"], ids=["array", "broken-json"])
-def test_shard_metadata_that_is_not_a_json_object_is_refused(demo_build: Path, tmp_path: Path, metadata: bytes) -> None:
+def test_shard_metadata_that_is_not_a_json_object_is_refused(demo_chunks_build: Path, tmp_path: Path, metadata: bytes) -> None:
     """The `corpusmill` key-value metadata must be a JSON object; anything else is not this workflow's shard."""
-    build = copy_build(demo_build, tmp_path / "build")
-    shard = build / "shards" / "train" / "ngram-0002.parquet"
+    build = copy_build(demo_chunks_build, tmp_path / "build")
+    shard = build / listed_shard(build, "train", "ngram")
     table = pq.read_table(shard)
     rewrite(shard, table.replace_schema_metadata({b"corpusmill": metadata}))
-    with pytest.raises(BuildError, match=r"ngram-0002\.parquet: its 'corpusmill' metadata is not a JSON object"):
+    with pytest.raises(BuildError, match=rf"{re.escape(shard.name)}: its 'corpusmill' metadata is not a JSON object"):
         open_build(build)
 
 

@@ -18,6 +18,7 @@ import pyarrow as pa
 import pyarrow.parquet as pq
 import pytest
 
+from corpusmill.formats import read_vocabulary
 from corpusmill.reader import open_build, to_numpy
 
 LENGTH = 3  # block rows hold LENGTH + 1 ids
@@ -38,28 +39,30 @@ def numbered_table(kind: str, numbers: np.ndarray) -> pa.Table:
 
 
 def write_numbered_build(root: Path, kind: str, group_sizes: list[list[int]]) -> Path:
-    """A build folder with one train shard per inner list and one row group per size, rows
-    numbered 0, 1, 2, … in manifest order; the manifest has the fields of a real one."""
+    """A build folder with one train shard (one chunk) per inner list and one row group per
+    size, rows numbered 0, 1, 2, … in manifest order; the manifest has the fields of a real one."""
     (root / "shards" / "train").mkdir(parents=True, exist_ok=True)
     (root / "vocabulary.tsv").write_text(VOCABULARY, encoding="utf-8")
     digest = hashlib.sha256(VOCABULARY.encode("utf-8")).hexdigest()
+    ids = read_vocabulary(root / "vocabulary.tsv").ids_digest
     reserved = {"<pad>": 0, "<unk>": 1, "<s>": 2, "</s>": 3}
     shards, start = [], 0
-    for part, sizes in enumerate(group_sizes):
-        info = {"split": "train", "kind": kind, "part": part, "vocabulary_sha256": digest, "vocabulary_size": 4, "reserved": reserved}
+    for index, sizes in enumerate(group_sizes):
+        chunk = f"{index:04d}"
+        info = {"split": "train", "kind": kind, "chunk": chunk, "ids_sha256": ids, "vocabulary_size": 4, "reserved": reserved}
         info |= {"ngram": {"n": 4, "predict_end": True}, "block": {"length": LENGTH}, "stream": {}}[kind]
-        name = f"shards/train/{kind}-{part:04d}.parquet"
+        name = f"shards/train/{kind}-{chunk}.parquet"
         schema = numbered_table(kind, np.zeros(1, np.uint32)).schema.with_metadata({b"corpusmill": json.dumps(info).encode()})
         with pq.ParquetWriter(root / name, schema) as writer:
             for size in sizes:
                 writer.write_table(numbered_table(kind, np.arange(start, start + size, dtype=np.uint32)).cast(schema))
                 start += size
         data = (root / name).read_bytes()
-        shards.append({"file": name, "kind": kind, "part": part, "rows": sum(sizes), "bytes": len(data), "sha256": hashlib.sha256(data).hexdigest()})
+        shards.append({"file": name, "kind": kind, "chunk": chunk, "rows": sum(sizes), "bytes": len(data), "sha256": hashlib.sha256(data).hexdigest()})
     figures = {"documents": start, "sentences": start, "tokens": start, "rows": {kind: start}, "shards": shards}
     manifest = {
-        "schema_version": 1,
-        "vocabulary": {"file": "vocabulary.tsv", "sha256": digest, "size": 4, "words": 0, "reserved": reserved},
+        "schema_version": 2,
+        "vocabulary": {"file": "vocabulary.tsv", "sha256": digest, "ids_sha256": ids, "size": 4, "words": 0, "reserved": reserved},
         "splits": {"train": figures},
     }
     (root / "manifest.json").write_text(json.dumps(manifest), encoding="utf-8")
@@ -277,7 +280,7 @@ def test_a_range_starting_at_a_row_group_boundary_reads_no_group_before_it(tmp_p
     assert opened == ["ngram-0003.parquet"] and decoded == [0, 1]
     opened.clear()
     assert sum(t.num_rows for t in build.tables("train", "ngram")) == 78
-    assert opened == [f"ngram-{part:04d}.parquet" for part in range(4)]
+    assert opened == [f"ngram-{index:04d}.parquet" for index in range(4)]
 
 
 def test_unshuffled_batches_inside_one_row_group_are_views_of_the_arrow_buffers(tmp_path: Path) -> None:

@@ -19,8 +19,8 @@ import numpy as np
 import pyarrow.parquet as pq
 
 from corpusmill.baseline import run as kneser_ney_baseline
-from corpusmill.reader import open_build
 from corpusmill.formats import read_vocabulary
+from corpusmill.reader import open_build
 
 Params = dict[str, np.ndarray]
 
@@ -151,9 +151,9 @@ def test_a_neural_language_model_trained_on_the_demo_shards_beats_the_unigram_ba
     test cuts itself from the dev documents (the stream shards), so a build whose windows let
     the target into its context trains a model that copies it and fails here.
 
-    Unigram counts: vocabulary.tsv's train counts (words and unknown classes), with </s> counted
-    once per train sentence from the manifest because windows predict the end of each sentence
-    and the vocabulary file records no count for it. Margin: a model that ignored its context
+    Unigram counts: vocabulary.tsv's train counts (words, unknown classes, and </s> once per
+    train sentence, which the windows predict at the end of each sentence: checked against the
+    manifest's sentence count). Margin: a model that ignored its context
     could at best learn the train unigram distribution, whose dev perplexity is within a few
     percent of the add-one baseline; requiring less than 0.5 × shows the context is used, and
     leaves a wide gap below the measured ratio (about 0.04 on the demo corpus, whose generated
@@ -167,8 +167,8 @@ def test_a_neural_language_model_trained_on_the_demo_shards_beats_the_unigram_ba
     build = open_build(demo_build)
     info = build.info("train", "ngram")
     assert info["predict_end"], "the baseline below counts </s> as a target"
-    counts = build.vocabulary.counts.astype(np.float64)
-    counts[build.vocabulary.id("</s>")] = build.manifest["splits"]["train"]["sentences"]
+    counts = np.array(build.vocabulary.counts, np.float64)
+    assert counts[build.vocabulary.id("</s>")] == build.manifest["splits"]["train"]["sentences"]
     context, target = heldout_windows(demo_build, "dev", info["n"])
     assert len(target) == build.rows("dev", "ngram") > 1000
     baseline = unigram_perplexity(counts, target)

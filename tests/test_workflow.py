@@ -17,8 +17,8 @@ import pytest
 
 from conftest import DEMO, run_workflow
 from corpusmill import settings
+from corpusmill.formats import read_vocabulary
 from corpusmill.plan import Plan
-from corpusmill.vocab import read_vocabulary
 
 
 def sha256(path: Path) -> str:
@@ -45,19 +45,20 @@ def test_the_files_at_the_top_of_the_build_agree_with_the_manifest(demo_build: P
     assert (demo_build / "report" / "index.html").read_text(encoding="utf-8").startswith("<!DOCTYPE html>")
 
 
-def test_ngram_rows_are_the_windows_of_the_stream_shards(demo_build: Path):
-    """The n-gram shards against windows cut in plain Python from the stream shards of the same
-    part (tests/test_readiness.py's heldout_windows): dev and test row for row, train as the
-    same multiset (its windows are shuffled). A context holding its own target breaks this."""
+def test_ngram_rows_are_the_windows_of_the_stream_shards(demo_chunks_build: Path):
+    """The n-gram shards against windows cut in plain Python from the stream shards
+    (tests/test_readiness.py's heldout_windows), both read in manifest order, a file per chunk:
+    dev and test row for row, train as the same multiset (its windows are shuffled). A context
+    holding its own target breaks this."""
     from tests.test_readiness import heldout_windows
 
-    for split, figures in manifest(demo_build)["splits"].items():
-        context, target = heldout_windows(demo_build, split, 4)
+    for split, figures in manifest(demo_chunks_build)["splits"].items():
+        context, target = heldout_windows(demo_chunks_build, split, 4)
         expected = list(zip(map(tuple, context.tolist()), target.tolist()))
         rows = []
         for entry in figures["shards"]:
             if entry["kind"] == "ngram":
-                table = pq.read_table(demo_build / entry["file"])
+                table = pq.read_table(demo_chunks_build / entry["file"])
                 rows += list(zip(map(tuple, table["context"].to_pylist()), table["target"].to_pylist()))
         if split == "train":
             assert Counter(rows) == Counter(expected)
@@ -70,7 +71,7 @@ def test_every_shard_matches_its_manifest_entry(demo_build: Path):
     assert {s["file"] for s in shards} == {p.relative_to(demo_build).as_posix() for p in demo_build.glob("shards/*/*.parquet")}
     for shard in shards:
         path = demo_build / shard["file"]
-        assert sha256(path) == shard["sha256"]
+        assert sha256(path) == shard["sha256"] and path.stat().st_size == shard["bytes"]
         assert pq.ParquetFile(path).metadata.num_rows == shard["rows"]
 
 
@@ -131,15 +132,33 @@ def test_boundary_symbols_count_their_train_occurrences_in_the_id_streams(demo_b
     assert pc.sum(pc.equal(streams, 2)).as_py() == documents and pc.sum(pc.equal(streams, 3)).as_py() == sentences
 
 
-def test_windows_have_three_context_ids_and_ids_below_vocabulary_size(demo_build: Path):
-    """n = 4 gives exactly 3 context ids per window (common practice)."""
-    size = manifest(demo_build)["vocabulary"]["size"]
-    for path in demo_build.glob("shards/*/ngram-*.parquet"):
-        table = pq.read_table(path)
-        assert table.schema.field("context").type.list_size == 3
-        assert pc.max(pc.list_flatten(table["context"])).as_py() < size and pc.max(table["target"]).as_py() < size
-        metadata = json.loads(pq.read_schema(path).metadata[b"corpusmill"])
-        assert metadata["vocabulary_sha256"] == manifest(demo_build)["vocabulary"]["sha256"] and metadata["n"] == 4
+def ids_sha256(vocabulary: Path) -> str:
+    """hashlib.sha256 over vocabulary.tsv's lines without their counts (`id<TAB>token<TAB>kind`):
+    what the ids mean, whatever this build counted."""
+    hasher = hashlib.sha256()
+    for line in vocabulary.read_text(encoding="utf-8").splitlines()[1:]:
+        number, token, _, kind = line.split("\t")
+        hasher.update(f"{number}\t{token}\t{kind}\n".encode())
+    return hasher.hexdigest()
+
+
+def test_windows_have_three_context_ids_and_ids_below_vocabulary_size(demo_chunks_build: Path):
+    """n = 4 gives exactly 3 context ids per window (common practice). Each shard's metadata
+    names its split, kind and chunk (the file name's) and the ids it was written with: the
+    manifest's ids_sha256, recomputed here from vocabulary.tsv."""
+    recorded = manifest(demo_chunks_build)
+    size = recorded["vocabulary"]["size"]
+    assert recorded["vocabulary"]["ids_sha256"] == ids_sha256(demo_chunks_build / "vocabulary.tsv")
+    for split, figures in recorded["splits"].items():
+        for entry in figures["shards"]:
+            metadata = json.loads(pq.read_schema(demo_chunks_build / entry["file"]).metadata[b"corpusmill"])
+            assert entry["file"] == f"shards/{split}/{entry['kind']}-{entry['chunk']}.parquet"
+            assert (metadata["split"], metadata["kind"], metadata["chunk"]) == (split, entry["kind"], entry["chunk"])
+            assert metadata["ids_sha256"] == recorded["vocabulary"]["ids_sha256"]
+            if entry["kind"] == "ngram":
+                table = pq.read_table(demo_chunks_build / entry["file"])
+                assert table.schema.field("context").type.list_size == 3 and metadata["n"] == 4
+                assert pc.max(pc.list_flatten(table["context"])).as_py() < size and pc.max(table["target"]).as_py() < size
 
 
 def test_rows_per_split_add_up_across_kinds(demo_build: Path):
@@ -150,12 +169,23 @@ def test_rows_per_split_add_up_across_kinds(demo_build: Path):
         assert figures["rows"]["ngram"] == figures["tokens"] + figures["sentences"], split
 
 
-def test_dev_and_test_keep_corpus_order(demo_build: Path):
+def test_dev_and_test_stream_files_read_in_manifest_order_give_corpus_order(demo_chunks_build: Path):
+    """The prepared documents of the split sorted by (input file as the manifest lists them,
+    byte offset), duplicates left out, as reference: the stream shards, one per chunk, read in
+    manifest order hold exactly those documents in that order."""
+    build = demo_chunks_build
+    recorded = manifest(build)
+    inputs = [entry["path"] for entry in recorded["inputs"]]
+    removed = set(zip(*(pq.read_table(build / "interim" / "duplicates.parquet")[c].to_pylist() for c in ("source", "offset"))))
+    rows = [row for path in (build / "interim" / "prepared").glob("*.parquet")
+            for row in pq.read_table(path, columns=["doc_id", "source", "offset", "split"]).to_pylist()]  # fmt: skip
+    rows.sort(key=lambda row: (inputs.index(row["source"]), row["offset"]))
     for split in ("dev", "test"):
-        doc_ids = pq.read_table(demo_build / "shards" / split / "stream-0000.parquet")["doc_id"].to_pylist()
-        assert len(doc_ids) > 5
-        sources = [d.rsplit(":", 1)[0] for d in doc_ids if ":" in d]
-        assert sources == sorted(sources)
+        expected = [r["doc_id"] for r in rows if r["split"] == split and (r["source"], r["offset"]) not in removed]
+        files = [entry["file"] for entry in recorded["splits"][split]["shards"] if entry["kind"] == "stream"]
+        assert len(files) == len(json.loads((build / "interim" / "plan" / "chunks.json").read_text())) > 2
+        read = [doc for file in files for doc in pq.read_table(build / file)["doc_id"].to_pylist()]
+        assert read == expected and len(read) > 5, split
 
 
 @pytest.mark.parametrize("pack_mb", [0, 0.1])
