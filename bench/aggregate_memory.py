@@ -96,7 +96,8 @@ def measure(name: str, root: Path) -> dict:
                         "--output", str(scratch / "g.json"), *prepared], REPO),
     }  # fmt: skip
     figures["chunks"] = len(prepared)
-    figures["documents_removed"] = json.loads((build / "stats" / "accounting.json").read_text())["dropped"].get("duplicate", 0) if (build / "stats" / "accounting.json").exists() else None
+    accounting = build / "stats" / "accounting.json"
+    figures["documents_removed"] = json.loads(accounting.read_text())["dropped"].get("duplicate", 0) if accounting.exists() else None
     print(name, figures, flush=True)
     return figures
 

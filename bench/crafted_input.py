@@ -25,11 +25,11 @@ from pathlib import Path
 sys.path.insert(0, str(Path(__file__).resolve().parent.parent))
 sys.path.insert(0, str(Path(__file__).resolve().parent))
 
-from segmentation import english_fortunes  # noqa: E402
+from segmentation import english_fortunes
 
-from corpusmill.ingest import _grapheme_cut  # noqa: E402
-from corpusmill.segment import Segmenter  # noqa: E402
-from corpusmill.unicode_breaks import learn_abbreviations  # noqa: E402
+from corpusmill.ingest import _grapheme_cut
+from corpusmill.segment import Segmenter
+from corpusmill.unicode_breaks import learn_abbreviations
 
 FLAG = "\U0001F1E6"  # REGIONAL INDICATOR SYMBOL LETTER A, 4 bytes in UTF-8
 ABBREVIATIONS = frozenset({"dr", "mr", "e.g", "etc"})

@@ -37,9 +37,9 @@ REPO = Path(__file__).resolve().parent.parent
 sys.path.insert(0, str(REPO))
 sys.path.insert(0, str(REPO / "bench"))
 
-from pipeline import DATA, RESULTS, default_config, write_corpus  # noqa: E402
 from corpusmill.ingest import find_inputs, plan_chunks  # noqa: E402
 from corpusmill.prepare import prepare_chunk  # noqa: E402
+from pipeline import DATA, RESULTS, default_config, write_corpus  # noqa: E402
 
 
 def snakemake(directory: Path, overrides: dict, *extra: str) -> tuple[float, float, str]:

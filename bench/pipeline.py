@@ -360,7 +360,10 @@ def handwritten_run(cores: int) -> dict:
 
 def machine() -> dict:
     return {
-        "cpu": next((line.split(":", 1)[1].strip() for line in Path("/proc/cpuinfo").read_text().splitlines() if line.startswith("model name")), platform.processor()),
+        "cpu": next(
+            (line.split(":", 1)[1].strip() for line in Path("/proc/cpuinfo").read_text().splitlines() if line.startswith("model name")),
+            platform.processor(),
+        ),
         "cores": os.cpu_count(),
         "memory_gib": round(psutil.virtual_memory().total / 2**30, 1),
         "python": platform.python_version(),

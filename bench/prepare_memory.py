@@ -26,9 +26,9 @@ REPO = Path(__file__).resolve().parent.parent
 sys.path.insert(0, str(REPO))
 sys.path.insert(0, str(REPO / "bench"))
 
-from pipeline import DATA, GCIDE, RESULTS, default_config, write_corpus  # noqa: E402
 from corpusmill.ingest import Chunk, chunk_key  # noqa: E402
 from corpusmill.plan import RULE_SECTIONS, chunk_record, write_if_changed  # noqa: E402
+from pipeline import DATA, GCIDE, RESULTS, default_config, write_corpus  # noqa: E402
 
 TIME = "/usr/bin/time"
 
@@ -57,7 +57,8 @@ def run_prepare(path: Path, config: dict, output: Path) -> dict:
     write_if_changed(plan, chunk_record(path.parent, Chunk(chunk_key(path.name, 0), (path.name,))))
     command = [
         TIME, "-f", "%M %U %S %e", sys.executable, "-m", "steps.run", "prepare", "--plan", str(plan), "--options", options,
-        "--output", str(output / "table.parquet"), "--tally", str(output / "tally.json"), "--counts", str(output / "counts.parquet"), "--drops", str(output / "drops.parquet"),
+        "--output", str(output / "table.parquet"), "--tally", str(output / "tally.json"),
+        "--counts", str(output / "counts.parquet"), "--drops", str(output / "drops.parquet"),
     ]
     result = subprocess.run(command, capture_output=True, text=True, env={**os.environ, "PYTHONPATH": str(REPO)})
     if result.returncode != 0:

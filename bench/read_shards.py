@@ -27,7 +27,7 @@ import pyarrow.parquet as pq
 
 sys.path.insert(0, str(Path(__file__).resolve().parent.parent))
 
-from corpusmill.reader import open_build  # noqa: E402
+from corpusmill.reader import open_build
 
 
 def batch_ids(batch: dict) -> int:
@@ -100,10 +100,10 @@ def main(argv: list[str] | None = None) -> None:
         paths = [shard.path for shard in build.shards("train", kind)]
         bare_ids(paths)
 
-        def reader_pass(seed: int | None) -> int:
+        def reader_pass(seed: int | None, kind: str = kind) -> int:
             return sum(batch_ids(b) for b in build.batches("train", kind, args.batch_size, seed=seed))
 
-        ids, bare_wall, bare_cpu = timed(lambda: bare_ids(paths), args.repeat)
+        ids, bare_wall, bare_cpu = timed(lambda paths=paths: bare_ids(paths), args.repeat)
         read, reader_wall, reader_cpu = timed(lambda: reader_pass(None), args.repeat)
         shuffled, shuffled_wall, _ = timed(lambda: reader_pass(0), args.repeat)
         if not read == shuffled == ids:

@@ -27,9 +27,9 @@ REPO = Path(__file__).resolve().parent.parent
 sys.path.insert(0, str(REPO))
 sys.path.insert(0, str(REPO / "bench"))
 
-from pipeline import DATA, RESULTS, default_config, machine, run_build  # noqa: E402
 from corpusmill.layout import SPLITS  # noqa: E402
 from corpusmill.plan import RULE_SECTIONS  # noqa: E402
+from pipeline import DATA, RESULTS, default_config, machine, run_build  # noqa: E402
 
 TIME = "/usr/bin/time"
 UNITS = {"word": {}, "subword": {"units": "subword", "subword": {"vocab_size": 500}}}

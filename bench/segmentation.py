@@ -26,7 +26,7 @@ import regex
 
 sys.path.insert(0, str(Path(__file__).resolve().parent.parent))
 
-from corpusmill.unicode_breaks import sentence_segments, split_graphemes, word_tokens  # noqa: E402
+from corpusmill.unicode_breaks import sentence_segments, split_graphemes, word_tokens
 
 GCIDE = Path("/usr/share/dictd/gcide.dict.dz")
 FORTUNES = Path("/usr/share/games/fortunes")

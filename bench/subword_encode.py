@@ -22,8 +22,8 @@ import pyarrow as pa
 import sentencepiece as spm
 
 sys.path.insert(0, str(Path(__file__).resolve().parent.parent))
-from corpusmill.encode import PieceEncoder  # noqa: E402
-from corpusmill.subword import train_model  # noqa: E402
+from corpusmill.encode import PieceEncoder
+from corpusmill.subword import train_model
 
 GCIDE = Path("/usr/share/dictd/gcide.dict.dz")
 SENTENCES_PER_DOCUMENT = 8

@@ -55,8 +55,8 @@ import re
 import shutil
 import textwrap
 import unicodedata
+from collections.abc import Callable
 from pathlib import Path
-from typing import Callable
 
 import zstandard
 

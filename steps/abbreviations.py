@@ -129,7 +129,7 @@ def _prune(counts: Counter[tuple[str, str]], target: int) -> None:
     if len(counts) <= target:
         return
     remaining = len(counts)
-    for cutoff, entries in sorted(Counter(counts.values()).items()):
+    for cutoff, entries in sorted(Counter(counts.values()).items()):  # noqa: B007 (used after the loop)
         remaining -= entries
         if remaining <= target:
             break

@@ -194,7 +194,8 @@ def audit_build(build: str | Path) -> Audit:
     config = manifest["config"]
     listed = manifest["vocabulary"]
     check_vocabulary(real_root, listed, audit)
-    entries, seen = [], {}
+    entries: list[dict] = []
+    seen: dict[Path, str] = {}
     for split, figures in manifest["splits"].items():
         for index, entry in enumerate(figures["shards"]):
             entries.append(entry)

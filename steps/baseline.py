@@ -17,6 +17,7 @@ LEAK_RATIO x train's probably shares much of its text with train.
 from __future__ import annotations
 
 import argparse
+import functools
 import json
 import math
 from collections.abc import Callable, Iterator
@@ -108,7 +109,7 @@ class Baseline:
 
     name: str  # what was scored: the build folder
     order: int
-    smoothing: str
+    smoothing: kneser_ney.Smoothing
     vocabulary_size: int
     scores: dict[str, SplitScore | None]  # None: the split has no documents
     model: KneserNey
@@ -170,10 +171,10 @@ def format_baseline(baseline: Baseline) -> str:
     """The report as plain text: perplexity per split and order, seen shares, discounts, warnings."""
     scores = baseline.scores
     name = {"modified": "interpolated modified Kneser-Ney", "interpolated": "interpolated Kneser-Ney"}[baseline.smoothing]
-    train = scores["train"]
+    train_tokens = train.tokens if (train := scores["train"]) else 0
     lines = [
         f"baseline of {baseline.name}: {name} (Chen and Goodman 1998), order {baseline.order}, "
-        f"counted on train ({train.tokens:,} predicted tokens)",
+        f"counted on train ({train_tokens:,} predicted tokens)",
         f"vocabulary: {baseline.vocabulary_size:,} ids, {kneser_ney.predictable(baseline.vocabulary_size):,} predictable",
         "",
         f"{'perplexity':<22}" + "".join(f"{split:>14}" for split in scores),
@@ -182,8 +183,11 @@ def format_baseline(baseline: Baseline) -> str:
     def row(label: str, value: Callable[[SplitScore], float]) -> str:
         return f"  {label:<20}" + "".join(f"{_number(value(s)) if s else '—':>14}" for s in scores.values())
 
+    def at_order(order: int) -> Callable[[SplitScore], float]:
+        return lambda score: score.perplexity(order)
+
     for order in baseline.orders:
-        lines.append(row(f"order {order}", lambda s, order=order: s.perplexity(order)))
+        lines.append(row(f"order {order}", at_order(order)))
     lines.append(row("unigram (add-one)", lambda s: s.unigram_perplexity))
     lines.append(f"  {'predicted tokens':<20}" + "".join(f"{s.tokens if s else 0:>14,}" for s in scores.values()))
     lines += ["", f"{'seen in train':<22}" + "".join(f"{split:>14}" for split in scores if split != "train")]
@@ -208,7 +212,7 @@ def default_order(build: Build) -> int:
     return DEFAULT_ORDER
 
 
-def score(name: str, splits: dict[str, Sentences | None], vocabulary_size: int, order: int, smoothing: str) -> Baseline:
+def score(name: str, splits: dict[str, Sentences | None], vocabulary_size: int, order: int, smoothing: kneser_ney.Smoothing) -> Baseline:
     """Count train, estimate the models of orders 2..n, and score every split (`splits` gives
     each split's sentences, None for a split without documents)."""
     try:
@@ -238,14 +242,14 @@ def score(name: str, splits: dict[str, Sentences | None], vocabulary_size: int, 
     return Baseline(name, order, smoothing, vocabulary_size, scores, models[order])
 
 
-def run(build: Build, order: int | None, smoothing: str) -> Baseline:
+def run(build: Build, order: int | None, smoothing: kneser_ney.Smoothing) -> Baseline:
     """The baseline of a finished build, read through steps.reader."""
     missing = [split for split in SPLITS if split in build.splits and "stream" not in build.kinds(split)]
     if "train" not in build.splits or missing:
         raise fail(f"{build.root / MANIFEST}: no stream shards for {', '.join(missing) or 'train'}; "
                    f"the baseline reads each split's document streams: {ENABLE_STREAMS}")
     splits: dict[str, Sentences | None] = {
-        split: (lambda split=split: split_sentences(build, split)) if split in build.splits else None for split in SPLITS
+        split: functools.partial(split_sentences, build, split) if split in build.splits else None for split in SPLITS
     }
     return score(str(build.root), splits, build.vocabulary.size, default_order(build) if order is None else order, smoothing)
 
@@ -267,7 +271,7 @@ def step(argv: list[str] | None = None) -> None:
                 files[written.split].append(Path(layout.root, written.file))
     size = read_vocabulary(layout.ids).size
     splits: dict[str, Sentences | None] = {
-        split: (lambda paths=paths, split=split: file_sentences(paths, f"split {split}", size)) if paths else None
+        split: functools.partial(file_sentences, paths, f"split {split}", size) if paths else None
         for split, paths in files.items()
     }
     baseline = score(layout.root, splits, size, step_order(run_.options), run_.options["baseline"]["smoothing"])

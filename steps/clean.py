@@ -9,6 +9,7 @@ from __future__ import annotations
 
 import unicodedata
 from dataclasses import dataclass
+from typing import Literal
 
 import regex
 
@@ -27,7 +28,8 @@ _ASCII_NON_LETTERS = bytes(b for b in range(256) if not (0x41 <= b <= 0x5A or 0x
 # ASCII text without any of the other bytes holds no control character (\p{Cc} but tab, LF).
 _ASCII_PLAIN = b"\t\n" + bytes(range(0x20, 0x7F))
 
-FORMS = ("NFC", "NFD", "NFKC", "NFKD")
+NormalForm = Literal["NFC", "NFD", "NFKC", "NFKD"]
+FORMS: tuple[NormalForm, ...] = ("NFC", "NFD", "NFKC", "NFKD")
 
 
 @dataclass(frozen=True)
@@ -45,9 +47,10 @@ class CleanOptions:
 
 def normalize(text: str, form: str) -> str:
     """Unicode normalization (UAX #15) in one of NFC, NFD, NFKC, NFKD."""
-    if form not in FORMS:
-        raise ValueError(f"unknown normalization form {form!r}; allowed: {', '.join(FORMS)}")
-    return unicodedata.normalize(form, text)
+    for known in FORMS:
+        if form == known:
+            return unicodedata.normalize(known, text)
+    raise ValueError(f"unknown normalization form {form!r}; allowed: {', '.join(FORMS)}")
 
 
 def stream_safe(text: str) -> str:

@@ -85,7 +85,7 @@ def word_description(counts: pa.Table, vocabulary: Vocabulary, top: int) -> tupl
         column = counts[split].to_numpy()
         present = column > 0
         oov = present & ~known
-        figures = {"types": int(present.sum()), "oov_types": int(oov.sum())}
+        figures: dict[str, object] = {"types": int(present.sum()), "oov_types": int(oov.sum())}
         if split != "train":
             order = np.argsort(-column[oov], kind="stable")[:top]
             names = counts["token"].filter(pa.array(oov)).to_pylist()

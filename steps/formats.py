@@ -20,7 +20,7 @@ from __future__ import annotations
 
 import hashlib
 import json
-from collections.abc import Mapping, Sequence
+from collections.abc import Iterable, Mapping, Sequence
 from dataclasses import asdict, dataclass, field
 from functools import cached_property
 from pathlib import Path
@@ -115,7 +115,7 @@ class Vocabulary:
     def units(self) -> str:
         return "subword" if any(kind in SUBWORD_KINDS for kind in self.kinds) else "word"
 
-    def with_counts(self, counts: Sequence[int]) -> Vocabulary:
+    def with_counts(self, counts: Iterable[int]) -> Vocabulary:
         return Vocabulary(list(self.tokens), [int(c) for c in counts], list(self.kinds))
 
     def to_tsv(self) -> str:

@@ -26,7 +26,7 @@ import zlib
 from collections.abc import Iterator
 from dataclasses import dataclass
 from pathlib import Path, PurePosixPath
-from typing import BinaryIO
+from typing import BinaryIO, cast
 
 import regex
 import zstandard
@@ -328,7 +328,7 @@ class _Frames(io.RawIOBase):
         self._raw.close()
         super().close()
 
-    def readinto(self, buffer: bytearray) -> int:  # type: ignore[override]
+    def readinto(self, buffer: memoryview) -> int:  # type: ignore[override]
         while not self._ready:
             data = self._raw.read(self.FEED)
             if not data:
@@ -360,15 +360,15 @@ class _Frames(io.RawIOBase):
 class _BoundedReader(io.RawIOBase):
     """Decompressed stream that stops with a clear error past a size limit (decompression bombs)."""
 
-    def __init__(self, inner: BinaryIO, limit: int, path: str) -> None:
+    def __init__(self, inner: _Frames, limit: int, path: str) -> None:
         self._inner, self._limit, self._path, self.position = inner, limit, path, 0
 
     def readable(self) -> bool:
         return True
 
-    def readinto(self, buffer: bytearray) -> int:  # type: ignore[override]
+    def readinto(self, buffer: memoryview) -> int:  # type: ignore[override]
         try:
-            data = self._inner.read(len(buffer))
+            data = self._inner.read(len(buffer)) or b""
         except (EOFError, OSError, zlib.error, lzma.LZMAError, zstandard.ZstdError) as error:
             raise CorpusError(
                 f"{self._path}: compressed data is damaged or truncated after {self.position} bytes of text ({error}); "
@@ -696,15 +696,16 @@ def _json_documents(
         text = decode(position, data)
         if text is None:
             continue
-        problem, record = None, None
+        problem, record, value = None, {}, None
         try:
-            record = json.loads(text)
+            parsed = json.loads(text)
+            record = parsed if isinstance(parsed, dict) else {}
         except json.JSONDecodeError as error:
             problem, reason = f"not valid JSON ({error.msg} at column {error.colno})", "bad_json"
         except (ValueError, RecursionError) as error:  # e.g. a 5,000-digit number, nesting too deep
             problem, reason = f"not readable JSON ({error})", "bad_json"
         if problem is None:
-            value = record.get(options.jsonl_text_field) if isinstance(record, dict) else None
+            value = record.get(options.jsonl_text_field)
             if not isinstance(value, str):
                 problem, reason = f"no string field {options.jsonl_text_field!r}", "no_text"
             elif _LONE_SURROGATE.search(value):
@@ -725,7 +726,7 @@ def _json_documents(
             doc_id = f"{piece.source}:{position}"
         else:
             doc_id = f"{piece.source}#{raw_id}" if options.repeated_ids == "by_file" else str(raw_id)
-        yield Document(doc_id, piece.source, position, value)
+        yield Document(doc_id, piece.source, position, cast(str, value))  # a string: every other case continued above
 
 
 @dataclass(frozen=True)

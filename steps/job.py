@@ -44,7 +44,7 @@ def start(argv: list[str] | None, rule: str, description: str, per_chunk: bool =
     return Job(layout, rule, getattr(args, "chunk", ""), options)
 
 
-def entries(**functions: Callable[[list[str]], None]) -> Callable[[list[str] | None], None]:
+def entries(**functions: Callable[[list[str]], None]) -> Callable[..., None]:
     """The main of a module with several entries (`python -m steps.run MODULE ENTRY --build …`)."""
 
     def main(argv: list[str] | None = None) -> None:

@@ -77,6 +77,10 @@ class Keys:
     def __len__(self) -> int:
         return len(self.low)
 
+    def upper(self) -> np.ndarray:
+        """The high words; zeros when the keys fit 64 bits."""
+        return self.high if self.high is not None else np.zeros_like(self.low)
+
     def __getitem__(self, index: np.ndarray | slice) -> Keys:
         return Keys(self.low[index], None if self.high is None else self.high[index])
 
@@ -125,8 +129,7 @@ class KeyFormat:
         k, bits, rows = len(columns), self.bits, len(columns[0])
         if k * bits > 128:
             raise ValueError(f"{k} ids of {bits} bits do not fit in 128 bits: use an order of at most {self.largest_order()}")
-        low = np.zeros(rows, np.uint64)
-        high = np.zeros(rows, np.uint64) if k * bits > 64 else None
+        low, high = np.zeros(rows, np.uint64), np.zeros(rows, np.uint64)
         for j, column in enumerate(columns):
             shift = bits * (k - 1 - j)
             value = column.astype(np.uint64, copy=False)
@@ -136,20 +139,21 @@ class KeyFormat:
             low |= value << np.uint64(shift)
             if shift + bits > 64:
                 high |= value >> np.uint64(64 - shift)
-        return Keys(low, high)
+        return Keys(low, high if k * bits > 64 else None)
 
     def unpack(self, keys: Keys, k: int) -> list[np.ndarray]:
         """The ids of k-gram keys, column by column (uint64)."""
         bits, mask = self.bits, np.uint64((1 << self.bits) - 1)
+        high = keys.upper()
         columns = []
         for j in range(k):
             shift = bits * (k - 1 - j)
             if shift >= 64:
-                columns.append((keys.high >> np.uint64(shift - 64)) & mask)
+                columns.append((high >> np.uint64(shift - 64)) & mask)
                 continue
             column = keys.low >> np.uint64(shift)
             if shift + bits > 64:
-                column |= keys.high << np.uint64(64 - shift)
+                column |= high << np.uint64(64 - shift)
             columns.append(column & mask)
         return columns
 
@@ -158,7 +162,7 @@ class KeyFormat:
         kept = self.bits * (k - 1)
         if kept <= 64:
             return Keys(keys.low & np.uint64((1 << kept) - 1))
-        return Keys(keys.low, keys.high & np.uint64((1 << (kept - 64)) - 1))
+        return Keys(keys.low, keys.upper() & np.uint64((1 << (kept - 64)) - 1))
 
     def prefix(self, keys: Keys, k: int) -> Keys:
         """Keys of the first k-1 ids of k-gram keys (sorted when the keys are)."""
@@ -202,8 +206,8 @@ def find(table: Keys, queries: Keys) -> np.ndarray:
         end = np.full(len(place), len(table))
     else:
         # Keys with the same high word form one run of the table, sorted by their low word.
-        place = np.searchsorted(table.high, ordered.high, side="left")
-        end = np.searchsorted(table.high, ordered.high, side="right")
+        place = np.searchsorted(table.high, ordered.upper(), side="left")
+        end = np.searchsorted(table.high, ordered.upper(), side="right")
         place = _search(table.low, ordered.low, place, end.copy())
     inside = np.minimum(place, len(table) - 1)
     hit = (place < end) & (table.low[inside] == ordered.low)

@@ -353,7 +353,7 @@ def detection_probability(similarity: float, options: MinHashOptions = MinHashOp
     # states[c][f]: probability of c agreeing slots so far, f = whether some band agreed fully.
     states = np.zeros((options.num_perm + 1, 2))
     states[0, 0] = 1.0
-    for done in range(options.bands):
+    for _ in range(options.bands):
         nxt = np.zeros_like(states)
         for m, p in enumerate(band):
             if m == r:

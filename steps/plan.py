@@ -12,8 +12,8 @@ step module declares it reads (SECTIONS), so changing an option reruns exactly t
 read it. Each is rewritten only when its content changes.
 
 A rule's code hash covers the module it runs and every step module that one imports, found
-from the sources' import statements, and the package and steps/run.py that every job starts
-with: editing any of them reruns the rule. Nothing here imports
+from the sources' import statements, and the package, steps/run.py and its imports that every
+job starts with: editing any of them reruns the rule. Nothing here imports
 numpy or Arrow, as the Snakemake process runs it.
 """
 
@@ -87,18 +87,24 @@ def sections_of(module: str) -> tuple[str, ...] | str | dict[str, tuple[str, ...
     whose entries read different options, a dict by rule), read from its source, so the
     workflow process imports no step module's dependencies."""
     for node in _parsed(module).body:
-        target = node.target if isinstance(node, ast.AnnAssign) else (node.targets[0] if isinstance(node, ast.Assign) else None)
-        if isinstance(target, ast.Name) and target.id == "SECTIONS" and node.value is not None:
-            return ast.literal_eval(node.value)
+        target: ast.expr
+        if isinstance(node, ast.AnnAssign):
+            target, value = node.target, node.value
+        elif isinstance(node, ast.Assign):
+            target, value = node.targets[0], node.value
+        else:
+            continue
+        if isinstance(target, ast.Name) and target.id == "SECTIONS" and value is not None:
+            return ast.literal_eval(value)
     raise KeyError(f"steps/{module}.py declares no SECTIONS")
 
 
 def code_hash(rule: str) -> str:
     """SHA-256 over the source of the module a rule runs, every step module it imports, and
-    what every job starts with (the package and steps/run.py): editing any of them reruns the
-    rule."""
+    what every job starts with (the package, steps/run.py and what it imports): editing any of
+    them reruns the rule."""
     hasher = hashlib.sha256()
-    for module in sorted({"__init__", "run", *import_closure(module_of(rule))}):
+    for module in sorted({"__init__", *import_closure("run"), *import_closure(module_of(rule))}):
         hasher.update(module.encode() + b"\0" + (STEPS_DIR / f"{module}.py").read_bytes())
     return hasher.hexdigest()[:16]
 
@@ -135,7 +141,7 @@ def frozen_file(field: str, value: str, header: str | None) -> str:
     try:
         info = os.stat(value)
     except OSError as error:
-        raise ingest.CorpusError(f"{field} = {value!r}: {error.strerror.lower()}; {fix}") from None
+        raise ingest.CorpusError(f"{field} = {value!r}: {(error.strerror or str(error)).lower()}; {fix}") from None
     if not stat.S_ISREG(info.st_mode):
         raise ingest.CorpusError(f"{field} = {value!r}: not a regular file; {fix}")
     if info.st_size > MAX_FROZEN_BYTES:

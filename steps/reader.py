@@ -116,7 +116,8 @@ def _found(value: object) -> str:
         return json.dumps(value)
     if isinstance(value, (int, float)):
         return f"the number {str(value)[:24]}"
-    return {dict: "an object", list: "an array", str: "a string"}[type(value)]
+    names: dict[object, str] = {dict: "an object", list: "an array", str: "a string"}
+    return names[type(value)]
 
 
 def _expected(spec: object) -> str:
@@ -124,7 +125,8 @@ def _expected(spec: object) -> str:
         return "one of " + ", ".join(map(json.dumps, spec))
     if isinstance(spec, (dict, list)):
         return "an object" if isinstance(spec, dict) else "an array"
-    return {str: "a string", int: "a whole number from 0 to 2^63-1", bool: "true or false"}[spec]
+    names: dict[object, str] = {str: "a string", int: "a whole number from 0 to 2^63-1", bool: "true or false"}
+    return names[spec]
 
 
 def structure_problem(value: object, spec: object, where: str = "") -> str | None:
@@ -564,7 +566,9 @@ def open_build(path: str | Path, *, verify_hashes: bool = False) -> Build:
     vocabulary = _read_vocabulary(vocabulary_path)
     if vocabulary.ids_digest != manifest["vocabulary"]["ids_sha256"]:
         raise BuildError(f"{vocabulary_path}: its ids differ from those {manifest_path} records; {REBUILD}")
-    shards, seen, folders = [], {}, {}
+    shards: list[Shard] = []
+    seen: dict[Path, str] = {}
+    folders: dict[str, str] = {}
     for split, figures in manifest["splits"].items():
         for index, entry in enumerate(figures["shards"]):
             where = key_path(key_path(key_path("splits", split), "shards"), index) + ".file"

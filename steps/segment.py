@@ -112,6 +112,7 @@ class Segmenter:
 
     def __post_init__(self) -> None:
         self.abbreviations = frozenset(a.lower() for a in self.abbreviations)
+        self._sentences: Callable[[str], list[str]]
         if self.sentences_mode == "line":
             self._sentences = _line_sentences
         elif self.sentences_mode == "punctuation":

@@ -31,11 +31,13 @@ import socket
 import struct
 import sys
 import traceback
+from typing import IO, cast
 
 ENV = "CORPUSMILL_WORKER"
 # The step modules every rule runs, imported once by the worker.
 PRELOAD = (
-    "abbreviations", "prepare", "deduplicate", "subword", "vocabulary", "shards", "accounting", "growth", "coverage", "manifest", "report",
+    "abbreviations", "prepare", "deduplicate", "subword", "vocabulary", "shards", "accounting", "growth", "coverage", "baseline",
+    "manifest", "croissant", "datasheet", "report",
 )  # fmt: skip
 _STREAMS = 3  # stdin, stdout, stderr
 _MAX_MESSAGE = 1 << 22
@@ -206,7 +208,8 @@ def start(build: str) -> list:
         [sys.executable, "-m", f"{__package__}.worker", name, str(os.getpid())],
         stdout=subprocess.PIPE, env=environment, start_new_session=True,
     )  # fmt: skip
-    ready = select.select([process.stdout], [], [], 30)[0] and process.stdout.readline().strip() == b"ready"
+    announcements = cast(IO[bytes], process.stdout)  # a pipe: stdout=PIPE
+    ready = select.select([announcements], [], [], 30)[0] and announcements.readline().strip() == b"ready"
     if not ready:
         process.kill()
         return []

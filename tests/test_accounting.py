@@ -55,7 +55,11 @@ def test_merging_counts_each_file_over_its_chunks_and_its_removed_duplicates():
 
 
 def test_problems_of_every_chunk_are_named_in_one_message():
-    tallies = [{"problems": [{"source": "a.txt", "message": "a.txt: invalid UTF-8"}]}, {"problems": []}, {"problems": [{"source": "b", "message": "b: damaged"}]}]
+    tallies = [
+        {"problems": [{"source": "a.txt", "message": "a.txt: invalid UTF-8"}]},
+        {"problems": []},
+        {"problems": [{"source": "b", "message": "b: damaged"}]},
+    ]
     message = problems_message(tallies)
     assert message.startswith("corpusmill: 2 input file(s) cannot be read as configured:") and "a.txt: invalid UTF-8" in message and "b: damaged" in message
     assert problems_message([{"problems": []}]) is None
@@ -77,7 +81,7 @@ def test_utf16_and_utf32_text_is_recognised_with_or_without_a_byte_order_mark(en
     if encoding.endswith(("le", "be")):
         assert found == expected.replace("LE", "LE").replace("BE", "BE")
     assert foreign_encoding(TEXT.encode("utf-8"), file_start=True) is None
-    assert foreign_encoding("a\x00b and a NUL in ordinary text".encode(), file_start=True) is None
+    assert foreign_encoding(b"a\x00b and a NUL in ordinary text", file_start=True) is None
 
 
 def _read_all(root: Path, name: str, **options) -> list:

@@ -139,7 +139,8 @@ def test_short_documents_match_only_a_train_document_of_the_same_words() -> None
     document has exactly those words (case and punctuation aside), not when a longer train
     document contains them. A document without words has no share."""
     train = train_set([pa.array([[["The", "cat", "sat", "."]], [["a", "dog", "ran", "far", "and", "then", "some"] * 2]], TOKENS)])
-    found = scored(pa.array([[["the", "CAT", "sat!"]], [["a", "dog", "ran"]], [["—", "!"]], [["a", "dog", "ran", "far", "and", "then", "some"] * 2]], TOKENS), train)
+    documents = [[["the", "CAT", "sat!"]], [["a", "dog", "ran"]], [["—", "!"]], [["a", "dog", "ran", "far", "and", "then", "some"] * 2]]
+    found = scored(pa.array(documents, TOKENS), train)
     assert found[0] == 1.0 and found[1] == 0.0 and math.isnan(found[2]) and found[3] == 1.0
 
 

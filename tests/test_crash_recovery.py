@@ -57,7 +57,7 @@ def assert_nothing_half_written(build_dir: Path) -> None:
         if path.name.startswith(".") or not path.is_file():
             continue
         if path.suffix == ".parquet":
-            pq.ParquetFile(path).metadata  # raises on a truncated file
+            assert pq.ParquetFile(path).metadata is not None  # raises on a truncated file
         elif path.suffix == ".json":
             json.loads(path.read_text(encoding="utf-8"))
 

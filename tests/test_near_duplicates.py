@@ -558,7 +558,7 @@ def outcome(policy: str, present: list[int], prints: list[bytes], splits: list[s
 
 def check_growth(policy: str, before: dict, after: dict, ranks: dict[int, int], splits: list[str]) -> None:
     """The guarantee written in steps.near_duplicates, between two successive corpora."""
-    for doc, (kept, split, anchor, group) in after.items():
+    for doc, (kept, split, anchor, _) in after.items():
         if kept:
             assert split == splits[doc]  # a kept document is always in its own split
         if doc not in before:
@@ -574,10 +574,10 @@ def check_growth(policy: str, before: dict, after: dict, ranks: dict[int, int], 
         if policy == "drop" and not was_kept:
             assert not kept  # never kept again
     kept_groups: dict[frozenset, set[str]] = {}
-    for doc, (kept, split, _, group) in after.items():
+    for kept, split, _, group in after.values():
         if kept:
             kept_groups.setdefault(group, set()).add(split)
-    for group, found in kept_groups.items():
+    for found in kept_groups.values():
         assert len(found) == 1  # each cluster's kept members lie in one split
         if policy == "drop":
             assert sum(after[doc][0] for doc in group) == 1

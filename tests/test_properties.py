@@ -15,9 +15,9 @@ from hypothesis import given
 from hypothesis import strategies as st
 
 from corpusmill.clean import CleanOptions, clean_text
+from corpusmill.encoder import WordEncoder
 from corpusmill.segment import Segmenter, is_lossless
 from corpusmill.split import assign_split, fingerprint
-from corpusmill.encoder import WordEncoder
 from corpusmill.vocabulary import Cutoff, build_vocabulary, sort_by_frequency
 from corpusmill.windows import CorpusBlocks, document_blocks, document_streams, ngram_windows
 from tests.test_split import prepared_splits

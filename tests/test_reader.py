@@ -358,7 +358,10 @@ def test_a_vocabulary_symlinked_to_dev_zero_is_refused(demo_chunks_build: Path, 
         open_build(build)
 
 
-OPEN_BUILD = "import sys\nfrom corpusmill.reader import BuildError, open_build\ntry:\n    open_build(sys.argv[1])\nexcept BuildError as error:\n    sys.exit(f'BuildError: {error}')\n"
+OPEN_BUILD = (
+    "import sys\nfrom corpusmill.reader import BuildError, open_build\n"
+    "try:\n    open_build(sys.argv[1])\nexcept BuildError as error:\n    sys.exit(f'BuildError: {error}')\n"
+)
 
 
 @pytest.mark.parametrize("victim", ["vocabulary.tsv", "manifest.json", "shard"])

@@ -33,7 +33,7 @@ class FeedForwardLM:
     context_size: int
 
     @classmethod
-    def initialise(cls, vocabulary: int, context_size: int, width: int, hidden: int, seed: int, dtype: type = np.float32) -> "FeedForwardLM":
+    def initialise(cls, vocabulary: int, context_size: int, width: int, hidden: int, seed: int, dtype: type = np.float32) -> FeedForwardLM:
         """Small random weights so the first predictions are close to uniform (perplexity ≈ V)."""
         rng = np.random.default_rng(seed)
         fan_in = context_size * width

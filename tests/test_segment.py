@@ -7,8 +7,8 @@ from pathlib import Path
 
 import pytest
 import regex
-from conftest import require_file
 
+from conftest import require_file
 from corpusmill import segment
 from corpusmill.clean import CleanOptions, clean_text
 from corpusmill.segment import NUMBER_TOKEN, Segmenter, is_lossless

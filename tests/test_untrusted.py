@@ -15,8 +15,8 @@ from pathlib import Path
 import pyarrow.parquet as pq
 import pytest
 import yaml
-from conftest import run_workflow
 
+from conftest import run_workflow
 from corpusmill import abbreviations, unicode_breaks
 from corpusmill.accounting import Tally
 from corpusmill.clean import CleanOptions, clean_text, rejection

@@ -86,7 +86,8 @@ def test_streams_match_the_reference_for_uneven_sentences_and_documents():
 def test_windows_streams_and_blocks_keep_the_id_type_of_their_input():
     """Shard jobs cut rows in the shard's own id type (uint16 for |V| <= 65,536) to keep their
     memory low; every function returns that type, also when there is nothing to cut."""
-    for ids, lengths, per_doc in ((np.array([5, 6, 7], np.uint16), np.array([3]), np.array([1])), (np.empty(0, np.uint16), np.empty(0, np.int64), np.empty(0, np.int64))):
+    cases = ((np.array([5, 6, 7], np.uint16), np.array([3]), np.array([1])), (np.empty(0, np.uint16), np.empty(0, np.int64), np.empty(0, np.int64)))
+    for ids, lengths, per_doc in cases:
         context, target = ngram_windows(ids, lengths, 3, BOS, EOS)
         stream, doc_lengths = document_streams(ids, lengths, per_doc, BOS, EOS)
         blocks = document_blocks(stream, doc_lengths, 3, 3, "pad", PAD)

@@ -110,7 +110,7 @@ def test_vocabulary_counts_equal_a_counter_recount_of_train(demo_build: Path):
     words = {t for t, k in zip(vocabulary.tokens, vocabulary.kinds) if k == "word"}
     assert words == {t for t, c in recount.items() if c >= 2}  # the default cutoff: min_count 2
     counts = pq.read_table(demo_build / "stats" / "token_counts.parquet")
-    assert dict(zip(counts["token"].to_pylist(), counts["train"].to_pylist())) == {**{t: 0 for t in counts["token"].to_pylist()}, **recount}
+    assert dict(zip(counts["token"].to_pylist(), counts["train"].to_pylist())) == {**dict.fromkeys(counts["token"].to_pylist(), 0), **recount}
 
 
 def test_boundary_symbols_count_their_train_occurrences_in_the_id_streams(demo_build: Path):
