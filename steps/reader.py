@@ -64,7 +64,7 @@ import numpy as np
 import pyarrow as pa
 import pyarrow.parquet as pq
 
-from .formats import FormatError, Vocabulary, read_vocabulary
+from .formats import KINDS, FormatError, Vocabulary, read_vocabulary
 from .layout import RELATIVE
 
 MANIFEST = RELATIVE.manifest
@@ -74,7 +74,6 @@ REBUILD = "rerun the workflow (snakemake) on this build folder to rewrite it"
 # what would exhaust memory when read whole.
 MAX_MANIFEST_BYTES = 256 << 20
 MAX_VOCABULARY_BYTES = 1 << 30
-KINDS = ("block", "ngram", "stream")
 LARGEST_COUNT = 2**63 - 1  # Parquet's row counts are int64
 
 # The manifest fields the reader reads, with their types (see structure_problem).
