@@ -117,7 +117,7 @@ def test_the_vocabulary_entry_describes_vocabulary_tsv(demo_chunks_build: Path, 
         "words": sum(kind == "word" for *_, kind in rows),
         "reserved": {token: int(number) for number, token, _, kind in rows if kind in ("reserved", "unknown")},
     }  # fmt: skip
-    assert manifest["files"] == {"stats/coverage.json": sha256(demo_chunks_build / "stats" / "coverage.json")}
+    assert manifest["files"] == {name: sha256(demo_chunks_build / name) for name in ("stats/coverage.json", "stats/baseline.json")}
 
 
 def test_the_accounting_sums_the_chunk_tallies_and_keeps_what_the_shards_hold(demo_chunks_build: Path, manifest: dict) -> None:

@@ -30,12 +30,12 @@ def manifest(build: Path) -> dict:
 
 
 def test_the_files_at_the_top_of_the_build_agree_with_the_manifest(demo_build: Path):
-    """README's layout: vocabulary.tsv and stats/coverage.json are the files the manifest
-    hashed (hashlib.sha256), token_counts.parquet's per-split sums are the manifest's token
+    """README's layout: vocabulary.tsv, stats/coverage.json and stats/baseline.json are the
+    files the manifest hashed (hashlib.sha256), token_counts.parquet's per-split sums are the manifest's token
     figures, and growth.json ends at the train token count."""
     recorded = manifest(demo_build)
     assert sha256(demo_build / "vocabulary.tsv") == recorded["vocabulary"]["sha256"]
-    assert recorded["files"] == {"stats/coverage.json": sha256(demo_build / "stats" / "coverage.json")}
+    assert recorded["files"] == {name: sha256(demo_build / name) for name in ("stats/coverage.json", "stats/baseline.json")}
     counts = pq.read_table(demo_build / "stats" / "token_counts.parquet")
     assert counts.column_names == ["token", "train", "dev", "test"]
     for split in ("train", "dev", "test"):
@@ -232,7 +232,8 @@ def test_a_config_error_stops_before_any_job(tmp_path: Path):
 
 @pytest.mark.parametrize("kinds", [{"ngram": {"enabled": False}}, {"blocks": {"enabled": False}, "streams": {"enabled": False}}])
 def test_disabled_kinds_write_no_files(tmp_path: Path, kinds: dict):
-    run_workflow(tmp_path, {"corpus": {"root": str(DEMO), "include": ["journals/*.txt"]}, "windows": kinds})
+    baseline = {"enabled": "streams" not in kinds}  # the baseline counts the document streams
+    run_workflow(tmp_path, {"corpus": {"root": str(DEMO), "include": ["journals/*.txt"]}, "windows": kinds, "baseline": baseline})
     written = {p.name.split("-")[0] for p in (tmp_path / "build" / "shards").rglob("*.parquet")}
     expected = {"ngram", "block", "stream"} - {{"ngram": "ngram", "blocks": "block", "streams": "stream"}[k] for k in kinds}
     assert written == expected
