@@ -1,7 +1,8 @@
 """Time of every text path on crafted text: its growth as the text quadruples, and against prose.
 
 For every path of TEXT_FUNCTIONS and every crafted text of PATHOLOGICAL (both in tests/hostile.py,
-whose outputs tests/test_untrusted.py checks), the script prints the least CPU time of several
+whose outputs tests/test_untrusted.py checks), and for the UAX #29 break functions
+(BREAK_FUNCTIONS) on inputs aimed at each rule that looks ahead or behind (RULE_LOOKAHEAD), the script prints the least CPU time of several
 runs on the text made for sizes s and 4s (characters), the growth (about 4 when the path is
 linear, 16 when quadratic), and the ratio of the time at 4s to that on ordinary English prose
 (Debian's English fortunes, repeated) of 4s characters. A last line does the same for cleaning
@@ -36,7 +37,7 @@ sys.path.insert(0, str(Path(__file__).resolve().parent))
 from segmentation import english_fortunes
 
 from corpusmill.clean import CleanOptions, clean_text
-from tests.hostile import PATHOLOGICAL, TEXT_FUNCTIONS, combining_run
+from tests.hostile import BREAK_FUNCTIONS, PATHOLOGICAL, RULE_LOOKAHEAD, TEXT_FUNCTIONS, combining_run
 
 FLOOR_S = 5e-3
 MAX_GROWTH = 10
@@ -97,12 +98,13 @@ def main() -> None:
     print(f"ratio = time at 4s / prose time (at least {floor}); flagged: growth > {MAX_GROWTH} or ratio > {MAX_RATIO}, time at 4s above {floor}")
     print(f"{'path':34s} {'crafted input':34s} {'ms at s':>10s} {'ms at 4s':>10s} {'growth':>7s} {'prose ms':>10s} {'ratio':>7s}")
     flagged = []
-    for path, function in TEXT_FUNCTIONS.items():
-        plain = best_seconds(function, ordinary(prose, 4 * args.size), args.repeats)
-        for case, make in PATHOLOGICAL.items():
-            small, large = (best_seconds(function, make(size), args.repeats) for size in (args.size, 4 * args.size))
-            if row(path, case, small, large, plain):
-                flagged.append(f"{path} / {case}")
+    for functions, inputs in ((TEXT_FUNCTIONS, PATHOLOGICAL), (BREAK_FUNCTIONS, RULE_LOOKAHEAD)):
+        for path, function in functions.items():
+            plain = best_seconds(function, ordinary(prose, 4 * args.size), args.repeats)
+            for case, make in inputs.items():
+                small, large = (best_seconds(function, make(size), args.repeats) for size in (args.size, 4 * args.size))
+                if row(path, case, small, large, plain):
+                    flagged.append(f"{path} / {case}")
 
     def clean(text: str) -> str:
         return clean_text(text, CleanOptions())

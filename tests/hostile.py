@@ -115,6 +115,29 @@ TEXT_FUNCTIONS: dict[str, Callable[[str], object]] = {
     "unknown_class": unknown_class,
 }
 
+# Inputs aimed at each UAX #29 rule that looks ahead or behind (SB8 look-ahead, SB9/SB10 runs,
+# WB4/GB9 mark runs, WB15/GB12 flag runs), for the break functions themselves.
+RULE_LOOKAHEAD: dict[str, Callable[[int], str]] = {
+    "periods": lambda n: "." * n,
+    "combining marks": lambda n: "a" + "\u0301" * n,
+    "quotes and closing brackets after a period": lambda n: "a." + '")' * (n // 2) + " b",
+    "spaces after a period": lambda n: "a." + " " * n + "B",
+    "spaces then a lowercase letter": lambda n: "a." + " " * n + "b",
+    "open brackets then a lowercase letter": lambda n: "a." + "(" * n + "b",
+    "digits after a period": lambda n: "a." + "1" * n,
+    "regional indicators": lambda n: "\U0001F1E6" * n,
+    "hyphens between letters": lambda n: "a-" * (n // 2),
+    "apostrophes between letters": lambda n: "a'" * (n // 2),
+    "zero width joiners": lambda n: "\u200d" * n,
+}
+BREAK_FUNCTIONS: dict[str, Callable[[str], object]] = {
+    "word_tokens": unicode_breaks.word_tokens,
+    "word_tokens split": lambda text: unicode_breaks.word_tokens(text, apostrophes="split", hyphens="split"),
+    "sentence_segments": unicode_breaks.sentence_segments,
+    "sentence_segments abbreviations": lambda text: unicode_breaks.sentence_segments(text, frozenset({"a", "dr"})),
+    "split_graphemes 100": lambda text: unicode_breaks.split_graphemes(text, 100),
+}
+
 
 def binary_bytes(size: int = 4096, seed: int = 7) -> bytes:
     """What a binary file looks like: a PNG signature, then seeded random bytes."""
