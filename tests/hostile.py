@@ -3,7 +3,8 @@
 Every case is a small, deterministic byte string built here, so a test can say exactly where a
 bad byte sits. `write_hostile_corpus` lays every case out as files of one corpus folder for a
 full workflow run under the lenient policies (corpus.invalid_utf8 = replace,
-corpus.bad_records = drop).
+corpus.bad_records = drop). PATHOLOGICAL and TEXT_FUNCTIONS are the crafted texts and the text
+paths they aim at: tests/test_untrusted.py checks the output, bench/crafted_input.py the time.
 """
 
 from __future__ import annotations
@@ -14,9 +15,16 @@ import gzip
 import json
 import lzma
 import random
+from collections.abc import Callable
 from pathlib import Path
 
 import zstandard
+
+from corpusmill import abbreviations, unicode_breaks
+from corpusmill.clean import CleanOptions, clean_text, rejection
+from corpusmill.ingest import _grapheme_cut
+from corpusmill.segment import Segmenter
+from corpusmill.vocabulary import unknown_class
 
 # Byte sequences that are not UTF-8 (RFC 3629 §3 and §10), by the way they go wrong.
 INVALID_UTF8 = {
@@ -62,6 +70,73 @@ SCRIPTS_TEXT = (
 def combining_run(marks: int) -> str:
     """'Zalgo' text: one base letter under a long run of alternating combining marks (ccc 230 and 220)."""
     return "Zalgo e" + "\u0301\u0316" * (marks // 2) + " text ends here."
+
+
+# Text of about n characters that makes backtracking engines (or quadratic algorithms) slow:
+# long runs without a break, terminators everywhere, marks, quotes, abbreviations, hyphens and
+# apostrophes, and runs of regional indicators (\X pairs each by counting back to the run's start).
+PATHOLOGICAL: dict[str, Callable[[int], str]] = {
+    "spaces_and_tabs": lambda n: " \t" * (n // 2),
+    "carriage_returns": lambda n: "\r" * n,
+    "controls": lambda n: "\x01" * n,
+    "zero_width_spaces": lambda n: "a\u200b" * (n // 2),
+    "combining_marks": lambda n: "e" + "\u0301\u0316" * (n // 2),
+    "one_long_word_then_bang": lambda n: "x" * n + "! A",
+    "periods_between_letters": lambda n: "a." * (n // 2),
+    "capital_initials": lambda n: "A. " * (n // 3),
+    "closing_quotes": lambda n: ".\"')]" * (n // 5),
+    "abbreviations": lambda n: "dr. " * (n // 4),
+    "inner_periods": lambda n: "e.g." * (n // 4),
+    "hyphens_between_letters": lambda n: "a-" * (n // 2),
+    "apostrophes_between_letters": lambda n: "a'" * (n // 2),
+    "marks_before_hyphens": lambda n: ("a" + "\u0301" * 50 + "-") * (n // 52),
+    "closers_then_spaces": lambda n: "a." + ")" * (n // 2) + " " * (n // 2) + "b",
+    "digits_and_separators": lambda n: "1,1." * (n // 4),
+    "only_periods": lambda n: "." * n,
+    "narrow_spaces_in_numbers": lambda n: "1\u202f" * (n // 2),
+    "regional_indicators": lambda n: "\U0001F1E6" * n,
+    "letters_between_periods": lambda n: "a." * (n // 2) + "a",
+    "letters_between_periods_then_bang": lambda n: "a." * (n // 2) + "a! A",
+    "abbreviations_before_capitals": lambda n: "Dr. A " * (n // 6),
+}
+
+# Every path a document's text takes, as a function of one text. The oversize cut is given the
+# UTF-8 bytes of a document as long as corpus.max_document_bytes, as the reader gives it one.
+ABBREVIATIONS = frozenset({"dr", "e.g", "etc"})
+TEXT_FUNCTIONS: dict[str, Callable[[str], object]] = {
+    "clean_text+rejection": lambda text: rejection(clean_text(text, CleanOptions()), CleanOptions()),
+    "segment uax29 keep": Segmenter(abbreviations=ABBREVIATIONS).segment,
+    "segment uax29 split": Segmenter(apostrophes="split", hyphens="split").segment,
+    "segment pattern+punctuation keep": Segmenter(sentences_mode="punctuation", words_mode="pattern", abbreviations=ABBREVIATIONS).segment,
+    "segment pattern+punctuation split": Segmenter(sentences_mode="punctuation", words_mode="pattern", apostrophes="split", hyphens="split").segment,
+    "learn_abbreviations": lambda text: abbreviations.learn_abbreviations([text]),
+    "split_graphemes": lambda text: unicode_breaks.split_graphemes(text, 1000),
+    "oversize document cut": lambda text: _grapheme_cut(text.encode("utf-8")),
+    "unknown_class": unknown_class,
+}
+
+# Inputs aimed at each UAX #29 rule that looks ahead or behind (SB8 look-ahead, SB9/SB10 runs,
+# WB4/GB9 mark runs, WB15/GB12 flag runs), for the break functions themselves.
+RULE_LOOKAHEAD: dict[str, Callable[[int], str]] = {
+    "periods": lambda n: "." * n,
+    "combining marks": lambda n: "a" + "\u0301" * n,
+    "quotes and closing brackets after a period": lambda n: "a." + '")' * (n // 2) + " b",
+    "spaces after a period": lambda n: "a." + " " * n + "B",
+    "spaces then a lowercase letter": lambda n: "a." + " " * n + "b",
+    "open brackets then a lowercase letter": lambda n: "a." + "(" * n + "b",
+    "digits after a period": lambda n: "a." + "1" * n,
+    "regional indicators": lambda n: "\U0001F1E6" * n,
+    "hyphens between letters": lambda n: "a-" * (n // 2),
+    "apostrophes between letters": lambda n: "a'" * (n // 2),
+    "zero width joiners": lambda n: "\u200d" * n,
+}
+BREAK_FUNCTIONS: dict[str, Callable[[str], object]] = {
+    "word_tokens": unicode_breaks.word_tokens,
+    "word_tokens split": lambda text: unicode_breaks.word_tokens(text, apostrophes="split", hyphens="split"),
+    "sentence_segments": unicode_breaks.sentence_segments,
+    "sentence_segments abbreviations": lambda text: unicode_breaks.sentence_segments(text, frozenset({"a", "dr"})),
+    "split_graphemes 100": lambda text: unicode_breaks.split_graphemes(text, 100),
+}
 
 
 def binary_bytes(size: int = 4096, seed: int = 7) -> bytes:
