@@ -82,12 +82,13 @@ def test_readme_jax_example_trains_on_every_train_block_row_in_a_new_order_each_
     """Rows compared with pyarrow's reading of the shard files; the first loss is also bounded by
     ln |V|, the cross-entropy of the uniform prediction the zero output layer starts from."""
     require("jax", "pip install -e '.[test]' installs JAX's CPU build")
-    seen: list[tuple[int, np.ndarray]] = []
+    calls: list[list[np.ndarray]] = []  # the ids of each batch, per call of Build.batches (one call per epoch)
     batches = reader.Build.batches
 
-    def recording(self, split, kind, batch_size, **options):
-        for batch in batches(self, split, kind, batch_size, **options):
-            seen.append((options.get("epoch", 0), batch["ids"]))
+    def recording(self, *arguments, **options):
+        calls.append([])
+        for batch in batches(self, *arguments, **options):
+            calls[-1].append(batch["ids"])
             yield batch
 
     monkeypatch.setattr(reader.Build, "batches", recording)
@@ -99,7 +100,8 @@ def test_readme_jax_example_trains_on_every_train_block_row_in_a_new_order_each_
     vocabulary_size = reader.open_build(demo_build).vocabulary.size
     assert losses[0] < math.log(vocabulary_size)
     expected = shard_rows(demo_build, "block", "ids")
-    per_epoch = [np.concatenate([ids for epoch, ids in seen if epoch == e]) for e in range(3)]
+    assert len(calls) == 3
+    per_epoch = [np.concatenate(call) for call in calls]
     for rows in per_epoch:
         assert len(rows) == len(expected) // 64 * 64  # drop_last: whole batches only
         assert not row_counts(rows) - row_counts(expected), "the loop trained on rows that are not train block rows"
