@@ -2,7 +2,9 @@
 blocks) run as written on the demo build. Each block is taken from README.md under its heading,
 parsed with markdown-it-py, so README and test cannot drift. What the loops trained on is compared
 with the rows pyarrow reads from the shard files the manifest lists, and the losses they print
-must be finite and fall from epoch to epoch."""
+must be finite and fall from epoch to epoch. Each block runs as a script in a fresh interpreter,
+as a user runs it, between a few lines of the test's own that record what it read: JAX starts
+threads and PyTorch's DataLoader forks workers, and later tests of this process fork too."""
 
 from __future__ import annotations
 
@@ -42,6 +44,15 @@ def readme_block(heading: str) -> str:
     raise AssertionError(f"README.md: no ```python block under '### {heading}'")
 
 
+def run_block(heading: str, build: Path, script: Path, prologue: str = "", epilogue: str = "") -> str:
+    """Run README's block under `heading`, between the test's `prologue` and `epilogue`, as `script`
+    beside the build folder (the block opens "build"); its standard output."""
+    script.write_text(prologue + readme_block(heading) + epilogue, encoding="utf-8")
+    result = subprocess.run([sys.executable, str(script)], cwd=build.parent, capture_output=True, text=True)
+    assert result.returncode == 0, f"README.md ### {heading} failed:\n{result.stderr[-4000:]}"
+    return result.stdout
+
+
 def printed_losses(printed: str) -> list[float]:
     """The per-epoch losses a README block printed, one line per epoch."""
     losses = [(int(epoch), float(value)) for epoch, value in EPOCH_LINE.findall(printed)]
@@ -78,30 +89,42 @@ def require(module: str, reason: str) -> None:
         pytest.skip(f"{module} is not installed: {reason}")
 
 
-def test_readme_jax_example_trains_on_every_train_block_row_in_a_new_order_each_epoch_and_its_loss_falls(demo_build, monkeypatch, capsys):
+# Before the JAX block: Build.batches records the ids of every batch, per call (one call per epoch).
+JAX_PROLOGUE = """
+import corpusmill.reader as _reader
+_batches, _calls = _reader.Build.batches, []
+
+
+def _recording(self, *arguments, **options):
+    _calls.append([])
+    for batch in _batches(self, *arguments, **options):
+        _calls[-1].append(batch["ids"])
+        yield batch
+
+
+_reader.Build.batches = _recording
+"""
+# After it: the recorded rows saved for the checks, one array per call.
+JAX_EPILOGUE = """
+import numpy as _np
+_np.savez({out!r}, *[_np.concatenate(call) for call in _calls])
+"""
+
+
+def test_readme_jax_example_trains_on_every_train_block_row_in_a_new_order_each_epoch_and_its_loss_falls(demo_build, tmp_path):
     """Rows compared with pyarrow's reading of the shard files; the first loss is also bounded by
     ln |V|, the cross-entropy of the uniform prediction the zero output layer starts from."""
     require("jax", "pip install -e '.[test]' installs JAX's CPU build")
-    calls: list[list[np.ndarray]] = []  # the ids of each batch, per call of Build.batches (one call per epoch)
-    batches = reader.Build.batches
+    saved = tmp_path / "epochs.npz"
+    printed = run_block("JAX", demo_build, tmp_path / "jax_example.py", JAX_PROLOGUE, JAX_EPILOGUE.format(out=str(saved)))
 
-    def recording(self, *arguments, **options):
-        calls.append([])
-        for batch in batches(self, *arguments, **options):
-            calls[-1].append(batch["ids"])
-            yield batch
-
-    monkeypatch.setattr(reader.Build, "batches", recording)
-    monkeypatch.chdir(demo_build.parent)  # the block opens "build"
-    exec(compile(readme_block("JAX"), "README.md ### JAX", "exec"), {"__name__": "__main__"})
-    losses = printed_losses(capsys.readouterr().out)
-
+    losses = printed_losses(printed)
     assert_losses_fall(losses)
-    vocabulary_size = reader.open_build(demo_build).vocabulary.size
-    assert losses[0] < math.log(vocabulary_size)
+    assert losses[0] < math.log(reader.open_build(demo_build).vocabulary.size)
     expected = shard_rows(demo_build, "block", "ids")
-    assert len(calls) == 3
-    per_epoch = [np.concatenate(call) for call in calls]
+    with np.load(saved) as arrays:
+        per_epoch = [arrays[f"arr_{call}"] for call in range(len(arrays.files))]
+    assert len(per_epoch) == 3
     for rows in per_epoch:
         assert len(rows) == len(expected) // 64 * 64  # drop_last: whole batches only
         assert not row_counts(rows) - row_counts(expected), "the loop trained on rows that are not train block rows"
@@ -121,21 +144,17 @@ _np.savez(
 
 
 def test_readme_pytorch_example_workers_read_disjoint_slices_of_train_and_its_loss_falls(demo_build, tmp_path):
-    """Rows compared with pyarrow's reading of the shard files. The block runs in a fresh
-    interpreter, as a user runs it: its DataLoader forks workers, and forking this process after
-    other tests started threads (JAX's) risks a deadlock. Not run in CI: see README ("### PyTorch")."""
+    """Rows compared with pyarrow's reading of the shard files. Not run in CI: see README ("### PyTorch")."""
     require("torch", "README's PyTorch section says how to install its CPU build")
-    script = tmp_path / "pytorch_example.py"
-    script.write_text(readme_block("PyTorch") + PYTORCH_EPILOGUE.format(out=str(tmp_path / "epoch0.npz")), encoding="utf-8")
-    result = subprocess.run([sys.executable, str(script)], cwd=demo_build.parent, capture_output=True, text=True)
-    assert result.returncode == 0, result.stderr[-4000:]
+    saved = tmp_path / "epoch0.npz"
+    printed = run_block("PyTorch", demo_build, tmp_path / "pytorch_example.py", epilogue=PYTORCH_EPILOGUE.format(out=str(saved)))
 
-    assert_losses_fall(printed_losses(result.stdout))
-    saved = np.load(tmp_path / "epoch0.npz")
-    context, target = saved["context"], saved["target"]
+    assert_losses_fall(printed_losses(printed))
+    with np.load(saved) as arrays:
+        context, target, workers, rows = arrays["context"], arrays["target"], int(arrays["workers"]), arrays["rows"]
     assert context.dtype == target.dtype == np.int64
     # Each DataLoader worker is one data-parallel rank of `workers` and drops its last partial batch.
-    assert len(target) == sum(rows // 512 * 512 for rows in saved["rows"])
-    assert int(saved["workers"]) == len(saved["rows"]) == 2
+    assert workers == len(rows) == 2
+    assert len(target) == sum(worker_rows // 512 * 512 for worker_rows in rows)
     expected = np.column_stack([shard_rows(demo_build, "ngram", "context"), shard_rows(demo_build, "ngram", "target")])
     assert not row_counts(np.column_stack([context, target])) - row_counts(expected), "rows read twice or not train ngram rows"
