@@ -26,7 +26,7 @@ import yaml
 
 from conftest import DEMO, REPO, require_file, run_workflow
 from corpusmill.clean import CleanOptions, clean_text
-from corpusmill.compare import EDITED, SETTINGS, UNEXPLAINED, compare_builds, render
+from corpusmill.compare import EDITED, SETTINGS, UNEXPLAINED, SplitSettings, compare_builds, render, split_reason
 from corpusmill.split import assign_split, fingerprint
 
 EDITED_FILE = "journals/weather_journal.txt"
@@ -321,3 +321,43 @@ def test_word_and_subword_builds_compare_documents_but_not_ids(base_build: Path,
     assert report["documents"]["split_changes"]["total"] == 0
     assert report["vocabulary"]["compared"] is False and "units differ" in report["vocabulary"]["reason"]
     assert report["coverage"]["compared"] and "vocabulary" in report["changed"]
+
+
+def blake2b_split(key: bytes, salt: str, fractions: dict[str, float]) -> str:
+    """The split draw as README describes it, written out with hashlib: a 64-bit BLAKE2b of the
+    key, keyed by the salt, as a share of 2**64 against the cumulative fractions."""
+    position = int.from_bytes(hashlib.blake2b(key, digest_size=8, key=salt.encode("utf-8")).digest(), "big") / 2**64
+    bound = 0.0
+    for name in ("train", "dev", "test"):
+        bound += fractions[name]
+        if position < bound:
+            return name
+    return "test"
+
+
+def test_split_reasons_follow_from_drawing_each_document_again() -> None:
+    """Each reason checked against draws computed with hashlib (blake2b_split): an edit that
+    alone moves the document, a salt change that alone moves it, both needed together, and a
+    recorded split that is not its build's own draw (unexplained)."""
+    fractions = {"train": 0.5, "dev": 0.25, "test": 0.25}
+    old, new = SplitSettings("content", "salt-a", tuple(sorted(fractions.items()))), SplitSettings("content", "salt-b", tuple(sorted(fractions.items())))
+    keys = [hashlib.blake2b(str(n).encode(), digest_size=16).digest() for n in range(400)]
+
+    def pick(condition) -> bytes:
+        return next(k for k in keys if condition(k))
+
+    def draws(key: bytes) -> tuple[str, str]:
+        return blake2b_split(key, "salt-a", fractions), blake2b_split(key, "salt-b", fractions)
+
+    same = pick(lambda k: draws(k)[0] == draws(k)[1])
+    moved_by_edit = pick(lambda k: draws(k)[0] != draws(same)[0] and draws(k)[0] == draws(k)[1])
+    assert split_reason(("d", same, draws(same)[0]), ("d", moved_by_edit, draws(moved_by_edit)[0]), old, old) == EDITED
+    salted = pick(lambda k: draws(k)[0] != draws(k)[1])
+    assert split_reason(("d", salted, draws(salted)[0]), ("d", salted, draws(salted)[1]), old, new) == f"{SETTINGS} (split.salt)"
+    both = pick(lambda k: draws(k)[1] not in (draws(same)[0], draws(k)[0]))
+    assert split_reason(("d", same, draws(same)[0]), ("d", both, draws(both)[1]), old, new) == f"{EDITED} and {SETTINGS} (split.salt)"
+    wrong = next(s for s in fractions if s != draws(same)[0])
+    assert split_reason(("d", same, draws(same)[0]), ("d", same, wrong), old, old) == UNEXPLAINED
+    assert split_reason(("d", same, wrong), ("d", same, draws(same)[0]), old, old) == UNEXPLAINED
+    not_drawn = next(s for s in fractions if s not in draws(salted))
+    assert split_reason(("d", salted, not_drawn), ("d", salted, draws(salted)[1]), old, new) == UNEXPLAINED
