@@ -28,7 +28,7 @@ import argparse
 import json
 import re
 import sys
-from collections import Counter
+from collections import Counter, deque
 from collections.abc import Iterator, Sequence
 from dataclasses import dataclass, field
 from pathlib import Path
@@ -241,7 +241,9 @@ class DocumentChanges:
         self.counts.setdefault(source, Counter())[what] += number
 
     def _list(self, source: str, what: str, value: Any) -> None:
-        self.listed.setdefault(source, {}).setdefault(what, []).append(value)
+        """List an id (or a moved pair); added and removed ids only in files both builds read."""
+        if what in ("changed", "moved") or source in self.both_files:
+            self.listed.setdefault(source, {}).setdefault(what, []).append(value)
 
     def add_group(self, old: pa.Table, new: pa.Table) -> None:
         """Match one group's documents by id, then the rest by (file, content hash) in offset order."""
@@ -266,33 +268,38 @@ class DocumentChanges:
     def _match_moved(self, gone: pa.Table, came: pa.Table) -> None:
         """Documents whose id left but whose text stayed in the same file are `moved`; the rest
         are removed and added. Equal texts pair in offset order."""
-        shared = set(pc.unique(gone["source"]).to_pylist()) & set(pc.unique(came["source"]).to_pylist())
-        waiting: dict[tuple[str, bytes], list[dict]] = {}
-        for row in gone.filter(pc.is_in(gone["source"], value_set=pa.array(sorted(shared), pa.string()))).sort_by("offset").to_pylist():
-            waiting.setdefault((row["source"], row["fingerprint"]), []).append(row)
-        for row in came.sort_by([("source", "ascending"), ("offset", "ascending")]).to_pylist():
+        shared = pa.array(sorted(set(pc.unique(gone["source"]).to_pylist()) & set(pc.unique(came["source"]).to_pylist())), pa.string())
+        gone_here, came_here = pc.is_in(gone["source"], value_set=shared), pc.is_in(came["source"], value_set=shared)
+        self._count_all(gone.filter(pc.invert(gone_here)), "removed")
+        self._count_all(came.filter(pc.invert(came_here)), "added")
+        order = [("source", "ascending"), ("offset", "ascending")]
+        waiting: dict[tuple[str, bytes], deque[dict]] = {}
+        for row in gone.filter(gone_here).sort_by(order).to_pylist():
+            waiting.setdefault((row["source"], row["fingerprint"]), deque()).append(row)
+        for row in came.filter(came_here).sort_by(order).to_pylist():
             earlier = waiting.get((row["source"], row["fingerprint"]))
-            if earlier:
-                before = earlier.pop(0)
-                self._count(row["source"], "moved")
-                self._list(row["source"], "moved", [before["doc_id"], row["doc_id"]])
-                if before["split"] != row["split"]:
-                    self._split_change(row["source"], (before["doc_id"], before["fingerprint"], before["split"]),
-                                       (row["doc_id"], row["fingerprint"], row["split"]))  # fmt: skip
-                continue
-            self._count(row["source"], "added")
-            if row["source"] in self.both_files:
+            if not earlier:
+                self._count(row["source"], "added")
                 self._list(row["source"], "added", row["doc_id"])
+                continue
+            before = earlier.popleft()
+            self._count(row["source"], "moved")
+            self._list(row["source"], "moved", [before["doc_id"], row["doc_id"]])
+            if before["split"] != row["split"]:
+                self._split_change(row["source"], (before["doc_id"], before["fingerprint"], before["split"]),
+                                   (row["doc_id"], row["fingerprint"], row["split"]))  # fmt: skip
         for rows in waiting.values():
             for row in rows:
                 self._count(row["source"], "removed")
-                if row["source"] in self.both_files:
-                    self._list(row["source"], "removed", row["doc_id"])
-        for source, number in _value_counts(gone.filter(pc.invert(pc.is_in(gone["source"], value_set=pa.array(sorted(shared), pa.string()))))["source"]):
-            self._count(source, "removed", number)
+                self._list(row["source"], "removed", row["doc_id"])
+
+    def _count_all(self, table: pa.Table, what: str) -> None:
+        """Count every row of `table` as `what` per file; list the ids of files both builds read."""
+        for source, number in _value_counts(table["source"]):
+            self._count(source, what, number)
             if source in self.both_files:
-                rows = gone.filter(pc.equal(gone["source"], source))["doc_id"].to_pylist()
-                self.listed.setdefault(source, {}).setdefault("removed", []).extend(rows)
+                ids = table.filter(pc.equal(table["source"], source))["doc_id"].to_pylist()
+                self.listed.setdefault(source, {}).setdefault(what, []).extend(ids)
 
     def _split_change(self, source: str, old_doc: tuple[str, bytes, str], new_doc: tuple[str, bytes, str]) -> None:
         reason = split_reason(old_doc, new_doc, self.old_settings, self.new_settings)
