@@ -65,12 +65,11 @@ def edit_second_paragraph(root: Path) -> tuple[str, str]:
 
 @pytest.fixture(scope="module")
 def corpora(tmp_path_factory: pytest.TempPathFactory) -> dict:
-    """The demo corpus and its edited copy (a fortunes file added, one paragraph edited, the
+    """The demo corpus and an edited copy (a fortunes file added, one paragraph edited, the
     council minutes removed), with the edited document's id and new split."""
     base = tmp_path_factory.mktemp("compare")
     fortunes = require_file("/usr/share/games/fortunes/computers", "fortunes")
-    old, new = base / "raw-old", base / "raw-new"
-    shutil.copytree(DEMO, old)
+    old, new = DEMO, base / "raw-new"
     shutil.copytree(DEMO, new)
     (new / REMOVED_FILE).unlink()
     (new / ADDED_FILE).parent.mkdir()
@@ -80,8 +79,9 @@ def corpora(tmp_path_factory: pytest.TempPathFactory) -> dict:
 
 
 @pytest.fixture(scope="module")
-def base_build(corpora: dict) -> Path:
-    return build(corpora["base"] / "a", corpora["old"])
+def base_build(demo_chunks_build: Path) -> Path:
+    """The demo corpus, one chunk per file (shared with other tests)."""
+    return demo_chunks_build
 
 
 @pytest.fixture(scope="module")
@@ -251,11 +251,11 @@ def test_a_new_split_salt_moves_documents_with_the_salt_as_their_reason(base_bui
     assert all((c["old"], c["new"]) == (before[c["doc_id"]], after[c["doc_id"]]) for c in changes["documents"])
 
 
-def test_a_rebuild_with_nothing_changed_says_so_in_one_line(base_build: Path, tmp_path: Path) -> None:
-    """The base build copied, then the workflow run again in its folder: one line, status 0."""
-    kept = shutil.copytree(base_build, tmp_path / "before")
-    run_workflow(base_build.parent, yaml.safe_load((base_build.parent / "override.yaml").read_text(encoding="utf-8")))
-    result = compare_command(kept, base_build)
+def test_a_rebuild_with_nothing_changed_says_so_in_one_line(cutoff_build: Path, tmp_path: Path) -> None:
+    """A build copied, then the workflow run again in its folder: one line, status 0."""
+    kept = shutil.copytree(cutoff_build, tmp_path / "before")
+    run_workflow(cutoff_build.parent, yaml.safe_load((cutoff_build.parent / "override.yaml").read_text(encoding="utf-8")))
+    result = compare_command(kept, cutoff_build)
     assert result.returncode == 0, result.stderr
     assert result.stdout.count("\n") == 1 and result.stdout.startswith("no change:")
 
