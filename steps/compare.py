@@ -30,6 +30,7 @@ import re
 import sys
 from collections import Counter, deque
 from collections.abc import Iterator, Sequence
+from contextlib import contextmanager
 from dataclasses import dataclass, field
 from pathlib import Path
 from typing import Any
@@ -39,7 +40,7 @@ import pyarrow.compute as pc
 import pyarrow.parquet as pq
 
 from .chunks import IDENTITY_SCHEMA, kept_identities
-from .formats import Vocabulary, file_sha256, read_vocabulary
+from .formats import FormatError, Vocabulary, file_sha256, read_vocabulary
 from .layout import RELATIVE, SPLITS
 from .reader import MANIFEST, MAX_MANIFEST_BYTES, MAX_VOCABULARY_BYTES, SHARD_FIELDS, file_problem, parse_manifest, resolve_inside, structure_problem
 from .split import assign_split
@@ -126,6 +127,8 @@ def _fractions_problem(config: dict) -> str | None:
 def open_side(path: str | Path) -> Side:
     """A build folder's manifest, vocabulary and coverage, each checked; CompareError otherwise."""
     root = Path(path)
+    if not (root / MANIFEST).exists() and (root / "build" / MANIFEST).is_file():
+        root = root / "build"  # the working folder of a build, as steps.reader.open_build accepts
     real_root = root.resolve()
     target, problem = resolve_inside(real_root, MANIFEST)
     problem = problem or file_problem(target, MAX_MANIFEST_BYTES)
@@ -142,7 +145,10 @@ def open_side(path: str | Path) -> Side:
         raise CompareError(f"{root / MANIFEST}: vocabulary.file {json.dumps(listed['file'])} {problem}; {REBUILD}")
     if file_sha256(target) != listed["sha256"]:
         raise CompareError(f"{root / listed['file']}: its SHA-256 differs from manifest.json's; the file was replaced or edited; {REBUILD}")
-    vocabulary = read_vocabulary(target)
+    try:
+        vocabulary = read_vocabulary(target)
+    except (FormatError, UnicodeDecodeError) as error:
+        raise CompareError(f"{error}; {REBUILD}") from None
     side = Side(root, real_root, manifest, vocabulary, None)
     side.coverage, side.coverage_problem = _read_coverage(side)
     return side
@@ -193,7 +199,8 @@ def chunk_files(side: Side) -> tuple[list[tuple[str, Path, Path]], str | None]:
 
 def _source_range(path: Path) -> tuple[str, str] | None:
     """The first and last file (in path order) a prepared table holds documents of; None if none."""
-    sources = pq.ParquetFile(path).read(columns=["source"], use_threads=False)["source"]
+    with _readable(path):
+        sources = pq.ParquetFile(path).read(columns=["source"], use_threads=False)["source"]
     if not len(sources):
         return None
     bounds = pc.min_max(sources).as_py()
@@ -222,8 +229,21 @@ def chunk_groups(old: Sequence[tuple[str, Path, Path]], new: Sequence[tuple[str,
 
 
 def _identities(chunks: Sequence[tuple[str, Path, Path]]) -> pa.Table:
-    tables = [kept_identities(str(prepared), pq.ParquetFile(removed).read(use_threads=False)) for _, prepared, removed in chunks]
+    """The kept documents' identities of some chunks."""
+    tables = []
+    for _, prepared, removed in chunks:
+        with _readable(prepared, removed):
+            tables.append(kept_identities(str(prepared), pq.ParquetFile(removed).read(use_threads=False)))
     return pa.concat_tables([IDENTITY_SCHEMA.empty_table(), *tables]).combine_chunks()
+
+
+@contextmanager
+def _readable(*paths: Path) -> Iterator[None]:
+    """Turn a damaged Parquet file (or one lacking a column) into a CompareError naming the files."""
+    try:
+        yield
+    except (pa.ArrowException, OSError, KeyError) as error:
+        raise CompareError(f"{' or '.join(map(str, paths))} cannot be read ({error}); {REBUILD}") from None
 
 
 @dataclass
@@ -361,8 +381,11 @@ def compare_documents(old: Side, new: Side) -> dict:
         return {"compared": False, "reason": f"{old.path if problem else new.path}: {problem or other}"}
     both_files = frozenset(i["path"] for i in old.manifest["inputs"]) & frozenset(i["path"] for i in new.manifest["inputs"])
     changes = DocumentChanges(both_files, old.settings, new.settings)
-    for old_group, new_group in chunk_groups(old_chunks, new_chunks):
-        changes.add_group(_identities(old_group), _identities(new_group))
+    try:
+        for old_group, new_group in chunk_groups(old_chunks, new_chunks):
+            changes.add_group(_identities(old_group), _identities(new_group))
+    except CompareError as error:
+        return {"compared": False, "reason": str(error)}
     return changes.to_json()
 
 
@@ -484,13 +507,16 @@ def compare_builds(old_path: str | Path, new_path: str | Path) -> dict:
 
 
 def _changed(report: dict, vocabulary_file_differs: bool) -> list[str]:
-    """The parts of the comparison (other than the configuration) that differ."""
+    """The parts of the comparison (other than the configuration) that differ, or that could not
+    be compared (then no one-line "no change" is claimed)."""
     parts = []
     inputs = report["inputs"]
     if inputs["added"] or inputs["removed"] or inputs["edited"]:
         parts.append("inputs")
     documents = report["documents"]
-    if documents["compared"] and any(documents["totals"][w] for w in ("added", "removed", "changed", "moved")):
+    if not documents["compared"]:
+        parts.append("documents (not compared)")
+    elif any(documents["totals"][w] for w in ("added", "removed", "changed", "moved")):
         parts.append("documents")
     if documents["compared"] and documents["split_changes"]["total"]:
         parts.append("splits")
@@ -500,7 +526,9 @@ def _changed(report: dict, vocabulary_file_differs: bool) -> list[str]:
     if vocabulary_file_differs:
         parts.append("vocabulary")
     coverage = report["coverage"]
-    if not coverage["compared"] or any(s["old"] != s["new"] for s in coverage["splits"].values()):
+    if not coverage["compared"]:
+        parts.append("coverage (not compared)")
+    elif any(s["old"] != s["new"] for s in coverage["splits"].values()):
         parts.append("coverage")
     if any(k["changed"] or k["added"] or k["removed"] for kinds in report["shards"].values() for k in kinds.values()):
         parts.append("shards")

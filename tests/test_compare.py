@@ -361,3 +361,16 @@ def test_split_reasons_follow_from_drawing_each_document_again() -> None:
     assert split_reason(("d", same, wrong), ("d", same, draws(same)[0]), old, old) == UNEXPLAINED
     not_drawn = next(s for s in fractions if s not in draws(salted))
     assert split_reason(("d", salted, not_drawn), ("d", salted, draws(salted)[1]), old, new) == UNEXPLAINED
+
+
+def test_a_damaged_prepared_table_is_named_and_no_change_is_not_claimed(base_build: Path, tmp_path: Path) -> None:
+    """A copy of the build with one prepared chunk table truncated: the documents are not
+    compared, the reason names that file, and the account is not the one-line 'no change'
+    although every other part is equal."""
+    copy = Path(shutil.copytree(base_build, tmp_path / "damaged"))
+    victim = sorted((copy / "interim" / "prepared").glob("*.parquet"))[0]
+    victim.write_bytes(victim.read_bytes()[:100])
+    report = compare_builds(base_build, copy)
+    assert not report["documents"]["compared"] and str(victim) in report["documents"]["reason"]
+    assert report["changed"] == ["documents (not compared)"]
+    assert not render(report).startswith("no change")
