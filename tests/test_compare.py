@@ -26,7 +26,7 @@ import yaml
 
 from conftest import DEMO, REPO, require_file, run_workflow
 from corpusmill.clean import CleanOptions, clean_text
-from corpusmill.compare import EDITED, SETTINGS, UNEXPLAINED, SplitSettings, compare_builds, render, split_reason
+from corpusmill.compare import EDITED, ID_CHANGED, SETTINGS, UNEXPLAINED, SplitSettings, compare_builds, render, split_reason
 from corpusmill.split import assign_split, fingerprint
 
 EDITED_FILE = "journals/weather_journal.txt"
@@ -337,8 +337,9 @@ def blake2b_split(key: bytes, salt: str, fractions: dict[str, float]) -> str:
 
 def test_split_reasons_follow_from_drawing_each_document_again() -> None:
     """Each reason checked against draws computed with hashlib (blake2b_split): an edit that
-    alone moves the document, a salt change that alone moves it, both needed together, and a
-    recorded split that is not its build's own draw (unexplained)."""
+    alone moves the document, a salt change that alone moves it, both needed together, a new
+    path:offset id under split.key: id, and a recorded split that is not its build's own draw
+    (unexplained)."""
     fractions = {"train": 0.5, "dev": 0.25, "test": 0.25}
     old, new = SplitSettings("content", "salt-a", tuple(sorted(fractions.items()))), SplitSettings("content", "salt-b", tuple(sorted(fractions.items())))
     keys = [hashlib.blake2b(str(n).encode(), digest_size=16).digest() for n in range(400)]
@@ -356,6 +357,11 @@ def test_split_reasons_follow_from_drawing_each_document_again() -> None:
     assert split_reason(("d", salted, draws(salted)[0]), ("d", salted, draws(salted)[1]), old, new) == f"{SETTINGS} (split.salt)"
     both = pick(lambda k: draws(k)[1] not in (draws(same)[0], draws(k)[0]))
     assert split_reason(("d", same, draws(same)[0]), ("d", both, draws(both)[1]), old, new) == f"{EDITED} and {SETTINGS} (split.salt)"
+    by_id = SplitSettings("id", "salt-a", tuple(sorted(fractions.items())))
+    ids = [f"notes.txt:{offset}" for offset in range(400)]
+    shifted = next(i for i in ids[1:] if blake2b_split(i.encode(), "salt-a", fractions) != blake2b_split(ids[0].encode(), "salt-a", fractions))
+    first, later = (blake2b_split(i.encode(), "salt-a", fractions) for i in (ids[0], shifted))
+    assert split_reason((ids[0], same, first), (shifted, same, later), by_id, by_id) == ID_CHANGED
     wrong = next(s for s in fractions if s != draws(same)[0])
     assert split_reason(("d", same, draws(same)[0]), ("d", same, wrong), old, old) == UNEXPLAINED
     assert split_reason(("d", same, wrong), ("d", same, draws(same)[0]), old, old) == UNEXPLAINED
