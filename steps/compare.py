@@ -28,13 +28,14 @@ import argparse
 import json
 import re
 import sys
-from collections import Counter, deque
+from collections import Counter
 from collections.abc import Iterator, Sequence
 from contextlib import contextmanager
 from dataclasses import dataclass, field
 from pathlib import Path
 from typing import Any
 
+import numpy as np
 import pyarrow as pa
 import pyarrow.compute as pc
 import pyarrow.parquet as pq
@@ -257,8 +258,10 @@ class DocumentChanges:
     listed: dict[str, dict[str, list]] = field(default_factory=dict)
     split_changes: list[dict[str, str]] = field(default_factory=list)
 
-    def _count(self, source: str, what: str, number: int = 1) -> None:
-        self.counts.setdefault(source, Counter())[what] += number
+    def _count(self, source: str, what: str, number: int) -> None:
+        if source not in self.counts:
+            self.counts[source] = Counter()
+        self.counts[source][what] += number
 
     def _list(self, source: str, what: str, value: Any) -> None:
         """List an id (or a moved pair); added and removed ids only in files both builds read."""
@@ -267,59 +270,48 @@ class DocumentChanges:
 
     def add_group(self, old: pa.Table, new: pa.Table) -> None:
         """Match one group's documents by id, then the rest by (file, content hash) in offset order."""
-        joined = old.join(new, keys="doc_id", join_type="full outer", left_suffix=":old", right_suffix=":new", use_threads=False)
-        in_old, in_new = pc.is_valid(joined["source:old"]), pc.is_valid(joined["source:new"])
-        both = joined.filter(pc.and_(in_old, in_new))
-        same_text = pc.equal(both["fingerprint:old"], both["fingerprint:new"])
-        for source, number in _value_counts(both.filter(same_text)["source:new"]):
-            self._count(source, "unchanged", number)
-        for row in both.filter(pc.invert(same_text)).select(["doc_id", "source:new"]).to_pylist():
-            self._count(row["source:new"], "changed")
-            self._list(row["source:new"], "changed", row["doc_id"])
-        pairs = both.filter(pc.not_equal(both["split:old"], both["split:new"]))
-        for row in pairs.to_pylist():
-            old_doc = (row["doc_id"], row["fingerprint:old"], row["split:old"])
-            new_doc = (row["doc_id"], row["fingerprint:new"], row["split:new"])
-            self._split_change(row["source:new"], old_doc, new_doc)
-        gone = old.filter(pc.is_in(old["doc_id"], value_set=joined.filter(pc.invert(in_new))["doc_id"]))
-        came = new.filter(pc.is_in(new["doc_id"], value_set=joined.filter(pc.invert(in_old))["doc_id"]))
-        self._match_moved(gone, came)
+        self._match(old, new, old["doc_id"], new["doc_id"], by_id=True)
 
-    def _match_moved(self, gone: pa.Table, came: pa.Table) -> None:
-        """Documents whose id left but whose text stayed in the same file are `moved`; the rest
-        are removed and added. Equal texts pair in offset order."""
-        shared = pa.array(sorted(set(pc.unique(gone["source"]).to_pylist()) & set(pc.unique(came["source"]).to_pylist())), pa.string())
-        gone_here, came_here = pc.is_in(gone["source"], value_set=shared), pc.is_in(came["source"], value_set=shared)
-        self._count_all(gone.filter(pc.invert(gone_here)), "removed")
-        self._count_all(came.filter(pc.invert(came_here)), "added")
-        order = [("source", "ascending"), ("offset", "ascending")]
-        waiting: dict[tuple[str, bytes], deque[dict]] = {}
-        for row in gone.filter(gone_here).sort_by(order).to_pylist():
-            waiting.setdefault((row["source"], row["fingerprint"]), deque()).append(row)
-        for row in came.filter(came_here).sort_by(order).to_pylist():
-            earlier = waiting.get((row["source"], row["fingerprint"]))
-            if not earlier:
-                self._count(row["source"], "added")
-                self._list(row["source"], "added", row["doc_id"])
-                continue
-            before = earlier.popleft()
-            self._count(row["source"], "moved")
-            self._list(row["source"], "moved", [before["doc_id"], row["doc_id"]])
-            if before["split"] != row["split"]:
-                self._split_change(row["source"], (before["doc_id"], before["fingerprint"], before["split"]),
-                                   (row["doc_id"], row["fingerprint"], row["split"]))  # fmt: skip
-        for rows in waiting.values():
-            for row in rows:
-                self._count(row["source"], "removed")
-                self._list(row["source"], "removed", row["doc_id"])
+    def _match(self, old: pa.Table, new: pa.Table, old_keys: pa.ChunkedArray, new_keys: pa.ChunkedArray, by_id: bool) -> None:
+        """Pair rows with equal keys (Arrow hash lookups, no Python object a row). By id: pairs
+        are unchanged or changed, and the rest is matched again by text; by text: pairs are
+        moved, and the rest is added and removed."""
+        position = pc.index_in(new_keys, value_set=old_keys)
+        paired = pc.is_valid(position)
+        after = new.filter(paired)
+        before = old.take(position.filter(paired))
+        came = new.filter(pc.invert(paired))
+        gone = old.filter(pc.invert(pc.is_in(old_keys, value_set=new_keys)))
+        sources = after["source"]
+        if by_id:
+            same = pc.equal(before["fingerprint"], after["fingerprint"])
+            for source, number in _value_counts(sources.filter(same)):
+                self._count(source, "unchanged", number)
+            edited = after.filter(pc.invert(same))
+            self._count_all(edited, "changed")
+        else:
+            for source, number in _value_counts(sources):
+                self._count(source, "moved", number)
+            for source, earlier, later in zip(sources.to_pylist(), before["doc_id"].to_pylist(), after["doc_id"].to_pylist()):
+                self._list(source, "moved", [earlier, later])
+        differs = pc.not_equal(before["split"], after["split"])
+        for old_row, new_row in zip(before.filter(differs).to_pylist(), after.filter(differs).to_pylist()):
+            old_doc = (old_row["doc_id"], old_row["fingerprint"], old_row["split"])
+            self._split_change(new_row["source"], old_doc, (new_row["doc_id"], new_row["fingerprint"], new_row["split"]))
+        if by_id:
+            gone, came = _ranked(gone), _ranked(came)
+            self._match(gone, came, _text_keys(gone), _text_keys(came), by_id=False)
+        else:
+            self._count_all(gone, "removed")
+            self._count_all(came, "added")
 
     def _count_all(self, table: pa.Table, what: str) -> None:
-        """Count every row of `table` as `what` per file; list the ids of files both builds read."""
+        """Count every row of `table` as `what` per file and list their ids (added and removed
+        ones only in files both builds read)."""
         for source, number in _value_counts(table["source"]):
             self._count(source, what, number)
-            if source in self.both_files:
-                ids = table.filter(pc.equal(table["source"], source))["doc_id"].to_pylist()
-                self.listed.setdefault(source, {}).setdefault(what, []).extend(ids)
+        for source, doc_id in zip(table["source"].to_pylist(), table["doc_id"].to_pylist()):
+            self._list(source, what, doc_id)
 
     def _split_change(self, source: str, old_doc: tuple[str, bytes, str], new_doc: tuple[str, bytes, str]) -> None:
         reason = split_reason(old_doc, new_doc, self.old_settings, self.new_settings)
@@ -348,6 +340,31 @@ class DocumentChanges:
                 "documents": changes,
             },
         }
+
+
+def _ranked(table: pa.Table) -> pa.Table:
+    """The table ordered by (file, content hash, offset), with each row's `rank` among the rows
+    of its file holding the same text (0 for the first by offset)."""
+    ordered = table.sort_by([("source", "ascending"), ("fingerprint", "ascending"), ("offset", "ascending")])
+    count = ordered.num_rows
+    if count < 2:
+        return ordered.append_column("rank", pa.array(np.zeros(count, np.int64)))
+    same = pc.and_(
+        pc.equal(ordered["source"].slice(1), ordered["source"].slice(0, count - 1)),
+        pc.equal(ordered["fingerprint"].slice(1), ordered["fingerprint"].slice(0, count - 1)),
+    ).to_numpy(zero_copy_only=False)
+    starts = np.flatnonzero(np.concatenate([[True], ~same]))
+    positions = np.arange(count)
+    return ordered.append_column("rank", pa.array(positions - starts[np.searchsorted(starts, positions, side="right") - 1]))
+
+
+def _text_keys(table: pa.Table) -> pa.ChunkedArray:
+    """Per row, its file, content hash and rank as one binary key (a path holds no NUL byte and
+    the hash has a fixed width, so the key is unambiguous)."""
+    if not table.num_rows:
+        return pa.chunked_array([], pa.binary())
+    parts = [pc.cast(table["source"], pa.binary()), pc.cast(table["fingerprint"], pa.binary()), pc.cast(pc.cast(table["rank"], pa.string()), pa.binary())]
+    return pc.binary_join_element_wise(*parts, b"\x00")
 
 
 def _value_counts(column: pa.ChunkedArray | pa.Array) -> list[tuple[str, int]]:

@@ -25,8 +25,9 @@ import pytest
 import yaml
 
 from conftest import DEMO, REPO, require_file, run_workflow
+from corpusmill.chunks import IDENTITY_SCHEMA
 from corpusmill.clean import CleanOptions, clean_text
-from corpusmill.compare import EDITED, ID_CHANGED, SETTINGS, UNEXPLAINED, SplitSettings, compare_builds, render, split_reason
+from corpusmill.compare import EDITED, ID_CHANGED, SETTINGS, UNEXPLAINED, DocumentChanges, SplitSettings, compare_builds, render, split_reason
 from corpusmill.split import assign_split, fingerprint
 
 EDITED_FILE = "journals/weather_journal.txt"
@@ -380,3 +381,35 @@ def test_a_damaged_prepared_table_is_named_and_no_change_is_not_claimed(base_bui
     assert not report["documents"]["compared"] and str(victim) in report["documents"]["reason"]
     assert report["changed"] == ["documents (not compared)"]
     assert not render(report).startswith("no change")
+
+
+def identities(rows: list[tuple[str, int, str, bytes]]) -> pa.Table:
+    """Identity rows (file, offset, split, content hash) with path:offset ids, as a prepared
+    chunk table holds them."""
+    columns = {
+        "doc_id": [f"{source}:{offset}" for source, offset, _, _ in rows],
+        "source": [r[0] for r in rows], "offset": [r[1] for r in rows], "split": [r[2] for r in rows], "fingerprint": [r[3] for r in rows],
+    }  # fmt: skip
+    return pa.Table.from_pydict(columns, schema=IDENTITY_SCHEMA)
+
+
+def test_equal_texts_in_one_file_pair_in_offset_order_when_their_offsets_shift() -> None:
+    """A hand-worked example: a file holding texts P, A, A, B, C at offsets 0, 10, 20, 30, 40;
+    the new build has a longer first paragraph P' at 0 (changed), then A, A, B at 15, 25, 35
+    (moved: the k-th A gone pairs with the k-th A come), C gone and D new at 45; another file
+    unchanged."""
+    p, p2, a, b, c, d = (bytes([n]) * 16 for n in range(6))
+    settings = SplitSettings("id", "s", (("dev", 0.0), ("test", 0.0), ("train", 1.0)))
+    old = identities([("f.txt", 0, "train", p), ("f.txt", 10, "train", a), ("f.txt", 20, "train", a), ("f.txt", 30, "train", b),
+                      ("f.txt", 40, "train", c), ("g.txt", 0, "train", d)])  # fmt: skip
+    new = identities([("f.txt", 0, "train", p2), ("f.txt", 15, "train", a), ("f.txt", 25, "train", a), ("f.txt", 35, "train", b),
+                      ("f.txt", 45, "train", d), ("g.txt", 0, "train", d)])  # fmt: skip
+    changes = DocumentChanges(frozenset({"f.txt", "g.txt"}), settings, settings)
+    changes.add_group(old, new)
+    report = changes.to_json()
+    assert report["files"]["f.txt"] == {
+        "added": 1, "removed": 1, "changed": 1, "moved": 3, "unchanged": 0,
+        "added_ids": ["f.txt:45"], "removed_ids": ["f.txt:40"], "changed_ids": ["f.txt:0"],
+        "moved_ids": [["f.txt:10", "f.txt:15"], ["f.txt:20", "f.txt:25"], ["f.txt:30", "f.txt:35"]],
+    }  # fmt: skip
+    assert report["files"]["g.txt"]["unchanged"] == 1 and report["split_changes"]["total"] == 0
