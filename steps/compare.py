@@ -273,7 +273,7 @@ class DocumentChanges:
         self._match(old, new, old["doc_id"], new["doc_id"], by_id=True)
 
     def _match(self, old: pa.Table, new: pa.Table, old_keys: pa.ChunkedArray, new_keys: pa.ChunkedArray, by_id: bool) -> None:
-        """Pair rows with equal keys (Arrow hash lookups, no Python object a row). By id: pairs
+        """Pair rows with equal keys (Arrow hash lookups; Python objects only for listed ids). By id: pairs
         are unchanged or changed, and the rest is matched again by text; by text: pairs are
         moved, and the rest is added and removed."""
         position = pc.index_in(new_keys, value_set=old_keys)
@@ -310,6 +310,8 @@ class DocumentChanges:
         ones only in files both builds read)."""
         for source, number in _value_counts(table["source"]):
             self._count(source, what, number)
+        if what in ("added", "removed"):
+            table = table.filter(pc.is_in(table["source"], value_set=pa.array(sorted(self.both_files), pa.string())))
         for source, doc_id in zip(table["source"].to_pylist(), table["doc_id"].to_pylist()):
             self._list(source, what, doc_id)
 

@@ -139,6 +139,7 @@ def test_added_edited_and_removed_files_are_counted_per_file_as_the_stream_shard
     files = report["documents"]["files"]
     assert files[ADDED_FILE]["added"] == len(ids_after[ADDED_FILE]) > 0 and not ids_before[ADDED_FILE]
     assert files[REMOVED_FILE]["removed"] == len(ids_before[REMOVED_FILE]) > 0 and not ids_after[REMOVED_FILE]
+    assert "added_ids" not in files[ADDED_FILE] and "removed_ids" not in files[REMOVED_FILE]  # whole files: counted, not listed
     edited = files[EDITED_FILE]
     old_ids, new_ids = ids_before[EDITED_FILE], ids_after[EDITED_FILE]
     assert edited["changed_ids"] == [corpora["edited_id"]]
