@@ -45,6 +45,7 @@ from .formats import FormatError, Vocabulary, file_sha256, read_vocabulary
 from .layout import RELATIVE, SPLITS
 from .reader import MANIFEST, MAX_MANIFEST_BYTES, MAX_VOCABULARY_BYTES, SHARD_FIELDS, file_problem, parse_manifest, resolve_inside, structure_problem
 from .split import assign_split
+from .storage import write_text
 
 # Every manifest field the comparison reads, with its type (steps.reader.structure_problem).
 MANIFEST_FIELDS = {
@@ -666,7 +667,7 @@ def main(argv: list[str] | None = None) -> None:
     else:
         print(render(report, max(args.show, 0)))
         if args.json:
-            Path(args.json).write_text(text + "\n", encoding="utf-8")
+            write_text(args.json, text + "\n")
     documents = report["documents"]
     unexplained = documents["split_changes"]["by_reason"].get(UNEXPLAINED, 0) if documents["compared"] else 0
     if unexplained:
