@@ -13,7 +13,8 @@ symlinks followed, inside its build folder, as in steps.audit and steps.reader):
   split) less the documents deduplication removed (interim/prepared, interim/removed): a build
   keeps nothing else that names a document's content and split. Chunks are compared a group at
   a time: the chunks of both builds whose files' ranges (in path order) overlap, so memory holds
-  the identities of one file or pack, never of the whole corpus.
+  the identities of one file or pack (of a run of packs when the builds pack files differently),
+  not of the whole corpus.
 
 A document is matched by id; a document whose id is gone but whose text (content hash) is
 still in the same file is `moved` (an edit earlier in the file shifted the byte offset that
