@@ -156,6 +156,16 @@ def removed_mask(removed: pa.Table, sources: pa.ChunkedArray | pa.Array, offsets
     return mask
 
 
+IDENTITY_SCHEMA = pa.schema([chunk_schema("word").field(name) for name in ("doc_id", "source", "offset", "split", "fingerprint")])
+
+
+def kept_identities(path: str, removed: pa.Table) -> pa.Table:
+    """Id, place, content hash and split of a chunk's kept documents, without their text: what
+    a build keeps per document, compared between builds (steps.compare)."""
+    table = pq.ParquetFile(path).read(columns=IDENTITY_SCHEMA.names, use_threads=False).select(IDENTITY_SCHEMA.names)
+    return table.filter(pa.array(~removed_mask(removed, table["source"], table["offset"])))
+
+
 def split_groups(path: str, split: str, removed: pa.Table, columns: list[str], budget_bytes: int) -> Iterator[pa.Table]:
     """The kept rows of one split of a chunk in stored order, a batch of row groups of about
     `budget_bytes` of stored data at a time."""

@@ -11,6 +11,7 @@ import sys
 COMMANDS = {
     "audit": ("audit", "main", "check a build folder against its manifest"),
     "baseline": ("baseline", "command", "n-gram (Kneser-Ney) perplexity of every split: the baseline to beat"),
+    "compare": ("compare", "main", "what changed between two build folders: documents, splits, drops, ids, coverage, shards"),
     "cutoffs": ("cutoffs", "main", "what a different vocabulary cutoff would give, from the stored counts"),
     "progress": ("progress", "main", "where each running job of a build is, from its log"),
 }
