@@ -127,6 +127,28 @@ def test_a_file_off_the_format_is_refused_naming_the_file_and_line(tmp_path: Pat
         read_vocabulary(path)
 
 
+@pytest.mark.parametrize(
+    "first",
+    [b"id\ttoken\tcount\tkind\r", b"id\ttoken\tcount\tkind\t", b"id\ttoken\tcount\tkindXX", b"id\ttoken\tcount\tkind\xff"],
+    ids=["windows-line-end", "fifth-column", "trailing-letters", "not-utf8"],
+)
+def test_a_first_line_that_is_not_exactly_the_header_is_refused_at_line_1(tmp_path: Path, first: bytes) -> None:
+    path = tmp_path / "odd.tsv"
+    path.write_bytes(first + b"\n0\t<pad>\t0\treserved\n")
+    with pytest.raises(FormatError, match=r"odd\.tsv: line 1: expected the header"):
+        read_vocabulary(path)
+
+
+def test_tokens_and_kinds_that_look_like_numbers_are_read_as_text(tmp_path: Path) -> None:
+    """Every token and kind is a string, whatever a CSV reader would guess from the column."""
+    path = tmp_path / "odd.tsv"
+    path.write_text(f"{VOCABULARY_HEADER}\n0\t1\t5\tword\n1\t2\t3\tword\n", encoding="utf-8")
+    assert read_vocabulary(path).tokens == ["1", "2"]
+    path.write_text(f"{VOCABULARY_HEADER}\n0\t1\t5\t7\n", encoding="utf-8")
+    with pytest.raises(FormatError, match=r"odd\.tsv: line 2: kind '7'; allowed"):
+        read_vocabulary(path)
+
+
 def test_a_field_ending_in_a_lone_backslash_or_holding_an_unknown_escape_keeps_the_backslash() -> None:
     """Only the four documented escapes are undone; any other backslash is a plain character
     (a field written by hand, or by an older writer, may hold one)."""
