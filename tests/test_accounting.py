@@ -305,6 +305,15 @@ def test_a_lost_document_shows_as_unbalanced():
     assert accounting([tally(5, 3, {"empty": 2})], duplicates=0)["balanced"] is True
 
 
+def test_a_file_off_balance_makes_the_build_unbalanced_even_when_the_totals_agree():
+    """One file lost a document and another gained one: the totals balance, the files do not."""
+    lost = {"files": {"a.txt": FileTally(read=2, kept=1).as_dict()}}
+    gained = {"files": {"b.txt": FileTally(read=1, kept=2).as_dict()}}
+    merged = merge([lost, gained], {})
+    assert merged["read"] + merged["pieces_added"] == merged["kept"] + sum(merged["dropped"].values())
+    assert merged["balanced"] is False
+
+
 def test_drop_reasons_are_listed_in_name_order():
     """Deterministic manifest bytes: reasons sorted by name whatever order the tallies give."""
     result = accounting([tally(3, 0, {"too_short": 1, "empty": 1}), tally(2, 0, {"bad_json": 1, "empty": 1})], duplicates=1)

@@ -147,6 +147,12 @@ def test_row_weights_are_tokens_or_a_quarter_of_the_utf8_sentence_bytes_and_at_l
     assert row_weights(pieces, "subword").tolist() == expected
 
 
+def test_a_row_of_a_multiple_of_four_sentence_bytes_weighs_exactly_a_quarter_first_row_included():
+    """8 bytes weigh 2 wherever the row stands; 2 bytes round down to 0 and weigh 1."""
+    sentences = pa.array([["abcd", "efgh"], ["ab"], ["abcdefgh"], ["\u00e9\u00e9\u00e9\u00e9"]], pa.list_(pa.string()))
+    assert row_weights(pa.table({"sentences": sentences}), "subword").tolist() == [2, 1, 2, 2]
+
+
 def test_a_chunk_larger_than_the_run_budget_is_stored_in_sorted_runs(tmp_path, monkeypatch):
     """Rows held past the budget are written as a run of their own (bounded memory for a big
     compressed file); every row is stored once, each run in (split, doc_hash) order, and a

@@ -197,3 +197,11 @@ def test_the_encoder_follows_the_units_of_the_ids(models: dict[bool, str]) -> No
     """Ids of a piece model (kinds control, byte, piece) get the piece encoder, word ids the word encoder."""
     assert isinstance(encoder_for(word_vocabulary(), "shape", "unused.model", 1), WordEncoder)
     assert isinstance(encoder_for(model_vocabulary(models[True]), "shape", models[True], 1), PieceEncoder)
+
+
+def test_each_encoder_hands_on_the_vocabulary_its_ids_index(models: dict[bool, str]) -> None:
+    """The shard step writes the ids file and shard metadata from `encoder.vocabulary`."""
+    words = word_vocabulary()
+    pieces = model_vocabulary(models[True])
+    assert encoder_for(words, "shape", "unused.model", 1).vocabulary is words
+    assert encoder_for(pieces, "shape", models[True], 1).vocabulary is pieces

@@ -127,6 +127,71 @@ def test_a_file_off_the_format_is_refused_naming_the_file_and_line(tmp_path: Pat
         read_vocabulary(path)
 
 
+@pytest.mark.parametrize(
+    "first",
+    [b"id\ttoken\tcount\tkind\r", b"id\ttoken\tcount\tkind\t", b"id\ttoken\tcount\tkindXX", b"id\ttoken\tcount\tkind\xff"],
+    ids=["windows-line-end", "fifth-column", "trailing-letters", "not-utf8"],
+)
+def test_a_first_line_that_is_not_exactly_the_header_is_refused_at_line_1(tmp_path: Path, first: bytes) -> None:
+    path = tmp_path / "odd.tsv"
+    path.write_bytes(first + b"\n0\t<pad>\t0\treserved\n")
+    with pytest.raises(FormatError, match=r"odd\.tsv: line 1: expected the header"):
+        read_vocabulary(path)
+
+
+def test_tokens_and_kinds_that_look_like_numbers_are_read_as_text(tmp_path: Path) -> None:
+    """Every token and kind is a string, whatever a CSV reader would guess from the column."""
+    path = tmp_path / "odd.tsv"
+    path.write_text(f"{VOCABULARY_HEADER}\n0\t1\t5\tword\n1\t2\t3\tword\n", encoding="utf-8")
+    assert read_vocabulary(path).tokens == ["1", "2"]
+    path.write_text(f"{VOCABULARY_HEADER}\n0\t1\t5\t7\n", encoding="utf-8")
+    with pytest.raises(FormatError, match=r"odd\.tsv: line 2: kind '7'; allowed"):
+        read_vocabulary(path)
+
+
+def test_a_field_ending_in_a_lone_backslash_or_holding_an_unknown_escape_keeps_the_backslash() -> None:
+    """Only the four documented escapes are undone; any other backslash is a plain character
+    (a field written by hand, or by an older writer, may hold one)."""
+    assert unescape("a\\") == "a\\"
+    assert unescape("\\") == "\\"
+    assert unescape("a\\qb") == "a\\qb"
+
+
+ROWS = f"{VOCABULARY_HEADER}\n0\t<pad>\t0\treserved\n"
+
+
+@pytest.mark.parametrize(
+    ("text", "line", "bad"),
+    [
+        (ROWS + "".join(f"{i}\tw{i}\t5\tword\n" for i in range(1, 5)) + "5\tx\t4\n", 7, "5\tx\t4"),
+        (ROWS + "\n1\tx\t4 \n", 4, "1\tx\t4 "),
+        (ROWS + "1\tNew York\t3\tword\n2\tTAX\n", 4, "2\tTAX"),
+        (ROWS + "1\tx\t-4\tword\n2\ty\tX4\tword\n", 4, "2\ty\tX4\tword"),
+        (ROWS + "1\t" + "y" * 100 + "\n", 3, "1\t" + "y" * 78),
+    ],
+    ids=["fifth-row", "after-a-blank-line", "after-a-token-with-a-space", "count-not-a-number", "long-line"],
+)
+def test_the_first_line_off_the_format_is_named_and_quoted_as_written(tmp_path: Path, text: str, line: int, bad: str) -> None:
+    """Ids counted from 0 over every row, blank lines skipped, fields split at tabs only, a
+    negative count still a row (refused later, by value); the line is quoted without its line
+    break, trailing spaces kept, cut to 80 characters."""
+    path = tmp_path / "odd.tsv"
+    path.write_text(text, encoding="utf-8")
+    expected = bad.split("\t")[0]
+    with pytest.raises(FormatError) as raised:
+        read_vocabulary(path)
+    assert str(raised.value) == f"{path}: line {line}: expected '{expected}<TAB>token<TAB>count<TAB>kind', got {bad!r}"
+
+
+def test_a_file_that_is_not_utf8_is_refused_as_a_format_error_naming_the_file(tmp_path: Path) -> None:
+    """Arrow refuses the bytes; the search for the bad line reads them with replacement
+    characters, so it ends in the same kind of error, not a decoding error of its own."""
+    path = tmp_path / "odd.tsv"
+    path.write_bytes(ROWS.encode() + b"1\tcaf\xe9\t4\tword\n")
+    with pytest.raises(FormatError, match=r"odd\.tsv: cannot be read as a vocabulary file \(.*\); write it with corpusmill or fix that value"):
+        read_vocabulary(path)
+
+
 def model_with_odd_pieces(path: Path) -> spm.SentencePieceProcessor:
     """A sentencepiece model with the project's reserved ids whose pieces hold a tab, a line
     feed, a carriage return and a backslash before t; learned on the demo journals."""

@@ -238,6 +238,17 @@ def test_shuffle_buffer_mixes_rows_of_different_row_groups(tmp_path: Path) -> No
     assert len({index // 50 for index in first}) > 1
 
 
+def test_a_shard_rewritten_after_the_build_was_opened_is_refused_naming_the_row_group(tmp_path: Path) -> None:
+    """The row groups are planned from the footers read at opening; a shard rewritten since then
+    (same rows, one row group) no longer matches the plan, and reading says so."""
+    build = open_build(write_synthetic_build(tmp_path / "build", SYNTHETIC_GROUPS))
+    shard = tmp_path / "build" / "shards" / "train" / "ngram-0000.parquet"
+    pq.write_table(pq.read_table(shard), shard)
+    with pytest.raises(BuildError, match=r"ngram-0000\.parquet: row group 0 decodes to 21 rows, but the file's footer says 7; the file was altered"):
+        for _ in build.tables("train", "ngram"):
+            pass
+
+
 def listed_shard(build: Path, split: str, kind: str, index: int = 2) -> str:
     """The file name (relative to the build) of the manifest's `index`-th shard of a split and kind."""
     manifest = json.loads((build / "manifest.json").read_text(encoding="utf-8"))

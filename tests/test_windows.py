@@ -170,3 +170,14 @@ def test_block_coverage_counts_exactly_the_ids_some_block_holds(lengths: list[in
     cut = [joined.feed(piece) for piece in pieces] + [joined.finish()]
     held = np.concatenate([block.reshape(-1) for block in cut]) if cut else np.empty(0)
     assert joined.covered == len(np.unique(held[held >= 0]))
+
+
+def test_one_id_left_after_the_last_whole_block_is_neither_padded_nor_covered():
+    """Blocks of 4 ids at stride 4 over documents of 9, 6 and 1 ids, remainder "pad": the 9th id
+    of the first would be a padded block without a target, so it stays out, while the 6-id
+    document gets its padded block; the coverage counts the ids the blocks hold."""
+    doc_lengths = np.array([9, 6, 1], dtype=np.int64)
+    stream = np.arange(16, dtype=np.int64)
+    blocks = document_blocks(stream, doc_lengths, 3, 4, "pad", -1)
+    assert blocks.tolist() == [[0, 1, 2, 3], [4, 5, 6, 7], [9, 10, 11, 12], [13, 14, -1, -1]]
+    assert document_block_coverage(doc_lengths, 3, 4, "pad") == 14
