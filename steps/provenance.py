@@ -28,7 +28,7 @@ class RunWriter:
         self.schema = provenance_rows_schema()
         # Delta encoding stores a run's consecutive rows and a shuffled file's positions (within
         # one batch's range) in a few bits each, where plain values take 8 bytes.
-        delta = {name: "DELTA_BINARY_PACKED" for name in self.schema.names}
+        delta = dict.fromkeys(self.schema.names, "DELTA_BINARY_PACKED")
         self.sink = ParquetSink(path, self.schema.with_metadata(metadata), dictionary=False, encodings=delta)
         self.step = step
         self.rows = 0
@@ -130,7 +130,8 @@ def json_metadata(path: str | Path, parquet: pq.ParquetFile) -> dict:
 class Place:
     """Where one stream position lies: a document (its row of the document table), a sentence
     and a token of it; token -1 is the document's <s>, token = its sentence's length its </s>.
-    Beyond the last document (a block padded at the end of a chunk): document -1."""
+    Beyond the last document (a block padded at the end of a chunk): document -1; a <s> that
+    pads an n-gram context at a sentence start: document -2."""
 
     document: int
     sentence: int

@@ -283,8 +283,9 @@ def write_chunk(layout: Layout, chunk: str, removed: pa.Table, encoder: Encoder,
         except BaseException:
             for sink in sinks.values():
                 sink.abort()
-            for origin in [*origins.values(), documents]:
+            for origin in origins.values():
                 origin.abort()
+            documents.abort()
             raise
         for kind, sink in sinks.items():
             sink.close()
@@ -292,8 +293,9 @@ def write_chunk(layout: Layout, chunk: str, removed: pa.Table, encoder: Encoder,
             relative = Path(path).relative_to(layout.root).as_posix()
             stats.files.append(ShardFile(relative, split, kind, chunk, sink.rows, Path(path).stat().st_size, file_sha256(path)))
             stats.rows.setdefault(split, {})[kind] = sink.rows
-        for origin in [*origins.values(), documents]:
+        for origin in origins.values():
             origin.close()
+        documents.close()
         for path in [*(layout.provenance(split, kind, chunk) for kind in kinds), layout.provenance_documents(split, chunk)]:
             stats.provenance[Path(path).relative_to(layout.root).as_posix()] = file_sha256(path)
         if "block" in kinds:
