@@ -19,10 +19,14 @@ import pyarrow.parquet as pq
 from .formats import METADATA_KEY, FormatError, provenance_documents_schema, provenance_rows_schema
 from .storage import ParquetSink
 
+# Runs per row group: a lookup decodes one group (a shuffled file holds a run per row).
+GROUP_RUNS = 1 << 16
+
 
 class RunWriter:
-    """A row table: the stream positions of a shard's rows, in row order, as runs. The last run
-    stays open between calls, so the runs do not depend on how the rows were batched."""
+    """A row table: the stream positions of a shard's rows, in row order, as runs, in row groups
+    of GROUP_RUNS runs. The last run stays open between calls, so the file's bytes do not
+    depend on how the rows were batched."""
 
     def __init__(self, path: str | Path, metadata: dict[bytes, bytes], step: int) -> None:
         self.schema = provenance_rows_schema()
@@ -33,6 +37,7 @@ class RunWriter:
         self.step = step
         self.rows = 0
         self._open = np.empty((0, 3), np.int64)  # the open run: row, rows, position
+        self._held = np.empty((0, 3), np.int64)  # closed runs not yet written
 
     def add(self, positions: np.ndarray) -> None:
         if not len(positions):
@@ -43,20 +48,26 @@ class RunWriter:
         runs = np.column_stack([self.rows + starts, lengths, positions[starts]])
         if len(self._open):
             row, count, position = self._open[0]
-            if self.step and position + count * self.step == runs[0, 2]:
+            if position + count * self.step == runs[0, 2]:
                 runs[0] = (row, count + runs[0, 1], position)
             else:
                 runs = np.concatenate([self._open, runs])
         self.rows += len(positions)
-        self._write(runs[:-1])
+        self._held = np.concatenate([self._held, runs[:-1]])
         self._open = runs[-1:]
+        whole = len(self._held) // GROUP_RUNS * GROUP_RUNS
+        for start in range(0, whole, GROUP_RUNS):
+            self._write(self._held[start : start + GROUP_RUNS])
+        self._held = self._held[whole:]
 
     def _write(self, runs: np.ndarray) -> None:
         if len(runs):
             self.sink.write(pa.table({"row": runs[:, 0], "rows": runs[:, 1], "position": runs[:, 2]}, schema=self.schema))
 
     def close(self) -> None:
-        self._write(self._open)
+        held = np.concatenate([self._held, self._open])
+        for start in range(0, len(held), GROUP_RUNS):
+            self._write(held[start : start + GROUP_RUNS])
         self.sink.close()
 
     def abort(self) -> None:
