@@ -284,7 +284,8 @@ def test_side_tables_read_by_duckdb_and_polars_equal_pyarrow_and_give_the_same_d
         chunk = Path(file).stem.split("-", 1)[1]
         runs, documents = demo_build / "provenance" / split / f"{kind}-{chunk}.parquet", demo_build / "provenance" / split / f"documents-{chunk}.parquet"
         step = json.loads(pq.read_schema(runs).metadata[b"corpusmill"])["step"]
-        (position,) = duckdb.sql(f"SELECT position + ({row} - row) * {step} FROM read_parquet('{runs}') WHERE row <= {row} AND {row} < row + rows").fetchall()[0]
+        query = f"SELECT position + ({row} - row) * {step} FROM read_parquet('{runs}') WHERE row <= {row} AND {row} < row + rows"
+        (position,) = duckdb.sql(query).fetchall()[0]
         found = duckdb.sql(f"SELECT doc_id FROM read_parquet('{documents}') WHERE position <= {position} ORDER BY position DESC LIMIT 1").fetchall()[0]
         traced = provenance_record(trace_row(demo_build, file, row))
         place = traced["places"][-1 if kind == "ngram" else 0]
