@@ -299,9 +299,7 @@ def provenance_rows_schema():  # -> pa.Schema
 def provenance_documents_schema():  # -> pa.Schema
     import pyarrow as pa
 
-    return pa.schema(
-        [("doc_id", pa.string()), ("source", pa.string()), ("offset", pa.int64()), ("position", pa.int64()), ("sentences", pa.list_(pa.int32()))]
-    )
+    return pa.schema([("doc_id", pa.string()), ("source", pa.string()), ("offset", pa.int64()), ("position", pa.int64()), ("sentences", pa.list_(pa.int32()))])
 
 
 def provenance_step(kind: str, windows: Mapping[str, Any]) -> int:

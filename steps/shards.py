@@ -250,9 +250,7 @@ def write_chunk(layout: Layout, chunk: str, removed: pa.Table, encoder: Encoder,
         sinks = {kind: ParquetSink(layout.shard(split, kind, chunk), schemas[kind], **codec) for kind in kinds}
         writers = {kind: RowGroups(sink, group) for kind, sink in sinks.items()}
         steps = {kind: provenance_step(kind, windows) for kind in kinds}
-        origins = {
-            kind: RunWriter(layout.provenance(split, kind, chunk), provenance_metadata(split, kind, chunk, steps[kind]), steps[kind]) for kind in kinds
-        }
+        origins = {kind: RunWriter(layout.provenance(split, kind, chunk), provenance_metadata(split, kind, chunk, steps[kind]), steps[kind]) for kind in kinds}
         documents = DocumentWriter(layout.provenance_documents(split, chunk))
         cutter = RowCutter(windows, vocabulary, np.dtype(id_type))
         try:
