@@ -117,7 +117,8 @@ def test_the_vocabulary_entry_describes_vocabulary_tsv(demo_chunks_build: Path, 
         "words": sum(kind == "word" for *_, kind in rows),
         "reserved": {token: int(number) for number, token, _, kind in rows if kind in ("reserved", "unknown")},
     }  # fmt: skip
-    assert manifest["files"] == {"stats/coverage.json": sha256(demo_chunks_build / "stats" / "coverage.json")}
+    provenance = {p.relative_to(demo_chunks_build).as_posix(): sha256(p) for p in (demo_chunks_build / "provenance").rglob("*.parquet")}
+    assert provenance and manifest["files"] == {"stats/coverage.json": sha256(demo_chunks_build / "stats" / "coverage.json"), **provenance}
 
 
 def test_the_accounting_sums_the_chunk_tallies_and_keeps_what_the_shards_hold(demo_chunks_build: Path, manifest: dict) -> None:
