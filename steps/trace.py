@@ -75,6 +75,7 @@ class Traced:
     places: list[Place]  # one per id of the row
     documents: Documents
     texts: dict[int, list[Sentence]]  # document (row of the document table) → its sentences
+    vocabulary: Vocabulary
 
 
 def _inside(real_root: Path, name: str, what: str, limit: int | None = None) -> Path:
@@ -161,7 +162,7 @@ class DocumentReader:
 def trace_row(build: str | Path, file: str, row: int, corpus: str | None = None) -> Traced:
     """The row `row` of shard file `file` (as manifest.json names it) with its source text."""
     real_root = Path(build).resolve()
-    manifest_path = _inside(real_root, MANIFEST, "", MAX_MANIFEST_BYTES)
+    manifest_path = _inside(real_root, MANIFEST, "(the build's description)", MAX_MANIFEST_BYTES)
     manifest, problem = parse_manifest(manifest_path.read_bytes(), TRACE_FIELDS)
     if problem:
         raise TraceError(f"{manifest_path}: {problem}; rerun the workflow (snakemake) on this build folder to write it")
@@ -195,13 +196,14 @@ def trace_row(build: str | Path, file: str, row: int, corpus: str | None = None)
         document: reader.sentences(documents.sources[document], documents.offsets[document])
         for document in sorted({place.document for place in places if place.document >= 0})
     }
-    traced = Traced(name, split, kind, row, ids, places, documents, texts)
-    check(traced, vocabulary)
+    traced = Traced(name, split, kind, row, ids, places, documents, texts, vocabulary)
+    check(traced)
     return traced
 
 
-def traced_id(traced: Traced, place: Place, vocabulary: Vocabulary) -> int:
+def traced_id(traced: Traced, place: Place) -> int:
     """The id the source text gives at `place` (<s>, </s> or a token's; <pad> past the end)."""
+    vocabulary = traced.vocabulary
     if place.document == -2:
         return vocabulary.id(BOS)
     if place.document < 0:
@@ -212,13 +214,13 @@ def traced_id(traced: Traced, place: Place, vocabulary: Vocabulary) -> int:
     return vocabulary.id(EOS) if place.token == len(sentence.ids) else sentence.ids[place.token]
 
 
-def check(traced: Traced, vocabulary: Vocabulary) -> None:
+def check(traced: Traced) -> None:
     """Stop unless the source text gives the row's ids and the stored sentence lengths."""
     for document, sentences in traced.texts.items():
         if [len(s.ids) for s in sentences] != traced.documents.sentences[document]:
             where = f"{traced.documents.sources[document]} at byte {traced.documents.offsets[document]}"
             raise TraceError(f"{where}: the document no longer gives the sentences the build cut; the file changed since the build: rebuild")
-    found = [traced_id(traced, place, vocabulary) for place in traced.places]
+    found = [traced_id(traced, place) for place in traced.places]
     if found != traced.ids:
         raise TraceError(
             f"{traced.file}: row {traced.row} holds ids {traced.ids}, but its source text gives {found}; "
@@ -255,13 +257,13 @@ def _render(sentence: Sentence, marked: set[int], target: int | None, start: str
     return "".join(out) + tail
 
 
-def format_trace(traced: Traced, vocabulary: Vocabulary, target: int | None = None) -> str:
+def format_trace(traced: Traced, target: int | None = None) -> str:
     """The lines `corpusmill trace` prints. `target`: which id of a block or stream row to mark
     as the target (an n-gram row's is its own)."""
     documents = traced.documents
     if traced.kind == "ngram":
         target = len(traced.ids) - 1
-    tokens = [vocabulary.tokens[i] for i in traced.ids]
+    tokens = [traced.vocabulary.tokens[i] for i in traced.ids]
     lines = [f"{traced.file}, row {traced.row} ({traced.split}, {traced.kind})"]
     if traced.kind == "ngram":
         lines.append(f"ids:      context {' '.join(map(str, traced.ids[:-1]))} -> target {traced.ids[-1]}")
@@ -320,11 +322,7 @@ def main(argv: list[str] | None = None) -> None:
     except TraceError as error:
         print(f"{PREFIX}{error}", file=sys.stderr)
         raise SystemExit(2) from None
-    vocabulary = read_vocabulary(Path(args.build) / RELATIVE.vocabulary)
-    if args.json:
-        print(json.dumps(provenance_record(traced), indent=2))
-    else:
-        print(format_trace(traced, vocabulary, args.target))
+    print(json.dumps(provenance_record(traced), indent=2) if args.json else format_trace(traced, args.target))
 
 
 def provenance_record(traced: Traced) -> dict:
