@@ -122,7 +122,8 @@ class RowCutter:
         per_doc = np.diff(nested.offsets.to_numpy()).astype(np.int64)
         eos = self.eos if self.ngram["predict_end"] else None
         rows = ngram_rows(sentence_lengths, eos is not None)
-        # Drawn only when there is a window to cut, as every earlier build drew it.
+        # Drawn only when there is a window to cut, so the generator runs as it always did and
+        # the train shards keep their bytes.
         drawn = shuffle is not None and rows + (self.ngram["n"] - 1) * len(sentence_lengths) > 0
         order = shuffle.permutation(rows) if drawn and shuffle is not None else None
         context, target = ngram_windows(ids, sentence_lengths, self.ngram["n"], self.bos, eos, order)

@@ -327,3 +327,35 @@ def test_the_manifest_lists_every_provenance_table_and_the_audit_checks_them(dem
     problems = "\n".join(audit_build(copy).problems)
     assert f"{sorted(on_disk)[0]}: SHA-256 differs" in problems
     assert "provenance/train/stray.parquet: is not listed" in problems
+
+
+def test_train_rows_keep_the_seeded_order_they_had_before_provenance(demo_build: Path) -> None:
+    """Reference: the shuffle as documented (README, Shards): one generator per chunk seeded
+    with shards.seed and the chunk's key, drawing the n-gram permutation, then the block
+    permutation, per batch (the demo's chunk is one batch). Cut from the train stream shard, in
+    that order, the rows equal the shard's row for row, so tracing changed no train row."""
+    from corpusmill.shards import chunk_seed
+
+    config = json.loads((demo_build / "manifest.json").read_text())["config"]
+    ngram, blocks = config["windows"]["ngram"], config["windows"]["blocks"]
+    (stream_file,) = (demo_build / "shards" / "train").glob("stream-*.parquet")
+    chunk = stream_file.stem.split("-", 1)[1]
+    vocabulary = read_vocabulary(demo_build / "vocabulary.tsv")
+    bos, eos, pad = vocabulary.id(BOS), vocabulary.id(EOS), vocabulary.id(PAD)
+    sentences, per_doc = [], []
+    for ids in pq.read_table(stream_file)["ids"].to_pylist():
+        body = ids[1:]
+        ends = [i for i, token in enumerate(body) if token == eos]
+        sentences += [body[a + 1 if k else 0 : b] for k, (a, b) in enumerate(zip([-1, *ends], ends))]
+        per_doc.append(len(ends))
+    lengths = np.array([len(s) for s in sentences])
+    flat = np.array([t for s in sentences for t in s], np.int64)
+    rng = np.random.default_rng(chunk_seed(config["shards"]["seed"], chunk))
+    rows = int(lengths.sum()) + (len(lengths) if ngram["predict_end"] else 0)
+    context, target = ngram_windows(flat, lengths, ngram["n"], bos, eos if ngram["predict_end"] else None, rng.permutation(rows))
+    stream, doc_lengths = document_streams(flat, lengths, np.array(per_doc), bos, eos)
+    cut = document_blocks(stream, doc_lengths, blocks["length"], blocks["stride"], blocks["remainder"], pad)
+    cut = cut[rng.permutation(len(cut))]
+    shard = pq.read_table(demo_build / "shards" / "train" / f"ngram-{chunk}.parquet")
+    assert shard["context"].to_pylist() == context.tolist() and shard["target"].to_pylist() == target.tolist()
+    assert pq.read_table(demo_build / "shards" / "train" / f"block-{chunk}.parquet")["ids"].to_pylist() == cut.tolist()
