@@ -37,6 +37,7 @@ rule shards:
         options=L.options("shards"),
     output:
         **PLAN.shards_of("{chunk}"),
+        **PLAN.provenance_of("{chunk}"),
         stats=L.shard_stats("{chunk}"),
         id_counts=L.id_counts("{chunk}"),
     log:

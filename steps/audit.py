@@ -4,7 +4,8 @@ Why: shards get copied between machines, truncated by full disks, or mixed with 
 builds; training on them silently would waste a run. The audit recomputes what the manifest
 promises: every shard's SHA-256 and row count, ids below the vocabulary size, window and block
 widths, the vocabulary hash (file, manifest and every shard's `corpusmill` metadata), the
-document accounting, and that shards/ holds exactly the listed files. It reads each shard in
+document accounting, the provenance tables' hashes (listed under `files`), and that shards/ and
+provenance/ hold exactly the listed files. It reads each shard in
 record batches, so memory stays bounded by the batch, not the shard; rows are counted as they
 decode from the data pages, so a footer edited to promise other rows is caught.
 
@@ -212,12 +213,12 @@ def audit_build(build: str | Path) -> Audit:
             if total != rows:
                 where = key_path(key_path(key_path("splits", split), "rows"), kind)
                 audit.fail(MANIFEST, f"{where} = {rows}, but its shards list {total} rows; {FIX_MANIFEST}")
-    shards_dir = base / RELATIVE.shards_dir
     # Every entry but a real directory: a glob over shards/ would also meet FIFOs and symlinks.
     present = set()
-    if shards_dir.is_dir():
-        present = {p.relative_to(base).as_posix() for p in shards_dir.rglob("*") if p.is_symlink() or not p.is_dir()}
-    for extra in sorted(present - {e["file"] for e in entries}):
+    for folder in (base / RELATIVE.shards_dir, base / RELATIVE.provenance_dir):
+        if folder.is_dir():
+            present |= {p.relative_to(base).as_posix() for p in folder.rglob("*") if p.is_symlink() or not p.is_dir()}
+    for extra in sorted(present - {e["file"] for e in entries} - set(manifest["files"])):
         audit.fail(extra, "is not listed in manifest.json; remove it (a leftover or a file of another build)")
     for name, sha256 in sorted(manifest["files"].items()):
         path = listed_file(real_root, name, "files key", audit)

@@ -14,6 +14,7 @@ COMMANDS = {
     "compare": ("compare", "main", "what changed between two build folders: documents, splits, drops, ids, coverage, shards"),
     "cutoffs": ("cutoffs", "main", "what a different vocabulary cutoff would give, from the stored counts"),
     "progress": ("progress", "main", "where each running job of a build is, from its log"),
+    "trace": ("trace", "main", "the source text of one shard row: input file, byte offset, sentence, token"),
 }
 
 

@@ -10,6 +10,9 @@ audit and the commands.
   SHA-256. Shards name it in their metadata: counts may change while the ids stay.
 - Shards: Parquet, one file per split, kind and chunk; columns by kind (`shard_schema`); the
   key-value metadata `corpusmill` holds JSON (`shard_metadata`).
+- Provenance: beside each shard file a row table, and per chunk and split a document table
+  (`provenance_rows_schema`, `provenance_documents_schema`: where every row comes from, kept out
+  of the shards so their columns stay as they are).
 - Statistics that cross stages are typed records with JSON round trips (`ShardStats`).
 
 Importing this module loads neither numpy nor Arrow (the workflow process imports it); the
@@ -267,6 +270,48 @@ def file_sha256(path: str | Path) -> str:
     return hasher.hexdigest()
 
 
+# --- provenance ----------------------------------------------------------------------------------
+#
+# A chunk's documents of one split, encoded in the order the shard job cut them, laid end to end
+# as one stream (<s> s1 </s> s2 </s> … per document, steps.windows.document_streams) give every
+# id a *stream position*. Every row has one: an n-gram row its target's (a </s> target is the
+# position of its sentence's </s>), a block row its first id's, a stream row its document's <s>.
+#
+# Document table (`provenance/<split>/documents-<chunk>.parquet`), one row per document in that
+# order: doc_id, source (input file, relative to corpus.root), offset (byte offset of the
+# document in the file's uncompressed text), position (stream position of its <s>) and
+# sentences (ids per sentence, </s> not counted). Sentence s of a document starts at
+# position + 1 + sum of (sentences[i] + 1) for i < s; token t of it is one position further per t.
+#
+# Row table (`provenance/<split>/<kind>-<chunk>.parquet`), runs of rows in row order: row (the
+# first row of the run), rows (how many) and position (the first row's stream position); row
+# row + k has position + k * step. Step (the `corpusmill` metadata, with split, kind, chunk and
+# the shard's row count): 1 for n-gram rows, the block stride for blocks, 0 for streams (every
+# run one row). Train rows are shuffled, so their runs are mostly one row long.
+
+
+def provenance_rows_schema():  # -> pa.Schema
+    import pyarrow as pa
+
+    return pa.schema([("row", pa.int64()), ("rows", pa.int64()), ("position", pa.int64())])
+
+
+def provenance_documents_schema():  # -> pa.Schema
+    import pyarrow as pa
+
+    return pa.schema([("doc_id", pa.string()), ("source", pa.string()), ("offset", pa.int64()), ("position", pa.int64()), ("sentences", pa.list_(pa.int32()))])
+
+
+def provenance_step(kind: str, windows: Mapping[str, Any]) -> int:
+    """How far the stream position moves from one row of a run to the next (see above)."""
+    return {"ngram": 1, "block": int(windows["blocks"]["stride"]), "stream": 0}[kind]
+
+
+def provenance_metadata(split: str, kind: str, chunk: str, step: int) -> dict[bytes, bytes]:
+    value = {"split": split, "kind": kind, "chunk": chunk, "step": step}
+    return {METADATA_KEY: json.dumps(value, sort_keys=True).encode("utf-8")}
+
+
 # --- statistics records ------------------------------------------------------------------------
 
 
@@ -329,6 +374,7 @@ class ShardStats:
     block_ids: dict[str, int] = field(default_factory=dict)
     stream_ids: dict[str, int] = field(default_factory=dict)
     sources: dict[str, dict[str, Figures]] = field(default_factory=dict)  # source -> split -> figures
+    provenance: dict[str, str] = field(default_factory=dict)  # provenance file -> SHA-256
 
     def figures(self, source: str, split: str) -> Figures:
         return self.sources.setdefault(source, {}).setdefault(split, Figures())
@@ -341,6 +387,7 @@ class ShardStats:
             "block_ids": self.block_ids,
             "stream_ids": self.stream_ids,
             "sources": {s: {split: f.to_json() for split, f in sorted(per.items())} for s, per in sorted(self.sources.items())},
+            "provenance": dict(sorted(self.provenance.items())),
         }
 
     @classmethod
@@ -352,6 +399,7 @@ class ShardStats:
             block_ids=dict(value["block_ids"]),
             stream_ids=dict(value["stream_ids"]),
             sources={s: {split: Figures.from_json(f) for split, f in per.items()} for s, per in value["sources"].items()},
+            provenance=dict(value.get("provenance", {})),
         )
 
 

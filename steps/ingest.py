@@ -779,3 +779,19 @@ def _piece_documents(path: Path, piece: _FilePiece, options: ReadOptions, tally:
             text = decode(offset, data)
             if text is not None:
                 yield Document(f"{piece.source}:{offset}", piece.source, offset, text)
+
+
+def document_at(root: str | Path, source: str, offset: int, options: ReadOptions) -> Document | None:
+    """The document of `source` (relative to `root`) that starts at byte `offset` of its
+    uncompressed text, exactly as `read_documents` reads it; None when none starts there.
+    Reading starts at `offset` where the file can seek and a document begins on a line; else
+    (compressed files, pieces of a split oversized document) at the start of the file."""
+    tally = Tally()
+    tally.start(source)
+    for start in [offset, 0] if offset and not split_name(source)[1] else [0]:
+        for document in _piece_documents(Path(root) / source, _FilePiece(source, start, None), options, tally):
+            if document.offset == offset:
+                return document
+            if document.offset > offset:
+                break
+    return None

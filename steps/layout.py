@@ -85,6 +85,18 @@ class Layout:
     def shard(self, split: str, kind: str, chunk: str) -> str:
         return self._join("shards", split, f"{kind}-{chunk}.parquet")
 
+    @property
+    def provenance_dir(self) -> str:
+        return self._join("provenance")
+
+    def provenance(self, split: str, kind: str, chunk: str) -> str:
+        """Where the rows of one shard file come from (steps.formats, provenance)."""
+        return self._join("provenance", split, f"{kind}-{chunk}.parquet")
+
+    def provenance_documents(self, split: str, chunk: str) -> str:
+        """The documents of one chunk and split that its provenance tables point into."""
+        return self._join("provenance", split, f"documents-{chunk}.parquet")
+
     # The plan, written when the workflow is read.
     @property
     def chunk_list(self) -> str:

@@ -2,7 +2,8 @@
 
 It records the resolved configuration and its hash, a fingerprint of every input file, the
 files under the corpus root that were not read (unselected, excluded, refused), the
-vocabulary hash, per-split figures, every shard file with its rows and SHA-256, and the
+vocabulary hash, per-split figures, every shard file with its rows and SHA-256 (and, under
+`files`, every provenance table with its SHA-256, as the shard jobs wrote them), and the
 document accounting (steps/accounting.py), in total and per input file: read + pieces added
 by splitting = kept + dropped (by reason).
 """
@@ -81,7 +82,8 @@ def build_manifest(
                 else {}
             ),
         },
-        "files": {Path(p).relative_to(base).as_posix(): file_sha256(p) for p in extra_files},
+        "files": {Path(p).relative_to(base).as_posix(): file_sha256(p) for p in extra_files}
+        | {name: sha256 for chunk in stats for name, sha256 in chunk.provenance.items()},
         "splits": splits,
         "accounting": accounting,
         **({"baseline": baseline} if baseline is not None else {}),

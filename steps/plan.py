@@ -208,6 +208,11 @@ class Plan:
         """The shard files one chunk's job writes, by `<split>_<kind>` (Snakemake output names)."""
         return {f"{split}_{kind}": self.layout.shard(split, kind, chunk) for split in SPLITS for kind in self.kinds}
 
+    def provenance_of(self, chunk: str) -> dict[str, str]:
+        """The provenance tables one chunk's shard job writes beside its shard files."""
+        tables = {f"{split}_documents": self.layout.provenance_documents(split, chunk) for split in SPLITS}
+        return tables | {f"{split}_{kind}_provenance": self.layout.provenance(split, kind, chunk) for split in SPLITS for kind in self.kinds}
+
     def all_shards(self) -> list[str]:
         return [path for chunk in self.chunk_keys for path in self.shards_of(chunk).values()]
 

@@ -16,6 +16,10 @@ reading a split's files in manifest (chunk) order gives the corpus order.
 Blocks with `span: corpus` join the documents of one chunk in that order (a chunk's last
 partial block is dropped or padded): the only rows whose content depends on where chunks end.
 
+Beside each shard file, its provenance: a row table of each row's stream position, and per
+split a table of the documents cut (steps.formats, provenance; steps.provenance), so any row
+leads back to its document, sentence and token without a column added to the shards.
+
 Beside the files: interim/shards/<chunk>.json (steps.formats.ShardStats: each file's rows,
 bytes and SHA-256; rows per kind; ids held by blocks; figures per input file) and
 interim/shards/<chunk>.ids.parquet (occurrences of each id per split, <s> once per document
@@ -46,14 +50,26 @@ from .formats import (
     enabled_kinds,
     file_sha256,
     id_type_name,
+    provenance_metadata,
+    provenance_step,
     read_vocabulary,
     shard_metadata,
     shard_schema,
 )  # fmt: skip
 from .layout import SPLITS, Layout
+from .provenance import DocumentWriter, RunWriter
 from .split import order_keys
 from .storage import ParquetSink, write_json, write_table
-from .windows import CorpusBlocks, document_block_coverage, document_blocks, document_streams, ngram_windows
+from .windows import (
+    CorpusBlocks,
+    document_block_coverage,
+    document_block_starts,
+    document_blocks,
+    document_streams,
+    ngram_rows,
+    ngram_target_positions,
+    ngram_windows,
+)  # fmt: skip
 
 RULE = "shards"
 SECTIONS = ("shards", "units", "vocabulary.unknown", "windows")
@@ -67,7 +83,8 @@ ID_COUNTS_SCHEMA = pa.schema([("split", pa.string()), ("id", pa.int64()), ("coun
 
 @dataclass
 class Rows:
-    """The rows of every enabled kind cut from one batch of documents (numpy arrays)."""
+    """The rows of every enabled kind cut from one batch of documents (numpy arrays), and each
+    row's stream position by kind (steps.formats, provenance)."""
 
     context: np.ndarray
     target: np.ndarray
@@ -75,6 +92,7 @@ class Rows:
     doc_ids: list[str]
     streams: np.ndarray
     stream_lengths: np.ndarray
+    positions: dict[str, np.ndarray]
 
 
 class RowCutter:
@@ -93,6 +111,7 @@ class RowCutter:
             else None
         )
         self.stream_ids = self.block_ids = 0
+        self.corpus_block_rows = 0  # blocks cut so far with span: corpus
 
     def cut(self, nested: pa.ListArray, doc_ids: list[str], shuffle: np.random.Generator | None = None) -> Rows:
         """The rows of a batch of documents (their ids as documents → sentences → ids); with
@@ -102,19 +121,44 @@ class RowCutter:
         sentence_lengths = np.diff(sentences.offsets.to_numpy()).astype(np.int64)
         per_doc = np.diff(nested.offsets.to_numpy()).astype(np.int64)
         eos = self.eos if self.ngram["predict_end"] else None
-        context, target = ngram_windows(ids, sentence_lengths, self.ngram["n"], self.bos, eos, shuffle)
+        rows = ngram_rows(sentence_lengths, eos is not None)
+        # Drawn only when there is a window to cut, so the generator runs as it always did and
+        # the train shards keep their bytes.
+        drawn = shuffle is not None and rows + (self.ngram["n"] - 1) * len(sentence_lengths) > 0
+        order = shuffle.permutation(rows) if drawn and shuffle is not None else None
+        context, target = ngram_windows(ids, sentence_lengths, self.ngram["n"], self.bos, eos, order)
+        base = self.stream_ids  # stream position of this batch's first id
+        targets = base + ngram_target_positions(sentence_lengths, per_doc, eos is not None)
         stream, doc_lengths = document_streams(ids, sentence_lengths, per_doc, self.bos, self.eos)
+        length, stride, remainder = self.block["length"], self.block["stride"], self.block["remainder"]
         if self.corpus_blocks is not None:
             blocks = self.corpus_blocks.feed(stream)
+            block_positions = self._corpus_block_positions(len(blocks))
         else:
-            blocks = document_blocks(stream, doc_lengths, self.block["length"], self.block["stride"], self.block["remainder"], self.pad)
-            self.block_ids += document_block_coverage(doc_lengths, self.block["length"], self.block["stride"], self.block["remainder"])
+            blocks = document_blocks(stream, doc_lengths, length, stride, remainder, self.pad)
+            block_positions = base + document_block_starts(doc_lengths, length, stride, remainder)
+            self.block_ids += document_block_coverage(doc_lengths, length, stride, remainder)
         self.stream_ids += len(stream)
-        return Rows(context, target, blocks, doc_ids, stream, doc_lengths)
+        positions = {
+            "ngram": targets if order is None else targets[order],
+            "block": block_positions,
+            "stream": base + np.cumsum(doc_lengths) - doc_lengths,
+        }
+        return Rows(context, target, blocks, doc_ids, stream, doc_lengths, positions)
 
-    def last_blocks(self) -> np.ndarray:
+    def _corpus_block_positions(self, count: int) -> np.ndarray:
+        """Blocks over the joined documents start every `stride` ids from the first."""
+        first = self.corpus_block_rows
+        self.corpus_block_rows += count
+        return (first + np.arange(count, dtype=np.int64)) * self.block["stride"]
+
+    def last_blocks(self) -> tuple[np.ndarray, np.ndarray]:
+        """The padded last block of blocks over joined documents, if any, and its position."""
         width = self.block["length"] + 1
-        return self.corpus_blocks.finish() if self.corpus_blocks is not None else np.empty((0, width), self.dtype)
+        if self.corpus_blocks is None:
+            return np.empty((0, width), self.dtype), np.empty(0, np.int64)
+        blocks = self.corpus_blocks.finish()
+        return blocks, self._corpus_block_positions(len(blocks))
 
     def block_coverage(self) -> int:
         """Stream ids in at least one block, of everything cut (after `last_blocks`)."""
@@ -175,7 +219,7 @@ def chunk_seed(seed: int, chunk: str) -> list[int]:
 
 def train_batches(path: str, removed: pa.Table, column: str, seed: int) -> Iterator[pa.Table]:
     """The chunk's kept train rows, a bounded batch at a time, each in the seeded document order."""
-    for rows in split_groups(path, "train", removed, ["doc_id", "doc_hash", "source", column], BATCH_BYTES):
+    for rows in split_groups(path, "train", removed, ["doc_id", "doc_hash", "source", "offset", column], BATCH_BYTES):
         order = np.lexsort((np.arange(rows.num_rows), order_keys(rows["doc_hash"].to_numpy(), seed)))
         yield rows.take(pa.array(order))
 
@@ -206,6 +250,9 @@ def write_chunk(layout: Layout, chunk: str, removed: pa.Table, encoder: Encoder,
         schemas = {kind: shard_schema(kind, id_type, windows).with_metadata(shard_metadata(split, kind, chunk, vocabulary, windows)) for kind in kinds}
         sinks = {kind: ParquetSink(layout.shard(split, kind, chunk), schemas[kind], **codec) for kind in kinds}
         writers = {kind: RowGroups(sink, group) for kind, sink in sinks.items()}
+        steps = {kind: provenance_step(kind, windows) for kind in kinds}
+        origins = {kind: RunWriter(layout.provenance(split, kind, chunk), provenance_metadata(split, kind, chunk, steps[kind]), steps[kind]) for kind in kinds}
+        documents = DocumentWriter(layout.provenance_documents(split, chunk))
         cutter = RowCutter(windows, vocabulary, np.dtype(id_type))
         try:
             if split == "train":
@@ -213,23 +260,31 @@ def write_chunk(layout: Layout, chunk: str, removed: pa.Table, encoder: Encoder,
                 batches = train_batches(prepared, removed, encoder.column, shards["seed"])
             else:
                 rng = None
-                batches = kept_batches(prepared, split, removed, ["doc_id", "source", encoder.column], BATCH_BYTES)
+                batches = kept_batches(prepared, split, removed, ["doc_id", "source", "offset", encoder.column], BATCH_BYTES)
             for rows in batches:
                 nested = encoder.encode(rows, split, stats)
                 counts[split] += id_counts(nested, vocabulary.size)
                 cut = cutter.cut(nested, rows["doc_id"].to_pylist(), shuffle=rng)
                 if rng is not None:
-                    cut.blocks = cut.blocks[rng.permutation(len(cut.blocks))]
+                    order = rng.permutation(len(cut.blocks))
+                    cut.blocks, cut.positions["block"] = cut.blocks[order], cut.positions["block"][order]
+                documents.add(rows, nested, cut.positions["stream"])
                 for kind in kinds:
                     writers[kind].write(kind_table(kind, cut, schemas[kind]))
+                    origins[kind].add(cut.positions[kind])
             if "block" in kinds:
-                tail = Rows(np.empty((0, 1)), np.empty(0), cutter.last_blocks(), [], np.empty(0), np.empty(0, np.int64))
+                last, position = cutter.last_blocks()
+                tail = Rows(np.empty((0, 1)), np.empty(0), last, [], np.empty(0), np.empty(0, np.int64), {"block": position})
                 writers["block"].write(kind_table("block", tail, schemas["block"]))
+                origins["block"].add(position)
             for kind_writer in writers.values():
                 kind_writer.flush()
         except BaseException:
             for sink in sinks.values():
                 sink.abort()
+            for origin in origins.values():
+                origin.abort()
+            documents.abort()
             raise
         for kind, sink in sinks.items():
             sink.close()
@@ -237,6 +292,11 @@ def write_chunk(layout: Layout, chunk: str, removed: pa.Table, encoder: Encoder,
             relative = Path(path).relative_to(layout.root).as_posix()
             stats.files.append(ShardFile(relative, split, kind, chunk, sink.rows, Path(path).stat().st_size, file_sha256(path)))
             stats.rows.setdefault(split, {})[kind] = sink.rows
+        for origin in origins.values():
+            origin.close()
+        documents.close()
+        for path in [*(layout.provenance(split, kind, chunk) for kind in kinds), layout.provenance_documents(split, chunk)]:
+            stats.provenance[Path(path).relative_to(layout.root).as_posix()] = file_sha256(path)
         if "block" in kinds:
             stats.block_ids[split], stats.stream_ids[split] = cutter.block_coverage(), cutter.stream_ids
     return stats, counts

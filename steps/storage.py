@@ -43,7 +43,14 @@ class ParquetSink:
     """A Parquet file written row group by row group, renamed into place on `close`."""
 
     def __init__(
-        self, path: str | Path, schema: pa.Schema, *, compression: str = "zstd", level: int | None = 3, dictionary: bool = True
+        self,
+        path: str | Path,
+        schema: pa.Schema,
+        *,
+        compression: str = "zstd",
+        level: int | None = 3,
+        dictionary: bool = True,
+        encodings: dict[str, str] | None = None,
     ) -> None:
         self._target = Path(path)
         self._target.parent.mkdir(parents=True, exist_ok=True)
@@ -56,6 +63,7 @@ class ParquetSink:
             compression_level=level if codec in ("zstd", "gzip") else None,
             write_statistics=True,
             use_dictionary=dictionary,
+            column_encoding=encodings,
         )
         self.rows = 0
 

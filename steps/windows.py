@@ -25,11 +25,16 @@ def _within(lengths: np.ndarray) -> np.ndarray:
     return np.arange(total, dtype=np.int64) - np.repeat(_segment_starts(lengths), lengths)
 
 
+def ngram_rows(sentence_lengths: np.ndarray, predict_end: bool) -> int:
+    """How many n-gram windows sentences of these lengths give."""
+    return int(sentence_lengths.sum()) + (len(sentence_lengths) if predict_end else 0)
+
+
 def ngram_windows(
-    ids: np.ndarray, sentence_lengths: np.ndarray, n: int, bos: int, eos: int | None, shuffle: np.random.Generator | None = None
+    ids: np.ndarray, sentence_lengths: np.ndarray, n: int, bos: int, eos: int | None, order: np.ndarray | None = None
 ) -> tuple[np.ndarray, np.ndarray]:
     """(context [rows, n-1], target [rows]) for sentences laid end to end in `ids`, both
-    C-contiguous; with `shuffle`, rows in the order of `shuffle.permutation(rows)`, gathered once."""
+    C-contiguous; with `order` (a permutation of the rows), rows in that order, gathered once."""
     lengths = sentence_lengths.astype(np.int64)
     extra = 1 if eos is not None else 0
     targets = lengths + extra
@@ -42,9 +47,25 @@ def ngram_windows(
     if not len(padded):
         return np.empty((0, n - 1), ids.dtype), np.empty(0, ids.dtype)
     picks = np.repeat(starts, targets) + _within(targets)
-    if shuffle is not None:
-        picks = picks[shuffle.permutation(len(picks))]
+    if order is not None:
+        picks = picks[order]
     return sliding_window_view(padded, n - 1)[picks], padded[picks + (n - 1)]
+
+
+def _sentence_starts(lengths: np.ndarray, per_doc: np.ndarray) -> np.ndarray:
+    """Where each sentence's first id lies in the documents' streams laid end to end: every
+    sentence takes its ids plus one </s>, every document one leading <s>."""
+    doc_of_sentence = np.repeat(np.arange(len(per_doc)), per_doc)
+    return _segment_starts(lengths + 1) + doc_of_sentence + 1
+
+
+def ngram_target_positions(sentence_lengths: np.ndarray, sentences_per_document: np.ndarray, predict_end: bool) -> np.ndarray:
+    """Where the target of each `ngram_windows` row (unshuffled) lies in `document_streams`'
+    stream: a token's own place, a </s> target its sentence's </s>."""
+    lengths = sentence_lengths.astype(np.int64)
+    targets = lengths + (1 if predict_end else 0)
+    starts = _sentence_starts(lengths, sentences_per_document.astype(np.int64))
+    return np.repeat(starts, targets) + _within(targets)
 
 
 def document_streams(
@@ -54,9 +75,8 @@ def document_streams(
     lengths = sentence_lengths.astype(np.int64)
     per_doc = sentences_per_document.astype(np.int64)
     doc_of_sentence = np.repeat(np.arange(len(per_doc)), per_doc)
-    # Every sentence takes its ids plus one </s>; every document one leading <s>.
     sentence_room = lengths + 1
-    sentence_start = _segment_starts(sentence_room) + doc_of_sentence + 1
+    sentence_start = _sentence_starts(lengths, per_doc)
     doc_lengths = np.bincount(doc_of_sentence, weights=sentence_room, minlength=len(per_doc)).astype(np.int64) + 1
     stream = np.empty(int(doc_lengths.sum()), dtype=ids.dtype)
     stream[_segment_starts(doc_lengths)] = bos
@@ -71,20 +91,30 @@ def _block_starts(length: int, span: int, stride: int) -> np.ndarray:
     return np.arange(full, dtype=np.int64) * stride
 
 
+def _document_block_layout(doc_lengths: np.ndarray, length: int, stride: int, remainder: str) -> tuple[np.ndarray, np.ndarray]:
+    """(start, end of its document) in the stream of every block of `document_blocks`."""
+    span = length + 1
+    doc_lengths = np.asarray(doc_lengths, dtype=np.int64)
+    doc_starts = _segment_starts(doc_lengths)
+    full = np.where(doc_lengths >= span, (doc_lengths - span) // stride + 1, 0)
+    counts = full + ((remainder == "pad") & (doc_lengths - full * stride >= 2))
+    starts = np.repeat(doc_starts, counts) + _within(counts) * stride
+    return starts, np.repeat(doc_starts + doc_lengths, counts)
+
+
+def document_block_starts(doc_lengths: np.ndarray, length: int, stride: int, remainder: str) -> np.ndarray:
+    """Where each block of `document_blocks` starts in the stream."""
+    return _document_block_layout(doc_lengths, length, stride, remainder)[0]
+
+
 def document_blocks(
     stream: np.ndarray, doc_lengths: np.ndarray, length: int, stride: int, remainder: str, pad_id: int
 ) -> np.ndarray:
     """Blocks of length+1 ids that never cross a document, [rows, length+1]."""
     span = length + 1
-    pad = remainder == "pad"
-    doc_starts = _segment_starts(doc_lengths)
-    full = np.where(doc_lengths >= span, (doc_lengths - span) // stride + 1, 0)
-    counts = full + (pad & (doc_lengths - full * stride >= 2))
-    if not counts.sum():
+    starts, ends = _document_block_layout(doc_lengths, length, stride, remainder)
+    if not len(starts):
         return np.empty((0, span), stream.dtype)
-    local = _within(counts) * stride
-    starts = np.repeat(doc_starts, counts) + local
-    ends = np.repeat(doc_starts + doc_lengths, counts)
     padded = np.concatenate([stream, np.full(span, pad_id, stream.dtype)])
     blocks = sliding_window_view(padded, span)[starts].copy()
     overflow = np.arange(span)[None, :] >= (ends - starts)[:, None]

@@ -13,8 +13,9 @@ from tests.test_audit import build
 
 
 def digests(build_dir: Path) -> dict[str, str]:
-    """SHA-256 of every shard, the vocabulary, the token counts, coverage and the manifest."""
-    chosen = [*sorted((build_dir / "shards").rglob("*.parquet")), build_dir / "vocabulary.tsv", build_dir / "manifest.json",
+    """SHA-256 of every shard and provenance table, the vocabulary, the token counts, coverage and the manifest."""
+    tables = [*sorted((build_dir / "shards").rglob("*.parquet")), *sorted((build_dir / "provenance").rglob("*.parquet"))]
+    chosen = [*tables, build_dir / "vocabulary.tsv", build_dir / "manifest.json",
               build_dir / "stats" / "token_counts.parquet", build_dir / "stats" / "coverage.json"]  # fmt: skip
     return {p.relative_to(build_dir).as_posix(): hashlib.sha256(p.read_bytes()).hexdigest() for p in chosen}
 

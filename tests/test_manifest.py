@@ -117,7 +117,9 @@ def test_the_vocabulary_entry_describes_vocabulary_tsv(demo_chunks_build: Path, 
         "words": sum(kind == "word" for *_, kind in rows),
         "reserved": {token: int(number) for number, token, _, kind in rows if kind in ("reserved", "unknown")},
     }  # fmt: skip
-    assert manifest["files"] == {name: sha256(demo_chunks_build / name) for name in ("stats/coverage.json", "stats/baseline.json")}
+    listed = [demo_chunks_build / "stats" / "coverage.json", demo_chunks_build / "stats" / "baseline.json"]  # the baseline: on by default
+    provenance = sorted((demo_chunks_build / "provenance").rglob("*.parquet"))
+    assert provenance and manifest["files"] == {p.relative_to(demo_chunks_build).as_posix(): sha256(p) for p in [*listed, *provenance]}
 
 
 def test_the_accounting_sums_the_chunk_tallies_and_keeps_what_the_shards_hold(demo_chunks_build: Path, manifest: dict) -> None:

@@ -32,12 +32,12 @@ def test_ngram_windows_match_the_reference(n, eos):
     assert list(zip(map(tuple, context.tolist()), target.tolist())) == reference_windows(sentences, n, eos)
 
 
-def test_shuffled_windows_are_the_windows_in_the_generator_order():
+def test_windows_in_a_given_order_are_the_windows_taken_in_that_order():
     sentences = [[10, 11, 12, 13, 14], [20], [30, 31]]
     ids, lengths = np.array([i for s in sentences for i in s], np.uint32), np.array([len(s) for s in sentences])
     context, target = ngram_windows(ids, lengths, 3, BOS, EOS)
     order = np.random.default_rng(7).permutation(len(target))
-    shuffled_context, shuffled_target = ngram_windows(ids, lengths, 3, BOS, EOS, np.random.default_rng(7))
+    shuffled_context, shuffled_target = ngram_windows(ids, lengths, 3, BOS, EOS, order)
     assert shuffled_context.tolist() == context[order].tolist() and shuffled_target.tolist() == target[order].tolist()
     assert shuffled_context.flags.c_contiguous and shuffled_target.flags.c_contiguous and shuffled_target.dtype == np.uint32
 

@@ -35,7 +35,8 @@ def test_the_files_at_the_top_of_the_build_agree_with_the_manifest(demo_build: P
     figures, and growth.json ends at the train token count."""
     recorded = manifest(demo_build)
     assert sha256(demo_build / "vocabulary.tsv") == recorded["vocabulary"]["sha256"]
-    assert recorded["files"] == {name: sha256(demo_build / name) for name in ("stats/coverage.json", "stats/baseline.json")}
+    listed = [demo_build / "stats" / "coverage.json", demo_build / "stats" / "baseline.json", *sorted((demo_build / "provenance").rglob("*.parquet"))]
+    assert recorded["files"] == {path.relative_to(demo_build).as_posix(): sha256(path) for path in listed}
     counts = pq.read_table(demo_build / "stats" / "token_counts.parquet")
     assert counts.column_names == ["token", "train", "dev", "test"]
     for split in ("train", "dev", "test"):
@@ -237,6 +238,7 @@ def test_disabled_kinds_write_no_files(tmp_path: Path, kinds: dict):
     written = {p.name.split("-")[0] for p in (tmp_path / "build" / "shards").rglob("*.parquet")}
     expected = {"ngram", "block", "stream"} - {{"ngram": "ngram", "blocks": "block", "streams": "stream"}[k] for k in kinds}
     assert written == expected
+    assert {p.name.split("-")[0] for p in (tmp_path / "build" / "provenance").rglob("*.parquet")} == expected | {"documents"}
 
 
 def test_blocks_that_hold_little_of_train_are_flagged_in_the_summary_and_the_report(tmp_path: Path):
