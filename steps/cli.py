@@ -12,6 +12,7 @@ COMMANDS = {
     "audit": ("audit", "main", "check a build folder against its manifest"),
     "baseline": ("baseline", "command", "n-gram (Kneser-Ney) perplexity of every split: the baseline to beat"),
     "cutoffs": ("cutoffs", "main", "what a different vocabulary cutoff would give, from the stored counts"),
+    "hygiene": ("hygiene", "command", "near-duplicate clusters and contaminated dev/test documents, with their text"),
     "progress": ("progress", "main", "where each running job of a build is, from its log"),
 }
 
