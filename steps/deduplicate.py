@@ -210,8 +210,8 @@ def main(argv: list[str] | None = None) -> None:
     if repeats:
         raise SystemExit(repeated_ids_message(repeats, run.options["corpus"]["repeated_ids"] == "by_file"))
     empty = np.zeros(0, np.int64)
-    found = first_occurrences(corpus.words) if run.options["split"]["deduplicate"] else (empty, empty)
-    table, chunk_of = find_duplicates(corpus, found)
+    found = first_occurrences(corpus.words)
+    table, chunk_of = find_duplicates(corpus, found if run.options["split"]["deduplicate"] else (empty, empty))
     write_table(layout.duplicates, table)
     signed = hygiene.CorpusSignatures([(layout.signatures(chunk), layout.verification(chunk)) for chunk in chunks])
     if not np.array_equal(signed.starts, corpus.starts):
@@ -219,9 +219,7 @@ def main(argv: list[str] | None = None) -> None:
             f"corpusmill: the signature files under {Path(layout.signatures(chunks[0])).parent} do not match the prepared chunks: "
             "rerun the prepare jobs (snakemake --forcerun prepare)"
         )
-    excluded = np.zeros(len(corpus.words), dtype=bool)
-    excluded[found[0]] = True
-    findings = hygiene.measure(signed, corpus.words, excluded, run.options)
+    findings = hygiene.measure(signed, corpus.words, found, run.options)
     drops, drop_chunk_of = hygiene.write_findings(layout, chunks, corpus.locate, signed, findings, run.options)
     del corpus, signed
     counted = []

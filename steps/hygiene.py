@@ -158,11 +158,15 @@ class Findings:
         return rows[order], [reasons[i] for i in order], of[order]
 
 
-def measure(signed: CorpusSignatures, fingerprints: np.ndarray, excluded: np.ndarray, options: dict) -> Findings:
-    """Clusters, the policy's drops and the contamination shares (see the module docstring);
-    `excluded` marks the rows already removed as exact duplicates."""
+def measure(signed: CorpusSignatures, fingerprints: np.ndarray, copies: tuple[np.ndarray, np.ndarray], options: dict) -> Findings:
+    """Clusters, the policy's drops and the contamination shares (see the module docstring).
+    `copies`: the rows repeating an earlier row's text, and that row (steps.deduplicate.
+    first_occurrences); removed already under split.deduplicate, else kept with their first
+    row's cluster and fate."""
     near, dirty = options["near_duplicates"], options["contamination"]
     size = len(signed)
+    excluded = np.zeros(size, dtype=bool)
+    excluded[copies[0]] = True
     digests = signed.digests()
     digests[excluded] = 0
 
@@ -187,7 +191,11 @@ def measure(signed: CorpusSignatures, fingerprints: np.ndarray, excluded: np.nda
         if near["policy"] == "off":
             kept = np.ones(len(members), dtype=bool)
     anchors = members[anchor_index]
-    removed = excluded.copy()
+    deduplicated = options["split"]["deduplicate"]
+    if not deduplicated:
+        members, labels, anchors, kept = _with_copies(members, labels, anchors, kept, copies, signed.splits, near["policy"])
+    splits = signed.splits[members]
+    removed = excluded if deduplicated else np.zeros(size, dtype=bool)
     removed[members[~kept]] = True
     measured, grams, shared = _contamination(signed, removed)
     share = audit.shares(shared, np.concatenate([[0], np.cumsum(grams)]))
@@ -203,6 +211,23 @@ def measure(signed: CorpusSignatures, fingerprints: np.ndarray, excluded: np.nda
         "compared_pairs": stats.compared, "confirmed_pairs": stats.confirmed, "long_runs": stats.long_runs,
     }  # fmt: skip
     return findings
+
+
+def _with_copies(
+    members: np.ndarray, labels: np.ndarray, anchors: np.ndarray, kept: np.ndarray, copies: tuple[np.ndarray, np.ndarray], splits: np.ndarray,
+    policy: str,
+) -> tuple[np.ndarray, np.ndarray, np.ndarray, np.ndarray]:
+    """The members with the kept exact copies of members added (split.deduplicate: false): each
+    in its first row's cluster with its anchor, kept as that row is (same_split: when in the
+    anchor's split)."""
+    rows, owners = copies
+    position = np.searchsorted(members, owners)
+    inside = members[np.minimum(position, max(len(members) - 1, 0))] == owners if len(members) else np.zeros(len(owners), dtype=bool)
+    rows, position = rows[inside], position[inside]
+    copy_kept = splits[rows] == splits[anchors[position]] if policy == "same_split" else kept[position]
+    order = np.argsort(np.concatenate([members, rows]), kind="stable")
+    return (np.concatenate([members, rows])[order], np.concatenate([labels, labels[position]])[order],
+            np.concatenate([anchors, anchors[position]])[order], np.concatenate([kept, copy_kept])[order])  # fmt: skip
 
 
 def _splits_per_cluster(labels: np.ndarray, splits: np.ndarray) -> np.ndarray:

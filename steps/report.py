@@ -22,6 +22,7 @@ import heapq
 import html
 import io
 from collections.abc import Callable, Sequence
+from pathlib import Path
 
 import matplotlib
 
@@ -629,7 +630,7 @@ def main(argv: list[str] | None = None) -> None:
     layout = run.layout
     text = render(
         read_json(layout.coverage), read_json(layout.manifest), pq.ParquetFile(layout.token_counts).read(use_threads=False),
-        read_growth(layout.growth), run.options, (read_json(layout.hygiene), layout.root),
+        read_growth(layout.growth), run.options, (read_json(layout.hygiene), layout.root) if Path(layout.hygiene).exists() else None,
     )  # fmt: skip
     write_text(layout.report, text)
     print(f"report: {layout.report} ({len(text):,} bytes)")

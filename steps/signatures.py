@@ -13,6 +13,7 @@ from __future__ import annotations
 
 from contextlib import ExitStack
 from dataclasses import dataclass
+from types import TracebackType
 from typing import BinaryIO
 
 import numpy as np
@@ -80,5 +81,5 @@ class SignatureWriter:
     def __enter__(self) -> SignatureWriter:
         return self
 
-    def __exit__(self, *error: object) -> None:
-        self._stack.__exit__(*error)
+    def __exit__(self, kind: type[BaseException] | None, error: BaseException | None, trace: TracebackType | None) -> None:
+        self._stack.__exit__(kind, error, trace)
