@@ -135,6 +135,10 @@ def resolve(raw: dict[str, Any]) -> dict[str, Any]:
         )
     _check_finite(raw)
     config = _unshared(dict(raw))
+    # YAML 1.1 (PyYAML, Snakemake) reads an unquoted `off` as false: `policy: off` means "off".
+    near = config.get("near_duplicates")
+    if isinstance(near, dict) and near.get("policy") is False:
+        near["policy"] = "off"
     schema = load_schema()
     _fill_defaults(config, schema)
     validator = jsonschema.Draft202012Validator(schema)

@@ -20,8 +20,10 @@ import pyarrow.compute as pc
 import pyarrow.parquet as pq
 import pytest
 import regex
+import yaml
 
 from conftest import REPO, require_file, run_workflow
+from corpusmill import settings
 from corpusmill.layout import Layout
 
 FORTUNES = Path("/usr/share/games/fortunes")
@@ -263,3 +265,15 @@ def test_growing_the_corpus_never_moves_a_kept_document_and_drops_one_only_for_a
         assert not dropped_before & set(kept)
         before, anchors_before = kept, anchors
         dropped_before = {document for document, reason in reasons.items() if reason in HYGIENE_REASONS}
+
+
+def test_an_unquoted_off_policy_read_by_yaml_as_false_means_off() -> None:
+    """YAML 1.1 (PyYAML, as Snakemake reads config files) turns `policy: off` into false."""
+    raw = yaml.safe_load("near_duplicates:\n  policy: off\n")
+    assert raw["near_duplicates"]["policy"] is False
+    assert settings.resolve(raw)["near_duplicates"]["policy"] == "off"
+
+
+def test_bands_that_do_not_divide_the_permutations_stop_the_run_naming_both_options() -> None:
+    with pytest.raises(settings.ConfigError, match=r"near_duplicates\.bands = 12 does not divide near_duplicates\.permutations = 128"):
+        settings.resolve({"near_duplicates": {"bands": 12}})
