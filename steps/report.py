@@ -358,7 +358,7 @@ def _distribution_row(name: str, figures: dict) -> list[object]:
     ] + [_share(figures["max"]), figures["at_or_above_threshold"]]
 
 
-def hygiene_section(hygiene: dict, build: str) -> tuple[str, str, str]:
+def hygiene_section(hygiene: dict) -> tuple[str, str, str]:
     """Near-duplicate clusters and what the policy dropped; the share of each dev and test
     document's n-grams found in train (distribution, the documents at or above the threshold,
     per source file), from stats/hygiene.json."""
@@ -375,7 +375,7 @@ def hygiene_section(hygiene: dict, build: str) -> tuple[str, str, str]:
     headers = ["documents", "measured", "with a shared n-gram", "mean", "median", "90 %", "99 %", "max", f"≥ {dirty['threshold']:g}"]
     distribution = [_distribution_row("dev and test", dirty)] + [_distribution_row(split, figures) for split, figures in dirty["by_split"].items()]
     bins = [[Shown(f"{low / 10:.1f}–{(low + 1) / 10:.1f}"), count] for low, count in enumerate(dirty["histogram"])]
-    listed = [[FileName(row["source"]), row["offset"], row["split"], _share(row["share"]), row["dropped"]] for row in dirty["listed"]]
+    listed = [[FileName(row["source"]), Shown(str(row["offset"])), row["split"], _share(row["share"]), row["dropped"]] for row in dirty["listed"]]
     above = dirty["at_or_above_threshold"]
     more = (f"<p>{above - len(listed):,} more are in <code>stats/contamination.parquet</code>.</p>" if above > len(listed) else "")
     by_source = sorted(hygiene["contamination_by_source"].items(), key=lambda item: (-item[1]["at_or_above_threshold"], -(item[1]["mean"] or 0.0), item[0]))
@@ -398,8 +398,8 @@ def hygiene_section(hygiene: dict, build: str) -> tuple[str, str, str]:
         if listed else "",
         "<h3>By source file</h3>" + table(["file", "measured", "with a shared n-gram", "mean", "max", f"≥ {dirty['threshold']:g}"], source_rows)
         + left_out(len(by_source), len(source_rows), "<code>stats/hygiene.json</code>") if source_rows else "",
-        f"<p>Every cluster member and every measured document are in <code>stats/near_duplicates.parquet</code> and "
-        f"<code>stats/contamination.parquet</code>; <code>corpusmill hygiene {html.escape(build)}</code> lists them with their text.</p>",
+        "<p>Every cluster member and every measured document are in <code>stats/near_duplicates.parquet</code> and "
+        "<code>stats/contamination.parquet</code>; <code>corpusmill hygiene BUILD</code> (the build folder) lists them with their text.</p>",
     ]))
 
 
@@ -571,7 +571,7 @@ def unknown_section(coverage: dict, unit: str) -> tuple[str, str, str]:
 
 
 def render(
-    coverage: dict, manifest: dict, counts: pa.Table, growth: tuple[np.ndarray, np.ndarray], options: dict, hygiene: tuple[dict, str] | None = None
+    coverage: dict, manifest: dict, counts: pa.Table, growth: tuple[np.ndarray, np.ndarray], options: dict, hygiene: dict | None = None
 ) -> str:
     """The whole page as one HTML string: the section that describes the vocabulary (a word
     cutoff or a piece model), then what every build has."""
@@ -610,7 +610,7 @@ def render(
     sections += later
     sections.append(accounting_section(manifest, unit))
     if hygiene is not None:
-        sections.append(hygiene_section(*hygiene))
+        sections.append(hygiene_section(hygiene))
     if "baseline" in manifest:
         sections.append(baseline_section(manifest["baseline"]))
     sections.append(sizing_section(size, options, "pieces" if pieces else "words"))
@@ -630,7 +630,7 @@ def main(argv: list[str] | None = None) -> None:
     layout = run.layout
     text = render(
         read_json(layout.coverage), read_json(layout.manifest), pq.ParquetFile(layout.token_counts).read(use_threads=False),
-        read_growth(layout.growth), run.options, (read_json(layout.hygiene), layout.root) if Path(layout.hygiene).exists() else None,
+        read_growth(layout.growth), run.options, read_json(layout.hygiene) if Path(layout.hygiene).exists() else None,
     )  # fmt: skip
     write_text(layout.report, text)
     print(f"report: {layout.report} ({len(text):,} bytes)")

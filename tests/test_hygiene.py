@@ -228,7 +228,13 @@ def test_contamination_drop_removes_and_counts_the_documents_above_the_threshold
     assert dropped == above and not above & set(kept_documents(build_dir))
     manifest = json.loads((build_dir / "manifest.json").read_text())
     assert manifest["accounting"]["dropped"]["contaminated"] == manifest["contamination"]["dropped"] == len(above)
-    assert f"dropped {len(above):,}" in result.stderr
+    assert f"{len(above):,} of {len(measured):,} dev/test documents at or above 0.5" in result.stderr and f"dropped {len(above):,}" in result.stderr
+    page = (build_dir / "report" / "index.html").read_text()
+    for row in measured:
+        if (row["source"], row["offset"]) in above:
+            cells = f'<td class="file">{row["source"]}</td><td class="n">{row["offset"]}</td><td>{row["split"]}</td>'
+            assert cells + f'<td class="n">{row["share"]:.3f}</td><td>yes</td>' in page
+    assert manifest["contamination"]["at_or_above_threshold"] == len(above) and "<h3>By source file</h3>" in page
 
 
 def test_growing_the_corpus_never_moves_a_kept_document_and_drops_one_only_for_a_new_anchor(tmp_path: Path) -> None:
