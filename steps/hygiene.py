@@ -12,14 +12,19 @@ Clusters: steps.near_duplicates.cluster over the band keys, one band column in m
 time, verification slots fetched from each chunk's memory-mapped slot file. Policy
 (near_duplicates.policy, rule and guarantee in steps.near_duplicates): "drop" drops every member
 but the anchor (reason near_duplicate); "same_split" drops the members outside the anchor's
-split (near_duplicate_other_split); "off" drops none. A dropped document is recorded with its
-anchor.
+split (near_duplicate_other_split); "off" drops none. stats/near_duplicates.parquet names
+every member's cluster and anchor.
 
 Contamination, after those drops: every dev and test document still kept, against the train
 documents still kept. The held-out documents' n-gram hashes are gathered and their distinct set
 built; each chunk's kept train grams are looked up in that set and only the hits kept
 (steps.contamination.TrainGrams), so memory follows the size of dev and test, not of train.
 With contamination.drop, documents at or above the threshold are dropped (contaminated).
+
+Memory: what steps.near_duplicates.cluster holds (about 50 bytes a document), each chunk's order
+and the splits (9 bytes a document), the cluster members' and measured documents' places
+(file, offset, id) for the files written, and the dev and test grams (8 bytes a word); the
+verification slots stay on disk, memory-mapped, their pages reclaimable.
 """
 
 from __future__ import annotations
@@ -52,7 +57,7 @@ LISTED = 100
 # documents' grams are read at once.
 GRAM_ROWS = 1 << 14
 
-DROPS_SCHEMA = pa.schema([("source", pa.string()), ("offset", pa.int64()), ("doc_id", pa.string()), ("reason", pa.string()), ("of", pa.string())])
+DROPS_SCHEMA = pa.schema([("source", pa.string()), ("offset", pa.int64()), ("doc_id", pa.string()), ("reason", pa.string())])
 CLUSTERS_SCHEMA = pa.schema(
     [("cluster", pa.int64()), ("chunk", pa.string()), ("source", pa.string()), ("offset", pa.int64()), ("doc_id", pa.string()),
      ("split", pa.string()), ("anchor", pa.bool_()), ("kept", pa.bool_()), ("reason", pa.string())]
@@ -147,15 +152,6 @@ class Findings:
     contaminated_dropped: np.ndarray  # bool per measured row
     figures: dict = field(default_factory=dict)
 
-    def drops(self) -> tuple[np.ndarray, list[str], np.ndarray]:
-        """(rows, reasons, of-rows; -1 for none) of every document dropped here, ascending."""
-        near = self.members[~self.kept]
-        dirty = self.measured[self.contaminated_dropped]
-        rows = np.concatenate([near, dirty])
-        of = np.concatenate([self.anchors[~self.kept], np.full(len(dirty), -1)])
-        reasons = [self.reason] * len(near) + ["contaminated"] * len(dirty)
-        order = np.argsort(rows, kind="stable")
-        return rows[order], [reasons[i] for i in order], of[order]
 
 
 def measure(signed: CorpusSignatures, fingerprints: np.ndarray, copies: tuple[np.ndarray, np.ndarray], options: dict) -> Findings:
@@ -276,27 +272,27 @@ def write_findings(
     layout: Layout, chunks: list[str], locate: Callable[[np.ndarray], pa.Table], signed: CorpusSignatures, findings: Findings, options: dict
 ) -> tuple[pa.Table, np.ndarray]:
     """Write the clusters, the contamination shares, the figures (stats/) and the documents
-    dropped here (interim/); returns those (source, offset, doc_id, reason, of) and the chunk
+    dropped here (interim/); returns those (source, offset, doc_id, reason) and the chunk
     (position in `chunks`) of each."""
     dirty = options["contamination"]
-    keys = np.array(chunks, dtype=object)
+    keys, split_names = pa.array(chunks, pa.string()), pa.array(SPLITS)
     members = findings.members
     located = locate(np.concatenate([members, findings.measured]))
     placed, measured = located.slice(0, len(members)), located.slice(len(members))
     cluster_ids = np.unique(findings.labels, return_inverse=True)[1] + 1
     member_split = signed.splits[members]
     write_table(layout.clusters, pa.Table.from_arrays(
-        [pa.array(cluster_ids.astype(np.int64)), pa.array(keys[signed.chunk_of(members)].tolist(), pa.string()), placed["source"],
-         placed["offset"], placed["doc_id"], pa.array(np.array(SPLITS)[member_split].tolist(), pa.string()),
+        [pa.array(cluster_ids.astype(np.int64)), keys.take(pa.array(signed.chunk_of(members))), placed["source"],
+         placed["offset"], placed["doc_id"], split_names.take(pa.array(member_split)),
          pa.array(members == findings.anchors), pa.array(findings.kept),
-         pa.array(["" if kept else findings.reason for kept in findings.kept.tolist()], pa.string())],
+         pa.array(["", findings.reason]).take(pa.array((~findings.kept).astype(np.int8)))],
         schema=CLUSTERS_SCHEMA,
     ).sort_by([("cluster", "ascending"), ("source", "ascending"), ("offset", "ascending")]))  # fmt: skip
     share = audit.shares(findings.shared, np.concatenate([[0], np.cumsum(findings.grams)]))
     held_split = signed.splits[findings.measured]
     contaminated = pa.Table.from_arrays(
-        [pa.array(keys[signed.chunk_of(findings.measured)].tolist(), pa.string()), measured["source"], measured["offset"], measured["doc_id"],
-         pa.array(np.array(SPLITS)[held_split].tolist(), pa.string()), pa.array(findings.grams.astype(np.int64)),
+        [keys.take(pa.array(signed.chunk_of(findings.measured))), measured["source"], measured["offset"], measured["doc_id"],
+         split_names.take(pa.array(held_split)), pa.array(findings.grams.astype(np.int64)),
          pa.array(findings.shared.astype(np.int64)), pa.array(share), pa.array(findings.contaminated_dropped)],
         schema=CONTAMINATION_SCHEMA,
     )  # fmt: skip
@@ -312,17 +308,18 @@ def write_findings(
         "near_duplicates": findings.figures, "contamination": figures, "contamination_by_source": by_source,
         "ngram_words": dirty["ngram_words"],
     })  # fmt: skip
-    rows, reasons, of = findings.drops()
-    dropped = locate(rows)
-    anchors = locate(of[of >= 0])["doc_id"].to_pylist()
-    named = iter(anchors)
+    # The dropped documents, taken from the rows located above (members, then measured).
+    near, dirty = np.flatnonzero(~findings.kept), np.flatnonzero(findings.contaminated_dropped)
+    rows = np.concatenate([members[near], findings.measured[dirty]])
+    order = np.argsort(rows, kind="stable")
+    code = REASONS.index(findings.reason) if findings.reason else 0
+    reasons = np.concatenate([np.full(len(near), code), np.full(len(dirty), REASONS.index("contaminated"))])[order]
+    dropped = located.take(pa.array(np.concatenate([near, len(members) + dirty])[order]))
     table = pa.Table.from_arrays(
-        [dropped["source"], dropped["offset"], dropped["doc_id"], pa.array(reasons, pa.string()),
-         pa.array([next(named) if row >= 0 else "" for row in of.tolist()], pa.string())],
-        schema=DROPS_SCHEMA,
-    )  # fmt: skip
+        [dropped["source"], dropped["offset"], dropped["doc_id"], pa.array(REASONS).take(pa.array(reasons))], schema=DROPS_SCHEMA
+    )
     write_table(layout.hygiene_drops, table)
-    return table, signed.chunk_of(rows)
+    return table, signed.chunk_of(rows[order])
 
 
 # ---------------------------------------------------------------- the command
