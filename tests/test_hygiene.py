@@ -11,6 +11,7 @@ from __future__ import annotations
 
 import json
 import random
+import shutil
 import subprocess
 import sys
 from pathlib import Path
@@ -283,3 +284,22 @@ def test_an_unquoted_off_policy_read_by_yaml_as_false_means_off() -> None:
 def test_bands_that_do_not_divide_the_permutations_stop_the_run_naming_both_options() -> None:
     with pytest.raises(settings.ConfigError, match=r"near_duplicates\.bands = 12 does not divide near_duplicates\.permutations = 128"):
         settings.resolve({"near_duplicates": {"bands": 12}})
+
+
+def test_without_deduplication_an_exact_copy_is_dropped_with_its_first_copy(dropped_build, planted, tmp_path: Path) -> None:
+    """split.deduplicate: false keeps exact copies, but a copy of a document dropped as a
+    near-duplicate goes with it: its text is the same, so its fate is too."""
+    members = pq.read_table(dropped_build[0] / "stats" / "near_duplicates.parquet").to_pylist()
+    dropped = {(row["source"], row["offset"]) for row in members if not row["kept"]}
+    source, original, _ = next(pair for pair in planted["pairs"] if pair[:2] in dropped)
+    root = tmp_path / "corpus"
+    shutil.copytree(planted["root"], root)
+    text = (root / source).read_bytes()[original:].split(b"\n\n")[0]
+    (root / "exact.txt").write_bytes(text + b"\n")
+    run_workflow(tmp_path / "work", {"corpus": {"root": str(root)}, "split": {**SPLIT, "deduplicate": False}})
+    build_dir = tmp_path / "work" / "build"
+    rows = {(row["source"], row["offset"]): row for row in pq.read_table(build_dir / "stats" / "near_duplicates.parquet").to_pylist()}
+    first, copy = rows[(source, original)], rows[("exact.txt", 0)]
+    assert first["cluster"] == copy["cluster"] and not first["kept"] and not copy["kept"] and copy["reason"] == "near_duplicate"
+    reasons = {(r["source"], r["offset"]): r["reason"] for r in pq.read_table(build_dir / "stats" / "dropped.parquet").to_pylist()}
+    assert reasons[("exact.txt", 0)] == "near_duplicate" and "duplicate" not in reasons.values()
