@@ -1,6 +1,6 @@
 # corpusmill: raw text folder → cleaned, tokenized, vocabulary-mapped, windowed, split Parquet shards.
 # Stages, in order (rules/*.smk): prepare (per chunk: read, clean, segment, split, count) →
-# deduplicate → vocabulary (word cutoff, or a sentencepiece model learned on train) → shards (per
+# deduplicate (exact and near-duplicates, contamination) → vocabulary (word cutoff, or a sentencepiece model learned on train) → shards (per
 # chunk: ids, rows, files) → vocabulary table, accounting, growth, coverage → manifest → Croissant description,
 # datasheet, report.
 # Each rule runs one step of steps/ (`python -m steps.run MODULE [ENTRY] --build DIR`), which
@@ -104,7 +104,7 @@ onsuccess:
     import threading
 
     from steps import tidy, worker
-    from steps.summary import format_accounting, format_baseline, format_blocks, format_table
+    from steps.summary import format_accounting, format_baseline, format_blocks, format_hygiene, format_table
 
     # Snakemake starts a 1-second rate-limit timer after each scheduling round and Python waits
     # for it at exit; the run is over, so end it now (0.8-1 s sooner, measured).
@@ -128,6 +128,8 @@ onsuccess:
         print(format_baseline(settings.read_json(L.baseline)), file=sys.stderr)
     if os.path.exists(L.accounting):
         print(format_accounting(settings.read_json(L.accounting), settings.read_json(L.corpus_plan), L.dropped), file=sys.stderr)
+    if os.path.exists(L.hygiene):
+        print(format_hygiene(settings.read_json(L.hygiene), L.root), file=sys.stderr)
 
 
 onerror:

@@ -5,6 +5,7 @@ rule manifest:
         stats=[L.shard_stats(c) for c in PLAN.chunk_keys],
         tallies=[L.tally(c) for c in PLAN.chunk_keys],
         accounting=L.accounting,
+        hygiene=L.hygiene,
         vocabulary=L.vocabulary,
         coverage=L.coverage,
         baseline=[L.baseline] if BASELINE else [],

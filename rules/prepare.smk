@@ -1,4 +1,5 @@
-# Per chunk: read, clean, segment and split its documents (steps/prepare.py). A chunk's files
+# Per chunk: read, clean, segment and split its documents, with their near-duplicate signatures
+# and n-gram hashes (steps/prepare.py). A chunk's files
 # are named in its plan file, the job's input, so a changed file reruns its own chunk. Learned
 # abbreviations (segment.learn_abbreviations) come first and every chunk reads them.
 
@@ -33,6 +34,8 @@ rule prepare:
         tally=L.tally("{chunk}"),
         counts=L.counts("{chunk}"),
         drops=L.drop_log("{chunk}"),
+        signatures=L.signatures("{chunk}"),
+        slots=L.verification("{chunk}"),
     log:
         L.log("prepare", "{chunk}"),
     params:

@@ -7,6 +7,7 @@ rule report:
         manifest=L.manifest,
         token_counts=L.token_counts,
         growth=L.growth,
+        hygiene=L.hygiene,
         options=L.options("report"),
     output:
         report(L.report, category="Vocabulary coverage", labels={"page": "coverage report"}),

@@ -7,6 +7,7 @@ rule accounting:
         tallies=[L.tally(c) for c in PLAN.chunk_keys],
         drop_logs=[L.drop_log(c) for c in PLAN.chunk_keys],
         duplicates=L.duplicates,
+        hygiene_drops=L.hygiene_drops,
         options=L.options("accounting"),
     output:
         summary=L.accounting,

@@ -7,7 +7,8 @@ the configuration says must stop the run (invalid UTF-8 under `stop`, a damaged 
 file, …) is recorded per file instead of ending the job at once, so one run names every bad
 file; the deduplicate job stops the run when any chunk has one.
 
-The `accounting` job merges the chunks' tallies and drop logs with the removed duplicates into
+The `accounting` job merges the chunks' tallies and drop logs with the removed duplicates, and
+the near-duplicates and contaminated documents removed (steps.hygiene), into
 `stats/accounting.json` (totals and per file) and `stats/dropped.parquet` (one row per dropped
 document: source, offset, reason, sorted by source and offset). For every file and in total:
 read + pieces_added = kept + sum(dropped).
@@ -28,6 +29,7 @@ RULE = "accounting"
 SECTIONS: tuple[str, ...] = ()
 REASONS = (
     "invalid_utf8", "oversize", "bad_json", "no_text", "empty", "too_short", "few_letters", "no_tokens", "duplicate",
+    "near_duplicate", "near_duplicate_other_split", "contaminated",
 )  # fmt: skip
 COUNTERS = ("read", "pieces_added", "kept", "truncated", "replaced_sequences")
 
@@ -153,9 +155,10 @@ def problems_message(tallies: Sequence[dict]) -> str | None:
     return "\n".join(lines)
 
 
-def merge(tallies: Sequence[dict], duplicates_by_file: dict[str, int]) -> dict:
-    """The build's accounting from the chunks' tallies and the removed duplicates per file:
-    totals, and the same figures per input file (a file cut into chunks is summed)."""
+def merge(tallies: Sequence[dict], duplicates_by_file: dict[str, int], removed_by_file: dict[str, dict[str, int]] | None = None) -> dict:
+    """The build's accounting from the chunks' tallies, the removed duplicates per file and the
+    other removed documents per file and reason: totals, and the same figures per input file (a
+    file cut into chunks is summed)."""
     files: dict[str, FileTally] = {}
     for tally in tallies:
         for source, figures in tally["files"].items():
@@ -164,6 +167,10 @@ def merge(tallies: Sequence[dict], duplicates_by_file: dict[str, int]) -> dict:
         figures = files.setdefault(source, FileTally())
         figures.dropped["duplicate"] += count
         figures.kept -= count
+    for source, reasons in (removed_by_file or {}).items():
+        figures = files.setdefault(source, FileTally())
+        figures.dropped.update(reasons)
+        figures.kept -= sum(reasons.values())
     total = FileTally()
     for figures in files.values():
         total.add(figures)
@@ -186,12 +193,16 @@ def main(argv: list[str] | None = None) -> None:
     tallies = [json.loads(Path(layout.tally(chunk)).read_text(encoding="utf-8")) for chunk in chunks]
     duplicates = pq.ParquetFile(layout.duplicates).read(columns=["source", "offset"], use_threads=False)
     per_file = pc.value_counts(duplicates["source"]).to_pylist() if duplicates.num_rows else []
-    write_json(layout.accounting, merge(tallies, {entry["values"]: entry["counts"] for entry in per_file}))
+    others = pq.ParquetFile(layout.hygiene_drops).read(columns=["source", "offset", "reason"], use_threads=False)
+    removed_by_file: dict[str, dict[str, int]] = {}
+    for group in others.group_by(["source", "reason"]).aggregate([("offset", "count")]).to_pylist():
+        removed_by_file.setdefault(group["source"], {})[group["reason"]] = group["offset_count"]
+    write_json(layout.accounting, merge(tallies, {entry["values"]: entry["counts"] for entry in per_file}, removed_by_file))
     logs = [pq.ParquetFile(layout.drop_log(chunk)).read(use_threads=False) for chunk in chunks]
     removed = pa.table(
         {"source": duplicates["source"], "offset": duplicates["offset"], "reason": pa.array(["duplicate"] * duplicates.num_rows, pa.string())}
     )
-    dropped = pa.concat_tables([dropped_schema().empty_table(), *logs, removed.cast(dropped_schema())])
+    dropped = pa.concat_tables([dropped_schema().empty_table(), *logs, removed.cast(dropped_schema()), others.cast(dropped_schema())])
     write_table(layout.dropped, dropped.sort_by([("source", "ascending"), ("offset", "ascending"), ("reason", "ascending")]))
     print(f"{dropped.num_rows} dropped documents recorded")
 

@@ -13,6 +13,7 @@ COMMANDS = {
     "baseline": ("baseline", "command", "n-gram (Kneser-Ney) perplexity of every split: the baseline to beat"),
     "compare": ("compare", "main", "what changed between two build folders: documents, splits, drops, ids, coverage, shards"),
     "cutoffs": ("cutoffs", "main", "what a different vocabulary cutoff would give, from the stored counts"),
+    "hygiene": ("hygiene", "command", "near-duplicate clusters and contaminated dev/test documents, with their text"),
     "progress": ("progress", "main", "where each running job of a build is, from its log"),
     "trace": ("trace", "main", "the source text of one shard row: input file, byte offset, sentence, token"),
 }

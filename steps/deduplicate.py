@@ -6,6 +6,9 @@ kept, every later one is removed. Before anything, the job stops the run if any 
 recorded a file it could not read as configured (naming them all), or if one id names two
 documents.
 
+Then near-duplicates and contamination (steps.hygiene) from the chunks' signatures: their drops
+join the removed lists, and their figures go to stats/.
+
 Outputs: interim/duplicates.parquet (source, offset, doc_id, duplicate_of for every removed
 document); per chunk, interim/removed/<chunk>.parquet (the chunk's removed documents: source,
 offset), which a chunk's later jobs read, so that a change elsewhere in the corpus that does
@@ -17,13 +20,14 @@ counts, so an unchanged chunk's counts never need recounting.
 from __future__ import annotations
 
 from collections.abc import Sequence
+from pathlib import Path
 
 import numpy as np
 import pyarrow as pa
 import pyarrow.compute as pc
 import pyarrow.parquet as pq
 
-from . import job
+from . import hygiene, job
 from .accounting import problems_message
 from .chunks import removed_mask
 from .settings import read_json
@@ -31,7 +35,10 @@ from .storage import write_table
 from .vocabulary import COUNTS_SCHEMA, MERGE_FILES, count_tokens, sum_counts
 
 RULE = "deduplicate"
-SECTIONS = ("corpus.repeated_ids", "split.deduplicate", "units")
+SECTIONS = (
+    "corpus.repeated_ids", "split.deduplicate", "split.salt", "units", "near_duplicates.policy", "near_duplicates.threshold",
+    "contamination",
+)  # fmt: skip
 
 DUPLICATES_SCHEMA = pa.schema(
     [("source", pa.string()), ("offset", pa.int64()), ("doc_id", pa.string()), ("duplicate_of", pa.string())]
@@ -117,10 +124,11 @@ def first_occurrences(words: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
     return rows[ascending], owners[ascending]
 
 
-def find_duplicates(corpus: CorpusRows) -> tuple[pa.Table, np.ndarray]:
+def find_duplicates(corpus: CorpusRows, found: tuple[np.ndarray, np.ndarray] | None = None) -> tuple[pa.Table, np.ndarray]:
     """Rows (source, offset, doc_id, duplicate_of) for every document whose fingerprint was seen
-    earlier in corpus order, and the chunk (position in `corpus.paths`) each lies in."""
-    rows, owners = first_occurrences(corpus.words)
+    earlier in corpus order, and the chunk (position in `corpus.paths`) each lies in; `found`:
+    first_occurrences of the corpus when already known."""
+    rows, owners = found if found is not None else first_occurrences(corpus.words)
     if not len(rows):
         return DUPLICATES_SCHEMA.empty_table(), np.zeros(0, np.int64)
     located = corpus.locate(np.concatenate([rows, owners]))
@@ -201,21 +209,31 @@ def main(argv: list[str] | None = None) -> None:
     repeats = repeated_ids(corpus)
     if repeats:
         raise SystemExit(repeated_ids_message(repeats, run.options["corpus"]["repeated_ids"] == "by_file"))
-    if run.options["split"]["deduplicate"]:
-        table, chunk_of = find_duplicates(corpus)
-    else:
-        table, chunk_of = DUPLICATES_SCHEMA.empty_table(), np.zeros(0, np.int64)
-    del corpus
+    empty = np.zeros(0, np.int64)
+    found = first_occurrences(corpus.words)
+    table, chunk_of = find_duplicates(corpus, found if run.options["split"]["deduplicate"] else (empty, empty))
     write_table(layout.duplicates, table)
+    signed = hygiene.CorpusSignatures([(layout.signatures(chunk), layout.verification(chunk)) for chunk in chunks])
+    if not np.array_equal(signed.starts, corpus.starts):
+        raise SystemExit(
+            f"corpusmill: the signature files under {Path(layout.signatures(chunks[0])).parent} do not match the prepared chunks: "
+            "rerun the prepare jobs (snakemake --forcerun prepare)"
+        )
+    findings = hygiene.measure(signed, corpus.words, found, run.options)
+    drops, drop_chunk_of = hygiene.write_findings(layout, chunks, corpus.locate, signed, findings, run.options)
+    del corpus, signed
     counted = []
     for number, chunk in enumerate(chunks):
-        mine = table.filter(pa.array(chunk_of == number)).select(REMOVED_SCHEMA.names)
+        mine = pa.concat_tables(
+            [table.filter(pa.array(chunk_of == number)).select(REMOVED_SCHEMA.names),
+             drops.filter(pa.array(drop_chunk_of == number)).select(REMOVED_SCHEMA.names)]
+        )  # fmt: skip
         write_table(layout.removed(chunk), mine.sort_by([("source", "ascending"), ("offset", "ascending")]))
         if run.options["units"] == "word" and mine.num_rows:
             counted.append(removed_counts(layout.prepared(chunk), mine))
     totals = sum_counts(counted) if counted else COUNTS_SCHEMA.empty_table()
     write_table(layout.removed_counts, totals.sort_by([("split", "ascending"), ("token", "ascending")]))
-    print(f"{table.num_rows} duplicate documents removed")
+    print(f"{table.num_rows} duplicate documents removed, {drops.num_rows} more as near-duplicates or contaminated")
 
 
 if __name__ == "__main__":

@@ -71,6 +71,21 @@ class Layout:
         return self._join("stats", "dropped.parquet")
 
     @property
+    def hygiene(self) -> str:
+        """Near-duplicate and contamination figures: what the report, manifest and datasheet show."""
+        return self._join("stats", "hygiene.json")
+
+    @property
+    def clusters(self) -> str:
+        """Every member of a near-duplicate cluster: its cluster, place, split and fate."""
+        return self._join("stats", "near_duplicates.parquet")
+
+    @property
+    def contamination(self) -> str:
+        """Every measured dev and test document with its n-grams shared with train."""
+        return self._join("stats", "contamination.parquet")
+
+    @property
     def report(self) -> str:
         return self._join("report", "index.html")
 
@@ -133,6 +148,14 @@ class Layout:
         """The chunk's documents that deduplication removes."""
         return self._join("interim", "removed", f"{chunk}.parquet")
 
+    def signatures(self, chunk: str) -> str:
+        """The chunk's band keys and n-gram hashes, a row per kept document (steps.signatures)."""
+        return self._join("interim", "signatures", f"{chunk}.parquet")
+
+    def verification(self, chunk: str) -> str:
+        """The chunk's 16-bit signature slots, raw, in the rows of its signatures file."""
+        return self._join("interim", "signatures", f"{chunk}.slots")
+
     def shard_stats(self, chunk: str) -> str:
         return self._join("interim", "shards", f"{chunk}.json")
 
@@ -144,6 +167,11 @@ class Layout:
     @property
     def duplicates(self) -> str:
         return self._join("interim", "duplicates.parquet")
+
+    @property
+    def hygiene_drops(self) -> str:
+        """Documents removed as near-duplicates or as contaminated, with their reason."""
+        return self._join("interim", "hygiene_drops.parquet")
 
     @property
     def removed_counts(self) -> str:

@@ -5,7 +5,8 @@ files under the corpus root that were not read (unselected, excluded, refused), 
 vocabulary hash, per-split figures, every shard file with its rows and SHA-256 (and, under
 `files`, every provenance table with its SHA-256, as the shard jobs wrote them), and the
 document accounting (steps/accounting.py), in total and per input file: read + pieces added
-by splitting = kept + dropped (by reason).
+by splitting = kept + dropped (by reason), and the near-duplicate and contamination figures
+(steps/hygiene.py; the documents one by one are in stats/).
 """
 
 from __future__ import annotations
@@ -34,6 +35,7 @@ def build_manifest(
     inputs: dict[str, dict],
     extra_files: Sequence[str],
     baseline: dict | None = None,
+    hygiene: dict | None = None,
 ) -> dict:
     """The manifest from the shard jobs' statistics (every file with rows, bytes and SHA-256, as
     written), the accounting, the corpus survey, the inputs' sizes and SHA-256 (hashed by the
@@ -87,7 +89,15 @@ def build_manifest(
         "splits": splits,
         "accounting": accounting,
         **({"baseline": baseline} if baseline is not None else {}),
+        **(hygiene_figures(hygiene) if hygiene is not None else {}),
     }
+
+
+def hygiene_figures(hygiene: dict) -> dict:
+    """The manifest's near_duplicates and contamination: the figures of stats/hygiene.json,
+    without the per-file table and the list of documents."""
+    contamination = {key: value for key, value in hygiene["contamination"].items() if key != "listed"}
+    return {"near_duplicates": hygiene["near_duplicates"], "contamination": {"ngram_words": hygiene["ngram_words"], **contamination}}
 
 
 def main(argv: list[str] | None = None) -> None:
@@ -101,7 +111,7 @@ def main(argv: list[str] | None = None) -> None:
     extra = [layout.coverage, *([layout.baseline] if counted else [])]
     manifest = build_manifest(
         run.options, read_json(layout.corpus_plan), layout, read_json(layout.accounting), stats, inputs, extra,
-        read_json(layout.baseline) if counted else None,
+        read_json(layout.baseline) if counted else None, read_json(layout.hygiene),
     )  # fmt: skip
     write_json(layout.manifest, manifest)
     print(json.dumps({key: value for key, value in manifest["accounting"].items() if key != "files"}, sort_keys=True))

@@ -4,7 +4,8 @@ Writes the chunk's table (steps.chunks: one row per kept document, stored in run
 RUN_FACTOR x corpus.chunk_mb of Arrow memory, so memory stays bounded whatever the file size;
 bench/prepare_memory.py measures it), its word counts per
 split (word units), the tally of what happened to every document read and the log of every
-dropped one (steps.accounting).
+dropped one (steps.accounting), and from the same batches the documents' near-duplicate
+signatures and n-gram hashes (steps.signatures).
 """
 
 from __future__ import annotations
@@ -12,6 +13,7 @@ from __future__ import annotations
 import json
 import sys
 from collections.abc import Iterator
+from contextlib import ExitStack
 from itertools import chain
 from pathlib import Path
 
@@ -26,6 +28,7 @@ from .formats import file_sha256
 from .ingest import Chunk, CorpusError, Document, ReadOptions, read_documents
 from .progress import Progress
 from .segment import Segmenter
+from .signatures import SignatureOptions, SignatureWriter
 from .split import assign_split, doc_hash, fingerprint
 from .storage import write_json, write_table
 from .vocabulary import COUNTS_SCHEMA, MERGE_FILES, count_tokens, sum_counts
@@ -36,7 +39,8 @@ RULE = "prepare"
 SECTIONS = (
     "clean", "corpus.root", "corpus.chunk_mb", "corpus.text_unit", "corpus.jsonl_text_field", "corpus.jsonl_id_field", "corpus.repeated_ids",
     "corpus.bad_records", "corpus.invalid_utf8", "corpus.max_document_bytes", "corpus.oversize", "corpus.max_decompressed_mb",
-    "segment", "split.key", "split.salt", "split.fractions", "units",
+    "segment", "split.key", "split.salt", "split.fractions", "units", "near_duplicates.shingle_words",
+    "near_duplicates.permutations", "near_duplicates.bands", "near_duplicates.seed", "contamination.ngram_words",
 )  # fmt: skip
 BATCH_CHARS = 4 << 20
 BATCH_DOCUMENTS = 4096
@@ -150,10 +154,12 @@ def prepare_chunk(
     abbreviations: frozenset[str],
     counts_path: str | None = None,
     drops_path: str | None = None,
+    signature_paths: tuple[str, str] | None = None,
 ) -> Tally:
     """Run the whole chunk and write its table, its word counts per split (all kept documents;
     the vocabulary step subtracts duplicates), its tally and beside it the log of its dropped
-    documents; returns the tally. A file that cannot be read as configured is recorded in the
+    documents, and when `signature_paths` are given the signatures file and verification slots
+    (steps.signatures); returns the tally. A file that cannot be read as configured is recorded in the
     tally (the deduplicate job stops the run) and the other files are still read."""
     tally = Tally()
     preparer = ChunkPreparer(config, abbreviations)
@@ -163,10 +169,15 @@ def prepare_chunk(
     progress = Progress(f"{chunk.key} (chunk {chunk.index + 1} of {chunk.count})", size if chunk.count == 1 else chunk_bytes)
     counts = COUNTS_SCHEMA.empty_table()
     pending: list[pa.Table] = []
-    with ChunkTableWriter(output, preparer.schema, preparer.units, RUN_FACTOR * chunk_bytes) as writer:
+    body = preparer.schema.names[-1]
+    with ExitStack() as stack:
+        writer = stack.enter_context(ChunkTableWriter(output, preparer.schema, preparer.units, RUN_FACTOR * chunk_bytes))
+        signed = stack.enter_context(SignatureWriter(*signature_paths, SignatureOptions.from_config(config))) if signature_paths else None
         # Batches no larger than a chunk, so a run holds a few of them even for tiny chunk sizes.
         for batch in preparer.batches(documents, tally, min(BATCH_CHARS, chunk_bytes), progress):
             writer.add(batch)
+            if signed is not None:
+                signed.add(batch, body)
             if preparer.units == "word":
                 pending.append(count_tokens(batch))
                 if len(pending) == MERGE_FILES:
@@ -208,6 +219,7 @@ def main(argv: list[str] | None = None) -> None:
         tally = prepare_chunk(
             options["corpus"]["root"], chunk, chunk_bytes, options, layout.prepared(chunk.key), layout.tally(chunk.key),
             learned, layout.counts(chunk.key), layout.drop_log(chunk.key),
+            (layout.signatures(chunk.key), layout.verification(chunk.key)),
         )  # fmt: skip
     except CorpusError as error:
         raise SystemExit(f"corpusmill: {error}") from None

@@ -1,7 +1,7 @@
 """The vocabulary coverage report: one self-contained HTML page per build (build/report/index.html).
 
-It reads the coverage statistics, the manifest, the merged token counts and the vocabulary
-growth curve (stats/growth.json, steps/growth.py, computed beside the shard jobs). Plots are PNG
+It reads the coverage statistics, the manifest, the merged token counts, the near-duplicate and
+contamination figures (stats/hygiene.json) and the vocabulary growth curve (stats/growth.json, steps/growth.py, computed beside the shard jobs). Plots are PNG
 images embedded as base64, drawn with matplotlib's Agg backend without metadata, so the page
 needs no network and its bytes are the same on every run.
 
@@ -22,6 +22,7 @@ import heapq
 import html
 import io
 from collections.abc import Callable, Sequence
+from pathlib import Path
 
 import matplotlib
 
@@ -351,6 +352,62 @@ def baseline_section(baseline: dict) -> tuple[str, str, str]:
     ]))
 
 
+def _share(value: float | None) -> Shown:
+    return Shown(DASH if value is None else f"{value:.3f}")
+
+
+def _distribution_row(name: str, figures: dict) -> list[object]:
+    quantiles = figures.get("quantiles", {})
+    return [name, figures["documents"], figures["with_shared_gram"], _share(figures["mean"])] + [
+        _share(quantiles.get(q)) for q in ("0.5", "0.9", "0.99")
+    ] + [_share(figures["max"]), figures["at_or_above_threshold"]]
+
+
+def hygiene_section(hygiene: dict) -> tuple[str, str, str]:
+    """Near-duplicate clusters and what the policy dropped; the share of each dev and test
+    document's n-grams found in train (distribution, the documents at or above the threshold,
+    per source file), from stats/hygiene.json."""
+    near, dirty, n = hygiene["near_duplicates"], hygiene["contamination"], hygiene["ngram_words"]
+    dropped = near["dropped"]
+    cluster_rows: list[list[object]] = [
+        ["clusters (two or more documents at estimated Jaccard similarity ≥ threshold)", near["clusters"]],
+        ["documents in clusters", near["documents"]], ["clusters whose members lie in more than one split", near["clusters_across_splits"]],
+        ["largest cluster", near["largest_cluster"]], ["members kept", near["kept"]],
+    ] + [[f"dropped: {reason.replace('_', ' ')}", count] for reason, count in sorted(dropped.items())]
+    cluster_rows += [["candidate pairs compared", near["compared_pairs"]], ["pairs confirmed", near["confirmed_pairs"]]]
+    if near["long_runs"]:
+        cluster_rows.append(["band runs over the comparison limit (growth guarantee may not hold there)", near["long_runs"]])
+    headers = ["documents", "measured", "with a shared n-gram", "mean", "median", "90 %", "99 %", "max", f"≥ {dirty['threshold']:g}"]
+    distribution = [_distribution_row("dev and test", dirty)] + [_distribution_row(split, figures) for split, figures in dirty["by_split"].items()]
+    bins = [[Shown(f"{low / 10:.1f}–{(low + 1) / 10:.1f}"), count] for low, count in enumerate(dirty["histogram"])]
+    listed = [[FileName(row["source"]), Shown(str(row["offset"])), row["split"], _share(row["share"]), row["dropped"]] for row in dirty["listed"]]
+    above = dirty["at_or_above_threshold"]
+    more = (f"<p>{above - len(listed):,} more are in <code>stats/contamination.parquet</code>.</p>" if above > len(listed) else "")
+    by_source = sorted(hygiene["contamination_by_source"].items(), key=lambda item: (-item[1]["at_or_above_threshold"], -(item[1]["mean"] or 0.0), item[0]))
+    source_rows = [[FileName(source), f["documents"], f["with_shared_gram"], _share(f["mean"]), _share(f["max"]), f["at_or_above_threshold"]]
+                   for source, f in by_source[:TABLE_FILES]]  # fmt: skip
+    fate = (f"they are dropped (contamination.drop): {dirty['dropped']:,} documents." if dirty["drop"]
+            else "they are kept (contamination.drop: false).")  # fmt: skip
+    return ("hygiene", "Near-duplicates and train text in dev and test", "".join([
+        f"<p>Near-duplicates: documents whose word shingles overlap by an estimated Jaccard similarity of at least "
+        f"{near['threshold']:g} (MinHash with banding). Policy <code>{html.escape(near['policy'])}</code>"
+        + {"drop": ": every cluster keeps its anchor alone.", "same_split": ": every cluster keeps the members in its anchor's split.",
+           "off": ": nothing is dropped."}[near["policy"]]  # fmt: skip
+        + "</p>",
+        table(["near-duplicates", "count"], cluster_rows),
+        f"<p>Contamination: the share of each kept dev and test document's {n}-word n-grams that also occur in a kept train "
+        f"document. {above:,} documents reach {dirty['threshold']:g}; {fate}</p>",
+        table(headers, distribution),
+        table(["share", "documents"], bins),
+        (f"<h3>Documents at or above {dirty['threshold']:g}</h3>" + table(["file", "byte offset", "split", "share", "dropped"], listed) + more)
+        if listed else "",
+        "<h3>By source file</h3>" + table(["file", "measured", "with a shared n-gram", "mean", "max", f"≥ {dirty['threshold']:g}"], source_rows)
+        + left_out(len(by_source), len(source_rows), "<code>stats/hygiene.json</code>") if source_rows else "",
+        "<p>Every cluster member and every measured document are in <code>stats/near_duplicates.parquet</code> and "
+        "<code>stats/contamination.parquet</code>; <code>corpusmill hygiene BUILD</code> (the build folder) lists them with their text.</p>",
+    ]))
+
+
 def sizing_section(size: int, options: dict, context_unit: str) -> tuple[str, str, str]:
     """Parameters, bytes and softmax cost of a feed-forward model over `size` ids."""
     report = options["report"]
@@ -518,7 +575,9 @@ def unknown_section(coverage: dict, unit: str) -> tuple[str, str, str]:
     return ("unknown", "Unknown tokens by split and source", "".join(parts))
 
 
-def render(coverage: dict, manifest: dict, counts: pa.Table, growth: tuple[np.ndarray, np.ndarray], options: dict) -> str:
+def render(
+    coverage: dict, manifest: dict, counts: pa.Table, growth: tuple[np.ndarray, np.ndarray], options: dict, hygiene: dict | None = None
+) -> str:
     """The whole page as one HTML string: the section that describes the vocabulary (a word
     cutoff or a piece model), then what every build has."""
     pieces = "piece_ids" in coverage
@@ -555,6 +614,8 @@ def render(coverage: dict, manifest: dict, counts: pa.Table, growth: tuple[np.nd
     sections.append(unknown_section(coverage, unit))
     sections += later
     sections.append(accounting_section(manifest, unit))
+    if hygiene is not None:
+        sections.append(hygiene_section(hygiene))
     if "baseline" in manifest:
         sections.append(baseline_section(manifest["baseline"]))
     sections.append(sizing_section(size, options, "pieces" if pieces else "words"))
@@ -574,7 +635,7 @@ def main(argv: list[str] | None = None) -> None:
     layout = run.layout
     text = render(
         read_json(layout.coverage), read_json(layout.manifest), pq.ParquetFile(layout.token_counts).read(use_threads=False),
-        read_growth(layout.growth), run.options,
+        read_growth(layout.growth), run.options, read_json(layout.hygiene) if Path(layout.hygiene).exists() else None,
     )  # fmt: skip
     write_text(layout.report, text)
     print(f"report: {layout.report} ({len(text):,} bytes)")

@@ -135,6 +135,10 @@ def resolve(raw: dict[str, Any]) -> dict[str, Any]:
         )
     _check_finite(raw)
     config = _unshared(dict(raw))
+    # YAML 1.1 (PyYAML, Snakemake) reads an unquoted `off` as false: `policy: off` means "off".
+    near = config.get("near_duplicates")
+    if isinstance(near, dict) and near.get("policy") is False:
+        near["policy"] = "off"
     schema = load_schema()
     _fill_defaults(config, schema)
     validator = jsonschema.Draft202012Validator(schema)
@@ -160,6 +164,12 @@ def resolve(raw: dict[str, Any]) -> dict[str, Any]:
     if fractions["train"] <= 0:
         raise ConfigError("invalid configuration: split.fractions.train = 0: allowed: a share > 0 (the vocabulary is counted on train)")
     _check_build_dir(config["build_dir"])
+    near = config["near_duplicates"]
+    if near["permutations"] % near["bands"]:
+        raise ConfigError(
+            f"invalid configuration: near_duplicates.bands = {near['bands']} does not divide near_duplicates.permutations = "
+            f"{near['permutations']}: allowed: a divisor, e.g. 16 bands of 8 for 128 permutations"
+        )
 
     blocks = config["windows"]["blocks"]
     if blocks["stride"] > blocks["length"] + 1:

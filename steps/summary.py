@@ -174,3 +174,25 @@ def format_baseline(baseline: dict) -> str:
     ]
     lines += [f"warning: {warning}" for warning in baseline["warnings"]]
     return "\n".join(lines)
+
+
+def format_hygiene(hygiene: dict, build: str) -> str:
+    """Near-duplicate clusters and what the policy dropped; how many dev/test documents share
+    much of their n-grams with train, with the command that lists both."""
+    near, dirty = hygiene["near_duplicates"], hygiene["contamination"]
+    dropped = ", ".join(f"{reason} {count:,}" for reason, count in sorted(near["dropped"].items())) or "none (policy off)"
+    lines = [
+        f"near-duplicates (policy {near['policy']}, Jaccard >= {near['threshold']:g}): {near['clusters']:,} clusters of "
+        f"{near['documents']:,} documents ({near['clusters_across_splits']:,} across splits); dropped {dropped}"
+    ]
+    quantiles = dirty.get("quantiles", {})
+    shown = ", ".join(f"{float(q):.0%} {value:.3f}" for q, value in quantiles.items())
+    spread = f" (quantiles {shown}; max {dirty['max']:.3f})" if quantiles else ""
+    fate = f"dropped {dirty['dropped']:,}" if dirty["drop"] else "kept (contamination.drop: false)"
+    lines.append(
+        f"contamination ({hygiene['ngram_words']}-grams shared with train): {dirty['at_or_above_threshold']:,} of "
+        f"{dirty['documents']:,} dev/test documents at or above {dirty['threshold']:g}{spread}; {fate}"
+    )
+    if near["documents"] or dirty["at_or_above_threshold"]:
+        lines.append(f"review them with their text: corpusmill hygiene {build}")
+    return "\n".join(lines)

@@ -178,7 +178,8 @@ def test_vocabulary_and_out_of_vocabulary_figures_match_the_manifest_and_coverag
 
 def test_near_duplicate_and_contamination_figures_appear_when_the_manifest_has_them(manifest: dict) -> None:
     question = "Are there any errors, sources of noise, or redundancies in the dataset?"
-    without = Sheet(build_datasheet(manifest)).text[question]
+    unmeasured = {key: value for key, value in manifest.items() if key not in ("near_duplicates", "contamination")}
+    without = Sheet(build_datasheet(unmeasured)).text[question]
     assert "Near-duplicates: not measured by this build." in without and "Contamination: not measured by this build." in without
     measured = copy.deepcopy(manifest)
     measured["near_duplicates"] = {"documents": 1234, "threshold": 0.8}

@@ -160,6 +160,11 @@ READERS = [
     ("shards", "compression", "snappy", {"shards", "manifest"}),
     ("vocabulary", "min_count", 3, {"vocabulary", "manifest"}),
     ("split", "deduplicate", False, {"deduplicate", "manifest"}),
+    ("near_duplicates", "policy", "same_split", {"deduplicate", "manifest"}),
+    ("near_duplicates", "threshold", 0.9, {"deduplicate", "manifest"}),
+    ("near_duplicates", "permutations", 64, {"prepare", "manifest"}),
+    ("contamination", "drop", True, {"deduplicate", "manifest"}),
+    ("contamination", "ngram_words", 8, {"prepare", "deduplicate", "manifest"}),
     ("corpus", "exclude", ["matches/nothing/**"], {"manifest"}),
     ("resources", "runtime_min", 30, {"manifest"}),
 ]

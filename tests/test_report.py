@@ -66,7 +66,7 @@ def report_options(build: Path) -> dict:
 def report_inputs(build: Path, target: Path) -> Path:
     """A build folder at `target` holding only what the report step reads from `build`."""
     source, copy = Layout(str(build)), Layout(str(target))
-    for name in ("coverage", "manifest", "token_counts", "growth"):
+    for name in ("coverage", "manifest", "token_counts", "growth", "hygiene"):
         Path(getattr(copy, name)).parent.mkdir(parents=True, exist_ok=True)
         shutil.copy(getattr(source, name), getattr(copy, name))
     Path(copy.options("report")).parent.mkdir(parents=True, exist_ok=True)
