@@ -9,7 +9,6 @@ import itertools
 import math
 import random
 import re
-from pathlib import Path
 
 import numpy as np
 import pyarrow as pa
@@ -43,18 +42,12 @@ from corpusmill.segment import Segmenter
 from corpusmill.settings import resolve
 from corpusmill.split import assign_split, fingerprint
 from tests.conftest import require_file
+from tests.test_laws import ENGLISH, FORTUNES
 
 OPTIONS = MinHashOptions()
 M64 = (1 << 64) - 1
 SEPARATOR = regex.compile(r"[\s\p{Z}]+")
 NOT_WORD = regex.compile(r"[^\p{L}\p{M}\p{N}]+")
-FORTUNES = Path("/usr/share/games/fortunes")
-# English collections of Debian's `fortunes` package (as in tests/test_laws.py).
-ENGLISH = (
-    "computers cookie definitions drugs education ethnic food humorists kids law linux literature love magic "
-    "medicine men-women miscellaneous news people pets platitudes politics riddles science songs-poems sports "
-    "startrek wisdom work zippy"
-).split()
 SPREAD = {"train": 0.6, "dev": 0.2, "test": 0.2}
 
 
