@@ -19,7 +19,7 @@ from hypothesis import settings
 # sequence of examples for the mutation check, so a mutant is killed or not the same way on
 # every run. HYPOTHESIS_PROFILE names one of them explicitly.
 settings.register_profile("dev", max_examples=60, deadline=None)
-settings.register_profile("ci", max_examples=1000, deadline=None)
+settings.register_profile("ci", max_examples=200, deadline=None)
 settings.register_profile("mutation", max_examples=60, deadline=None, derandomize=True, database=None)
 settings.load_profile(os.environ.get("HYPOTHESIS_PROFILE") or ("ci" if os.environ.get("CI") == "true" else "dev"))
 
