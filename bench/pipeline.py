@@ -214,13 +214,15 @@ def run_build(directory: Path, overrides: dict, cores: int) -> dict:
     thread.join()
     if process.returncode != 0:
         raise SystemExit(f"bench: workflow failed in {directory}:\n{output[-4000:]}")
-    jobs = re.search(r"Job stats:.*?\ntotal\s+(\d+)", output, re.S)
+    # The last progress line counts the jobs that ran; the first job table also lists jobs the
+    # checkpoints later find they need not run.
+    done = re.findall(r"^(\d+) of \d+ steps", output, re.M)
     return {
         "seconds": round(seconds, 2),
         "cpu_seconds": round(after.ru_utime + after.ru_stime - before.ru_utime - before.ru_stime, 2),
         "load_before": round(load, 2),
         "load_after": round(os.getloadavg()[0], 2),
-        "jobs": int(jobs.group(1)) if jobs else 0,
+        "jobs": int(done[-1]) if done else 0,
         "rules": sampler.by_rule(started),
         "snakemake_peak_rss_mib": round(sampler.snakemake_peak / 2**20, 1),
     }

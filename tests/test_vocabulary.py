@@ -132,15 +132,11 @@ def test_file_round_trips_and_rejects_a_foreign_file(tmp_path):
     again = read_vocabulary(path)
     assert again == vocabulary and (again.sha256, again.ids_digest) == (vocabulary.sha256, vocabulary.ids_digest)
     assert path.read_text(encoding="utf-8").splitlines()[0] == VOCABULARY_HEADER
-    (tmp_path / "bad.tsv").write_text(VOCABULARY_HEADER + "\n0\t<pad>\t0\treserved\n2\tx\t1\tword\n")
-    with pytest.raises(FormatError, match=r"bad\.tsv: line 3"):
-        read_vocabulary(tmp_path / "bad.tsv")
-    (tmp_path / "wide.tsv").write_text(VOCABULARY_HEADER + "\n0\t<pad>\t0\treserved\n1\tx\t1\tword\textra\n")
-    with pytest.raises(FormatError, match=r"wide\.tsv: line 3"):
-        read_vocabulary(tmp_path / "wide.tsv")
-    (tmp_path / "count.tsv").write_text(VOCABULARY_HEADER + "\n0\t<pad>\t0\treserved\n1\tx\tmany\tword\n")
-    with pytest.raises(FormatError, match=r"count\.tsv: line 3"):
-        read_vocabulary(tmp_path / "count.tsv")
+    bad_third_lines = {"bad": "2\tx\t1\tword", "wide": "1\tx\t1\tword\textra", "count": "1\tx\tmany\tword"}
+    for name, line in bad_third_lines.items():
+        (tmp_path / f"{name}.tsv").write_text(VOCABULARY_HEADER + f"\n0\t<pad>\t0\treserved\n{line}\n")
+        with pytest.raises(FormatError, match=rf"{name}\.tsv: line 3"):
+            read_vocabulary(tmp_path / f"{name}.tsv")
     (tmp_path / "huge.tsv").write_text(VOCABULARY_HEADER + "\n0\t<pad>\t99999999999999999999999\treserved\n")
     with pytest.raises(FormatError, match=r"huge\.tsv: cannot be read as a vocabulary file \(.*Row #2.*99999999999999999999999"):
         read_vocabulary(tmp_path / "huge.tsv")
