@@ -48,8 +48,16 @@ def snakemake(directory: Path, overrides: dict, *extra: str) -> tuple[float, flo
     override = directory / "override.yaml"
     override.write_text(yaml.safe_dump(overrides), encoding="utf-8")
     command = [
-        sys.executable, "-m", "snakemake", "--snakefile", str(REPO / "Snakefile"), "--directory", str(directory),
-        "--configfile", str(override), *extra,
+        sys.executable,
+        "-m",
+        "snakemake",
+        "--snakefile",
+        str(REPO / "Snakefile"),
+        "--directory",
+        str(directory),
+        "--configfile",
+        str(override),
+        *extra,
     ]
     before = resource.getrusage(resource.RUSAGE_CHILDREN)
     started = time.perf_counter()
@@ -85,8 +93,7 @@ def startup_seconds(repeats: int = 5) -> float:
     times = []
     for _ in range(repeats):
         started = time.perf_counter()
-        subprocess.run([sys.executable, "-m", "steps.prepare", "--help"], capture_output=True, check=True,
-                       env={**os.environ, "PYTHONPATH": str(REPO)})
+        subprocess.run([sys.executable, "-m", "steps.prepare", "--help"], capture_output=True, check=True, env={**os.environ, "PYTHONPATH": str(REPO)})
         times.append(time.perf_counter() - started)
     return statistics.median(times)
 

@@ -161,10 +161,12 @@ def write_split(path: Path, context: np.ndarray, target: np.ndarray, id_type: pa
     Without dictionary encoding: ids of a large vocabulary overflow the dictionary page anyway, and
     trying first made writing slower and the files larger.
     """
-    table = pa.table({
-        "context": pa.FixedSizeListArray.from_arrays(pa.array(context.ravel(), id_type), ORDER - 1),
-        "target": pa.array(target, id_type),
-    })
+    table = pa.table(
+        {
+            "context": pa.FixedSizeListArray.from_arrays(pa.array(context.ravel(), id_type), ORDER - 1),
+            "target": pa.array(target, id_type),
+        }
+    )
     pq.write_table(table, path, compression="zstd", use_dictionary=False)
 
 
@@ -203,7 +205,7 @@ def run(source: Path, output: Path, workers: int) -> dict:
     kept = sorted(((-n, token) for token, n in counts.items() if n >= MIN_COUNT))
     vocabulary = SPECIALS + [token for _, token in kept]
     (output / "vocab.txt").write_text("".join(token + "\n" for token in vocabulary), encoding="utf-8")
-    value_set = pa.array(vocabulary[len(SPECIALS):], pa.large_string())
+    value_set = pa.array(vocabulary[len(SPECIALS) :], pa.large_string())
     dtype = np.uint16 if len(vocabulary) <= 2**16 else np.uint32
     phases["vocabulary"], clock = time.perf_counter() - clock, time.perf_counter()
 
@@ -226,14 +228,16 @@ def run(source: Path, output: Path, workers: int) -> dict:
         write_split(output / f"{split}.parquet", context, target, pa.from_numpy_dtype(dtype))
         phases["writing"], clock = phases.get("writing", 0.0) + time.perf_counter() - clock, time.perf_counter()
 
-    figures.update({
-        "files": len(paths),
-        "documents": sum(len(r["digests"]) for r in files),
-        "duplicates": duplicates,
-        "vocabulary_size": len(vocabulary),
-        "id_type": np.dtype(dtype).name,
-        "phases": {name: round(seconds, 2) for name, seconds in phases.items()},
-    })
+    figures.update(
+        {
+            "files": len(paths),
+            "documents": sum(len(r["digests"]) for r in files),
+            "duplicates": duplicates,
+            "vocabulary_size": len(vocabulary),
+            "id_type": np.dtype(dtype).name,
+            "phases": {name: round(seconds, 2) for name, seconds in phases.items()},
+        }
+    )
     return figures
 
 
@@ -251,26 +255,32 @@ def main(argv: list[str] | None = None) -> dict:
     own = resource.getrusage(resource.RUSAGE_SELF)
     workers = resource.getrusage(resource.RUSAGE_CHILDREN)
     user, system = own.ru_utime + workers.ru_utime, own.ru_stime + workers.ru_stime
-    figures.update({
-        "input_mb": round(sum(p.stat().st_size for p in args.input.glob("*.txt")) / 1e6, 2),
-        "workers": args.workers,
-        "seconds": round(seconds, 2),
-        "user_seconds": round(user, 2),
-        "system_seconds": round(system, 2),
-        "cpu_seconds": round(user + system, 2),
-        "peak_rss_tree_mib": round(memory.peak / 2**20, 1),
-        "peak_rss_parent_mib": round(own.ru_maxrss / 1024, 1),
-        "peak_rss_worker_mib": round(workers.ru_maxrss / 1024, 1),
-        "load_before": round(load, 2),
-    })
+    figures.update(
+        {
+            "input_mb": round(sum(p.stat().st_size for p in args.input.glob("*.txt")) / 1e6, 2),
+            "workers": args.workers,
+            "seconds": round(seconds, 2),
+            "user_seconds": round(user, 2),
+            "system_seconds": round(system, 2),
+            "cpu_seconds": round(user + system, 2),
+            "peak_rss_tree_mib": round(memory.peak / 2**20, 1),
+            "peak_rss_parent_mib": round(own.ru_maxrss / 1024, 1),
+            "peak_rss_worker_mib": round(workers.ru_maxrss / 1024, 1),
+            "load_before": round(load, 2),
+        }
+    )
     if args.json:
         print(json.dumps(figures, sort_keys=True))
     else:
-        print(f"{figures['input_mb']} MB in {figures['files']} files, {figures['documents']:,} documents ({figures['duplicates']:,} duplicates), "
-              f"|V| {figures['vocabulary_size']:,} ({figures['id_type']})")
-        print(f"wall {figures['seconds']:.2f} s, CPU {figures['cpu_seconds']:.2f} s (user {figures['user_seconds']:.2f}, sys {figures['system_seconds']:.2f}), "
-              f"peak RSS {figures['peak_rss_tree_mib']:.0f} MiB summed over the process tree "
-              f"(parent {figures['peak_rss_parent_mib']:.0f}, largest worker {figures['peak_rss_worker_mib']:.0f}), load average {load:.2f}")
+        print(
+            f"{figures['input_mb']} MB in {figures['files']} files, {figures['documents']:,} documents ({figures['duplicates']:,} duplicates), "
+            f"|V| {figures['vocabulary_size']:,} ({figures['id_type']})"
+        )
+        print(
+            f"wall {figures['seconds']:.2f} s, CPU {figures['cpu_seconds']:.2f} s (user {figures['user_seconds']:.2f}, sys {figures['system_seconds']:.2f}), "
+            f"peak RSS {figures['peak_rss_tree_mib']:.0f} MiB summed over the process tree "
+            f"(parent {figures['peak_rss_parent_mib']:.0f}, largest worker {figures['peak_rss_worker_mib']:.0f}), load average {load:.2f}"
+        )
         print("phases (s): " + ", ".join(f"{name} {value:.2f}" for name, value in figures["phases"].items()))
         print("rows: " + ", ".join(f"{split} {figures['rows'][split]:,}" for split in SPLITS))
     return figures

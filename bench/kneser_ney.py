@@ -133,27 +133,32 @@ def child(folder: Path, vocabulary_size: int, arpa: bool) -> None:
             kneser_ney.write_arpa(models[ORDER], [str(i) for i in range(vocabulary_size)], out)
         phases["arpa_mb"] = round((folder / "model.arpa").stat().st_size / 1e6, 1)
         lap("arpa")
-    print(json.dumps({
-        "train_tokens": counts.tokens, "dev_tokens": dev.tokens,
-        "distinct": {k: len(level) for k, level in enumerate(counts.levels, start=1)},
-        "train_perplexity": {m: round(train.perplexity(m), 2) for m in models},
-        "dev_perplexity": {m: round(dev.perplexity(m), 2) for m in models},
-        "dev_unigram_perplexity": round(dev.unigram_perplexity, 2),
-        "phases_cpu_seconds": phases,
-    }))
+    print(
+        json.dumps(
+            {
+                "train_tokens": counts.tokens,
+                "dev_tokens": dev.tokens,
+                "distinct": {k: len(level) for k, level in enumerate(counts.levels, start=1)},
+                "train_perplexity": {m: round(train.perplexity(m), 2) for m in models},
+                "dev_perplexity": {m: round(dev.perplexity(m), 2) for m in models},
+                "dev_unigram_perplexity": round(dev.unigram_perplexity, 2),
+                "phases_cpu_seconds": phases,
+            }
+        )
+    )
 
 
 def measure(scale: str, vocabulary_size: int, arpa: bool) -> dict:
     command = [TIME, "-f", "%M %U %S %e", sys.executable, __file__, "--child", str(FOLDER / scale), str(vocabulary_size)]
     load = os.getloadavg()[0]
-    result = subprocess.run(command + (["--arpa"] if arpa else []), capture_output=True, text=True,
-                            env={**os.environ, "OPENBLAS_NUM_THREADS": "1"})
+    result = subprocess.run(command + (["--arpa"] if arpa else []), capture_output=True, text=True, env={**os.environ, "OPENBLAS_NUM_THREADS": "1"})
     if result.returncode != 0:
         raise SystemExit(f"bench: the {scale} child failed:\n{result.stderr[-3000:]}")
     kib, user, system, wall = result.stderr.strip().splitlines()[-1].split()
     figures = json.loads(result.stdout)
-    figures.update(peak_rss_mib=round(int(kib) / 1024, 1), cpu_seconds=round(float(user) + float(system), 2),
-                   wall_seconds=float(wall), load_before=round(load, 2))
+    figures.update(
+        peak_rss_mib=round(int(kib) / 1024, 1), cpu_seconds=round(float(user) + float(system), 2), wall_seconds=float(wall), load_before=round(load, 2)
+    )
     return figures
 
 
@@ -178,8 +183,10 @@ def main(argv: list[str] | None = None) -> None:
     for name, scale, arpa in runs:
         figures = measure(scale, size, arpa)
         results["scales"][name] = figures
-        print(f"{name}: {figures['train_tokens']:,} train tokens, {figures['dev_tokens']:,} dev; CPU {figures['cpu_seconds']:.2f} s "
-              f"= {figures['cpu_seconds'] / f:.2f} x F; peak RSS {figures['peak_rss_mib']:.0f} MiB; load {figures['load_before']}")
+        print(
+            f"{name}: {figures['train_tokens']:,} train tokens, {figures['dev_tokens']:,} dev; CPU {figures['cpu_seconds']:.2f} s "
+            f"= {figures['cpu_seconds'] / f:.2f} x F; peak RSS {figures['peak_rss_mib']:.0f} MiB; load {figures['load_before']}"
+        )
         print(f"    phases (CPU-s): {figures['phases_cpu_seconds']}; distinct n-grams {figures['distinct']}")
         print(f"    perplexity train {figures['train_perplexity']}, dev {figures['dev_perplexity']}, dev unigram {figures['dev_unigram_perplexity']}")
     one = results["scales"].get("1x")

@@ -115,8 +115,18 @@ def _prepare(folder: Path, copies: int, stack: contextlib.ExitStack) -> dict:
     segmenter = Segmenter.from_config(resolve({})["segment"])
     fractions = {"train": 0.8, "dev": 0.1, "test": 0.1}
     clock = Clock()
-    names = [*(f"band{b:02d}" for b in range(options.bands)), "digests", "verification", "fingerprints", "splits",
-             "train_runs", "train_sizes", "dev_grams", "dev_counts", "dev_sources"]
+    names = [
+        *(f"band{b:02d}" for b in range(options.bands)),
+        "digests",
+        "verification",
+        "fingerprints",
+        "splits",
+        "train_runs",
+        "train_sizes",
+        "dev_grams",
+        "dev_counts",
+        "dev_sources",
+    ]
     files = {name: stack.enter_context(open(folder / f"{name}.bin", "wb")) for name in names}
     documents = characters = tokens = 0
     batch: list[tuple[str, str]] = []
@@ -168,8 +178,7 @@ def _prepare(folder: Path, copies: int, stack: contextlib.ExitStack) -> dict:
             batch = []
     if batch:
         flush()
-    return {"documents": documents, "text_mb": round(characters / 1e6, 1), "tokens": tokens,
-            "cpu_seconds": {k: round(v, 2) for k, v in clock.seconds.items()}}
+    return {"documents": documents, "text_mb": round(characters / 1e6, 1), "tokens": tokens, "cpu_seconds": {k: round(v, 2) for k, v in clock.seconds.items()}}
 
 
 def aggregate(folder: Path) -> dict:
@@ -214,10 +223,16 @@ def aggregate(folder: Path) -> dict:
     summary = contamination.summary(shares, sources)
     clock.time("summary", started)
     return {
-        "documents": size, "clustered_documents": len(members), "clusters": len(np.unique(labels[members])),
-        "dropped_by_drop_policy": int(np.count_nonzero(~keep)), "compared_pairs": stats.compared,
-        "confirmed_pairs": stats.confirmed, "long_runs": stats.long_runs, "distinct_train_grams": len(train_set),
-        "dev_test_documents": len(shares), "contamination": {k: v for k, v in summary.items() if k != "by_source"},
+        "documents": size,
+        "clustered_documents": len(members),
+        "clusters": len(np.unique(labels[members])),
+        "dropped_by_drop_policy": int(np.count_nonzero(~keep)),
+        "compared_pairs": stats.compared,
+        "confirmed_pairs": stats.confirmed,
+        "long_runs": stats.long_runs,
+        "distinct_train_grams": len(train_set),
+        "dev_test_documents": len(shares),
+        "contamination": {k: v for k, v in summary.items() if k != "by_source"},
         "cpu_seconds": {k: round(v, 2) for k, v in clock.seconds.items()},
     }
 
@@ -232,8 +247,7 @@ def child(stage: str, scale: int) -> dict:
     output = subprocess.run(command, check=True, capture_output=True, text=True).stdout
     peak_kib, user, system = usage.read_text().split()[-3:]
     result = json.loads(output)
-    result.update({"peak_rss_mib": round(int(peak_kib) / 1024, 1), "process_cpu_seconds": round(float(user) + float(system), 2),
-                   "load_before": round(load, 2)})
+    result.update({"peak_rss_mib": round(int(peak_kib) / 1024, 1), "process_cpu_seconds": round(float(user) + float(system), 2), "load_before": round(load, 2)})
     return result
 
 
@@ -255,14 +269,22 @@ def main(argv: list[str] | None = None) -> None:
         floor = cpu["tokenise (floor F)"]
         added = sum(v for k, v in cpu.items() if k in ("words", "minhash", "band keys, digests, verification slots", "13-gram hashes", "train grams sorted"))
         total = added + sum(aggregated["cpu_seconds"].values())
-        results[f"x{scale}"] = {"prepare": prepared, "aggregate": aggregated, "floor_cpu_seconds": floor,
-                                "added_in_prepare_cpu_seconds": round(added, 2), "signature_cpu_seconds_per_mb": round(added / prepared["text_mb"], 4),
-                                "total_added_cpu_seconds": round(total, 2), "total_over_floor": round(total / floor, 3)}
-        print(f"{scale}x: {prepared['text_mb']} MB, {prepared['documents']:,} documents; floor F {floor:.2f} CPU-s; "
-              f"added in prepare {added:.2f} CPU-s ({added / prepared['text_mb'] * 1000:.1f} ms/MB): {prepared['cpu_seconds']}; "
-              f"aggregate {aggregated['cpu_seconds']} peak {aggregated['peak_rss_mib']} MiB (anonymous {aggregated['peak_rssanon_mib']}, "
-              f"mapped files {aggregated['peak_rssfile_mib']}); prepare child peak {prepared['peak_rss_mib']} MiB; "
-              f"total {total:.2f} CPU-s = {total / floor:.3f} x F; load {prepared['load_before']}/{aggregated['load_before']}")
+        results[f"x{scale}"] = {
+            "prepare": prepared,
+            "aggregate": aggregated,
+            "floor_cpu_seconds": floor,
+            "added_in_prepare_cpu_seconds": round(added, 2),
+            "signature_cpu_seconds_per_mb": round(added / prepared["text_mb"], 4),
+            "total_added_cpu_seconds": round(total, 2),
+            "total_over_floor": round(total / floor, 3),
+        }
+        print(
+            f"{scale}x: {prepared['text_mb']} MB, {prepared['documents']:,} documents; floor F {floor:.2f} CPU-s; "
+            f"added in prepare {added:.2f} CPU-s ({added / prepared['text_mb'] * 1000:.1f} ms/MB): {prepared['cpu_seconds']}; "
+            f"aggregate {aggregated['cpu_seconds']} peak {aggregated['peak_rss_mib']} MiB (anonymous {aggregated['peak_rssanon_mib']}, "
+            f"mapped files {aggregated['peak_rssfile_mib']}); prepare child peak {prepared['peak_rss_mib']} MiB; "
+            f"total {total:.2f} CPU-s = {total / floor:.3f} x F; load {prepared['load_before']}/{aggregated['load_before']}"
+        )
     RESULTS.mkdir(parents=True, exist_ok=True)
     (RESULTS / "near_duplicates.json").write_text(json.dumps(results, indent=1))
 

@@ -179,8 +179,9 @@ class JobSampler:
         first seen and its last job last seen, in seconds after `started`."""
         rules: dict[str, dict] = {}
         for pid, (rule, peak) in self.peaks.items():
-            entry = rules.setdefault(rule, {"jobs": 0, "peak_rss_mib": 0.0, "job_seconds": 0.0, "cpu_seconds": 0.0,
-                                            "first_seen_s": float("inf"), "last_seen_s": 0.0})
+            entry = rules.setdefault(
+                rule, {"jobs": 0, "peak_rss_mib": 0.0, "job_seconds": 0.0, "cpu_seconds": 0.0, "first_seen_s": float("inf"), "last_seen_s": 0.0}
+            )
             entry["jobs"] += 1
             entry["peak_rss_mib"] = round(max(entry["peak_rss_mib"], peak / 2**20), 1)
             first, last = self.seen[pid]
@@ -197,8 +198,17 @@ def run_build(directory: Path, overrides: dict, cores: int) -> dict:
     override = directory / "override.yaml"
     override.write_text(yaml.safe_dump(overrides), encoding="utf-8")
     command = [
-        sys.executable, "-m", "snakemake", "--snakefile", str(REPO / "Snakefile"), "--directory", str(directory),
-        "--cores", str(cores), "--configfile", str(override),
+        sys.executable,
+        "-m",
+        "snakemake",
+        "--snakefile",
+        str(REPO / "Snakefile"),
+        "--directory",
+        str(directory),
+        "--cores",
+        str(cores),
+        "--configfile",
+        str(override),
     ]
     load = os.getloadavg()[0]
     before = resource.getrusage(resource.RUSAGE_CHILDREN)
@@ -347,8 +357,12 @@ def scale_run(scale: int, cores: int, config: dict, append: bool) -> dict:
         rebuild["changed_file"] = changed
         rebuild["share_of_full_build"] = round(rebuild["seconds"] / seconds, 3)
         result["rebuild"] = rebuild
-        result["up_to_date_run"] = {"seconds": idle["seconds"], "cpu_seconds": idle["cpu_seconds"], "jobs": idle["jobs"],
-                                    "share_of_full_build": round(idle["seconds"] / seconds, 3)}
+        result["up_to_date_run"] = {
+            "seconds": idle["seconds"],
+            "cpu_seconds": idle["cpu_seconds"],
+            "jobs": idle["jobs"],
+            "share_of_full_build": round(idle["seconds"] / seconds, 3),
+        }
     if append:
         result["append"] = append_run(corpus, directory, overrides, cores, seconds)
     return result
@@ -379,10 +393,14 @@ def machine() -> dict:
 
 def print_table(results: dict) -> None:
     floor = results["floor"]
-    print(f"floor F (1 core, default segmenter only, 1x): {floor['seconds']:.1f} s wall, {floor['cpu_seconds']:.1f} s CPU, "
-          f"{floor['tokens']:,} tokens (load average {floor['load_before']})")
-    print(f"{'scale':>5} {'MB':>6} {'build s':>8} {'/F':>6} {'CPU s':>7} {'CPU/F':>6} {'MB/s':>6} {'tokens/s':>10} {'jobs':>5} "
-          f"{'peak RSS MiB (rule)':>22} {'read ids/s':>12} {'per CPU s':>12}")
+    print(
+        f"floor F (1 core, default segmenter only, 1x): {floor['seconds']:.1f} s wall, {floor['cpu_seconds']:.1f} s CPU, "
+        f"{floor['tokens']:,} tokens (load average {floor['load_before']})"
+    )
+    print(
+        f"{'scale':>5} {'MB':>6} {'build s':>8} {'/F':>6} {'CPU s':>7} {'CPU/F':>6} {'MB/s':>6} {'tokens/s':>10} {'jobs':>5} "
+        f"{'peak RSS MiB (rule)':>22} {'read ids/s':>12} {'per CPU s':>12}"
+    )
     for scale, run in results["scales"].items():
         build, rules, read = run["build"], run["build"]["rules"], run["read_train_shards"]
         worst = max(rules, key=lambda r: rules[r]["peak_rss_mib"])
@@ -395,8 +413,10 @@ def print_table(results: dict) -> None:
     for scale, run in results["scales"].items():
         print(f"per rule at {scale} (peak RSS / summed job CPU s / seconds after the start: first job seen, last job seen):")
         for rule, v in run["build"]["rules"].items():
-            print(f"  {rule:<12} {v['jobs']:>4} jobs {v['peak_rss_mib']:>7.0f} MiB {v['cpu_seconds']:>8.1f} CPU s "
-                  f"{v['first_seen_s']:>7.1f} {v['last_seen_s']:>7.1f}")
+            print(
+                f"  {rule:<12} {v['jobs']:>4} jobs {v['peak_rss_mib']:>7.0f} MiB {v['cpu_seconds']:>8.1f} CPU s "
+                f"{v['first_seen_s']:>7.1f} {v['last_seen_s']:>7.1f}"
+            )
         prepare = run["build"]["rules"].get("prepare")
         if prepare:
             tail = run["build"]["seconds"] - prepare["last_seen_s"]
@@ -405,23 +425,31 @@ def print_table(results: dict) -> None:
     one = results["scales"].get("1x")
     if script and one:
         peak = max(v["peak_rss_mib"] for v in one["build"]["rules"].values())
-        print(f"hand-written script (same corpus, {script.get('workers', 2)} workers): {script['outside_seconds']:.1f} s wall, "
-              f"{script['cpu_seconds']:.1f} CPU s, {script['peak_rss_tree_mib']:.0f} MiB peak (process tree); corpusmill 1x / script: "
-              f"{one['build']['seconds'] / script['outside_seconds']:.2f} (wall), {one['build']['cpu_seconds'] / script['cpu_seconds']:.2f} (CPU), "
-              f"largest job's peak / script's: {peak / script['peak_rss_tree_mib']:.2f}")
+        print(
+            f"hand-written script (same corpus, {script.get('workers', 2)} workers): {script['outside_seconds']:.1f} s wall, "
+            f"{script['cpu_seconds']:.1f} CPU s, {script['peak_rss_tree_mib']:.0f} MiB peak (process tree); corpusmill 1x / script: "
+            f"{one['build']['seconds'] / script['outside_seconds']:.2f} (wall), {one['build']['cpu_seconds'] / script['cpu_seconds']:.2f} (CPU), "
+            f"largest job's peak / script's: {peak / script['peak_rss_tree_mib']:.2f}"
+        )
     for scale, run in results["scales"].items():
         if "append" in run:
             a = run["append"]
-            print(f"append one file at {scale} with a frozen vocabulary: {a['seconds']:.1f} s = {a['share_of_full_build']:.1%} of the full build "
-                  f"({a['jobs']} jobs); shard files kept byte for byte: {a['shard_files_kept']} of {a['shard_files_before']}, "
-                  f"{a['new_shard_files']} new (first frozen build: {a['first_frozen_build']['seconds']:.1f} s, {a['first_frozen_build']['jobs']} jobs)")
+            print(
+                f"append one file at {scale} with a frozen vocabulary: {a['seconds']:.1f} s = {a['share_of_full_build']:.1%} of the full build "
+                f"({a['jobs']} jobs); shard files kept byte for byte: {a['shard_files_kept']} of {a['shard_files_before']}, "
+                f"{a['new_shard_files']} new (first frozen build: {a['first_frozen_build']['seconds']:.1f} s, {a['first_frozen_build']['jobs']} jobs)"
+            )
     if one and "rebuild" in one:
         r = one["rebuild"]
-        print(f"rebuild after changing {r['changed_file']}: {r['seconds']:.1f} s = {r['share_of_full_build']:.0%} of the full build "
-              f"({r['jobs']} jobs, {r['cpu_seconds']:.1f} CPU s)")
+        print(
+            f"rebuild after changing {r['changed_file']}: {r['seconds']:.1f} s = {r['share_of_full_build']:.0%} of the full build "
+            f"({r['jobs']} jobs, {r['cpu_seconds']:.1f} CPU s)"
+        )
         idle = one["up_to_date_run"]
-        print(f"the same command with nothing to do: {idle['seconds']:.1f} s = {idle['share_of_full_build']:.0%} of the full build "
-              f"({idle['cpu_seconds']:.1f} CPU s)")
+        print(
+            f"the same command with nothing to do: {idle['seconds']:.1f} s = {idle['share_of_full_build']:.0%} of the full build "
+            f"({idle['cpu_seconds']:.1f} CPU s)"
+        )
     if "1x" in results["scales"] and "10x" in results["scales"]:
         ratio = results["scales"]["10x"]["build"]["seconds"] / results["scales"]["1x"]["build"]["seconds"]
         print(f"10x / 1x build time: {ratio:.2f}")

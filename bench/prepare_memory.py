@@ -56,9 +56,25 @@ def run_prepare(path: Path, config: dict, output: Path) -> dict:
     plan = output / "chunk.json"
     write_if_changed(plan, chunk_record(path.parent, Chunk(chunk_key(path.name, 0), (path.name,))))
     command = [
-        TIME, "-f", "%M %U %S %e", sys.executable, "-m", "steps.run", "prepare", "--plan", str(plan), "--options", options,
-        "--output", str(output / "table.parquet"), "--tally", str(output / "tally.json"),
-        "--counts", str(output / "counts.parquet"), "--drops", str(output / "drops.parquet"),
+        TIME,
+        "-f",
+        "%M %U %S %e",
+        sys.executable,
+        "-m",
+        "steps.run",
+        "prepare",
+        "--plan",
+        str(plan),
+        "--options",
+        options,
+        "--output",
+        str(output / "table.parquet"),
+        "--tally",
+        str(output / "tally.json"),
+        "--counts",
+        str(output / "counts.parquet"),
+        "--drops",
+        str(output / "drops.parquet"),
     ]
     result = subprocess.run(command, capture_output=True, text=True, env={**os.environ, "PYTHONPATH": str(REPO)})
     if result.returncode != 0:
@@ -94,8 +110,10 @@ def main(argv: list[str] | None = None) -> None:
         run["text_mb"] = round(text_bytes / 1e6, 1)
         results["runs"][f"{copies}x"] = run
         shutil.rmtree(folder / f"out-x{copies}")
-        print(f"{copies}x: {run['text_mb']:.0f} MB of text in one .txt.gz: peak RSS {run['peak_rss_mib']:.0f} MiB, "
-              f"{run['cpu_seconds']:.1f} CPU s, {run['documents_kept']:,} documents kept")
+        print(
+            f"{copies}x: {run['text_mb']:.0f} MB of text in one .txt.gz: peak RSS {run['peak_rss_mib']:.0f} MiB, "
+            f"{run['cpu_seconds']:.1f} CPU s, {run['documents_kept']:,} documents kept"
+        )
     Path(args.output).parent.mkdir(parents=True, exist_ok=True)
     Path(args.output).write_text(json.dumps(results, indent=2, sort_keys=True) + "\n", encoding="utf-8")
 

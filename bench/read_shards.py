@@ -90,8 +90,7 @@ def main(argv: list[str] | None = None) -> None:
     opened = time.perf_counter() - opened
     kinds = args.kinds or list(build.kinds("train"))
     header = (
-        f"{'kind':<7} {'files':>5} {'rows':>11} {'ids':>12} {'bare Mids/s':>12} {'reader Mids/s':>14} "
-        f"{'ratio':>6} {'cpu ratio':>9} {'shuffled Mids/s':>16}"
+        f"{'kind':<7} {'files':>5} {'rows':>11} {'ids':>12} {'bare Mids/s':>12} {'reader Mids/s':>14} {'ratio':>6} {'cpu ratio':>9} {'shuffled Mids/s':>16}"
     )
     print(f"build {build.root}: opened and checked in {opened:.3f} s; batch size {args.batch_size}")
     print(header)

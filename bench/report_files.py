@@ -53,8 +53,7 @@ def piece_sources(start: int, stop: int) -> dict[str, dict]:
     """Encode statistics per file: 300-310 train pieces, some of them byte pieces."""
     sources = {}
     for i in range(start, stop):
-        train = {"tokens": 300 + i % 11, "words": 150, "oov_tokens": 0, "byte_pieces": 2 * (i % 89), "byte_runs": i % 89,
-                 "documents": 1, "sentences": 10}
+        train = {"tokens": 300 + i % 11, "words": 150, "oov_tokens": 0, "byte_pieces": 2 * (i % 89), "byte_runs": i % 89, "documents": 1, "sentences": 10}
         sources[path_of(i)] = {"train": train, **{s: dict.fromkeys(train, 0) for s in SPLITS if s != "train"}}
     return sources
 
@@ -76,9 +75,26 @@ def report_job(build: Path, unit: str, count: int, code: Path, folder: Path) -> 
     options = json.dumps({k: config[k] for k in RULE_SECTIONS["report"]}, sort_keys=True)
     page = folder / "index.html"
     command = [
-        TIME, "-f", "%M %e", sys.executable, "-m", "steps.run", "report_page", "--coverage", str(folder / "coverage.json"),
-        "--manifest", str(build / "manifest.json"), "--token-counts", str(build / "stats" / "token_counts.parquet"),
-        "--growth", str(build / "stats" / "growth.json"), *stats_arguments, "--options", options, "--output", str(page),
+        TIME,
+        "-f",
+        "%M %e",
+        sys.executable,
+        "-m",
+        "steps.run",
+        "report_page",
+        "--coverage",
+        str(folder / "coverage.json"),
+        "--manifest",
+        str(build / "manifest.json"),
+        "--token-counts",
+        str(build / "stats" / "token_counts.parquet"),
+        "--growth",
+        str(build / "stats" / "growth.json"),
+        *stats_arguments,
+        "--options",
+        options,
+        "--output",
+        str(page),
     ]
     load = os.getloadavg()[0]
     # Run from the output folder: `python -m` puts the working directory first on the import path.
@@ -87,10 +103,16 @@ def report_job(build: Path, unit: str, count: int, code: Path, folder: Path) -> 
         raise SystemExit(f"bench: the report job failed:\n{result.stderr[-3000:]}")
     peak_kib, wall = result.stderr.strip().splitlines()[-1].split()
     text = page.read_text(encoding="utf-8")
-    pixels = [struct.unpack(">II", base64.b64decode(e)[16:24]) for e in re.findall(r'data:image/png;base64,([A-Za-z0-9+/=]+)', text)]
+    pixels = [struct.unpack(">II", base64.b64decode(e)[16:24]) for e in re.findall(r"data:image/png;base64,([A-Za-z0-9+/=]+)", text)]
     width, height = max(pixels, key=lambda size: size[0] * size[1])
-    return {"peak_rss_mib": round(int(peak_kib) / 1024, 1), "wall_seconds": float(wall), "load_before": round(load, 2),
-            "page_bytes": len(text.encode("utf-8")), "largest_image": f"{width}x{height}", "largest_image_pixels": width * height}
+    return {
+        "peak_rss_mib": round(int(peak_kib) / 1024, 1),
+        "wall_seconds": float(wall),
+        "load_before": round(load, 2),
+        "page_bytes": len(text.encode("utf-8")),
+        "largest_image": f"{width}x{height}",
+        "largest_image_pixels": width * height,
+    }
 
 
 def main(argv: list[str] | None = None) -> None:
@@ -111,8 +133,10 @@ def main(argv: list[str] | None = None) -> None:
         for count in args.files:
             run = report_job(directory / "build", unit, count, args.code.resolve(), folder / f"{unit}-{count}")
             results["runs"][f"{unit} {count}"] = run
-            print(f"{unit:>7} {count:>6,} files: peak RSS {run['peak_rss_mib']:>7.0f} MiB, {run['wall_seconds']:>6.1f} s, "
-                  f"page {run['page_bytes']:>11,} bytes, largest image {run['largest_image']} (load {run['load_before']})")
+            print(
+                f"{unit:>7} {count:>6,} files: peak RSS {run['peak_rss_mib']:>7.0f} MiB, {run['wall_seconds']:>6.1f} s, "
+                f"page {run['page_bytes']:>11,} bytes, largest image {run['largest_image']} (load {run['load_before']})"
+            )
     Path(args.output).parent.mkdir(parents=True, exist_ok=True)
     Path(args.output).write_text(json.dumps(results, indent=2, sort_keys=True) + "\n", encoding="utf-8")
 

@@ -45,10 +45,7 @@ def read_text(path: Path | None, megabytes: float) -> str:
 
 def english_fortunes() -> str:
     """The English fortune files, in name order, concatenated."""
-    files = sorted(
-        p for p in FORTUNES.iterdir()
-        if p.is_file() and p.suffix not in (".dat", ".u8") and p.name not in NOT_ENGLISH_PROSE
-    )
+    files = sorted(p for p in FORTUNES.iterdir() if p.is_file() and p.suffix not in (".dat", ".u8") and p.name not in NOT_ENGLISH_PROSE)
     if not files:
         raise SystemExit(f"no fortune files in {FORTUNES}; install Debian's fortunes package")
     return "".join(p.read_text(encoding="utf-8", errors="replace") for p in files)

@@ -45,6 +45,7 @@ Deliberately messy cases (for the cleaning and dedup stages):
 * Junk documents: the single-word paragraph "Fog." (ferry_log_spring) and the
   digits-and-bars TALLY_PARAGRAPH (workshop notes).
 """
+
 from __future__ import annotations
 
 import gzip
@@ -70,64 +71,189 @@ SEVRIN = "S\u00e9vrin"
 
 # --- word lists; earlier entries are picked more often (see zipf()) ---------
 PEOPLE = [
-    ORELA, TUVVIK, "Dr. Quillane", "Maelo", "Sabeth Orrin", "Wennick",
-    "Keeper Vantis", "old Marrowne", "Ilvane Tosk", "Pim Oddrey", "Garrow Fenn",
-    f"{DAHLO} Sprigg", "Annick Velle", "Joss Umbertree", f"{SEVRIN} Oakhallow",
-    "Dr. Hesper Quillane", "Mother Brisk", "Tobbin Harl", "Quenna Dask",
+    ORELA,
+    TUVVIK,
+    "Dr. Quillane",
+    "Maelo",
+    "Sabeth Orrin",
+    "Wennick",
+    "Keeper Vantis",
+    "old Marrowne",
+    "Ilvane Tosk",
+    "Pim Oddrey",
+    "Garrow Fenn",
+    f"{DAHLO} Sprigg",
+    "Annick Velle",
+    "Joss Umbertree",
+    f"{SEVRIN} Oakhallow",
+    "Dr. Hesper Quillane",
+    "Mother Brisk",
+    "Tobbin Harl",
+    "Quenna Dask",
     "Ferrow the smith",
 ]
 PLACES = [
-    "Korrimund", "Vesk Landing", "Pellowan", "Tarnwhistle", "Ombrel Ford",
-    "Lissendrae", "the Quenning Narrows", "Havrosk", "Upper Ivenne",
-    "the Saltreed flats", "Orrin's Wharf", "Fendrowe",
+    "Korrimund",
+    "Vesk Landing",
+    "Pellowan",
+    "Tarnwhistle",
+    "Ombrel Ford",
+    "Lissendrae",
+    "the Quenning Narrows",
+    "Havrosk",
+    "Upper Ivenne",
+    "the Saltreed flats",
+    "Orrin's Wharf",
+    "Fendrowe",
 ]
 BOATS = [
-    "the Patient Heron", "the Lamplight", "the Third Daughter", "the Slow Otter",
-    "the Greyjack", "the Wicker Queen", "the Small Mercy", "the Dunmoth",
+    "the Patient Heron",
+    "the Lamplight",
+    "the Third Daughter",
+    "the Slow Otter",
+    "the Greyjack",
+    "the Wicker Queen",
+    "the Small Mercy",
+    "the Dunmoth",
 ]
 MONTHS = [
-    "Thawmonth", "Reedmonth", "Greenwater", "Highsun", "Drymonth", "Emberfall",
-    "Mistmonth", "Longdark", "Icemonth", "Kindling",
+    "Thawmonth",
+    "Reedmonth",
+    "Greenwater",
+    "Highsun",
+    "Drymonth",
+    "Emberfall",
+    "Mistmonth",
+    "Longdark",
+    "Icemonth",
+    "Kindling",
 ]
 FESTIVALS = ["Lantern Night", "the Thaw Fair", "the Moonsmeet", "the Reed Harvest", "Ferryman's Eve"]
 ORDINALS = [
-    "first", "second", "third", "fourth", "fifth", "sixth", "seventh",
-    "eighth", "ninth", "tenth", "eleventh", "twelfth",
+    "first",
+    "second",
+    "third",
+    "fourth",
+    "fifth",
+    "sixth",
+    "seventh",
+    "eighth",
+    "ninth",
+    "tenth",
+    "eleventh",
+    "twelfth",
 ]
 SMALL_NUMBERS = ["two", "three", "four", "five", "six", "seven", "eight", "nine", "ten", "eleven", "twelve"]
 RARE = [
-    "cordwhistle", "nettlewax", "bramblepitch", "fernglass", "oxlight",
-    "spindlecress", "mothsilk", "larkwort", "cobblesalt", "reedvellum",
-    "hobnettle", "dunwhistle", "emberwick", "quillmoss", "tarrowbark",
-    "sedgefelt", "ashcurd", "pitchnut", "willowglim", "marlstone", "pondlace",
-    "sorrelsmoke", "otterfat", "rushbutter", "clovewick", "gorsewool",
-    "lindenpaste", "creekbloom", "slatewhey", "mallowgrit", "pebblerind",
-    "fogbutter", "wrenglass", "hazelpitch", "loamsugar", "duckweed tea",
-    "sparkfern", "coldwick", "ripplecress", "bargewort",
+    "cordwhistle",
+    "nettlewax",
+    "bramblepitch",
+    "fernglass",
+    "oxlight",
+    "spindlecress",
+    "mothsilk",
+    "larkwort",
+    "cobblesalt",
+    "reedvellum",
+    "hobnettle",
+    "dunwhistle",
+    "emberwick",
+    "quillmoss",
+    "tarrowbark",
+    "sedgefelt",
+    "ashcurd",
+    "pitchnut",
+    "willowglim",
+    "marlstone",
+    "pondlace",
+    "sorrelsmoke",
+    "otterfat",
+    "rushbutter",
+    "clovewick",
+    "gorsewool",
+    "lindenpaste",
+    "creekbloom",
+    "slatewhey",
+    "mallowgrit",
+    "pebblerind",
+    "fogbutter",
+    "wrenglass",
+    "hazelpitch",
+    "loamsugar",
+    "duckweed tea",
+    "sparkfern",
+    "coldwick",
+    "ripplecress",
+    "bargewort",
 ]
 CARGO = [
-    "sacks of millet", "crates of dried reedfruit", "barrels of glimmer-oil",
-    "bales of tallowgrass", "the post bag", "three goats", "jars of pitch",
-    "coils of sallowcord", "baskets of eels", "a dozen lantern frames",
-    "cases of wickglass", "firewood", "salt blocks", "a cart and two mules",
-    "kegs of pear cider", "roof slates", "bolts of dyed linen", "a crated loom",
-    "a wedding party", "a sick calf", "seed potatoes", "a {coined} in a cage",
-    "bundles of {rare}", "a drumharp wrapped in blankets",
+    "sacks of millet",
+    "crates of dried reedfruit",
+    "barrels of glimmer-oil",
+    "bales of tallowgrass",
+    "the post bag",
+    "three goats",
+    "jars of pitch",
+    "coils of sallowcord",
+    "baskets of eels",
+    "a dozen lantern frames",
+    "cases of wickglass",
+    "firewood",
+    "salt blocks",
+    "a cart and two mules",
+    "kegs of pear cider",
+    "roof slates",
+    "bolts of dyed linen",
+    "a crated loom",
+    "a wedding party",
+    "a sick calf",
+    "seed potatoes",
+    "a {coined} in a cage",
+    "bundles of {rare}",
+    "a drumharp wrapped in blankets",
 ]
 PARTS = [
-    "wick", "chimney", "bowl", "hood", "bail", "collar", "drip-pan",
-    "vent cap", "reflector", "hinge", "shutter", "burner",
+    "wick",
+    "chimney",
+    "bowl",
+    "hood",
+    "bail",
+    "collar",
+    "drip-pan",
+    "vent cap",
+    "reflector",
+    "hinge",
+    "shutter",
+    "burner",
 ]
 PARTS_PL = ["wicks", "chimneys", "bowls", "hoods", "collars", "drip-pans", "vent caps", "reflectors", "hinges"]
 MATERIALS = [
-    "brass", "tin", "wickglass", "reed-paper", "clay", "tallow", "glimmer-oil",
-    "copper wire", "emberpith", "horn", "lampblack", "beeswax",
+    "brass",
+    "tin",
+    "wickglass",
+    "reed-paper",
+    "clay",
+    "tallow",
+    "glimmer-oil",
+    "copper wire",
+    "emberpith",
+    "horn",
+    "lampblack",
+    "beeswax",
 ]
 TOOLS = ["glass saw", "scoring wheel", "wick press", "soldering iron", "big file", "bench vice", "pipe cutter"]
 COLOURS = ["amber", "smoke-grey", "green", "rose", "pale gold", "blue", "milk-white", "copper"]
 ANIMALS = [
-    "herons", "otters", "marsh-larks", "velk", "goats", "river hogs",
-    "dragonflies", "swallows", "reed-cats", "mudcurl",
+    "herons",
+    "otters",
+    "marsh-larks",
+    "velk",
+    "goats",
+    "river hogs",
+    "dragonflies",
+    "swallows",
+    "reed-cats",
+    "mudcurl",
 ]
 DIRECTIONS = ["north", "west", "south-west", "east", "north-east", "south", "valley mouth"]
 WIND_ADJ = ["gusty", "light", "steady", "fresh", "strong", "fitful", "bitter"]
@@ -140,17 +266,27 @@ LANTERN_ADJ = ["new", "green-glass", "old", "mended", "borrowed", "hooded", "tal
 COMPARE = ["more than", "fewer than", "about the same as", "well above", "a little under"]
 DOCKS = ["north jetty", "lower steps", "toll-house landing", "old quay"]
 SAYINGS = [
-    "A dry lantern is a lazy lantern", "The river keeps no ledger",
-    "Slow water, quick tongues", "Never trust a calm Reedmonth",
-    "Pay the keeper, bless the boat", "Mud today, bread tomorrow",
+    "A dry lantern is a lazy lantern",
+    "The river keeps no ledger",
+    "Slow water, quick tongues",
+    "Never trust a calm Reedmonth",
+    "Pay the keeper, bless the boat",
+    "Mud today, bread tomorrow",
 ]
 TOPICS = [
-    "the repair of the eastern jetty", "the price of glimmer-oil",
-    "night crossings in flood season", "the apprentices' wages",
-    "the new bell for {place}", "the dispute over the {shoal} shoal",
-    "the lantern fund", "the tithe owed to {place}", "moorings for visiting boats",
-    "the state of the road to {place}", "whether to buy a second kiln",
-    "the rota for the night watch", "the leaking roof of the meeting hall",
+    "the repair of the eastern jetty",
+    "the price of glimmer-oil",
+    "night crossings in flood season",
+    "the apprentices' wages",
+    "the new bell for {place}",
+    "the dispute over the {shoal} shoal",
+    "the lantern fund",
+    "the tithe owed to {place}",
+    "moorings for visiting boats",
+    "the state of the road to {place}",
+    "whether to buy a second kiln",
+    "the rota for the night watch",
+    "the leaking roof of the meeting hall",
 ]
 MOTIONS = [
     "the eastern jetty be rebuilt in stone",
@@ -162,28 +298,39 @@ MOTIONS = [
     "{person} be thanked for {good_deed}",
 ]
 GOOD_DEEDS = [
-    "mending the toll-house roof", "organising {festival}",
-    "twenty years at the tiller", "finding the lost post bag",
+    "mending the toll-house roof",
+    "organising {festival}",
+    "twenty years at the tiller",
+    "finding the lost post bag",
 ]
 PURCHASES = [
-    "a new {part} for {boat}", "{num} yards of sallowcord", "a second kiln",
-    "paint for the toll-house", "a better barometer",
+    "a new {part} for {boat}",
+    "{num} yards of sallowcord",
+    "a second kiln",
+    "paint for the toll-house",
+    "a better barometer",
 ]
 OPINIONS = [
-    "the cost was too high", "the keepers had not been consulted",
-    "the matter could wait until {month}", "it was unfair to the apprentices",
+    "the cost was too high",
+    "the keepers had not been consulted",
+    "the matter could wait until {month}",
+    "it was unfair to the apprentices",
     "the river would simply undo the work",
 ]
 VOTES = ["by {n_small} votes to {n_small}", "unanimously", "on a show of hands", "narrowly, {n_small} to {n_small}"]
 NEWS = [
-    "the old mill finally fell down", "{person} has taken up the fiddle",
-    "{boat} has a new coat of paint", "there are ducklings under the jetty",
+    "the old mill finally fell down",
+    "{person} has taken up the fiddle",
+    "{boat} has a new coat of paint",
+    "there are ducklings under the jetty",
     "{person} and {person} are no longer speaking",
     "a stranger called {stranger} has bought the empty house by the ford",
 ]
 RUMOURS = [
-    "{place} wants its own ferry", "the council will raise fares by {coins}",
-    "the {shoal} shoal is going to close the channel", "{person} is leaving for {place}",
+    "{place} wants its own ferry",
+    "the council will raise fares by {coins}",
+    "the {shoal} shoal is going to close the channel",
+    "{person} is leaving for {place}",
 ]
 ANECDOTES = [
     "{person} fell off the jetty holding a full lantern and kept it lit",
@@ -194,57 +341,173 @@ ANECDOTES = [
 SMELLS = ["hot tallow", "wet reeds", "glimmer-oil", "bread from Pim's oven", "river mud"]
 FOODS = ["pear cider", "reedfruit jam", "smoked eel", "honeyed millet", "pickled {rare}", "kessa root preserve"]
 BOOKS = [
-    "the almanac", "the old ferry ledgers", "\"The Keeper's Reckoning\"",
-    "that book of river songs", "Dr. Quillane's notes on fevers",
+    "the almanac",
+    "the old ferry ledgers",
+    '"The Keeper\'s Reckoning"',
+    "that book of river songs",
+    "Dr. Quillane's notes on fevers",
 ]
 PERSON_ADJ = ["slow", "nervous", "cheerful", "clumsy", "very quiet", "sharp-tongued"]
 SIGNS = ["a ring round Pell", "geese flying low", "the herons leaving early", "a red dawn over {place}"]
 MOON_PHASES = ["full", "new", "waxing", "waning", "half"]
 THIN = ["paper", "a fish scale", "breath on glass"]
 INGREDIENTS = [
-    "millet", "reedfruit", "kessa root", "river eel", "pear", "barley", "onion",
-    "marsh cress", "goat's cheese", "{rare}",
+    "millet",
+    "reedfruit",
+    "kessa root",
+    "river eel",
+    "pear",
+    "barley",
+    "onion",
+    "marsh cress",
+    "goat's cheese",
+    "{rare}",
 ]
 SPICES = ["brindleseed", "salt", "pepperbark", "dried larkwort", "honey", "smoked {rare}"]
 PREPS = ["chop", "soak", "grate", "mash", "rinse", "roast"]
 THINGS = [
-    "ladder", "bucket", "sail", "net", "ledger", "kettle", "gangplank",
-    "anchor chain", "oar", "tarpaulin", "signal flag", "lamp-hook", "bench",
-    "crate", "sieve", "spade", "broom", "grindstone", "toll box", "stool",
-    "cauldron", "rain barrel", "weathervane", "oilcloth", "mallet", "rake",
-    "handcart", "boathook", "fish trap", "pulley", "water jug", "door latch",
-    "chicken coop", "slate roof", "wheelbarrow", "fence post", "sounding pole",
+    "ladder",
+    "bucket",
+    "sail",
+    "net",
+    "ledger",
+    "kettle",
+    "gangplank",
+    "anchor chain",
+    "oar",
+    "tarpaulin",
+    "signal flag",
+    "lamp-hook",
+    "bench",
+    "crate",
+    "sieve",
+    "spade",
+    "broom",
+    "grindstone",
+    "toll box",
+    "stool",
+    "cauldron",
+    "rain barrel",
+    "weathervane",
+    "oilcloth",
+    "mallet",
+    "rake",
+    "handcart",
+    "boathook",
+    "fish trap",
+    "pulley",
+    "water jug",
+    "door latch",
+    "chicken coop",
+    "slate roof",
+    "wheelbarrow",
+    "fence post",
+    "sounding pole",
 ]
 VERBS = [
-    "mended", "painted", "carried", "inspected", "sold", "borrowed", "scrubbed",
-    "weighed", "tarred", "patched", "lost", "found", "sharpened", "polished",
-    "measured", "stacked", "wrapped", "repainted", "hid", "returned", "dried",
-    "emptied", "propped up", "argued over", "traded away",
+    "mended",
+    "painted",
+    "carried",
+    "inspected",
+    "sold",
+    "borrowed",
+    "scrubbed",
+    "weighed",
+    "tarred",
+    "patched",
+    "lost",
+    "found",
+    "sharpened",
+    "polished",
+    "measured",
+    "stacked",
+    "wrapped",
+    "repainted",
+    "hid",
+    "returned",
+    "dried",
+    "emptied",
+    "propped up",
+    "argued over",
+    "traded away",
 ]
 ADVERBS = [
-    "carefully", "badly", "twice", "without complaint", "in a hurry",
-    "by lamplight", "before breakfast", "at last", "for the third time",
-    "slowly", "cheerfully", "grudgingly", "in the rain", "with great ceremony",
+    "carefully",
+    "badly",
+    "twice",
+    "without complaint",
+    "in a hurry",
+    "by lamplight",
+    "before breakfast",
+    "at last",
+    "for the third time",
+    "slowly",
+    "cheerfully",
+    "grudgingly",
+    "in the rain",
+    "with great ceremony",
 ]
 ADJECTIVES = [
-    "crooked", "muddy", "quiet", "rusty", "strange", "warm", "heavy", "narrow",
-    "splendid", "sour", "faint", "peculiar", "sturdy", "damp", "brittle",
-    "gleaming", "ancient", "lopsided", "fragrant", "shabby", "stubborn",
-    "generous", "restless", "noisy", "gentle", "worn", "dim", "cold",
+    "crooked",
+    "muddy",
+    "quiet",
+    "rusty",
+    "strange",
+    "warm",
+    "heavy",
+    "narrow",
+    "splendid",
+    "sour",
+    "faint",
+    "peculiar",
+    "sturdy",
+    "damp",
+    "brittle",
+    "gleaming",
+    "ancient",
+    "lopsided",
+    "fragrant",
+    "shabby",
+    "stubborn",
+    "generous",
+    "restless",
+    "noisy",
+    "gentle",
+    "worn",
+    "dim",
+    "cold",
 ]
 STATES = [
-    "broken", "leaking", "loose", "rusted", "cracked", "missing a nail",
-    "full of water", "crooked", "filthy", "rotten through",
+    "broken",
+    "leaking",
+    "loose",
+    "rusted",
+    "cracked",
+    "missing a nail",
+    "full of water",
+    "crooked",
+    "filthy",
+    "rotten through",
 ]
 BREAKAGES = ["split", "rusted through", "lost a leg", "sprung a leak", "come apart at the seams"]
 MOODS = [
-    "cheerful", "short-tempered", "quiet", "restless", "unusually talkative",
-    "gloomy", "in fine spirits", "worried",
+    "cheerful",
+    "short-tempered",
+    "quiet",
+    "restless",
+    "unusually talkative",
+    "gloomy",
+    "in fine spirits",
+    "worried",
 ]
 CREATURES = ["heron", "fish", "beetle", "goat", "moth", "lizard", "frog", "owl"]
 DISHES = [
-    "{ingredient_cap} dumplings", "Ferry-keeper's stew", "Reedfruit tart",
-    "Smoked eel with {spice}", "{coined_cap} pie", "Lantern Night buns",
+    "{ingredient_cap} dumplings",
+    "Ferry-keeper's stew",
+    "Reedfruit tart",
+    "Smoked eel with {spice}",
+    "{coined_cap} pie",
+    "Lantern Night buns",
     "Millet porridge, the Pellowan way",
 ]
 
@@ -266,7 +529,7 @@ FERRY = [
     "No. {boatno} ferry was laid up all day with a cracked {part}.",
     "Saw {animal} on the {side} bank, more than I've counted all season.",
     "It's the {ordinal} crossing this month that has scraped the {shoal} shoal.",
-    "\"{saying},\" said {person}, and nobody argued.",
+    '"{saying}," said {person}, and nobody argued.',
     "Fares taken: {coins}, of which {coins} went to the lantern fund.",
     "The {lantern_adj} lantern at the bow burned steady the whole way (a wick from {person}'s workshop).",
     "Mist rose off the water before {bell} and did not lift until we were past {place}.",
@@ -364,11 +627,13 @@ RECIPE = [
     "It keeps for {n_small} days in a cool jar.",
     "If there's no {ingredient}, use {ingredient} instead.",
     "Bake in a hot oven (the side nearest the flue) until golden.",
-    "My grandmother called this dish \"{coined}\", though nobody knows why.",
+    'My grandmother called this dish "{coined}", though nobody knows why.',
 ]
 ASIDES = [
-    "It's been a long week.", "(More on this tomorrow.)",
-    "I'm too tired to write more.", "See also the entry for {date}.",
+    "It's been a long week.",
+    "(More on this tomorrow.)",
+    "I'm too tired to write more.",
+    "See also the entry for {date}.",
     "That's all for now.",
 ]
 COMMON = [
@@ -384,67 +649,57 @@ COMMON = [
     "The {adjective} {thing} that {person} bought at {place} has already {breakage}.",
     "A traveller from {place} told us about a {coined}, which sounds like a kind of {creature}.",
     "Heard a {adjective} song from across the water, something about a {coined}.",
-    "I'm told the word for it in the hill dialect is \"{coined}\".",
+    'I\'m told the word for it in the hill dialect is "{coined}".',
     "{person} keeps a {adjective} notebook of {coined} sightings.",
     "It rained on and off, and the {thing} got soaked.",
     "Approx. {num} people came, by {person}'s count.",
     "Paid {stranger} {coins} for a {adjective} {thing} and a sack of {rare}.",
 ]
 EMOJI = [
-    "\U0001F3EE", "\U0001F30A", "\u26F4\uFE0F", "\U0001F642",
-    "\U0001F410\U0001F410\U0001F410", "\U0001F319\U0001F319",
-    "\U0001F469\u200D\U0001F527",
+    "\U0001f3ee",
+    "\U0001f30a",
+    "\u26f4\ufe0f",
+    "\U0001f642",
+    "\U0001f410\U0001f410\U0001f410",
+    "\U0001f319\U0001f319",
+    "\U0001f469\u200d\U0001f527",
 ]
 WRITERS = [
-    (f"{ORELA} Vantis", ORELA), (f"{TUVVIK} Marrowne", TUVVIK),
-    ("Annick Velle", "Annick"), ("Dr. Hesper Quillane", "Hesper"),
-    ("Maelo Dask", "Maelo"), (f"{DAHLO} Sprigg", DAHLO),
+    (f"{ORELA} Vantis", ORELA),
+    (f"{TUVVIK} Marrowne", TUVVIK),
+    ("Annick Velle", "Annick"),
+    ("Dr. Hesper Quillane", "Hesper"),
+    ("Maelo Dask", "Maelo"),
+    (f"{DAHLO} Sprigg", DAHLO),
     (f"{SEVRIN} Oakhallow", SEVRIN),
 ]
 CLOSINGS = ["Yours", "With love", "Warmly", "In haste", "Ever yours", "Your friend"]
 
 # --- hand-written special documents (the messy cases) -----------------------
 SHARED_NOTICE = (
-    "Notice from the council: no crossings after the dusk bell until the water "
-    "falls below 4.5 spans. Keepers who break this rule will lose a week's fares."
+    "Notice from the council: no crossings after the dusk bell until the water falls below 4.5 spans. Keepers who break this rule will lose a week's fares."
 )
 NAME_PARAGRAPH = (
-    f"{ORELA} and {TUVVIK} came over on the early boat with {DAHLO}'s nephew. "
-    f"{SEVRIN} met them at the steps with a handcart and a very old umbrella."
+    f"{ORELA} and {TUVVIK} came over on the early boat with {DAHLO}'s nephew. {SEVRIN} met them at the steps with a handcart and a very old umbrella."
 )
 WHITESPACE_PARAGRAPH = (
     "Took the big barge across at noon.\tThe load was heavy:  approx.   3.5\u00a0tonnes\n"
     "of roof slates for Havrosk.   \n"
     "Wennick says it's the heaviest load since Thawmonth, and I believe him.  "
 )
-BELL_PARAGRAPH = (
-    "The signal bell at the north jetty rang twice on its own\u0007 just after "
-    "midnight. Nobody was there. Wennick thinks it was a reed-cat."
-)
-ZWSP_PARAGRAPH = (
-    "The ferry\u200bkeeper's hut needs a new door. I measured it at 1.9 by 0.8 "
-    "spans and gave the numbers to Garrow Fenn."
-)
-VT_PARAGRAPH = (
-    "Item 9. Sabeth Orrin read the list of unpaid tolls.\u000bThe list was long. "
-    "Members agreed to post it on the toll-house door."
-)
+BELL_PARAGRAPH = "The signal bell at the north jetty rang twice on its own\u0007 just after midnight. Nobody was there. Wennick thinks it was a reed-cat."
+ZWSP_PARAGRAPH = "The ferry\u200bkeeper's hut needs a new door. I measured it at 1.9 by 0.8 spans and gave the numbers to Garrow Fenn."
+VT_PARAGRAPH = "Item 9. Sabeth Orrin read the list of unpaid tolls.\u000bThe list was long. Members agreed to post it on the toll-house door."
 NFD_MINUTES_PARAGRAPH = (
-    f"Item 2. {ORELA} Vantis thanked {TUVVIK} Marrowne for the new lanterns on "
-    f"the Wicker Queen. {SEVRIN} Oakhallow asked for the same on the Greyjack."
+    f"Item 2. {ORELA} Vantis thanked {TUVVIK} Marrowne for the new lanterns on the Wicker Queen. {SEVRIN} Oakhallow asked for the same on the Greyjack."
 )
-TALLY_PARAGRAPH = (
-    "Tally, week 3:\n"
-    "12 | 14 | 9 | 31 | --\n"
-    "\t7 | 0 | 22 | 18 | --\n"
-    "== | == | == | == | 113   "
-)
+TALLY_PARAGRAPH = "Tally, week 3:\n12 | 14 | 9 | 31 | --\n\t7 | 0 | 22 | 18 | --\n== | == | == | == | 113   "
 EMOJI_LETTER = (
     "Dear Maelo,\n\n"
     "The kiln is fixed! Garrow says I'm now the valley's only lantern "
-    "mechanic \U0001F469\u200D\U0001F527 and I intend to make everyone call me that. "
+    "mechanic \U0001f469\u200d\U0001f527 and I intend to make everyone call me that. "
     "Come and see the new \u200bfurnace door before Lantern Night.\n\n"
-    "Warmly,\nAnnick \U0001F3EE\U0001F525"
+    "Warmly,\nAnnick \U0001f3ee\U0001f525"
 )
 
 Gen = Callable[[random.Random], str]
@@ -457,10 +712,7 @@ def zipf(rng: random.Random, items: list[str]) -> str:
 
 def coin(rng: random.Random) -> str:
     """Make a fresh nonsense word of two or three syllables."""
-    return "".join(
-        rng.choice(ONSETS) + rng.choice(VOWELS) + rng.choice(CODAS)
-        for _ in range(rng.choice([2, 2, 3]))
-    )
+    return "".join(rng.choice(ONSETS) + rng.choice(VOWELS) + rng.choice(CODAS) for _ in range(rng.choice([2, 2, 3])))
 
 
 def ordinal_suffix(day: int) -> str:
@@ -492,10 +744,15 @@ def coins(rng: random.Random) -> str:
 
 
 def bell(rng: random.Random) -> str:
-    return rng.choice([
-        f"the {rng.choice(ORDINALS)} bell", f"half past the {rng.choice(ORDINALS)} bell",
-        "dawn", "noon", "the dusk bell",
-    ])
+    return rng.choice(
+        [
+            f"the {rng.choice(ORDINALS)} bell",
+            f"half past the {rng.choice(ORDINALS)} bell",
+            "dawn",
+            "noon",
+            "the dusk bell",
+        ]
+    )
 
 
 def stranger(rng: random.Random) -> str:
@@ -519,29 +776,69 @@ def pick(items: list[str]) -> Gen:
 
 
 SLOTS: dict[str, Gen] = {
-    "person": pick(PEOPLE), "place": pick(PLACES), "boat": pick(BOATS),
-    "boat_cap": capitalised(pick(BOATS)), "month": pick(MONTHS),
-    "festival": pick(FESTIVALS), "ordinal": pick(ORDINALS), "cargo": pick(CARGO),
-    "rare": pick(RARE), "part": pick(PARTS), "part_pl": pick(PARTS_PL),
-    "material": pick(MATERIALS), "tool": pick(TOOLS), "colour": pick(COLOURS),
-    "animal": pick(ANIMALS), "direction": pick(DIRECTIONS),
-    "wind_adj": pick(WIND_ADJ), "sky": pick(SKY), "current_adj": pick(CURRENT_ADJ),
-    "trend": pick(TREND), "side": pick(SIDES), "shoal": pick(SHOALS),
-    "lantern_adj": pick(LANTERN_ADJ), "compare": pick(COMPARE), "dock": pick(DOCKS),
-    "saying": pick(SAYINGS), "topic": pick(TOPICS), "motion": pick(MOTIONS),
-    "good_deed": pick(GOOD_DEEDS), "purchase": pick(PURCHASES),
-    "opinion": pick(OPINIONS), "votes": pick(VOTES), "news": pick(NEWS),
-    "rumour": pick(RUMOURS), "anecdote": pick(ANECDOTES), "smell": pick(SMELLS),
-    "food": pick(FOODS), "book": pick(BOOKS), "person_adj": pick(PERSON_ADJ),
-    "sign": pick(SIGNS), "moon_phase": pick(MOON_PHASES), "thin": pick(THIN),
-    "ingredient": pick(INGREDIENTS), "ingredient_cap": capitalised(pick(INGREDIENTS)),
-    "spice": pick(SPICES), "prep": pick(PREPS), "thing": pick(THINGS),
-    "verb": pick(VERBS), "adverb": pick(ADVERBS), "adjective": pick(ADJECTIVES),
-    "state": pick(STATES), "breakage": pick(BREAKAGES), "mood": pick(MOODS),
+    "person": pick(PEOPLE),
+    "place": pick(PLACES),
+    "boat": pick(BOATS),
+    "boat_cap": capitalised(pick(BOATS)),
+    "month": pick(MONTHS),
+    "festival": pick(FESTIVALS),
+    "ordinal": pick(ORDINALS),
+    "cargo": pick(CARGO),
+    "rare": pick(RARE),
+    "part": pick(PARTS),
+    "part_pl": pick(PARTS_PL),
+    "material": pick(MATERIALS),
+    "tool": pick(TOOLS),
+    "colour": pick(COLOURS),
+    "animal": pick(ANIMALS),
+    "direction": pick(DIRECTIONS),
+    "wind_adj": pick(WIND_ADJ),
+    "sky": pick(SKY),
+    "current_adj": pick(CURRENT_ADJ),
+    "trend": pick(TREND),
+    "side": pick(SIDES),
+    "shoal": pick(SHOALS),
+    "lantern_adj": pick(LANTERN_ADJ),
+    "compare": pick(COMPARE),
+    "dock": pick(DOCKS),
+    "saying": pick(SAYINGS),
+    "topic": pick(TOPICS),
+    "motion": pick(MOTIONS),
+    "good_deed": pick(GOOD_DEEDS),
+    "purchase": pick(PURCHASES),
+    "opinion": pick(OPINIONS),
+    "votes": pick(VOTES),
+    "news": pick(NEWS),
+    "rumour": pick(RUMOURS),
+    "anecdote": pick(ANECDOTES),
+    "smell": pick(SMELLS),
+    "food": pick(FOODS),
+    "book": pick(BOOKS),
+    "person_adj": pick(PERSON_ADJ),
+    "sign": pick(SIGNS),
+    "moon_phase": pick(MOON_PHASES),
+    "thin": pick(THIN),
+    "ingredient": pick(INGREDIENTS),
+    "ingredient_cap": capitalised(pick(INGREDIENTS)),
+    "spice": pick(SPICES),
+    "prep": pick(PREPS),
+    "thing": pick(THINGS),
+    "verb": pick(VERBS),
+    "adverb": pick(ADVERBS),
+    "adjective": pick(ADJECTIVES),
+    "state": pick(STATES),
+    "breakage": pick(BREAKAGES),
+    "mood": pick(MOODS),
     "creature": pick(CREATURES),
-    "coined": coin, "coined_cap": capitalised(coin), "stranger": stranger,
-    "date": date, "n_small": small_number, "num": number, "dec": decimal,
-    "coins": coins, "bell": bell,
+    "coined": coin,
+    "coined_cap": capitalised(coin),
+    "stranger": stranger,
+    "date": date,
+    "n_small": small_number,
+    "num": number,
+    "dec": decimal,
+    "coins": coins,
+    "bell": bell,
     "boatno": lambda rng: str(rng.randint(1, 7)),
     "batchno": lambda rng: str(rng.randint(1, 240)),
     "temp": lambda rng: f"{rng.randint(120, 220) * 5:,}",
@@ -612,9 +909,7 @@ def compose_log(rng: random.Random, target: int, first_day: int, specials: dict[
     return docs
 
 
-def compose_paragraphs(
-    rng: random.Random, templates: list[str], target: int, specials: dict[int, str], header: Gen | None = None
-) -> list[str]:
+def compose_paragraphs(rng: random.Random, templates: list[str], target: int, specials: dict[int, str], header: Gen | None = None) -> list[str]:
     """Generic paragraphs of 2-10 sentences (optionally led by a header sentence)."""
     docs: list[str] = []
     while word_count(docs) < target:
@@ -638,10 +933,7 @@ def compose_minutes(rng: random.Random, target: int, specials: dict[int, str]) -
             docs.append(specials[len(docs)])
         elif item == 0:
             present = ", ".join(rng.sample(PEOPLE[:12], rng.randint(3, 6)))
-            docs.append(maybe_wrap(rng, (
-                f"Minutes of the council, held at {zipf(rng, PLACES)} on {date(rng)}, "
-                f"year 312. Present: {present}."
-            )))
+            docs.append(maybe_wrap(rng, (f"Minutes of the council, held at {zipf(rng, PLACES)} on {date(rng)}, year 312. Present: {present}.")))
             item = 1
         else:
             body = " ".join(sentences(rng, MINUTES, rng.randint(2, 9)))
@@ -707,13 +999,29 @@ def main() -> None:
     for sub in ["logs", "letters", "minutes", "workshop", "journals"]:
         (OUT / sub).mkdir(parents=True)
 
-    spring = compose_log(random.Random(3101), 11000, 0, {
-        3: NAME_PARAGRAPH, 8: SHARED_NOTICE, 14: WHITESPACE_PARAGRAPH,
-        22: "Fog.", 27: BELL_PARAGRAPH, 31: SHARED_NOTICE,
-    })
-    autumn = compose_log(random.Random(3102), 11000, 150, {
-        6: nfd(NAME_PARAGRAPH), 15: SHARED_NOTICE, 19: ZWSP_PARAGRAPH,
-    })
+    spring = compose_log(
+        random.Random(3101),
+        11000,
+        0,
+        {
+            3: NAME_PARAGRAPH,
+            8: SHARED_NOTICE,
+            14: WHITESPACE_PARAGRAPH,
+            22: "Fog.",
+            27: BELL_PARAGRAPH,
+            31: SHARED_NOTICE,
+        },
+    )
+    autumn = compose_log(
+        random.Random(3102),
+        11000,
+        150,
+        {
+            6: nfd(NAME_PARAGRAPH),
+            15: SHARED_NOTICE,
+            19: ZWSP_PARAGRAPH,
+        },
+    )
     (OUT / "logs" / "ferry_log_spring.txt").write_bytes(join_paragraphs(random.Random(1), spring).encode())
     (OUT / "logs" / "ferry_log_autumn.txt").write_bytes(join_paragraphs(random.Random(2), autumn).encode())
 
@@ -721,16 +1029,28 @@ def main() -> None:
     jsonl = "".join(json.dumps(record, ensure_ascii=False) + "\n" for record in letters)
     (OUT / "letters" / "letters.jsonl.gz").write_bytes(gzip_bytes(jsonl.encode()))
 
-    minutes = compose_minutes(random.Random(3104), 12000, {
-        4: nfd(NFD_MINUTES_PARAGRAPH), 11: VT_PARAGRAPH, 20: SHARED_NOTICE,
-    })
+    minutes = compose_minutes(
+        random.Random(3104),
+        12000,
+        {
+            4: nfd(NFD_MINUTES_PARAGRAPH),
+            11: VT_PARAGRAPH,
+            20: SHARED_NOTICE,
+        },
+    )
     minutes_text = join_paragraphs(random.Random(4), minutes).encode()
     compressor = zstandard.ZstdCompressor(level=19)
     (OUT / "minutes" / "council_minutes.txt.zst").write_bytes(compressor.compress(minutes_text))
 
-    workshop = compose_paragraphs(random.Random(3105), WORKSHOP, 10000, {
-        17: TALLY_PARAGRAPH, 33: "Stock check postponed.   \n\tSee the slate by the door.",
-    })
+    workshop = compose_paragraphs(
+        random.Random(3105),
+        WORKSHOP,
+        10000,
+        {
+            17: TALLY_PARAGRAPH,
+            33: "Stock check postponed.   \n\tSee the slate by the door.",
+        },
+    )
     workshop_text = "\n\n".join(workshop) + "\n"
     (OUT / "workshop" / "workshop_notes.txt").write_bytes(workshop_text.replace("\n", "\r\n").encode())
 

@@ -199,9 +199,7 @@ def main(argv: list[str] | None = None) -> None:
         removed_by_file.setdefault(group["source"], {})[group["reason"]] = group["offset_count"]
     write_json(layout.accounting, merge(tallies, {entry["values"]: entry["counts"] for entry in per_file}, removed_by_file))
     logs = [pq.ParquetFile(layout.drop_log(chunk)).read(use_threads=False) for chunk in chunks]
-    removed = pa.table(
-        {"source": duplicates["source"], "offset": duplicates["offset"], "reason": pa.array(["duplicate"] * duplicates.num_rows, pa.string())}
-    )
+    removed = pa.table({"source": duplicates["source"], "offset": duplicates["offset"], "reason": pa.array(["duplicate"] * duplicates.num_rows, pa.string())})
     dropped = pa.concat_tables([dropped_schema().empty_table(), *logs, removed.cast(dropped_schema()), others.cast(dropped_schema())])
     write_table(layout.dropped, dropped.sort_by([("source", "ascending"), ("offset", "ascending"), ("reason", "ascending")]))
     print(f"{dropped.num_rows} dropped documents recorded")

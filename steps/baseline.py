@@ -74,8 +74,11 @@ def sentences(batch: dict, where: str, vocabulary_size: int) -> tuple[np.ndarray
     if wrong.any():
         at = int(np.argmax(wrong))
         document = int(np.searchsorted(offsets, at, side="right")) - 1
-        raise refuse(document, f"id {int(ids[at])} at position {at - int(starts[document])} "
-                               f"(ids run from 0 to {vocabulary_size - 1}; <pad> and <s> occur only as padding and document start)")
+        raise refuse(
+            document,
+            f"id {int(ids[at])} at position {at - int(starts[document])} "
+            f"(ids run from 0 to {vocabulary_size - 1}; <pad> and <s> occur only as padding and document start)",
+        )
     tokens = ids[body]
     ends_of_sentences = np.flatnonzero(tokens == EOS_ID)
     lengths = np.diff(np.concatenate([[-1], ends_of_sentences])) - 1
@@ -98,8 +101,7 @@ def file_sentences(paths: list[Path], where: str, vocabulary_size: int) -> Itera
         for batch in pq.ParquetFile(path).iter_batches(DOCUMENTS_PER_BATCH, columns=["doc_id", "ids"], use_threads=False):
             lists = batch.column("ids")
             offsets = lists.offsets.to_numpy().astype(np.int64)
-            rows = {"ids": lists.flatten().to_numpy(), "offsets": offsets - offsets[0],
-                    "doc_id": batch.column("doc_id").to_numpy(zero_copy_only=False)}
+            rows = {"ids": lists.flatten().to_numpy(), "offsets": offsets - offsets[0], "doc_id": batch.column("doc_id").to_numpy(zero_copy_only=False)}
             yield sentences(rows, f"{where}: {path}", vocabulary_size)
 
 
@@ -155,8 +157,14 @@ class Baseline:
             "conventions": CONVENTIONS,
             "splits": {split: figures(score) for split, score in self.scores.items()},
             "discounts": {
-                str(k): {"d1": w.discounts.d1, "d2": w.discounts.d2, "d3+": w.discounts.d3, "fallback": w.discounts.fallback,
-                         "count_of_counts": list(w.count_of_counts), "counts": "raw" if k == self.order else "continuation"}
+                str(k): {
+                    "d1": w.discounts.d1,
+                    "d2": w.discounts.d2,
+                    "d3+": w.discounts.d3,
+                    "fallback": w.discounts.fallback,
+                    "count_of_counts": list(w.count_of_counts),
+                    "counts": "raw" if k == self.order else "continuation",
+                }
                 for k, w in enumerate(self.model.weights, start=1)
             },
             "warnings": self.warnings(),
@@ -173,8 +181,7 @@ def format_baseline(baseline: Baseline) -> str:
     name = {"modified": "interpolated modified Kneser-Ney", "interpolated": "interpolated Kneser-Ney"}[baseline.smoothing]
     train_tokens = train.tokens if (train := scores["train"]) else 0
     lines = [
-        f"baseline of {baseline.name}: {name} (Chen and Goodman 1998), order {baseline.order}, "
-        f"counted on train ({train_tokens:,} predicted tokens)",
+        f"baseline of {baseline.name}: {name} (Chen and Goodman 1998), order {baseline.order}, counted on train ({train_tokens:,} predicted tokens)",
         f"vocabulary: {baseline.vocabulary_size:,} ids, {kneser_ney.predictable(baseline.vocabulary_size):,} predictable",
         "",
         f"{'perplexity':<22}" + "".join(f"{split:>14}" for split in scores),
@@ -246,11 +253,10 @@ def run(build: Build, order: int | None, smoothing: kneser_ney.Smoothing) -> Bas
     """The baseline of a finished build, read through steps.reader."""
     missing = [split for split in SPLITS if split in build.splits and "stream" not in build.kinds(split)]
     if "train" not in build.splits or missing:
-        raise fail(f"{build.root / MANIFEST}: no stream shards for {', '.join(missing) or 'train'}; "
-                   f"the baseline reads each split's document streams: {ENABLE_STREAMS}")
-    splits: dict[str, Sentences | None] = {
-        split: functools.partial(split_sentences, build, split) if split in build.splits else None for split in SPLITS
-    }
+        raise fail(
+            f"{build.root / MANIFEST}: no stream shards for {', '.join(missing) or 'train'}; the baseline reads each split's document streams: {ENABLE_STREAMS}"
+        )
+    splits: dict[str, Sentences | None] = {split: functools.partial(split_sentences, build, split) if split in build.splits else None for split in SPLITS}
     return score(str(build.root), splits, build.vocabulary.size, default_order(build) if order is None else order, smoothing)
 
 
@@ -271,8 +277,7 @@ def step(argv: list[str] | None = None) -> None:
                 files[written.split].append(Path(layout.root, written.file))
     size = read_vocabulary(layout.ids).size
     splits: dict[str, Sentences | None] = {
-        split: functools.partial(file_sentences, paths, f"split {split}", size) if paths else None
-        for split, paths in files.items()
+        split: functools.partial(file_sentences, paths, f"split {split}", size) if paths else None for split, paths in files.items()
     }
     baseline = score(layout.root, splits, size, step_order(run_.options), run_.options["baseline"]["smoothing"])
     write_json(layout.baseline, baseline.to_json())
@@ -298,8 +303,9 @@ def command(argv: list[str] | None = None) -> None:
     )
     parser.add_argument("build", type=Path, help="a finished build folder (holding manifest.json)")
     parser.add_argument("--order", type=_order, help="highest order n (default: the build's windows.ngram.n, else 4)")
-    parser.add_argument("--smoothing", choices=SMOOTHINGS, default="modified",
-                        help="modified: three discounts per order (default); interpolated: one discount per order")
+    parser.add_argument(
+        "--smoothing", choices=SMOOTHINGS, default="modified", help="modified: three discounts per order (default); interpolated: one discount per order"
+    )
     parser.add_argument("--arpa", type=Path, metavar="PATH", help="also write the order-n model in the ARPA back-off format")
     parser.add_argument("--json", action="store_true", help="print the figures as JSON")
     args = parser.parse_args(argv)

@@ -72,9 +72,7 @@ class ChunkTableWriter:
         # many chunks would concatenate them on the side, holding the rows three times.
         table = pa.concat_tables([self._schema.empty_table(), *self._held]).combine_chunks()
         self._held, self._size = [], 0
-        order = pc.sort_indices(
-            table, [("split", "ascending"), ("doc_hash", "ascending"), ("source", "ascending"), ("offset", "ascending")]
-        )
+        order = pc.sort_indices(table, [("split", "ascending"), ("doc_hash", "ascending"), ("source", "ascending"), ("offset", "ascending")])
         splits = table["split"].take(order).to_numpy(zero_copy_only=False)
         weights = np.cumsum(row_weights(table, self._units)[order.to_numpy()])
         cuts = np.flatnonzero(splits[1:] != splits[:-1]) + 1

@@ -319,9 +319,7 @@ class DocumentChanges:
 
     def _split_change(self, source: str, old_doc: tuple[str, bytes, str], new_doc: tuple[str, bytes, str]) -> None:
         reason = split_reason(old_doc, new_doc, self.old_settings, self.new_settings)
-        self.split_changes.append(
-            {"doc_id": new_doc[0], "old_doc_id": old_doc[0], "source": source, "old": old_doc[2], "new": new_doc[2], "reason": reason}
-        )
+        self.split_changes.append({"doc_id": new_doc[0], "old_doc_id": old_doc[0], "source": source, "old": old_doc[2], "new": new_doc[2], "reason": reason})
 
     def to_json(self) -> dict:
         totals: Counter[str] = Counter()
@@ -489,6 +487,7 @@ def compare_coverage(old: Side, new: Side) -> dict:
 
 def compare_shards(old: dict, new: dict) -> dict:
     """Per split and kind, shard files (by name) unchanged, changed (SHA-256 differs), added, removed."""
+
     def files(manifest: dict) -> dict[tuple[str, str], dict[str, str]]:
         found: dict[tuple[str, str], dict[str, str]] = {}
         for split, figures in manifest["splits"].items():

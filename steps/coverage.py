@@ -69,9 +69,7 @@ def encoded_figures(stats: Sequence[ShardStats], vocabulary: Vocabulary) -> dict
     return {
         "splits": {split: derived(figures) for split, figures in splits.items()},
         "sources": {source: {split: derived(f) for split, f in per.items()} for source, per in sorted(sources.items())},
-        "unknown_classes": {
-            split: dict(sorted((vocabulary.tokens[int(i)], n) for i, n in figures.by_unknown.items())) for split, figures in splits.items()
-        },
+        "unknown_classes": {split: dict(sorted((vocabulary.tokens[int(i)], n) for i, n in figures.by_unknown.items())) for split, figures in splits.items()},
     }
 
 

@@ -252,8 +252,14 @@ def build_croissant(manifest: dict, schemas: Mapping[str, pa.Schema], sizes: Map
         name = f"{kind}-{split}"
         for entry in entries:
             distribution.append(
-                _file_object(entry["file"], entry["file"], entry["sha256"], entry["bytes"], PARQUET,
-                             f"{split} {kind} rows of chunk {entry['chunk']}: {entry['rows']:,} rows.")
+                _file_object(
+                    entry["file"],
+                    entry["file"],
+                    entry["sha256"],
+                    entry["bytes"],
+                    PARQUET,
+                    f"{split} {kind} rows of chunk {entry['chunk']}: {entry['rows']:,} rows.",
+                )
             )
         distribution.append(
             {
@@ -273,25 +279,42 @@ def build_croissant(manifest: dict, schemas: Mapping[str, pa.Schema], sizes: Map
                 "name": name,
                 "description": f"{KIND_DESCRIPTIONS[kind]} Split {split}: {rows:,} rows.",
                 "field": [
-                    _field(name, column, {"fileSet": {"@id": f"{name}-files"}}, COLUMN_DESCRIPTIONS.get((kind, column.name), ""))
-                    for column in schemas[kind]
+                    _field(name, column, {"fileSet": {"@id": f"{name}-files"}}, COLUMN_DESCRIPTIONS.get((kind, column.name), "")) for column in schemas[kind]
                 ],
             }
         )
 
     vocabulary = manifest["vocabulary"]
     distribution.append(
-        _file_object(vocabulary["file"], vocabulary["file"], vocabulary["sha256"], sizes[vocabulary["file"]], TSV,
-                     f"The vocabulary: a header line, then id, token, count and kind of each of its {vocabulary['size']:,} ids.")
+        _file_object(
+            vocabulary["file"],
+            vocabulary["file"],
+            vocabulary["sha256"],
+            sizes[vocabulary["file"]],
+            TSV,
+            f"The vocabulary: a header line, then id, token, count and kind of each of its {vocabulary['size']:,} ids.",
+        )
     )
-    table = _file_object(vocabulary_copy.path, vocabulary_copy.path, vocabulary_copy.sha256, vocabulary_copy.bytes, PARQUET,
-                        f"{vocabulary['file']} as a Parquet table (columns id, token, count, kind), for readers that parse TSV as CSV.")
+    table = _file_object(
+        vocabulary_copy.path,
+        vocabulary_copy.path,
+        vocabulary_copy.sha256,
+        vocabulary_copy.bytes,
+        PARQUET,
+        f"{vocabulary['file']} as a Parquet table (columns id, token, count, kind), for readers that parse TSV as CSV.",
+    )
     distribution.append({**table, "sameAs": vocabulary["file"]})
     if "subword_model" in vocabulary:
         model = vocabulary["subword_model"]
         distribution.append(
-            _file_object(model["file"], model["file"], model["sha256"], sizes[model["file"]], SENTENCEPIECE,
-                         "The sentencepiece model that splits cleaned text into the vocabulary's pieces.")
+            _file_object(
+                model["file"],
+                model["file"],
+                model["sha256"],
+                sizes[model["file"]],
+                SENTENCEPIECE,
+                "The sentencepiece model that splits cleaned text into the vocabulary's pieces.",
+            )
         )
     record_sets.append(
         {
@@ -323,8 +346,12 @@ def write_vocabulary_copy(build_dir: Path, manifest: dict, target: Path) -> Loca
     """vocabulary.tsv as a Parquet table with the columns and types of the TSV."""
     vocabulary = read_vocabulary(build_dir / manifest["vocabulary"]["file"])
     table = pa.table(
-        [pa.array(range(vocabulary.size), pa.int64()), pa.array(vocabulary.tokens, pa.string()),
-         pa.array(vocabulary.counts, pa.int64()), pa.array(vocabulary.kinds, pa.string())],
+        [
+            pa.array(range(vocabulary.size), pa.int64()),
+            pa.array(vocabulary.tokens, pa.string()),
+            pa.array(vocabulary.counts, pa.int64()),
+            pa.array(vocabulary.kinds, pa.string()),
+        ],
         schema=pa.schema(list(VOCABULARY_COLUMNS.items())),
     )
     write_table(target, table)

@@ -147,22 +147,21 @@ def _sample(manifest: dict, _: dict | None) -> str:
 
 
 def _targets(manifest: dict, _: dict | None) -> str:
-    return (
-        "The next token is the target: the `target` column of ngram rows, ids[1:] of block rows, and each next id of "
-        "a stream. There are no other labels."
-    )
+    return "The next token is the target: the `target` column of ngram rows, ids[1:] of block rows, and each next id of a stream. There are no other labels."
 
 
 def _missing(manifest: dict, coverage: dict | None) -> str:
     if manifest["config"]["units"] == "subword":
-        lines = ["Text the subword model cannot spell is " + (
-            "encoded as UTF-8 byte pieces, so nothing is lost." if manifest["config"]["subword"]["byte_fallback"]
-            else "replaced by `<unk>`, so it is not recoverable from the ids.")]
-    else:
         lines = [
-            "Words outside the vocabulary are replaced by an unknown-class id (`<unk>` or a shape class), so their text "
-            "is not recoverable from the ids."
+            "Text the subword model cannot spell is "
+            + (
+                "encoded as UTF-8 byte pieces, so nothing is lost."
+                if manifest["config"]["subword"]["byte_fallback"]
+                else "replaced by `<unk>`, so it is not recoverable from the ids."
+            )
         ]
+    else:
+        lines = ["Words outside the vocabulary are replaced by an unknown-class id (`<unk>` or a shape class), so their text is not recoverable from the ids."]
     if coverage is not None:
         rates = [f"{split} {_percent(coverage['splits'][split]['unknown_rate'])}" for split in SPLITS if split in coverage.get("splits", {})]
         if rates:
@@ -224,8 +223,13 @@ def _acquired(manifest: dict, _: dict | None) -> str:
     for entry in sorted(inputs, key=lambda entry: (-entry["bytes"], entry["path"]))[:LISTED_FILES]:
         tally = files.get(entry["path"], {})
         rows.append(
-            [_code(entry["path"], cell=True), _number(entry["bytes"]), _number(tally.get("read", 0)),
-             _number(tally.get("kept", 0)), _code(entry["sha256"][:16], cell=True)]
+            [
+                _code(entry["path"], cell=True),
+                _number(entry["bytes"]),
+                _number(tally.get("read", 0)),
+                _number(tally.get("kept", 0)),
+                _code(entry["sha256"][:16], cell=True),
+            ]
         )
     lines = [
         f"Read from the files under the corpus folder selected by corpus.include {_code(json.dumps(corpus['include']))} "
@@ -283,14 +287,12 @@ def _preprocessing(manifest: dict, _: dict | None) -> str:
 
 def _vocabulary(manifest: dict, coverage: dict | None) -> str:
     config, vocabulary = manifest["config"], manifest["vocabulary"]
-    ids = (
-        f"{vocabulary['size']:,} ids: {len(vocabulary.get('reserved', {})):,} reserved or unknown-class symbols and "
-        f"{vocabulary.get('words', 0):,} tokens"
-    )
+    ids = f"{vocabulary['size']:,} ids: {len(vocabulary.get('reserved', {})):,} reserved or unknown-class symbols and {vocabulary.get('words', 0):,} tokens"
     if config["units"] == "subword":
         subword = config["subword"]
         how = (
-            f"the pieces of the sentencepiece model reused unchanged from {_code(str(subword['frozen']))}" if subword.get("frozen")
+            f"the pieces of the sentencepiece model reused unchanged from {_code(str(subword['frozen']))}"
+            if subword.get("frozen")
             else f"the pieces of a sentencepiece {subword['model_type']} model learned on at most {subword['max_sentences']:,} "
             f"train sentences (character_coverage {subword['character_coverage']})"
         )
@@ -298,10 +300,7 @@ def _vocabulary(manifest: dict, coverage: dict | None) -> str:
     else:
         cutoff = config["vocabulary"]
         limits = ", ".join(f"{key} {cutoff[key]}" for key in ("min_count", "max_size", "coverage") if cutoff[key] is not None)
-        how = (
-            f"reused unchanged from {_code(str(cutoff['frozen']))}" if cutoff.get("frozen")
-            else f"chosen on train ({limits or 'no limit'})"
-        )
+        how = f"reused unchanged from {_code(str(cutoff['frozen']))}" if cutoff.get("frozen") else f"chosen on train ({limits or 'no limit'})"
         lines = [f"{ids}, {how}; out-of-vocabulary words map to " + ("shape classes." if cutoff["unknown"] == "shape" else "<unk>.")]
     if coverage is not None:
         chosen_size = next((row for row in coverage.get("sizes", []) if row.get("chosen")), None)
@@ -311,10 +310,7 @@ def _vocabulary(manifest: dict, coverage: dict | None) -> str:
 
 
 def _raw_kept(manifest: dict, _: dict | None) -> str:
-    return (
-        "The build does not copy the raw text; it records each input's size and SHA-256 in manifest.json. "
-        "Whether the raw text is kept, and where: " + BLANK
-    )
+    return "The build does not copy the raw text; it records each input's size and SHA-256 in manifest.json. Whether the raw text is kept, and where: " + BLANK
 
 
 def _software(manifest: dict, _: dict | None) -> str:
@@ -452,14 +448,13 @@ def _header(manifest: dict) -> list[str]:
     lines.append(metadata["description"] if metadata.get("description") else "Description: " + BLANK + " (metadata.description)")
     lines += [
         "",
-        "This datasheet follows the questions of Gebru et al., \"Datasheets for Datasets\" (Communications of the ACM "
+        'This datasheet follows the questions of Gebru et al., "Datasheets for Datasets" (Communications of the ACM '
         "64(12), 2021). The build answered what it knows; the other answers are left to the dataset's maintainers.",
         "",
         f"- Version: {metadata.get('version') or BLANK}",
         f"- License: {metadata.get('license') or BLANK}",
         f"- Web page: {metadata.get('url') or BLANK}",
-        f"- Built from: manifest.json, inputs SHA-256 {_code(manifest['inputs_sha256'][:16])}…, configuration SHA-256 "
-        f"{_code(manifest['config_sha256'][:16])}…",
+        f"- Built from: manifest.json, inputs SHA-256 {_code(manifest['inputs_sha256'][:16])}…, configuration SHA-256 {_code(manifest['config_sha256'][:16])}…",
     ]
     if metadata.get("citation"):
         fence = "~" * max(3, max(map(len, re.findall("~+", metadata["citation"])), default=0) + 1)

@@ -40,9 +40,7 @@ SECTIONS = (
     "contamination",
 )  # fmt: skip
 
-DUPLICATES_SCHEMA = pa.schema(
-    [("source", pa.string()), ("offset", pa.int64()), ("doc_id", pa.string()), ("duplicate_of", pa.string())]
-)
+DUPLICATES_SCHEMA = pa.schema([("source", pa.string()), ("offset", pa.int64()), ("doc_id", pa.string()), ("duplicate_of", pa.string())])
 REMOVED_SCHEMA = pa.schema([("source", pa.string()), ("offset", pa.int64())])
 # Uncompressed bytes of row groups read at once while counting removed documents: bounds the
 # job's memory whatever the chunk (a chunk of many duplicates would otherwise be read whole).
@@ -156,16 +154,14 @@ def repeated_ids(corpus: CorpusRows) -> list[tuple[str, list[tuple[str, int]]]]:
 def repeated_ids_message(repeats: list[tuple[str, list[tuple[str, int]]]], by_file: bool) -> str:
     """What the user reads when ids repeat: the first few ids with both places, and the fixes."""
     shown = "; ".join(
-        f"{doc_id!r} at {places[0][0]} byte {places[0][1]} and {places[1][0]} byte {places[1][1]}"
-        + (f" (+{len(places) - 2} more)" if len(places) > 2 else "")
+        f"{doc_id!r} at {places[0][0]} byte {places[0][1]} and {places[1][0]} byte {places[1][1]}" + (f" (+{len(places) - 2} more)" if len(places) > 2 else "")
         for doc_id, places in repeats[:5]
     )
     more = f"; and {len(repeats) - 5} more ids" if len(repeats) > 5 else ""
     fix = (
         "ids repeat inside one file: fix the records, or set corpus.jsonl_id_field: null to use path:offset ids"
         if by_file
-        else "fix the records, set corpus.repeated_ids: by_file to qualify JSONL ids by their file, "
-        "or corpus.jsonl_id_field: null to use path:offset ids"
+        else "fix the records, set corpus.repeated_ids: by_file to qualify JSONL ids by their file, or corpus.jsonl_id_field: null to use path:offset ids"
     )
     return f"corpusmill: {len(repeats)} document id(s) name more than one document: {shown}{more}; every id must name one document: {fix}"
 

@@ -153,7 +153,6 @@ class Findings:
     figures: dict = field(default_factory=dict)
 
 
-
 def measure(signed: CorpusSignatures, fingerprints: np.ndarray, copies: tuple[np.ndarray, np.ndarray], options: dict) -> Findings:
     """Clusters, the policy's drops and the contamination shares (see the module docstring).
     `copies`: the rows repeating an earlier row's text, and that row (steps.deduplicate.
@@ -210,7 +209,12 @@ def measure(signed: CorpusSignatures, fingerprints: np.ndarray, copies: tuple[np
 
 
 def _with_copies(
-    members: np.ndarray, labels: np.ndarray, anchors: np.ndarray, kept: np.ndarray, copies: tuple[np.ndarray, np.ndarray], splits: np.ndarray,
+    members: np.ndarray,
+    labels: np.ndarray,
+    anchors: np.ndarray,
+    kept: np.ndarray,
+    copies: tuple[np.ndarray, np.ndarray],
+    splits: np.ndarray,
     policy: str,
 ) -> tuple[np.ndarray, np.ndarray, np.ndarray, np.ndarray]:
     """The members with the kept exact copies of members added (split.deduplicate: false): each
@@ -301,9 +305,7 @@ def write_findings(
     by_source = figures.pop("by_source")
     above = contaminated.filter(pc.greater_equal(contaminated["share"], dirty["threshold"]))
     above = above.sort_by([("share", "descending"), ("source", "ascending"), ("offset", "ascending")]).slice(0, LISTED)
-    figures["listed"] = [
-        {key: row[key] for key in ("source", "offset", "doc_id", "split", "share", "dropped")} for row in above.to_pylist()
-    ]
+    figures["listed"] = [{key: row[key] for key in ("source", "offset", "doc_id", "split", "share", "dropped")} for row in above.to_pylist()]
     write_json(layout.hygiene, {
         "near_duplicates": findings.figures, "contamination": figures, "contamination_by_source": by_source,
         "ngram_words": dirty["ngram_words"],
@@ -315,9 +317,7 @@ def write_findings(
     code = REASONS.index(findings.reason) if findings.reason else 0
     reasons = np.concatenate([np.full(len(near), code), np.full(len(dirty), REASONS.index("contaminated"))])[order]
     dropped = located.take(pa.array(np.concatenate([near, len(members) + dirty])[order]))
-    table = pa.Table.from_arrays(
-        [dropped["source"], dropped["offset"], dropped["doc_id"], pa.array(REASONS).take(pa.array(reasons))], schema=DROPS_SCHEMA
-    )
+    table = pa.Table.from_arrays([dropped["source"], dropped["offset"], dropped["doc_id"], pa.array(REASONS).take(pa.array(reasons))], schema=DROPS_SCHEMA)
     write_table(layout.hygiene_drops, table)
     return table, signed.chunk_of(rows[order])
 
@@ -402,4 +402,3 @@ def command(argv: list[str]) -> None:
     for line in report_lines(layout, max(args.clusters, 0), max(args.documents, 0), max(args.chars, 8)):
         print(line)
     sys.stdout.flush()
-

@@ -226,10 +226,7 @@ def survey_corpus(root: str | Path, include: list[str], exclude: list[str], foll
             sources.append(path)
     unknown = [p for p in sources if not split_name(p)[0]]
     if unknown:
-        raise CorpusError(
-            f"{base / unknown[0]}: not a .txt or .jsonl file (optionally .gz/.bz2/.xz/.zst); "
-            "narrow corpus.include or add it to corpus.exclude"
-        )
+        raise CorpusError(f"{base / unknown[0]}: not a .txt or .jsonl file (optionally .gz/.bz2/.xz/.zst); narrow corpus.include or add it to corpus.exclude")
     return CorpusSurvey(sorted(sources), sorted(unselected), sorted(dropped), sorted(refused))
 
 
@@ -240,9 +237,7 @@ def chunk_key(source: str, index: int) -> str:
     return f"{stem}-{digest}-{index:04d}"
 
 
-def plan_chunks(
-    root: str | Path, sources: list[str], chunk_bytes: int, text_unit: str, pack_bytes: int = 0
-) -> list[Chunk]:
+def plan_chunks(root: str | Path, sources: list[str], chunk_bytes: int, text_unit: str, pack_bytes: int = 0) -> list[Chunk]:
     """Chunks from file sizes alone (no reading), in corpus order (path, then index).
 
     A file of one chunk smaller than `pack_bytes` joins a pack with its neighbours in path
@@ -371,14 +366,12 @@ class _BoundedReader(io.RawIOBase):
             data = self._inner.read(len(buffer)) or b""
         except (EOFError, OSError, zlib.error, lzma.LZMAError, zstandard.ZstdError) as error:
             raise CorpusError(
-                f"{self._path}: compressed data is damaged or truncated after {self.position} bytes of text ({error}); "
-                "re-create or re-download the file"
+                f"{self._path}: compressed data is damaged or truncated after {self.position} bytes of text ({error}); re-create or re-download the file"
             ) from error
         self.position += len(data)
         if self.position > self._limit:
             raise CorpusError(
-                f"{self._path}: expands beyond corpus.max_decompressed_mb ({self._limit >> 20} MiB); "
-                "check the file (a decompression bomb?) or raise the limit"
+                f"{self._path}: expands beyond corpus.max_decompressed_mb ({self._limit >> 20} MiB); check the file (a decompression bomb?) or raise the limit"
             )
         buffer[: len(data)] = data
         return len(data)
@@ -539,9 +532,7 @@ class _Assembler:
         yield start, data
 
 
-def _raw_text_documents(
-    handle: BinaryIO, piece: _FilePiece, options: ReadOptions, tally: Tally
-) -> Iterator[tuple[int, bytes]]:
+def _raw_text_documents(handle: BinaryIO, piece: _FilePiece, options: ReadOptions, tally: Tally) -> Iterator[tuple[int, bytes]]:
     """Byte ranges of the documents of a .txt file piece: (offset, bytes)."""
     unit = options.text_unit
     assembler = _Assembler(options.max_document_bytes, options.oversize, tally)
@@ -670,9 +661,7 @@ def _surrogate_policy(value: str, options: ReadOptions, tally: Tally, where: str
     return replaced
 
 
-def _json_documents(
-    handle: BinaryIO, piece: _FilePiece, options: ReadOptions, tally: Tally, path: str
-) -> Iterator[Document]:
+def _json_documents(handle: BinaryIO, piece: _FilePiece, options: ReadOptions, tally: Tally, path: str) -> Iterator[Document]:
     end = piece.end
     offset = 0
     if piece.start:
@@ -715,8 +704,7 @@ def _json_documents(
         if problem is not None:
             if options.bad_records == "stop":
                 raise CorpusError(
-                    f"{path}: record at byte offset {position}: {problem}; fix the line, set "
-                    "corpus.jsonl_text_field, or set corpus.bad_records to drop"
+                    f"{path}: record at byte offset {position}: {problem}; fix the line, set corpus.jsonl_text_field, or set corpus.bad_records to drop"
                 )
             tally.drop(reason, position)
             continue
@@ -749,9 +737,7 @@ def _pieces(chunk: Chunk, chunk_bytes: int) -> Iterator[_FilePiece]:
     yield _FilePiece(source, chunk.index * chunk_bytes, end)
 
 
-def read_documents(
-    root: str | Path, chunk: Chunk, chunk_bytes: int, options: ReadOptions, tally: Tally, collect_problems: bool = False
-) -> Iterator[Document]:
+def read_documents(root: str | Path, chunk: Chunk, chunk_bytes: int, options: ReadOptions, tally: Tally, collect_problems: bool = False) -> Iterator[Document]:
     """Stream the documents a chunk owns, in corpus order (file, then offset), counting every
     one in `tally`. A file that cannot be read as configured raises CorpusError, or with
     `collect_problems` is recorded in the tally and reading goes on with the next file."""

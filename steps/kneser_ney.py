@@ -360,9 +360,7 @@ class Level:
     local: np.ndarray  # (context index << bits) | last id, sorted
 
     @classmethod
-    def of(
-        cls, k: int, keys: Keys, raw: np.ndarray, continuation: np.ndarray | None, suffixes: np.ndarray, keys_format: KeyFormat
-    ) -> Level:
+    def of(cls, k: int, keys: Keys, raw: np.ndarray, continuation: np.ndarray | None, suffixes: np.ndarray, keys_format: KeyFormat) -> Level:
         """From the sorted distinct keys of the k-grams."""
         counted = (_narrow(raw), None if continuation is None else _narrow(continuation))
         if k == 1:
@@ -661,9 +659,7 @@ class SplitScore:
             self.seen[k] = self.seen.get(k, 0) + int((entry >= 0).sum())
 
 
-def score_split(
-    score: SplitScore, models: dict[int, KneserNey], unigram: AddOneUnigram, ids: np.ndarray, sentence_lengths: np.ndarray
-) -> None:
+def score_split(score: SplitScore, models: dict[int, KneserNey], unigram: AddOneUnigram, ids: np.ndarray, sentence_lengths: np.ndarray) -> None:
     """Add the predicted tokens of these sentences to `score`, a bounded number of tokens at a time."""
     counts = next(iter(models.values())).counts
     lengths = np.asarray(sentence_lengths, np.int64)

@@ -78,11 +78,7 @@ def build_manifest(
             "size": vocabulary.size,
             "words": vocabulary.size - vocabulary.first_word_id,
             "reserved": vocabulary.reserved,
-            **(
-                {"subword_model": {"file": RELATIVE.subword_model, "sha256": file_sha256(layout.subword_model)}}
-                if vocabulary.units == "subword"
-                else {}
-            ),
+            **({"subword_model": {"file": RELATIVE.subword_model, "sha256": file_sha256(layout.subword_model)}} if vocabulary.units == "subword" else {}),
         },
         "files": {Path(p).relative_to(base).as_posix(): file_sha256(p) for p in extra_files}
         | {name: sha256 for chunk in stats for name, sha256 in chunk.provenance.items()},

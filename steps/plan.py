@@ -150,9 +150,7 @@ def frozen_file(field: str, value: str, header: str | None) -> str:
     with open(value, "rb") as handle:
         first = handle.readline(len(header or "") + 2)
         if header is not None and first.rstrip(b"\r\n") != header.encode():
-            raise ingest.CorpusError(
-                f"{field} = {value!r}: line 1 is not the header {header!r}; is it the vocabulary.tsv of a corpusmill build?"
-            )
+            raise ingest.CorpusError(f"{field} = {value!r}: line 1 is not the header {header!r}; is it the vocabulary.tsv of a corpusmill build?")
         hasher.update(first)
         while block := handle.read(1 << 22):
             hasher.update(block)
@@ -187,9 +185,7 @@ class Plan:
         root = corpus["root"]
         survey = ingest.survey_corpus(root, corpus["include"], corpus["exclude"], corpus["outside_links"] == "follow")
         if not survey.sources:
-            raise ingest.CorpusError(
-                f"{root}: no input files match corpus.include {corpus['include']}; check corpus.root and the patterns"
-            )
+            raise ingest.CorpusError(f"{root}: no input files match corpus.include {corpus['include']}; check corpus.root and the patterns")
         chunk_bytes = int(corpus["chunk_mb"] * (1 << 20))
         pack_bytes = int(corpus["pack_mb"] * (1 << 20))
         chunks = ingest.plan_chunks(root, survey.sources, chunk_bytes, corpus["text_unit"], pack_bytes)

@@ -77,9 +77,7 @@ class ChunkPreparer:
         self.split = config["split"]
         self.schema = chunk_schema(self.units)
 
-    def batches(
-        self, documents: Iterator[Document], tally: Tally, batch_chars: int = BATCH_CHARS, progress: Progress | None = None
-    ) -> Iterator[pa.Table]:
+    def batches(self, documents: Iterator[Document], tally: Tally, batch_chars: int = BATCH_CHARS, progress: Progress | None = None) -> Iterator[pa.Table]:
         """Arrow tables of kept documents, each from at most BATCH_DOCUMENTS documents or
         about `batch_chars` characters of text."""
         batch, chars, seen = _Batch(), 0, 0

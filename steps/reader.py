@@ -246,9 +246,7 @@ def _shard(root: Path, entry: dict, split: str, ids_sha256: str, verify_hash: bo
     except (OSError, pa.ArrowException) as error:
         raise BuildError(f"{path}: not a readable Parquet file ({error}); {REBUILD}") from error
     if metadata.num_rows != entry["rows"]:
-        raise BuildError(
-            f"{path}: holds {metadata.num_rows} rows but {root / MANIFEST} records {entry['rows']}; {REBUILD}"
-        )
+        raise BuildError(f"{path}: holds {metadata.num_rows} rows but {root / MANIFEST} records {entry['rows']}; {REBUILD}")
     groups = tuple(metadata.row_group(i).num_rows for i in range(metadata.num_row_groups))
     if sum(groups) != metadata.num_rows:
         raise BuildError(
@@ -460,9 +458,7 @@ class Build:
         order = np.random.default_rng([seed, epoch]).permutation(len(units))
         return [units[i] for i in order]
 
-    def tables(
-        self, split: str, kind: str, *, seed: int | None = None, epoch: int = 0, rank: int = 0, world_size: int = 1
-    ) -> Iterator[pa.Table]:
+    def tables(self, split: str, kind: str, *, seed: int | None = None, epoch: int = 0, rank: int = 0, world_size: int = 1) -> Iterator[pa.Table]:
         """Worker `rank`'s slice of the split as Arrow tables, one per row group touched, unshuffled rows."""
         _check_worker(rank, world_size)
         units = self._units(split, kind, seed, epoch)
@@ -511,9 +507,7 @@ class Build:
             for batch in batcher.finish():
                 yield batch.batch(cast)
 
-    def _shuffled(
-        self, split: str, kind: str, seed: int | None, epoch: int, rank: int, world_size: int, capacity: int
-    ) -> Iterator[_Rows]:
+    def _shuffled(self, split: str, kind: str, seed: int | None, epoch: int, rank: int, world_size: int, capacity: int) -> Iterator[_Rows]:
         """The worker's rows, row group by row group, through the bounded shuffle buffer (none without a seed)."""
         tables = self.tables(split, kind, seed=seed, epoch=epoch, rank=rank, world_size=world_size)
         runs = (_Rows.from_table(kind, table) for table in tables)

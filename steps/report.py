@@ -130,8 +130,13 @@ def plot_coverage(curve: dict[str, np.ndarray], chosen: int) -> str:
 def plot_zipf(ranks: np.ndarray, counts: np.ndarray, fit: PowerFit, unit: str = "words") -> str:
     figure, axes = _figure()
     axes.loglog(ranks, counts, ".", color=COLOURS["train"], markersize=4, label=f"train {unit}")
-    axes.loglog(ranks, fit.constant * ranks.astype(np.float64) ** (-fit.exponent), color="#cf222e", linewidth=1.2,
-                label=f"fit: count ≈ {fit.constant:,.0f} · rank$^{{-{fit.exponent:.3f}}}$")
+    axes.loglog(
+        ranks,
+        fit.constant * ranks.astype(np.float64) ** (-fit.exponent),
+        color="#cf222e",
+        linewidth=1.2,
+        label=f"fit: count ≈ {fit.constant:,.0f} · rank$^{{-{fit.exponent:.3f}}}$",
+    )
     axes.set_xlabel("rank")
     axes.set_ylabel("train count")
     axes.legend(fontsize=9)
@@ -142,8 +147,7 @@ def growth_figure(read: np.ndarray, types: np.ndarray, fit: PowerFit, unit: str,
     """Distinct words after each prefix of the stream; `unit` is what the stream counts (tokens or words)."""
     figure, axes = _figure()
     axes.loglog(read, types, color=COLOURS["train"], label="distinct words seen")
-    axes.loglog(read, fit(read), color="#cf222e", linestyle="--", linewidth=1.2,
-                label=f"fit: types ≈ {fit.constant:.2f} · {unit}$^{{{fit.exponent:.3f}}}$")
+    axes.loglog(read, fit(read), color="#cf222e", linestyle="--", linewidth=1.2, label=f"fit: types ≈ {fit.constant:.2f} · {unit}$^{{{fit.exponent:.3f}}}$")
     axes.axvspan(fit.fit_from, float(read.max()), color="#cf222e", alpha=0.06, label="fitted range")
     axes.set_xlabel(f"train {unit} read ({order})")
     axes.set_ylabel("distinct words")
@@ -205,8 +209,7 @@ def table(headers: Sequence[str], rows: Sequence[Sequence[object]], marked: Sequ
 
 
 def image(png: str, alt: str, caption: str) -> str:
-    return (f'<figure><img src="data:image/png;base64,{png}" alt="{html.escape(alt)}">'
-            f"<figcaption>{html.escape(caption)}</figcaption></figure>")
+    return f'<figure><img src="data:image/png;base64,{png}" alt="{html.escape(alt)}"><figcaption>{html.escape(caption)}</figcaption></figure>'
 
 
 def _rate(value: float, whole: float) -> Shown:
@@ -247,9 +250,11 @@ def frozen_note(coverage: dict) -> str:
     """With a frozen vocabulary, which file it is, and that its words follow another corpus."""
     if not coverage.get("frozen"):
         return ""
-    return (f"<p><strong>Frozen vocabulary</strong>: <code>{html.escape(coverage['frozen'])}</code>, used unchanged "
-            "(vocabulary.frozen). Its words need not be the most frequent of this corpus; the highlighted row is "
-            "figured from its own words.</p>")
+    return (
+        f"<p><strong>Frozen vocabulary</strong>: <code>{html.escape(coverage['frozen'])}</code>, used unchanged "
+        "(vocabulary.frozen). Its words need not be the most frequent of this corpus; the highlighted row is "
+        "figured from its own words.</p>"
+    )
 
 
 def files_not_read(manifest: dict) -> str:
@@ -261,7 +266,7 @@ def files_not_read(manifest: dict) -> str:
     if not rows:
         return "<p>Every file under the corpus root was read.</p>"
     more = f"<p>{len(rows) - TABLE_FILES:,} more are listed in manifest.json, key <code>not_read</code>.</p>" if len(rows) > TABLE_FILES else ""
-    return (f"<p>{len(rows):,} files under the corpus root were not read:</p>" + table(["file", "why"], rows[:TABLE_FILES]) + more)
+    return f"<p>{len(rows):,} files under the corpus root were not read:</p>" + table(["file", "why"], rows[:TABLE_FILES]) + more
 
 
 def files_with_drops(manifest: dict) -> str:
@@ -275,14 +280,21 @@ def files_with_drops(manifest: dict) -> str:
     if not touched:
         return ""
     reasons = sorted({reason for _, _, f in touched for reason in f["dropped"]})
-    rows = [[FileName(source), f["read"]] + [f["dropped"].get(r, 0) for r in reasons] + [f["replaced_sequences"], f["truncated"]]
-            for _, source, f in touched[:TABLE_FILES]]
-    more = (f"<p>{len(touched) - TABLE_FILES:,} more files; every file's figures are in <code>stats/accounting.json</code>.</p>"
-            if len(touched) > TABLE_FILES else "")
-    return ("<p>Files with dropped, replaced or truncated documents (most first). Every dropped document, with its file, "
-            "byte offset and reason, is in <code>stats/dropped.parquet</code>.</p>"
-            + table(["file", "read"] + [f"dropped: {r.replace('_', ' ')}" for r in reasons] + ["sequences replaced", "truncated"], rows)
-            + more)
+    rows = [
+        [FileName(source), f["read"]] + [f["dropped"].get(r, 0) for r in reasons] + [f["replaced_sequences"], f["truncated"]]
+        for _, source, f in touched[:TABLE_FILES]
+    ]
+    more = (
+        f"<p>{len(touched) - TABLE_FILES:,} more files; every file's figures are in <code>stats/accounting.json</code>.</p>"
+        if len(touched) > TABLE_FILES
+        else ""
+    )
+    return (
+        "<p>Files with dropped, replaced or truncated documents (most first). Every dropped document, with its file, "
+        "byte offset and reason, is in <code>stats/dropped.parquet</code>.</p>"
+        + table(["file", "read"] + [f"dropped: {r.replace('_', ' ')}" for r in reasons] + ["sequences replaced", "truncated"], rows)
+        + more
+    )
 
 
 def blocks_note(manifest: dict) -> str:
@@ -303,20 +315,32 @@ def accounting_section(manifest: dict, unit: str) -> tuple[str, str, str]:
     dropped = accounting["dropped"]
     account_rows = [["documents read", accounting["read"]], ["pieces added by splitting long documents", accounting["pieces_added"]]]
     account_rows += [[f"dropped: {reason.replace('_', ' ')}", count] for reason, count in dropped.items()]
-    account_rows += [["kept", accounting["kept"]], ["truncated", accounting["truncated"]],
-                     ["invalid UTF-8 sequences replaced", accounting["replaced_sequences"]],
-                     ["read + pieces = kept + dropped", accounting["balanced"]]]
+    account_rows += [
+        ["kept", accounting["kept"]],
+        ["truncated", accounting["truncated"]],
+        ["invalid UTF-8 sequences replaced", accounting["replaced_sequences"]],
+        ["read + pieces = kept + dropped", accounting["balanced"]],
+    ]
     kinds = sorted({kind for figures in manifest["splits"].values() for kind in figures["rows"]})
-    size_rows = [[s, manifest["splits"][s]["documents"], manifest["splits"][s]["sentences"], manifest["splits"][s]["tokens"]]
-                 + [manifest["splits"][s]["rows"].get(k, 0) for k in kinds] for s in SPLITS]
-    return ("accounting", "Documents and rows", "".join([
-        f"<p>Duplicates removed: {dropped.get('duplicate', 0):,}.</p>",
-        table(["documents", "count"], account_rows),
-        files_with_drops(manifest),
-        files_not_read(manifest),
-        table(["split", "documents", "sentences", unit] + [f"{k} rows" for k in kinds], size_rows),
-        blocks_note(manifest),
-    ]))
+    size_rows = [
+        [s, manifest["splits"][s]["documents"], manifest["splits"][s]["sentences"], manifest["splits"][s]["tokens"]]
+        + [manifest["splits"][s]["rows"].get(k, 0) for k in kinds]
+        for s in SPLITS
+    ]
+    return (
+        "accounting",
+        "Documents and rows",
+        "".join(
+            [
+                f"<p>Duplicates removed: {dropped.get('duplicate', 0):,}.</p>",
+                table(["documents", "count"], account_rows),
+                files_with_drops(manifest),
+                files_not_read(manifest),
+                table(["split", "documents", "sentences", unit] + [f"{k} rows" for k in kinds], size_rows),
+                blocks_note(manifest),
+            ]
+        ),
+    )
 
 
 def baseline_section(baseline: dict) -> tuple[str, str, str]:
@@ -336,20 +360,28 @@ def baseline_section(baseline: dict) -> tuple[str, str, str]:
     rows.append(["add-one unigram", *(value(split, lambda f: f["unigram_perplexity"]) for split in SPLITS)])
     rows.append(["predicted tokens"] + [(splits.get(split) or {}).get("tokens", 0) for split in SPLITS])
     held_out = [split for split in SPLITS if split != "train"]
-    seen = [[f"{k}-grams"] + [Shown(f"{splits[s]['seen_in_train'][str(k)]:.1%}") if splits.get(s) and splits[s]["tokens"] else Shown(DASH)
-                              for s in held_out] for k in range(1, order + 1)]
+    seen = [
+        [f"{k}-grams"] + [Shown(f"{splits[s]['seen_in_train'][str(k)]:.1%}") if splits.get(s) and splits[s]["tokens"] else Shown(DASH) for s in held_out]
+        for k in range(1, order + 1)
+    ]
     warnings = "".join(f"<p><strong>Warning</strong>: {html.escape(w)}.</p>" for w in baseline["warnings"])
     name = {"modified": "interpolated modified Kneser–Ney", "interpolated": "interpolated Kneser–Ney"}[baseline["smoothing"]]
-    return ("baseline", "The n-gram model to beat", "".join([
-        f"<p>Perplexity of {name} models (Chen &amp; Goodman 1998) of orders 2 to {order}, counted on the train ids of this "
-        f"build, on every split; a neural model of these ids should score below them on dev and test. Conventions: "
-        f"{html.escape(baseline['conventions'])}. Another order or smoothing: <code>corpusmill baseline BUILD --order N</code>.</p>",
-        warnings,
-        table(["perplexity"] + list(SPLITS), rows),
-        "<p>Share of the predicted tokens of dev and test whose n-gram (the token with its n−1 preceding ids) occurs in train. "
-        "A high share at the highest order means the held-out text repeats train's.</p>",
-        table(["seen in train"] + held_out, seen),
-    ]))
+    return (
+        "baseline",
+        "The n-gram model to beat",
+        "".join(
+            [
+                f"<p>Perplexity of {name} models (Chen &amp; Goodman 1998) of orders 2 to {order}, counted on the train ids of this "
+                f"build, on every split; a neural model of these ids should score below them on dev and test. Conventions: "
+                f"{html.escape(baseline['conventions'])}. Another order or smoothing: <code>corpusmill baseline BUILD --order N</code>.</p>",
+                warnings,
+                table(["perplexity"] + list(SPLITS), rows),
+                "<p>Share of the predicted tokens of dev and test whose n-gram (the token with its n−1 preceding ids) occurs in train. "
+                "A high share at the highest order means the held-out text repeats train's.</p>",
+                table(["seen in train"] + held_out, seen),
+            ]
+        ),
+    )
 
 
 def _share(value: float | None) -> Shown:
@@ -358,9 +390,11 @@ def _share(value: float | None) -> Shown:
 
 def _distribution_row(name: str, figures: dict) -> list[object]:
     quantiles = figures.get("quantiles", {})
-    return [name, figures["documents"], figures["with_shared_gram"], _share(figures["mean"])] + [
-        _share(quantiles.get(q)) for q in ("0.5", "0.9", "0.99")
-    ] + [_share(figures["max"]), figures["at_or_above_threshold"]]
+    return (
+        [name, figures["documents"], figures["with_shared_gram"], _share(figures["mean"])]
+        + [_share(quantiles.get(q)) for q in ("0.5", "0.9", "0.99")]
+        + [_share(figures["max"]), figures["at_or_above_threshold"]]
+    )
 
 
 def hygiene_section(hygiene: dict) -> tuple[str, str, str]:
@@ -371,8 +405,10 @@ def hygiene_section(hygiene: dict) -> tuple[str, str, str]:
     dropped = near["dropped"]
     cluster_rows: list[list[object]] = [
         ["clusters (two or more documents at estimated Jaccard similarity ≥ threshold)", near["clusters"]],
-        ["documents in clusters", near["documents"]], ["clusters whose members lie in more than one split", near["clusters_across_splits"]],
-        ["largest cluster", near["largest_cluster"]], ["members kept", near["kept"]],
+        ["documents in clusters", near["documents"]],
+        ["clusters whose members lie in more than one split", near["clusters_across_splits"]],
+        ["largest cluster", near["largest_cluster"]],
+        ["members kept", near["kept"]],
     ] + [[f"dropped: {reason.replace('_', ' ')}", count] for reason, count in sorted(dropped.items())]
     cluster_rows += [["candidate pairs compared", near["compared_pairs"]], ["pairs confirmed", near["confirmed_pairs"]]]
     if near["long_runs"]:
@@ -382,49 +418,69 @@ def hygiene_section(hygiene: dict) -> tuple[str, str, str]:
     bins = [[Shown(f"{low / 10:.1f}–{(low + 1) / 10:.1f}"), count] for low, count in enumerate(dirty["histogram"])]
     listed = [[FileName(row["source"]), Shown(str(row["offset"])), row["split"], _share(row["share"]), row["dropped"]] for row in dirty["listed"]]
     above = dirty["at_or_above_threshold"]
-    more = (f"<p>{above - len(listed):,} more are in <code>stats/contamination.parquet</code>.</p>" if above > len(listed) else "")
+    more = f"<p>{above - len(listed):,} more are in <code>stats/contamination.parquet</code>.</p>" if above > len(listed) else ""
     by_source = sorted(hygiene["contamination_by_source"].items(), key=lambda item: (-item[1]["at_or_above_threshold"], -(item[1]["mean"] or 0.0), item[0]))
     source_rows = [[FileName(source), f["documents"], f["with_shared_gram"], _share(f["mean"]), _share(f["max"]), f["at_or_above_threshold"]]
                    for source, f in by_source[:TABLE_FILES]]  # fmt: skip
     fate = (f"they are dropped (contamination.drop): {dirty['dropped']:,} documents." if dirty["drop"]
             else "they are kept (contamination.drop: false).")  # fmt: skip
-    return ("hygiene", "Near-duplicates and train text in dev and test", "".join([
-        f"<p>Near-duplicates: documents whose word shingles overlap by an estimated Jaccard similarity of at least "
-        f"{near['threshold']:g} (MinHash with banding). Policy <code>{html.escape(near['policy'])}</code>"
-        + {"drop": ": every cluster keeps its anchor alone.", "same_split": ": every cluster keeps the members in its anchor's split.",
-           "off": ": nothing is dropped."}[near["policy"]]  # fmt: skip
-        + "</p>",
-        table(["near-duplicates", "count"], cluster_rows),
-        f"<p>Contamination: the share of each kept dev and test document's {n}-word n-grams that also occur in a kept train "
-        f"document. {above:,} documents reach {dirty['threshold']:g}; {fate}</p>",
-        table(headers, distribution),
-        table(["share", "documents"], bins),
-        (f"<h3>Documents at or above {dirty['threshold']:g}</h3>" + table(["file", "byte offset", "split", "share", "dropped"], listed) + more)
-        if listed else "",
-        "<h3>By source file</h3>" + table(["file", "measured", "with a shared n-gram", "mean", "max", f"≥ {dirty['threshold']:g}"], source_rows)
-        + left_out(len(by_source), len(source_rows), "<code>stats/hygiene.json</code>") if source_rows else "",
-        "<p>Every cluster member and every measured document are in <code>stats/near_duplicates.parquet</code> and "
-        "<code>stats/contamination.parquet</code>; <code>corpusmill hygiene BUILD</code> (the build folder) lists them with their text.</p>",
-    ]))
+    return (
+        "hygiene",
+        "Near-duplicates and train text in dev and test",
+        "".join(
+            [
+                f"<p>Near-duplicates: documents whose word shingles overlap by an estimated Jaccard similarity of at least "
+                f"{near['threshold']:g} (MinHash with banding). Policy <code>{html.escape(near['policy'])}</code>"
+                + {
+                    "drop": ": every cluster keeps its anchor alone.",
+                    "same_split": ": every cluster keeps the members in its anchor's split.",
+                    "off": ": nothing is dropped.",
+                }[near["policy"]]  # fmt: skip
+                + "</p>",
+                table(["near-duplicates", "count"], cluster_rows),
+                f"<p>Contamination: the share of each kept dev and test document's {n}-word n-grams that also occur in a kept train "
+                f"document. {above:,} documents reach {dirty['threshold']:g}; {fate}</p>",
+                table(headers, distribution),
+                table(["share", "documents"], bins),
+                (f"<h3>Documents at or above {dirty['threshold']:g}</h3>" + table(["file", "byte offset", "split", "share", "dropped"], listed) + more)
+                if listed
+                else "",
+                "<h3>By source file</h3>"
+                + table(["file", "measured", "with a shared n-gram", "mean", "max", f"≥ {dirty['threshold']:g}"], source_rows)
+                + left_out(len(by_source), len(source_rows), "<code>stats/hygiene.json</code>")
+                if source_rows
+                else "",
+                "<p>Every cluster member and every measured document are in <code>stats/near_duplicates.parquet</code> and "
+                "<code>stats/contamination.parquet</code>; <code>corpusmill hygiene BUILD</code> (the build folder) lists them with their text.</p>",
+            ]
+        ),
+    )
 
 
 def sizing_section(size: int, options: dict, context_unit: str) -> tuple[str, str, str]:
     """Parameters, bytes and softmax cost of a feed-forward model over `size` ids."""
     report = options["report"]
     context = options["windows"]["ngram"]["n"] - 1
-    return ("sizing", "What a model of this vocabulary costs", "".join([
-        f"<p>A feed-forward model over {size:,} ids with {context} context {context_unit}, hidden width h = {report['hidden_width']}, "
-        "one column per embedding width m. Counts with their size as float32; the output layer's multiply-adds "
-        "score every id for each predicted token.</p>",
-        table(["figure"] + [f"m = {width:,}" for width in report["embedding_widths"]],
-              sizing_rows(size, report["embedding_widths"], context, report["hidden_width"])),
-    ]))
+    return (
+        "sizing",
+        "What a model of this vocabulary costs",
+        "".join(
+            [
+                f"<p>A feed-forward model over {size:,} ids with {context} context {context_unit}, hidden width h = {report['hidden_width']}, "
+                "one column per embedding width m. Counts with their size as float32; the output layer's multiply-adds "
+                "score every id for each predicted token.</p>",
+                table(
+                    ["figure"] + [f"m = {width:,}" for width in report["embedding_widths"]],
+                    sizing_rows(size, report["embedding_widths"], context, report["hidden_width"]),
+                ),
+            ]
+        ),
+    )
 
 
 def ranked_lead(files: int, listed: int, what: str) -> str:
     """What orders the per-file chart and table, which share the rank numbers."""
-    return (f"<p>{files:,} input files, ranked by {html.escape(what)}. "
-            f"The chart shows the first {min(CHART_FILES, listed)}, numbered as in the table.</p>")
+    return f"<p>{files:,} input files, ranked by {html.escape(what)}. The chart shows the first {min(CHART_FILES, listed)}, numbered as in the table.</p>"
 
 
 def left_out(files: int, listed: int, where: str) -> str:
@@ -469,22 +525,42 @@ def cutoff_sections(coverage: dict, curve: dict[str, np.ndarray], options: dict)
     """What describes a word cutoff: coverage at every size, the words missing, where they go."""
     words, size, splits = coverage["words"], coverage["vocabulary_size"], coverage["splits"]
     chosen_rows = coverage["sizes"]
-    sections = [("coverage", "How much the vocabulary covers", "".join([
-        frozen_note(coverage),
-        f"<p>{words:,} words kept ({size:,} ids with the reserved and unknown-class symbols). "
-        f"They cover {_rate(1 - splits['train']['unknown_rate'], splits['train']['tokens'])} of train tokens; "
-        f"{_rate(splits['dev']['unknown_rate'], splits['dev']['tokens'])} of dev and "
-        f"{_rate(splits['test']['unknown_rate'], splits['test']['tokens'])} of test tokens are out of vocabulary.</p>",
-        image(plot_coverage(curve, words), "coverage curve",
-              "Keeping the k most frequent train words: share of train tokens covered, and dev/test tokens left out."),
-        table(["words kept", "train covered", "dev OOV", "test OOV"],
-              [[r["size"], _rate(r["train_coverage"], splits["train"]["tokens"]), _rate(r["dev_oov_rate"], splits["dev"]["tokens"]),
-                _rate(r["test_oov_rate"], splits["test"]["tokens"])] for r in chosen_rows],
-              [r["chosen"] for r in chosen_rows]),
-        f"<p>Words seen once in train: {_rate(coverage['train_singletons']['types_share'], splits['train']['types'])} of train types, "
-        f"{_rate(coverage['train_singletons']['tokens_share'], splits['train']['tokens'])} of train tokens. "
-        "Try other cutoffs without rebuilding: <code>corpusmill cutoffs BUILD --min-count N</code>.</p>",
-    ]))]
+    sections = [
+        (
+            "coverage",
+            "How much the vocabulary covers",
+            "".join(
+                [
+                    frozen_note(coverage),
+                    f"<p>{words:,} words kept ({size:,} ids with the reserved and unknown-class symbols). "
+                    f"They cover {_rate(1 - splits['train']['unknown_rate'], splits['train']['tokens'])} of train tokens; "
+                    f"{_rate(splits['dev']['unknown_rate'], splits['dev']['tokens'])} of dev and "
+                    f"{_rate(splits['test']['unknown_rate'], splits['test']['tokens'])} of test tokens are out of vocabulary.</p>",
+                    image(
+                        plot_coverage(curve, words),
+                        "coverage curve",
+                        "Keeping the k most frequent train words: share of train tokens covered, and dev/test tokens left out.",
+                    ),
+                    table(
+                        ["words kept", "train covered", "dev OOV", "test OOV"],
+                        [
+                            [
+                                r["size"],
+                                _rate(r["train_coverage"], splits["train"]["tokens"]),
+                                _rate(r["dev_oov_rate"], splits["dev"]["tokens"]),
+                                _rate(r["test_oov_rate"], splits["test"]["tokens"]),
+                            ]
+                            for r in chosen_rows
+                        ],
+                        [r["chosen"] for r in chosen_rows],
+                    ),
+                    f"<p>Words seen once in train: {_rate(coverage['train_singletons']['types_share'], splits['train']['types'])} of train types, "
+                    f"{_rate(coverage['train_singletons']['tokens_share'], splits['train']['tokens'])} of train tokens. "
+                    "Try other cutoffs without rebuilding: <code>corpusmill cutoffs BUILD --min-count N</code>.</p>",
+                ]
+            ),
+        )
+    ]
     lists = []
     for split in ("dev", "test"):
         top = splits[split].get("top_oov", [])[: options["report"]["top_oov"]]
@@ -499,10 +575,18 @@ def cutoff_sections(coverage: dict, curve: dict[str, np.ndarray], options: dict)
             total = splits[split]["unknown_tokens"]
             row += [count, _rate(count / total if total else 0.0, total)]
         class_rows.append(row)
-    sections.append(("classes", "Where out-of-vocabulary tokens go", "".join([
-        "<p>Each out-of-vocabulary token maps to one unknown-class symbol; the share is of that split's OOV tokens.</p>",
-        table(["symbol"] + [f"{s} {label}" for s in SPLITS for label in ("tokens", "share")], class_rows),
-    ])))
+    sections.append(
+        (
+            "classes",
+            "Where out-of-vocabulary tokens go",
+            "".join(
+                [
+                    "<p>Each out-of-vocabulary token maps to one unknown-class symbol; the share is of that split's OOV tokens.</p>",
+                    table(["symbol"] + [f"{s} {label}" for s in SPLITS for label in ("tokens", "share")], class_rows),
+                ]
+            ),
+        )
+    )
     return sections
 
 
@@ -510,30 +594,55 @@ def model_sections(coverage: dict) -> list[tuple[str, str, str]]:
     """What describes a piece model: its ids, the most frequent pieces, pieces per word."""
     size, splits = coverage["vocabulary_size"], coverage["splits"]
     controls = size - coverage["piece_ids"] - coverage["byte_ids"]
-    model_rows = [["learned pieces", coverage["piece_ids"]], ["byte pieces", coverage["byte_ids"]],
-                  ["reserved symbols", controls], ["all ids, |V|", size],
-                  ["pieces and byte pieces never used in train", coverage["unused_in_train"]]]
-    length_rows = [[s, splits[s]["documents"], splits[s]["sentences"], splits[s]["words"], splits[s]["tokens"],
-                    _ratio(splits[s]["tokens_per_word"], splits[s]["words"]), _ratio(splits[s]["tokens_per_sentence"], splits[s]["sentences"])]
-                   for s in SPLITS]
+    model_rows = [
+        ["learned pieces", coverage["piece_ids"]],
+        ["byte pieces", coverage["byte_ids"]],
+        ["reserved symbols", controls],
+        ["all ids, |V|", size],
+        ["pieces and byte pieces never used in train", coverage["unused_in_train"]],
+    ]
+    length_rows = [
+        [
+            s,
+            splits[s]["documents"],
+            splits[s]["sentences"],
+            splits[s]["words"],
+            splits[s]["tokens"],
+            _ratio(splits[s]["tokens_per_word"], splits[s]["words"]),
+            _ratio(splits[s]["tokens_per_sentence"], splits[s]["sentences"]),
+        ]
+        for s in SPLITS
+    ]
     return [
-        ("model", "The subword model", "".join([
-            f"<p>{size:,} ids: {coverage['piece_ids']:,} learned pieces, {coverage['byte_ids']:,} byte pieces and {controls:,} reserved symbols. "
-            "Every word of every split is spelled by pieces, so there is no word cutoff and no out-of-vocabulary word; "
-            "what remains to measure is how many pieces a word takes and how often the model falls back to bytes or &lt;unk&gt;.</p>",
-            table(["ids", "count"], model_rows),
-            "<h3>Most frequent train pieces</h3>",
-            table(["piece", "train count"], [[escape(piece), count] for piece, count in coverage["most_frequent_train_pieces"]]),
-        ])),
-        ("lengths", "Pieces per word and per sentence", "".join([
-            f"<p>A train word takes {_ratio(splits['train']['tokens_per_word'], splits['train']['words'])} pieces on average "
-            f"(dev {_ratio(splits['dev']['tokens_per_word'], splits['dev']['words'])}, "
-            f"test {_ratio(splits['test']['tokens_per_word'], splits['test']['words'])}); "
-            "words are runs of non-space characters of the cleaned sentences. "
-            "More pieces per word mean longer id sequences for the same text: n-gram contexts and blocks span fewer words. "
-            "A dev or test figure well above train's suggests text unlike the train sample (a rule of thumb).</p>",
-            table(["split", "documents", "sentences", "words", "pieces", "pieces per word", "pieces per sentence"], length_rows),
-        ])),
+        (
+            "model",
+            "The subword model",
+            "".join(
+                [
+                    f"<p>{size:,} ids: {coverage['piece_ids']:,} learned pieces, {coverage['byte_ids']:,} byte pieces and {controls:,} reserved symbols. "
+                    "Every word of every split is spelled by pieces, so there is no word cutoff and no out-of-vocabulary word; "
+                    "what remains to measure is how many pieces a word takes and how often the model falls back to bytes or &lt;unk&gt;.</p>",
+                    table(["ids", "count"], model_rows),
+                    "<h3>Most frequent train pieces</h3>",
+                    table(["piece", "train count"], [[escape(piece), count] for piece, count in coverage["most_frequent_train_pieces"]]),
+                ]
+            ),
+        ),
+        (
+            "lengths",
+            "Pieces per word and per sentence",
+            "".join(
+                [
+                    f"<p>A train word takes {_ratio(splits['train']['tokens_per_word'], splits['train']['words'])} pieces on average "
+                    f"(dev {_ratio(splits['dev']['tokens_per_word'], splits['dev']['words'])}, "
+                    f"test {_ratio(splits['test']['tokens_per_word'], splits['test']['words'])}); "
+                    "words are runs of non-space characters of the cleaned sentences. "
+                    "More pieces per word mean longer id sequences for the same text: n-gram contexts and blocks span fewer words. "
+                    "A dev or test figure well above train's suggests text unlike the train sample (a rule of thumb).</p>",
+                    table(["split", "documents", "sentences", "words", "pieces", "pieces per word", "pieces per sentence"], length_rows),
+                ]
+            ),
+        ),
     ]
 
 
@@ -547,37 +656,49 @@ def unknown_section(coverage: dict, unit: str) -> tuple[str, str, str]:
     if bytes_shown:
         headers += ["byte pieces", "byte-piece share", "unknown rate without byte fallback"]
         for row, s in zip(rows, SPLITS):
-            row += [splits[s]["byte_pieces"], _fine_rate(splits[s]["byte_piece_rate"], splits[s]["tokens"]),
-                    _fine_rate(splits[s]["unknown_rate_without_byte_fallback"], splits[s]["tokens"])]
+            row += [
+                splits[s]["byte_pieces"],
+                _fine_rate(splits[s]["byte_piece_rate"], splits[s]["tokens"]),
+                _fine_rate(splits[s]["unknown_rate_without_byte_fallback"], splits[s]["tokens"]),
+            ]
     else:
         headers += ["types", "OOV types"]
         for row, s in zip(rows, SPLITS):
             row += [splits[s].get("types", 0), splits[s].get("oov_types", 0)]
-    lead = ("<p>Unknown tokens: words outside the vocabulary (mapped to &lt;unk&gt; or an unknown class) or &lt;unk&gt; pieces. "
-            + ("Byte-piece share: pieces that are UTF-8 bytes of characters outside the model. Without byte fallback the same "
-               "model would write one &lt;unk&gt; for each run of byte pieces (sentencepiece merges adjacent unknown characters); "
-               "the last column is that rate.</p>" if bytes_shown else "</p>"))
+    lead = "<p>Unknown tokens: words outside the vocabulary (mapped to &lt;unk&gt; or an unknown class) or &lt;unk&gt; pieces. " + (
+        "Byte-piece share: pieces that are UTF-8 bytes of characters outside the model. Without byte fallback the same "
+        "model would write one &lt;unk&gt; for each run of byte pieces (sentencepiece merges adjacent unknown characters); "
+        "the last column is that rate.</p>"
+        if bytes_shown
+        else "</p>"
+    )
     parts = [lead, table(headers, rows)]
     if sources:
         what = f"unknown {unit}" + (" (a run of byte pieces counted as one)" if bytes_shown else "")
         listed = top_sources(sources, _would_be_unknown, TABLE_FILES)
         parts += [
             ranked_lead(len(sources), len(listed), f"{what}, in all splits"),
-            image(plot_sources(listed[:CHART_FILES], "unknown_rate_without_byte_fallback", f"share of {unit} unknown"
-                               + (" without byte fallback" if bytes_shown else "")),
-                  "unknown rate by source file", f"Share of unknown {unit} per input file and split, numbered as in the table."),
-            table(["#", "input file", f"unknown {unit}"] + [f"{s} {label}" for s in SPLITS for label in (unit, "unknown")],
-                  [[rank, FileName(name), _would_be_unknown(figures)]
-                   + [v for s in SPLITS for v in (figures[s]["tokens"], _fine_rate(figures[s]["unknown_rate_without_byte_fallback"], figures[s]["tokens"]))]
-                   for rank, (name, figures) in enumerate(listed, 1)]),
+            image(
+                plot_sources(
+                    listed[:CHART_FILES], "unknown_rate_without_byte_fallback", f"share of {unit} unknown" + (" without byte fallback" if bytes_shown else "")
+                ),
+                "unknown rate by source file",
+                f"Share of unknown {unit} per input file and split, numbered as in the table.",
+            ),
+            table(
+                ["#", "input file", f"unknown {unit}"] + [f"{s} {label}" for s in SPLITS for label in (unit, "unknown")],
+                [
+                    [rank, FileName(name), _would_be_unknown(figures)]
+                    + [v for s in SPLITS for v in (figures[s]["tokens"], _fine_rate(figures[s]["unknown_rate_without_byte_fallback"], figures[s]["tokens"]))]
+                    for rank, (name, figures) in enumerate(listed, 1)
+                ],
+            ),
             left_out(len(sources), len(listed), "<code>stats/coverage.json</code>, key <code>sources</code>"),
         ]
     return ("unknown", "Unknown tokens by split and source", "".join(parts))
 
 
-def render(
-    coverage: dict, manifest: dict, counts: pa.Table, growth: tuple[np.ndarray, np.ndarray], options: dict, hygiene: dict | None = None
-) -> str:
+def render(coverage: dict, manifest: dict, counts: pa.Table, growth: tuple[np.ndarray, np.ndarray], options: dict, hygiene: dict | None = None) -> str:
     """The whole page as one HTML string: the section that describes the vocabulary (a word
     cutoff or a piece model), then what every build has."""
     pieces = "piece_ids" in coverage
@@ -590,27 +711,56 @@ def render(
     # unknown tokens, by the words missing and where they go.
     description = model_sections(coverage) if pieces else cutoff_sections(coverage, coverage_curve(counts), options)
     sections, later = (description, []) if pieces else (description[:1], description[1:])
-    described = f"the {int(ranks.max()) if len(ranks) else 0:,} pieces used in train" if pieces else (
-        f"{int(ranks.max()) if len(ranks) else 0:,} train types")
-    note = ("A small piece inventory rarely follows one straight line: single characters and frequent short pieces fill the head, "
-            "rarely used byte pieces the tail, so read s as a summary of the slope rather than as the word law." if pieces
-            else "Zipf's law gives exponents near 1 for the words of natural-language text.")
-    sections.append(("zipf", f"Rank and frequency{' of pieces' if pieces else ''}", "".join([
-        f"<p>Fitted Zipf exponent s = {zipf_fit.exponent:.3f} (least squares on log–log axes at {len(ranks)} log-spaced ranks of {described}). {note}</p>",
-        image(plot_zipf(ranks, ranked, zipf_fit, "pieces" if pieces else "words"), f"rank-frequency plot{' of pieces' if pieces else ''}",
-              f"Train count of the {'piece' if pieces else 'word'} at each rank, log–log axes."),
-    ])))
+    described = f"the {int(ranks.max()) if len(ranks) else 0:,} pieces used in train" if pieces else (f"{int(ranks.max()) if len(ranks) else 0:,} train types")
+    note = (
+        "A small piece inventory rarely follows one straight line: single characters and frequent short pieces fill the head, "
+        "rarely used byte pieces the tail, so read s as a summary of the slope rather than as the word law."
+        if pieces
+        else "Zipf's law gives exponents near 1 for the words of natural-language text."
+    )
+    sections.append(
+        (
+            "zipf",
+            f"Rank and frequency{' of pieces' if pieces else ''}",
+            "".join(
+                [
+                    f"<p>Fitted Zipf exponent s = {zipf_fit.exponent:.3f} (least squares on log–log axes "
+                    f"at {len(ranks)} log-spaced ranks of {described}). {note}</p>",
+                    image(
+                        plot_zipf(ranks, ranked, zipf_fit, "pieces" if pieces else "words"),
+                        f"rank-frequency plot{' of pieces' if pieces else ''}",
+                        f"Train count of the {'piece' if pieces else 'word'} at each rank, log–log axes.",
+                    ),
+                ]
+            ),
+        )
+    )
     stream = "words" if pieces else "tokens"
-    sections.append(("growth", "Vocabulary growth", "".join([
-        ("<p>Measured in words, not pieces: distinct whitespace-separated words of the train sentences, in corpus order, "
-         "duplicates left out; the number of pieces is fixed at |V| by the model and does not grow. " if pieces else "<p>")
-        + f"Heaps fit: types ≈ K · {stream}<sup>β</sup> with K = {heaps_fit.constant:.2f}, β = {heaps_fit.exponent:.3f}, "
-        f"fitted from a tenth of the stream to its end, the last decade on the log axis (from {int(heaps_fit.fit_from):,} "
-        f"of {int(read.max()) if len(read) else 0:,} {stream}; {int(types[-1]) if len(types) else 0:,} distinct words; shaded in the plot). "
-        "Large English collections usually give β between 0.4 and 0.6; a small or mixed corpus gives more.</p>",
-        image(_png(growth_figure(read, types, heaps_fit, stream, "whitespace-separated, corpus order" if pieces else "corpus order")),
-              "vocabulary growth plot", f"Distinct words after each prefix of the train {stream}, in corpus order, duplicates left out."),
-    ])))
+    sections.append(
+        (
+            "growth",
+            "Vocabulary growth",
+            "".join(
+                [
+                    (
+                        "<p>Measured in words, not pieces: distinct whitespace-separated words of the train sentences, in corpus order, "
+                        "duplicates left out; the number of pieces is fixed at |V| by the model and does not grow. "
+                        if pieces
+                        else "<p>"
+                    )
+                    + f"Heaps fit: types ≈ K · {stream}<sup>β</sup> with K = {heaps_fit.constant:.2f}, β = {heaps_fit.exponent:.3f}, "
+                    f"fitted from a tenth of the stream to its end, the last decade on the log axis (from {int(heaps_fit.fit_from):,} "
+                    f"of {int(read.max()) if len(read) else 0:,} {stream}; {int(types[-1]) if len(types) else 0:,} distinct words; shaded in the plot). "
+                    "Large English collections usually give β between 0.4 and 0.6; a small or mixed corpus gives more.</p>",
+                    image(
+                        _png(growth_figure(read, types, heaps_fit, stream, "whitespace-separated, corpus order" if pieces else "corpus order")),
+                        "vocabulary growth plot",
+                        f"Distinct words after each prefix of the train {stream}, in corpus order, duplicates left out.",
+                    ),
+                ]
+            ),
+        )
+    )
     sections.append(unknown_section(coverage, unit))
     sections += later
     sections.append(accounting_section(manifest, unit))
@@ -619,8 +769,11 @@ def render(
     if "baseline" in manifest:
         sections.append(baseline_section(manifest["baseline"]))
     sections.append(sizing_section(size, options, "pieces" if pieces else "words"))
-    lead = (f"{splits['train']['tokens']:,} train pieces, subword model of {size:,} ids" if pieces
-            else f"{splits['train']['tokens']:,} train tokens, {coverage['words']:,} words kept")
+    lead = (
+        f"{splits['train']['tokens']:,} train pieces, subword model of {size:,} ids"
+        if pieces
+        else f"{splits['train']['tokens']:,} train tokens, {coverage['words']:,} words kept"
+    )
     return page(sections, lead, manifest)
 
 

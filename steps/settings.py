@@ -158,9 +158,7 @@ def resolve(raw: dict[str, Any]) -> dict[str, Any]:
     fractions = config["split"]["fractions"]
     total = sum(fractions.values())
     if abs(total - 1.0) > 1e-9:
-        raise ConfigError(
-            f"invalid configuration: split.fractions = {json.dumps(fractions)} sum to {total:g}: allowed: shares summing to 1"
-        )
+        raise ConfigError(f"invalid configuration: split.fractions = {json.dumps(fractions)} sum to {total:g}: allowed: shares summing to 1")
     if fractions["train"] <= 0:
         raise ConfigError("invalid configuration: split.fractions.train = 0: allowed: a share > 0 (the vocabulary is counted on train)")
     _check_build_dir(config["build_dir"])

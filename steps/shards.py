@@ -106,9 +106,7 @@ class RowCutter:
         self.pad, self.bos, self.eos = reserved[PAD], reserved[BOS], reserved[EOS]
         self.ngram, self.block = windows["ngram"], windows["blocks"]
         self.corpus_blocks = (
-            CorpusBlocks(self.block["length"], self.block["stride"], self.block["remainder"], self.pad)
-            if self.block["span"] == "corpus"
-            else None
+            CorpusBlocks(self.block["length"], self.block["stride"], self.block["remainder"], self.pad) if self.block["span"] == "corpus" else None
         )
         self.stream_ids = self.block_ids = 0
         self.corpus_block_rows = 0  # blocks cut so far with span: corpus

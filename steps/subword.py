@@ -127,9 +127,7 @@ def read_sample(path: str | Path) -> Iterator[str]:
             try:
                 yield json.loads(line)
             except json.JSONDecodeError as error:
-                raise SystemExit(
-                    f"corpusmill: {path}: line {number}: not a JSON string ({error.msg}); delete the file to redraw the sample"
-                ) from None
+                raise SystemExit(f"corpusmill: {path}: line {number}: not a JSON string ({error.msg}); delete the file to redraw the sample") from None
 
 
 def sample_key(sample: str, subword: dict) -> str:
@@ -197,9 +195,7 @@ def main_sample(argv: list[str]) -> None:
     chunks = [(layout.prepared(c), pq.ParquetFile(layout.removed(c)).read(use_threads=False)) for c in run.chunks()]
     sentences, seen = draw_sample(chunks, subword["max_sentences"], subword["seed"])
     if not sentences:
-        raise SystemExit(
-            "corpusmill: no train sentences to learn a subword model from; check split.fractions (train > 0) and that the corpus has text"
-        )
+        raise SystemExit("corpusmill: no train sentences to learn a subword model from; check split.fractions (train > 0) and that the corpus has text")
     text = sample_text(sentences)
     write_text(layout.subword_sample, text)
     write_text(layout.subword_key, sample_key(text, subword) + "\n")

@@ -49,8 +49,7 @@ def format_table(stats: dict) -> str:
         for row_figures in stats["sizes"]:
             mark = "  <- chosen" if row_figures["chosen"] else ""
             lines.append(
-                f"{row_figures['size']:>8} {_shown(row_figures['train_coverage'], train, '.2%'):>15} "
-                f"{_shown(row_figures['dev_oov_rate'], dev, '.2%'):>8}{mark}"
+                f"{row_figures['size']:>8} {_shown(row_figures['train_coverage'], train, '.2%'):>15} {_shown(row_figures['dev_oov_rate'], dev, '.2%'):>8}{mark}"
             )
         top = stats["splits"]["dev"].get("top_oov", [])[:10]
         if top:
@@ -70,8 +69,7 @@ def format_accounting(accounting: dict, corpus: dict, dropped_path: str, shown: 
     reasons = ", ".join(f"{reason} {count:,}" for reason, count in sorted(dropped.items(), key=lambda item: -item[1]))
     pieces = f" (+{accounting['pieces_added']:,} pieces of split documents)" if accounting["pieces_added"] else ""
     lines = [
-        f"documents: read {accounting['read']:,}{pieces}, kept {accounting['kept']:,}, dropped {sum(dropped.values()):,}"
-        + (f": {reasons}" if reasons else "")
+        f"documents: read {accounting['read']:,}{pieces}, kept {accounting['kept']:,}, dropped {sum(dropped.values()):,}" + (f": {reasons}" if reasons else "")
     ]
     files = [f"{len(corpus['sources']):,} read"]
     if corpus["unselected"]:

@@ -81,8 +81,7 @@ _WORD_PATTERNS = {
 # letters (ª º µ), so an ASCII text stays a one-byte-per-character string.
 _STAND_INS = {"-": "\u00aa", "\u2010": "\u00ba", "\u2011": "\u00b5"}
 _JOINING_HYPHENS = {
-    hyphen: regex.compile(rf"{regex.escape(hyphen)}(?<={_LETTER}{_ATTACHED}*+{regex.escape(hyphen)})(?={_LETTER})", _FLAGS)
-    for hyphen in _STAND_INS
+    hyphen: regex.compile(rf"{regex.escape(hyphen)}(?<={_LETTER}{_ATTACHED}*+{regex.escape(hyphen)})(?={_LETTER})", _FLAGS) for hyphen in _STAND_INS
 }
 
 
@@ -162,9 +161,9 @@ _SENTENCE_BODY = rf"""
 (?:
     (?: [[\x00-\x7f]--[.!?\r\n]] | [^\x00-\x7f{_TERMINATORS}{_PARA_SEP}] )++
   | (?: [.!?] (?=[.!?]) )++
-  | (?: (?>[{_TERMINATORS}] {_TAIL}) (?=[{_sb('SContinue')}{_TERMINATORS}]) )++
+  | (?: (?>[{_TERMINATORS}] {_TAIL}) (?=[{_sb("SContinue")}{_TERMINATORS}]) )++
   | (?>\p{{SB=ATerm}} {_TAIL}) (?={_NOT_SB8_STOP}*+ \p{{SB=Lower}})
-  | (?<=[{_sb('Upper', 'Lower')}][{_IGNORED}]*+) \p{{SB=ATerm}} [{_IGNORED}]*+ (?=\p{{SB=Upper}})
+  | (?<=[{_sb("Upper", "Lower")}][{_IGNORED}]*+) \p{{SB=ATerm}} [{_IGNORED}]*+ (?=\p{{SB=Upper}})
   | \p{{SB=ATerm}} [{_IGNORED}]*+ (?=\p{{SB=Numeric}})
   {{abbreviation}}
 )*+
@@ -183,9 +182,7 @@ def _sentence_pattern(abbreviations: frozenset[str]) -> regex.Pattern[str]:
     listed = sorted({a.lower().removesuffix(".") for a in abbreviations} - {""})
     if not listed:
         return regex.compile(_SENTENCE_BODY.replace("{abbreviation}", ""), _FLAGS | regex.VERBOSE)
-    return regex.compile(
-        _SENTENCE_BODY.replace("{abbreviation}", _ABBREVIATION), _FLAGS | regex.VERBOSE, abbreviations=listed
-    )
+    return regex.compile(_SENTENCE_BODY.replace("{abbreviation}", _ABBREVIATION), _FLAGS | regex.VERBOSE, abbreviations=listed)
 
 
 def sentence_segments(text: str, abbreviations: frozenset[str] = frozenset()) -> list[str]:
@@ -209,9 +206,7 @@ def sentence_segments(text: str, abbreviations: frozenset[str] = frozenset()) ->
 # regional indicators by counting back to the run's start, which is quadratic in its length.
 # Public for patterns elsewhere that match one cluster at a time; every match must start at a
 # cluster boundary.
-CLUSTER_PATTERN = (
-    r"(?>[\U0001F1E6-\U0001F1FF]{2}[\p{GCB=Extend}\p{GCB=ZWJ}\p{GCB=SpacingMark}]*+|\X)"
-)
+CLUSTER_PATTERN = r"(?>[\U0001F1E6-\U0001F1FF]{2}[\p{GCB=Extend}\p{GCB=ZWJ}\p{GCB=SpacingMark}]*+|\X)"
 _CLUSTER = regex.compile(CLUSTER_PATTERN, _FLAGS)
 # Matched on a text that starts at a cluster boundary: stops at the start of its last cluster.
 # A cluster boundary depends only on the text up to the character after it, so a window one
@@ -222,9 +217,7 @@ _UP_TO_LAST_CLUSTER = regex.compile(rf"{CLUSTER_PATTERN}*(?={CLUSTER_PATTERN}\Z)
 # before it, and the rules that look further back (GB9c, GB11, GB12/GB13) join only before
 # Indic consonants, pictographs and regional indicators. Most letters, digits and punctuation
 # are in it. Searched backwards from the end of a text.
-_SURE_BOUNDARY = regex.compile(
-    r"(?<!\p{GCB=Prepend})[\p{GCB=Other}&&\p{InCB=None}--\p{Extended_Pictographic}]", _FLAGS | regex.REVERSE
-)
+_SURE_BOUNDARY = regex.compile(r"(?<!\p{GCB=Prepend})[\p{GCB=Other}&&\p{InCB=None}--\p{Extended_Pictographic}]", _FLAGS | regex.REVERSE)
 #: How far back from the end to look for such a boundary before matching from the start.
 _SURE_BOUNDARY_REACH = 4096
 

@@ -195,9 +195,7 @@ def read_frozen(path: str | Path, unknown: str) -> Vocabulary:
     return vocabulary
 
 
-def vocabulary_from_counts(
-    count_paths: Sequence[str], removed: str | None, config: dict, frozen: str | None
-) -> tuple[Vocabulary, pa.Table]:
+def vocabulary_from_counts(count_paths: Sequence[str], removed: str | None, config: dict, frozen: str | None) -> tuple[Vocabulary, pa.Table]:
     """The vocabulary (built, or the frozen file checked) and the token counts of the build;
     raise VocabularyError when train is empty or the frozen file is unusable."""
     counts, boundaries = merge_counts(count_paths, removed)

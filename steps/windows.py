@@ -68,9 +68,7 @@ def ngram_target_positions(sentence_lengths: np.ndarray, sentences_per_document:
     return np.repeat(starts, targets) + _within(targets)
 
 
-def document_streams(
-    ids: np.ndarray, sentence_lengths: np.ndarray, sentences_per_document: np.ndarray, bos: int, eos: int
-) -> tuple[np.ndarray, np.ndarray]:
+def document_streams(ids: np.ndarray, sentence_lengths: np.ndarray, sentences_per_document: np.ndarray, bos: int, eos: int) -> tuple[np.ndarray, np.ndarray]:
     """(stream, document lengths): each document as <s> s1 </s> s2 </s> …, laid end to end."""
     lengths = sentence_lengths.astype(np.int64)
     per_doc = sentences_per_document.astype(np.int64)
@@ -107,9 +105,7 @@ def document_block_starts(doc_lengths: np.ndarray, length: int, stride: int, rem
     return _document_block_layout(doc_lengths, length, stride, remainder)[0]
 
 
-def document_blocks(
-    stream: np.ndarray, doc_lengths: np.ndarray, length: int, stride: int, remainder: str, pad_id: int
-) -> np.ndarray:
+def document_blocks(stream: np.ndarray, doc_lengths: np.ndarray, length: int, stride: int, remainder: str, pad_id: int) -> np.ndarray:
     """Blocks of length+1 ids that never cross a document, [rows, length+1]."""
     span = length + 1
     starts, ends = _document_block_layout(doc_lengths, length, stride, remainder)

@@ -35,16 +35,24 @@ def pytest_collection_modifyitems(items: list[pytest.Item]) -> None:
             item.add_marker(pytest.mark.demo_build)
 
 
-def run_workflow(
-    directory: Path, overrides: dict | None = None, *extra: str, cores: int = 2, check: bool = True
-) -> subprocess.CompletedProcess:
+def run_workflow(directory: Path, overrides: dict | None = None, *extra: str, cores: int = 2, check: bool = True) -> subprocess.CompletedProcess:
     """Run the workflow in `directory` with an override config file; returns the finished process."""
     directory.mkdir(parents=True, exist_ok=True)
     override = directory / "override.yaml"
     override.write_text(yaml.safe_dump(overrides or {}), encoding="utf-8")
     command = [
-        sys.executable, "-m", "snakemake", "--snakefile", str(REPO / "Snakefile"), "--directory", str(directory),
-        "--cores", str(cores), "--configfile", str(override), *extra,
+        sys.executable,
+        "-m",
+        "snakemake",
+        "--snakefile",
+        str(REPO / "Snakefile"),
+        "--directory",
+        str(directory),
+        "--cores",
+        str(cores),
+        "--configfile",
+        str(override),
+        *extra,
     ]
     result = subprocess.run(command, capture_output=True, text=True, env={**os.environ, "PYTHONHASHSEED": "0"})
     if check and result.returncode != 0:

@@ -61,10 +61,7 @@ BIDI_TEXT = "Pay the \u202eamount\u202c due and \u2067isolated\u2069 words \u200
 ZWJ_FAMILY = "\U0001f469\u200d\U0001f469\u200d\U0001f467\u200d\U0001f466"  # family: woman woman girl boy
 ZWJ_RAINBOW_FLAG = "\U0001f3f3\ufe0f\u200d\U0001f308"
 ZWJ_TEXT = f"The family {ZWJ_FAMILY} waved the flag {ZWJ_RAINBOW_FLAG} at the parade."
-SCRIPTS_TEXT = (
-    "English words meet русские слова and ελληνικές λέξεις, then عربية كلمات, "
-    "中文的字 and हिन्दी शब्द, ภาษาไทย, 日本語のかな, and עברית מילים."
-)
+SCRIPTS_TEXT = "English words meet русские слова and ελληνικές λέξεις, then عربية كلمات, 中文的字 and हिन्दी शब्द, ภาษาไทย, 日本語のかな, and עברית מילים."
 
 
 def combining_run(marks: int) -> str:
@@ -94,7 +91,7 @@ PATHOLOGICAL: dict[str, Callable[[int], str]] = {
     "digits_and_separators": lambda n: "1,1." * (n // 4),
     "only_periods": lambda n: "." * n,
     "narrow_spaces_in_numbers": lambda n: "1\u202f" * (n // 2),
-    "regional_indicators": lambda n: "\U0001F1E6" * n,
+    "regional_indicators": lambda n: "\U0001f1e6" * n,
     "letters_between_periods": lambda n: "a." * (n // 2) + "a",
     "letters_between_periods_then_bang": lambda n: "a." * (n // 2) + "a! A",
     "abbreviations_before_capitals": lambda n: "Dr. A " * (n // 6),
@@ -125,7 +122,7 @@ RULE_LOOKAHEAD: dict[str, Callable[[int], str]] = {
     "spaces then a lowercase letter": lambda n: "a." + " " * n + "b",
     "open brackets then a lowercase letter": lambda n: "a." + "(" * n + "b",
     "digits after a period": lambda n: "a." + "1" * n,
-    "regional indicators": lambda n: "\U0001F1E6" * n,
+    "regional indicators": lambda n: "\U0001f1e6" * n,
     "hyphens between letters": lambda n: "a-" * (n // 2),
     "apostrophes between letters": lambda n: "a'" * (n // 2),
     "zero width joiners": lambda n: "\u200d" * n,
@@ -201,8 +198,11 @@ def write_hostile_corpus(root: Path) -> dict[str, str]:
             {"id": "surrogate", "text": "lone \ud800 surrogate escape in words"},
         )
         + b'{"id": "broken", "text": "no closing brace"\n'
-        + b'{"n": ' + b"9" * 5000 + b"}\n"
-        + b"[" * 50_000 + b"\n",
+        + b'{"n": '
+        + b"9" * 5000
+        + b"}\n"
+        + b"[" * 50_000
+        + b"\n",
     }
     for kind in INVALID_UTF8:
         files[f"invalid_{kind}.txt"] = invalid_utf8_text(kind)[0]

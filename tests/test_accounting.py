@@ -324,5 +324,11 @@ def test_drop_reasons_are_listed_in_name_order():
 def test_no_tallies_give_an_empty_balanced_accounting():
     """An empty corpus: every figure zero, nothing dropped, balanced."""
     assert accounting([], duplicates=0) == {
-        "read": 0, "pieces_added": 0, "kept": 0, "dropped": {}, "truncated": 0, "replaced_sequences": 0, "balanced": True,
+        "read": 0,
+        "pieces_added": 0,
+        "kept": 0,
+        "dropped": {},
+        "truncated": 0,
+        "replaced_sequences": 0,
+        "balanced": True,
     }

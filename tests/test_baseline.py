@@ -119,8 +119,11 @@ def test_a_build_without_stream_shards_is_refused_saying_how_to_enable_them(demo
     for figures in manifest["splits"].values():
         figures["shards"] = [entry for entry in figures["shards"] if entry["kind"] != "stream"]
     (copy / "manifest.json").write_text(json.dumps(manifest), encoding="utf-8")
-    with pytest.raises(SystemExit, match=r"^corpusmill: .*manifest\.json: no stream shards for train, dev, test; .*"
-                       r"set windows\.streams\.enabled: true in the workflow config and rerun"):
+    with pytest.raises(
+        SystemExit,
+        match=r"^corpusmill: .*manifest\.json: no stream shards for train, dev, test; .*"
+        r"set windows\.streams\.enabled: true in the workflow config and rerun",
+    ):
         baseline.command([str(copy)])
 
 
@@ -179,9 +182,7 @@ def fortune_corpus(tmp_path_factory: pytest.TempPathFactory) -> Path:
     return root
 
 
-def test_a_build_whose_dev_copies_train_warns_and_an_honest_one_does_not(
-    fortune_corpus: Path, tmp_path: Path, capsys: pytest.CaptureFixture
-) -> None:
+def test_a_build_whose_dev_copies_train_warns_and_an_honest_one_does_not(fortune_corpus: Path, tmp_path: Path, capsys: pytest.CaptureFixture) -> None:
     """Debian's English fortunes built twice by the workflow. Honest: as configured by default
     (documents split by content, duplicates removed); dev perplexity is well above train's.
     Leaking: every file twice under another name, documents split by id, duplicates kept, so

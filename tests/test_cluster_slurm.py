@@ -115,7 +115,10 @@ def slurm_env(tmp_path_factory):
     try:
         started = subprocess.run(
             ["bash", str(CLUSTER / "start_local_slurm.sh"), str(state)],
-            capture_output=True, text=True, timeout=180, env=env,
+            capture_output=True,
+            text=True,
+            timeout=180,
+            env=env,
         )
         assert started.returncode == 0, f"cluster did not start:\n{started.stdout}\n{started.stderr}"
         yield env
@@ -153,12 +156,24 @@ def builds(slurm_env, tmp_path_factory) -> Builds:
 
     slurm = work / "slurm"
     command = [
-        "timeout", "-s", "INT", "-k", str(KILL_AFTER_S), str(SLURM_RUN_S),
-        *snakemake, "--directory", str(slurm), "--profile", str(PROFILE),
+        "timeout",
+        "-s",
+        "INT",
+        "-k",
+        str(KILL_AFTER_S),
+        str(SLURM_RUN_S),
+        *snakemake,
+        "--directory",
+        str(slurm),
+        "--profile",
+        str(PROFILE),
         # The test cluster has no accounts, and its jobs take about 20 s:
         # poll from 8 s on (then 18 s, 28 s later ...) instead of the
         # profile's 40 s, and keep every job's SLURM log.
-        "--slurm-no-account", "--slurm-init-seconds-before-status-checks", "8", "--slurm-keep-successful-logs",
+        "--slurm-no-account",
+        "--slurm-init-seconds-before-status-checks",
+        "8",
+        "--slurm-keep-successful-logs",
     ]
     started = time.monotonic()
     _run(command, slurm_env, SLURM_RUN_S + KILL_AFTER_S + 30, "SLURM build")
@@ -171,16 +186,17 @@ def test_every_job_ran_as_a_slurm_job(builds, slurm_env):
     # executor keeps one SLURM log per job, slurm_logs/rule_<rule>/.../<job id>.log.
     rule_logs = builds.slurm / "build" / "logs"
     jobs_per_rule = Counter(log.relative_to(rule_logs).parts[0] for log in rule_logs.glob("**/*.log"))
-    slurm_logs = {
-        folder.name.removeprefix("rule_"): sorted(folder.glob("**/*.log"))
-        for folder in (builds.slurm / ".snakemake" / "slurm_logs").glob("rule_*")
-    }
+    slurm_logs = {folder.name.removeprefix("rule_"): sorted(folder.glob("**/*.log")) for folder in (builds.slurm / ".snakemake" / "slurm_logs").glob("rule_*")}
     assert jobs_per_rule, "the SLURM build wrote no job log"
     assert {rule: len(logs) for rule, logs in slurm_logs.items()} == dict(jobs_per_rule)
 
     queue = subprocess.run(
         ["squeue", "--states=all", "--noheader", "--format=%i|%T"],
-        capture_output=True, text=True, env=slurm_env, timeout=30, check=True,
+        capture_output=True,
+        text=True,
+        env=slurm_env,
+        timeout=30,
+        check=True,
     ).stdout
     states = dict(line.split("|", 1) for line in queue.split())
     job_ids = [log.stem for logs in slurm_logs.values() for log in logs]

@@ -95,9 +95,7 @@ def test_a_build_dir_leaving_the_working_directory_is_refused(value: str) -> Non
     assert f"build_dir = {json.dumps(value)}" in message and "relative path without '..'" in message
 
 
-@pytest.mark.parametrize(
-    "value", ["b$(touch marker)", "x;touch marker;#", "`id`", "~", "~/b", "-rf", "a{b}", "<results>", "a|b", "a\nb", "s3://x", "q'uote"]
-)
+@pytest.mark.parametrize("value", ["b$(touch marker)", "x;touch marker;#", "`id`", "~", "~/b", "-rf", "a{b}", "<results>", "a|b", "a\nb", "s3://x", "q'uote"])
 def test_a_build_dir_with_shell_wildcard_or_home_characters_is_refused(value: str) -> None:
     """POSIX shell syntax (command substitution, ';', quotes, '~'), Snakemake's {wildcard} and
     <pathvar> patterns, a URI scheme, a leading '-' read as an option: none may reach a
@@ -114,9 +112,7 @@ def test_a_build_dir_of_letters_digits_spaces_and_marks_of_any_script_is_accepte
 def test_a_yaml_alias_bomb_is_refused_before_anything_expands_it() -> None:
     """YAML 1.2 §3.2.2.2: an alias is the same node again, so nine levels of ten aliases stand
     for 10**9 values in a few hundred bytes. The check counts without expanding."""
-    text = "junk:\n  l0: &l0 [x, x, x, x, x, x, x, x, x, x]\n" + "".join(
-        f"  l{n}: &l{n} [{', '.join([f'*l{n - 1}'] * 10)}]\n" for n in range(1, 9)
-    )
+    text = "junk:\n  l0: &l0 [x, x, x, x, x, x, x, x, x, x]\n" + "".join(f"  l{n}: &l{n} [{', '.join([f'*l{n - 1}'] * 10)}]\n" for n in range(1, 9))
     raw = yaml.safe_load(text)
     message = error_of(raw)
     assert "more than 100,000 values once YAML aliases" in message
@@ -175,6 +171,7 @@ def test_every_number_in_the_schema_has_both_bounds() -> None:
 
     walk(settings.load_schema(), "")
     assert unbounded == []
+
 
 def test_a_section_that_is_not_a_mapping_is_refused() -> None:
     """JSON Schema `type: object` for each section."""

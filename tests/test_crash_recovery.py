@@ -82,9 +82,7 @@ def test_sigkill_at_random_moments_then_rerun_gives_the_clean_build(reference: t
         if (workdir / "build").exists():
             assert_nothing_half_written(workdir / "build")
         subprocess.run(snakemake(workdir, override, "--unlock"), check=True, capture_output=True, timeout=300)
-        rerun = subprocess.run(
-            snakemake(workdir, override, "--cores", "2", "--rerun-incomplete", "--quiet"), capture_output=True, text=True, timeout=600
-        )
+        rerun = subprocess.run(snakemake(workdir, override, "--cores", "2", "--rerun-incomplete", "--quiet"), capture_output=True, text=True, timeout=600)
         assert rerun.returncode == 0, f"trial {trial}: {rerun.stderr[-2000:]}"
         assert digests(workdir / "build") == clean, f"trial {trial} differs from the clean build"
         assert not list((workdir / "build").rglob("*.partial")), f"trial {trial} left temporary files"

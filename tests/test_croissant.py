@@ -100,9 +100,12 @@ def test_croissant_with_the_metadata_filled_in_loads_without_any_warning(build: 
     manifest = manifest_of(build)
     manifest["config"]["metadata"] = FILLED_METADATA
     document = croissant.build_croissant(
-        manifest, croissant.read_schemas(build, manifest), {"vocabulary.tsv": (build / "vocabulary.tsv").stat().st_size},
-        croissant.LocalFile("vocabulary.parquet", hashlib.sha256((build / "vocabulary.parquet").read_bytes()).hexdigest(),
-                            (build / "vocabulary.parquet").stat().st_size),
+        manifest,
+        croissant.read_schemas(build, manifest),
+        {"vocabulary.tsv": (build / "vocabulary.tsv").stat().st_size},
+        croissant.LocalFile(
+            "vocabulary.parquet", hashlib.sha256((build / "vocabulary.parquet").read_bytes()).hexdigest(), (build / "vocabulary.parquet").stat().st_size
+        ),
     )
     path = build / "filled.croissant.json"
     path.write_text(json.dumps(document), encoding="utf-8")
@@ -114,7 +117,8 @@ def test_croissant_with_the_metadata_filled_in_loads_without_any_warning(build: 
     assert described.cite_as == FILLED_METADATA["citation"]
     assert described.date_published.date().isoformat() == "2024-05-01"
     assert [(c.name, c.email, c.url) for c in described.creators] == [
-        ("Ada Lovelace", "ada@example.org", None), ("Harbour Archive", None, "https://example.org/archive"),
+        ("Ada Lovelace", "ada@example.org", None),
+        ("Harbour Archive", None, "https://example.org/archive"),
     ]
 
 
@@ -136,9 +140,7 @@ def test_every_row_record_set_loaded_by_mlcroissant_equals_what_pyarrow_reads(bu
     assert checked == {f"{kind}-{split}" for kind in ("ngram", "block", "stream") for split in ("train", "dev", "test")}
 
 
-def test_the_vocabulary_record_set_equals_vocabulary_tsv_even_for_tokens_csv_readers_mangle(
-    build: Path, caplog: pytest.LogCaptureFixture
-) -> None:
+def test_the_vocabulary_record_set_equals_vocabulary_tsv_even_for_tokens_csv_readers_mangle(build: Path, caplog: pytest.LogCaptureFixture) -> None:
     """Loaded through mlcroissant, the vocabulary equals vocabulary.tsv as corpusmill reads it (pyarrow's
     CSV reader, quoting off). The demo vocabulary holds the token `"`, which a CSV reader takes for
     a quote: the reason the record set reads the Parquet copy."""

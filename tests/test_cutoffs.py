@@ -60,6 +60,7 @@ def reference_words(train: Counter, min_count: int | None, max_size: int | None,
 
 def shares(counts: dict[str, Counter], words: set[str]) -> dict[str, float]:
     """Train coverage and dev/test OOV rates of a word set, from the recount."""
+
     def share(split: str, inside: bool) -> float:
         return sum(c for t, c in counts[split].items() if (t in words) == inside) / sum(counts[split].values())
 

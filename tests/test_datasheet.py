@@ -158,9 +158,10 @@ def test_sources_their_sizes_and_what_was_dropped_and_why_match_the_manifest_acc
         tally = accounting["files"][path]
         dropped = ", ".join(f"{reason} {count}" for reason, count in sorted(tally["dropped"].items()))
         assert (number(row["read"]), number(row["kept"]), row["dropped"]) == (tally["read"], tally["kept"], dropped)
-    assert f"Exact duplicates (same cleaned text) were removed: {accounting['dropped']['duplicate']} documents." in sheet.text[
-        "Are there any errors, sources of noise, or redundancies in the dataset?"
-    ]
+    assert (
+        f"Exact duplicates (same cleaned text) were removed: {accounting['dropped']['duplicate']} documents."
+        in sheet.text["Are there any errors, sources of noise, or redundancies in the dataset?"]
+    )
 
 
 def test_vocabulary_and_out_of_vocabulary_figures_match_the_manifest_and_coverage(sheet: Sheet, manifest: dict, coverage: dict) -> None:
@@ -203,9 +204,10 @@ def test_filled_in_metadata_answers_its_questions_instead_of_blanks(manifest: di
     assert text.startswith("# Datasheet: harbour-town\n\nLetters and logs of a harbour town.\n")
     assert "~~~~\n@misc{harbour,\n  title = {~~~ Harbour town}\n}\n~~~~\n" in text
     assert sheet.text["When will the dataset be distributed?"].startswith("Published 2024-05-01")
-    assert "https://spdx.org/licenses/CC-BY-4.0.html" in sheet.text[
-        "Will the dataset be distributed under a copyright or other intellectual property license, and/or under applicable terms of use?"
-    ]
+    assert (
+        "https://spdx.org/licenses/CC-BY-4.0.html"
+        in sheet.text["Will the dataset be distributed under a copyright or other intellectual property license, and/or under applicable terms of use?"]
+    )
     assert "Ada Lovelace: ada@example.org" in sheet.text["How can the owner, curator or manager of the dataset be contacted?"]
     assert SEEN_BLANK not in sheet.text["Who created the dataset and on behalf of which entity?"]
     blank = Sheet(build_datasheet(manifest)).text
@@ -218,9 +220,7 @@ def test_files_not_read_are_counted_and_named_up_to_a_limit(manifest: dict) -> N
         "unselected": [f"notes/{i:02d}.md" for i in range(25)], "excluded": ["drafts/a.txt"],
         "refused": [{"path": "link.txt", "reason": "symbolic link leading outside the corpus folder"}],
     }  # fmt: skip
-    text = Sheet(build_datasheet(skipped)).text[
-        "Does the dataset contain all possible instances or is it a sample of instances from a larger set?"
-    ]
+    text = Sheet(build_datasheet(skipped)).text["Does the dataset contain all possible instances or is it a sample of instances from a larger set?"]
     assert "25 matched by no corpus.include pattern, 1 removed by a corpus.exclude pattern, 1 refused" in text
     assert "notes/19.md: unselected" in text and "notes/20.md" not in text
     assert f"… and {27 - datasheet.LISTED_FILES} more (manifest.json, key not_read)." in text
@@ -238,9 +238,10 @@ def test_a_corpus_of_many_files_keeps_its_tables_short_naming_the_largest_and_th
     sources = sheet.table("How was the data associated with each instance acquired?")
     expected = sorted(many["inputs"], key=lambda entry: (-entry["bytes"], entry["path"]))[: datasheet.LISTED_FILES]
     assert [row["file"] for row in sources] == [entry["path"] for entry in expected]
-    assert f"… and {30 - datasheet.LISTED_FILES} more (manifest.json, keys inputs and accounting.files)." in sheet.text[
-        "How was the data associated with each instance acquired?"
-    ]
+    assert (
+        f"… and {30 - datasheet.LISTED_FILES} more (manifest.json, keys inputs and accounting.files)."
+        in sheet.text["How was the data associated with each instance acquired?"]
+    )
     question = "Was any preprocessing, cleaning or labeling of the data done?"
     losing = [row["file"] for row in sheet.table(question, 1)]
     ranked = sorted((path for path, tally in many["accounting"]["files"].items() if tally["dropped"]),

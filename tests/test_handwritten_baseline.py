@@ -115,4 +115,3 @@ def test_baseline_switches_ids_to_uint32_beyond_65536_vocabulary_entries(tmp_pat
     (tmp_path / "in" / "b.txt").write_text("Another file.\n", encoding="utf-8")
     expected = check_against_recount(tmp_path / "in", tmp_path / "out", pa.uint32())
     assert len(expected["vocabulary"]) > 2**16
-

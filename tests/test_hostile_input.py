@@ -195,9 +195,7 @@ def test_oversize_split_cuts_at_grapheme_boundaries_into_pieces_under_the_limit(
         position += len(document.text)
         assert position in boundaries
     assert tally.read == 1 and tally.pieces_added == len(documents) - 1 > 0
-    assert [d.offset for d in documents[1:]] == [
-        sum(len(d.text.encode("utf-8")) for d in documents[:i]) for i in range(1, len(documents))
-    ]
+    assert [d.offset for d in documents[1:]] == [sum(len(d.text.encode("utf-8")) for d in documents[:i]) for i in range(1, len(documents))]
 
 
 def test_oversize_truncate_keeps_a_grapheme_whole_prefix_and_counts_it(tmp_path: Path) -> None:
@@ -418,9 +416,7 @@ def test_the_workflow_builds_the_hostile_corpus_under_lenient_policies_and_balan
     raw = tmp_path / "raw"
     hostile.write_hostile_corpus(raw)
     override = tmp_path / "over.yaml"
-    override.write_text(
-        json.dumps({"corpus": {"root": str(raw), "invalid_utf8": "replace", "bad_records": "drop"}})
-    )
+    override.write_text(json.dumps({"corpus": {"root": str(raw), "invalid_utf8": "replace", "bad_records": "drop"}}))
     run = subprocess.run(
         [sys.executable, "-m", "snakemake", "--snakefile", str(REPO / "Snakefile"), "--directory", str(tmp_path),
          "--cores", "2", "--configfile", str(override), "--quiet"],
@@ -431,9 +427,7 @@ def test_the_workflow_builds_the_hostile_corpus_under_lenient_policies_and_balan
     assert accounting["balanced"] is True
     assert {"bad_json", "no_text", "empty"} <= set(accounting["dropped"])
     assert accounting["replaced_sequences"] >= len(hostile.INVALID_UTF8)
-    audit = subprocess.run(
-        [sys.executable, "-m", "corpusmill.cli", "audit", str(tmp_path / "build")], cwd=REPO, capture_output=True, text=True
-    )
+    audit = subprocess.run([sys.executable, "-m", "corpusmill.cli", "audit", str(tmp_path / "build")], cwd=REPO, capture_output=True, text=True)
     assert audit.returncode == 0, audit.stdout + audit.stderr
 
 

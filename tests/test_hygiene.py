@@ -149,7 +149,7 @@ def test_the_manifest_summary_report_and_command_show_the_clusters(dropped_build
     assert f"{near['clusters']:,} clusters of {near['documents']:,} documents" in result.stderr
     assert f"dropped near_duplicate {near['dropped']['near_duplicate']:,}" in result.stderr
     page = (build_dir / "report" / "index.html").read_text()
-    assert 'id="hygiene"' in page and f"<td>dropped: near duplicate</td><td class=\"n\">{near['dropped']['near_duplicate']:,}</td>" in page
+    assert 'id="hygiene"' in page and f'<td>dropped: near duplicate</td><td class="n">{near["dropped"]["near_duplicate"]:,}</td>' in page
     assert "Near-duplicates, as the build recorded them" in (build_dir / "report" / "datasheet.md").read_text()
     shown = subprocess.run(
         [sys.executable, "-m", "steps.cli", "hygiene", str(build_dir), "--clusters", "1000", "--chars", "100000"],

@@ -97,9 +97,15 @@ def test_lone_carriage_returns_end_lines(tmp_path: Path):
     assert [d.text for d in documents] == ["one\rtwo\r", "three\r"]
 
 
-@pytest.mark.parametrize("suffix,compress", [
-    (".gz", gzip.compress), (".bz2", bz2.compress), (".xz", lzma.compress), (".zst", zstandard.ZstdCompressor().compress),
-])
+@pytest.mark.parametrize(
+    "suffix,compress",
+    [
+        (".gz", gzip.compress),
+        (".bz2", bz2.compress),
+        (".xz", lzma.compress),
+        (".zst", zstandard.ZstdCompressor().compress),
+    ],
+)
 def test_compressed_files_read_like_plain_ones(tmp_path: Path, suffix, compress):
     data = b"alpha beta\n\ngamma delta\n"
     (tmp_path / f"c.txt{suffix}").write_bytes(compress(data))
@@ -180,9 +186,7 @@ def test_an_oversize_cut_falls_where_regex_X_over_the_whole_piece_puts_it(monkey
     rng = random.Random(31)
     failures = []
     for _ in range(5000):
-        data = b"".join(
-            rng.choice(invalid) if rng.random() < 0.05 else rng.choice(units).encode("utf-8") for _ in range(rng.randint(1, 12))
-        )
+        data = b"".join(rng.choice(invalid) if rng.random() < 0.05 else rng.choice(units).encode("utf-8") for _ in range(rng.randint(1, 12)))
         data = data[: rng.randint(1, len(data))]
         if _grapheme_cut(data) != reference_cut(data):
             failures.append((data, _grapheme_cut(data), reference_cut(data)))
@@ -204,9 +208,7 @@ def test_decompression_limit_stops_a_bomb(tmp_path: Path):
 @pytest.mark.parametrize("unit", ["paragraph", "line"])
 @pytest.mark.parametrize("chunk_bytes", [7, 64, 1000])
 def test_chunking_never_changes_the_documents(tmp_path: Path, unit: str, chunk_bytes: int):
-    text = b"".join(
-        b"paragraph %d line one\r\nline two %d\n\n\n" % (i, i) if i % 3 else b"short %d\r\r" % i for i in range(60)
-    )
+    text = b"".join(b"paragraph %d line one\r\nline two %d\n\n\n" % (i, i) if i % 3 else b"short %d\r\r" % i for i in range(60))
     (tmp_path / "c.txt").write_bytes(text)
     whole, _ = read_all(tmp_path, "c.txt", text_unit=unit)
     chunked, _ = read_all(tmp_path, "c.txt", chunk_bytes=chunk_bytes, text_unit=unit)

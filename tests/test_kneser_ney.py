@@ -190,9 +190,7 @@ def test_ids_the_model_cannot_take_are_refused_with_their_position() -> None:
 
 @settings(suppress_health_check=[HealthCheck.too_slow])
 @given(size=st.sampled_from(SIZES), n=st.integers(2, 5), smoothing=st.sampled_from(kn.SMOOTHINGS), data=st.data())
-def test_probabilities_follow_chen_and_goodmans_formulas_written_out_with_counters(
-    size: int, n: int, smoothing: str, data: st.DataObject
-) -> None:
+def test_probabilities_follow_chen_and_goodmans_formulas_written_out_with_counters(size: int, n: int, smoothing: str, data: st.DataObject) -> None:
     """Every model of orders 2..n from one count, on seen and unseen windows, against `Reference`
     (Chen and Goodman 1998, interpolated Kneser–Ney with the discounts the model chose)."""
     sentences = data.draw(sentences_strategy(size))
@@ -250,8 +248,12 @@ def test_modified_kneser_ney_hand_worked_example() -> None:
         assert not d.fallback
         assert (d.d1, d.d2, d.d3) == pytest.approx([float(x) for x in expected], rel=1e-15)
     cases = {
-        (unk, c): F(49, 150), (a, end): F(1178, 4500), (a, c): F(2183, 4500), (a, b): F(493, 4500),
-        (BOS_ID, a): F(173, 375), (a, unk): F(17, 30) * F(14, 150),
+        (unk, c): F(49, 150),
+        (a, end): F(1178, 4500),
+        (a, c): F(2183, 4500),
+        (a, b): F(493, 4500),
+        (BOS_ID, a): F(173, 375),
+        (a, unk): F(17, 30) * F(14, 150),
     }
     rows = np.array(list(cases), np.int64)
     p = model.probabilities(kn.locate_windows(counts, [rows[:, 0], rows[:, 1]]))

@@ -321,8 +321,7 @@ def candidate_count(found: np.ndarray) -> int:
     """Distinct pairs of documents with different signatures that share a band key."""
     keys = band_keys(found, OPTIONS.bands)
     return sum(
-        1 for i in range(len(found)) for j in range(i + 1, len(found))
-        if ((keys[i] == keys[j]) & (keys[i] != 0)).any() and not (found[i] == found[j]).all()
+        1 for i in range(len(found)) for j in range(i + 1, len(found)) if ((keys[i] == keys[j]) & (keys[i] != 0)).any() and not (found[i] == found[j]).all()
     )
 
 

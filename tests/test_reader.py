@@ -38,9 +38,7 @@ def row_tuples(kind: str, batches: Iterable[dict]) -> list[Row]:
             rows += [tuple(ids) for ids in batch["ids"].tolist()]
         else:
             offsets = batch["offsets"]
-            rows += [
-                (doc, tuple(batch["ids"][offsets[i] : offsets[i + 1]].tolist())) for i, doc in enumerate(batch["doc_id"])
-            ]
+            rows += [(doc, tuple(batch["ids"][offsets[i] : offsets[i + 1]].tolist())) for i, doc in enumerate(batch["doc_id"])]
     return rows
 
 
@@ -191,8 +189,7 @@ def test_workers_get_disjoint_row_indices_whose_union_is_every_row(tmp_path: Pat
     for world_size in (1, 2, 3, 5, 8):
         for epoch in (0, 1):
             seen = [
-                targets(build.batches("train", "ngram", 4, seed=9, epoch=epoch, rank=r, world_size=world_size, shuffle_buffer=6))
-                for r in range(world_size)
+                targets(build.batches("train", "ngram", 4, seed=9, epoch=epoch, rank=r, world_size=world_size, shuffle_buffer=6)) for r in range(world_size)
             ]
             flat = [index for part in seen for index in part]
             assert sorted(flat) == list(range(SYNTHETIC_ROWS)), (world_size, epoch)

@@ -146,7 +146,7 @@ def test_every_worker_reads_the_rows_the_documented_order_gives(numbered, seed, 
 
 
 def test_a_buffer_filled_exactly_to_its_capacity_waits_for_more_rows(tmp_path: Path) -> None:
-    """"More than shuffle_buffer rows" triggers a permutation: six row groups of 5 rows and a
+    """ "More than shuffle_buffer rows" triggers a permutation: six row groups of 5 rows and a
     buffer of 10 reach exactly 10 rows without drawing from the generator (the reference order
     would differ after an extra draw)."""
     groups = [[5] * 6]
@@ -183,8 +183,7 @@ def test_workers_shuffle_their_rows_independently(tmp_path: Path) -> None:
     worker 1's order is not worker 0's order shifted by its 30 rows."""
     build = open_build(write_numbered_build(tmp_path, "ngram", [[60]]))
     first, second = (
-        [n for b in build.batches("train", "ngram", 8, seed=4, rank=rank, world_size=2, shuffle_buffer=10) for n in numbers_of("ngram", b)]
-        for rank in (0, 1)
+        [n for b in build.batches("train", "ngram", 8, seed=4, rank=rank, world_size=2, shuffle_buffer=10) for n in numbers_of("ngram", b)] for rank in (0, 1)
     )
     assert sorted(first) == list(range(30)) and sorted(second) == list(range(30, 60))
     assert [n - 30 for n in second] != first
@@ -192,8 +191,8 @@ def test_workers_shuffle_their_rows_independently(tmp_path: Path) -> None:
 
 def test_tables_yield_each_touched_row_group_once_cut_to_the_workers_range(tmp_path: Path) -> None:
     """Build.tables without a seed: one table per row group the range touches, in manifest
-    order, the first and last cut at the range's ends: worker 1 of 3 reads rows 26..51 of the
-78, from the groups holding rows 21..40, 41..45, 46..50 and 51..55."""
+        order, the first and last cut at the range's ends: worker 1 of 3 reads rows 26..51 of the
+    78, from the groups holding rows 21..40, 41..45, 46..50 and 51..55."""
     build = open_build(write_numbered_build(tmp_path, "ngram", GROUPS))
     tables = list(build.tables("train", "ngram", rank=1, world_size=3))
     assert [t["target"].to_pylist() for t in tables] == [list(range(26, 41)), list(range(41, 46)), list(range(46, 51)), [51]]

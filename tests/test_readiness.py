@@ -196,5 +196,7 @@ def test_a_neural_language_model_trained_on_the_demo_shards_beats_the_unigram_ba
     record_property("dev_perplexity_feed_forward", round(final, 3))
     record_property("dev_perplexity_kneser_ney", round(kneser_ney.perplexity(info["n"]), 3))
     record_property("dev_perplexity_unigram", round(baseline, 3))
-    print(f"dev perplexity, order {info['n']}: feed-forward {final:.2f}, Kneser-Ney {kneser_ney.perplexity(info['n']):.2f}, "
-          f"add-one unigram {baseline:.2f} ({len(target):,} tokens)")
+    print(
+        f"dev perplexity, order {info['n']}: feed-forward {final:.2f}, Kneser-Ney {kneser_ney.perplexity(info['n']):.2f}, "
+        f"add-one unigram {baseline:.2f} ({len(target):,} tokens)"
+    )

@@ -53,8 +53,11 @@ def corpus_rows(build: Path, columns: list[str]) -> list[dict]:
     """Every prepared row (kept before deduplication) in corpus order: input file as listed in
     the manifest, then byte offset; prepared tables store rows by split and doc_hash."""
     inputs = [entry["path"] for entry in json.loads((build / "manifest.json").read_text())["inputs"]]
-    rows = [row for path in (build / "interim" / "prepared").glob("*.parquet")
-            for row in pq.read_table(path, columns=sorted({*columns, "source", "offset"})).to_pylist()]
+    rows = [
+        row
+        for path in (build / "interim" / "prepared").glob("*.parquet")
+        for row in pq.read_table(path, columns=sorted({*columns, "source", "offset"})).to_pylist()
+    ]
     return sorted(rows, key=lambda r: (inputs.index(r["source"]), r["offset"]))
 
 
@@ -177,7 +180,7 @@ def file_cells(page: str, section: str = "unknown") -> list[str]:
 def test_file_names_with_markup_maths_braces_quotes_and_other_scripts_show_as_text(demo_build: Path, tmp_path: Path) -> None:
     """html.unescape (Python's standard library) as the reference: each name reads back as written,
     in order of unknown tokens; none becomes markup, and matplotlib never parses one as mathematics."""
-    names = ["math$\\frac$.txt", "<script>alert(1)</script>.txt", "{wild}/a.txt", "quote's \"q\".txt", "Москва/заметки.txt", "中文/笔记.txt"]
+    names = ["math$\\frac$.txt", "<script>alert(1)</script>.txt", "{wild}/a.txt", 'quote\'s "q".txt', "Москва/заметки.txt", "中文/笔记.txt"]
     sources = {name: word_source(100, 60 - 10 * rank, 10, rank) for rank, name in enumerate(names)}
     page = page_with(demo_build, tmp_path, sources=sources)
     assert file_cells(page) == names
@@ -190,8 +193,10 @@ def test_page_and_its_largest_image_stay_small_with_8000_input_files(demo_build:
     """PNG specification (IHDR) for the pixels; sorted() over every file as the reference for which
     files are listed: the most unknown tokens first, then by name. The page says how many are left out
     and where all of them are."""
-    sources = {f"a-folder-with-a-long-name-{i % 40:02d}/and-another-below-it/document-{i:05d}-of-the-archive.txt":
-               word_source(200 + i % 13, i % 97, 20, i % 5) for i in range(8000)}
+    sources = {
+        f"a-folder-with-a-long-name-{i % 40:02d}/and-another-below-it/document-{i:05d}-of-the-archive.txt": word_source(200 + i % 13, i % 97, 20, i % 5)
+        for i in range(8000)
+    }
     page = page_with(demo_build, tmp_path, sources=sources)
     assert len(page.encode("utf-8")) < 1_000_000
     sizes = [png_size(base64.b64decode(e)) for e in re.findall(r'<img src="data:image/png;base64,([A-Za-z0-9+/=]+)"', page)]
@@ -207,8 +212,7 @@ def test_rates_of_an_empty_split_show_a_dash_on_the_page_and_in_the_summary(demo
     splits = {**coverage["splits"], "test": {**derived(Figures()), "types": 0, "oov_types": 0, "top_oov": []}}
     sizes = [{**row, "test_oov_rate": 0.0} for row in coverage["sizes"]]
     sources = {"one.txt": word_source(100, 5)}
-    page = page_with(demo_build, tmp_path, splits=splits, sizes=sizes, sources=sources,
-                     unknown_classes={**coverage["unknown_classes"], "test": {}})
+    page = page_with(demo_build, tmp_path, splits=splits, sizes=sizes, sources=sources, unknown_classes={**coverage["unknown_classes"], "test": {}})
     rows = [[html.unescape(c) for c in re.findall(r"<td[^>]*>(.*?)</td>", row)] for row in re.findall(r"<tr[^>]*>(.*?)</tr>", page)]
     assert ["test", "0", "0", "—", "0", "0"] in rows
     assert [row[3] for row in rows if len(row) == 4 and row[0].replace(",", "").isdigit()] == ["—"] * len(sizes)

@@ -24,8 +24,15 @@ from conftest import REPO, require_file
 
 CHROMIUM = "/usr/bin/chromium"
 FLAGS = (
-    "--headless", "--no-sandbox", "--disable-gpu", "--disable-background-networking", "--disable-component-update",
-    "--disable-sync", "--no-first-run", "--remote-debugging-port=0", "--window-size=1200,900",
+    "--headless",
+    "--no-sandbox",
+    "--disable-gpu",
+    "--disable-background-networking",
+    "--disable-component-update",
+    "--disable-sync",
+    "--no-first-run",
+    "--remote-debugging-port=0",
+    "--window-size=1200,900",
 )
 START_S = 30
 LOAD_S = 30
@@ -77,8 +84,7 @@ class DevTools:
 
 def start_chromium(profile: Path) -> tuple[subprocess.Popen, int]:
     """Start chromium with a fresh profile; return the process and the port it chose (DevToolsActivePort)."""
-    process = subprocess.Popen([CHROMIUM, *FLAGS, f"--user-data-dir={profile}", "about:blank"],
-                               stdout=subprocess.DEVNULL, stderr=subprocess.DEVNULL)
+    process = subprocess.Popen([CHROMIUM, *FLAGS, f"--user-data-dir={profile}", "about:blank"], stdout=subprocess.DEVNULL, stderr=subprocess.DEVNULL)
     marker = profile / "DevToolsActivePort"
     deadline = time.monotonic() + START_S
     while time.monotonic() < deadline:
@@ -108,13 +114,15 @@ def test_report_page_loads_without_errors_and_every_image_renders(demo_build: Pa
             tools.call("Page.navigate", url=page.as_uri())
             tools.wait_for("Page.loadEventFired")
             images = tools.call(
-                "Runtime.evaluate", returnByValue=True,
+                "Runtime.evaluate",
+                returnByValue=True,
                 expression="Array.from(document.images, i => [i.alt, i.complete, i.naturalWidth, i.naturalHeight])",
             )["result"]["value"]
             title = tools.call("Runtime.evaluate", expression="document.title", returnByValue=True)["result"]["value"]
             shot = tools.call("Page.captureScreenshot", format="png", captureBeyondViewport=True)["data"]
             errors = [
-                e for e in tools.events
+                e
+                for e in tools.events
                 if e.get("method") == "Runtime.exceptionThrown"
                 or (e.get("method") == "Runtime.consoleAPICalled" and e["params"]["type"] in ("error", "assert"))
                 or (e.get("method") == "Log.entryAdded" and e["params"]["entry"]["level"] == "error")

@@ -83,8 +83,18 @@ def test_pieces_per_word_and_per_sentence_by_split_equal_coverage_json(subword_r
     build, _ = subword_run
     page = (build / "report" / "index.html").read_text(encoding="utf-8")
     splits = json.loads((build / "stats" / "coverage.json").read_text())["splits"]
-    expected = [[s, f"{f['documents']:,}", f"{f['sentences']:,}", f"{f['words']:,}", f"{f['tokens']:,}",
-                 f"{f['tokens_per_word']:.3f}", f"{f['tokens_per_sentence']:.3f}"] for s, f in splits.items()]
+    expected = [
+        [
+            s,
+            f"{f['documents']:,}",
+            f"{f['sentences']:,}",
+            f"{f['words']:,}",
+            f"{f['tokens']:,}",
+            f"{f['tokens_per_word']:.3f}",
+            f"{f['tokens_per_sentence']:.3f}",
+        ]
+        for s, f in splits.items()
+    ]
     assert sorted(rows(section(page, "lengths"))) == sorted(expected)
 
 
@@ -95,8 +105,15 @@ def test_unknown_rates_with_and_without_byte_fallback_equal_coverage_json(subwor
     splits = json.loads((build / "stats" / "coverage.json").read_text())["splits"]
     by_split = {row[0]: row for row in rows(section(page, "unknown")) if row[0] in splits}
     for split, f in splits.items():
-        assert by_split[split] == [split, f"{f['tokens']:,}", f"{f['unknown_tokens']:,}", f"{f['unknown_rate']:.4%}",
-                                   f"{f['byte_pieces']:,}", f"{f['byte_piece_rate']:.4%}", f"{f['unknown_rate_without_byte_fallback']:.4%}"]
+        assert by_split[split] == [
+            split,
+            f"{f['tokens']:,}",
+            f"{f['unknown_tokens']:,}",
+            f"{f['unknown_rate']:.4%}",
+            f"{f['byte_pieces']:,}",
+            f"{f['byte_piece_rate']:.4%}",
+            f"{f['unknown_rate_without_byte_fallback']:.4%}",
+        ]
         assert float(by_split[split][6].rstrip("%")) / 100 == pytest.approx(f["unknown_rate_without_byte_fallback"], abs=1e-9)
     assert any(f["byte_pieces"] for f in splits.values())  # the demo corpus exercises byte fallback
 
@@ -111,8 +128,9 @@ def test_unknown_rates_by_source_add_up_to_the_split_totals(subword_run: tuple[P
     for split, f in splits.items():
         for key in ("documents", "sentences", "tokens", "words", "byte_pieces", "byte_runs"):
             assert sum(s[split][key] for s in sources.values()) == f[key], key
-        would_be_unknown = sum(s[split]["unknown_rate_without_byte_fallback"] * (s[split]["tokens"] - s[split]["byte_pieces"] + s[split]["byte_runs"])
-                               for s in sources.values())
+        would_be_unknown = sum(
+            s[split]["unknown_rate_without_byte_fallback"] * (s[split]["tokens"] - s[split]["byte_pieces"] + s[split]["byte_runs"]) for s in sources.values()
+        )
         total = f["tokens"] - f["byte_pieces"] + f["byte_runs"]
         assert would_be_unknown / total == pytest.approx(f["unknown_rate_without_byte_fallback"], abs=1e-6)
     page = (build / "report" / "index.html").read_text(encoding="utf-8")
@@ -145,8 +163,10 @@ def test_growth_counts_whitespace_words_of_the_train_sentences(subword_run: tupl
     coverage.json's train words."""
     build, _ = subword_run
     removed = {(r["source"], r["offset"]) for r in pq.read_table(build / "interim" / "duplicates.parquet").to_pylist()}
-    chunks = [(str(build / "interim" / "prepared" / f"{chunk}.parquet"), pq.read_table(build / "interim" / "removed" / f"{chunk}.parquet"))
-              for chunk in read_json(build / "interim" / "plan" / "chunks.json")]
+    chunks = [
+        (str(build / "interim" / "prepared" / f"{chunk}.parquet"), pq.read_table(build / "interim" / "removed" / f"{chunk}.parquet"))
+        for chunk in read_json(build / "interim" / "plan" / "chunks.json")
+    ]
     seen: set[str] = set()
     after = [0]
     for row in corpus_rows(build, ["split", "sentences"]):
@@ -215,19 +235,25 @@ def test_subword_page_renders_in_chromium_without_errors(subword_run: tuple[Path
                 tools.call(f"{domain}.enable")
             tools.call("Page.navigate", url=(build / "report" / "index.html").resolve().as_uri())
             tools.wait_for("Page.loadEventFired")
-            images = tools.call("Runtime.evaluate", returnByValue=True,
-                                expression="Array.from(document.images, i => [i.complete, i.naturalWidth])")["result"]["value"]
-            headings = tools.call("Runtime.evaluate", returnByValue=True,
-                                  expression="Array.from(document.querySelectorAll('h2'), h => h.textContent)")["result"]["value"]
+            images = tools.call("Runtime.evaluate", returnByValue=True, expression="Array.from(document.images, i => [i.complete, i.naturalWidth])")["result"][
+                "value"
+            ]
+            headings = tools.call("Runtime.evaluate", returnByValue=True, expression="Array.from(document.querySelectorAll('h2'), h => h.textContent)")[
+                "result"
+            ]["value"]
         finally:
             tools.close()
     finally:
         process.kill()  # a throwaway profile: nothing to flush
         process.wait(timeout=10)
         shutil.rmtree(profile, ignore_errors=True)
-    errors = [e for e in tools.events if e.get("method") == "Runtime.exceptionThrown"
-              or (e.get("method") == "Runtime.consoleAPICalled" and e["params"]["type"] in ("error", "assert"))
-              or (e.get("method") == "Log.entryAdded" and e["params"]["entry"]["level"] == "error")]
+    errors = [
+        e
+        for e in tools.events
+        if e.get("method") == "Runtime.exceptionThrown"
+        or (e.get("method") == "Runtime.consoleAPICalled" and e["params"]["type"] in ("error", "assert"))
+        or (e.get("method") == "Log.entryAdded" and e["params"]["entry"]["level"] == "error")
+    ]
     assert errors == []
     assert len(images) == 3 and all(complete and width > 0 for complete, width in images), images
     assert "Unknown tokens by split and source" in headings and "Pieces per word and per sentence" in headings
@@ -260,8 +286,10 @@ def test_subword_page_and_its_largest_image_stay_small_with_8000_input_files(sub
     are listed: the most pieces that would be <unk> without byte fallback first, then by name; files
     spread over two chunks' statistics count once, their figures added."""
     build, _ = subword_run
-    sources = {f"a-folder-with-a-long-name-{i % 40:02d}/and-another-below-it/document-{i:05d}-of-the-archive.txt":
-               piece_source(300 + i % 11, 2 * (i % 89), i % 89) for i in range(8000)}
+    sources = {
+        f"a-folder-with-a-long-name-{i % 40:02d}/and-another-below-it/document-{i:05d}-of-the-archive.txt": piece_source(300 + i % 11, 2 * (i % 89), i % 89)
+        for i in range(8000)
+    }
     names = list(sources)
     halves = [chunk_stats("a", {n: sources[n] for n in names[:5000]}), chunk_stats("b", {n: sources[n] for n in names[4000:]})]
     page = subword_page(build, halves)

@@ -225,7 +225,7 @@ def _snakemake(workdir: Path, override: Path, *extra: str) -> subprocess.Complet
     [
         '!!python/object/apply:os.system ["touch {marker}"]',
         '!!python/object/new:os.system ["touch {marker}"]',
-        '!!python/name:os.system',
+        "!!python/name:os.system",
     ],
     ids=["apply", "new", "name"],
 )
@@ -271,6 +271,8 @@ def test_a_build_dir_that_would_run_a_command_or_reach_home_is_refused_and_runs_
     assert run.returncode != 0 and "build_dir = " in run.stdout + run.stderr
     assert not (workdir / "marker").exists() and not (tmp_path / "marker").exists()
     assert sorted(p.name for p in workdir.iterdir()) in ([], [".snakemake"])
+
+
 # Names a POSIX file system allows that are special to a shell, to argument parsing, to
 # Snakemake's {wildcard} and <pathvar> patterns, to matplotlib's $math$ text, or to HTML.
 AWKWARD_NAMES = [

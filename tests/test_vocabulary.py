@@ -23,9 +23,16 @@ from corpusmill.vocabulary import Cutoff, VocabularyError, build_vocabulary, cho
 def counts_table(train: dict[str, int], dev: dict[str, int] | None = None) -> pa.Table:
     tokens = sorted(set(train) | set(dev or {}))
     dev = dev or {}
-    return sort_by_frequency(pa.table({
-        "token": tokens, "train": [train.get(t, 0) for t in tokens], "dev": [dev.get(t, 0) for t in tokens], "test": [0] * len(tokens),
-    }))
+    return sort_by_frequency(
+        pa.table(
+            {
+                "token": tokens,
+                "train": [train.get(t, 0) for t in tokens],
+                "dev": [dev.get(t, 0) for t in tokens],
+                "test": [0] * len(tokens),
+            }
+        )
+    )
 
 
 TRAIN = {"the": 10, "lamp": 4, "ferry": 4, "Oréla": 2, "1,200": 1, "ice-cold": 1, "ZZ": 1, "!!": 1, "rare": 1}
@@ -88,7 +95,12 @@ def test_rows_carry_their_kind_and_symbols_count_what_they_stand_for_in_the_trai
 
 def test_shape_classes_for_rare_words():
     assert [unknown_class(t) for t in ["1,200", "ice-cold", "NASA", "Tüvvik", "!!", "rare"]] == [
-        "<unk-digits>", "<unk-hyphenated>", "<unk-upper>", "<unk-title>", "<unk-symbol>", UNK,
+        "<unk-digits>",
+        "<unk-hyphenated>",
+        "<unk-upper>",
+        "<unk-title>",
+        "<unk-symbol>",
+        UNK,
     ]
 
 
