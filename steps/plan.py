@@ -23,6 +23,7 @@ import ast
 import hashlib
 import json
 import os
+import re
 import stat
 from dataclasses import dataclass
 from pathlib import Path
@@ -55,20 +56,45 @@ def _module_names() -> list[str]:
     return sorted(path.stem for path in STEPS_DIR.glob("*.py"))
 
 
-def _parsed(module: str) -> ast.Module:
-    return ast.parse((STEPS_DIR / f"{module}.py").read_text(encoding="utf-8"))
+def _source(module: str) -> str:
+    return (STEPS_DIR / f"{module}.py").read_text(encoding="utf-8")
+
+
+# Relative imports at any depth of a file, parenthesised or not. A scan rather than a parse:
+# every Snakemake start computes every rule's hash, and parsing each module's syntax tree cost
+# most of that start. A line inside a string that reads like an import would only add a module.
+_RELATIVE_IMPORT = re.compile(r"^[ \t]*from[ \t]+\.(\w*)(?:\.\w+)*[ \t]+import[ \t]+(\([^)]*\)|[^\n]*)", re.M)
 
 
 def imports_of(module: str) -> set[str]:
     """The step modules `module` imports (relative imports, at any depth of the file)."""
     found = set()
-    for node in ast.walk(_parsed(module)):
-        if isinstance(node, ast.ImportFrom) and node.level == 1:
-            if node.module:
-                found.add(node.module.split(".")[0])
-            else:
-                found.update(alias.name for alias in node.names)
+    for package_module, names in _RELATIVE_IMPORT.findall(_source(module)):
+        if package_module:
+            found.add(package_module)
+            continue
+        for name in re.sub(r"#[^\n]*", "", names).strip("()").split(","):
+            if name.strip():
+                found.add(name.split()[0])
+    found.discard(module)  # a usage example in its own docstring
     return found
+
+
+def _top_level_constant(module: str, name: str) -> object:
+    """The literal value assigned to `name` at the top level of a step module's source: the
+    assignment's lines, parsed alone."""
+    source = _source(module)
+    match = re.search(rf"^{name}\b[^=\n]*=", source, re.M)
+    if match:
+        lines = source[match.start() :].splitlines()
+        for end in range(1, len(lines) + 1):
+            try:
+                statement = ast.parse("\n".join(lines[:end])).body[0]
+            except SyntaxError:
+                continue
+            if isinstance(statement, (ast.Assign, ast.AnnAssign)) and statement.value is not None:
+                return ast.literal_eval(statement.value)
+    raise KeyError(f"steps/{module}.py defines no {name}")
 
 
 def import_closure(module: str) -> list[str]:
@@ -86,17 +112,10 @@ def sections_of(module: str) -> tuple[str, ...] | str | dict[str, tuple[str, ...
     """The configuration sections a step module declares it reads (its SECTIONS: for a module
     whose entries read different options, a dict by rule), read from its source, so the
     workflow process imports no step module's dependencies."""
-    for node in _parsed(module).body:
-        target: ast.expr
-        if isinstance(node, ast.AnnAssign):
-            target, value = node.target, node.value
-        elif isinstance(node, ast.Assign):
-            target, value = node.targets[0], node.value
-        else:
-            continue
-        if isinstance(target, ast.Name) and target.id == "SECTIONS" and value is not None:
-            return ast.literal_eval(value)
-    raise KeyError(f"steps/{module}.py declares no SECTIONS")
+    try:
+        return _top_level_constant(module, "SECTIONS")  # type: ignore[return-value]
+    except KeyError:
+        raise KeyError(f"steps/{module}.py declares no SECTIONS") from None
 
 
 def code_hash(rule: str) -> str:
@@ -261,7 +280,4 @@ def write_if_changed(path: str | Path, value: object) -> None:
 
 def module_constant(module: str, name: str) -> object:
     """A constant a step module defines (e.g. the threads a step runs), read from its source."""
-    for node in _parsed(module).body:
-        if isinstance(node, ast.Assign) and isinstance(node.targets[0], ast.Name) and node.targets[0].id == name:
-            return ast.literal_eval(node.value)
-    raise KeyError(f"steps/{module}.py defines no {name}")
+    return _top_level_constant(module, name)

@@ -129,6 +129,23 @@ def test_editing_a_module_a_rule_never_imports_leaves_its_code_hash(rule: str, m
     assert plan.code_hash(rule) == before
 
 
+def test_the_import_scan_finds_every_form_of_relative_import(tmp_path: Path, monkeypatch: pytest.MonkeyPatch) -> None:
+    """Parenthesised lists over several lines with comments, aliases, imports inside functions and
+    submodule imports all count; absolute imports, the module itself and names in comments do not."""
+    (tmp_path / "sample.py").write_text(
+        "import numpy\n"
+        "from .alpha import thing\n"
+        "from . import beta, gamma as renamed  # not delta\n"
+        "from . import (\n    epsilon,  # the first\n    zeta as z,\n)\n"
+        "from .eta.sub import other\n"
+        "def later():\n    from .theta import x\n"
+        '"""Example:\n    from .sample import later\n"""\n',
+        encoding="utf-8",
+    )
+    monkeypatch.setattr(plan, "STEPS_DIR", tmp_path)
+    assert plan.imports_of("sample") == {"alpha", "beta", "gamma", "epsilon", "zeta", "eta", "theta"}
+
+
 def test_the_workflow_process_imports_neither_numpy_nor_pyarrow(traced: dict[str, Path]) -> None:
     """Snakemake's process reads the Snakefile and runs its onsuccess handler; Snakemake itself
     may load pandas (its SLURM executor plugin does), so what counts is what the project's code
