@@ -55,6 +55,32 @@ def _merge(runs: list[np.ndarray]) -> np.ndarray:
     return merged[keep]
 
 
+class SortedHashes:
+    """A sorted array of distinct uint64 hashes to test many values against. A bit table over the
+    hashes' top bits (at most 32 MiB) rules most absent values out with one lookup each; only
+    the values it lets through are searched for in the array."""
+
+    def __init__(self, distinct: np.ndarray) -> None:
+        self.distinct = distinct
+        self.bits = min(max(len(distinct).bit_length() + 6, 16), 28)
+        table = np.zeros(1 << (self.bits - 3), dtype=np.uint8)
+        slots = distinct >> np.uint64(64 - self.bits)
+        np.bitwise_or.at(table, slots >> np.uint64(3), np.left_shift(1, slots & np.uint64(7)).astype(np.uint8))
+        self.table = table
+
+    def contains(self, values: np.ndarray) -> np.ndarray:
+        """Whether each value is one of the hashes."""
+        found = np.zeros(len(values), dtype=bool)
+        if not len(self.distinct) or not len(values):
+            return found
+        slots = values >> np.uint64(64 - self.bits)
+        maybe = np.flatnonzero((self.table[slots >> np.uint64(3)] >> (slots & np.uint64(7)).astype(np.uint8)) & 1)
+        candidates = values[maybe]
+        at = np.minimum(np.searchsorted(self.distinct, candidates), len(self.distinct) - 1)
+        found[maybe] = self.distinct[at] == candidates
+        return found
+
+
 # Hashes held in sorted batches before they are merged into the set: merging only once the
 # batches add up to this many or to the set's size keeps each hash in few merges.
 PENDING = 1 << 22

@@ -246,15 +246,14 @@ def _contamination(signed: CorpusSignatures, removed: np.ndarray) -> tuple[np.nd
     parts = [signed.grams(chunk, held[held_chunks == chunk]) for chunk in np.unique(held_chunks)]
     grams = np.concatenate([values for values, _ in parts]) if parts else np.zeros(0, np.uint64)
     counts = np.concatenate([np.diff(starts) for _, starts in parts]) if parts else np.zeros(0, np.int64)
-    wanted = audit.distinct_sorted(grams)
+    wanted = audit.SortedHashes(audit.distinct_sorted(grams))
     hits = audit.TrainGrams()
-    if len(wanted):
+    if len(wanted.distinct):
         for chunk in np.unique(train_chunks):
             rows = train[train_chunks == chunk]
             for low in range(0, len(rows), GRAM_ROWS):
                 values, _ = signed.grams(chunk, rows[low : low + GRAM_ROWS])
-                found = wanted[np.minimum(np.searchsorted(wanted, values), len(wanted) - 1)] == values
-                hits.add(values[found])
+                hits.add(values[wanted.contains(values)])
     starts = np.concatenate([[0], np.cumsum(counts)]).astype(np.int64)
     return held, counts, audit.shared_counts(grams, starts, hits.finish())
 

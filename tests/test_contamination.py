@@ -15,6 +15,7 @@ from hypothesis import strategies as st
 from corpusmill.contamination import (
     NGRAM,
     THRESHOLD,
+    SortedHashes,
     TrainGrams,
     distinct_sorted,
     part_of,
@@ -161,3 +162,18 @@ def test_summary_matches_a_plain_recount() -> None:
     assert {name: part["at_or_above_threshold"] for name, part in result["by_source"].items()} == {n: above[n] for n in ("a.txt", "b.txt", "c/d.txt")}
     assert {name: part["documents"] for name, part in result["by_source"].items()} == dict(Counter(sources.tolist()))
     assert summary(np.zeros(0), [])["documents"] == 0
+
+
+@given(
+    st.lists(st.integers(0, 2**64 - 1), max_size=300),
+    st.lists(st.integers(0, 2**64 - 1), max_size=300),
+    st.integers(0, 2**64 - 1),
+)
+def test_sorted_hashes_answer_membership_as_a_python_set_does(members: list[int], others: list[int], neighbour_of: int) -> None:
+    """Outside reference: Python's set. Values that share the table's top bits with a member
+    (the neighbours of members) are the ones the table lets through: they must still be told apart."""
+    distinct = distinct_sorted(np.array(members, dtype=np.uint64))
+    neighbours = [(m ^ 1) for m in members] + [neighbour_of, neighbour_of ^ 1]
+    values = np.array(members + others + neighbours, dtype=np.uint64)
+    expected = [int(v) in set(members) for v in values]
+    assert SortedHashes(distinct).contains(values).tolist() == expected
