@@ -76,7 +76,7 @@ rule baseline:
         L.log("baseline"),
     params:
         code=code_hash("baseline"),
-    threads: 1
+    threads: module_constant("baseline", "THREADS")
     resources:
         mem_mb=CONFIG["resources"]["aggregate_mem_mb"],
         runtime=CONFIG["resources"]["runtime_min"],

@@ -20,7 +20,8 @@ import argparse
 import functools
 import json
 import math
-from collections.abc import Callable, Iterator
+from collections.abc import Callable, Iterator, Mapping
+from concurrent.futures import ThreadPoolExecutor
 from dataclasses import dataclass
 from pathlib import Path
 
@@ -39,6 +40,9 @@ SECTIONS = ("baseline", "windows.ngram")
 DEFAULT_ORDER = 4
 LEAK_RATIO = 1.1
 DOCUMENTS_PER_BATCH = 1024
+# Train counted in two parts and dev and test scored side by side, in threads: numpy's sorts
+# and searches, most of the work, run without holding the interpreter lock.
+THREADS = 2
 CONVENTIONS = (
     "every id of a sentence and the </s> after it are predicted, <s> never; each sentence is preceded by n-1 <s>; "
     "<unk> and the unknown classes are ordinary tokens (an out-of-vocabulary word is scored as its class); "
@@ -219,9 +223,14 @@ def default_order(build: Build) -> int:
     return DEFAULT_ORDER
 
 
-def score(name: str, splits: dict[str, Sentences | None], vocabulary_size: int, order: int, smoothing: kneser_ney.Smoothing) -> Baseline:
+def _parts(sentences: Sentences | list[Sentences]) -> list[Sentences]:
+    return sentences if isinstance(sentences, list) else [sentences]
+
+
+def score(name: str, splits: Mapping[str, Sentences | list[Sentences] | None], vocabulary_size: int, order: int, smoothing: kneser_ney.Smoothing) -> Baseline:
     """Count train, estimate the models of orders 2..n, and score every split (`splits` gives
-    each split's sentences, None for a split without documents)."""
+    each split's sentences, None for a split without documents; train may come in parts,
+    counted side by side). Dev and test are scored side by side, each in its own order."""
     try:
         counter = kneser_ney.NgramCounter(order, vocabulary_size)
     except ValueError as error:
@@ -229,23 +238,32 @@ def score(name: str, splits: dict[str, Sentences | None], vocabulary_size: int, 
     train = splits["train"]
     if train is None:
         raise fail(f"{name}: the train split has no documents; nothing to count")
-    for ids, lengths in train():
-        counter.add(ids, lengths)
-    counts = counter.finish()
-    if not counts.tokens:
-        raise fail(f"{name}: the train split has no sentences; nothing to count")
-    models = kneser_ney.estimate_models(counts, smoothing, range(2, order + 1))
-    unigram = AddOneUnigram.of(counts)
-    scores: dict[str, SplitScore | None] = {"train": kneser_ney.training_score(models, unigram)}
-    for split in ("dev", "test"):
-        read = splits.get(split)
-        if read is None:
-            scores[split] = None
-            continue
-        figures = SplitScore()
-        for ids, lengths in read():
-            kneser_ney.score_split(figures, models, unigram, ids, lengths)
-        scores[split] = figures
+    parts = _parts(train)
+    counters = [counter] + [kneser_ney.NgramCounter(order, vocabulary_size) for _ in parts[1:]]
+
+    def count(counter: kneser_ney.NgramCounter, sentences: Sentences) -> None:
+        for ids, lengths in sentences():
+            counter.add(ids, lengths)
+
+    with ThreadPoolExecutor(THREADS) as pool:
+        for done in [pool.submit(count, *pair) for pair in zip(counters, parts)]:
+            done.result()
+        counts = counter.finish(counters[1:])
+        if not counts.tokens:
+            raise fail(f"{name}: the train split has no sentences; nothing to count")
+        models = kneser_ney.estimate_models(counts, smoothing, range(2, order + 1))
+        unigram = AddOneUnigram.of(counts)
+
+        def held_out(read: Sentences | list[Sentences]) -> SplitScore:
+            figures = SplitScore()
+            for part in _parts(read):
+                for ids, lengths in part():
+                    kneser_ney.score_split(figures, models, unigram, ids, lengths)
+            return figures
+
+        scoring = {split: pool.submit(held_out, read) for split in ("dev", "test") if (read := splits.get(split)) is not None}
+        scores: dict[str, SplitScore | None] = {"train": kneser_ney.training_score(models, unigram)}
+        scores.update({split: scoring[split].result() if split in scoring else None for split in ("dev", "test")})
     return Baseline(name, order, smoothing, vocabulary_size, scores, models[order])
 
 
@@ -276,9 +294,11 @@ def step(argv: list[str] | None = None) -> None:
             if written.kind == "stream":
                 files[written.split].append(Path(layout.root, written.file))
     size = read_vocabulary(layout.ids).size
-    splits: dict[str, Sentences | None] = {
+    splits: dict[str, Sentences | list[Sentences] | None] = {
         split: functools.partial(file_sentences, paths, f"split {split}", size) if paths else None for split, paths in files.items()
     }
+    if len(files["train"]) > 1:  # counted in THREADS parts, every part's counts summed
+        splits["train"] = [functools.partial(file_sentences, files["train"][part::THREADS], "split train", size) for part in range(THREADS)]
     baseline = score(layout.root, splits, size, step_order(run_.options), run_.options["baseline"]["smoothing"])
     write_json(layout.baseline, baseline.to_json())
     print(format_baseline(baseline))

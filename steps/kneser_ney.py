@@ -313,9 +313,12 @@ class NgramCounter:
         self._table, self._pending = None, []
         return parts
 
-    def finish(self) -> Counts:
-        """The counts of every order, from 1 to `order`."""
-        parts = self._take()
+    def finish(self, others: Sequence[NgramCounter] = ()) -> Counts:
+        """The counts of every order, from 1 to `order`, of what this counter and `others` (of
+        the same order and vocabulary, fed other sentences) were given."""
+        if any((other.order, other.vocabulary_size) != (self.order, self.vocabulary_size) for other in others):
+            raise ValueError("counters of different orders or vocabularies cannot be combined")
+        parts = self._take() + [part for other in others for part in other._take()]
         if parts:
             keys, raw = _merge(parts)
         else:
