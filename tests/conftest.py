@@ -25,6 +25,7 @@ settings.load_profile(os.environ.get("HYPOTHESIS_PROFILE") or ("ci" if os.enviro
 
 REPO = Path(__file__).resolve().parent.parent
 DEMO = REPO / "demo_raw"
+SCENARIOS = REPO / "tests" / "scenarios"
 
 
 def pytest_collection_modifyitems(items: list[pytest.Item]) -> None:
@@ -60,6 +61,25 @@ def run_workflow(directory: Path, overrides: dict | None = None, *extra: str, co
     return result
 
 
+def scenario(name: str, overrides: dict | None = None) -> dict:
+    """The override config of tests/scenarios/<name>.yaml with `overrides` merged in (mappings
+    key by key, any other value replaced). A relative corpus.root in the file is made absolute
+    against the repository: the file reads as a user running from the repository passes it with
+    --configfile, while tests run the workflow in other folders."""
+    config = yaml.safe_load((SCENARIOS / f"{name}.yaml").read_text(encoding="utf-8")) or {}
+    root = config.get("corpus", {}).get("root")
+    if root is not None and not Path(root).is_absolute():
+        config["corpus"]["root"] = str(REPO / root)
+    return _merged(config, overrides or {})
+
+
+def _merged(base: dict, overrides: dict) -> dict:
+    merged = dict(base)
+    for key, value in overrides.items():
+        merged[key] = _merged(merged[key], value) if isinstance(value, dict) and isinstance(merged.get(key), dict) else value
+    return merged
+
+
 def require_file(path: str | Path, package: str) -> Path:
     """Return an outside reference file; skip outside CI when missing, fail in CI."""
     candidate = Path(path)
@@ -75,7 +95,7 @@ def require_file(path: str | Path, package: str) -> Path:
 def demo_build(tmp_path_factory: pytest.TempPathFactory) -> Path:
     """The demo corpus built once with the default configuration; returns the build folder."""
     directory = tmp_path_factory.mktemp("demo")
-    run_workflow(directory, {"corpus": {"root": str(DEMO)}})
+    run_workflow(directory, scenario("demo"))
     return directory / "build"
 
 
@@ -84,5 +104,5 @@ def demo_chunks_build(tmp_path_factory: pytest.TempPathFactory) -> Path:
     """The demo corpus built with one chunk per file (corpus.pack_mb: 0), so every split has a
     shard file per chunk; returns the build folder."""
     directory = tmp_path_factory.mktemp("demo-chunks")
-    run_workflow(directory, {"corpus": {"root": str(DEMO), "pack_mb": 0}})
+    run_workflow(directory, scenario("one-chunk-per-file"))
     return directory / "build"

@@ -18,7 +18,7 @@ import pyarrow.parquet as pq
 import pytest
 import zstandard
 
-from conftest import REPO, run_workflow
+from conftest import REPO, run_workflow, scenario
 from corpusmill.accounting import FileTally, Tally, merge, problems_message
 from corpusmill.ingest import Chunk, CorpusError, ReadOptions, chunk_key, foreign_encoding, read_documents
 from corpusmill.progress import Progress, running_jobs
@@ -133,7 +133,7 @@ def test_every_bad_file_of_a_run_is_named_and_the_message_comes_last(tmp_path: P
     (root / "b_latin1.txt").write_bytes("Caf\xe9 cr\xe8me and more text.\n".encode("latin-1"))
     (root / "c_wide.txt").write_bytes("Some text written wide.\n".encode("utf-16"))
     (root / "d_good.txt").write_text("Another good paragraph of text.\n")
-    run = run_workflow(tmp_path / "run", {"corpus": {"root": str(root), "pack_mb": 0}}, check=False)
+    run = run_workflow(tmp_path / "run", scenario("one-chunk-per-file", {"corpus": {"root": str(root)}}), check=False)
     assert run.returncode != 0
     assert "2 input file(s) cannot be read as configured" in run.stderr
     tail = run.stderr.strip().splitlines()[-9:]
@@ -201,7 +201,7 @@ def test_files_of_jobs_that_no_longer_exist_are_removed_after_a_full_run(tmp_pat
     root.mkdir()
     for name in ("a", "b", "c"):
         (root / f"{name}.txt").write_text(f"File {name} has a paragraph of its own text.\n\nAnd {name} has a second one.\n")
-    options = {"corpus": {"root": str(root), "pack_mb": 0}}
+    options = scenario("one-chunk-per-file", {"corpus": {"root": str(root)}})
     run_workflow(tmp_path / "run", options)
     build = tmp_path / "run" / "build"
     old = {p for p in build.rglob("*") if p.is_file() and ("c.txt" in p.name or p.name.startswith("ngram-"))}

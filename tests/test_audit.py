@@ -19,6 +19,7 @@ import pytest
 from hypothesis import HealthCheck, given, settings
 from hypothesis import strategies as st
 
+from conftest import scenario
 from corpusmill.audit import audit_build
 from corpusmill.reader import BuildError, open_build
 from tests import hostile
@@ -31,7 +32,7 @@ def build(workdir: Path, raw: Path, cores: int = 2, **sections: dict) -> Path:
     split and kind) per input file."""
     override = workdir / "over.json"
     workdir.mkdir(parents=True, exist_ok=True)
-    override.write_text(json.dumps({"corpus": {"root": str(raw), "pack_mb": 0}, **sections}))
+    override.write_text(json.dumps(scenario("one-chunk-per-file", {"corpus": {"root": str(raw)}, **sections})))
     run = subprocess.run(
         [sys.executable, "-m", "snakemake", "--snakefile", str(REPO / "Snakefile"), "--directory", str(workdir),
          "--cores", str(cores), "--configfile", str(override), "--quiet"],

@@ -19,19 +19,14 @@ from pathlib import Path
 import pyarrow.parquet as pq
 import pytest
 
-from conftest import REPO, run_workflow
+from conftest import REPO, run_workflow, scenario
 from corpusmill.split import assign_split
 from tests.test_windows import reference_blocks
 
-SALT = "harbour-ledger-2026"
-FRACTIONS = {"train": 0.6, "dev": 0.2, "test": 0.2}
-LENGTH, STRIDE = 16, 16
+BLOCK_ROWS = scenario("block-rows")
+SALT, FRACTIONS = BLOCK_ROWS["split"]["salt"], BLOCK_ROWS["split"]["fractions"]
+LENGTH, STRIDE = BLOCK_ROWS["windows"]["blocks"]["length"], BLOCK_ROWS["windows"]["blocks"]["stride"]
 PAD = 0
-OVERRIDES = {
-    "split": {"salt": SALT, "fractions": FRACTIONS, "deduplicate": False},
-    "corpus": {"max_document_bytes": 2048, "oversize": "split", "pack_mb": 0},
-    "windows": {"blocks": {"span": "corpus", "remainder": "pad", "length": LENGTH, "stride": STRIDE}},
-}
 WORDS = "harbour ferry lantern copper meadow river signal winter kettle stone tide quay barrel clerk ledger rope gull".split()
 
 
@@ -58,7 +53,7 @@ def write_corpus(root: Path) -> None:
 def build(tmp_path_factory: pytest.TempPathFactory) -> Path:
     directory = tmp_path_factory.mktemp("options")
     write_corpus(directory / "corpus")
-    run_workflow(directory, {**OVERRIDES, "corpus": {**OVERRIDES["corpus"], "root": str(directory / "corpus")}})
+    run_workflow(directory, scenario("block-rows", {"corpus": {"root": str(directory / "corpus")}}))
     return directory / "build"
 
 

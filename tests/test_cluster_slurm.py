@@ -26,6 +26,8 @@ from pathlib import Path
 import pytest
 import yaml
 
+from conftest import scenario
+
 REPO = Path(__file__).resolve().parents[1]
 CLUSTER = REPO / "cluster"
 PROFILE = REPO / "profiles" / "slurm"
@@ -147,7 +149,7 @@ def builds(slurm_env, tmp_path_factory) -> Builds:
     override = work / "override.yaml"
     # One chunk per file: three prepare and three shard jobs, so the shards of several chunks
     # are written on the cluster.
-    override.write_text(yaml.safe_dump({"corpus": {"root": str(corpus), "pack_mb": 0}}), encoding="utf-8")
+    override.write_text(yaml.safe_dump(scenario("one-chunk-per-file", {"corpus": {"root": str(corpus)}})), encoding="utf-8")
 
     snakemake = [sys.executable, "-m", "snakemake", "--snakefile", str(REPO / "Snakefile"), "--configfile", str(override)]
 

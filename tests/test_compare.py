@@ -24,7 +24,7 @@ import pyarrow.parquet as pq
 import pytest
 import yaml
 
-from conftest import DEMO, REPO, require_file, run_workflow
+from conftest import DEMO, REPO, require_file, run_workflow, scenario
 from corpusmill.chunks import IDENTITY_SCHEMA
 from corpusmill.clean import CleanOptions, clean_text
 from corpusmill.compare import EDITED, ID_CHANGED, SETTINGS, UNEXPLAINED, DocumentChanges, SplitSettings, compare_builds, render, split_reason
@@ -39,7 +39,7 @@ DEFAULTS = yaml.safe_load((REPO / "workflow_config" / "config.yaml").read_text(e
 def build(directory: Path, root: Path, **sections: dict) -> Path:
     """The real workflow on `root`, one chunk per input file (so one shard file per file, split
     and kind)."""
-    run_workflow(directory, {"corpus": {"root": str(root), "pack_mb": 0}, **sections})
+    run_workflow(directory, scenario("one-chunk-per-file", {"corpus": {"root": str(root)}, **sections}))
     return directory / "build"
 
 

@@ -13,10 +13,8 @@ from pathlib import Path
 import pytest
 import yaml
 
-from conftest import run_workflow
+from conftest import run_workflow, scenario
 from corpusmill import settings
-
-REPO = Path(__file__).resolve().parent.parent
 
 
 def error_of(raw: dict) -> str:
@@ -181,7 +179,7 @@ def test_a_section_that_is_not_a_mapping_is_refused() -> None:
 
 def test_the_real_workflow_stops_before_any_job_and_writes_nothing(tmp_path: Path) -> None:
     """Snakemake itself, not a dry run: the Snakefile's validation exits before the DAG runs."""
-    run = run_workflow(tmp_path, {"corpus": {"root": str(REPO / "demo_raw")}, "windows": {"ngram": {"n": 1}}}, cores=1, check=False)
+    run = run_workflow(tmp_path, scenario("demo", {"windows": {"ngram": {"n": 1}}}), cores=1, check=False)
     assert run.returncode != 0
     assert "windows.ngram.n = 1: allowed: type integer, >= 2" in run.stdout + run.stderr
     assert not (tmp_path / "build").exists()

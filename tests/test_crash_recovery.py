@@ -21,6 +21,7 @@ from pathlib import Path
 import pyarrow.parquet as pq
 import pytest
 
+from conftest import scenario
 from tests import hostile
 
 REPO = Path(__file__).resolve().parent.parent
@@ -45,7 +46,7 @@ def reference(tmp_path_factory: pytest.TempPathFactory) -> tuple[Path, dict[str,
     base = tmp_path_factory.mktemp("crash")
     hostile.write_small_corpus(base / "raw")
     override = base / "over.json"
-    override.write_text(json.dumps({"corpus": {"root": str(base / "raw"), "pack_mb": 0}}))
+    override.write_text(json.dumps(scenario("one-chunk-per-file", {"corpus": {"root": str(base / "raw")}})))
     start = time.monotonic()
     subprocess.run(snakemake(base / "clean", override, "--cores", "2", "--quiet"), check=True, capture_output=True, timeout=600)
     return override, digests(base / "clean" / "build"), time.monotonic() - start

@@ -17,7 +17,7 @@ import pyarrow.parquet as pq
 import pytest
 import yaml
 
-from conftest import DEMO, run_workflow
+from conftest import run_workflow, scenario
 from corpusmill import croissant
 from corpusmill.formats import read_vocabulary
 from corpusmill.settings import ConfigError, resolve
@@ -230,7 +230,7 @@ def test_an_unquoted_yaml_date_in_the_metadata_is_refused_naming_the_field_and_t
 def test_croissant_and_datasheet_are_byte_identical_for_two_identical_builds(build: Path, tmp_path: Path) -> None:
     """A second build of the demo corpus in another folder: croissant.json, its vocabulary copy and
     datasheet.md hold no clock time and no absolute path, so they come out byte for byte the same."""
-    run_workflow(tmp_path, {"corpus": {"root": str(DEMO)}})
+    run_workflow(tmp_path, scenario("demo"))
     builds = [build, tmp_path / "build"]
     for name in ("croissant.json", "vocabulary.parquet", "report/datasheet.md"):
         first, second = ((folder / name).read_bytes() for folder in builds)

@@ -24,7 +24,7 @@ import sentencepiece as spm
 from hypothesis import given
 from hypothesis import strategies as st
 
-from conftest import DEMO, run_workflow
+from conftest import DEMO, run_workflow, scenario
 from corpusmill.audit import audit_build
 from corpusmill.cutoffs import WordList
 from corpusmill.formats import (
@@ -213,10 +213,7 @@ def test_the_build_reader_audit_and_ids_file_name_every_piece_as_sentencepiece_d
     model = model_with_odd_pieces(tmp_path / "odd.model")
     pieces = [model.id_to_piece(i) for i in range(model.get_piece_size())]
     assert {"a\tb", "x\ny", "r\rs", "c\\td"} <= set(pieces)
-    run_workflow(
-        tmp_path / "run",
-        {"corpus": {"root": str(DEMO), "include": ["journals/*.txt"]}, "units": "subword", "subword": {"frozen": str(tmp_path / "odd.model")}},
-    )
+    run_workflow(tmp_path / "run", scenario("journals", {"units": "subword", "subword": {"frozen": str(tmp_path / "odd.model")}}))
     build = tmp_path / "run" / "build"
     kinds = ["byte" if model.is_byte(i) else "control" if model.is_control(i) or model.is_unknown(i) else "piece" for i in range(len(pieces))]
     lines = "".join(f"{i}\t{reference_escape(p)}\t{k}\n" for i, (p, k) in enumerate(zip(pieces, kinds)))

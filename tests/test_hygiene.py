@@ -23,13 +23,12 @@ import pytest
 import regex
 import yaml
 
-from conftest import REPO, require_file, run_workflow
+from conftest import REPO, require_file, run_workflow, scenario
 from corpusmill import settings
 from corpusmill.layout import Layout
 
 FORTUNES = Path("/usr/share/games/fortunes")
 FILES = ("computers", "science", "work", "literature")
-SPLIT = {"fractions": {"train": 0.6, "dev": 0.2, "test": 0.2}}
 HYGIENE_REASONS = {"near_duplicate", "near_duplicate_other_split", "contaminated"}
 
 
@@ -93,7 +92,7 @@ def planted(tmp_path_factory: pytest.TempPathFactory) -> dict:
 
 def build(planted: dict, name: str, overrides: dict) -> tuple[Path, subprocess.CompletedProcess]:
     directory = planted["base"] / name
-    result = run_workflow(directory, {"corpus": {"root": str(planted["root"])}, "split": SPLIT, **overrides})
+    result = run_workflow(directory, scenario("wide-held-out-splits", {"corpus": {"root": str(planted["root"])}, **overrides}))
     return directory / "build", result
 
 
@@ -256,7 +255,7 @@ def test_growing_the_corpus_never_moves_a_kept_document_and_drops_one_only_for_a
         copies = [altered(text, rng) for text in rng.sample(seen + new, 8)]
         seen += new
         (root / f"step{step}.txt").write_text("\n\n".join(new + copies) + "\n", encoding="utf-8")
-        run_workflow(tmp_path / "work", {"corpus": {"root": str(root)}, "split": SPLIT})
+        run_workflow(tmp_path / "work", scenario("wide-held-out-splits", {"corpus": {"root": str(root)}}))
         build_dir = tmp_path / "work" / "build"
         kept = kept_documents(build_dir)
         members = pq.read_table(build_dir / "stats" / "near_duplicates.parquet").to_pylist()
@@ -296,7 +295,7 @@ def test_without_deduplication_an_exact_copy_is_dropped_with_its_first_copy(drop
     shutil.copytree(planted["root"], root)
     text = (root / source).read_bytes()[original:].split(b"\n\n")[0]
     (root / "exact.txt").write_bytes(text + b"\n")
-    run_workflow(tmp_path / "work", {"corpus": {"root": str(root)}, "split": {**SPLIT, "deduplicate": False}})
+    run_workflow(tmp_path / "work", scenario("wide-held-out-splits", {"corpus": {"root": str(root)}, "split": {"deduplicate": False}}))
     build_dir = tmp_path / "work" / "build"
     rows = {(row["source"], row["offset"]): row for row in pq.read_table(build_dir / "stats" / "near_duplicates.parquet").to_pylist()}
     first, copy = rows[(source, original)], rows[("exact.txt", 0)]

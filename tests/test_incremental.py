@@ -19,7 +19,7 @@ from pathlib import Path
 
 import pytest
 
-from conftest import run_workflow
+from conftest import run_workflow, scenario
 
 SYLLABLES = ["ka", "lo", "mi", "ren", "tas", "vo", "dun", "pel", "sir", "ath", "mor", "quin", "bel", "tor", "ish", "nu"]
 
@@ -112,7 +112,7 @@ def start(tmp_path_factory: pytest.TempPathFactory) -> tuple[Path, dict[str, str
     rng = random.Random(18)
     files = {f"{name}.txt": text(rng, rng.randint(8, 14)) for name in ("alder", "birch", "cedar", "elm", "fir")}
     write_corpus(base / "first" / "corpus", files)
-    run_workflow(base / "first", {"corpus": {"root": str(base / "first" / "corpus"), "pack_mb": 0}})
+    run_workflow(base / "first", scenario("one-chunk-per-file", {"corpus": {"root": str(base / "first" / "corpus")}}))
     frozen = base / "frozen.tsv"
     shutil.copy(base / "first" / "build" / "vocabulary.tsv", frozen)
     return base, files, frozen
@@ -130,7 +130,7 @@ def check_like_a_clean_build(base: Path, overrides: dict, label: str) -> None:
 def test_with_a_frozen_vocabulary_each_change_equals_a_clean_build_and_spares_the_other_chunks(start: tuple[Path, dict[str, str], Path]) -> None:
     base, files, frozen = start
     corpus = base / "live" / "corpus"
-    overrides = {"corpus": {"root": str(corpus), "pack_mb": 0}, "vocabulary": {"frozen": str(frozen)}}
+    overrides = scenario("one-chunk-per-file", {"corpus": {"root": str(corpus)}, "vocabulary": {"frozen": str(frozen)}})
     write_corpus(corpus, files)
     run_workflow(base / "live", overrides)
     check_like_a_clean_build(base, overrides, "frozen start")
@@ -154,7 +154,7 @@ def test_without_a_frozen_vocabulary_the_changed_corpus_equals_a_clean_build(sta
     base, files, _ = start
     corpus = base / "live" / "corpus"
     shutil.rmtree(base / "live", ignore_errors=True)
-    overrides = {"corpus": {"root": str(corpus), "pack_mb": 0}}
+    overrides = scenario("one-chunk-per-file", {"corpus": {"root": str(corpus)}})
     write_corpus(corpus, files)
     run_workflow(base / "live", overrides)
     for _, after in changes(11, files):

@@ -8,7 +8,6 @@ input file (corpus.pack_mb: 0), so every split has several shard files of each k
 
 from __future__ import annotations
 
-import copy
 import hashlib
 import json
 import os
@@ -18,7 +17,7 @@ from pathlib import Path
 import pyarrow.parquet as pq
 import pytest
 
-from conftest import DEMO
+from conftest import DEMO, scenario
 from corpusmill import settings
 
 KINDS = ("ngram", "block", "stream")
@@ -100,8 +99,7 @@ def test_inputs_are_every_file_read_with_its_size_and_hash(demo_chunks_build: Pa
 
 def test_the_configuration_is_the_resolved_one_with_its_digest(demo_chunks_build: Path, manifest: dict) -> None:
     """settings.resolve of the run's override file: the whole configuration, nothing left out."""
-    overrides = {"corpus": {"root": str(DEMO), "pack_mb": 0}}
-    assert manifest["config"] == settings.resolve(copy.deepcopy(overrides))
+    assert manifest["config"] == settings.resolve(scenario("one-chunk-per-file"))
     assert manifest["config_sha256"] == canonical_sha256(manifest["config"])
     assert manifest["schema_version"] == 2
 

@@ -21,7 +21,7 @@ from pathlib import Path
 import pytest
 import yaml
 
-from conftest import DEMO, REPO
+from conftest import REPO, scenario
 from corpusmill import plan, settings
 
 # Runs Snakemake's own entry with every import statement executed by the project's code (the
@@ -58,9 +58,8 @@ def traced_run(directory: Path, overrides: dict, *extra: str) -> subprocess.Comp
     return result
 
 
-WORD = {"corpus": {"root": str(DEMO)}}
-SUBWORD = {"corpus": {"root": str(DEMO)}, "units": "subword", "subword": {"vocab_size": 500, "max_sentences": 5000},
-           "segment": {"learn_abbreviations": True}}  # fmt: skip
+WORD = scenario("demo")
+SUBWORD = scenario("subword", {"subword": {"max_sentences": 5000}, "segment": {"learn_abbreviations": True}})
 
 
 @pytest.fixture(scope="module")

@@ -23,7 +23,7 @@ import pyarrow.parquet as pq
 import pytest
 import zstandard
 
-from conftest import DEMO, require_file, run_workflow
+from conftest import DEMO, require_file, run_workflow, scenario
 from corpusmill.audit import audit_build
 from corpusmill.clean import CleanOptions, clean_text
 from corpusmill.formats import BOS, EOS, PAD, read_vocabulary
@@ -48,15 +48,14 @@ def fortunes_build(tmp_path_factory: pytest.TempPathFactory) -> Path:
     raw.mkdir()
     for name in ("fortunes", "wisdom", "science"):
         shutil.copyfile(require_file(FORTUNES / name, "fortunes"), raw / f"{name}.txt")
-    blocks = {"span": "corpus", "length": 48, "stride": 40, "remainder": "pad"}
-    run_workflow(directory, {"corpus": {"root": str(raw), "pack_mb": 0, "invalid_utf8": "replace"}, "windows": {"blocks": blocks}})
+    run_workflow(directory, scenario("overlapping-blocks", {"corpus": {"root": str(raw)}}))
     return directory / "build"
 
 
 @pytest.fixture(scope="module")
 def subword_build(tmp_path_factory: pytest.TempPathFactory) -> Path:
     directory = tmp_path_factory.mktemp("subword")
-    run_workflow(directory, {"corpus": {"root": str(DEMO)}, "units": "subword", "subword": {"vocab_size": 600}})
+    run_workflow(directory, scenario("subword", {"subword": {"vocab_size": 600}}))
     return directory / "build"
 
 

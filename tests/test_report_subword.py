@@ -23,7 +23,7 @@ import pyarrow as pa
 import pyarrow.parquet as pq
 import pytest
 
-from conftest import DEMO, require_file, run_workflow
+from conftest import require_file, run_workflow, scenario
 from corpusmill.coverage import encoded_figures
 from corpusmill.formats import Figures, ShardStats, read_vocabulary
 from corpusmill.growth import train_word_batches, whitespace_words, word_growth
@@ -34,7 +34,7 @@ from tests.test_report import file_cells, png_chunks, png_size
 from tests.test_report_browser import CHROMIUM, DevTools, start_chromium, websocket_module
 from tests.test_shards import corpus_rows
 
-OVERRIDES = {"corpus": {"root": str(DEMO)}, "units": "subword", "subword": {"vocab_size": 500}}
+OVERRIDES = scenario("subword")
 # RE2's \s, which the piece encoder's word count uses, is ASCII whitespace only.
 WORD = re.compile(r"[^\t\n\f\r ]+")
 

@@ -14,14 +14,14 @@ import pyarrow as pa
 import pyarrow.parquet as pq
 import pytest
 
-from conftest import DEMO, run_workflow
+from conftest import run_workflow, scenario
 from corpusmill.encoder import WordEncoder
 from corpusmill.formats import Figures, ShardStats, Vocabulary, read_shard_stats, read_vocabulary
 from corpusmill.split import doc_hash, order_keys
 from corpusmill.vocabulary import unknown_class
 
 # The two journal files cut into chunks of about 25 KB: two chunks each.
-CHUNKED = {"corpus": {"root": str(DEMO), "include": ["journals/*.txt"], "chunk_mb": 0.025, "pack_mb": 0}}
+CHUNKED = scenario("journals", {"corpus": {"chunk_mb": 0.025, "pack_mb": 0}})
 
 
 @pytest.fixture(scope="module")

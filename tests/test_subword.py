@@ -19,7 +19,7 @@ import pyarrow.parquet as pq
 import pytest
 import sentencepiece as spm
 
-from conftest import DEMO, run_workflow
+from conftest import DEMO, run_workflow, scenario
 from corpusmill.chunks import removed_mask
 from corpusmill.encoder import PieceEncoder
 from corpusmill.formats import ShardStats, Vocabulary, read_vocabulary
@@ -32,13 +32,8 @@ SALT = "corpusmill-split-v1"
 FRACTIONS = {"train": 0.9, "dev": 0.05, "test": 0.05}
 # Targets after "--", since --configfile takes every word that follows it.
 TARGETS = ("--", "build/manifest.json", "build/stats/coverage.json")
-SUBWORD = {"vocab_size": 500, "max_sentences": 5000, "seed": 17}
-OVERRIDES = {
-    "corpus": {"root": "corpus"},
-    "split": {"key": "id"},
-    "units": "subword",
-    "subword": SUBWORD,
-}
+OVERRIDES = scenario("subword-split-by-id", {"corpus": {"root": "corpus"}})
+SUBWORD = OVERRIDES["subword"]
 SENTINEL = {"train": "kjaxplodrient", "dev": "vquombelradix", "test": "zhyrtwexolpan"}
 
 

@@ -14,7 +14,7 @@ import pyarrow as pa
 import pyarrow.parquet as pq
 import pytest
 
-from conftest import DEMO, run_workflow
+from conftest import run_workflow, scenario
 from corpusmill.encoder import WordEncoder
 from corpusmill.formats import RESERVED, UNK, VOCABULARY_HEADER, FormatError, read_vocabulary
 from corpusmill.vocabulary import Cutoff, VocabularyError, build_vocabulary, choose_size, read_frozen, sort_by_frequency, unknown_class
@@ -165,7 +165,7 @@ def test_file_keeps_tokens_that_look_like_csv_syntax(tmp_path):
 
 # --- frozen vocabularies -------------------------------------------------------------------------
 
-JOURNALS = {"corpus": {"root": str(DEMO), "include": ["journals/*.txt"]}}
+JOURNALS = scenario("journals")
 
 
 def frozen_variant(tmp_path: Path, vocabulary: Path, edit) -> Path:

@@ -15,7 +15,7 @@ import pyarrow.compute as pc
 import pyarrow.parquet as pq
 import pytest
 
-from conftest import DEMO, run_workflow
+from conftest import DEMO, run_workflow, scenario
 from corpusmill import settings
 from corpusmill.formats import read_vocabulary
 from corpusmill.plan import Plan
@@ -218,14 +218,14 @@ def planned_chunks(overrides: dict) -> list:
 
 def test_two_builds_are_byte_identical(tmp_path: Path, demo_build: Path):
     again = tmp_path / "again"
-    run_workflow(again, {"corpus": {"root": str(DEMO)}}, cores=1)
+    run_workflow(again, scenario("demo"), cores=1)
     for path in [*demo_build.glob("shards/*/*.parquet"), demo_build / "vocabulary.tsv", demo_build / "manifest.json"]:
         relative = path.relative_to(demo_build)
         assert sha256(again / "build" / relative) == sha256(path), relative
 
 
 def test_a_config_error_stops_before_any_job(tmp_path: Path):
-    result = run_workflow(tmp_path, {"corpus": {"root": str(DEMO)}, "vocabulary": {"unknown": "shapes"}}, check=False)
+    result = run_workflow(tmp_path, scenario("demo", {"vocabulary": {"unknown": "shapes"}}), check=False)
     assert result.returncode != 0
     assert 'vocabulary.unknown = "shapes": allowed: one of "single", "shape"' in result.stderr
     assert not (tmp_path / "build").exists()
@@ -234,7 +234,7 @@ def test_a_config_error_stops_before_any_job(tmp_path: Path):
 @pytest.mark.parametrize("kinds", [{"ngram": {"enabled": False}}, {"blocks": {"enabled": False}, "streams": {"enabled": False}}])
 def test_disabled_kinds_write_no_files(tmp_path: Path, kinds: dict):
     baseline = {"enabled": "streams" not in kinds}  # the baseline counts the document streams
-    run_workflow(tmp_path, {"corpus": {"root": str(DEMO), "include": ["journals/*.txt"]}, "windows": kinds, "baseline": baseline})
+    run_workflow(tmp_path, scenario("journals", {"windows": kinds, "baseline": baseline}))
     written = {p.name.split("-")[0] for p in (tmp_path / "build" / "shards").rglob("*.parquet")}
     expected = {"ngram", "block", "stream"} - {{"ngram": "ngram", "blocks": "block", "streams": "stream"}[k] for k in kinds}
     assert written == expected
@@ -246,8 +246,7 @@ def test_blocks_that_hold_little_of_train_are_flagged_in_the_summary_and_the_rep
     are shorter than 129 ids and give no block. The share is recounted from the stream shards
     (the same ids, cut independently): with stride 128 a document of d >= 129 ids gives blocks
     at 0, 128, … that hold its first ((d - 129) // 128) * 128 + 129 ids."""
-    run = run_workflow(tmp_path, {"corpus": {"root": str(DEMO), "include": ["journals/*.txt"]},
-                                  "windows": {"blocks": {"length": 128, "stride": 128}}})  # fmt: skip
+    run = run_workflow(tmp_path, scenario("journals", {"windows": {"blocks": {"length": 128, "stride": 128}}}))
     build = tmp_path / "build"
     train = manifest(build)["splits"]["train"]
     lengths = [len(ids) for p in build.glob("shards/train/stream-*.parquet") for ids in pq.read_table(p)["ids"].to_pylist()]
