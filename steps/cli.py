@@ -19,23 +19,35 @@ COMMANDS = {
 }
 
 
+def usage(args: list[str]) -> int:
+    """Print the list of commands: to stdout when asked for (as each command's own --help
+    does), else to stderr after naming the unknown command; the exit status."""
+    asked = args[:1] in (["-h"], ["--help"])
+    lines = [] if asked or not args else [f"corpusmill: unknown command {args[0]!r}; choose one of the commands below"]
+    lines += ["usage: corpusmill COMMAND [options]", "", "commands:"]
+    lines += [f"  {name:<10} {summary}" for name, (_, _, summary) in COMMANDS.items()]
+    lines += ["", "Build with snakemake (see README); `corpusmill COMMAND --help` for options."]
+    print("\n".join(lines), file=sys.stdout if asked else sys.stderr)
+    return 0 if asked else 2
+
+
 def main(argv: list[str] | None = None) -> None:
     args = sys.argv[1:] if argv is None else argv
-    if not args or args[0] not in COMMANDS:
-        lines = ["usage: corpusmill COMMAND [options]", "", "commands:"]
-        lines += [f"  {name:<10} {summary}" for name, (_, _, summary) in COMMANDS.items()]
-        lines += ["", "Build with snakemake (see README); `corpusmill COMMAND --help` for options."]
-        print("\n".join(lines), file=sys.stderr)
-        raise SystemExit(0 if args[:1] in (["-h"], ["--help"]) else 2)
-    module, function, _ = COMMANDS[args[0]]
     try:
-        getattr(importlib.import_module(f"{__package__}.{module}"), function)(args[1:])
+        if not args or args[0] not in COMMANDS:
+            status = usage(args)
+        else:
+            module, function, _ = COMMANDS[args[0]]
+            getattr(importlib.import_module(f"{__package__}.{module}"), function)(args[1:])
+            status = 0
         sys.stdout.flush()
     except BrokenPipeError:
         # The reader of our output went away (`corpusmill cutoffs --json | head`): stop quietly,
         # with the status a process killed by SIGPIPE has, and no traceback at exit's flush.
         os.dup2(os.open(os.devnull, os.O_WRONLY), sys.stdout.fileno())
         raise SystemExit(128 + signal.SIGPIPE) from None
+    if status:
+        raise SystemExit(status)
 
 
 if __name__ == "__main__":

@@ -22,22 +22,26 @@ from .layout import Layout
 def stale_files(build_root: str | Path, current: Iterable[str | Path]) -> list[Path]:
     """Files under `build_root` that are not in `current`, nor in a cache, sorted."""
     root = Path(build_root)
-    keep = {os.path.normpath(path) for path in current}
+    # Compared as absolute paths: a current file is current however its path is spelt.
+    keep = {os.path.abspath(path) for path in current}
     # Kept although no current job names them: learned subword models by sample key.
-    caches = [os.path.normpath(Layout(str(root)).subword_models)]
+    caches = [os.path.abspath(Layout(str(root)).subword_models)]
     stale = []
     for folder, _, names in os.walk(root):
         for name in names:
             path = os.path.normpath(os.path.join(folder, name))
-            if path not in keep and not any(path.startswith(cache + os.sep) for cache in caches):
+            absolute = os.path.abspath(path)
+            if absolute not in keep and not any(absolute.startswith(cache + os.sep) for cache in caches):
                 stale.append(Path(path))
     return sorted(stale)
 
 
-def remove(paths: list[Path]) -> str:
-    """Remove the files and the folders they leave empty; a line saying what went."""
+def remove(paths: list[Path], build_root: str | Path) -> str:
+    """Remove the files and the folders they leave empty below `build_root` (never the build
+    folder itself, nor anything above it); a line saying what went."""
     if not paths:
         return ""
+    root = os.path.abspath(build_root)
     size = 0
     for path in paths:
         try:
@@ -46,6 +50,8 @@ def remove(paths: list[Path]) -> str:
         except FileNotFoundError:
             continue
         for parent in path.parents:
+            if not os.path.abspath(parent).startswith(root + os.sep):
+                break
             try:
                 parent.rmdir()
             except OSError:
