@@ -3,6 +3,7 @@
 from __future__ import annotations
 
 import pytest
+import regex
 from hypothesis import given, settings
 from hypothesis import strategies as st
 
@@ -104,7 +105,7 @@ def every_pass(text: str, options: CleanOptions) -> str:
         if options.normalization != "none":
             text = normalize(clean.stream_safe(text), options.normalization)
     text = clean._CONTROLS.sub(" ", text)
-    text = clean._SPACES.sub(" ", text)
+    text = regex.sub(r"[^\S\n]+", " ", text)  # every run of blanks other than line feeds, one space
     text = clean._SPACED_NEWLINE.sub("\n", text)
     text = clean._NEWLINE_RUNS.sub("\n\n", text).strip()
     return text
