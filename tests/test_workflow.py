@@ -5,6 +5,7 @@ from __future__ import annotations
 import copy
 import hashlib
 import json
+import re
 import shutil
 from collections import Counter
 from pathlib import Path
@@ -14,8 +15,9 @@ import pyarrow as pa
 import pyarrow.compute as pc
 import pyarrow.parquet as pq
 import pytest
+import yaml
 
-from conftest import DEMO, run_workflow, scenario
+from conftest import DEMO, REPO, run_workflow, scenario
 from corpusmill import settings
 from corpusmill.formats import read_vocabulary
 from corpusmill.plan import Plan
@@ -256,3 +258,11 @@ def test_blocks_that_hold_little_of_train_are_flagged_in_the_summary_and_the_rep
     assert "of train ids; warning:" in run.stderr and "windows.blocks.length" in run.stderr
     page = (build / "report" / "index.html").read_text(encoding="utf-8")
     assert f"Blocks hold {held / sum(lengths):.1%} of the train split" in page and "<strong>Warning</strong>" in page
+
+
+def test_every_run_reads_the_workflow_profile_that_picks_the_greedy_scheduler(tmp_path: Path):
+    """Snakemake says which workflow profile it read (a dry run); the profile names the greedy
+    scheduler."""
+    result = run_workflow(tmp_path / "run", scenario("demo"), "--dry-run")
+    assert re.search(r"workflow specific profile \S*profiles/default ", result.stdout + result.stderr)
+    assert yaml.safe_load((REPO / "profiles" / "default" / "config.yaml").read_text(encoding="utf-8")) == {"scheduler": "greedy"}
