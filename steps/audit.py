@@ -236,8 +236,8 @@ def main(argv: list[str] | None = None) -> None:
     audit = audit_build(args.build)
     if audit.problems:
         for problem in audit.problems:
-            print(f"corpusmill audit: {problem}", file=sys.stderr)
-        raise SystemExit(f"corpusmill audit: {len(audit.problems)} problem(s) in {args.build}")
+            print(f"corpusmill: {problem}", file=sys.stderr)
+        raise SystemExit(f"corpusmill: {len(audit.problems)} problem(s) in {args.build}")
     accounting = audit.accounting
     print(
         f"corpusmill audit: {args.build} OK: {audit.shards} shard files, {audit.rows} rows, "

@@ -1,4 +1,9 @@
-"""The `corpusmill` command: tools that work on a finished build folder."""
+"""The `corpusmill` command: tools that work on a finished build folder.
+
+Every command fails the same way, so scripts can tell a typo from a bad build: wrong or missing
+arguments exit with status 2 and argparse's usage line; a missing, malformed or changed build
+file exits with status 1 and stderr lines `corpusmill: FILE: problem; what to do`.
+"""
 
 from __future__ import annotations
 

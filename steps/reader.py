@@ -540,7 +540,9 @@ def open_build(path: str | Path, *, verify_hashes: bool = False) -> Build:
     manifest_path, real_root = root / MANIFEST, root.resolve()
     target, problem = resolve_inside(real_root, MANIFEST)
     if (problem := problem or file_problem(target, MAX_MANIFEST_BYTES)) == "missing":
-        raise BuildError(f"{manifest_path}: missing; point open_build at a finished build folder or run the workflow")
+        raise BuildError(
+            f"{manifest_path}: missing; {root} is not a finished build folder: run the workflow (snakemake) to build it, or give the path of a finished build"
+        )
     if problem is None:
         manifest, problem = parse_manifest(target.read_bytes(), READER_FIELDS)
     if problem:

@@ -38,17 +38,19 @@ def stale_files(build_root: str | Path, current: Iterable[str | Path]) -> list[P
 
 def remove(paths: list[Path], build_root: str | Path) -> str:
     """Remove the files and the folders they leave empty below `build_root` (never the build
-    folder itself, nor anything above it); a line saying what went."""
-    if not paths:
-        return ""
+    folder itself, nor anything above it); a line saying what went. A file already gone (removed
+    by hand or by another run meanwhile) is not counted: the line reports only what this call removed."""
     root = os.path.abspath(build_root)
+    removed: list[Path] = []
     size = 0
     for path in paths:
         try:
-            size += path.stat().st_size
+            file_size = path.stat().st_size
             path.unlink()
         except FileNotFoundError:
             continue
+        removed.append(path)
+        size += file_size
         for parent in path.parents:
             if not os.path.abspath(parent).startswith(root + os.sep):
                 break
@@ -56,5 +58,7 @@ def remove(paths: list[Path], build_root: str | Path) -> str:
                 parent.rmdir()
             except OSError:
                 break
-    shown = ", ".join(str(p) for p in paths[:3]) + (f", +{len(paths) - 3} more" if len(paths) > 3 else "")
-    return f"removed {len(paths):,} file(s) of earlier runs that no current job uses ({size / 1e6:,.1f} MB): {shown}"
+    if not removed:
+        return ""
+    shown = ", ".join(str(p) for p in removed[:3]) + (f", +{len(removed) - 3} more" if len(removed) > 3 else "")
+    return f"removed {len(removed):,} file(s) of earlier runs that no current job uses ({size / 1e6:,.1f} MB): {shown}"

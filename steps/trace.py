@@ -21,7 +21,6 @@ from __future__ import annotations
 import argparse
 import dataclasses
 import json
-import sys
 from dataclasses import dataclass
 from pathlib import Path
 
@@ -39,7 +38,6 @@ from .provenance import Documents, Place, position_of_row, read_documents
 from .reader import MANIFEST, MAX_MANIFEST_BYTES, MAX_VOCABULARY_BYTES, SHARD_FIELDS, file_problem, parse_manifest, resolve_inside
 from .segment import Segmenter
 
-PREFIX = "corpusmill trace: "
 # The manifest fields the command reads, with their types (steps.reader.structure_problem).
 TRACE_FIELDS = {
     "config": {"units": str, "corpus": {"root": str}, "windows": {"ngram": {"n": int}}},
@@ -320,8 +318,7 @@ def main(argv: list[str] | None = None) -> None:
         if args.target is not None and not 0 <= args.target < len(traced.ids):
             raise TraceError(f"{traced.file}: row {args.row} holds {len(traced.ids)} ids; --target must lie in 0..{len(traced.ids) - 1}")
     except TraceError as error:
-        print(f"{PREFIX}{error}", file=sys.stderr)
-        raise SystemExit(2) from None
+        raise SystemExit(f"corpusmill: {error}") from None
     print(json.dumps(provenance_record(traced), indent=2) if args.json else format_trace(traced, args.target))
 
 

@@ -183,7 +183,7 @@ def test_a_shard_moved_outside_the_build_is_refused_naming_the_manifest_entry(co
     save(copy, manifest)
     run = audit(copy)
     assert run.returncode != 0
-    assert f"corpusmill audit: manifest.json: splits.train.shards[0].file {json.dumps(entry['file'])} " in run.stderr
+    assert f"corpusmill: manifest.json: splits.train.shards[0].file {json.dumps(entry['file'])} " in run.stderr
     assert "outside the build folder" in run.stderr or "is an absolute path" in run.stderr
 
 
@@ -219,7 +219,7 @@ def test_a_fifo_in_place_of_a_build_file_is_refused_without_opening_it(copy: Pat
     os.mkfifo(copy / name)
     run = subprocess.run([sys.executable, "-m", "corpusmill.cli", "audit", str(copy)], cwd=REPO, capture_output=True, text=True, timeout=60)
     assert run.returncode != 0
-    assert f"corpusmill audit: {name}: " in run.stderr and "not a regular file (a FIFO)" in run.stderr
+    assert f"corpusmill: {name}: " in run.stderr and "not a regular file (a FIFO)" in run.stderr
 
 
 def test_an_unlisted_fifo_under_shards_is_reported(copy: Path) -> None:
@@ -246,7 +246,7 @@ def test_a_malformed_manifest_gives_one_line_naming_the_key_path(copy: Path, cas
     run = audit(copy)
     assert run.returncode == 1 and "Traceback" not in run.stderr, run.stderr
     lines = problem_lines(run)
-    assert len(lines) == 1 and lines[0].startswith("corpusmill audit: manifest.json: ") and expected in lines[0], run.stderr
+    assert len(lines) == 1 and lines[0].startswith("corpusmill: manifest.json: ") and expected in lines[0], run.stderr
 
 
 def test_a_shard_listed_twice_is_reported(copy: Path) -> None:
@@ -281,7 +281,7 @@ def test_footer_row_counts_edited_together_with_the_manifest_are_caught_by_decod
     run = audit(copy)
     assert run.returncode != 0
     where = "row group 0 holds" if groups else "holds"
-    assert f"corpusmill audit: {name}: {where} " in run.stderr and "rows in its data pages, but its footer says" in run.stderr
+    assert f"corpusmill: {name}: {where} " in run.stderr and "rows in its data pages, but its footer says" in run.stderr
 
 
 def test_problem_lines_name_files_relative_to_the_build_and_say_what_to_do(copy: Path) -> None:
@@ -292,7 +292,7 @@ def test_problem_lines_name_files_relative_to_the_build_and_say_what_to_do(copy:
     lines = problem_lines(run)
     assert len(lines) >= 3, run.stderr
     for line in lines:
-        assert line.startswith("corpusmill audit: shards/"), line
+        assert line.startswith("corpusmill: shards/"), line
         assert any(fix in line for fix in ("restore", "rerun snakemake", "remove it")), line
 
 

@@ -1,7 +1,9 @@
 """The `corpusmill` command: the list of commands, and how each command fails on bad input.
 
 Exit statuses follow Python's `sys.exit` (an integer is the status; a string is printed to
-stderr and the status is 1) and argparse (status 2 and a usage line for wrong arguments).
+stderr and the status is 1) and argparse (status 2 and a usage line for wrong arguments): every
+command gives status 2 for wrong arguments and status 1, with `corpusmill: ` messages, for a
+build it cannot use.
 """
 
 from __future__ import annotations
@@ -59,12 +61,21 @@ def test_an_unknown_command_is_named_before_the_usage(capsys: pytest.CaptureFixt
 
 
 @pytest.mark.parametrize("command", sorted(COMMANDS))
-def test_each_command_refuses_a_missing_build_folder_naming_it(command: str, tmp_path: Path, capsys: pytest.CaptureFixture[str]) -> None:
-    """No traceback: the message names the folder (or the file it lacks) and starts with `corpusmill`."""
+def test_each_command_refuses_a_missing_build_folder_with_status_1_naming_it(command: str, tmp_path: Path, capsys: pytest.CaptureFixture[str]) -> None:
+    """No traceback, nothing on stdout: every line of stderr starts with `corpusmill: `, and the
+    message names the folder (or the file it lacks there)."""
     missing = tmp_path / "no-such-build"
-    status, _, err = run(arguments(command, missing), capsys)
-    assert status != 0
-    assert err.startswith("corpusmill") and str(missing) in err and "Traceback" not in err
+    status, out, err = run(arguments(command, missing), capsys)
+    assert (status, out) == (1, "")
+    assert err and all(line.startswith("corpusmill: ") for line in err.splitlines()), err
+    assert str(missing) in err and "Traceback" not in err
+
+
+@pytest.mark.parametrize("command", sorted(COMMANDS))
+def test_each_command_refuses_missing_arguments_with_status_2_and_its_own_usage(command: str, capsys: pytest.CaptureFixture[str]) -> None:
+    status, out, err = run([command], capsys)
+    assert (status, out) == (2, "")
+    assert err.startswith(f"usage: corpusmill {command}") and "the following arguments are required" in err
 
 
 @pytest.mark.parametrize("command", sorted(COMMANDS))

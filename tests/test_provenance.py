@@ -247,18 +247,18 @@ def test_trace_marks_the_chosen_id_of_a_block_row(demo_build: Path, capsys: pyte
     assert printed.count("[[") == 1 and "{{" in printed
 
 
-def test_a_row_outside_the_file_or_an_unlisted_file_is_refused_naming_it(demo_build: Path, capsys: pytest.CaptureFixture) -> None:
+def test_a_row_outside_the_file_or_an_unlisted_file_is_refused_naming_it(demo_build: Path) -> None:
     file = sample_rows(demo_build, seed=6)[0][2]
     rows = pq.read_metadata(demo_build / file).num_rows
     for argv, expected in (([file, str(rows)], f"holds rows 0 to {rows - 1}"), (["shards/train/other.parquet", "0"], "lists no shard file")):
-        with pytest.raises(SystemExit):
+        with pytest.raises(SystemExit) as stopped:
             trace_main([str(demo_build), *argv])
-        error = capsys.readouterr().err
-        assert error.startswith("corpusmill trace: ") and expected in error
+        error = stopped.value.code
+        assert isinstance(error, str) and error.startswith("corpusmill: ") and expected in error
 
 
 @pytest.mark.parametrize("edit", ["shifted", "same_length"])
-def test_a_source_file_edited_since_the_build_is_reported_not_misquoted(demo_build: Path, tmp_path: Path, edit: str, capsys: pytest.CaptureFixture) -> None:
+def test_a_source_file_edited_since_the_build_is_reported_not_misquoted(demo_build: Path, tmp_path: Path, edit: str) -> None:
     """A line added before the document (no document starts at the offset any more), or its
     first word overwritten with as many other bytes (the offsets hold, the ids do not)."""
     corpus = Path(shutil.copytree(DEMO, tmp_path / "raw"))
@@ -272,10 +272,10 @@ def test_a_source_file_edited_since_the_build_is_reported_not_misquoted(demo_bui
     else:
         word = data[offset:].split()[0]
         path.write_bytes(data[:offset] + b"Q" * len(word) + data[offset + len(word) :])
-    with pytest.raises(SystemExit):
+    with pytest.raises(SystemExit) as stopped:
         trace_main([str(demo_build), file, str(row), "--corpus", str(corpus)])
-    error = capsys.readouterr().err
-    assert error.startswith("corpusmill trace: ") and "rebuild" in error
+    error = stopped.value.code
+    assert isinstance(error, str) and error.startswith("corpusmill: ") and "rebuild" in error
 
 
 def test_side_tables_read_by_duckdb_and_polars_equal_pyarrow_and_give_the_same_documents(demo_build: Path) -> None:

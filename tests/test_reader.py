@@ -307,6 +307,18 @@ def test_a_build_that_disagrees_with_its_manifest_is_refused_naming_the_file(dem
     assert named in str(error.value)
 
 
+def test_a_folder_without_a_manifest_is_refused_saying_how_to_get_a_build(tmp_path: Path) -> None:
+    """The message reaches Python callers and the command line alike, so it names the folder and
+    says what to do in words that need neither (no function names)."""
+    missing = tmp_path / "no-such-build"
+    with pytest.raises(BuildError) as error:
+        open_build(missing)
+    assert str(error.value) == (
+        f"{missing / 'manifest.json'}: missing; {missing} is not a finished build folder: "
+        "run the workflow (snakemake) to build it, or give the path of a finished build"
+    )
+
+
 def test_hash_check_catches_a_shard_rewritten_with_the_same_rows(demo_chunks_build: Path, tmp_path: Path) -> None:
     """SHA-256 as reference: a shard recompressed with equal rows passes the footer checks but not verify_hashes."""
     build = copy_build(demo_chunks_build, tmp_path / "build")

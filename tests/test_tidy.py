@@ -74,6 +74,19 @@ def test_removing_deletes_the_files_and_the_folders_they_leave_empty_and_says_so
     assert sorted(p.relative_to(build).as_posix() for p in build.rglob("*")) == ["shards", "shards/train", "shards/train/ngram-a.parquet"]
 
 
+def test_files_already_gone_are_not_counted_as_removed(tmp_path: Path) -> None:
+    """Between listing and removing, a file can vanish (deleted by hand, or by another run):
+    the line counts, sizes and names only the files this call removed."""
+    build = tmp_path / "build"
+    old = build_with(build, ["logs/shards/a.log", "logs/shards/b.log", "logs/shards/c.log"])
+    old[2].write_bytes(b"x" * 200_000)
+    stale = stale_files(build, [])
+    old[0].unlink()
+    old[1].unlink()
+    assert remove(stale, build) == f"removed 1 file(s) of earlier runs that no current job uses (0.2 MB): {old[2]}"
+    assert remove(stale, build) == ""
+
+
 def test_removing_every_file_keeps_the_build_folder_and_every_folder_above_it(tmp_path: Path) -> None:
     """Emptied folders are removed up to, not including, the build folder: a build folder with
     nothing current in it is still the build folder, and its parents are not ours."""
