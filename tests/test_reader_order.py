@@ -11,6 +11,7 @@ from __future__ import annotations
 
 import hashlib
 import json
+from collections.abc import Iterator
 from pathlib import Path
 
 import numpy as np
@@ -18,16 +19,24 @@ import pyarrow as pa
 import pyarrow.parquet as pq
 import pytest
 
-from corpusmill.formats import read_vocabulary
-from corpusmill.reader import open_build, to_numpy
+from corpusmill import reader
+from corpusmill.formats import KINDS, read_vocabulary
+from corpusmill.reader import BuildError, open_build, to_numpy
 
 LENGTH = 3  # block rows hold LENGTH + 1 ids
+NEW_KIND = "skipgram"  # a made-up kind: the reader must read it by its columns alone
 VOCABULARY = "id\ttoken\tcount\tkind\n0\t<pad>\t0\treserved\n1\t<unk>\t0\treserved\n2\t<s>\t0\treserved\n3\t</s>\t0\treserved\n"
 
 
 def numbered_table(kind: str, numbers: np.ndarray) -> pa.Table:
     """Rows carrying their number: ngram context (i, i, i) and target i; block ids i, i+1, …;
-    stream doc_id "d<i>" with 1 + i % 4 ids, each i (streams of unequal lengths)."""
+    stream doc_id "d<i>" with 1 + i % 4 ids, each i (streams of unequal lengths); NEW_KIND, a
+    kind the reader has no code for, written as steps.formats writes ids (fixed_size_list and
+    integer columns): before (i, i), center i, after (i+1, i+2, i+3)."""
+    if kind == NEW_KIND:
+        before = pa.FixedSizeListArray.from_arrays(pa.array(np.repeat(numbers, 2)), 2)
+        after = pa.FixedSizeListArray.from_arrays(pa.array((numbers[:, None] + np.arange(1, 4, dtype=np.uint32)).reshape(-1)), 3)
+        return pa.table({"before": before, "center": pa.array(numbers), "after": after})
     if kind == "ngram":
         context = pa.FixedSizeListArray.from_arrays(pa.array(np.repeat(numbers, 3)), 3)
         return pa.table({"context": context, "target": pa.array(numbers)})
@@ -50,7 +59,7 @@ def write_numbered_build(root: Path, kind: str, group_sizes: list[list[int]]) ->
     for index, sizes in enumerate(group_sizes):
         chunk = f"{index:04d}"
         info = {"split": "train", "kind": kind, "chunk": chunk, "ids_sha256": ids, "vocabulary_size": 4, "reserved": reserved}
-        info |= {"ngram": {"n": 4, "predict_end": True}, "block": {"length": LENGTH}, "stream": {}}[kind]
+        info |= {"ngram": {"n": 4, "predict_end": True}, "block": {"length": LENGTH}, "stream": {}, NEW_KIND: {}}[kind]
         name = f"shards/train/{kind}-{chunk}.parquet"
         schema = numbered_table(kind, np.zeros(1, np.uint32)).schema.with_metadata({b"corpusmill": json.dumps(info).encode()})
         with pq.ParquetWriter(root / name, schema) as writer:
@@ -78,6 +87,10 @@ def numbers_of(kind: str, batch: dict) -> list[int]:
         ids = batch["ids"]
         assert (ids == ids[:, :1] + np.arange(LENGTH + 1)).all()
         return ids[:, 0].tolist()
+    if kind == NEW_KIND:
+        center = batch["center"]
+        assert (batch["before"] == center[:, None]).all() and (batch["after"] == center[:, None] + np.arange(1, 4)).all()
+        return center.tolist()
     offsets = batch["offsets"]
     assert offsets[0] == 0 and offsets[-1] == len(batch["ids"]) and len(offsets) == len(batch["doc_id"]) + 1
     numbers = [int(doc[1:]) for doc in batch["doc_id"]]
@@ -120,10 +133,14 @@ def reference_order(group_sizes: list[list[int]], seed: int | None, epoch: int, 
 GROUPS = [[7, 13, 1], [20], [5, 5, 5, 9], [11, 2]]
 
 
-@pytest.fixture(scope="module", params=["ngram", "block", "stream"])
-def numbered(request: pytest.FixtureRequest, tmp_path_factory: pytest.TempPathFactory) -> tuple[str, Path]:
+@pytest.fixture(scope="module", params=["ngram", "block", "stream", NEW_KIND])
+def numbered(request: pytest.FixtureRequest, tmp_path_factory: pytest.TempPathFactory) -> Iterator[tuple[str, Path]]:
+    """A numbered build of each kind; NEW_KIND's name is added where steps.formats.KINDS is read
+    (the manifest check), as adding it to KINDS would."""
     kind = request.param
-    return kind, write_numbered_build(tmp_path_factory.mktemp(f"numbered-{kind}"), kind, GROUPS)
+    with pytest.MonkeyPatch.context() as patch:
+        patch.setitem(reader.SHARD_FIELDS, "kind", (*KINDS, NEW_KIND))
+        yield kind, write_numbered_build(tmp_path_factory.mktemp(f"numbered-{kind}"), kind, GROUPS)
 
 
 @pytest.mark.parametrize(
@@ -301,3 +318,36 @@ def test_to_numpy_reads_every_chunk_of_a_table(numbered) -> None:
     joined = pa.concat_tables([table.slice(0, 5), table.slice(5, 3), table.slice(8)])
     assert joined.column(0).num_chunks > 1
     assert numbers_of(kind, to_numpy(kind, joined)) == list(range(21))
+
+
+def test_a_kind_new_to_the_reader_is_read_by_its_columns(tmp_path: Path, monkeypatch: pytest.MonkeyPatch) -> None:
+    """Adding a kind needs no reader code: a made-up kind with fixed_size_list columns of widths 2
+    and 3 around an integer column reads as [B, 2], [B] and [B, 3] arrays in the shards' type, in
+    the schema's column order, views of Arrow's buffers (addresses compared) inside one row
+    group (the module docstring). The order, worker and dtype tests above run on it too (the `numbered` fixture)."""
+    monkeypatch.setitem(reader.SHARD_FIELDS, "kind", (*KINDS, NEW_KIND))
+    build = open_build(write_numbered_build(tmp_path, NEW_KIND, [[10, 10]]))
+    batches = list(build.batches("train", NEW_KIND, 5))
+    assert [list(batch) for batch in batches] == [["before", "center", "after"]] * 4
+    assert [(b["before"].shape, b["center"].shape, b["after"].shape) for b in batches] == [((5, 2), (5,), (5, 3))] * 4
+    assert {value.dtype for batch in batches for value in batch.values()} == {np.dtype(np.uint32)}
+    assert [n for batch in batches for n in numbers_of(NEW_KIND, batch)] == list(range(20))
+    assert not any(value.flags.owndata for batch in batches for value in batch.values())
+    table = numbered_table(NEW_KIND, np.arange(20, dtype=np.uint32)).slice(5, 10)
+    for name, value in to_numpy(NEW_KIND, table).items():
+        column = table.column(name).chunk(0)
+        values = column.flatten() if pa.types.is_fixed_size_list(column.type) else column
+        assert value.__array_interface__["data"][0] == values.buffers()[1].address + values.offset * 4, name
+
+
+@pytest.mark.parametrize(
+    "column",
+    [pa.array([0.5, 1.5]), pa.array([[1], [2]], pa.list_(pa.float32()))],
+    ids=["a float column", "a second variable-length list"],
+)
+def test_a_column_the_reader_cannot_read_is_named_with_its_kind(column: pa.Array) -> None:
+    """The reader reads fixed-size lists, integers, strings and one variable-length list per
+    kind; any other column is refused by name rather than read wrongly."""
+    table = pa.table({"ids": pa.array([[1, 2], [3]], pa.list_(pa.uint32())), "odd": column})
+    with pytest.raises(BuildError, match=f"{NEW_KIND} shards: column 'odd' is {column.type}; the reader reads"):
+        to_numpy(NEW_KIND, table)
