@@ -394,7 +394,7 @@ class _Rows:
         batch: Batch = {}
         if self.lists is not None:
             values, offsets = self.lists.compact()
-            batch |= {self.lists.name: cast(values), "offsets": offsets}
+            batch = {self.lists.name: cast(values), "offsets": offsets}
         for name, value in self.columns.items():
             batch[name] = value.tolist() if value.dtype == object else cast(value)
         return batch
