@@ -46,6 +46,7 @@ SCOPE = {
         "_check_worker",
         "_single",
         "_numpy",
+        "_Lists.*",
         "_Rows.*",
         "_Batcher.*",
         "Build._units",

@@ -16,10 +16,14 @@ Batches are dicts of numpy arrays, one per kind:
   block   ids [B, L+1]                 (inputs ids[:, :-1], targets ids[:, 1:])
   stream  ids [sum of lengths], offsets [B+1] int64, doc_id list[str]
           (document i is ids[offsets[i]:offsets[i+1]])
-Id arrays keep the shards' integer type (uint16 or uint32) unless `dtype` asks for another
-(PyTorch embeddings want np.int64). Without a cast and without row shuffling, a batch that
-lies inside one Parquet row group is a read-only view of Arrow's buffers (fixed_size_list
-values reshaped, no copy); a batch straddling two row groups, a cast or a shuffle copies.
+These follow from each shard's Arrow schema (steps.formats.shard_schema), so a new kind needs
+no reader code: a fixed_size_list column is [B, width], an integer column [B], a string column
+list[str], and the one variable-length list column a kind may have its values with `offsets`.
+Id arrays (every integer column; offsets are not ids) keep the shards' integer type (uint16 or
+uint32) unless `dtype` asks for another (PyTorch embeddings want np.int64). Without a cast and
+without row shuffling, a batch that lies inside one Parquet row group is a read-only view of
+Arrow's buffers (fixed_size_list values reshaped, no copy); a batch straddling two row groups,
+a cast or a shuffle copies.
 
 Order, shuffling and data-parallel workers (all deterministic):
   1. Units are the row groups of the split's shards of one kind, in manifest order
@@ -292,88 +296,108 @@ def _numpy(array: pa.Array) -> np.ndarray:
     return array.to_numpy(zero_copy_only=False)
 
 
+@dataclass(frozen=True)
+class _Lists:
+    """A variable-length list column (a stream's ids): its values, and offsets [R+1] into them,
+    not necessarily starting at 0, so slicing rows never copies the values."""
+
+    name: str
+    values: np.ndarray
+    offsets: np.ndarray
+
+    def slice(self, start: int, stop: int) -> _Lists:
+        return _Lists(self.name, self.values, self.offsets[start : stop + 1])
+
+    def compact(self) -> tuple[np.ndarray, np.ndarray]:
+        """(the values of these rows only, offsets starting at 0)."""
+        return self.values[self.offsets[0] : self.offsets[-1]], self.offsets - self.offsets[0]
+
+    def take(self, order: np.ndarray) -> _Lists:
+        """The rows' lists in the given order (a copy)."""
+        starts = self.offsets[:-1][order]
+        lengths = self.offsets[1:][order] - starts
+        placed = np.concatenate([[0], np.cumsum(lengths)]).astype(np.int64)
+        gather = np.repeat(starts - placed[:-1], lengths) + np.arange(placed[-1], dtype=np.int64)
+        return _Lists(self.name, np.take(self.values, gather), placed)
+
+    @staticmethod
+    def concat(parts: list[_Lists]) -> _Lists:
+        """The parts' lists one after another (a copy)."""
+        pieces = [part.compact() for part in parts]
+        bases = np.cumsum([0] + [len(values) for values, _ in pieces[:-1]])
+        offsets = np.concatenate([[0]] + [local[1:] + base for (_, local), base in zip(pieces, bases)]).astype(np.int64)
+        return _Lists(parts[0].name, np.concatenate([values for values, _ in pieces]), offsets)
+
+
 class _Rows:
     """A run of rows of one kind as numpy arrays, so batching and shuffling are numpy slicing.
 
-    Fixed kinds hold whole columns (ngram: context [R, n-1], target [R]; block: ids [R, L+1]).
-    Streams hold ids, offsets [R+1] into ids (not necessarily starting at 0, so slicing never
-    copies ids) and doc_id (an object array of str).
+    Read by the table's own Arrow schema, so a kind needs no code here: `columns` holds each
+    column with one value per row, rows on the first axis (fixed-size list [R, width], integer
+    [R], string an object array of str); a variable-length list column, at most one per kind
+    (a stream's ids), is `lists`.
     """
 
-    def __init__(self, columns: dict[str, np.ndarray], stream: bool) -> None:
+    def __init__(self, columns: dict[str, np.ndarray], lists: _Lists | None = None) -> None:
         self.columns = columns
-        self.stream = stream
+        self.lists = lists
 
     @classmethod
     def from_table(cls, kind: str, table: pa.Table) -> _Rows:
-        if kind == "ngram":
-            context = _single(table.column("context"))
-            width = context.type.list_size
-            columns = {"context": _numpy(context.flatten()).reshape(-1, width), "target": _numpy(_single(table.column("target")))}
-            return cls(columns, stream=False)
-        if kind == "block":
-            ids = _single(table.column("ids"))
-            return cls({"ids": _numpy(ids.flatten()).reshape(-1, ids.type.list_size)}, stream=False)
-        lists = _single(table.column("ids"))
-        columns = {
-            "ids": _numpy(lists.values),
-            "offsets": _numpy(lists.offsets).astype(np.int64),
-            "doc_id": _single(table.column("doc_id")).to_numpy(zero_copy_only=False),
-        }
-        return cls(columns, stream=True)
+        columns: dict[str, np.ndarray] = {}
+        lists: _Lists | None = None
+        for field, column in zip(table.schema, table.columns):
+            array = _single(column)
+            if pa.types.is_fixed_size_list(field.type):
+                columns[field.name] = _numpy(array.flatten()).reshape(-1, field.type.list_size)
+            elif pa.types.is_integer(field.type):
+                columns[field.name] = _numpy(array)
+            elif pa.types.is_string(field.type):
+                columns[field.name] = array.to_numpy(zero_copy_only=False)
+            elif pa.types.is_list(field.type) and lists is None:
+                lists = _Lists(field.name, _numpy(array.values), _numpy(array.offsets).astype(np.int64))
+            else:
+                raise BuildError(
+                    f"{kind} shards: column {field.name!r} is {field.type}; the reader reads fixed-size lists, integers, strings "
+                    f"and one variable-length list per kind (steps.formats.shard_schema); {REBUILD}"
+                )
+        return cls(columns, lists)
 
     def __len__(self) -> int:
-        return len(self.columns["doc_id" if self.stream else next(iter(self.columns))])
+        return len(self.lists.offsets) - 1 if self.lists is not None else len(next(iter(self.columns.values())))
 
     def slice(self, start: int, stop: int) -> _Rows:
-        if not self.stream:
-            return _Rows({name: value[start:stop] for name, value in self.columns.items()}, stream=False)
-        columns = dict(self.columns)
-        columns["offsets"] = columns["offsets"][start : stop + 1]
-        columns["doc_id"] = columns["doc_id"][start:stop]
-        return _Rows(columns, stream=True)
-
-    def _compact_ids(self) -> tuple[np.ndarray, np.ndarray]:
-        """(ids of these rows only, offsets starting at 0)."""
-        offsets = self.columns["offsets"]
-        return self.columns["ids"][offsets[0] : offsets[-1]], offsets - offsets[0]
+        lists = None if self.lists is None else self.lists.slice(start, stop)
+        return _Rows({name: value[start:stop] for name, value in self.columns.items()}, lists)
 
     def take(self, order: np.ndarray) -> _Rows:
         """The rows in the given order (a copy; np.take is several times faster than fancy indexing here)."""
-        if not self.stream:
-            return _Rows({name: np.take(value, order, axis=0) for name, value in self.columns.items()}, stream=False)
-        offsets = self.columns["offsets"]
-        starts = offsets[:-1][order]
-        lengths = offsets[1:][order] - starts
-        placed = np.concatenate([[0], np.cumsum(lengths)]).astype(np.int64)
-        gather = np.repeat(starts - placed[:-1], lengths) + np.arange(placed[-1], dtype=np.int64)
-        ids = np.take(self.columns["ids"], gather)
-        return _Rows({"ids": ids, "offsets": placed, "doc_id": self.columns["doc_id"][order]}, stream=True)
+        columns = {name: np.take(value, order, axis=0) for name, value in self.columns.items()}
+        return _Rows(columns, None if self.lists is None else self.lists.take(order))
 
     @staticmethod
     def concat(parts: list[_Rows]) -> _Rows:
         """The parts' rows one after another (a copy)."""
         if len(parts) == 1:
             return parts[0]
-        if not parts[0].stream:
-            names = parts[0].columns
-            return _Rows({name: np.concatenate([part.columns[name] for part in parts]) for name in names}, stream=False)
-        pieces = [part._compact_ids() for part in parts]
-        bases = np.cumsum([0] + [len(ids) for ids, _ in pieces[:-1]])
-        offsets = np.concatenate([[0]] + [local[1:] + base for (_, local), base in zip(pieces, bases)]).astype(np.int64)
-        ids = np.concatenate([ids for ids, _ in pieces])
-        return _Rows({"ids": ids, "offsets": offsets, "doc_id": np.concatenate([part.columns["doc_id"] for part in parts])}, stream=True)
+        columns = {name: np.concatenate([part.columns[name] for part in parts]) for name in parts[0].columns}
+        lists = [part.lists for part in parts if part.lists is not None]
+        return _Rows(columns, _Lists.concat(lists) if lists else None)
 
     def batch(self, dtype: np.dtype | None) -> Batch:
-        """The public batch dict; ids cast to `dtype` when given (a copy)."""
+        """The public batch dict: lists as values and offsets first, then the columns, strings as
+        list[str]; integer arrays but the offsets cast to `dtype` when given (a copy)."""
 
         def cast(ids: np.ndarray) -> np.ndarray:
             return ids if dtype is None or ids.dtype == dtype else ids.astype(dtype)
 
-        if not self.stream:
-            return {name: cast(value) for name, value in self.columns.items()}
-        ids, offsets = self._compact_ids()
-        return {"ids": cast(ids), "offsets": offsets, "doc_id": self.columns["doc_id"].tolist()}
+        batch: Batch = {}
+        if self.lists is not None:
+            values, offsets = self.lists.compact()
+            batch = {self.lists.name: cast(values), "offsets": offsets}
+        for name, value in self.columns.items():
+            batch[name] = value.tolist() if value.dtype == object else cast(value)
+        return batch
 
 
 def to_numpy(kind: str, table: pa.Table, dtype: np.dtype | None = None) -> Batch:

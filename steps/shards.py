@@ -32,6 +32,7 @@ import hashlib
 from collections.abc import Iterator
 from dataclasses import dataclass
 from pathlib import Path
+from typing import Any
 
 import numpy as np
 import pyarrow as pa
@@ -83,15 +84,12 @@ ID_COUNTS_SCHEMA = pa.schema([("split", pa.string()), ("id", pa.int64()), ("coun
 
 @dataclass
 class Rows:
-    """The rows of every enabled kind cut from one batch of documents (numpy arrays), and each
-    row's stream position by kind (steps.formats, provenance)."""
+    """The rows of every kind cut from one batch of documents: per kind, its columns named as in
+    steps.formats.shard_schema (a fixed_size_list column a 2-D array, an integer column a 1-D
+    array, a string column a list of str, a variable-length list column its values and lengths),
+    and each row's stream position (steps.formats, provenance)."""
 
-    context: np.ndarray
-    target: np.ndarray
-    blocks: np.ndarray
-    doc_ids: list[str]
-    streams: np.ndarray
-    stream_lengths: np.ndarray
+    columns: dict[str, dict[str, Any]]
     positions: dict[str, np.ndarray]
 
 
@@ -137,12 +135,17 @@ class RowCutter:
             block_positions = base + document_block_starts(doc_lengths, length, stride, remainder)
             self.block_ids += document_block_coverage(doc_lengths, length, stride, remainder)
         self.stream_ids += len(stream)
+        columns: dict[str, dict[str, Any]] = {
+            "ngram": {"context": context, "target": target},
+            "block": {"ids": blocks},
+            "stream": {"doc_id": doc_ids, "ids": (stream, doc_lengths)},
+        }
         positions = {
             "ngram": targets if order is None else targets[order],
             "block": block_positions,
             "stream": base + np.cumsum(doc_lengths) - doc_lengths,
         }
-        return Rows(context, target, blocks, doc_ids, stream, doc_lengths, positions)
+        return Rows(columns, positions)
 
     def _corpus_block_positions(self, count: int) -> np.ndarray:
         """Blocks over the joined documents start every `stride` ids from the first."""
@@ -163,24 +166,22 @@ class RowCutter:
         return self.corpus_blocks.covered if self.corpus_blocks is not None else self.block_ids
 
 
-def _fixed(values: np.ndarray, width: int, ids: pa.DataType) -> pa.Array:
-    flat = pa.array(np.ascontiguousarray(values).reshape(-1), type=ids)
-    return pa.FixedSizeListArray.from_arrays(flat, width)
+def _column(values: Any, kind: pa.DataType) -> pa.Array:
+    """One shard column as Arrow, by its type in the kind's schema (see Rows)."""
+    if pa.types.is_fixed_size_list(kind):
+        flat = pa.array(np.ascontiguousarray(values).reshape(-1), type=kind.value_type)
+        return pa.FixedSizeListArray.from_arrays(flat, values.shape[1])
+    if pa.types.is_list(kind):
+        ids, lengths = values
+        offsets = np.concatenate([[0], np.cumsum(lengths)]).astype(np.int64)
+        return pa.LargeListArray.from_arrays(offsets, pa.array(ids, type=kind.value_type)).cast(kind)
+    return pa.array(values, type=kind)
 
 
 def kind_table(kind: str, rows: Rows, schema: pa.Schema) -> pa.Table:
-    """An Arrow table of one kind's rows."""
-    ids = schema.field("target" if kind == "ngram" else "ids").type
-    ids = ids.value_type if pa.types.is_list(ids) or pa.types.is_fixed_size_list(ids) else ids
-    if kind == "ngram":
-        columns = [_fixed(rows.context, rows.context.shape[1], ids), pa.array(rows.target, type=ids)]
-    elif kind == "block":
-        columns = [_fixed(rows.blocks, rows.blocks.shape[1], ids)]
-    else:
-        offsets = np.concatenate([[0], np.cumsum(rows.stream_lengths)]).astype(np.int64)
-        values = pa.array(rows.streams, type=ids)
-        columns = [pa.array(rows.doc_ids, pa.string()), pa.LargeListArray.from_arrays(offsets, values).cast(pa.list_(ids))]
-    return pa.Table.from_arrays(columns, schema=schema)
+    """An Arrow table of one kind's rows, its columns made by the schema's types."""
+    columns = rows.columns[kind]
+    return pa.Table.from_arrays([_column(columns[field.name], field.type) for field in schema], schema=schema)
 
 
 class RowGroups:
@@ -264,15 +265,16 @@ def write_chunk(layout: Layout, chunk: str, removed: pa.Table, encoder: Encoder,
                 counts[split] += id_counts(nested, vocabulary.size)
                 cut = cutter.cut(nested, rows["doc_id"].to_pylist(), shuffle=rng)
                 if rng is not None:
-                    order = rng.permutation(len(cut.blocks))
-                    cut.blocks, cut.positions["block"] = cut.blocks[order], cut.positions["block"][order]
+                    blocks = cut.columns["block"]
+                    order = rng.permutation(len(blocks["ids"]))
+                    blocks["ids"], cut.positions["block"] = blocks["ids"][order], cut.positions["block"][order]
                 documents.add(rows, nested, cut.positions["stream"])
                 for kind in kinds:
                     writers[kind].write(kind_table(kind, cut, schemas[kind]))
                     origins[kind].add(cut.positions[kind])
             if "block" in kinds:
                 last, position = cutter.last_blocks()
-                tail = Rows(np.empty((0, 1)), np.empty(0), last, [], np.empty(0), np.empty(0, np.int64), {"block": position})
+                tail = Rows({"block": {"ids": last}}, {"block": position})
                 writers["block"].write(kind_table("block", tail, schemas["block"]))
                 origins["block"].add(position)
             for kind_writer in writers.values():

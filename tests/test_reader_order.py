@@ -11,6 +11,7 @@ from __future__ import annotations
 
 import hashlib
 import json
+from collections.abc import Iterator
 from pathlib import Path
 
 import numpy as np
@@ -18,16 +19,27 @@ import pyarrow as pa
 import pyarrow.parquet as pq
 import pytest
 
-from corpusmill.formats import read_vocabulary
-from corpusmill.reader import open_build, to_numpy
+from corpusmill import reader
+from corpusmill.formats import KINDS, read_vocabulary
+from corpusmill.reader import BuildError, open_build, to_numpy
 
 LENGTH = 3  # block rows hold LENGTH + 1 ids
+# Made-up kinds the reader has no code for, which it must read by their columns alone: fixed
+# rows around an integer, and rows of one variable-length list without doc ids.
+NEW_KIND, LIST_KIND = "skipgram", "sequence"
 VOCABULARY = "id\ttoken\tcount\tkind\n0\t<pad>\t0\treserved\n1\t<unk>\t0\treserved\n2\t<s>\t0\treserved\n3\t</s>\t0\treserved\n"
 
 
 def numbered_table(kind: str, numbers: np.ndarray) -> pa.Table:
     """Rows carrying their number: ngram context (i, i, i) and target i; block ids i, i+1, …;
-    stream doc_id "d<i>" with 1 + i % 4 ids, each i (streams of unequal lengths)."""
+    stream doc_id "d<i>" with 1 + i % 4 ids, each i (streams of unequal lengths); NEW_KIND, a
+    kind the reader has no code for, written as steps.formats writes ids (fixed_size_list and
+    integer columns): before (i, i), center i, after (i+1, i+2, i+3); LIST_KIND, another, the
+    stream's ids alone."""
+    if kind == NEW_KIND:
+        before = pa.FixedSizeListArray.from_arrays(pa.array(np.repeat(numbers, 2)), 2)
+        after = pa.FixedSizeListArray.from_arrays(pa.array((numbers[:, None] + np.arange(1, 4, dtype=np.uint32)).reshape(-1)), 3)
+        return pa.table({"before": before, "center": pa.array(numbers), "after": after})
     if kind == "ngram":
         context = pa.FixedSizeListArray.from_arrays(pa.array(np.repeat(numbers, 3)), 3)
         return pa.table({"context": context, "target": pa.array(numbers)})
@@ -35,6 +47,8 @@ def numbered_table(kind: str, numbers: np.ndarray) -> pa.Table:
         ids = (numbers[:, None] + np.arange(LENGTH + 1, dtype=np.uint32)).reshape(-1)
         return pa.table({"ids": pa.FixedSizeListArray.from_arrays(pa.array(ids), LENGTH + 1)})
     lists = [[int(i)] * (1 + int(i) % 4) for i in numbers]
+    if kind == LIST_KIND:
+        return pa.table({"ids": pa.array(lists, pa.list_(pa.uint32()))})
     return pa.table({"doc_id": pa.array([f"d{i}" for i in numbers]), "ids": pa.array(lists, pa.list_(pa.uint32()))})
 
 
@@ -50,7 +64,7 @@ def write_numbered_build(root: Path, kind: str, group_sizes: list[list[int]]) ->
     for index, sizes in enumerate(group_sizes):
         chunk = f"{index:04d}"
         info = {"split": "train", "kind": kind, "chunk": chunk, "ids_sha256": ids, "vocabulary_size": 4, "reserved": reserved}
-        info |= {"ngram": {"n": 4, "predict_end": True}, "block": {"length": LENGTH}, "stream": {}}[kind]
+        info |= {"ngram": {"n": 4, "predict_end": True}, "block": {"length": LENGTH}, "stream": {}, NEW_KIND: {}, LIST_KIND: {}}[kind]
         name = f"shards/train/{kind}-{chunk}.parquet"
         schema = numbered_table(kind, np.zeros(1, np.uint32)).schema.with_metadata({b"corpusmill": json.dumps(info).encode()})
         with pq.ParquetWriter(root / name, schema) as writer:
@@ -78,9 +92,14 @@ def numbers_of(kind: str, batch: dict) -> list[int]:
         ids = batch["ids"]
         assert (ids == ids[:, :1] + np.arange(LENGTH + 1)).all()
         return ids[:, 0].tolist()
+    if kind == NEW_KIND:
+        center = batch["center"]
+        assert (batch["before"] == center[:, None]).all() and (batch["after"] == center[:, None] + np.arange(1, 4)).all()
+        return center.tolist()
     offsets = batch["offsets"]
-    assert offsets[0] == 0 and offsets[-1] == len(batch["ids"]) and len(offsets) == len(batch["doc_id"]) + 1
-    numbers = [int(doc[1:]) for doc in batch["doc_id"]]
+    assert offsets[0] == 0 and offsets[-1] == len(batch["ids"])
+    numbers = batch["ids"][offsets[:-1]].tolist() if kind == LIST_KIND else [int(doc[1:]) for doc in batch["doc_id"]]
+    assert len(offsets) == len(numbers) + 1
     for i, number in enumerate(numbers):
         assert batch["ids"][offsets[i] : offsets[i + 1]].tolist() == [number] * (1 + number % 4)
     return numbers
@@ -120,10 +139,14 @@ def reference_order(group_sizes: list[list[int]], seed: int | None, epoch: int, 
 GROUPS = [[7, 13, 1], [20], [5, 5, 5, 9], [11, 2]]
 
 
-@pytest.fixture(scope="module", params=["ngram", "block", "stream"])
-def numbered(request: pytest.FixtureRequest, tmp_path_factory: pytest.TempPathFactory) -> tuple[str, Path]:
+@pytest.fixture(scope="module", params=["ngram", "block", "stream", NEW_KIND, LIST_KIND])
+def numbered(request: pytest.FixtureRequest, tmp_path_factory: pytest.TempPathFactory) -> Iterator[tuple[str, Path]]:
+    """A numbered build of each kind; the made-up kinds' names are added where
+    steps.formats.KINDS is read (the manifest check), as adding them to KINDS would."""
     kind = request.param
-    return kind, write_numbered_build(tmp_path_factory.mktemp(f"numbered-{kind}"), kind, GROUPS)
+    with pytest.MonkeyPatch.context() as patch:
+        patch.setitem(reader.SHARD_FIELDS, "kind", (*KINDS, NEW_KIND, LIST_KIND))
+        yield kind, write_numbered_build(tmp_path_factory.mktemp(f"numbered-{kind}"), kind, GROUPS)
 
 
 @pytest.mark.parametrize(
@@ -301,3 +324,38 @@ def test_to_numpy_reads_every_chunk_of_a_table(numbered) -> None:
     joined = pa.concat_tables([table.slice(0, 5), table.slice(5, 3), table.slice(8)])
     assert joined.column(0).num_chunks > 1
     assert numbers_of(kind, to_numpy(kind, joined)) == list(range(21))
+
+
+def test_a_kind_new_to_the_reader_is_read_by_its_columns(tmp_path: Path, monkeypatch: pytest.MonkeyPatch) -> None:
+    """Adding a kind needs no reader code: a made-up kind with fixed_size_list columns of widths 2
+    and 3 around an integer column reads as [B, 2], [B] and [B, 3] arrays in the shards' type, in
+    the schema's column order, views of Arrow's buffers (addresses compared) inside one row
+    group (the module docstring). The order, worker and dtype tests above run on it too (the `numbered` fixture)."""
+    monkeypatch.setitem(reader.SHARD_FIELDS, "kind", (*KINDS, NEW_KIND))
+    build = open_build(write_numbered_build(tmp_path, NEW_KIND, [[10, 10]]))
+    batches = list(build.batches("train", NEW_KIND, 5))
+    assert [list(batch) for batch in batches] == [["before", "center", "after"]] * 4
+    assert [(b["before"].shape, b["center"].shape, b["after"].shape) for b in batches] == [((5, 2), (5,), (5, 3))] * 4
+    assert {value.dtype for batch in batches for value in batch.values()} == {np.dtype(np.uint32)}
+    assert [n for batch in batches for n in numbers_of(NEW_KIND, batch)] == list(range(20))
+    assert not any(value.flags.owndata for batch in batches for value in batch.values())
+    table = numbered_table(NEW_KIND, np.arange(20, dtype=np.uint32)).slice(5, 10)
+    for name, value in to_numpy(NEW_KIND, table).items():
+        column = table.column(name).chunk(0)
+        values = column.flatten() if pa.types.is_fixed_size_list(column.type) else column
+        assert value.__array_interface__["data"][0] == values.buffers()[1].address + values.offset * 4, name
+
+
+def test_a_column_the_reader_cannot_read_is_named_with_its_kind(tmp_path: Path, monkeypatch: pytest.MonkeyPatch) -> None:
+    """The reader reads fixed-size lists, integers, strings and one variable-length list per
+    kind; any other column (a float column in a build's shard, a second variable-length list)
+    is refused by name rather than read wrongly."""
+    monkeypatch.setitem(reader.SHARD_FIELDS, "kind", (*KINDS, NEW_KIND))
+    build = write_numbered_build(tmp_path, NEW_KIND, [[3]])
+    path = build / "shards" / "train" / f"{NEW_KIND}-0000.parquet"
+    pq.write_table(pq.read_table(path).append_column("weight", pa.array([0.5, 1.5, 2.5])), path)
+    with pytest.raises(BuildError, match=f"^{NEW_KIND} shards: column 'weight' is double; the reader reads fixed-size lists"):
+        next(open_build(build).batches("train", NEW_KIND, 2))
+    lists = pa.array([[1, 2], [3]], pa.list_(pa.uint32()))
+    with pytest.raises(BuildError, match=f"^{LIST_KIND} shards: column 'more' is list<item: uint32>; "):
+        to_numpy(LIST_KIND, pa.table({"ids": lists, "more": lists}))

@@ -17,6 +17,7 @@ import pytest
 from conftest import run_workflow, scenario
 from corpusmill.encoder import WordEncoder
 from corpusmill.formats import Figures, ShardStats, Vocabulary, read_shard_stats, read_vocabulary
+from corpusmill.shards import Rows, kind_table
 from corpusmill.split import doc_hash, order_keys
 from corpusmill.vocabulary import unknown_class
 
@@ -180,3 +181,24 @@ def test_every_shard_file_is_recorded_with_its_rows_bytes_and_sha256(chunked_bui
             assert entry["sha256"] == hashlib.sha256(path.read_bytes()).hexdigest()
         for kind, rows in figures["rows"].items():
             assert rows == sum(e["rows"] for e in entries if e["kind"] == kind)
+
+
+def test_a_kind_new_to_the_shard_writer_is_written_by_its_schema() -> None:
+    """kind_table has no code per kind: a made-up kind's columns, given as Rows describes them (a
+    2-D array, a 1-D array, a list of str, values and lengths), become the fixed_size_list,
+    integer, string and variable-length list columns its schema names; pyarrow's to_pylist
+    reads them back row by row."""
+    schema = pa.schema([("before", pa.list_(pa.uint16(), 2)), ("center", pa.uint16()), ("name", pa.string()), ("after", pa.list_(pa.uint16()))])
+    columns = {
+        "before": np.array([[1, 2], [3, 4], [5, 6]]),
+        "center": np.array([7, 8, 9]),
+        "name": ["a", "b", "c"],
+        "after": (np.arange(6), np.array([2, 0, 4])),
+    }
+    table = kind_table("skipgram", Rows({"skipgram": columns}, {}), schema)
+    assert table.schema == schema
+    assert table.to_pylist() == [
+        {"before": [1, 2], "center": 7, "name": "a", "after": [0, 1]},
+        {"before": [3, 4], "center": 8, "name": "b", "after": []},
+        {"before": [5, 6], "center": 9, "name": "c", "after": [2, 3, 4, 5]},
+    ]
