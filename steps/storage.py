@@ -49,7 +49,7 @@ class ParquetSink:
         *,
         compression: str = "zstd",
         level: int | None = 3,
-        dictionary: bool = True,
+        dictionary: bool | list[str] = True,
         encodings: dict[str, str] | None = None,
     ) -> None:
         self._target = Path(path)
