@@ -31,34 +31,18 @@ import tempfile
 import time
 from pathlib import Path
 
-import yaml
-
 REPO = Path(__file__).resolve().parent.parent
 sys.path.insert(0, str(REPO))
 sys.path.insert(0, str(REPO / "bench"))
 
-from corpusmill.ingest import find_inputs, plan_chunks  # noqa: E402
+from corpusmill.ingest import plan_chunks, survey_corpus  # noqa: E402
 from corpusmill.prepare import prepare_chunk  # noqa: E402
-from pipeline import DATA, RESULTS, default_config, write_corpus  # noqa: E402
+from pipeline import DATA, RESULTS, default_config, workflow_command, write_corpus  # noqa: E402
 
 
 def snakemake(directory: Path, overrides: dict, *extra: str) -> tuple[float, float, str]:
     """Run Snakemake in `directory`; returns (wall seconds, CPU seconds of the tree, output)."""
-    directory.mkdir(parents=True, exist_ok=True)
-    override = directory / "override.yaml"
-    override.write_text(yaml.safe_dump(overrides), encoding="utf-8")
-    command = [
-        sys.executable,
-        "-m",
-        "snakemake",
-        "--snakefile",
-        str(REPO / "Snakefile"),
-        "--directory",
-        str(directory),
-        "--configfile",
-        str(override),
-        *extra,
-    ]
+    command = workflow_command(directory, overrides, *extra)
     before = resource.getrusage(resource.RUSAGE_CHILDREN)
     started = time.perf_counter()
     result = subprocess.run(command, capture_output=True, text=True)
@@ -93,18 +77,23 @@ def startup_seconds(repeats: int = 5) -> float:
     times = []
     for _ in range(repeats):
         started = time.perf_counter()
-        subprocess.run([sys.executable, "-m", "steps.prepare", "--help"], capture_output=True, check=True, env={**os.environ, "PYTHONPATH": str(REPO)})
+        subprocess.run([sys.executable, "-m", "steps.run", "prepare", "--help"], capture_output=True, check=True, env={**os.environ, "PYTHONPATH": str(REPO)})
         times.append(time.perf_counter() - started)
     return statistics.median(times)
 
 
 def in_process_work(root: Path, chunk_bytes: int, config: dict) -> tuple[float, float, int]:
-    """Wall and CPU seconds of preparing every chunk in this one process."""
-    chunks = plan_chunks(root, find_inputs(root, ["*.txt"], []), chunk_bytes, config["corpus"]["text_unit"])
+    """Wall and CPU seconds of preparing every chunk in this one process, with every file a
+    prepare job writes (table, tally, counts, drops, signatures)."""
+    chunks = plan_chunks(root, survey_corpus(root, ["*.txt"], []).sources, chunk_bytes, config["corpus"]["text_unit"])
     with tempfile.TemporaryDirectory() as scratch:
         started, cpu = time.perf_counter(), time.process_time()
         for chunk in chunks:
-            prepare_chunk(str(root), chunk, chunk_bytes, config, f"{scratch}/{chunk.key}.parquet", f"{scratch}/{chunk.key}.json", frozenset())
+            stem = f"{scratch}/{chunk.key}"
+            prepare_chunk(
+                str(root), chunk, chunk_bytes, config, f"{stem}.parquet", f"{stem}.json", frozenset(),
+                f"{stem}.counts.parquet", f"{stem}.drops.parquet", (f"{stem}.signatures.parquet", f"{stem}.slots"),
+            )  # fmt: skip
         return time.perf_counter() - started, time.process_time() - cpu, len(chunks)
 
 

@@ -192,24 +192,18 @@ class JobSampler:
         return dict(sorted(rules.items()))
 
 
-def run_build(directory: Path, overrides: dict, cores: int) -> dict:
-    """Run the workflow once; returns wall seconds, per-rule memory and the jobs Snakemake ran."""
+def workflow_command(directory: Path, overrides: dict, *extra: str) -> list[str]:
+    """The Snakemake command that runs the workflow in `directory` with `overrides` (written
+    beside it as override.yaml) and `extra` options."""
     directory.mkdir(parents=True, exist_ok=True)
     override = directory / "override.yaml"
     override.write_text(yaml.safe_dump(overrides), encoding="utf-8")
-    command = [
-        sys.executable,
-        "-m",
-        "snakemake",
-        "--snakefile",
-        str(REPO / "Snakefile"),
-        "--directory",
-        str(directory),
-        "--cores",
-        str(cores),
-        "--configfile",
-        str(override),
-    ]
+    return [sys.executable, "-m", "snakemake", "--snakefile", str(REPO / "Snakefile"), "--directory", str(directory), "--configfile", str(override), *extra]
+
+
+def run_build(directory: Path, overrides: dict, cores: int) -> dict:
+    """Run the workflow once; returns wall seconds, per-rule memory and the jobs Snakemake ran."""
+    command = workflow_command(directory, overrides, "--cores", str(cores))
     load = os.getloadavg()[0]
     before = resource.getrusage(resource.RUSAGE_CHILDREN)
     started = time.perf_counter()
