@@ -27,6 +27,7 @@ import re
 import stat
 from dataclasses import dataclass
 from pathlib import Path
+from typing import cast
 
 from . import ingest
 from .formats import VOCABULARY_HEADER, enabled_kinds
@@ -108,12 +109,15 @@ def import_closure(module: str) -> list[str]:
     return sorted(seen)
 
 
-def sections_of(module: str) -> tuple[str, ...] | str | dict[str, tuple[str, ...]]:
+Sections = tuple[str, ...] | str | dict[str, tuple[str, ...]]
+
+
+def sections_of(module: str) -> Sections:
     """The configuration sections a step module declares it reads (its SECTIONS: for a module
     whose entries read different options, a dict by rule), read from its source, so the
     workflow process imports no step module's dependencies."""
     try:
-        return _top_level_constant(module, "SECTIONS")  # type: ignore[return-value]
+        return cast(Sections, _top_level_constant(module, "SECTIONS"))
     except KeyError:
         raise KeyError(f"steps/{module}.py declares no SECTIONS") from None
 
