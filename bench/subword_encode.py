@@ -1,9 +1,12 @@
 """Subword encoding throughput: the pipeline's encoder against sentencepiece's own batched encode.
 
 Both encode the same sentences (about 20 MB of dictionary text from Debian's dict-gcide) with
-the same model and thread count, in the same batches the encode step uses (4096 documents),
-best of several interleaved rounds. The pipeline's figure includes everything it does beyond
-sentencepiece: reading the strings out of Arrow and building the nested Arrow id lists.
+the same model and thread count, in batches of about the shard job's budget of text, best of
+several interleaved rounds. The pipeline's encoder is called as the shard job calls it: on a
+table of prepared rows (`source`, `sentences`), with the ids of the model built as the
+vocabulary job builds them, adding its figures to a ShardStats. Its figure therefore includes
+everything it does beyond sentencepiece: reading the strings out of Arrow, building the nested
+Arrow id lists and counting words, unknown and byte pieces per input file.
 
     python bench/subword_encode.py [--mb 20] [--threads 2] [--rounds 3]
 """
@@ -22,12 +25,15 @@ import pyarrow as pa
 import sentencepiece as spm
 
 sys.path.insert(0, str(Path(__file__).resolve().parent.parent))
-from corpusmill.encode import PieceEncoder
+from corpusmill.encoder import PieceEncoder
+from corpusmill.formats import ShardStats
+from corpusmill.shards import BATCH_BYTES
 from corpusmill.subword import train_model
+from corpusmill.vocabulary import model_vocabulary
 
 GCIDE = Path("/usr/share/dictd/gcide.dict.dz")
 SENTENCES_PER_DOCUMENT = 8
-DOCUMENTS_PER_BATCH = 4096
+SPLIT = "train"
 
 
 def read_sentences(path: Path, megabytes: float) -> list[str]:
@@ -44,10 +50,18 @@ def read_sentences(path: Path, megabytes: float) -> list[str]:
     return sentences
 
 
-def batches(sentences: list[str]) -> list[pa.Array]:
-    """list<string> document columns of DOCUMENTS_PER_BATCH documents each, as the encode step reads them."""
+def batches(sentences: list[str], source: str) -> list[pa.Table]:
+    """Prepared rows of SENTENCES_PER_DOCUMENT sentences each, the columns the encoder reads, in
+    tables of about BATCH_BYTES of text (the shard job bounds its batches by stored bytes)."""
     documents = [sentences[i : i + SENTENCES_PER_DOCUMENT] for i in range(0, len(sentences), SENTENCES_PER_DOCUMENT)]
-    return [pa.array(documents[i : i + DOCUMENTS_PER_BATCH], pa.list_(pa.string())) for i in range(0, len(documents), DOCUMENTS_PER_BATCH)]
+    tables, start, held = [], 0, 0
+    for end, document in enumerate(documents, start=1):
+        held += sum(len(s.encode("utf-8")) for s in document)
+        if held >= BATCH_BYTES or end == len(documents):
+            rows = documents[start:end]
+            tables.append(pa.table({"source": pa.array([source] * len(rows), pa.string()), "sentences": pa.array(rows, pa.list_(pa.string()))}))
+            start, held = end, 0
+    return tables
 
 
 def main() -> None:
@@ -63,21 +77,29 @@ def main() -> None:
     megabytes = sum(len(s.encode("utf-8")) for s in sentences) / 1e6
     settings = {"model_type": "unigram", "vocab_size": args.vocab_size, "character_coverage": 0.9995, "byte_fallback": True, "seed": 17}
     started = time.perf_counter()
-    model = train_model(iter(sentences[::20]), settings, args.threads)
+    try:
+        model = train_model(iter(sentences[::20]), settings, args.threads)
+    except RuntimeError as error:
+        raise SystemExit(
+            f"sentencepiece could not learn {args.vocab_size} pieces from 5% of {megabytes:.1f} MB: {error}; lower --vocab-size or raise --mb"
+        ) from None
     training = time.perf_counter() - started
     with tempfile.TemporaryDirectory() as folder:
         path = Path(folder) / "bench.model"
         path.write_bytes(model)
-        encoder = PieceEncoder(str(path), args.threads)
+        encoder = PieceEncoder(str(path), model_vocabulary(str(path)), args.threads)
         reference = spm.SentencePieceProcessor(model_file=str(path))
-        columns = batches(sentences)
-        texts = [column.flatten().to_pylist() for column in columns]
+        tables = batches(sentences, GCIDE.name)
+        texts = [table["sentences"].combine_chunks().flatten().to_pylist() for table in tables]
         best = {"pipeline": float("inf"), "sentencepiece": float("inf")}
         pieces = 0
         for _ in range(args.rounds):
+            stats = ShardStats("bench")
             started = time.perf_counter()
-            pieces = sum(len(encoder.encode(column).flatten().flatten()) for column in columns)
+            for rows in tables:
+                encoder.encode(rows, SPLIT, stats)
             best["pipeline"] = min(best["pipeline"], time.perf_counter() - started)
+            pieces = stats.figures(GCIDE.name, SPLIT).tokens
             started = time.perf_counter()
             for batch in texts:
                 reference.encode(batch, num_threads=args.threads)
