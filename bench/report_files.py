@@ -1,10 +1,10 @@
 """Peak memory and page size of the report job as the number of input files grows.
 
-Builds the demo corpus once per unit (word, and subword with 500 ids), then gives the report step
-statistics for N input files: coverage.json's `sources` (word units) or one encode-statistics file
-per 1,000 input files (subword units), each file with a long path and its own OOV or byte counts.
-Runs the report rule's command (`python -m steps.run report_page …`) under `/usr/bin/time` and
-records its peak resident memory, wall time, the page's bytes and its largest image in pixels.
+Builds the demo corpus once per unit (word, and subword with 500 ids), then copies the files the
+report step reads from that build into a build folder of its own whose coverage.json's `sources`
+hold N input files, each with a long path and its own OOV (word units) or byte-piece (subword
+units) counts. Runs the report rule's command (`python -m steps.run report --build DIR`) under
+`/usr/bin/time` and records its peak resident memory, wall time, the page's bytes and its largest image in pixels.
 `--code DIR` runs the step from another checkout (PYTHONPATH=DIR), to compare before and after.
 
 Usage: python bench/report_files.py [--files 100 1000 8000] [--code DIR]
@@ -18,6 +18,7 @@ import base64
 import json
 import os
 import re
+import shutil
 import struct
 import subprocess
 import sys
@@ -27,13 +28,14 @@ REPO = Path(__file__).resolve().parent.parent
 sys.path.insert(0, str(REPO))
 sys.path.insert(0, str(REPO / "bench"))
 
-from corpusmill.layout import SPLITS  # noqa: E402
-from corpusmill.plan import RULE_SECTIONS  # noqa: E402
-from pipeline import DATA, RESULTS, default_config, machine, run_build  # noqa: E402
+from corpusmill.coverage import derived  # noqa: E402
+from corpusmill.formats import Figures  # noqa: E402
+from corpusmill.layout import SPLITS, Layout  # noqa: E402
+from corpusmill.worker import ENV  # noqa: E402
+from pipeline import DATA, RESULTS, machine, run_build  # noqa: E402
 
 TIME = "/usr/bin/time"
 UNITS = {"word": {}, "subword": {"units": "subword", "subword": {"vocab_size": 500}}}
-STATS_FILES_PER = 1000
 
 
 def path_of(index: int) -> str:
@@ -41,68 +43,54 @@ def path_of(index: int) -> str:
 
 
 def word_sources(count: int) -> dict[str, dict]:
-    """coverage.json's per-file figures: 200-212 train tokens and 20 dev tokens, a few OOV."""
+    """coverage.json's per-file figures, word units: 200-212 train tokens and 20 dev tokens, a few OOV."""
     sources = {}
     for i in range(count):
         figures = {"train": (200 + i % 13, i % 97), "dev": (20, i % 5), "test": (0, 0)}
-        sources[path_of(i)] = {s: {"tokens": t, "oov_tokens": o, "oov_rate": round(o / t, 6) if t else 0.0} for s, (t, o) in figures.items()}
+        sources[path_of(i)] = {s: derived(Figures(documents=1, sentences=10, tokens=t, unknown=o, words=t)) for s, (t, o) in figures.items()}
     return sources
 
 
-def piece_sources(start: int, stop: int) -> dict[str, dict]:
-    """Encode statistics per file: 300-310 train pieces, some of them byte pieces."""
+def piece_sources(count: int) -> dict[str, dict]:
+    """coverage.json's per-file figures, subword units: 300-310 train pieces, some of them byte pieces."""
     sources = {}
-    for i in range(start, stop):
-        train = {"tokens": 300 + i % 11, "words": 150, "oov_tokens": 0, "byte_pieces": 2 * (i % 89), "byte_runs": i % 89, "documents": 1, "sentences": 10}
-        sources[path_of(i)] = {"train": train, **{s: dict.fromkeys(train, 0) for s in SPLITS if s != "train"}}
+    for i in range(count):
+        train = Figures(documents=1, sentences=10, tokens=300 + i % 11, words=150, byte_pieces=2 * (i % 89), byte_runs=i % 89)
+        sources[path_of(i)] = {"train": derived(train), **{s: derived(Figures()) for s in SPLITS if s != "train"}}
     return sources
+
+
+def report_build(build: Path, unit: str, count: int, target: Path) -> Layout:
+    """A build folder holding what the report job reads, copied from the finished `build`, with
+    coverage.json's `sources` replaced by `count` synthetic input files."""
+    source, layout = Layout(str(build)), Layout(str(target))
+    for name in ("manifest", "token_counts", "growth", "hygiene"):
+        if Path(getattr(source, name)).exists():
+            Path(getattr(layout, name)).parent.mkdir(parents=True, exist_ok=True)
+            shutil.copyfile(getattr(source, name), getattr(layout, name))
+    Path(layout.options("report")).parent.mkdir(parents=True, exist_ok=True)
+    shutil.copyfile(source.options("report"), layout.options("report"))
+    coverage = json.loads(Path(source.coverage).read_text())
+    coverage["sources"] = word_sources(count) if unit == "word" else piece_sources(count)
+    Path(layout.coverage).write_text(json.dumps(coverage))
+    return layout
 
 
 def report_job(build: Path, unit: str, count: int, code: Path, folder: Path) -> dict:
     """The report rule's command on the demo build's statistics with `count` input files."""
-    folder.mkdir(parents=True, exist_ok=True)
-    coverage = json.loads((build / "stats" / "coverage.json").read_text())
-    stats_arguments: list[str] = []
-    if unit == "word":
-        coverage["sources"] = word_sources(count)
-    else:
-        for start in range(0, count, STATS_FILES_PER):
-            path = folder / f"encode-stats-{start}.json"
-            path.write_text(json.dumps({"units": "subword", "sources": piece_sources(start, min(count, start + STATS_FILES_PER))}))
-            stats_arguments += ["--encode-stats", str(path)]
-    (folder / "coverage.json").write_text(json.dumps(coverage))
-    config = default_config()
-    options = json.dumps({k: config[k] for k in RULE_SECTIONS["report"]}, sort_keys=True)
-    page = folder / "index.html"
-    command = [
-        TIME,
-        "-f",
-        "%M %e",
-        sys.executable,
-        "-m",
-        "steps.run",
-        "report_page",
-        "--coverage",
-        str(folder / "coverage.json"),
-        "--manifest",
-        str(build / "manifest.json"),
-        "--token-counts",
-        str(build / "stats" / "token_counts.parquet"),
-        "--growth",
-        str(build / "stats" / "growth.json"),
-        *stats_arguments,
-        "--options",
-        options,
-        "--output",
-        str(page),
-    ]
+    if folder.exists():
+        shutil.rmtree(folder)
+    layout = report_build(build, unit, count, folder / "build")
+    command = [TIME, "-f", "%M %e", sys.executable, "-m", "steps.run", "report", "--build", layout.root]
     load = os.getloadavg()[0]
     # Run from the output folder: `python -m` puts the working directory first on the import path.
-    result = subprocess.run(command, capture_output=True, text=True, cwd=folder, env={**os.environ, "PYTHONPATH": str(code)})
+    # Without a worker's name in the environment the job runs in the measured process.
+    environment = {key: value for key, value in os.environ.items() if key != ENV}
+    result = subprocess.run(command, capture_output=True, text=True, cwd=folder, env={**environment, "PYTHONPATH": str(code)})
     if result.returncode != 0:
         raise SystemExit(f"bench: the report job failed:\n{result.stderr[-3000:]}")
     peak_kib, wall = result.stderr.strip().splitlines()[-1].split()
-    text = page.read_text(encoding="utf-8")
+    text = Path(layout.report).read_text(encoding="utf-8")
     pixels = [struct.unpack(">II", base64.b64decode(e)[16:24]) for e in re.findall(r"data:image/png;base64,([A-Za-z0-9+/=]+)", text)]
     width, height = max(pixels, key=lambda size: size[0] * size[1])
     return {
