@@ -7,7 +7,7 @@ needs no network and its bytes are the same on every run.
 
 Subword mode (coverage.json has `units: subword`) shows what applies to a piece model instead:
 pieces per word and per sentence, the <unk> rate with and without byte fallback (by split and by
-input file, from the encode statistics), the rank-frequency law of the pieces, and vocabulary
+input file, from the coverage statistics), the rank-frequency law of the pieces, and vocabulary
 growth measured in whitespace-separated words (see steps/growth.py).
 
 No text from the corpus is drawn into a plot: file names and words go into HTML tables, plots
@@ -61,7 +61,7 @@ figure{margin:1rem 0} figure img{max-width:100%;height:auto;border:1px solid #ea
 DASH = "—"
 # Input files shown per file in the chart and in the table: those with the most out-of-vocabulary
 # (or would-be <unk>) tokens. Bounds the page and the report job's memory whatever the number of
-# files; coverage.json and the encode statistics keep every file.
+# files; coverage.json keeps every file.
 CHART_FILES = 20
 TABLE_FILES = 100
 
