@@ -87,18 +87,20 @@ class CorpusRows:
 
     def locate(self, rows: np.ndarray) -> pa.Table:
         """(source, offset, doc_id) of the given rows, in the order given (Arrow columns, no
-        Python objects per row)."""
+        Python objects per row; one chunk of rows per corpus chunk when `rows` ascend, which
+        spares a copy of them all)."""
         rows = np.asarray(rows, dtype=np.int64)
-        order = np.argsort(rows, kind="stable")
-        ordered = rows[order]
+        ascending = bool(np.all(rows[1:] >= rows[:-1]))
+        order = None if ascending else np.argsort(rows, kind="stable")
+        ordered = rows if order is None else rows[order]
         chunk_of = np.searchsorted(self.starts, ordered, side="right") - 1
         parts = [DUPLICATES_SCHEMA.empty_table().select(["source", "offset", "doc_id"])]
         for chunk in np.unique(chunk_of):
             table = pq.ParquetFile(self.paths[chunk]).read(columns=["source", "offset", "doc_id"], use_threads=False)
             local = ordered[chunk_of == chunk] - self.starts[chunk]
             parts.append(table.take(pa.array(corpus_order(table)[local])))
-        found = pa.concat_tables(parts).combine_chunks()
-        return found.take(pa.array(np.argsort(order, kind="stable")))
+        found = pa.concat_tables(parts)
+        return found if order is None else found.take(pa.array(np.argsort(order, kind="stable")))
 
 
 def first_occurrences(words: np.ndarray) -> tuple[np.ndarray, np.ndarray]:

@@ -31,6 +31,7 @@ from __future__ import annotations
 
 import argparse
 import json
+import mmap
 import os
 import sys
 from collections.abc import Callable, Iterator
@@ -46,7 +47,7 @@ from . import contamination as audit
 from . import near_duplicates as nd
 from .layout import SPLITS, Layout
 from .signatures import band_count, band_names
-from .storage import write_json, write_table
+from .storage import ParquetSink, write_json, write_table
 
 REASONS = ("near_duplicate", "near_duplicate_other_split", "contaminated")
 POLICY_REASON = {"drop": "near_duplicate", "same_split": "near_duplicate_other_split"}
@@ -57,15 +58,36 @@ LISTED = 100
 # documents' grams are read at once.
 GRAM_ROWS = 1 << 14
 
+# Rows of stats/near_duplicates.parquet built and written at once: one row group, Parquet's
+# default size.
+CLUSTER_ROWS = 1 << 20
+
 DROPS_SCHEMA = pa.schema([("source", pa.string()), ("offset", pa.int64()), ("doc_id", pa.string()), ("reason", pa.string())])
 CLUSTERS_SCHEMA = pa.schema(
     [("cluster", pa.int64()), ("chunk", pa.string()), ("source", pa.string()), ("offset", pa.int64()), ("doc_id", pa.string()),
      ("split", pa.string()), ("anchor", pa.bool_()), ("kept", pa.bool_()), ("reason", pa.string())]
 )  # fmt: skip
+# Bytes of file pages (the verification slots, mapped) a job keeps resident: past this many,
+# the maps drop their pages, which stay in the page cache, so the job's resident memory does
+# not grow with the corpus.
+SLOT_PAGES = 128 << 20
+# Bytes of a file a page fault may map around the page it needs (Linux's default fault-around).
+FAULT_AROUND = 64 << 10
+
 CONTAMINATION_SCHEMA = pa.schema(
     [("chunk", pa.string()), ("source", pa.string()), ("offset", pa.int64()), ("doc_id", pa.string()), ("split", pa.string()),
      ("grams", pa.int64()), ("shared", pa.int64()), ("share", pa.float64()), ("dropped", pa.bool_())]
 )  # fmt: skip
+
+
+def _file_pages() -> int:
+    """Bytes of this process's resident file-backed (and shared) pages, from Linux's
+    /proc/self/statm; 0 elsewhere, where the slot maps are left to the system."""
+    try:
+        with open("/proc/self/statm", "rb") as statm:
+            return int(statm.read().split()[2]) * mmap.PAGESIZE
+    except OSError:
+        return 0
 
 
 class CorpusSignatures:
@@ -87,14 +109,18 @@ class CorpusSignatures:
         self.starts = np.cumsum([0, *map(len, self.orders)])
         self.splits = np.concatenate(splits) if splits else np.zeros(0, np.uint8)
         self.permutations = 0
+        self.maps: list[mmap.mmap] = []
         self.slots: list[np.ndarray] = []
+        self.unmapped = _file_pages()  # resident file pages before any slot page
         for (_, slots_path), order in zip(paths, self.orders):
             size = os.path.getsize(slots_path)
-            if len(order):
+            if len(order) and size:
                 self.permutations = size // (2 * len(order))
-                self.slots.append(np.memmap(slots_path, dtype="<u2", mode="r", shape=(len(order), self.permutations)))
+                with open(slots_path, "rb") as handle:
+                    self.maps.append(mmap.mmap(handle.fileno(), 0, access=mmap.ACCESS_READ))
+                self.slots.append(np.frombuffer(self.maps[-1], dtype="<u2").reshape(len(order), self.permutations))
             else:
-                self.slots.append(np.zeros((0, 0), np.uint16))
+                self.slots.append(np.zeros((0, self.permutations), np.uint16))
 
     def __len__(self) -> int:
         return int(self.starts[-1])
@@ -117,14 +143,28 @@ class CorpusSignatures:
         return np.concatenate(found) if found else np.zeros(0, np.uint64)
 
     def slots_of(self, rows: np.ndarray) -> np.ndarray:
-        """The verification slots of the given rows."""
+        """The verification slots of the given rows, chunk by chunk, keeping the maps' resident
+        pages near SLOT_PAGES (a row read can map FAULT_AROUND bytes of its file)."""
         result = np.empty((len(rows), self.permutations), np.uint16)
         chunks = self.chunk_of(rows)
-        for chunk in np.unique(chunks):
-            mine = chunks == chunk
-            local = self.orders[chunk][rows[mine] - self.starts[chunk]]
-            result[mine] = self.slots[chunk][local]
+        by_chunk = np.argsort(chunks, kind="stable")
+        bounds = np.searchsorted(chunks[by_chunk], np.arange(len(self.orders) + 1))
+        fetched = 0
+        for chunk in np.flatnonzero(np.diff(bounds)):
+            picked = by_chunk[bounds[chunk] : bounds[chunk + 1]]
+            result[picked] = self.slots[chunk][self.orders[chunk][rows[picked] - self.starts[chunk]]]
+            fetched += len(picked)
+            if fetched * FAULT_AROUND >= SLOT_PAGES // 2:
+                self._release_slot_pages()
+                fetched = 0
+        self._release_slot_pages()
         return result
+
+    def _release_slot_pages(self) -> None:
+        """Drop the maps' pages once the process holds SLOT_PAGES more file pages than before."""
+        if _file_pages() - self.unmapped >= SLOT_PAGES:
+            for mapped in self.maps:
+                mapped.madvise(mmap.MADV_DONTNEED)
 
     def grams(self, chunk: int, rows: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
         """(hashes, starts): the n-gram hashes of the given rows of one chunk (ascending), row i
@@ -253,7 +293,7 @@ def _contamination(signed: CorpusSignatures, removed: np.ndarray) -> tuple[np.nd
             rows = train[train_chunks == chunk]
             for low in range(0, len(rows), GRAM_ROWS):
                 values, _ = signed.grams(chunk, rows[low : low + GRAM_ROWS])
-                hits.add(values[wanted.contains(values)])
+                hits.add(wanted.common(values))
     starts = np.concatenate([[0], np.cumsum(counts)]).astype(np.int64)
     return held, counts, audit.shared_counts(grams, starts, hits.finish())
 
@@ -280,17 +320,23 @@ def write_findings(
     dirty = options["contamination"]
     keys, split_names = pa.array(chunks, pa.string()), pa.array(SPLITS)
     members = findings.members
-    located = locate(np.concatenate([members, findings.measured]))
-    placed, measured = located.slice(0, len(members)), located.slice(len(members))
+    placed, measured = locate(members), locate(findings.measured)
     cluster_ids = np.unique(findings.labels, return_inverse=True)[1] + 1
     member_split = signed.splits[members]
-    write_table(layout.clusters, pa.Table.from_arrays(
-        [pa.array(cluster_ids.astype(np.int64)), keys.take(pa.array(signed.chunk_of(members))), placed["source"],
-         placed["offset"], placed["doc_id"], split_names.take(pa.array(member_split)),
-         pa.array(members == findings.anchors), pa.array(findings.kept),
-         pa.array(["", findings.reason]).take(pa.array((~findings.kept).astype(np.int8)))],
-        schema=CLUSTERS_SCHEMA,
-    ).sort_by([("cluster", "ascending"), ("source", "ascending"), ("offset", "ascending")]))  # fmt: skip
+    # By cluster, then file and offset (rows number documents in that order, steps.deduplicate),
+    # a row group at a time.
+    by_cluster = np.lexsort((members, cluster_ids))
+    member_chunk, anchor, reasons = signed.chunk_of(members), members == findings.anchors, pa.array(["", findings.reason])
+    with ParquetSink(layout.clusters, CLUSTERS_SCHEMA) as sink:
+        for low in range(0, len(members), CLUSTER_ROWS):
+            rows = by_cluster[low : low + CLUSTER_ROWS]
+            taken = pa.array(rows)
+            sink.write(pa.Table.from_arrays(
+                [pa.array(cluster_ids[rows].astype(np.int64)), keys.take(pa.array(member_chunk[rows])), placed["source"].take(taken),
+                 placed["offset"].take(taken), placed["doc_id"].take(taken), split_names.take(pa.array(member_split[rows])),
+                 pa.array(anchor[rows]), pa.array(findings.kept[rows]), reasons.take(pa.array((~findings.kept[rows]).astype(np.int8)))],
+                schema=CLUSTERS_SCHEMA,
+            ))  # fmt: skip
     share = audit.shares(findings.shared, np.concatenate([[0], np.cumsum(findings.grams)]))
     held_split = signed.splits[findings.measured]
     contaminated = pa.Table.from_arrays(
@@ -315,7 +361,7 @@ def write_findings(
     order = np.argsort(rows, kind="stable")
     code = REASONS.index(findings.reason) if findings.reason else 0
     reasons = np.concatenate([np.full(len(near), code), np.full(len(dirty), REASONS.index("contaminated"))])[order]
-    dropped = located.take(pa.array(np.concatenate([near, len(members) + dirty])[order]))
+    dropped = pa.concat_tables([placed, measured]).take(pa.array(np.concatenate([near, len(members) + dirty])[order]))
     table = pa.Table.from_arrays([dropped["source"], dropped["offset"], dropped["doc_id"], pa.array(REASONS).take(pa.array(reasons))], schema=DROPS_SCHEMA)
     write_table(layout.hygiene_drops, table)
     return table, signed.chunk_of(rows[order])

@@ -12,6 +12,7 @@ import pyarrow as pa
 from hypothesis import given
 from hypothesis import strategies as st
 
+from corpusmill import contamination
 from corpusmill.contamination import (
     NGRAM,
     THRESHOLD,
@@ -51,7 +52,7 @@ def train_set(batches: list[pa.Array], parts: int = 1) -> list[np.ndarray]:
 
 def scored(documents: pa.Array, trains: list[np.ndarray]) -> np.ndarray:
     grams, starts = run_hashes(document_words(documents), NGRAM)
-    shared = sum(shared_counts(grams, starts, train, part, len(trains)) for part, train in enumerate(trains))
+    shared = sum(shared_counts(grams, starts, train) for train in trains)
     return shares(shared, starts)
 
 
@@ -177,3 +178,26 @@ def test_sorted_hashes_answer_membership_as_a_python_set_does(members: list[int]
     values = np.array(members + others + neighbours, dtype=np.uint64)
     expected = [int(v) in set(members) for v in values]
     assert SortedHashes(distinct).contains(values).tolist() == expected
+    assert SortedHashes(distinct).common(values).tolist() == sorted(set(members) & {int(v) for v in values})
+
+
+def test_common_values_span_lookup_blocks(monkeypatch) -> None:
+    """Outside reference: Python's set intersection, with blocks of 7 values so that repeats and
+    hits fall in different blocks."""
+    monkeypatch.setattr(contamination, "LOOKUP_BLOCK", 7)
+    rng = np.random.default_rng(11)
+    members = rng.integers(0, 2**64 - 1, 40, dtype=np.uint64)
+    values = np.concatenate([members[::3], rng.integers(0, 2**64 - 1, 30, dtype=np.uint64), members[::3]])
+    rng.shuffle(values)
+    hashes = SortedHashes(distinct_sorted(members))
+    assert hashes.common(values).tolist() == sorted({int(v) for v in members} & {int(v) for v in values})
+    assert hashes.contains(values).tolist() == [int(v) in {int(m) for m in members} for v in values]
+
+
+def test_shared_counts_give_documents_without_grams_none() -> None:
+    """Outside reference: a per-document recount with Python's set, documents 1 and 3 empty."""
+    grams = np.array([5, 9, 5, 2, 7, 9], dtype=np.uint64)
+    starts = np.array([0, 3, 3, 6, 6])
+    train = {5, 7}
+    expected = [sum(int(g) in train for g in grams[low:high]) for low, high in zip(starts[:-1], starts[1:])]
+    assert shared_counts(grams, starts, distinct_sorted(np.array(sorted(train), dtype=np.uint64))).tolist() == expected == [2, 0, 1, 0]

@@ -270,3 +270,27 @@ def test_a_chunk_with_a_file_it_could_not_read_stops_the_job_naming_it(tmp_path,
     message = str(stopped.value)
     assert message.startswith("corpusmill: 1 input file(s) cannot be read as configured") and "b.txt: invalid UTF-8 at byte offset 4" in message
     assert not Path(layout.duplicates).exists() and not any(Path(layout.removed(key)).exists() for key in keys)
+
+
+def test_located_rows_name_each_document_in_the_order_asked(tmp_path):
+    """Outside reference: a dict of corpus position → (source, offset, doc_id) built from the
+    chunk files with Python's sort by (source, offset). Rows asked ascending and shuffled."""
+    rng = random.Random(5)
+    paths, expected = [], []
+    for number in range(3):
+        rows = [(f"{number}-{name}.txt", offset) for name in "ba" for offset in rng.sample(range(1000), 7)]
+        rng.shuffle(rows)
+        write_chunk(
+            tmp_path / f"{number}.parquet",
+            {
+                "source": [source for source, _ in rows],
+                "offset": [offset for _, offset in rows],
+                "doc_id": [f"{source}:{offset}" for source, offset in rows],
+                "fingerprint": pa.array([fingerprint(f"{number}{i}") for i in range(len(rows))], pa.binary(16)),
+            },
+        )
+        paths.append(str(tmp_path / f"{number}.parquet"))
+        expected += [{"source": s, "offset": o, "doc_id": f"{s}:{o}"} for s, o in sorted(rows)]
+    corpus = CorpusRows(paths)
+    for asked in (np.arange(0, len(expected), 2), np.array(rng.sample(range(len(expected)), 20)), np.zeros(0, np.int64)):
+        assert corpus.locate(asked).to_pylist() == [expected[row] for row in asked]

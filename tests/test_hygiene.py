@@ -16,6 +16,7 @@ import subprocess
 import sys
 from pathlib import Path
 
+import numpy as np
 import pyarrow as pa
 import pyarrow.compute as pc
 import pyarrow.parquet as pq
@@ -24,7 +25,7 @@ import regex
 import yaml
 
 from conftest import REPO, require_file, run_workflow, scenario
-from corpusmill import settings
+from corpusmill import hygiene, settings
 from corpusmill.layout import Layout
 
 FORTUNES = Path("/usr/share/games/fortunes")
@@ -302,3 +303,39 @@ def test_without_deduplication_an_exact_copy_is_dropped_with_its_first_copy(drop
     assert first["cluster"] == copy["cluster"] and not first["kept"] and not copy["kept"] and copy["reason"] == "near_duplicate"
     reasons = {(r["source"], r["offset"]): r["reason"] for r in pq.read_table(build_dir / "stats" / "dropped.parquet").to_pylist()}
     assert reasons[("exact.txt", 0)] == "near_duplicate" and "duplicate" not in reasons.values()
+
+
+def test_the_cluster_file_lists_members_by_cluster_then_file_and_offset_with_their_own_ids(dropped_build) -> None:
+    """Outside references: Arrow's own sort of the file by (cluster, source, offset), and each
+    member's id read from the prepared chunk that holds it."""
+    build_dir, _ = dropped_build
+    members = pq.read_table(build_dir / "stats" / "near_duplicates.parquet")
+    assert members.num_rows > 2
+    assert members.equals(members.sort_by([("cluster", "ascending"), ("source", "ascending"), ("offset", "ascending")]))
+    layout = Layout(str(build_dir))
+    ids = {}
+    for chunk in set(members["chunk"].to_pylist()):
+        for row in pq.read_table(layout.prepared(chunk), columns=["source", "offset", "doc_id"]).to_pylist():
+            ids[(row["source"], row["offset"])] = row["doc_id"]
+    assert [ids[(row["source"], row["offset"])] for row in members.to_pylist()] == members["doc_id"].to_pylist()
+
+
+@pytest.mark.parametrize("budget", [hygiene.SLOT_PAGES, -1])
+def test_verification_slots_are_read_right_however_often_their_pages_are_released(dropped_build, monkeypatch, budget: int) -> None:
+    """Outside reference: each chunk's slot file read with numpy.fromfile, its rows put in
+    corpus order (file, then offset) by Arrow's sort of the signatures file. A budget of -1
+    releases the maps' pages after every chunk of every fetch."""
+    build_dir, _ = dropped_build
+    monkeypatch.setattr(hygiene, "SLOT_PAGES", budget)
+    layout = Layout(str(build_dir))
+    chunks = json.loads(Path(layout.chunk_list).read_text())
+    signed = hygiene.CorpusSignatures([(layout.signatures(chunk), layout.verification(chunk)) for chunk in chunks])
+    expected = []
+    for chunk in chunks:
+        table = pq.read_table(layout.signatures(chunk), columns=["source", "offset"])
+        raw = np.fromfile(layout.verification(chunk), dtype="<u2").reshape(table.num_rows, -1)
+        expected.append(raw[pc.sort_indices(table, [("source", "ascending"), ("offset", "ascending")]).to_numpy()])
+    expected = np.concatenate(expected)
+    rows = np.random.default_rng(3).permutation(len(signed))[: len(signed) // 2]
+    assert np.array_equal(signed.slots_of(rows), expected[rows])
+    assert np.array_equal(signed.slots_of(rows[::-1]), expected[rows[::-1]])
