@@ -31,7 +31,6 @@ from __future__ import annotations
 
 import argparse
 import json
-import mmap
 import os
 import sys
 from collections.abc import Callable, Iterator
@@ -67,27 +66,10 @@ CLUSTERS_SCHEMA = pa.schema(
     [("cluster", pa.int64()), ("chunk", pa.string()), ("source", pa.string()), ("offset", pa.int64()), ("doc_id", pa.string()),
      ("split", pa.string()), ("anchor", pa.bool_()), ("kept", pa.bool_()), ("reason", pa.string())]
 )  # fmt: skip
-# Bytes of file pages (the verification slots, mapped) a job keeps resident: past this many,
-# the maps drop their pages, which stay in the page cache, so the job's resident memory does
-# not grow with the corpus.
-SLOT_PAGES = 128 << 20
-# Bytes of a file a page fault may map around the page it needs (Linux's default fault-around).
-FAULT_AROUND = 64 << 10
-
 CONTAMINATION_SCHEMA = pa.schema(
     [("chunk", pa.string()), ("source", pa.string()), ("offset", pa.int64()), ("doc_id", pa.string()), ("split", pa.string()),
      ("grams", pa.int64()), ("shared", pa.int64()), ("share", pa.float64()), ("dropped", pa.bool_())]
 )  # fmt: skip
-
-
-def _file_pages() -> int:
-    """Bytes of this process's resident file-backed (and shared) pages, from Linux's
-    /proc/self/statm; 0 elsewhere, where the slot maps are left to the system."""
-    try:
-        with open("/proc/self/statm", "rb") as statm:
-            return int(statm.read().split()[2]) * mmap.PAGESIZE
-    except OSError:
-        return 0
 
 
 class CorpusSignatures:
@@ -109,18 +91,14 @@ class CorpusSignatures:
         self.starts = np.cumsum([0, *map(len, self.orders)])
         self.splits = np.concatenate(splits) if splits else np.zeros(0, np.uint8)
         self.permutations = 0
-        self.maps: list[mmap.mmap] = []
         self.slots: list[np.ndarray] = []
-        self.unmapped = _file_pages()  # resident file pages before any slot page
         for (_, slots_path), order in zip(paths, self.orders):
             size = os.path.getsize(slots_path)
-            if len(order) and size:
+            if len(order):
                 self.permutations = size // (2 * len(order))
-                with open(slots_path, "rb") as handle:
-                    self.maps.append(mmap.mmap(handle.fileno(), 0, access=mmap.ACCESS_READ))
-                self.slots.append(np.frombuffer(self.maps[-1], dtype="<u2").reshape(len(order), self.permutations))
+                self.slots.append(np.memmap(slots_path, dtype="<u2", mode="r", shape=(len(order), self.permutations)))
             else:
-                self.slots.append(np.zeros((0, self.permutations), np.uint16))
+                self.slots.append(np.zeros((0, 0), np.uint16))
 
     def __len__(self) -> int:
         return int(self.starts[-1])
@@ -143,28 +121,20 @@ class CorpusSignatures:
         return np.concatenate(found) if found else np.zeros(0, np.uint64)
 
     def slots_of(self, rows: np.ndarray) -> np.ndarray:
-        """The verification slots of the given rows, chunk by chunk, keeping the maps' resident
-        pages near SLOT_PAGES (a row read can map FAULT_AROUND bytes of its file)."""
+        """The verification slots of the given rows, gathered chunk by chunk."""
         result = np.empty((len(rows), self.permutations), np.uint16)
         chunks = self.chunk_of(rows)
         by_chunk = np.argsort(chunks, kind="stable")
         bounds = np.searchsorted(chunks[by_chunk], np.arange(len(self.orders) + 1))
-        fetched = 0
         for chunk in np.flatnonzero(np.diff(bounds)):
             picked = by_chunk[bounds[chunk] : bounds[chunk + 1]]
             result[picked] = self.slots[chunk][self.orders[chunk][rows[picked] - self.starts[chunk]]]
-            fetched += len(picked)
-            if fetched * FAULT_AROUND >= SLOT_PAGES // 2:
-                self._release_slot_pages()
-                fetched = 0
-        self._release_slot_pages()
         return result
 
-    def _release_slot_pages(self) -> None:
-        """Drop the maps' pages once the process holds SLOT_PAGES more file pages than before."""
-        if _file_pages() - self.unmapped >= SLOT_PAGES:
-            for mapped in self.maps:
-                mapped.madvise(mmap.MADV_DONTNEED)
+    def unmap_slots(self) -> None:
+        """Drop the slot maps once clustering is done: their resident pages then leave the
+        job's memory before the stages that follow."""
+        self.slots.clear()
 
     def grams(self, chunk: int, rows: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
         """(hashes, starts): the n-gram hashes of the given rows of one chunk (ascending), row i
@@ -212,6 +182,7 @@ def measure(signed: CorpusSignatures, fingerprints: np.ndarray, copies: tuple[np
             yield keys
 
     found, stats = nd.cluster(bands(), digests, signed.slots_of, near["threshold"])
+    signed.unmap_slots()
     del digests
     labels = found.labels()
     del found

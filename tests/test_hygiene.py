@@ -320,13 +320,11 @@ def test_the_cluster_file_lists_members_by_cluster_then_file_and_offset_with_the
     assert [ids[(row["source"], row["offset"])] for row in members.to_pylist()] == members["doc_id"].to_pylist()
 
 
-@pytest.mark.parametrize("budget", [hygiene.SLOT_PAGES, -1])
-def test_verification_slots_are_read_right_however_often_their_pages_are_released(dropped_build, monkeypatch, budget: int) -> None:
+def test_verification_slots_of_rows_across_chunks_are_each_rows_own(dropped_build) -> None:
     """Outside reference: each chunk's slot file read with numpy.fromfile, its rows put in
-    corpus order (file, then offset) by Arrow's sort of the signatures file. A budget of -1
-    releases the maps' pages after every chunk of every fetch."""
+    corpus order (file, then offset) by Arrow's sort of the signatures file; rows asked in
+    shuffled order across every chunk."""
     build_dir, _ = dropped_build
-    monkeypatch.setattr(hygiene, "SLOT_PAGES", budget)
     layout = Layout(str(build_dir))
     chunks = json.loads(Path(layout.chunk_list).read_text())
     signed = hygiene.CorpusSignatures([(layout.signatures(chunk), layout.verification(chunk)) for chunk in chunks])
