@@ -262,7 +262,16 @@ def test_blocks_that_hold_little_of_train_are_flagged_in_the_summary_and_the_rep
 
 def test_every_run_reads_the_workflow_profile_that_picks_the_greedy_scheduler(tmp_path: Path):
     """Snakemake says which workflow profile it read (a dry run); the profile names the greedy
-    scheduler."""
+    scheduler and turns input checksums off."""
     result = run_workflow(tmp_path / "run", scenario("demo"), "--dry-run")
     assert re.search(r"workflow specific profile \S*profiles/default ", result.stdout + result.stderr)
-    assert yaml.safe_load((REPO / "profiles" / "default" / "config.yaml").read_text(encoding="utf-8")) == {"scheduler": "greedy"}
+    profile = yaml.safe_load((REPO / "profiles" / "default" / "config.yaml").read_text(encoding="utf-8"))
+    assert profile == {"scheduler": "greedy", "max-checksum-file-size": 0}
+
+
+def test_a_build_records_no_input_checksums_in_snakemakes_metadata(demo_build: Path):
+    """Snakemake's own record of each finished job (.snakemake/metadata, JSON) holds no input
+    checksums: the profile spares the files' hashing at every job's end."""
+    records = [json.loads(path.read_text(encoding="utf-8")) for path in (demo_build.parent / ".snakemake" / "metadata").iterdir()]
+    assert len(records) > 20
+    assert not any(record["input_checksums"] for record in records)
