@@ -1,13 +1,16 @@
-"""Peak memory of the growth and deduplicate jobs on two crafted corpora beside ordinary text.
+"""Peak memory of the deduplicate and growth jobs, and of the shard job of the largest chunk, on
+two crafted corpora beside ordinary text.
 
-Both jobs read every prepared chunk; they must hold a bounded slice of a chunk, not the
-chunk, however large one chunk is (a compressed file or a one-line file is one chunk):
+The deduplicate job reads every prepared chunk, a shard job one (and records the chunk's
+sightings for the growth curve, which the growth job merges); they must hold a bounded slice of
+a chunk, not the chunk, however large one chunk is (a compressed file or a one-line file is one
+chunk):
 - `one-line`: one `.txt` file of N MB on a single line (one paragraph: split into pieces of
   corpus.max_document_bytes, all in one chunk);
 - `duplicates`: one `.txt.gz` of N MB of text in which every paragraph occurs four times;
 - `ordinary`: the same N MB of dict-gcide paragraphs in files of 2 MB (the default chunking).
-The workflow builds each up to the growth curve (`stats/growth.json`), then the deduplicate and
-growth steps are run again exactly as their rules run them, under `/usr/bin/time -f %M`.
+The workflow builds each, then the three steps are run again exactly as their rules run them,
+under `/usr/bin/time -f %M`.
 
 Usage: python bench/aggregate_memory.py [--mb 200]
 Corpus and builds go to bench/data/aggregate_memory/, results to bench/results/aggregate_memory.json.
@@ -22,13 +25,11 @@ import subprocess
 import sys
 from pathlib import Path
 
-import yaml
-
 REPO = Path(__file__).resolve().parent.parent
 sys.path.insert(0, str(REPO))
 sys.path.insert(0, str(REPO / "bench"))
 
-from pipeline import _PARAGRAPH_BREAK, DATA, GCIDE, RESULTS  # noqa: E402
+from pipeline import _PARAGRAPH_BREAK, DATA, GCIDE, RESULTS, workflow_command  # noqa: E402
 
 TIME = "/usr/bin/time"
 FOLDER = DATA / "aggregate_memory"
@@ -77,25 +78,17 @@ def peak(command: list[str], cwd: Path) -> dict:
 
 def measure(name: str, root: Path) -> dict:
     work = root.parent
-    (work / "over.yaml").write_text(yaml.safe_dump({"corpus": {"root": str(root)}}))
+    subprocess.run(workflow_command(work, {"corpus": {"root": str(root)}}, "--cores", "2"), check=True, capture_output=True)
     build = work / "build"
-    subprocess.run(
-        [sys.executable, "-m", "snakemake", "build/stats/growth.json", "--snakefile", str(REPO / "Snakefile"),
-         "--directory", str(work), "--cores", "2", "--configfile", str(work / "over.yaml")],
-        check=True, capture_output=True,
-    )  # fmt: skip
-    prepared = sorted(str(p) for p in (build / "interim" / "prepared").glob("*.parquet"))
+    chunks = json.loads((build / "interim" / "plan" / "chunks.json").read_text())
+    largest = max(chunks, key=lambda chunk: (build / "interim" / "prepared" / f"{chunk}.parquet").stat().st_size)
     step = [sys.executable, "-m", "steps.run"]
-    scratch = work / "scratch"
-    scratch.mkdir(exist_ok=True)
     figures = {
-        "deduplicate": peak([*step, "split", "--enabled", "true", "--output", str(scratch / "d.parquet"),
-                             "--removed-counts", str(scratch / "r.parquet"), *prepared], REPO),
-        "growth": peak([*step, "growth", "--token-counts", str(build / "stats" / "token_counts.parquet"), "--duplicates",
-                        str(build / "interim" / "duplicates.parquet"), "--options", '{"units": "word"}',
-                        "--output", str(scratch / "g.json"), *prepared], REPO),
-    }  # fmt: skip
-    figures["chunks"] = len(prepared)
+        "deduplicate": peak([*step, "deduplicate", "--build", str(build)], REPO),
+        "shards_of_largest_chunk": peak([*step, "shards", "--build", str(build), "--chunk", largest], REPO),
+        "growth": peak([*step, "growth", "--build", str(build)], REPO),
+    }
+    figures["chunks"] = len(chunks)
     accounting = build / "stats" / "accounting.json"
     figures["documents_removed"] = json.loads(accounting.read_text())["dropped"].get("duplicate", 0) if accounting.exists() else None
     print(name, figures, flush=True)
@@ -103,7 +96,7 @@ def measure(name: str, root: Path) -> dict:
 
 
 def main(argv: list[str] | None = None) -> None:
-    parser = argparse.ArgumentParser(description="Peak memory of growth and deduplicate on crafted corpora.")
+    parser = argparse.ArgumentParser(description="Peak memory of deduplicate, growth and the largest shard job on crafted corpora.")
     parser.add_argument("--mb", type=int, default=200, help="text per corpus, MB")
     args = parser.parse_args(argv)
     roots = make_corpora(args.mb * 1_000_000)

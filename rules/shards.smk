@@ -40,6 +40,7 @@ rule shards:
         **PLAN.provenance_of("{chunk}"),
         stats=L.shard_stats("{chunk}"),
         id_counts=L.id_counts("{chunk}"),
+        sightings=L.sightings("{chunk}"),
     log:
         L.log("shards", "{chunk}"),
     params:

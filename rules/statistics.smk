@@ -26,16 +26,13 @@ rule accounting:
 
 rule growth:
     input:
-        tables=[L.prepared(c) for c in PLAN.chunk_keys],
-        removed=removed_lists,
-        counts=[] if SUBWORD else [L.word_counts],
+        sightings=[L.sightings(c) for c in PLAN.chunk_keys],
         options=L.options("growth"),
     output:
         L.growth,
     log:
         L.log("growth"),
     params:
-        removed=removed_digests,
         code=code_hash("growth"),
     threads: 1
     resources:

@@ -12,7 +12,6 @@ full softmax over the vocabulary; counts in parameters, float32 bytes and multip
 
 from __future__ import annotations
 
-from collections.abc import Iterable
 from dataclasses import dataclass
 
 import numpy as np
@@ -60,49 +59,6 @@ def fit_zipf(counts: np.ndarray, points: int = 200) -> tuple[PowerFit, np.ndarra
     sampled = ordered[ranks - 1] if len(ranks) else ordered[:0]
     fit = fit_power(ranks, sampled)
     return PowerFit(-fit.exponent, fit.constant, fit.fit_from), ranks, sampled
-
-
-class GrowthCounter:
-    """Distinct types after each prefix of a token stream, fed in batches of integer type ids.
-
-    Keeps one flag per type and the stream position where each type first appears, so memory
-    grows with the number of types, never with the number of tokens. `types` only sizes the
-    flags up front; a larger id extends them.
-    """
-
-    def __init__(self, types: int = 0) -> None:
-        self._seen = np.zeros(types, dtype=bool)
-        self._first: list[np.ndarray] = []
-        self.tokens = 0
-
-    def add(self, ids: np.ndarray) -> None:
-        """Feed the next tokens of the stream, as type ids in 0 … types-1."""
-        ids = np.asarray(ids, dtype=np.int64)
-        if not len(ids):
-            return
-        largest = int(ids.max())
-        if largest >= len(self._seen):
-            self._seen = np.concatenate([self._seen, np.zeros(largest + 1 - len(self._seen), dtype=bool)])
-        # Only tokens of types not seen before are sorted: late in a stream they are few.
-        unseen = np.flatnonzero(~self._seen[ids])
-        new, first = np.unique(ids[unseen], return_index=True)
-        self._seen[new] = True
-        self._first.append(unseen[first] + self.tokens)
-        self.tokens += len(ids)
-
-    def types_at(self, positions: np.ndarray) -> np.ndarray:
-        """Number of distinct types among the first N tokens, for each N in `positions`."""
-        first = np.sort(np.concatenate(self._first)) if self._first else np.zeros(0, dtype=np.int64)
-        return np.searchsorted(first, np.asarray(positions, dtype=np.int64), side="left")
-
-
-def growth_curve(batches: Iterable[np.ndarray], types: int = 0, points: int = 400) -> tuple[np.ndarray, np.ndarray]:
-    """(tokens seen, types seen) at log-spaced stream positions, from batches of type ids."""
-    counter = GrowthCounter(types)
-    for batch in batches:
-        counter.add(batch)
-    positions = log_points(counter.tokens, points)
-    return positions, counter.types_at(positions)
 
 
 def fit_heaps(tokens: np.ndarray, types: np.ndarray, tail: float = 0.1) -> PowerFit:

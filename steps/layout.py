@@ -159,6 +159,10 @@ class Layout:
     def shard_stats(self, chunk: str) -> str:
         return self._join("interim", "shards", f"{chunk}.json")
 
+    def sightings(self, chunk: str) -> str:
+        """The distinct types of the chunk's train stream and where each first appears (steps/growth.py)."""
+        return self._join("interim", "growth", f"{chunk}.parquet")
+
     def id_counts(self, chunk: str) -> str:
         """Occurrences of each id per split in the chunk's shards."""
         return self._join("interim", "shards", f"{chunk}.ids.parquet")

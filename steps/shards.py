@@ -23,7 +23,8 @@ leads back to its document, sentence and token without a column added to the sha
 Beside the files: interim/shards/<chunk>.json (steps.formats.ShardStats: each file's rows,
 bytes and SHA-256; rows per kind; ids held by blocks; figures per input file) and
 interim/shards/<chunk>.ids.parquet (occurrences of each id per split, <s> once per document
-and </s> once per sentence, for vocabulary.tsv's counts).
+and </s> once per sentence, for vocabulary.tsv's counts), and the chunk's sightings for the
+growth curve (interim/growth/<chunk>.parquet, steps.growth).
 """
 
 from __future__ import annotations
@@ -38,7 +39,7 @@ import numpy as np
 import pyarrow as pa
 import pyarrow.parquet as pq
 
-from . import job
+from . import growth, job
 from .chunks import kept_batches, split_groups
 from .encoder import Encoder, encoder_for
 from .formats import (
@@ -309,6 +310,7 @@ def main(argv: list[str] | None = None) -> None:
     encoder = encoder_for(vocabulary, run.options["vocabulary"]["unknown"], layout.subword_model, THREADS)
     removed = pq.ParquetFile(layout.removed(chunk)).read(use_threads=False)
     stats, counts = write_chunk(layout, chunk, removed, encoder, run.options)
+    growth.record_sightings(layout.sightings(chunk), layout.prepared(chunk), removed, run.options["units"])
     table = pa.concat_tables(
         [
             pa.table({"split": [split] * int(np.count_nonzero(c)), "id": np.flatnonzero(c), "count": c[np.flatnonzero(c)]}, schema=ID_COUNTS_SCHEMA)

@@ -2,17 +2,18 @@
 
 from __future__ import annotations
 
-import random
 import re
 from collections import Counter
 from pathlib import Path
 
 import numpy as np
+import pyarrow as pa
 import pytest
 import regex
 
 from conftest import require_file
-from corpusmill.laws import GrowthCounter, ModelSize, fit_heaps, fit_power, fit_zipf, growth_curve, log_points
+from corpusmill.growth import growth_points, sightings
+from corpusmill.laws import ModelSize, fit_heaps, fit_power, fit_zipf, log_points
 
 FORTUNES = Path("/usr/share/games/fortunes")
 # English collections of Debian's `fortunes` package (the art, Chinese and bilingual files left out).
@@ -45,8 +46,8 @@ def test_zipf_exponent_of_english_text_is_near_one(fortune_words: list[str]) -> 
 def test_heaps_beta_of_english_text_lies_between_0_4_and_0_7(fortune_words: list[str]) -> None:
     """Heaps' law: Manning, Raghavan & Schütze (Introduction to Information Retrieval, 2008, ch. 5) report
     β ≈ 0.49 for a large news collection; [0.4, 0.7] for a smaller text is common practice."""
-    ids = np.array(list(map({w: i for i, w in enumerate(dict.fromkeys(fortune_words))}.__getitem__, fortune_words)))
-    tokens, types = growth_curve(np.array_split(ids, 7), int(ids.max()) + 1)
+    table, length = sightings([pa.array(fortune_words)])
+    tokens, types = growth_points(np.sort(table["first"].to_numpy()), length)
     fit = fit_heaps(tokens, types)
     assert 0.4 <= fit.exponent <= 0.7, fit
     assert fit.constant > 1
@@ -76,22 +77,6 @@ def test_heaps_fit_uses_only_the_last_decade_of_the_stream() -> None:
     bent[:3] = tokens[:3]  # every early token new, as at the start of a real stream
     assert fit_heaps(tokens, bent).exponent == pytest.approx(0.5, abs=1e-12)
     assert fit_heaps(tokens, bent).fit_from == 1000
-
-
-def test_growth_counter_matches_a_set_recount_whatever_the_batches() -> None:
-    """Brute force: a Python set grown token by token gives the distinct-type count after every prefix."""
-    rng = random.Random(3)
-    stream = [int(rng.paretovariate(1.1)) % 500 for _ in range(5000)]
-    expected, seen = [], set()
-    for token in stream:
-        seen.add(token)
-        expected.append(len(seen))
-    counter = GrowthCounter(500)
-    cuts = sorted(rng.sample(range(1, len(stream)), 12))
-    for start, end in zip([0, *cuts], [*cuts, len(stream)]):
-        counter.add(np.array(stream[start:end]))
-    positions = np.arange(0, len(stream) + 1)
-    assert counter.types_at(positions).tolist() == [0, *expected]
 
 
 def test_log_points_cover_both_ends_without_repeats() -> None:

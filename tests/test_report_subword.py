@@ -26,7 +26,7 @@ import pytest
 from conftest import require_file, run_workflow, scenario
 from corpusmill.coverage import encoded_figures
 from corpusmill.formats import Figures, ShardStats, read_vocabulary
-from corpusmill.growth import train_word_batches, whitespace_words, word_growth
+from corpusmill.growth import growth_points, sightings, whitespace_words
 from corpusmill.laws import ModelSize, PowerFit, fit_zipf
 from corpusmill.report import growth_figure, main, read_growth, render
 from corpusmill.summary import format_table
@@ -163,10 +163,6 @@ def test_growth_counts_whitespace_words_of_the_train_sentences(subword_run: tupl
     coverage.json's train words."""
     build, _ = subword_run
     removed = {(r["source"], r["offset"]) for r in pq.read_table(build / "interim" / "duplicates.parquet").to_pylist()}
-    chunks = [
-        (str(build / "interim" / "prepared" / f"{chunk}.parquet"), pq.read_table(build / "interim" / "removed" / f"{chunk}.parquet"))
-        for chunk in read_json(build / "interim" / "plan" / "chunks.json")
-    ]
     seen: set[str] = set()
     after = [0]
     for row in corpus_rows(build, ["split", "sentences"]):
@@ -175,11 +171,9 @@ def test_growth_counts_whitespace_words_of_the_train_sentences(subword_run: tupl
         for word in (w for sentence in row["sentences"] for w in WORD.findall(sentence)):
             seen.add(word)
             after.append(len(seen))
-    words, types = word_growth(train_word_batches(chunks))
-    assert words[-1] == len(after) - 1 == json.loads((build / "stats" / "coverage.json").read_text())["splits"]["train"]["words"]
-    assert types.tolist() == [after[n] for n in words]
     growth = json.loads((build / "stats" / "growth.json").read_text())
-    assert (growth["read"], growth["distinct"]) == (words.tolist(), types.tolist())
+    assert growth["read"][-1] == len(after) - 1 == json.loads((build / "stats" / "coverage.json").read_text())["splits"]["train"]["words"]
+    assert growth["distinct"] == [after[n] for n in growth["read"]]
     assert f"of {len(after) - 1:,} words; {len(seen):,} distinct words" in (build / "report" / "index.html").read_text(encoding="utf-8")
 
 
@@ -194,10 +188,10 @@ def test_word_growth_does_not_depend_on_how_the_stream_is_batched() -> None:
         seen.add(word)
         after.append(len(seen))
     for size in (1, 3, len(words)):
-        batches = [words.slice(start, size) for start in range(0, len(words), size)]
-        positions, types = word_growth(batches)
+        table, length = sightings(words.slice(start, size) for start in range(0, len(words), size))
+        positions, types = growth_points(np.sort(table["first"].to_numpy()), length)
         assert types.tolist() == [after[n] for n in positions]
-    assert word_growth([])[0].tolist() == []
+    assert growth_points(np.zeros(0, np.int64), 0)[0].tolist() == []
 
 
 def test_subword_page_is_self_contained_and_byte_identical_when_written_again(subword_run: tuple[Path, str], tmp_path: Path) -> None:
