@@ -14,7 +14,9 @@ checkpoint deduplicate:
         options=L.options("deduplicate"),
     output:
         duplicates=L.duplicates,
-        removed=[L.removed(c) for c in PLAN.chunk_keys],
+        # One folder, not a file per chunk: Snakemake expands a checkpoint's outputs on every
+        # `get()` of it, which every later chunk job makes.
+        removed=directory(L.removed_folder),
         removed_counts=L.removed_counts,
         hygiene_drops=L.hygiene_drops,
         hygiene=L.hygiene,

@@ -144,6 +144,11 @@ class Layout:
     def counts(self, chunk: str) -> str:
         return self._join("interim", "counts", f"{chunk}.parquet")
 
+    @property
+    def removed_folder(self) -> str:
+        """Every chunk's list of removed documents: the deduplicate job writes the folder whole."""
+        return self._join("interim", "removed")
+
     def removed(self, chunk: str) -> str:
         """The chunk's documents that deduplication removes."""
         return self._join("interim", "removed", f"{chunk}.parquet")
