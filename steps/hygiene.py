@@ -17,7 +17,8 @@ every member's cluster and anchor.
 
 Contamination, after those drops: every dev and test document still kept, against the train
 documents still kept. The held-out documents' n-gram hashes are gathered and their distinct set
-built; each chunk's kept train grams are looked up in that set and only the hits kept
+built; each chunk's kept train grams, a row group of its signatures file (one prepare batch)
+at a time, are looked up in that set and only the hits kept
 (steps.contamination.TrainGrams), so memory follows the size of dev and test, not of train.
 With contamination.drop, documents at or above the threshold are dropped (contaminated).
 
@@ -53,10 +54,6 @@ POLICY_REASON = {"drop": "near_duplicate", "same_split": "near_duplicate_other_s
 # Contaminated documents listed by name in stats/hygiene.json (and so in the report); the
 # Parquet file beside it holds every measured document.
 LISTED = 100
-# Held-out n-grams looked up in one train chunk at a time are the chunk's; this many train
-# documents' grams are read at once.
-GRAM_ROWS = 1 << 14
-
 # Rows of stats/near_duplicates.parquet built and written at once: one row group, Parquet's
 # default size.
 CLUSTER_ROWS = 1 << 20
@@ -136,15 +133,20 @@ class CorpusSignatures:
         job's memory before the stages that follow."""
         self.slots.clear()
 
-    def grams(self, chunk: int, rows: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
-        """(hashes, starts): the n-gram hashes of the given rows of one chunk (ascending), row i
-        holding hashes[starts[i]:starts[i + 1]]."""
-        local = self.orders[chunk][rows - self.starts[chunk]]
-        column = pq.ParquetFile(self.paths[chunk][0]).read(columns=["grams"], use_threads=False).column(0)
-        taken = column.take(pa.array(local)).combine_chunks()
-        offsets = taken.offsets.to_numpy()
-        values = taken.values.to_numpy()[offsets[0] : offsets[-1]]
-        return values, (offsets - offsets[0]).astype(np.int64)
+    def grams(self, chunk: int, rows: np.ndarray) -> Iterator[tuple[np.ndarray, np.ndarray, np.ndarray]]:
+        """The n-gram hashes of the given rows of one chunk, a row group of its signatures file at
+        a time (a prepare job's batch): (positions in `rows`, hashes, starts), the row at
+        positions[i] holding hashes[starts[i]:starts[i + 1]]."""
+        local = self.orders[chunk][rows - self.starts[chunk]].astype(np.int64)
+        parquet = pq.ParquetFile(self.paths[chunk][0])
+        bounds = np.cumsum([0, *(parquet.metadata.row_group(g).num_rows for g in range(parquet.num_row_groups))])
+        group_of = np.searchsorted(bounds, local, side="right") - 1
+        for group in np.unique(group_of):
+            positions = np.flatnonzero(group_of == group)
+            column = parquet.read_row_group(int(group), columns=["grams"], use_threads=False).column(0)
+            taken = column.take(pa.array(local[positions] - bounds[group])).combine_chunks()
+            offsets = taken.offsets.to_numpy()
+            yield positions, taken.values.to_numpy()[offsets[0] : offsets[-1]], (offsets - offsets[0]).astype(np.int64)
 
 
 @dataclass
@@ -254,19 +256,31 @@ def _contamination(signed: CorpusSignatures, removed: np.ndarray) -> tuple[np.nd
     held = np.flatnonzero((signed.splits > 0) & ~removed)
     train = np.flatnonzero((signed.splits == 0) & ~removed)
     held_chunks, train_chunks = signed.chunk_of(held), signed.chunk_of(train)
-    parts = [signed.grams(chunk, held[held_chunks == chunk]) for chunk in np.unique(held_chunks)]
-    grams = np.concatenate([values for values, _ in parts]) if parts else np.zeros(0, np.uint64)
-    counts = np.concatenate([np.diff(starts) for _, starts in parts]) if parts else np.zeros(0, np.int64)
+    grams, counts = _held_grams(signed, held, held_chunks)
     wanted = audit.SortedHashes(audit.distinct_sorted(grams))
     hits = audit.TrainGrams()
     if len(wanted.distinct):
         for chunk in np.unique(train_chunks):
-            rows = train[train_chunks == chunk]
-            for low in range(0, len(rows), GRAM_ROWS):
-                values, _ = signed.grams(chunk, rows[low : low + GRAM_ROWS])
+            for _, values, _ in signed.grams(chunk, train[train_chunks == chunk]):
                 hits.add(wanted.common(values))
     starts = np.concatenate([[0], np.cumsum(counts)]).astype(np.int64)
     return held, counts, audit.shared_counts(grams, starts, hits.finish())
+
+
+def _held_grams(signed: CorpusSignatures, held: np.ndarray, held_chunks: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
+    """(hashes, counts): the n-gram hashes of the held-out rows laid end to end in their order,
+    and how many each row has."""
+    counts = np.zeros(len(held), np.int64)
+    parts = []  # (row index in `held`, the row's hashes as a list array)
+    for chunk in np.unique(held_chunks):
+        mine = np.flatnonzero(held_chunks == chunk)
+        for positions, values, starts in signed.grams(chunk, held[mine]):
+            counts[mine[positions]] = np.diff(starts)
+            parts.append((mine[positions], pa.ListArray.from_arrays(pa.array(starts.astype(np.int32)), pa.array(values, pa.uint64()))))
+    if not parts:
+        return np.zeros(0, np.uint64), counts
+    lists = pa.chunked_array([part for _, part in parts]).take(pa.array(np.argsort(np.concatenate([index for index, _ in parts]), kind="stable")))
+    return pc.list_flatten(lists).to_numpy(), counts
 
 
 def contamination_figures(findings: Findings, sources: list[str], splits: np.ndarray, threshold: float, drop: bool) -> dict:

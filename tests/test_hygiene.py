@@ -337,3 +337,25 @@ def test_verification_slots_of_rows_across_chunks_are_each_rows_own(dropped_buil
     rows = np.random.default_rng(3).permutation(len(signed))[: len(signed) // 2]
     assert np.array_equal(signed.slots_of(rows), expected[rows])
     assert np.array_equal(signed.slots_of(rows[::-1]), expected[rows[::-1]])
+
+
+def test_grams_are_read_a_row_group_at_a_time_and_equal_the_whole_column(dropped_build, tmp_path: Path) -> None:
+    """Outside reference: Arrow's read of a signatures file's whole grams column. The file is
+    rewritten in row groups of 7 rows, so the rows asked (every third, shuffled) span many."""
+    build_dir, _ = dropped_build
+    layout = Layout(str(build_dir))
+    chunk = json.loads(Path(layout.chunk_list).read_text())[0]
+    table = pq.read_table(layout.signatures(chunk))
+    pq.write_table(table, tmp_path / "signatures.parquet", row_group_size=7)
+    signed = hygiene.CorpusSignatures([(str(tmp_path / "signatures.parquet"), layout.verification(chunk))])
+    assert pq.ParquetFile(tmp_path / "signatures.parquet").num_row_groups > 3
+    order = pc.sort_indices(table, [("source", "ascending"), ("offset", "ascending")]).to_numpy()
+    rows = np.random.default_rng(7).permutation(np.arange(0, len(signed), 3))
+    got: dict[int, list[int]] = {}
+    batches = 0
+    for positions, values, starts in signed.grams(0, rows):
+        batches += 1
+        for position, low, high in zip(positions, starts[:-1], starts[1:]):
+            got[int(rows[position])] = values[low:high].tolist()
+    whole = table["grams"].to_pylist()
+    assert batches > 3 and got == {int(row): whole[order[row]] for row in rows}
