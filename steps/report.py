@@ -1,9 +1,10 @@
 """The vocabulary coverage report: one self-contained HTML page per build (build/report/index.html).
 
 It reads the coverage statistics, the manifest, the merged token counts, the near-duplicate and
-contamination figures (stats/hygiene.json) and the vocabulary growth curve (stats/growth.json, steps/growth.py, computed beside the shard jobs). Plots are PNG
-images embedded as base64, drawn with matplotlib's Agg backend without metadata, so the page
-needs no network and its bytes are the same on every run.
+contamination figures (stats/hygiene.json) and the vocabulary growth curve (stats/growth.json,
+steps/growth.py, merged from the shard jobs' sightings). Plots are PNG images embedded as
+base64, drawn with matplotlib's Agg backend without metadata, so the page needs no network and
+its bytes are the same on every run.
 
 Subword mode (coverage.json has `units: subword`) shows what applies to a piece model instead:
 pieces per word and per sentence, the <unk> rate with and without byte fallback (by split and by
