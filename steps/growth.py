@@ -36,7 +36,6 @@ from .storage import write_json, write_table
 
 RULE = "growth"
 SECTIONS = ()
-BATCH_ROWS = 4096
 # Stored (uncompressed) bytes of a chunk's rows read at once: bounds the job's memory.
 READ_BYTES = 16 << 20
 # Sightings gathered before they are merged into the corpus-wide table (see merged_firsts).
@@ -46,11 +45,10 @@ SIGHTINGS_SCHEMA = pa.schema([("type", pa.string()), ("first", pa.int64())])
 
 
 def _train_rows(path: str, removed: pa.Table, column: str) -> Iterator[pa.Array]:
-    """`column` of a chunk's kept train documents in corpus order, in slices of BATCH_ROWS
-    documents, never holding more of the chunk than READ_BYTES of stored rows."""
+    """`column` of a chunk's kept train documents in corpus order, never holding more of the
+    chunk than READ_BYTES of stored rows."""
     for rows in kept_batches(path, "train", removed, [column], READ_BYTES):
-        for start in range(0, rows.num_rows, BATCH_ROWS):
-            yield rows[column].slice(start, BATCH_ROWS).combine_chunks()
+        yield rows[column].combine_chunks()
 
 
 def whitespace_words(sentences: pa.Array) -> pa.Array:
@@ -121,9 +119,15 @@ def merged_firsts(paths: Iterable[str]) -> tuple[np.ndarray, int]:
     held = length = 0
     for path in paths:
         parquet = pq.ParquetFile(path)
+        metadata = parquet.schema_arrow.metadata or {}
+        if LENGTH_KEY not in metadata:
+            raise SystemExit(
+                f"corpusmill: {path}: no train stream length in its metadata, so not a chunk's sightings as a shard job writes "
+                "them; rerun the shard jobs (snakemake --forcerun shards)"
+            )
         table = parquet.read(use_threads=False)
         table = table.set_column(1, "first", pc.add(table["first"], pa.scalar(length, pa.int64())))
-        length += int(parquet.schema_arrow.metadata[LENGTH_KEY])
+        length += int(metadata[LENGTH_KEY])
         pending.append(table)
         held += table.num_rows
         if held >= max(MERGE_ROWS, 0 if merged is None else merged.num_rows):

@@ -151,7 +151,7 @@ class Layout:
 
     def removed(self, chunk: str) -> str:
         """The chunk's documents that deduplication removes."""
-        return self._join("interim", "removed", f"{chunk}.parquet")
+        return str(Path(self.removed_folder, f"{chunk}.parquet"))
 
     def signatures(self, chunk: str) -> str:
         """The chunk's band keys and n-gram hashes, a row per kept document (steps.signatures)."""

@@ -5,6 +5,7 @@ from __future__ import annotations
 
 import json
 import random
+import re
 from pathlib import Path
 
 import numpy as np
@@ -81,3 +82,12 @@ def test_first_places_of_dictionary_entries_whatever_their_numbering(indices: li
     out of their order of appearance (Arrow does not, but nothing documents that it never will)."""
     entries = max(indices, default=-1) + 1
     assert growth._first_places(np.array(indices, dtype=np.int64), entries).tolist() == [indices.index(entry) for entry in range(entries)]
+
+
+def test_a_sightings_file_without_its_stream_length_stops_the_job_naming_it_and_the_fix(tmp_path: Path) -> None:
+    """Error messages name the file and the fix (project convention)."""
+    write_sightings(tmp_path / "0.parquet", ["a", "b"], [])
+    stray = tmp_path / "1.parquet"
+    write_table(stray, growth.SIGHTINGS_SCHEMA.empty_table())
+    with pytest.raises(SystemExit, match=rf"{re.escape(str(stray))}: no train stream length .*\(snakemake --forcerun shards\)"):
+        growth.merged_firsts([str(tmp_path / "0.parquet"), str(stray)])
