@@ -26,7 +26,7 @@ checkpoint deduplicate:
         L.log("deduplicate"),
     params:
         code=code_hash("deduplicate"),
-    threads: 1
+    threads: module_constant("deduplicate", "THREADS")
     resources:
         mem_mb=CONFIG["resources"]["aggregate_mem_mb"],
         runtime=CONFIG["resources"]["runtime_min"],

@@ -20,6 +20,7 @@ counts, so an unchanged chunk's counts never need recounting.
 from __future__ import annotations
 
 from collections.abc import Sequence
+from concurrent.futures import ThreadPoolExecutor
 from pathlib import Path
 
 import numpy as np
@@ -45,6 +46,9 @@ REMOVED_SCHEMA = pa.schema([("source", pa.string()), ("offset", pa.int64())])
 # Uncompressed bytes of row groups read at once while counting removed documents: bounds the
 # job's memory whatever the chunk (a chunk of many duplicates would otherwise be read whole).
 REMOVED_READ_BYTES = 64 << 20
+# Cores the job uses: the clustering reads and sorts the next band while it confirms this one's
+# pairs, and contamination scans train in steps.hygiene.SCAN_THREADS threads.
+THREADS = 2
 
 
 def corpus_order(table: pa.Table) -> np.ndarray:
@@ -74,16 +78,22 @@ class CorpusRows:
         self.starts = np.cumsum([0, *sizes])
         self.words = np.empty((self.starts[-1], 2), np.uint64)
         self.hashes = np.empty(self.starts[-1], np.uint64)
-        for number, path in enumerate(self.paths):
-            table = pq.ParquetFile(path, read_dictionary=["source"]).read(columns=["source", "offset", "doc_hash", "fingerprint"], use_threads=False)
-            if not table.num_rows:
-                continue
+
+        def read(number: int) -> np.ndarray:
+            """Fill in one chunk's rows; returns its corpus order."""
+            parquet = pq.ParquetFile(self.paths[number], read_dictionary=["source"])
+            table = parquet.read(columns=["source", "offset", "doc_hash", "fingerprint"], use_threads=False)
             order = corpus_order(table)
-            column = table["fingerprint"].combine_chunks()
-            words = np.frombuffer(column.buffers()[1], dtype=np.uint64, count=2 * len(column), offset=column.offset * 16)
-            span = slice(self.starts[number], self.starts[number + 1])
-            self.words[span] = words.reshape(-1, 2)[order]
-            self.hashes[span] = table["doc_hash"].to_numpy()[order]
+            if table.num_rows:
+                column = table["fingerprint"].combine_chunks()
+                words = np.frombuffer(column.buffers()[1], dtype=np.uint64, count=2 * len(column), offset=column.offset * 16)
+                span = slice(self.starts[number], self.starts[number + 1])
+                self.words[span] = words.reshape(-1, 2)[order]
+                self.hashes[span] = table["doc_hash"].to_numpy()[order]
+            return order
+
+        with ThreadPoolExecutor(THREADS) as pool:
+            self.orders = list(pool.map(read, range(len(self.paths))))  # each chunk's rows in corpus order
 
     def locate(self, rows: np.ndarray) -> pa.Table:
         """(source, offset, doc_id) of the given rows, in the order given (Arrow columns, no
@@ -94,12 +104,16 @@ class CorpusRows:
         order = None if ascending else np.argsort(rows, kind="stable")
         ordered = rows if order is None else rows[order]
         chunk_of = np.searchsorted(self.starts, ordered, side="right") - 1
-        parts = [DUPLICATES_SCHEMA.empty_table().select(["source", "offset", "doc_id"])]
-        for chunk in np.unique(chunk_of):
+        bounds = np.searchsorted(chunk_of, np.arange(len(self.paths) + 1))
+
+        def rows_of(chunk: int) -> pa.Table:
             table = pq.ParquetFile(self.paths[chunk]).read(columns=["source", "offset", "doc_id"], use_threads=False)
-            local = ordered[chunk_of == chunk] - self.starts[chunk]
-            parts.append(table.take(pa.array(corpus_order(table)[local])))
-        found = pa.concat_tables(parts)
+            local = ordered[bounds[chunk] : bounds[chunk + 1]] - self.starts[chunk]
+            return table.take(pa.array(self.orders[chunk][local]))
+
+        with ThreadPoolExecutor(THREADS) as pool:  # Parquet decodes without the interpreter lock
+            parts = list(pool.map(rows_of, np.flatnonzero(np.diff(bounds)).tolist()))
+        found = pa.concat_tables([DUPLICATES_SCHEMA.empty_table().select(["source", "offset", "doc_id"]), *parts])
         return found if order is None else found.take(pa.array(np.argsort(order, kind="stable")))
 
 
@@ -220,15 +234,18 @@ def main(argv: list[str] | None = None) -> None:
     findings = hygiene.measure(signed, corpus.words, found, run.options)
     drops, drop_chunk_of = hygiene.write_findings(layout, chunks, corpus.locate, signed, findings, run.options)
     del corpus, signed
-    counted = []
-    for number, chunk in enumerate(chunks):
+
+    def write_removed(number: int) -> pa.Table | None:
+        """Write the chunk's removed list; its word counts when there are any."""
         mine = pa.concat_tables(
             [table.filter(pa.array(chunk_of == number)).select(REMOVED_SCHEMA.names),
              drops.filter(pa.array(drop_chunk_of == number)).select(REMOVED_SCHEMA.names)]
         )  # fmt: skip
-        write_table(layout.removed(chunk), mine.sort_by([("source", "ascending"), ("offset", "ascending")]))
-        if run.options["units"] == "word" and mine.num_rows:
-            counted.append(removed_counts(layout.prepared(chunk), mine))
+        write_table(layout.removed(chunks[number]), mine.sort_by([("source", "ascending"), ("offset", "ascending")]))
+        return removed_counts(layout.prepared(chunks[number]), mine) if run.options["units"] == "word" and mine.num_rows else None
+
+    with ThreadPoolExecutor(THREADS) as pool:
+        counted = [counts for counts in pool.map(write_removed, range(len(chunks))) if counts is not None]
     totals = sum_counts(counted) if counted else COUNTS_SCHEMA.empty_table()
     write_table(layout.removed_counts, totals.sort_by([("split", "ascending"), ("token", "ascending")]))
     print(f"{table.num_rows} duplicate documents removed, {drops.num_rows} more as near-duplicates or contaminated")

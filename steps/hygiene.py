@@ -35,6 +35,7 @@ import json
 import os
 import sys
 from collections.abc import Callable, Iterator
+from concurrent.futures import ThreadPoolExecutor
 from dataclasses import dataclass, field
 from pathlib import Path
 
@@ -57,6 +58,9 @@ LISTED = 100
 # Rows of stats/near_duplicates.parquet built and written at once: one row group, Parquet's
 # default size.
 CLUSTER_ROWS = 1 << 20
+# Threads scanning the train chunks for the held-out grams (numpy's sorts and searches and
+# Parquet's reads run without the interpreter lock); steps.deduplicate declares as many.
+SCAN_THREADS = 2
 
 DROPS_SCHEMA = pa.schema([("source", pa.string()), ("offset", pa.int64()), ("doc_id", pa.string()), ("reason", pa.string())])
 CLUSTERS_SCHEMA = pa.schema(
@@ -110,11 +114,14 @@ class CorpusSignatures:
 
     def digests(self) -> np.ndarray:
         """Each document's signature digest (steps.near_duplicates.signature_digests)."""
-        found = []
-        for (path, _), order in zip(self.paths, self.orders):
-            table = pq.ParquetFile(path).read(columns=band_names(self.bands), use_threads=False)
+
+        def digests_of(chunk: int) -> np.ndarray:
+            table = pq.ParquetFile(self.paths[chunk][0]).read(columns=band_names(self.bands), use_threads=False)
             keys = np.stack([column.to_numpy() for column in table.columns], axis=1) if table.num_rows else np.zeros((0, self.bands), np.uint64)
-            found.append(nd.signature_digests(keys)[order])
+            return nd.signature_digests(keys)[self.orders[chunk]]
+
+        with ThreadPoolExecutor(SCAN_THREADS) as pool:
+            found = list(pool.map(digests_of, range(len(self.paths))))
         return np.concatenate(found) if found else np.zeros(0, np.uint64)
 
     def slots_of(self, rows: np.ndarray) -> np.ndarray:
@@ -258,13 +265,19 @@ def _contamination(signed: CorpusSignatures, removed: np.ndarray) -> tuple[np.nd
     held_chunks, train_chunks = signed.chunk_of(held), signed.chunk_of(train)
     grams, counts = _held_grams(signed, held, held_chunks)
     wanted = audit.SortedHashes(audit.distinct_sorted(grams))
-    hits = audit.TrainGrams()
-    if len(wanted.distinct):
-        for chunk in np.unique(train_chunks):
+
+    def found_in(chunks: np.ndarray) -> np.ndarray:
+        hits = audit.TrainGrams()
+        for chunk in chunks:
             for _, values, _ in signed.grams(chunk, train[train_chunks == chunk]):
                 hits.add(wanted.common(values))
+        return hits.finish()
+
+    scanned = np.unique(train_chunks) if len(wanted.distinct) else np.zeros(0, np.int64)
+    with ThreadPoolExecutor(SCAN_THREADS) as pool:  # the train chunks scanned in interleaved halves
+        found = list(pool.map(found_in, [scanned[part::SCAN_THREADS] for part in range(SCAN_THREADS)]))
     starts = np.concatenate([[0], np.cumsum(counts)]).astype(np.int64)
-    return held, counts, audit.shared_counts(grams, starts, hits.finish())
+    return held, counts, audit.shared_counts(grams, starts, audit.distinct_sorted(np.concatenate(found)))
 
 
 def _held_grams(signed: CorpusSignatures, held: np.ndarray, held_chunks: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
@@ -305,7 +318,8 @@ def write_findings(
     dirty = options["contamination"]
     keys, split_names = pa.array(chunks, pa.string()), pa.array(SPLITS)
     members = findings.members
-    placed, measured = locate(members), locate(findings.measured)
+    located = locate(np.concatenate([members, findings.measured]))  # one pass over the chunk files
+    placed, measured = located.slice(0, len(members)), located.slice(len(members))
     cluster_ids = np.unique(findings.labels, return_inverse=True)[1] + 1
     member_split = signed.splits[members]
     # By cluster, then file and offset (rows number documents in that order, steps.deduplicate),

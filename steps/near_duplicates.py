@@ -52,6 +52,8 @@ import pyarrow as pa
 import pyarrow.compute as pc
 import regex
 
+from .concurrency import one_ahead
+
 MERSENNE = (1 << 61) - 1
 # The multiplier of the run polynomial (odd: invertible mod 2**64) and its inverse.
 RUN_BASE = 0x9E3779B97F4A7C15
@@ -524,8 +526,13 @@ def cluster(
     standing = np.ones(len(digests), dtype=bool)
     standing[rows[same + 1]] = False
     rejected = np.zeros(0, dtype=np.uint64)
-    for keys in band_columns:
-        members, run_starts = _open_runs(found, *_runs(np.where(standing, keys, np.uint64(0))))
+
+    def standing_runs(keys: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
+        return _runs(np.where(standing, keys, np.uint64(0)))
+
+    # The next band is read and sorted while this one's pairs are confirmed.
+    for runs in one_ahead(band_columns, standing_runs):
+        members, run_starts = _open_runs(found, *runs)
         failed = [_confirm(found, pairs, rejected, signatures_of, threshold, stats) for pairs in _run_pairs(members, run_starts, limit, stats)]
         rejected = np.sort(np.concatenate([rejected, *failed]), kind="stable")
     return found, stats
