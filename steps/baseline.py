@@ -18,8 +18,10 @@ from __future__ import annotations
 
 import argparse
 import functools
+import hashlib
 import json
 import math
+import sys
 from collections.abc import Callable, Iterator, Mapping
 from concurrent.futures import ThreadPoolExecutor
 from dataclasses import dataclass
@@ -28,9 +30,9 @@ from pathlib import Path
 import numpy as np
 import pyarrow.parquet as pq
 
-from . import job, kneser_ney
-from .formats import read_shard_stats, read_vocabulary
-from .kneser_ney import BOS_ID, EOS_ID, SMOOTHINGS, AddOneUnigram, KneserNey, SplitScore
+from . import job, kneser_ney, windows
+from .formats import NgramTotals, read_ngram_totals, read_shard_stats, read_vocabulary, write_ngram_totals
+from .kneser_ney import BOS_ID, EOS_ID, SMOOTHINGS, AddOneUnigram, Keys, KneserNey, SplitScore
 from .layout import SPLITS
 from .reader import MANIFEST, REBUILD, Build, BuildError, open_build
 from .storage import write_json
@@ -90,6 +92,7 @@ def sentences(batch: dict, where: str, vocabulary_size: int) -> tuple[np.ndarray
 
 
 Sentences = Callable[[], Iterator[tuple[np.ndarray, np.ndarray]]]
+Totals = tuple[Keys, np.ndarray]  # n-grams of the highest order and their counts (NgramCounter.totals)
 
 
 def split_sentences(build: Build, split: str) -> Iterator[tuple[np.ndarray, np.ndarray]]:
@@ -227,18 +230,29 @@ def _parts(sentences: Sentences | list[Sentences]) -> list[Sentences]:
     return sentences if isinstance(sentences, list) else [sentences]
 
 
-def score(name: str, splits: Mapping[str, Sentences | list[Sentences] | None], vocabulary_size: int, order: int, smoothing: kneser_ney.Smoothing) -> Baseline:
+def score(
+    name: str,
+    splits: Mapping[str, Sentences | list[Sentences] | None],
+    vocabulary_size: int,
+    order: int,
+    smoothing: kneser_ney.Smoothing,
+    carried: list[Totals] | None = None,
+    keep: Callable[[Totals], None] | None = None,
+) -> Baseline:
     """Count train, estimate the models of orders 2..n, and score every split (`splits` gives
     each split's sentences, None for a split without documents; train may come in parts,
-    counted side by side). Dev and test are scored side by side, each in its own order."""
+    counted side by side). Dev and test are scored side by side, each in its own order.
+    `carried`: the totals of train sentences counted before (NgramCounter.totals), added to
+    those of `splits["train"]`, in a list that is emptied; `keep` is given the summed totals."""
+    carried = carried if carried is not None else []
     try:
         counter = kneser_ney.NgramCounter(order, vocabulary_size)
     except ValueError as error:
         raise fail(f"order {order}: {error}") from None
     train = splits["train"]
-    if train is None:
+    if train is None and not carried:
         raise fail(f"{name}: the train split has no documents; nothing to count")
-    parts = _parts(train)
+    parts = _parts(train) if train is not None else []
     counters = [counter] + [kneser_ney.NgramCounter(order, vocabulary_size) for _ in parts[1:]]
 
     def count(counter: kneser_ney.NgramCounter, sentences: Sentences) -> None:
@@ -248,7 +262,10 @@ def score(name: str, splits: Mapping[str, Sentences | list[Sentences] | None], v
     with ThreadPoolExecutor(THREADS) as pool:
         for done in [pool.submit(count, *pair) for pair in zip(counters, parts)]:
             done.result()
-        counts = counter.finish(counters[1:])
+        totals = [counter.totals(counters[1:], carried.pop() if carried else None)]
+        if keep is not None:
+            keep(totals[0])
+        counts = kneser_ney.counts_of_totals(totals, order, vocabulary_size)
         if not counts.tokens:
             raise fail(f"{name}: the train split has no sentences; nothing to count")
         models = kneser_ney.estimate_models(counts, smoothing, range(2, order + 1))
@@ -278,6 +295,26 @@ def run(build: Build, order: int | None, smoothing: kneser_ney.Smoothing) -> Bas
     return score(str(build.root), splits, build.vocabulary.size, default_order(build) if order is None else order, smoothing)
 
 
+def counting_code() -> str:
+    """A digest of the code that turns stream files into n-gram totals: kept totals count only
+    while it is unchanged."""
+    hasher = hashlib.sha256()
+    for module in (kneser_ney, windows, sys.modules[__name__]):
+        hasher.update(Path(str(module.__file__)).read_bytes())
+    return hasher.hexdigest()[:16]
+
+
+def carried_totals(path: str, order: int, vocabulary_size: int, train: list[tuple[str, str]]) -> tuple[list[Totals], set[tuple[str, str]]]:
+    """The totals an earlier run kept (in a list, for `score`) and the stream files they count,
+    when they are of this order, vocabulary size and counting code and every file they count is
+    still a train stream file with the same bytes (the train split only gained files: an
+    append); else nothing, and every file is counted."""
+    kept = read_ngram_totals(path)
+    if kept is None or (kept.order, kept.vocabulary_size, kept.code) != (order, vocabulary_size, counting_code()) or not set(kept.counted) <= set(train):
+        return [], set()
+    return [(kneser_ney.Keys(kept.low, kept.high), kept.count)], set(kept.counted)
+
+
 def step_order(options: dict) -> int:
     """baseline.order, else the n of the n-gram rows (when enabled), else DEFAULT_ORDER."""
     ngram = options["windows"]["ngram"]
@@ -289,17 +326,28 @@ def step(argv: list[str] | None = None) -> None:
     run_ = job.start(argv, RULE, "Count an n-gram baseline on train and score every split.")
     layout = run_.layout
     files: dict[str, list[Path]] = {split: [] for split in SPLITS}
+    train: list[tuple[str, str]] = []  # (file, SHA-256) of the train streams
     for chunk in run_.chunks():
         for written in read_shard_stats(layout.shard_stats(chunk)).files:
             if written.kind == "stream":
                 files[written.split].append(Path(layout.root, written.file))
-    size = read_vocabulary(layout.ids).size
+                if written.split == "train":
+                    train.append((written.file, written.sha256))
+    size, order = read_vocabulary(layout.ids).size, step_order(run_.options)
+    carried, counted = carried_totals(layout.baseline_totals, order, size, train)
+    files["train"] = [Path(layout.root, file) for file, digest in train if (file, digest) not in counted]
     splits: dict[str, Sentences | list[Sentences] | None] = {
         split: functools.partial(file_sentences, paths, f"split {split}", size) if paths else None for split, paths in files.items()
     }
     if len(files["train"]) > 1:  # counted in THREADS parts, every part's counts summed
         splits["train"] = [functools.partial(file_sentences, files["train"][part::THREADS], "split train", size) for part in range(THREADS)]
-    baseline = score(layout.root, splits, size, step_order(run_.options), run_.options["baseline"]["smoothing"])
+
+    def keep(totals: Totals) -> None:
+        keys, count = totals
+        write_ngram_totals(layout.baseline_totals, NgramTotals(order, size, counting_code(), tuple(train), keys.low, keys.high, count))
+
+    print(f"train stream files: {len(counted)} counted by an earlier run, {len(files['train'])} counted now")
+    baseline = score(layout.root, splits, size, order, run_.options["baseline"]["smoothing"], carried, keep)
     write_json(layout.baseline, baseline.to_json())
     print(format_baseline(baseline))
 

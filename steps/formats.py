@@ -14,6 +14,7 @@ audit and the commands.
   (`provenance_rows_schema`, `provenance_documents_schema`: where every row comes from, kept out
   of the shards so their columns stay as they are).
 - Statistics that cross stages are typed records with JSON round trips (`ShardStats`).
+- The baseline's train n-gram totals, kept between runs (`NgramTotals`).
 
 Importing this module loads neither numpy nor Arrow (the workflow process imports it); the
 functions that need them load them.
@@ -405,3 +406,58 @@ class ShardStats:
 
 def read_shard_stats(path: str | Path) -> ShardStats:
     return ShardStats.from_json(json.loads(Path(path).read_text(encoding="utf-8")))
+
+
+# --- n-gram totals kept between runs -------------------------------------------------------------
+#
+# `interim/baseline/train-ngram-totals.npz`, an uncompressed NumPy archive: the baseline's train
+# counts at its highest order, kept so that a run whose train streams only gained files counts
+# the new files alone. Arrays: `low` and, when keys exceed 64 bits, `high` (uint64, the packed
+# n-grams of steps.kneser_ney.Keys, in key order), `count` (int64, occurrences), and `about`
+# (the UTF-8 bytes of a JSON object: order, vocabulary_size, code (a digest of the counting
+# code) and counted (every [file, sha256] of the train stream files the totals are of)).
+
+
+@dataclass(frozen=True)
+class NgramTotals:
+    """Train n-gram totals and what they were counted from."""
+
+    order: int
+    vocabulary_size: int
+    code: str
+    counted: tuple[tuple[str, str], ...]  # (stream file relative to the build folder, its SHA-256)
+    low: Any  # numpy arrays; high is None when every key fits 64 bits
+    high: Any
+    count: Any
+
+
+def write_ngram_totals(path: str | Path, totals: NgramTotals) -> None:
+    import numpy as np
+
+    from .storage import atomic_path
+
+    about = {"order": totals.order, "vocabulary_size": totals.vocabulary_size, "code": totals.code, "counted": [list(f) for f in totals.counted]}
+    arrays = {"low": totals.low, "count": totals.count, "about": np.frombuffer(json.dumps(about, sort_keys=True).encode("utf-8"), np.uint8)}
+    if totals.high is not None:
+        arrays["high"] = totals.high
+    with atomic_path(path) as temporary, open(temporary, "wb") as handle:
+        np.savez(handle, **arrays)
+
+
+def read_ngram_totals(path: str | Path) -> NgramTotals | None:
+    """The totals, or None when the file is missing or not such an archive (they are then
+    counted again)."""
+    import zipfile
+
+    import numpy as np
+
+    try:
+        with np.load(path, allow_pickle=False) as archive:
+            about = json.loads(archive["about"].tobytes().decode("utf-8"))
+            high = archive["high"] if "high" in archive.files else None
+            return NgramTotals(
+                int(about["order"]), int(about["vocabulary_size"]), str(about["code"]), tuple((str(f), str(d)) for f, d in about["counted"]),
+                archive["low"], high, archive["count"],
+            )  # fmt: skip
+    except (OSError, KeyError, ValueError, TypeError, zipfile.BadZipFile):
+        return None

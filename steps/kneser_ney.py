@@ -313,33 +313,49 @@ class NgramCounter:
         self._table, self._pending = None, []
         return parts
 
-    def finish(self, others: Sequence[NgramCounter] = ()) -> Counts:
-        """The counts of every order, from 1 to `order`, of what this counter and `others` (of
-        the same order and vocabulary, fed other sentences) were given."""
+    def totals(self, others: Sequence[NgramCounter] = (), carried: tuple[Keys, np.ndarray] | None = None) -> tuple[Keys, np.ndarray]:
+        """The distinct n-grams of order n, sorted, with their counts, of what this counter and
+        `others` (of the same order and vocabulary, fed other sentences) were given, plus the
+        `carried` totals of earlier sentences (what an earlier call returned). Empties the
+        counters."""
         if any((other.order, other.vocabulary_size) != (self.order, self.vocabulary_size) for other in others):
             raise ValueError("counters of different orders or vocabularies cannot be combined")
-        parts = self._take() + [part for other in others for part in other._take()]
+        parts = self._take() + [part for other in others for part in other._take()] + ([carried] if carried is not None else [])
+        carried = None  # held by `parts` alone, which the merge empties
         if parts:
-            keys, raw = _merge(parts)
-        else:
-            keys, raw = self.format.pack([np.empty(0, np.uint64)] * self.order), np.empty(0, np.int64)
-        levels = []
-        continuation = None
-        for k in range(self.order, 1, -1):
-            suffix = self.format.suffix(keys, k)
-            order = suffix.order()
-            suffix = suffix[order]
-            starts = suffix.starts()
-            runs = _lengths(starts, len(suffix))
-            # Where each k-gram's last k-1 ids are in the table of order k-1.
-            suffixes = np.empty(len(order), np.min_scalar_type(max(len(starts) - 1, 0)))
-            suffixes[order] = np.repeat(np.arange(len(starts), dtype=suffixes.dtype), runs)
-            levels.append(Level.of(k, keys, raw, continuation, suffixes, self.format))
-            keys, continuation = suffix[starts], runs
-            raw = np.add.reduceat(raw[order], starts) if len(starts) else raw[:0]
-            del suffix, order, suffixes
-        levels.append(Level.of(1, keys, raw, continuation, np.empty(0, np.uint8), self.format))
-        return Counts(self.vocabulary_size, tuple(reversed(levels)))
+            return _merge(parts)
+        return self.format.pack([np.empty(0, np.uint64)] * self.order), np.empty(0, np.int64)
+
+    def finish(self, others: Sequence[NgramCounter] = ()) -> Counts:
+        """The counts of every order, from 1 to `order`, of what this counter and `others` were
+        given (see `totals`)."""
+        return counts_of_totals([self.totals(others)], self.order, self.vocabulary_size)
+
+
+def counts_of_totals(totals: list[tuple[Keys, np.ndarray]], order: int, vocabulary_size: int) -> Counts:
+    """The counts of every order, from 1 to `order`, from the totals of order n
+    (NgramCounter.totals) in a one-element list, which is emptied: the table of order n is then
+    freed once the level built from it holds what it needs. Orders below n: see the module
+    docstring."""
+    keys, raw = totals.pop()
+    keys_format = KeyFormat(vocabulary_size)
+    levels = []
+    continuation = None
+    for k in range(order, 1, -1):
+        suffix = keys_format.suffix(keys, k)
+        by_suffix = suffix.order()
+        suffix = suffix[by_suffix]
+        starts = suffix.starts()
+        runs = _lengths(starts, len(suffix))
+        # Where each k-gram's last k-1 ids are in the table of order k-1.
+        suffixes = np.empty(len(by_suffix), np.min_scalar_type(max(len(starts) - 1, 0)))
+        suffixes[by_suffix] = np.repeat(np.arange(len(starts), dtype=suffixes.dtype), runs)
+        levels.append(Level.of(k, keys, raw, continuation, suffixes, keys_format))
+        keys, continuation = suffix[starts], runs
+        raw = np.add.reduceat(raw[by_suffix], starts) if len(starts) else raw[:0]
+        del suffix, by_suffix, suffixes
+    levels.append(Level.of(1, keys, raw, continuation, np.empty(0, np.uint8), keys_format))
+    return Counts(vocabulary_size, tuple(reversed(levels)))
 
 
 def _narrow(counts: np.ndarray) -> np.ndarray:

@@ -63,6 +63,11 @@ class Layout:
         return self._join("stats", "baseline.json")
 
     @property
+    def baseline_totals(self) -> str:
+        """The baseline's train n-gram totals, kept for the next run (steps.formats.NgramTotals)."""
+        return self._join("interim", "baseline", "train-ngram-totals.npz")
+
+    @property
     def accounting(self) -> str:
         return self._join("stats", "accounting.json")
 

@@ -1,7 +1,9 @@
-"""`corpusmill baseline` (steps/baseline.py): Kneser–Ney perplexity of a finished build's splits."""
+"""`corpusmill baseline` (steps/baseline.py): Kneser–Ney perplexity of a finished build's splits,
+and the train totals the workflow's step keeps for its next run."""
 
 from __future__ import annotations
 
+import dataclasses
 import json
 import re
 import shutil
@@ -14,6 +16,7 @@ import pytest
 
 from conftest import REPO, require_file, run_workflow
 from corpusmill import baseline
+from corpusmill.formats import NgramTotals, read_ngram_totals, write_ngram_totals
 from corpusmill.reader import open_build
 
 FORTUNES = Path("/usr/share/games/fortunes")
@@ -209,3 +212,46 @@ def test_a_build_whose_dev_copies_train_warns_and_an_honest_one_does_not(fortune
     assert json.loads((leaking / "build" / "manifest.json").read_text(encoding="utf-8"))["baseline"]["warnings"] == warnings
     page = (leaking / "build" / "report" / "index.html").read_text(encoding="utf-8")
     assert "<strong>Warning</strong>: dev perplexity" in page
+
+
+def kept_totals(path: Path, counted: list[tuple[str, str]], order: int = 3, size: int = 300) -> None:
+    """Write totals of three 3-grams as an earlier run would have kept them."""
+    keys = np.array([5, 9, 40], np.uint64)
+    totals = NgramTotals(order, size, baseline.counting_code(), tuple(counted), keys, None, np.array([2, 1, 7], np.int64))
+    write_ngram_totals(path, totals)
+
+
+TRAIN = [("shards/train/stream-a.parquet", "aa"), ("shards/train/stream-b.parquet", "bb")]
+
+
+def test_kept_totals_read_back_as_written_and_an_unreadable_file_reads_as_none(tmp_path: Path) -> None:
+    """The archive is NumPy's own .npz (read here with numpy.load); a truncated or foreign file
+    is counted again rather than trusted."""
+    path = tmp_path / "totals.npz"
+    kept_totals(path, TRAIN)
+    with np.load(path) as archive:
+        assert sorted(archive.files) == ["about", "count", "low"]
+        assert json.loads(archive["about"].tobytes())["counted"] == [list(f) for f in TRAIN]
+    read = read_ngram_totals(path)
+    assert read is not None and read.counted == tuple(TRAIN) and read.high is None
+    assert read.low.tolist() == [5, 9, 40] and read.count.tolist() == [2, 1, 7]
+    path.write_bytes(path.read_bytes()[:100])
+    assert read_ngram_totals(path) is None
+    assert read_ngram_totals(tmp_path / "missing.npz") is None
+
+
+def test_kept_totals_are_carried_only_when_the_train_streams_only_gained_files(tmp_path: Path) -> None:
+    path = str(tmp_path / "totals.npz")
+    kept_totals(tmp_path / "totals.npz", TRAIN)
+    added = [*TRAIN, ("shards/train/stream-c.parquet", "cc")]
+    carried, counted = baseline.carried_totals(path, 3, 300, added)
+    assert counted == set(TRAIN) and carried[0][1].tolist() == [2, 1, 7]
+    edited = [TRAIN[0], ("shards/train/stream-b.parquet", "b2")]
+    removed = TRAIN[:1]
+    for train, order, size in [(edited, 3, 300), (removed, 3, 300), (added, 4, 300), (added, 3, 301)]:
+        assert baseline.carried_totals(path, order, size, train) == ([], set())
+    # Counted by other code (another version of the counting): counted again.
+    other = read_ngram_totals(path)
+    assert other is not None
+    write_ngram_totals(path, dataclasses.replace(other, code="0" * 16))
+    assert baseline.carried_totals(path, 3, 300, added) == ([], set())

@@ -145,6 +145,9 @@ def test_with_a_frozen_vocabulary_each_change_equals_a_clean_build_and_spares_th
         spared = {name: state for name, state in before_shards.items() if chunk_of(name) in untouched}
         assert len(spared) == 9 * len(untouched)
         assert {name: now_shards[name] for name in spared} == spared, label
+        if label.startswith("add"):  # the baseline counts the new file's train stream alone
+            log = (build / "logs" / "baseline" / "baseline.log").read_text(encoding="utf-8")
+            assert f"train stream files: {len(now_chunks) - 1} counted by an earlier run, 1 counted now" in log
         check_like_a_clean_build(base, overrides, f"frozen {label}")
 
 
