@@ -38,7 +38,7 @@ SCOPE = {
         "document_block_coverage",
         "CorpusBlocks.*",
     ],
-    "vocabulary": ["choose_size", "build_vocabulary", "sort_by_frequency", "unknown_class"],
+    "vocabulary": ["choose_size", "build_vocabulary", "sort_by_frequency", "unknown_class", "merge_counts", "read_kept_sum"],
     "encoder": ["WordEncoder.__init__", "WordEncoder.ids"],
     "accounting": ["merge"],
     "reader": [
@@ -56,7 +56,7 @@ SCOPE = {
     ],
     "clean": ["normalize", "stream_safe", "clean_text", "rejection", "CleanOptions.*"],
     "chunks": ["chunk_schema", "row_weights", "removed_mask"],
-    "formats": ["escape", "unescape", "read_vocabulary", "_raise_bad_line"],
+    "formats": ["escape", "unescape", "read_vocabulary", "_raise_bad_line", "write_ngram_totals", "read_ngram_totals"],
 }
 # Mutant names in DEVELOPERS.md's section "Equivalent mutants", each in backquotes.
 LISTED = re.compile(r"`(steps\.[^`\s]+__mutmut_\d+)`")

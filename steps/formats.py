@@ -437,7 +437,7 @@ def write_ngram_totals(path: str | Path, totals: NgramTotals) -> None:
     from .storage import atomic_path
 
     about = {"order": totals.order, "vocabulary_size": totals.vocabulary_size, "code": totals.code, "counted": [list(f) for f in totals.counted]}
-    arrays = {"low": totals.low, "count": totals.count, "about": np.frombuffer(json.dumps(about, sort_keys=True).encode("utf-8"), np.uint8)}
+    arrays = {"low": totals.low, "count": totals.count, "about": np.frombuffer(json.dumps(about).encode(), np.uint8)}
     if totals.high is not None:
         arrays["high"] = totals.high
     with atomic_path(path) as temporary, open(temporary, "wb") as handle:
@@ -446,14 +446,14 @@ def write_ngram_totals(path: str | Path, totals: NgramTotals) -> None:
 
 def read_ngram_totals(path: str | Path) -> NgramTotals | None:
     """The totals, or None when the file is missing or not such an archive (they are then
-    counted again)."""
+    counted again). Never unpickles: an archive holding Python objects is not one of ours."""
     import zipfile
 
     import numpy as np
 
     try:
         with np.load(path, allow_pickle=False) as archive:
-            about = json.loads(archive["about"].tobytes().decode("utf-8"))
+            about = json.loads(archive["about"].tobytes().decode())
             high = archive["high"] if "high" in archive.files else None
             return NgramTotals(
                 int(about["order"]), int(about["vocabulary_size"]), str(about["code"]), tuple((str(f), str(d)) for f, d in about["counted"]),

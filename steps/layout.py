@@ -207,6 +207,11 @@ class Layout:
         return self._join("interim", "vocabulary", "counts.parquet")
 
     @property
+    def chunk_counts_sum(self) -> str:
+        """The chunks' token counts summed, kept for the next run (steps.vocabulary.merge_counts)."""
+        return self._join("interim", "vocabulary", "chunk-counts-sum.parquet")
+
+    @property
     def abbreviations(self) -> str:
         return self._join("interim", "abbreviations.txt")
 

@@ -6,7 +6,8 @@ each leaves files of jobs that no longer exist (old chunk tables and counts, sha
 chunks or kinds that are gone, their logs). They waste space, and stale shards would be taken
 for part of the build. After a successful run of the whole workflow, every file under the build folder that is
 neither an input, an output nor a log of a job of the run's plan is removed, except the cache
-of learned subword models (a setting changed back reuses its model). Only a run of the default
+of learned subword models (a setting changed back reuses its model) and what the Snakefile adds
+to the plan's files (the baseline's kept train totals, while the baseline is on). Only a run of the default
 target knows the whole plan, so a run of a single target removes nothing.
 """
 

@@ -15,6 +15,7 @@ stats/token_counts.parquet (every word's train, dev and test counts, or every pi
 
 from __future__ import annotations
 
+import json
 from collections.abc import Sequence
 from dataclasses import dataclass
 from pathlib import Path
@@ -26,7 +27,7 @@ import pyarrow.parquet as pq
 import regex
 
 from . import job
-from .formats import BOS, EOS, RESERVED, UNK, FormatError, Vocabulary, read_vocabulary
+from .formats import BOS, EOS, METADATA_KEY, RESERVED, UNK, FormatError, Vocabulary, file_sha256, read_vocabulary
 from .layout import SPLITS
 from .storage import write_table, write_text
 
@@ -80,15 +81,37 @@ def sum_counts(tables: Sequence[pa.Table]) -> pa.Table:
     return summed.filter(pc.not_equal(summed["count"], 0))
 
 
-def merge_counts(paths: Sequence[str], removed: str | None = None) -> tuple[pa.Table, dict[str, dict[str, int]]]:
+def read_kept_sum(path: str) -> tuple[pa.Table, set[tuple[str, str]]]:
+    """A kept sum of chunk count tables and the (path, SHA-256) of every table in it; an empty
+    sum when the file is missing or unreadable (the tables are then summed again)."""
+    try:
+        table = pq.read_table(path)
+        counted = json.loads(table.schema.metadata[METADATA_KEY])["counted"]
+        return table.replace_schema_metadata(None).cast(COUNTS_SCHEMA), {(str(p), str(d)) for p, d in counted}
+    except (OSError, KeyError, TypeError, ValueError, pa.ArrowException):
+        return COUNTS_SCHEMA.empty_table(), set()
+
+
+def merge_counts(paths: Sequence[str], removed: str | None = None, kept: str | None = None) -> tuple[pa.Table, dict[str, dict[str, int]]]:
     """One table token → train, dev, test counts, summed over chunks minus the counts of the
     `removed` (duplicate) documents, sorted by (-train, token); and the boundary symbols'
-    counts per split ({"<s>": {"train": documents, …}, "</s>": {"train": sentences, …}})."""
+    counts per split ({"<s>": {"train": documents, …}, "</s>": {"train": sentences, …}}).
+    `kept`: where the sum of the chunk tables is kept with the SHA-256 of each; a later call
+    whose tables are those and more (chunks added) sums only the new ones."""
+    summed, todo = COUNTS_SCHEMA.empty_table(), list(paths)
+    if kept:
+        digests = {path: file_sha256(path) for path in paths}
+        carried, counted = read_kept_sum(kept)
+        if counted and counted <= set(digests.items()):
+            summed, todo = carried, [path for path in paths if (path, digests[path]) not in counted]
+        print(f"chunk count tables: {len(paths) - len(todo)} summed by an earlier run, {len(todo)} summed now")
     # Sum a few chunk tables at a time into the running total: memory follows the vocabulary,
     # not the number of chunks (integer sums, so the order of merging cannot change a count).
-    summed = COUNTS_SCHEMA.empty_table()
-    for start in range(0, len(paths), MERGE_FILES):
-        summed = sum_counts([summed] + [pq.read_table(p) for p in paths[start : start + MERGE_FILES]])
+    for start in range(0, len(todo), MERGE_FILES):
+        summed = sum_counts([summed] + [pq.read_table(p) for p in todo[start : start + MERGE_FILES]])
+    if kept:
+        about = json.dumps({"counted": [[path, digests[path]] for path in paths]}).encode("utf-8")
+        write_table(kept, summed.replace_schema_metadata({METADATA_KEY: about}))
     if removed:
         duplicates = pq.read_table(removed)
         summed = sum_counts([summed, duplicates.set_column(2, "count", pc.negate(duplicates["count"]))])
@@ -195,10 +218,13 @@ def read_frozen(path: str | Path, unknown: str) -> Vocabulary:
     return vocabulary
 
 
-def vocabulary_from_counts(count_paths: Sequence[str], removed: str | None, config: dict, frozen: str | None) -> tuple[Vocabulary, pa.Table]:
-    """The vocabulary (built, or the frozen file checked) and the token counts of the build;
-    raise VocabularyError when train is empty or the frozen file is unusable."""
-    counts, boundaries = merge_counts(count_paths, removed)
+def vocabulary_from_counts(
+    count_paths: Sequence[str], removed: str | None, config: dict, frozen: str | None, kept: str | None = None
+) -> tuple[Vocabulary, pa.Table]:
+    """The vocabulary (built, or the frozen file checked) and the token counts of the build
+    (`kept`: see merge_counts); raise VocabularyError when train is empty or the frozen file is
+    unusable."""
+    counts, boundaries = merge_counts(count_paths, removed, kept)
     totals = {split: boundaries[BOS][split] for split in SPLITS}
     if not totals["train"]:
         raise VocabularyError(
@@ -261,7 +287,7 @@ def main_ids(argv: list[str]) -> None:
     frozen = options["vocabulary"]["frozen"]
     chunks = run.chunks()
     try:
-        vocabulary, counts = vocabulary_from_counts([layout.counts(c) for c in chunks], layout.removed_counts, options, frozen)
+        vocabulary, counts = vocabulary_from_counts([layout.counts(c) for c in chunks], layout.removed_counts, options, frozen, layout.chunk_counts_sum)
     except VocabularyError as error:
         raise SystemExit(f"corpusmill: {'vocabulary.frozen: ' if frozen else ''}{error}") from None
     write_table(layout.word_counts, counts)

@@ -195,8 +195,9 @@ def test_every_document_read_is_kept_or_recorded_as_dropped_with_its_reason(tmp_
 def test_files_of_jobs_that_no_longer_exist_are_removed_after_a_full_run(tmp_path: Path):
     """Removing an input leaves its chunk's table, tally, counts, removed list, shard files of
     every split and kind, and logs behind; turning the n-gram windows off leaves every chunk's
-    n-gram shard files and their provenance tables behind. The next run removes them (and `corpusmill audit` passes, which
-    fails on a shard file not in the manifest), while a dry run removes nothing."""
+    n-gram shard files and their provenance tables behind, and turning the baseline off its kept
+    train totals. The next run removes them (and `corpusmill audit` passes, which fails on a
+    shard file not in the manifest), while a dry run removes nothing."""
     root = tmp_path / "raw"
     root.mkdir()
     for name in ("a", "b", "c"):
@@ -206,8 +207,12 @@ def test_files_of_jobs_that_no_longer_exist_are_removed_after_a_full_run(tmp_pat
     build = tmp_path / "run" / "build"
     old = {p for p in build.rglob("*") if p.is_file() and ("c.txt" in p.name or p.name.startswith("ngram-"))}
     assert len({p for p in old if "c.txt" in p.name}) >= 9 + 6 and len({p for p in old if p.name.startswith("ngram-")}) == 2 * 3 * 3
+    totals = build / "interim" / "baseline" / "train-ngram-totals.npz"
+    assert totals.is_file()  # kept for the next run while the baseline is on
+    old.add(totals)
     (root / "c.txt").unlink()
     options["windows"] = {"ngram": {"enabled": False}}
+    options["baseline"] = {"enabled": False}
     run_workflow(tmp_path / "run", options, "-n")
     assert all(p.exists() for p in old)
     run = run_workflow(tmp_path / "run", options)

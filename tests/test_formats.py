@@ -32,6 +32,7 @@ from corpusmill.formats import (
     VOCABULARY_HEADER,
     Figures,
     FormatError,
+    NgramTotals,
     ShardFile,
     ShardStats,
     Vocabulary,
@@ -39,11 +40,13 @@ from corpusmill.formats import (
     file_sha256,
     id_type_name,
     ids_digest,
+    read_ngram_totals,
     read_shard_stats,
     read_vocabulary,
     shard_metadata,
     shard_schema,
     unescape,
+    write_ngram_totals,
 )
 from corpusmill.reader import open_build
 from corpusmill.subword import trainer_options
@@ -366,3 +369,30 @@ def test_file_sha256_equals_hashlib_over_the_whole_file(tmp_path: Path) -> None:
         path = tmp_path / f"{size}.bin"
         path.write_bytes(rng.integers(0, 256, size, dtype=np.uint8).tobytes())
         assert file_sha256(path) == hashlib.sha256(path.read_bytes()).hexdigest(), size
+
+
+def test_ngram_totals_read_back_as_written_and_an_unreadable_file_reads_as_none(tmp_path: Path) -> None:
+    """The archive is NumPy's own .npz (read here with numpy.load); a truncated or foreign file
+    is counted again rather than trusted."""
+    path = tmp_path / "totals.npz"
+    counted = (("shards/train/stream-a.parquet", "aa"), ("shards/train/stream-b.parquet", "bb"))
+    write_ngram_totals(path, NgramTotals(3, 300, "c0de", counted, np.array([5, 9, 40], np.uint64), None, np.array([2, 1, 7], np.int64)))
+    with np.load(path) as archive:
+        assert sorted(archive.files) == ["about", "count", "low"]
+        assert json.loads(archive["about"].tobytes())["counted"] == [list(f) for f in counted]
+    read = read_ngram_totals(path)
+    assert read is not None and read.counted == counted and read.high is None
+    assert (read.order, read.vocabulary_size, read.code) == (3, 300, "c0de")
+    assert read.low.tolist() == [5, 9, 40] and read.count.tolist() == [2, 1, 7]
+    assert read.low.dtype == np.uint64 and read.count.dtype == np.int64
+    wide = NgramTotals(7, 2**21, "c0de", counted, np.array([1, 2], np.uint64), np.array([0, 3], np.uint64), np.array([4, 5], np.int64))
+    write_ngram_totals(path, wide)
+    read = read_ngram_totals(path)
+    assert read is not None and read.high is not None and read.high.tolist() == [0, 3] and read.order == 7
+    path.write_bytes(path.read_bytes()[:100])
+    assert read_ngram_totals(path) is None
+    assert read_ngram_totals(tmp_path / "missing.npz") is None
+    # Python objects in the archive (unpickling them could run code): refused, never loaded.
+    about = np.frombuffer(json.dumps({"order": 3, "vocabulary_size": 300, "code": "c0de", "counted": []}).encode(), np.uint8)
+    np.savez(path, low=np.array([object()], dtype=object), count=np.array([1]), about=about)
+    assert read_ngram_totals(path) is None

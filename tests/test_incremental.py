@@ -2,8 +2,8 @@
 what a clean build of the same corpus and configuration gives.
 
 Outside reference: a clean build in a fresh folder (hashlib.sha256 of every shard file,
-vocabulary.tsv and manifest.json), and os.stat for which shard files a rebuild rewrote. The
-corpus is one chunk per file (corpus.pack_mb: 0) of seeded invented text with no paragraph
+vocabulary.tsv, manifest.json and every file under stats/), and os.stat for which shard files a
+rebuild rewrote. The corpus is one chunk per file (corpus.pack_mb: 0) of seeded invented text with no paragraph
 repeated across files, so a change to a file touches its own chunk only: with a frozen
 vocabulary (ids that never move), every shard file of every other chunk keeps its bytes and is
 not even rewritten.
@@ -83,8 +83,9 @@ def changes(seed: int, files: dict[str, str]) -> list[tuple[str, dict[str, str]]
 
 
 def outputs(build: Path) -> dict[str, str]:
-    """SHA-256 of every shard file, vocabulary.tsv and manifest.json, by path in the build."""
-    paths = [*sorted((build / "shards").rglob("*.parquet")), build / "vocabulary.tsv", build / "manifest.json"]
+    """SHA-256 of every shard file, vocabulary.tsv, manifest.json and the statistics, by path in
+    the build."""
+    paths = [*sorted((build / "shards").rglob("*.parquet")), build / "vocabulary.tsv", build / "manifest.json", *sorted((build / "stats").iterdir())]
     return {p.relative_to(build).as_posix(): hashlib.sha256(p.read_bytes()).hexdigest() for p in paths}
 
 
@@ -145,7 +146,9 @@ def test_with_a_frozen_vocabulary_each_change_equals_a_clean_build_and_spares_th
         spared = {name: state for name, state in before_shards.items() if chunk_of(name) in untouched}
         assert len(spared) == 9 * len(untouched)
         assert {name: now_shards[name] for name in spared} == spared, label
-        if label.startswith("add"):  # the baseline counts the new file's train stream alone
+        if label.startswith("add"):  # the vocabulary and the baseline sum and count the new file alone
+            log = (build / "logs" / "vocabulary" / "vocabulary.log").read_text(encoding="utf-8")
+            assert f"chunk count tables: {len(now_chunks) - 1} summed by an earlier run, 1 summed now" in log
             log = (build / "logs" / "baseline" / "baseline.log").read_text(encoding="utf-8")
             assert f"train stream files: {len(now_chunks) - 1} counted by an earlier run, 1 counted now" in log
         check_like_a_clean_build(base, overrides, f"frozen {label}")

@@ -17,7 +17,17 @@ import pytest
 from conftest import run_workflow, scenario
 from corpusmill.encoder import WordEncoder
 from corpusmill.formats import RESERVED, UNK, VOCABULARY_HEADER, FormatError, read_vocabulary
-from corpusmill.vocabulary import Cutoff, VocabularyError, build_vocabulary, choose_size, read_frozen, sort_by_frequency, unknown_class
+from corpusmill.vocabulary import (
+    COUNTS_SCHEMA,
+    Cutoff,
+    VocabularyError,
+    build_vocabulary,
+    choose_size,
+    merge_counts,
+    read_frozen,
+    sort_by_frequency,
+    unknown_class,
+)
 
 
 def counts_table(train: dict[str, int], dev: dict[str, int] | None = None) -> pa.Table:
@@ -308,3 +318,49 @@ def test_a_corpus_with_no_train_document_stops_at_the_vocabulary_saying_so(tmp_p
     assert run.returncode != 0
     assert "the train split is empty: no kept document landed in train" in run.stderr
     assert not (tmp_path / "build" / "vocabulary.tsv").exists()
+
+
+def chunk_counts(path: Path, rows: list[tuple[str, str, int]]) -> str:
+    """A chunk's counts table (split, token, count) as a prepare job writes it."""
+    pq.write_table(pa.table({"split": [r[0] for r in rows], "token": [r[1] for r in rows], "count": [r[2] for r in rows]}, schema=COUNTS_SCHEMA), path)
+    return str(path)
+
+
+def recount(tables: list[list[tuple[str, str, int]]]) -> dict[tuple[str, str], int]:
+    """The per-split sums by collections.Counter, without the boundary symbols."""
+    total: Counter = Counter()
+    for rows in tables:
+        for split, token, count in rows:
+            total[split, token] += count
+    return {key: value for key, value in total.items() if key[1] not in ("<s>", "</s>")}
+
+
+def merged(table: pa.Table) -> dict[tuple[str, str], int]:
+    return {(split, token): row[split] for row in table.to_pylist() for split, token in [(s, row["token"]) for s in ("train", "dev", "test")] if row[split]}
+
+
+def test_a_kept_sum_is_reused_when_chunks_are_added_and_dropped_when_one_changes(tmp_path: Path, capsys: pytest.CaptureFixture) -> None:
+    """merge_counts with a kept sum gives the Counter recount of every chunk table, summing
+    only the tables it has not summed before while the earlier ones are unchanged; a changed
+    or missing table sums everything again."""
+    rows = [
+        [("train", "lamp", 3), ("dev", "lamp", 1), ("train", "<s>", 2), ("train", "</s>", 4)],
+        [("train", "ferry", 2), ("test", "lamp", 5), ("train", "<s>", 1)],
+        [("train", "lamp", 1), ("train", "ice", 7)],
+    ]
+    paths = [chunk_counts(tmp_path / f"c{i}.parquet", r) for i, r in enumerate(rows)]
+    kept = str(tmp_path / "kept.parquet")
+
+    def merge(count: int) -> tuple[dict, str]:
+        table, boundaries = merge_counts(paths[:count], None, kept)
+        assert boundaries["<s>"]["train"] == sum(c for r in rows[:count] for s, t, c in r if (s, t) == ("train", "<s>"))
+        return merged(table), capsys.readouterr().out
+
+    assert merge(2) == (recount(rows[:2]), "chunk count tables: 0 summed by an earlier run, 2 summed now\n")
+    assert merge(3) == (recount(rows), "chunk count tables: 2 summed by an earlier run, 1 summed now\n")
+    rows[1][0] = ("train", "ferry", 9)
+    chunk_counts(tmp_path / "c1.parquet", rows[1])
+    assert merge(3) == (recount(rows), "chunk count tables: 0 summed by an earlier run, 3 summed now\n")
+    assert merge(2) == (recount(rows[:2]), "chunk count tables: 0 summed by an earlier run, 2 summed now\n")
+    (tmp_path / "kept.parquet").write_bytes(b"not parquet")
+    assert merge(2) == (recount(rows[:2]), "chunk count tables: 0 summed by an earlier run, 2 summed now\n")
