@@ -110,7 +110,7 @@ def merge_counts(paths: Sequence[str], removed: str | None = None, kept: str | N
     for start in range(0, len(todo), MERGE_FILES):
         summed = sum_counts([summed] + [pq.read_table(p) for p in todo[start : start + MERGE_FILES]])
     if kept:
-        about = json.dumps({"counted": [[path, digests[path]] for path in paths]}).encode("utf-8")
+        about = json.dumps({"counted": [[path, digests[path]] for path in paths]}).encode()
         write_table(kept, summed.replace_schema_metadata({METADATA_KEY: about}))
     if removed:
         duplicates = pq.read_table(removed)

@@ -336,6 +336,8 @@ def recount(tables: list[list[tuple[str, str, int]]]) -> dict[tuple[str, str], i
 
 
 def merged(table: pa.Table) -> dict[tuple[str, str], int]:
+    """The nonzero counts of merge_counts' table by (split, token); a missing count (null) fails."""
+    assert all(row[split] is not None for row in table.to_pylist() for split in ("train", "dev", "test"))
     return {(split, token): row[split] for row in table.to_pylist() for split, token in [(s, row["token"]) for s in ("train", "dev", "test")] if row[split]}
 
 
@@ -364,3 +366,33 @@ def test_a_kept_sum_is_reused_when_chunks_are_added_and_dropped_when_one_changes
     assert merge(2) == (recount(rows[:2]), "chunk count tables: 0 summed by an earlier run, 2 summed now\n")
     (tmp_path / "kept.parquet").write_bytes(b"not parquet")
     assert merge(2) == (recount(rows[:2]), "chunk count tables: 0 summed by an earlier run, 2 summed now\n")
+    assert merge(2) == (recount(rows[:2]), "chunk count tables: 2 summed by an earlier run, 0 summed now\n")
+
+
+def test_merged_counts_subtract_the_removed_documents_and_give_every_split_a_count(tmp_path: Path) -> None:
+    """Against a Counter recount: the chunks' counts minus those of the removed duplicates, one
+    row per token with a count (zero when unseen) in every split, sorted by train count then
+    token; a token whose every count was removed is gone; the boundary symbols' counts per split
+    (zero where a split has none) come apart from the words."""
+    rows = [
+        [("train", "lamp", 3), ("dev", "lamp", 1), ("train", "ferry", 3), ("train", "<s>", 2), ("train", "</s>", 4)],
+        [("test", "ice", 2), ("train", "ice", 5)],
+    ]
+    removed = [("train", "lamp", 1), ("dev", "lamp", 1), ("test", "ice", 2), ("train", "<s>", 1), ("train", "</s>", 1)]
+    paths = [chunk_counts(tmp_path / f"c{i}.parquet", r) for i, r in enumerate(rows)]
+    table, boundaries = merge_counts(paths, chunk_counts(tmp_path / "removed.parquet", removed))
+    expected = Counter(recount(rows))
+    expected.subtract({(split, token): count for split, token, count in removed if token not in ("<s>", "</s>")})
+    assert merged(table) == {key: count for key, count in expected.items() if count}
+    assert table.to_pylist() == [
+        {"token": "ice", "train": 5, "dev": 0, "test": 0},
+        {"token": "ferry", "train": 3, "dev": 0, "test": 0},
+        {"token": "lamp", "train": 2, "dev": 0, "test": 0},
+    ]
+    assert boundaries == {"<s>": {"train": 1, "dev": 0, "test": 0}, "</s>": {"train": 3, "dev": 0, "test": 0}}
+
+
+def test_merging_no_chunk_tables_gives_an_empty_table_of_the_same_columns() -> None:
+    table, boundaries = merge_counts([])
+    assert table.num_rows == 0 and table.schema.names == ["token", "train", "dev", "test"]
+    assert table.schema.field("token").type == pa.string() and boundaries["<s>"] == {"train": 0, "dev": 0, "test": 0}
