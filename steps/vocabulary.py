@@ -115,12 +115,12 @@ def merge_counts(paths: Sequence[str], removed: str | None = None, kept: str | N
     if removed:
         duplicates = pq.read_table(removed)
         summed = sum_counts([summed, duplicates.set_column(2, "count", pc.negate(duplicates["count"]))])
-    boundary = pc.is_in(summed["token"], value_set=pa.array([BOS, EOS], pa.string()))
+    boundary = pc.is_in(summed["token"], value_set=pa.array([BOS, EOS]))
     boundaries = {symbol: dict.fromkeys(SPLITS, 0) for symbol in (BOS, EOS)}
     for split, token, count in zip(*(summed.filter(boundary)[name].to_pylist() for name in COUNTS_SCHEMA.names)):
         boundaries[token][split] = count
     summed = summed.filter(pc.invert(boundary))
-    tokens = pc.unique(summed["token"]) if summed.num_rows else pa.array([], pa.string())
+    tokens = pc.unique(summed["token"])
     columns = {"token": tokens}
     for split in SPLITS:
         rows = summed.filter(pc.equal(summed["split"], split))
