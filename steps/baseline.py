@@ -347,7 +347,8 @@ def step(argv: list[str] | None = None) -> None:
         write_ngram_totals(layout.baseline_totals, NgramTotals(order, size, counting_code(), tuple(train), keys.low, keys.high, count))
 
     print(f"train stream files: {len(counted)} counted by an earlier run, {len(files['train'])} counted now")
-    baseline = score(layout.root, splits, size, order, run_.options["baseline"]["smoothing"], carried, keep)
+    # With no file counted now, every train file was counted before: the kept totals stand as they are.
+    baseline = score(layout.root, splits, size, order, run_.options["baseline"]["smoothing"], carried, keep if files["train"] else None)
     write_json(layout.baseline, baseline.to_json())
     print(format_baseline(baseline))
 

@@ -109,7 +109,7 @@ def merge_counts(paths: Sequence[str], removed: str | None = None, kept: str | N
     # not the number of chunks (integer sums, so the order of merging cannot change a count).
     for start in range(0, len(todo), MERGE_FILES):
         summed = sum_counts([summed] + [pq.read_table(p) for p in todo[start : start + MERGE_FILES]])
-    if kept:
+    if kept and todo:  # with nothing summed now, the kept sum is already the sum of these tables
         about = json.dumps({"counted": [[path, digests[path]] for path in paths]}).encode()
         write_table(kept, summed.replace_schema_metadata({METADATA_KEY: about}))
     if removed:

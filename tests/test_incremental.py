@@ -3,10 +3,10 @@ what a clean build of the same corpus and configuration gives.
 
 Outside reference: a clean build in a fresh folder (hashlib.sha256 of every shard file,
 vocabulary.tsv, manifest.json and every file under stats/), and os.stat for which shard files a
-rebuild rewrote. The corpus is one chunk per file (corpus.pack_mb: 0) of seeded invented text with no paragraph
-repeated across files, so a change to a file touches its own chunk only: with a frozen
-vocabulary (ids that never move), every shard file of every other chunk keeps its bytes and is
-not even rewritten.
+rebuild rewrote. The corpus is one chunk per file (corpus.pack_mb: 0) of seeded invented text
+with no paragraph repeated across files, so a change to a file touches its own chunk only: with
+a frozen vocabulary (ids that never move), every shard file of every other chunk keeps its bytes
+and is not even rewritten.
 """
 
 from __future__ import annotations
@@ -151,6 +151,13 @@ def test_with_a_frozen_vocabulary_each_change_equals_a_clean_build_and_spares_th
             assert f"chunk count tables: {len(now_chunks) - 1} summed by an earlier run, 1 summed now" in log
             log = (build / "logs" / "baseline" / "baseline.log").read_text(encoding="utf-8")
             assert f"train stream files: {len(now_chunks) - 1} counted by an earlier run, 1 counted now" in log
+            # Run again with nothing new: every file's totals are kept, and the file is not rewritten.
+            totals = build / "interim" / "baseline" / "train-ngram-totals.npz"
+            written = totals.stat().st_mtime_ns
+            run_workflow(base / "live", overrides, "--forcerun", "baseline")
+            log = (build / "logs" / "baseline" / "baseline.log").read_text(encoding="utf-8")
+            assert f"train stream files: {len(now_chunks)} counted by an earlier run, 0 counted now" in log
+            assert totals.stat().st_mtime_ns == written
         check_like_a_clean_build(base, overrides, f"frozen {label}")
 
 

@@ -366,7 +366,9 @@ def test_a_kept_sum_is_reused_when_chunks_are_added_and_dropped_when_one_changes
     assert merge(2) == (recount(rows[:2]), "chunk count tables: 0 summed by an earlier run, 2 summed now\n")
     (tmp_path / "kept.parquet").write_bytes(b"not parquet")
     assert merge(2) == (recount(rows[:2]), "chunk count tables: 0 summed by an earlier run, 2 summed now\n")
+    written = (tmp_path / "kept.parquet").stat().st_mtime_ns
     assert merge(2) == (recount(rows[:2]), "chunk count tables: 2 summed by an earlier run, 0 summed now\n")
+    assert (tmp_path / "kept.parquet").stat().st_mtime_ns == written  # nothing new: not written again
 
 
 def test_merged_counts_subtract_the_removed_documents_and_give_every_split_a_count(tmp_path: Path) -> None:
