@@ -25,6 +25,7 @@ import re
 import zlib
 from collections.abc import Iterator
 from dataclasses import dataclass
+from itertools import chain
 from pathlib import Path, PurePosixPath
 from typing import BinaryIO, cast
 
@@ -39,6 +40,11 @@ FORMATS = (".txt", ".jsonl")
 READ_BLOCK = 1 << 20
 _TERMINATOR = re.compile(rb"\r\n|\n|\r")
 _BLANK_BYTES = b" \t\r\n\f\v"
+# One or more blank lines, matched at a line start; and the same after a line's terminator (a
+# scan for it skips quickly to the next CR or LF).
+_BLANK_RUN = rb"(?:[ \t\f\v]*(?:\r\n|\n|\r(?!\n)))+"
+_BLANK_LINES = re.compile(_BLANK_RUN)
+_BLANK_LINES_AFTER_END = re.compile(rb"(?:\r\n|\n|\r(?!\n))(" + _BLANK_RUN + rb")")
 _ESCAPED_BYTES = "".join(map(chr, range(0xDC80, 0xDD00)))  # undecodable bytes under surrogateescape
 _LONE_SURROGATE = regex.compile(r"[\ud800-\udfff]")  # JSON escapes can spell them; UTF-8 cannot
 
@@ -390,33 +396,71 @@ def open_source(path: Path, max_decompressed_bytes: int) -> BinaryIO:
     return io.BufferedReader(_BoundedReader(frames, max_decompressed_bytes, str(path)), READ_BLOCK)
 
 
-def _lines(stream: BinaryIO, offset: int, limit: int) -> Iterator[tuple[int, bytes, bool]]:
-    """Yield (offset, bytes with terminator, complete) for LF, CRLF or lone-CR lines.
+def _lines(stream: BinaryIO, offset: int, limit: int, runs: bool = False) -> Iterator[tuple[int, bytes, bool, bool]]:
+    """Yield (offset, bytes with terminator, complete, blank) for LF, CRLF or lone-CR lines.
 
     A line longer than `limit` comes in pieces of `limit` bytes marked incomplete, so no line
-    is ever held whole in memory.
+    is ever held whole in memory; a blank line (only spaces, tabs, form feeds and vertical tabs
+    before its terminator) is complete and starts where no piece ended. With `runs`,
+    consecutive blank lines come as one item and so do consecutive complete lines that are
+    not, found by one regular-expression scan of each block rather than line by line: a
+    paragraph reader then handles a paragraph at a time.
     """
     pending = b""
+    open_line = False  # `pending` continues a line whose start came as a piece
     while True:
         block = stream.read(READ_BLOCK)
         if not block:
             if pending:
-                yield offset, pending, True
+                yield offset, pending, True, not open_line and pending.strip(_BLANK_BYTES) == b""
             return
         data = pending + block
-        position = 0
-        for match in _TERMINATOR.finditer(data):
-            if match.end() == len(data) and match.group() == b"\r":
-                break  # could be the first half of CRLF: decide with the next block
-            yield offset + position, data[position : match.end()], True
-            position = match.end()
-        offset += position
-        rest = data[position:]
+        stop = _complete_lines_end(data)
+        yield from (_line_runs if runs else _each_line)(data[:stop], offset, open_line)
+        open_line = open_line and stop == 0
+        offset += stop
+        rest = data[stop:]
         while len(rest) > limit:
-            yield offset, rest[:limit], False
+            yield offset, rest[:limit], False, False
+            open_line = True
             offset += limit
             rest = rest[limit:]
         pending = rest
+
+
+def _complete_lines_end(data: bytes) -> int:
+    """Where the last line terminator of `data` ends: 0 if none, and a carriage return at the
+    very end does not count (it could be the first half of CRLF: the next block decides)."""
+    last = max(data.rfind(b"\n"), data.rfind(b"\r"))
+    if last == len(data) - 1 and data[last:] == b"\r":
+        last = max(data.rfind(b"\n", 0, last), data.rfind(b"\r", 0, last))
+    return last + 1
+
+
+def _each_line(region: bytes, offset: int, open_line: bool) -> Iterator[tuple[int, bytes, bool, bool]]:
+    """The complete lines of `region` one by one (the first continues a piece when `open_line`)."""
+    position = 0
+    for match in _TERMINATOR.finditer(region):
+        line = region[position : match.end()]
+        yield offset + position, line, True, not open_line and line.strip(_BLANK_BYTES) == b""
+        position, open_line = match.end(), False
+
+
+def _line_runs(region: bytes, offset: int, open_line: bool) -> Iterator[tuple[int, bytes, bool, bool]]:
+    """The complete lines of `region` as runs of blank lines and runs of other lines."""
+    position = 0
+    if open_line and region:  # the rest of a line begun in pieces: never blank, never with the lines after it
+        position = _TERMINATOR.search(region).end()  # type: ignore[union-attr]  # region ends with a terminator
+        yield offset, region[:position], True, False
+    first = _BLANK_LINES.match(region, position)
+    later = (gap.span(1) for gap in _BLANK_LINES_AFTER_END.finditer(region, first.end() if first else position))
+    for start, end in chain([first.span()] if first else [], later):
+        if start > position:
+            yield offset + position, region[position:start], True, False
+        yield offset + start, region[start:end], True, True
+        position = end
+    if position < len(region):
+        yield offset + position, region[position:], True, False
 
 
 def _first_line_start(handle: BinaryIO, start: int) -> tuple[int, bool]:
@@ -544,8 +588,7 @@ def _raw_text_documents(handle: BinaryIO, piece: _FilePiece, options: ReadOption
         handle.seek(offset)
     inside = False
     line_open = False  # the previous piece was an incomplete line
-    for position, data, complete in _lines(handle, offset, options.max_document_bytes):
-        blank = complete and not line_open and data.strip(_BLANK_BYTES) == b""
+    for position, data, complete, blank in _lines(handle, offset, options.max_document_bytes, runs=unit != "line"):
         starts_line = not line_open
         line_open = not complete
         if unit == "file":
@@ -669,7 +712,7 @@ def _json_documents(handle: BinaryIO, piece: _FilePiece, options: ReadOptions, t
         handle.seek(offset)
     decode = _decoder(options, tally, path)
     skipping = False
-    for position, data, complete in _lines(handle, offset, options.max_document_bytes):
+    for position, data, complete, _ in _lines(handle, offset, options.max_document_bytes):
         if skipping:
             skipping = not complete
             continue

@@ -8,13 +8,17 @@ import json
 import lzma
 import os
 import random
+import tempfile
 from pathlib import Path
+from unittest import mock
 
 import pytest
 import regex
 import zstandard
+from hypothesis import given, settings
+from hypothesis import strategies as st
 
-from corpusmill import unicode_breaks
+from corpusmill import ingest, unicode_breaks
 from corpusmill.ingest import (
     REFUSAL_REASONS,
     Chunk,
@@ -213,6 +217,44 @@ def test_chunking_never_changes_the_documents(tmp_path: Path, unit: str, chunk_b
     whole, _ = read_all(tmp_path, "c.txt", text_unit=unit)
     chunked, _ = read_all(tmp_path, "c.txt", chunk_bytes=chunk_bytes, text_unit=unit)
     assert [(d.doc_id, d.text) for d in chunked] == [(d.doc_id, d.text) for d in whole]
+
+
+@pytest.mark.parametrize("block", [1, 2, 3, 4, 5, 1 << 20])
+def test_a_crlf_cut_by_a_read_block_still_ends_one_line(tmp_path: Path, block: int):
+    """A block may end between CR and LF: the pair is still one terminator, not a line ended by
+    CR followed by an empty (blank) line that would end the paragraph."""
+    (tmp_path / "w.txt").write_bytes(b"one\r\ntwo\r\n\r\nthree\r\nfour\r")
+    with mock.patch.object(ingest, "READ_BLOCK", block):
+        documents, _ = read_all(tmp_path, "w.txt")
+    assert [(d.offset, d.text) for d in documents] == [(0, "one\r\ntwo\r\n"), (12, "three\r\nfour\r")]
+
+
+# Bytes that shape lines and paragraphs: terminators, blanks, a letter and a two-byte letter.
+LINE_BYTES = st.lists(st.sampled_from([b"a", b" ", b"\t", b"\x0b", b"\x0c", b"\r", b"\n", b"\r\n", "\u00e9".encode()]), max_size=80)
+
+
+@settings(max_examples=400, deadline=None)
+@given(
+    parts=LINE_BYTES,
+    unit=st.sampled_from(["paragraph", "file"]),
+    oversize=st.sampled_from(["split", "truncate", "drop"]),
+    limit=st.integers(2, 40),
+    block=st.integers(1, 17),
+    chunk_bytes=st.integers(1, 90),
+)
+def test_paragraphs_read_by_runs_of_lines_match_reading_line_by_line(parts, unit, oversize, limit, block, chunk_bytes):
+    """The paragraph reader takes runs of blank and of other lines from one scan of each block;
+    the specification is the line-by-line reading (which the line unit still uses): the same
+    documents, offsets and tallies, at every block size, size limit, policy and chunk start."""
+    with tempfile.TemporaryDirectory() as folder, mock.patch.object(ingest, "READ_BLOCK", block):
+        root = Path(folder)
+        (root / "t.txt").write_bytes(b"".join(parts))
+        options = {"text_unit": unit, "max_document_bytes": limit, "oversize": oversize, "invalid_utf8": "replace"}
+        by_runs, runs_tally = read_all(root, "t.txt", chunk_bytes, **options)
+        with mock.patch.object(ingest, "_line_runs", ingest._each_line):
+            by_lines, lines_tally = read_all(root, "t.txt", chunk_bytes, **options)
+    assert [(d.doc_id, d.offset, d.text) for d in by_runs] == [(d.doc_id, d.offset, d.text) for d in by_lines]
+    assert runs_tally.as_dict() == lines_tally.as_dict()
 
 
 def test_chunk_of_an_empty_file_yields_nothing(tmp_path: Path):
