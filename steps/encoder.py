@@ -61,9 +61,10 @@ def _add_shape(figures: dict[str, Figures], names: list[str], source_of_row: np.
 class WordEncoder:
     """Words → ids; out-of-vocabulary words → their unknown class.
 
-    Each call dictionary-encodes its tokens and finds only the distinct ones among the words
-    with Arrow's `index_in` (several times faster than a Python dict lookup of each token);
-    only OOV tokens are classified in Python."""
+    Each call dictionary-encodes its tokens, then looks the vocabulary's words up among those
+    distinct tokens with Arrow's `index_in`: the hash table is built over the batch's few
+    distinct tokens, not over every word of the vocabulary on every call (the cost that grew
+    with the vocabulary), and each word is one probe. Only OOV tokens are classified in Python."""
 
     column = "tokens"
 
@@ -78,9 +79,11 @@ class WordEncoder:
     def ids(self, tokens: pa.Array) -> np.ndarray:
         """int64 ids of `tokens` (a string array)."""
         encoded = pc.dictionary_encode(tokens)
-        found = pc.index_in(encoded.dictionary, value_set=self._words)
-        distinct = pc.fill_null(found, -1).to_numpy().astype(np.int64) + self._first
-        missing = np.flatnonzero(distinct < self._first)
+        place = pc.index_in(self._words, value_set=encoded.dictionary)  # each word's place among the distinct tokens
+        words = np.flatnonzero(pc.is_valid(place).to_numpy(zero_copy_only=False))
+        distinct = np.full(len(encoded.dictionary), -1, np.int64)
+        distinct[pc.drop_null(place).to_numpy()] = words + self._first  # ids name distinct words (steps.vocabulary)
+        missing = np.flatnonzero(distinct < 0)
         unk = self._classes[UNK]
         if self._unknown == "shape" and len(missing):
             classes = self._classes
