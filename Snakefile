@@ -118,7 +118,7 @@ onsuccess:
         current = [path for job in jobs for path in [*job.input, *job.output, *job.log]] + [L.chunk_list, L.corpus_plan]
         current += [L.options(rule) for rule in plan.RULES]
         current += [L.baseline_totals] if BASELINE else []  # kept for the next run's baseline
-        current += [] if SUBWORD else [L.chunk_counts_sum]  # kept for the next run's vocabulary
+        current += [] if SUBWORD else [L.chunk_counts_sum, L.removed_counts_by_chunk]  # kept for the next run's vocabulary and deduplicate
         removed = tidy.remove(tidy.stale_files(L.root, current), L.root)
         if removed:
             print(f"corpusmill: {removed}", file=sys.stderr)

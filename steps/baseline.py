@@ -18,7 +18,6 @@ from __future__ import annotations
 
 import argparse
 import functools
-import hashlib
 import json
 import math
 import sys
@@ -31,7 +30,7 @@ import numpy as np
 import pyarrow.parquet as pq
 
 from . import job, kneser_ney, windows
-from .formats import NgramTotals, read_ngram_totals, read_shard_stats, read_vocabulary, write_ngram_totals
+from .formats import NgramTotals, code_digest, read_ngram_totals, read_shard_stats, read_vocabulary, write_ngram_totals
 from .kneser_ney import BOS_ID, EOS_ID, SMOOTHINGS, AddOneUnigram, Keys, KneserNey, SplitScore
 from .layout import SPLITS
 from .reader import MANIFEST, REBUILD, Build, BuildError, open_build
@@ -298,10 +297,7 @@ def run(build: Build, order: int | None, smoothing: kneser_ney.Smoothing) -> Bas
 def counting_code() -> str:
     """A digest of the code that turns stream files into n-gram totals: kept totals count only
     while it is unchanged."""
-    hasher = hashlib.sha256()
-    for module in (kneser_ney, windows, sys.modules[__name__]):
-        hasher.update(Path(str(module.__file__)).read_bytes())
-    return hasher.hexdigest()[:16]
+    return code_digest(kneser_ney, windows, sys.modules[__name__])
 
 
 def carried_totals(path: str, order: int, vocabulary_size: int, train: list[tuple[str, str]]) -> tuple[list[Totals], set[tuple[str, str]]]:

@@ -14,11 +14,15 @@ document); per chunk, interim/removed/<chunk>.parquet (the chunk's removed docum
 offset), which a chunk's later jobs read, so that a change elsewhere in the corpus that does
 not change which of its documents are removed reruns none of them; and the word counts per
 split of the removed documents (word units), which the vocabulary subtracts from the chunks'
-counts, so an unchanged chunk's counts never need recounting.
+counts, so an unchanged chunk's counts never need recounting. Each chunk's part of those counts
+is kept for the next run (interim/deduplicate/removed-counts-by-chunk.parquet), with what it
+follows from: a chunk whose prepared table and removed list are the same is not counted again.
 """
 
 from __future__ import annotations
 
+import json
+import sys
 from collections.abc import Sequence
 from concurrent.futures import ThreadPoolExecutor
 from pathlib import Path
@@ -28,9 +32,11 @@ import pyarrow as pa
 import pyarrow.compute as pc
 import pyarrow.parquet as pq
 
-from . import hygiene, job
+from . import chunks as chunks_module
+from . import hygiene, job, vocabulary
 from .accounting import problems_message
 from .chunks import removed_mask
+from .formats import METADATA_KEY, code_digest, file_sha256
 from .settings import read_json
 from .storage import write_table
 from .vocabulary import COUNTS_SCHEMA, MERGE_FILES, count_tokens, sum_counts
@@ -43,6 +49,7 @@ SECTIONS = (
 
 DUPLICATES_SCHEMA = pa.schema([("source", pa.string()), ("offset", pa.int64()), ("doc_id", pa.string()), ("duplicate_of", pa.string())])
 REMOVED_SCHEMA = pa.schema([("source", pa.string()), ("offset", pa.int64())])
+KEPT_COUNTS_SCHEMA = pa.schema([("chunk", pa.string()), *COUNTS_SCHEMA])
 # Uncompressed bytes of row groups read at once while counting removed documents: bounds the
 # job's memory whatever the chunk (a chunk of many duplicates would otherwise be read whole).
 REMOVED_READ_BYTES = 64 << 20
@@ -211,10 +218,37 @@ def removed_counts(path: str, removed: pa.Table) -> pa.Table:
     return sum_counts(parts)
 
 
+def read_kept_counts(path: str) -> dict[str, tuple[str, pa.Table]]:
+    """Each chunk's removed word counts kept by an earlier run, with what they follow from
+    (`write_kept_counts`); nothing when the file is missing or unreadable (all are counted)."""
+    try:
+        table = pq.read_table(path)
+        keys = json.loads(table.schema.metadata[METADATA_KEY])["keys"]
+        encoded = pc.dictionary_encode(table["chunk"].combine_chunks())
+    except (OSError, KeyError, TypeError, ValueError, pa.ArrowException):
+        return {}
+    order = np.argsort(encoded.indices.to_numpy(zero_copy_only=False), kind="stable")
+    bounds = np.searchsorted(encoded.indices.to_numpy(zero_copy_only=False)[order], np.arange(len(encoded.dictionary) + 1))
+    counts = table.select(COUNTS_SCHEMA.names).replace_schema_metadata(None).cast(COUNTS_SCHEMA)
+    found = {chunk: counts.take(pa.array(order[bounds[code] : bounds[code + 1]])) for code, chunk in enumerate(encoded.dictionary.to_pylist())}
+    return {chunk: (str(keys[chunk]), found[chunk]) for chunk in found if chunk in keys}
+
+
+def write_kept_counts(path: str, counted: dict[str, tuple[str, pa.Table]]) -> None:
+    """Keep each chunk's removed word counts for the next run, with the key each follows from:
+    the chunk's prepared table (its SHA-256, from the prepare job's tally), its removed list
+    (the list file's SHA-256) and the counting code."""
+    parts = [counts.add_column(0, "chunk", pa.array([chunk] * counts.num_rows, pa.string())) for chunk, (_, counts) in sorted(counted.items())]
+    table = pa.concat_tables(parts) if parts else KEPT_COUNTS_SCHEMA.empty_table()
+    about = json.dumps({"keys": {chunk: key for chunk, (key, _) in sorted(counted.items())}}).encode()
+    write_table(path, table.cast(KEPT_COUNTS_SCHEMA).replace_schema_metadata({METADATA_KEY: about}))
+
+
 def main(argv: list[str] | None = None) -> None:
     run = job.start(argv, RULE, "Find exact duplicate documents across the prepared chunks; refuse repeated ids.")
     layout, chunks = run.layout, run.chunks()
-    message = problems_message([read_json(layout.tally(chunk)) for chunk in chunks])
+    tallies = [read_json(layout.tally(chunk)) for chunk in chunks]
+    message = problems_message(tallies)
     if message:
         raise SystemExit(message)
     corpus = CorpusRows([layout.prepared(chunk) for chunk in chunks])
@@ -235,19 +269,37 @@ def main(argv: list[str] | None = None) -> None:
     drops, drop_chunk_of = hygiene.write_findings(layout, chunks, corpus.locate, signed, findings, run.options)
     del corpus, signed
 
-    def write_removed(number: int) -> pa.Table | None:
-        """Write the chunk's removed list; its word counts when there are any."""
+    words = run.options["units"] == "word"
+    kept = read_kept_counts(layout.removed_counts_by_chunk) if words else {}
+    code = code_digest(sys.modules[__name__], vocabulary, chunks_module)
+
+    def write_removed(number: int) -> tuple[str, pa.Table] | None:
+        """Write the chunk's removed list; with word units and removed documents, their word
+        counts and what they follow from (taken from the kept counts when that is unchanged)."""
+        chunk = chunks[number]
         mine = pa.concat_tables(
             [table.filter(pa.array(chunk_of == number)).select(REMOVED_SCHEMA.names),
              drops.filter(pa.array(drop_chunk_of == number)).select(REMOVED_SCHEMA.names)]
         )  # fmt: skip
-        write_table(layout.removed(chunks[number]), mine.sort_by([("source", "ascending"), ("offset", "ascending")]))
-        return removed_counts(layout.prepared(chunks[number]), mine) if run.options["units"] == "word" and mine.num_rows else None
+        write_table(layout.removed(chunk), mine.sort_by([("source", "ascending"), ("offset", "ascending")]))
+        if not words or not mine.num_rows:
+            return None
+        table_sha256 = tallies[number].get("table_sha256")  # absent from a tally of an older prepare job
+        key = f"{table_sha256}:{file_sha256(layout.removed(chunk))}:{code}" if table_sha256 else ""
+        if key and kept.get(chunk, ("", None))[0] == key:
+            return key, kept[chunk][1]
+        return key, removed_counts(layout.prepared(chunk), mine)
 
     with ThreadPoolExecutor(THREADS) as pool:
-        counted = [counts for counts in pool.map(write_removed, range(len(chunks))) if counts is not None]
-    totals = sum_counts(counted) if counted else COUNTS_SCHEMA.empty_table()
+        counted = {chunks[number]: found for number, found in enumerate(pool.map(write_removed, range(len(chunks)))) if found is not None}
+    totals = sum_counts([counts for _, counts in counted.values()]) if counted else COUNTS_SCHEMA.empty_table()
     write_table(layout.removed_counts, totals.sort_by([("split", "ascending"), ("token", "ascending")]))
+    if words:
+        now = sum(1 for chunk, (key, _) in counted.items() if not key or kept.get(chunk, ("", None))[0] != key)
+        print(f"removed documents' word counts: {len(counted) - now} chunks counted by an earlier run, {now} counted now")
+        keyed = {chunk: found for chunk, found in counted.items() if found[0]}
+        if now or set(kept) != set(keyed):
+            write_kept_counts(layout.removed_counts_by_chunk, keyed)
     print(f"{table.num_rows} duplicate documents removed, {drops.num_rows} more as near-duplicates or contaminated")
 
 

@@ -295,6 +295,15 @@ def file_sha256(path: str | Path) -> str:
     return hasher.hexdigest()
 
 
+def code_digest(*modules: Any) -> str:
+    """A digest of the source of some modules: what a result kept between runs was computed
+    by, so that it is used only while that code is unchanged."""
+    hasher = hashlib.sha256()
+    for module in modules:
+        hasher.update(Path(str(module.__file__)).read_bytes())
+    return hasher.hexdigest()[:16]
+
+
 # --- provenance ----------------------------------------------------------------------------------
 #
 # A chunk's documents of one split, encoded in the order the shard job cut them, laid end to end

@@ -192,6 +192,11 @@ class Layout:
         return self._join("interim", "duplicates.counts.parquet")
 
     @property
+    def removed_counts_by_chunk(self) -> str:
+        """Each chunk's removed word counts, kept for the next run (steps.deduplicate)."""
+        return self._join("interim", "deduplicate", "removed-counts-by-chunk.parquet")
+
+    @property
     def ids(self) -> str:
         """The ids the shards use (vocabulary.tsv's format; counts as far as known then)."""
         return self._join("interim", "vocabulary", "ids.tsv")

@@ -189,6 +189,7 @@ def prepare_chunk(
     # in the cache now; the manifest job would otherwise read the whole corpus again).
     inputs = {source: {"bytes": (Path(root) / source).stat().st_size, "sha256": file_sha256(Path(root) / source)} for source in chunk.sources}
     record = {"sources": list(chunk.sources), "chunk": chunk.index, "chunks": chunk.count, "inputs": inputs if chunk.index == 0 else {}}
+    record["table_sha256"] = file_sha256(output)  # what the deduplicate job's kept counts of this chunk follow
     write_json(tally_path, {**record, **tally.as_dict()})
     for problem in tally.problems:
         print(f"corpusmill: {problem['message']}", file=sys.stderr)

@@ -7,9 +7,10 @@ chunks or kinds that are gone, their logs). They waste space, and stale shards w
 for part of the build. After a successful run of the whole workflow, every file under the build folder that is
 neither an input, an output nor a log of a job of the run's plan is removed, except the cache
 of learned subword models (a setting changed back reuses its model) and what the Snakefile adds
-to the plan's files (the baseline's kept train totals while the baseline is on, the vocabulary's
-kept sum of chunk counts with word units). Only a run of the default
-target knows the whole plan, so a run of a single target removes nothing.
+to the plan's files (the baseline's kept train totals while the baseline is on; with word units
+the vocabulary's kept sum of chunk counts and deduplicate's kept counts of removed documents).
+Only a run of the default target knows the whole plan, so a run of a single target removes
+nothing.
 """
 
 from __future__ import annotations

@@ -197,11 +197,13 @@ def test_files_of_jobs_that_no_longer_exist_are_removed_after_a_full_run(tmp_pat
     every split and kind, and logs behind; turning the n-gram windows off leaves every chunk's
     n-gram shard files and their provenance tables behind, and turning the baseline off its kept
     train totals. The next run removes them (and `corpusmill audit` passes, which fails on a
-    shard file not in the manifest), while a dry run removes nothing."""
+    shard file not in the manifest) but keeps deduplicate's kept counts, while a dry run removes
+    nothing."""
     root = tmp_path / "raw"
     root.mkdir()
     for name in ("a", "b", "c"):
         (root / f"{name}.txt").write_text(f"File {name} has a paragraph of its own text.\n\nAnd {name} has a second one.\n")
+    (root / "a.txt").write_text("A paragraph said twice.\n\nA paragraph said twice.\n", encoding="utf-8")
     options = scenario("one-chunk-per-file", {"corpus": {"root": str(root)}})
     run_workflow(tmp_path / "run", options)
     build = tmp_path / "run" / "build"
@@ -217,6 +219,7 @@ def test_files_of_jobs_that_no_longer_exist_are_removed_after_a_full_run(tmp_pat
     assert all(p.exists() for p in old)
     run = run_workflow(tmp_path / "run", options)
     assert not any(p.exists() for p in old) and "file(s) of earlier runs that no current job uses" in run.stderr
+    assert (build / "interim" / "deduplicate" / "removed-counts-by-chunk.parquet").is_file()  # kept for the next run: a.txt repeats itself
     audit = subprocess.run([sys.executable, "-m", "corpusmill.cli", "audit", str(build)], capture_output=True, text=True, cwd=REPO)
     assert audit.returncode == 0, audit.stderr
     assert stale_files(build, [p for p in build.rglob("*") if p.is_file()]) == []

@@ -4,6 +4,7 @@ documents and the word counts of those documents."""
 
 from __future__ import annotations
 
+import json
 import random
 from collections import Counter
 from pathlib import Path
@@ -248,6 +249,50 @@ def test_the_job_hands_each_chunk_its_own_removed_documents_and_their_word_count
     counts = pq.read_table(layout.removed_counts).to_pylist()
     assert {(r["split"], r["token"]): r["count"] for r in counts} == recount(removed_rows)
     assert [(r["split"], r["token"]) for r in counts] == sorted((r["split"], r["token"]) for r in counts)
+
+
+def removed_rows(layout, keys) -> list[dict]:
+    """The prepared rows of every chunk's removed documents, read back from the chunk tables."""
+    rows = []
+    for key in keys:
+        places = {(r["source"], r["offset"]) for r in pq.read_table(layout.removed(key)).to_pylist()}
+        rows += [r for r in pq.read_table(layout.prepared(key)).to_pylist() if (r["source"], r["offset"]) in places]
+    return rows
+
+
+def test_a_chunks_removed_word_counts_are_kept_while_its_table_and_its_list_are_the_same(tmp_path, monkeypatch, capsys):
+    """Each chunk's counts are kept for the next run with the SHA-256 of its prepared table and
+    of its removed list. Run again: nothing is counted and the kept file is not rewritten. Then
+    "storm" becomes "front" in b.txt and in d.txt's repeat of it: every document keeps its
+    place, so d.txt's list of places is the same, but its removed document's words are not,
+    and the changed table recounts it (as b.txt, whose list is also the same). Reference after
+    every run: a collections.Counter recount of the removed documents' tokens."""
+    layout, keys = run_deduplicate(tmp_path, monkeypatch)
+    assert "removed documents' word counts: 0 chunks counted by an earlier run, 3 counted now" in capsys.readouterr().out
+
+    def counts() -> Counter:
+        return Counter({(r["split"], r["token"]): r["count"] for r in pq.read_table(layout.removed_counts).to_pylist()})
+
+    assert counts() == recount(removed_rows(layout, keys))
+    kept = Path(layout.removed_counts_by_chunk)
+    written = kept.stat().st_mtime_ns
+    deduplicate.main(["--build", "build"])
+    assert "3 chunks counted by an earlier run, 0 counted now" in capsys.readouterr().out
+    assert kept.stat().st_mtime_ns == written and counts() == recount(removed_rows(layout, keys))
+    for name in ("b.txt", "d.txt"):
+        path = tmp_path / "raw" / name
+        path.write_bytes(path.read_bytes().replace(b"A storm came", b"A front came"))
+        prepare.main(["--build", "build", "--chunk", keys[list(FILES).index(name)]])
+    deduplicate.main(["--build", "build"])
+    assert "1 chunks counted by an earlier run, 2 counted now" in capsys.readouterr().out
+    assert counts() == recount(removed_rows(layout, keys))
+    assert "front" in {token for _, token in counts()} and "storm" not in {token for _, token in counts()}
+    # A tally written before prepare jobs recorded their table's digest: that chunk is counted.
+    tally = Path(layout.tally(keys[0]))
+    tally.write_text(json.dumps({k: v for k, v in json.loads(tally.read_text()).items() if k != "table_sha256"}))
+    deduplicate.main(["--build", "build"])
+    assert "2 chunks counted by an earlier run, 1 counted now" in capsys.readouterr().out
+    assert counts() == recount(removed_rows(layout, keys))
 
 
 def test_with_deduplication_off_every_chunk_gets_an_empty_list(tmp_path, monkeypatch):
