@@ -4,10 +4,12 @@ from __future__ import annotations
 
 import bz2
 import gzip
+import io
 import json
 import lzma
 import os
 import random
+import re
 import tempfile
 from pathlib import Path
 from unittest import mock
@@ -229,8 +231,56 @@ def test_a_crlf_cut_by_a_read_block_still_ends_one_line(tmp_path: Path, block: i
     assert [(d.offset, d.text) for d in documents] == [(0, "one\r\ntwo\r\n"), (12, "three\r\nfour\r")]
 
 
+def test_runs_of_lines_come_as_one_item_each() -> None:
+    """With `runs`, a paragraph's lines come as one item and so do the blank lines between
+    paragraphs (the reader then does per-paragraph work, not per-line work)."""
+    text = b"one\ntwo\r\n\n \t\r\nthree\rfour"
+    assert list(ingest._lines(io.BytesIO(text), 10, 100, runs=True)) == [
+        (10, b"one\ntwo\r\n", True, False), (19, b"\n \t\r\n", True, True), (24, b"three\r", True, False),
+        (30, b"four", True, False),  # the end of the text without a terminator: left until the text ends
+    ]  # fmt: skip
+    assert len(list(ingest._lines(io.BytesIO(text), 10, 100))) == 6
+
+
 # Bytes that shape lines and paragraphs: terminators, blanks, a letter and a two-byte letter.
 LINE_BYTES = st.lists(st.sampled_from([b"a", b" ", b"\t", b"\x0b", b"\x0c", b"\r", b"\n", b"\r\n", "\u00e9".encode()]), max_size=80)
+
+
+# A line as the reference splitter reads it: up to and with its terminator (CRLF one terminator),
+# or what is left at the end of the text.
+REFERENCE_LINE = re.compile(rb"[^\r\n]*(?:\r\n|\n|\r)|[^\r\n]+")
+
+
+@settings(max_examples=400, deadline=None)
+@given(parts=LINE_BYTES, limit=st.integers(2, 40), block=st.integers(1, 17), runs=st.booleans(), start=st.integers(0, 1000))
+def test_lines_cover_the_text_in_order_and_in_bounded_pieces(parts, limit, block, runs, start):
+    """What the line scanner yields, against a reference splitter (Python's re over the whole
+    text): the items cover the text end to end with their offsets; cut where every run of
+    pieces is joined to the line it begins, they are the reference lines (with `runs`, runs of
+    them); a piece holds exactly the limit; no item is longer than the limit plus a read block
+    (memory stays bounded); blank marks exactly the lines of spaces, tabs, form and line feeds
+    that start a line."""
+    text = b"".join(parts)
+    with mock.patch.object(ingest, "READ_BLOCK", block):
+        items = list(ingest._lines(io.BytesIO(text), start, limit, runs))
+    assert b"".join(data for _, data, _, _ in items) == text
+    assert [offset for offset, _, _, _ in items] == [start + sum(len(d) for _, d, _, _ in items[:k]) for k in range(len(items))]
+    assert all(len(data) == limit for _, data, complete, _ in items if not complete)
+    assert all(0 < len(data) <= limit + block for _, data, _, _ in items)
+    reference = REFERENCE_LINE.findall(text)
+    lines, after_piece = [], False
+    for _, data, complete, blank in items:
+        found = REFERENCE_LINE.findall(data)
+        if after_piece:  # the rest of a line begun in pieces: one line, never blank
+            lines[-1] += found[0]
+            assert not blank and (not complete or len(found) == 1)
+        else:
+            lines += found
+            assert all((line.strip(b" \t\f\v\r\n") == b"") == blank for line in found) if complete else not blank
+            assert complete or len(found) == 1
+            assert runs or len(found) == 1
+        after_piece = not complete
+    assert lines == reference
 
 
 @settings(max_examples=400, deadline=None)
