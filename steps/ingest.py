@@ -16,6 +16,7 @@ from __future__ import annotations
 
 import bz2
 import codecs
+import functools
 import hashlib
 import io
 import json
@@ -41,10 +42,9 @@ READ_BLOCK = 1 << 20
 _TERMINATOR = re.compile(rb"\r\n|\n|\r")
 _BLANK_BYTES = b" \t\r\n\f\v"
 # One or more blank lines, matched at a line start; and the same after a line's terminator (a
-# scan for it skips quickly to the next CR or LF).
-_BLANK_RUN = rb"(?:[ \t\f\v]*(?:\r\n|\n|\r(?!\n)))+"
-_BLANK_LINES = re.compile(_BLANK_RUN)
-_BLANK_LINES_AFTER_END = re.compile(rb"(?:\r\n|\n|\r(?!\n))(" + _BLANK_RUN + rb")")
+# scan for it skips quickly to the next CR or LF). A blank line is at most `limit` bytes with its
+# terminator (`blank_line_patterns`).
+_BLANK_RUN = rb"(?:[ \t\f\v]{0,%d}\r\n|[ \t\f\v]{0,%d}(?:\n|\r(?!\n)))+"
 _ESCAPED_BYTES = "".join(map(chr, range(0xDC80, 0xDD00)))  # undecodable bytes under surrogateescape
 _LONE_SURROGATE = regex.compile(r"[\ud800-\udfff]")  # JSON escapes can spell them; UTF-8 cannot
 
@@ -396,12 +396,28 @@ def open_source(path: Path, max_decompressed_bytes: int) -> BinaryIO:
     return io.BufferedReader(_BoundedReader(frames, max_decompressed_bytes, str(path)), READ_BLOCK)
 
 
+def is_blank_line(line: bytes, limit: int) -> bool:
+    """Whether a whole line (with its terminator) is blank: only spaces, tabs, form feeds and
+    vertical tabs before its terminator, and at most `limit` bytes. A longer line may come in
+    pieces (`_lines`), which are never blank; were it blank when read whole, where the read
+    blocks fall would decide where a paragraph ends."""
+    return len(line) <= limit and line.strip(_BLANK_BYTES) == b""
+
+
+@functools.lru_cache(maxsize=8)
+def blank_line_patterns(limit: int) -> tuple[re.Pattern[bytes], re.Pattern[bytes]]:
+    """One or more blank lines (`is_blank_line`): matched at a line start, and found after a
+    line's terminator."""
+    run = _BLANK_RUN % (max(limit - 2, 0), max(limit - 1, 0))
+    return re.compile(run), re.compile(rb"(?:\r\n|\n|\r(?!\n))(" + run + rb")")
+
+
 def _lines(stream: BinaryIO, offset: int, limit: int, runs: bool = False) -> Iterator[tuple[int, bytes, bool, bool]]:
     """Yield (offset, bytes with terminator, complete, blank) for LF, CRLF or lone-CR lines.
 
     A line longer than `limit` comes in pieces of `limit` bytes marked incomplete, so no line
-    is ever held whole in memory; a blank line (only spaces, tabs, form feeds and vertical tabs
-    before its terminator) is complete and starts where no piece ended. With `runs`,
+    is ever held whole in memory; a blank line (`is_blank_line`) is complete and starts where
+    no piece ended. With `runs`,
     consecutive blank lines come as one item and so do consecutive complete lines that are
     not, found by one regular-expression scan of each block rather than line by line: a
     paragraph reader then handles a paragraph at a time.
@@ -412,11 +428,11 @@ def _lines(stream: BinaryIO, offset: int, limit: int, runs: bool = False) -> Ite
         block = stream.read(READ_BLOCK)
         if not block:
             if pending:
-                yield offset, pending, True, not open_line and pending.strip(_BLANK_BYTES) == b""
+                yield offset, pending, True, not open_line and is_blank_line(pending, limit)
             return
         data = pending + block
         stop = _complete_lines_end(data)
-        yield from (_line_runs if runs else _each_line)(data[:stop], offset, open_line)
+        yield from (_line_runs if runs else _each_line)(data[:stop], offset, open_line, limit)
         open_line = open_line and stop == 0
         offset += stop
         rest = data[stop:]
@@ -437,23 +453,24 @@ def _complete_lines_end(data: bytes) -> int:
     return last + 1
 
 
-def _each_line(region: bytes, offset: int, open_line: bool) -> Iterator[tuple[int, bytes, bool, bool]]:
+def _each_line(region: bytes, offset: int, open_line: bool, limit: int) -> Iterator[tuple[int, bytes, bool, bool]]:
     """The complete lines of `region` one by one (the first continues a piece when `open_line`)."""
     position = 0
     for match in _TERMINATOR.finditer(region):
         line = region[position : match.end()]
-        yield offset + position, line, True, not open_line and line.strip(_BLANK_BYTES) == b""
+        yield offset + position, line, True, not open_line and is_blank_line(line, limit)
         position, open_line = match.end(), False
 
 
-def _line_runs(region: bytes, offset: int, open_line: bool) -> Iterator[tuple[int, bytes, bool, bool]]:
+def _line_runs(region: bytes, offset: int, open_line: bool, limit: int) -> Iterator[tuple[int, bytes, bool, bool]]:
     """The complete lines of `region` as runs of blank lines and runs of other lines."""
     position = 0
     if open_line and region:  # the rest of a line begun in pieces: never blank, never with the lines after it
         position = _TERMINATOR.search(region).end()  # type: ignore[union-attr]  # region ends with a terminator
         yield offset, region[:position], True, False
-    first = _BLANK_LINES.match(region, position)
-    later = (gap.span(1) for gap in _BLANK_LINES_AFTER_END.finditer(region, first.end() if first else position))
+    at_start, after_end = blank_line_patterns(limit)
+    first = at_start.match(region, position)
+    later = (gap.span(1) for gap in after_end.finditer(region, first.end() if first else position))
     for start, end in chain([first.span()] if first else [], later):
         if start > position:
             yield offset + position, region[position:start], True, False
@@ -463,9 +480,9 @@ def _line_runs(region: bytes, offset: int, open_line: bool) -> Iterator[tuple[in
         yield offset + position, region[position:], True, False
 
 
-def _first_line_start(handle: BinaryIO, start: int) -> tuple[int, bool]:
+def _first_line_start(handle: BinaryIO, start: int, limit: int) -> tuple[int, bool]:
     """For a chunk starting at byte `start`, find the first line start >= start and whether the
-    line before it is blank (a paragraph may begin there)."""
+    line before it is blank (`is_blank_line`: a paragraph may begin there)."""
     if start == 0:
         return 0, True
     handle.seek(start - 1)
@@ -481,11 +498,12 @@ def _first_line_start(handle: BinaryIO, start: int) -> tuple[int, bool]:
         line_start = position + match.end()
         if match.group() == b"\r" and match.end() == len(block) and handle.read(1) == b"\n":
             line_start += 1
-        return line_start, _previous_line_blank(handle, line_start)
+        return line_start, _previous_line_blank(handle, line_start, limit)
 
 
-def _previous_line_blank(handle: BinaryIO, line_start: int) -> bool:
-    """Whether the line that ends just before `line_start` holds only blanks (scanning back)."""
+def _previous_line_blank(handle: BinaryIO, line_start: int, limit: int) -> bool:
+    """Whether the line that ends just before `line_start` is blank (`is_blank_line`), scanning
+    back through its blanks; no further back than `limit` bytes."""
     position = line_start
     handle.seek(max(0, position - 2))
     tail = handle.read(min(2, position))
@@ -502,9 +520,12 @@ def _previous_line_blank(handle: BinaryIO, line_start: int) -> bool:
         stripped = block.rstrip(b" \t\f\v")
         if stripped == b"":
             position -= step
+            if line_start - position > limit:
+                return False
             continue
-        return stripped[-1:] in (b"\n", b"\r")
-    return True
+        begins = position - step + len(stripped)  # where the line would start
+        return stripped[-1:] in (b"\n", b"\r") and line_start - begins <= limit
+    return line_start <= limit
 
 
 def _grapheme_cut(data: bytes) -> int:
@@ -584,7 +605,7 @@ def _raw_text_documents(handle: BinaryIO, piece: _FilePiece, options: ReadOption
     if piece.start == 0:
         offset, previous_blank = 0, True
     else:
-        offset, previous_blank = _first_line_start(handle, piece.start)
+        offset, previous_blank = _first_line_start(handle, piece.start, options.max_document_bytes)
         handle.seek(offset)
     inside = False
     line_open = False  # the previous piece was an incomplete line
@@ -708,17 +729,17 @@ def _json_documents(handle: BinaryIO, piece: _FilePiece, options: ReadOptions, t
     end = piece.end
     offset = 0
     if piece.start:
-        offset, _ = _first_line_start(handle, piece.start)
+        offset, _ = _first_line_start(handle, piece.start, options.max_document_bytes)
         handle.seek(offset)
     decode = _decoder(options, tally, path)
     skipping = False
-    for position, data, complete, _ in _lines(handle, offset, options.max_document_bytes):
+    for position, data, complete, blank in _lines(handle, offset, options.max_document_bytes):
         if skipping:
             skipping = not complete
             continue
         if end is not None and position >= end:
             return
-        if complete and data.strip(_BLANK_BYTES) == b"":
+        if blank:
             continue
         tally.file.read += 1
         if not complete or len(data) > options.max_document_bytes:

@@ -246,6 +246,19 @@ def test_runs_of_lines_come_as_one_item_each() -> None:
 LINE_BYTES = st.lists(st.sampled_from([b"a", b" ", b"\t", b"\x0b", b"\x0c", b"\r", b"\n", b"\r\n", "\u00e9".encode()]), max_size=80)
 
 
+@pytest.mark.parametrize("block", [4, 16, 64, 1 << 20])
+@pytest.mark.parametrize("chunk_bytes", [20, 1 << 30])
+def test_a_line_of_blanks_longer_than_the_size_limit_never_ends_a_paragraph(tmp_path: Path, block: int, chunk_bytes: int):
+    """Such a line comes in pieces when read blocks cut it and whole when they do not; it is
+    never blank, so the paragraph runs on through it whatever the blocks and chunks, and no
+    chunk reads the next paragraph again as a document of its own."""
+    (tmp_path / "w.txt").write_bytes(b"para one\n" + b" " * 40 + b"\n" + b"para two\n\n" + b" " * 19 + b"\npara three\n")
+    with mock.patch.object(ingest, "READ_BLOCK", block):
+        documents, tally = read_all(tmp_path, "w.txt", chunk_bytes, max_document_bytes=20, oversize="truncate")
+    assert [(d.offset, d.text) for d in documents] == [(0, "para one\n" + " " * 10), (80, "para three\n")]
+    assert tally.read == 2 and tally.file.truncated == 1
+
+
 # A line as the reference splitter reads it: up to and with its terminator (CRLF one terminator),
 # or what is left at the end of the text.
 REFERENCE_LINE = re.compile(rb"[^\r\n]*(?:\r\n|\n|\r)|[^\r\n]+")
@@ -276,7 +289,7 @@ def test_lines_cover_the_text_in_order_and_in_bounded_pieces(parts, limit, block
             assert not blank and (not complete or len(found) == 1)
         else:
             lines += found
-            assert all((line.strip(b" \t\f\v\r\n") == b"") == blank for line in found) if complete else not blank
+            assert all((line.strip(b" \t\f\v\r\n") == b"" and len(line) <= limit) == blank for line in found) if complete else not blank
             assert complete or len(found) == 1
             assert runs or len(found) == 1
         after_piece = not complete
