@@ -75,8 +75,9 @@ def unescape(text: str) -> str:
 def ids_digest(tokens: Sequence[str] | Any, kinds: Sequence[str] | Any) -> str:
     """SHA-256 of the ids: one `id<TAB>token<TAB>kind` line per id, tokens as vocabulary.tsv writes them.
 
-    The lines are joined by Arrow (a vocabulary of a few hundred thousand words took a shard
-    job a tenth of a second line by line); `tokens` and `kinds` may be Arrow arrays already."""
+    The lines are joined by Arrow, not hashed one by one in Python (every shard job reads the
+    ids, so that cost grew with the vocabulary in every job); `tokens` and `kinds` may be Arrow
+    arrays already."""
     import numpy as np
     import pyarrow as pa
     import pyarrow.compute as pc

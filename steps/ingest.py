@@ -417,10 +417,9 @@ def _lines(stream: BinaryIO, offset: int, limit: int, runs: bool = False) -> Ite
 
     A line longer than `limit` comes in pieces of `limit` bytes marked incomplete, so no line
     is ever held whole in memory; a blank line (`is_blank_line`) is complete and starts where
-    no piece ended. With `runs`,
-    consecutive blank lines come as one item and so do consecutive complete lines that are
-    not, found by one regular-expression scan of each block rather than line by line: a
-    paragraph reader then handles a paragraph at a time.
+    no piece ended. With `runs`, consecutive blank lines come as one item and so do consecutive
+    complete lines that are not, found by one regular-expression scan of each block rather than
+    line by line: a paragraph reader then handles a paragraph at a time.
     """
     pending = b""
     open_line = False  # `pending` continues a line whose start came as a piece
