@@ -57,7 +57,7 @@ SCOPE = {
     "clean": ["normalize", "stream_safe", "clean_text", "rejection", "CleanOptions.*"],
     "chunks": ["chunk_schema", "row_weights", "removed_mask"],
     "formats": ["escape", "unescape", "read_vocabulary", "_raise_bad_line", "write_ngram_totals", "read_ngram_totals"],
-    "ingest": ["_lines", "_complete_lines_end", "_each_line", "_line_runs"],
+    "ingest": ["is_blank_line", "blank_line_patterns", "_lines", "_complete_lines_end", "_each_line", "_line_runs", "_previous_line_blank"],
 }
 # Mutant names in DEVELOPERS.md's section "Equivalent mutants", each in backquotes.
 LISTED = re.compile(r"`(steps\.[^`\s]+__mutmut_\d+)`")

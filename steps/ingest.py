@@ -503,15 +503,9 @@ def _first_line_start(handle: BinaryIO, start: int, limit: int) -> tuple[int, bo
 def _previous_line_blank(handle: BinaryIO, line_start: int, limit: int) -> bool:
     """Whether the line that ends just before `line_start` is blank (`is_blank_line`), scanning
     back through its blanks; no further back than `limit` bytes."""
-    position = line_start
-    handle.seek(max(0, position - 2))
-    tail = handle.read(min(2, position))
-    back = len(tail)
-    if tail.endswith(b"\r\n"):
-        back = 2
-    elif tail.endswith((b"\n", b"\r")):
-        back = 1
-    position -= back if tail else 0
+    handle.seek(max(0, line_start - 2))
+    tail = handle.read(min(2, line_start))
+    position = line_start - (2 if tail == b"\r\n" else 1)  # where the line's terminator starts
     while position > 0:
         step = min(READ_BLOCK, position)
         handle.seek(position - step)

@@ -120,6 +120,12 @@ def mix64(values: np.ndarray) -> np.ndarray:
     return values ^ (values >> np.uint64(31))
 
 
+def warm() -> None:
+    """Build the code-point class table now: a process that forks jobs (steps.worker) builds it
+    once for all of them, where each job would build its own on first use."""
+    _classes()
+
+
 @functools.cache
 def _classes() -> np.ndarray:
     """The class of every code point: WORD (regex's \\p{L}, \\p{M}, \\p{N}), SPACE (\\s, \\p{Z})

@@ -135,6 +135,9 @@ def serve(name: str, owner: int) -> None:
     hide_pandas()
     for module in PRELOAD:
         importlib.import_module(f"{__package__}.{module}")
+    from . import near_duplicates
+
+    near_duplicates.warm()  # a table every prepare job builds on first use, shared by the forks
     listener = socket.socket(socket.AF_UNIX, socket.SOCK_STREAM)
     listener.bind("\0" + name)
     listener.listen(64)

@@ -242,6 +242,17 @@ def test_runs_of_lines_come_as_one_item_each() -> None:
     assert len(list(ingest._lines(io.BytesIO(text), 10, 100))) == 6
 
 
+@pytest.mark.parametrize("block", [1, 4, 1 << 20])
+def test_a_jsonl_record_of_exactly_the_limit_at_the_end_of_the_file_is_read(tmp_path: Path, block: int):
+    """A last line without a terminator is read whole when it holds exactly
+    corpus.max_document_bytes: only a longer one comes in pieces (and is dropped as oversize)."""
+    last = b'{"text": "abcdef"}'
+    (tmp_path / "r.jsonl").write_bytes(b'{"text": "ab"}\n' + last)
+    with mock.patch.object(ingest, "READ_BLOCK", block):
+        documents, tally = read_all(tmp_path, "r.jsonl", max_document_bytes=len(last))
+    assert [d.text for d in documents] == ["ab", "abcdef"] and tally.read == 2 and not tally.dropped
+
+
 # Bytes that shape lines and paragraphs: terminators, blanks, a letter and a two-byte letter.
 LINE_BYTES = st.lists(st.sampled_from([b"a", b" ", b"\t", b"\x0b", b"\x0c", b"\r", b"\n", b"\r\n", "\u00e9".encode()]), max_size=80)
 
@@ -318,6 +329,56 @@ def test_paragraphs_read_by_runs_of_lines_match_reading_line_by_line(parts, unit
             by_lines, lines_tally = read_all(root, "t.txt", chunk_bytes, **options)
     assert [(d.doc_id, d.offset, d.text) for d in by_runs] == [(d.doc_id, d.offset, d.text) for d in by_lines]
     assert runs_tally.as_dict() == lines_tally.as_dict()
+
+
+@settings(max_examples=300, deadline=None)
+@given(
+    parts=LINE_BYTES,
+    unit=st.sampled_from(["paragraph", "line"]),
+    oversize=st.sampled_from(["split", "truncate", "drop"]),
+    limit=st.integers(2, 40),
+    block=st.integers(1, 17),
+    chunk_bytes=st.integers(1, 90),
+)
+def test_chunking_never_changes_the_documents_of_any_text(parts, unit, oversize, limit, block, chunk_bytes):
+    """Every document belongs to the chunk it starts in, whatever the text: reading in chunks
+    (each finding its first document by looking back at the line before its start) gives the
+    documents and tallies of reading the file whole."""
+    with tempfile.TemporaryDirectory() as folder, mock.patch.object(ingest, "READ_BLOCK", block):
+        root = Path(folder)
+        (root / "t.txt").write_bytes(b"".join(parts))
+        options = {"text_unit": unit, "max_document_bytes": limit, "oversize": oversize, "invalid_utf8": "replace"}
+        whole, whole_tally = read_all(root, "t.txt", **options)
+        chunked, chunked_tally = read_all(root, "t.txt", chunk_bytes, **options)
+    assert [(d.doc_id, d.text) for d in chunked] == [(d.doc_id, d.text) for d in whole]
+    assert chunked_tally.as_dict() == whole_tally.as_dict()
+
+
+@pytest.mark.parametrize(
+    ("text", "limit", "expected"),
+    [
+        (b"\nabc\r", 10, [(1, "abc\r")]),  # an LF at the very start, a CR at the very end
+        (b"a\r\nx\r\n\r\nb\r\n", 10, [(0, "a\r\nx\r\n"), (8, "b\r\n")]),  # one-letter CRLF lines
+        (b"a\rx\r\rb\r", 10, [(0, "a\rx\r"), (5, "b\r")]),
+        (b"p\n   \nq\n", 4, [(0, "p\n"), (6, "q\n")]),  # a blank line of exactly the limit
+        (b"p\n    \nq\n", 4, [(0, "p\n ")]),  # one byte over: not blank, so one paragraph, truncated
+        (b"   \nq\n", 4, [(4, "q\n")]),  # the same at the start of the file
+        (b"    \nq\n", 4, [(0, "   ")]),
+        (b"p\n      \nq\n", 3, [(0, "p\n")]),  # a line of blanks read in pieces is not blank either,
+        (b"p\n     \nq\n", 3, [(0, "p\n")]),  # nor is what follows its last piece
+        (b"a\nX\nb\n", 10, [(0, "a\nX\nb\n")]),
+    ],
+)
+def test_documents_of_crafted_texts_whatever_the_blocks_and_chunk_starts(text: bytes, limit: int, expected: list, tmp_path: Path):
+    """Documents worked out by hand for texts at the edges of the line rules, read whole at
+    several read-block sizes and in chunks of every size (every chunk start)."""
+    (tmp_path / "c.txt").write_bytes(text)
+    options = {"max_document_bytes": limit, "oversize": "truncate"}
+    for block in (1, 2, 3, 5, 1 << 20):
+        with mock.patch.object(ingest, "READ_BLOCK", block):
+            assert [(d.offset, d.text) for d in read_all(tmp_path, "c.txt", **options)[0]] == expected, block
+            for chunk_bytes in range(1, len(text) + 1):
+                assert [(d.offset, d.text) for d in read_all(tmp_path, "c.txt", chunk_bytes, **options)[0]] == expected, (block, chunk_bytes)
 
 
 def test_chunk_of_an_empty_file_yields_nothing(tmp_path: Path):

@@ -16,7 +16,7 @@ from pathlib import Path
 
 import pytest
 
-from corpusmill import worker
+from corpusmill import near_duplicates, worker
 
 
 def stand_in(argv: list[str]) -> None:
@@ -33,6 +33,8 @@ def stand_in(argv: list[str]) -> None:
     if what == "signal":
         faulthandler.disable()  # pytest's, inherited through the fork: it would print to the terminal
         os.kill(os.getpid(), getattr(signal, argv[1]))
+    if what == "tables":  # whether the job found the code-point class table built
+        raise SystemExit(0 if near_duplicates._classes.cache_info().currsize else 3)
     if what == "hang":
         Path(argv[1]).write_text(str(os.getpid()))
         time.sleep(60)
@@ -42,6 +44,7 @@ def stand_in(argv: list[str]) -> None:
 def running_worker(monkeypatch: pytest.MonkeyPatch):
     sys.modules["corpusmill.standin"] = types.SimpleNamespace(main=stand_in)
     monkeypatch.setattr(worker, "PRELOAD", ())
+    near_duplicates._classes.cache_clear()  # the worker, not this process, must build it
     name = f"corpusmill-test-{os.getpid()}"
     server = os.fork()
     if server == 0:
@@ -84,6 +87,13 @@ def test_a_job_through_the_worker_exits_with_its_own_code_writing_to_its_own_str
         assert err.endswith("corpusmill: something a user can act on\n")
     if argv[0] == "raise":
         assert "Traceback" in err and err.endswith("ValueError: an unexpected error\n")
+
+
+def test_jobs_find_the_tables_the_worker_built_before_forking_them(running_worker, tmp_path: Path):
+    """The code-point class table of near-duplicate words is built once, in the worker, not in
+    every prepare job."""
+    status, _, _ = run(["standin", "tables"], tmp_path)
+    assert os.WIFEXITED(status) and os.WEXITSTATUS(status) == 0
 
 
 @pytest.mark.parametrize("name", ["SIGKILL", "SIGSEGV", "SIGTERM"])
