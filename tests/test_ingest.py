@@ -283,7 +283,7 @@ def test_lines_cover_the_text_in_order_and_in_bounded_pieces(parts, limit, block
     pieces is joined to the line it begins, they are the reference lines (with `runs`, runs of
     them); a piece holds exactly the limit; no item is longer than the limit plus a read block
     (memory stays bounded); blank marks exactly the lines of spaces, tabs, form and line feeds
-    that start a line."""
+    that start a line and, with their terminator, are no longer than the limit."""
     text = b"".join(parts)
     with mock.patch.object(ingest, "READ_BLOCK", block):
         items = list(ingest._lines(io.BytesIO(text), start, limit, runs))
@@ -366,7 +366,7 @@ def test_chunking_never_changes_the_documents_of_any_text(parts, unit, oversize,
         (b"    \nq\n", 4, [(0, "   ")]),
         (b"p\n      \nq\n", 3, [(0, "p\n")]),  # a line of blanks read in pieces is not blank either,
         (b"p\n     \nq\n", 3, [(0, "p\n")]),  # nor is what follows its last piece
-        (b"a\nX\nb\n", 10, [(0, "a\nX\nb\n")]),
+        (b"a\nX\nb\n", 10, [(0, "a\nX\nb\n")]),  # a line of one capital letter is text
     ],
 )
 def test_documents_of_crafted_texts_whatever_the_blocks_and_chunk_starts(text: bytes, limit: int, expected: list, tmp_path: Path):
