@@ -293,6 +293,14 @@ def test_a_chunks_removed_word_counts_are_kept_while_its_table_and_its_list_are_
     deduplicate.main(["--build", "build"])
     assert "2 chunks counted by an earlier run, 1 counted now" in capsys.readouterr().out
     assert counts() == recount(removed_rows(layout, keys))
+    # Every repeat edited away: nothing is removed, and nothing stays kept.
+    for number, name in enumerate(FILES):
+        path = tmp_path / "raw" / name
+        path.write_bytes(b"\n\n".join(b"%s %d %d" % (text.encode(), number, place) for place, text in enumerate(FILES[name])))
+        prepare.main(["--build", "build", "--chunk", keys[number]])
+    deduplicate.main(["--build", "build"])
+    assert "0 chunks counted by an earlier run, 0 counted now" in capsys.readouterr().out
+    assert counts() == Counter() and deduplicate.read_kept_counts(layout.removed_counts_by_chunk) == {}
 
 
 def test_with_deduplication_off_every_chunk_gets_an_empty_list(tmp_path, monkeypatch):
