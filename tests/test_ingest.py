@@ -3,6 +3,7 @@
 from __future__ import annotations
 
 import bz2
+import contextlib
 import gzip
 import io
 import json
@@ -11,6 +12,7 @@ import os
 import random
 import re
 import tempfile
+from collections.abc import Iterator
 from pathlib import Path
 from unittest import mock
 
@@ -270,6 +272,14 @@ def test_a_line_of_blanks_longer_than_the_size_limit_never_ends_a_paragraph(tmp_
     assert tally.read == 2 and tally.file.truncated == 1
 
 
+@contextlib.contextmanager
+def text_file(parts: list[bytes], block: int) -> Iterator[Path]:
+    """A folder holding t.txt, the parts joined, read `block` bytes at a time while it is open."""
+    with tempfile.TemporaryDirectory() as folder, mock.patch.object(ingest, "READ_BLOCK", block):
+        (Path(folder) / "t.txt").write_bytes(b"".join(parts))
+        yield Path(folder)
+
+
 # A line as the reference splitter reads it: up to and with its terminator (CRLF one terminator),
 # or what is left at the end of the text.
 REFERENCE_LINE = re.compile(rb"[^\r\n]*(?:\r\n|\n|\r)|[^\r\n]+")
@@ -320,10 +330,8 @@ def test_paragraphs_read_by_runs_of_lines_match_reading_line_by_line(parts, unit
     """The paragraph reader takes runs of blank and of other lines from one scan of each block;
     the specification is the line-by-line reading (which the line unit still uses): the same
     documents, offsets and tallies, at every block size, size limit, policy and chunk start."""
-    with tempfile.TemporaryDirectory() as folder, mock.patch.object(ingest, "READ_BLOCK", block):
-        root = Path(folder)
-        (root / "t.txt").write_bytes(b"".join(parts))
-        options = {"text_unit": unit, "max_document_bytes": limit, "oversize": oversize, "invalid_utf8": "replace"}
+    options = {"text_unit": unit, "max_document_bytes": limit, "oversize": oversize, "invalid_utf8": "replace"}
+    with text_file(parts, block) as root:
         by_runs, runs_tally = read_all(root, "t.txt", chunk_bytes, **options)
         with mock.patch.object(ingest, "_line_runs", ingest._each_line):
             by_lines, lines_tally = read_all(root, "t.txt", chunk_bytes, **options)
@@ -344,10 +352,8 @@ def test_chunking_never_changes_the_documents_of_any_text(parts, unit, oversize,
     """Every document belongs to the chunk it starts in, whatever the text: reading in chunks
     (each finding its first document by looking back at the line before its start) gives the
     documents and tallies of reading the file whole."""
-    with tempfile.TemporaryDirectory() as folder, mock.patch.object(ingest, "READ_BLOCK", block):
-        root = Path(folder)
-        (root / "t.txt").write_bytes(b"".join(parts))
-        options = {"text_unit": unit, "max_document_bytes": limit, "oversize": oversize, "invalid_utf8": "replace"}
+    options = {"text_unit": unit, "max_document_bytes": limit, "oversize": oversize, "invalid_utf8": "replace"}
+    with text_file(parts, block) as root:
         whole, whole_tally = read_all(root, "t.txt", **options)
         chunked, chunked_tally = read_all(root, "t.txt", chunk_bytes, **options)
     assert [(d.doc_id, d.text) for d in chunked] == [(d.doc_id, d.text) for d in whole]
