@@ -272,6 +272,13 @@ def test_a_line_of_blanks_longer_than_the_size_limit_never_ends_a_paragraph(tmp_
     assert tally.read == 2 and tally.file.truncated == 1
 
 
+# A text and how it is read: size limit, oversize policy, read block and chunk size.
+READINGS = {
+    "parts": LINE_BYTES, "oversize": st.sampled_from(["split", "truncate", "drop"]), "limit": st.integers(2, 40),
+    "block": st.integers(1, 17), "chunk_bytes": st.integers(1, 90),
+}  # fmt: skip
+
+
 @contextlib.contextmanager
 def text_file(parts: list[bytes], block: int) -> Iterator[Path]:
     """A folder holding t.txt, the parts joined, read `block` bytes at a time while it is open."""
@@ -318,14 +325,7 @@ def test_lines_cover_the_text_in_order_and_in_bounded_pieces(parts, limit, block
 
 
 @settings(max_examples=400, deadline=None)
-@given(
-    parts=LINE_BYTES,
-    unit=st.sampled_from(["paragraph", "file"]),
-    oversize=st.sampled_from(["split", "truncate", "drop"]),
-    limit=st.integers(2, 40),
-    block=st.integers(1, 17),
-    chunk_bytes=st.integers(1, 90),
-)
+@given(unit=st.sampled_from(["paragraph", "file"]), **READINGS)
 def test_paragraphs_read_by_runs_of_lines_match_reading_line_by_line(parts, unit, oversize, limit, block, chunk_bytes):
     """The paragraph reader takes runs of blank and of other lines from one scan of each block;
     the specification is the line-by-line reading (which the line unit still uses): the same
@@ -340,14 +340,7 @@ def test_paragraphs_read_by_runs_of_lines_match_reading_line_by_line(parts, unit
 
 
 @settings(max_examples=300, deadline=None)
-@given(
-    parts=LINE_BYTES,
-    unit=st.sampled_from(["paragraph", "line"]),
-    oversize=st.sampled_from(["split", "truncate", "drop"]),
-    limit=st.integers(2, 40),
-    block=st.integers(1, 17),
-    chunk_bytes=st.integers(1, 90),
-)
+@given(unit=st.sampled_from(["paragraph", "line"]), **READINGS)
 def test_chunking_never_changes_the_documents_of_any_text(parts, unit, oversize, limit, block, chunk_bytes):
     """Every document belongs to the chunk it starts in, whatever the text: reading in chunks
     (each finding its first document by looking back at the line before its start) gives the
