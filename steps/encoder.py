@@ -71,7 +71,7 @@ class WordEncoder:
     def __init__(self, vocabulary: Vocabulary, unknown: str) -> None:
         self.vocabulary = vocabulary
         self._first = vocabulary.first_word_id
-        self._words = pa.array(vocabulary.tokens[self._first :], pa.string())
+        self._words = vocabulary.token_array.slice(self._first)
         self._unknown = unknown
         self._classes = vocabulary.unknown_ids()
         self._unknown_ids = np.array(sorted(self._classes.values()), dtype=np.int64)

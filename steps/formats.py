@@ -28,7 +28,11 @@ from collections.abc import Iterable, Mapping, Sequence
 from dataclasses import asdict, dataclass, field
 from functools import cached_property
 from pathlib import Path
-from typing import Any
+from typing import TYPE_CHECKING, Any
+
+if TYPE_CHECKING:
+    import numpy as np
+    import pyarrow as pa
 
 VOCABULARY_HEADER = "id\ttoken\tcount\tkind"
 PAD, UNK, BOS, EOS = "<pad>", "<unk>", "<s>", "</s>"
@@ -112,14 +116,31 @@ class Vocabulary:
         return len(self.tokens)
 
     @cached_property
+    def symbol_ids(self) -> np.ndarray:
+        """The ids, ascending, of every symbol that is not a word or piece of the text (reserved,
+        unknown classes, control pieces). `read_vocabulary` hands over the ids it found with Arrow:
+        every shard job reads the ids, so a loop over them in Python grew with the vocabulary."""
+        import numpy as np
+
+        return np.array([i for i, kind in enumerate(self.kinds) if kind in SYMBOL_KINDS], np.int64)
+
+    @cached_property
+    def token_array(self) -> pa.StringArray:
+        """The tokens as an Arrow array, for lookups (`read_vocabulary` hands over the column it read)."""
+        import pyarrow as pa
+
+        return pa.array(self.tokens, pa.string())
+
+    @cached_property
     def reserved(self) -> dict[str, int]:
-        """Every symbol that is not a word or piece of the text (reserved, unknown classes,
-        control pieces) → its id."""
-        return {token: i for i, (token, kind) in enumerate(zip(self.tokens, self.kinds)) if kind in SYMBOL_KINDS}
+        """Every symbol → its id (`symbol_ids`)."""
+        return {self.tokens[i]: i for i in self.symbol_ids.tolist()}
 
     @cached_property
     def first_word_id(self) -> int:
-        return next((i for i, kind in enumerate(self.kinds) if kind not in SYMBOL_KINDS), self.size)
+        """The first id that is not a symbol (the vocabulary's size when there is none)."""
+        symbols = self.symbol_ids.tolist()
+        return next((i for i, symbol in enumerate(symbols) if i != symbol), len(symbols))
 
     @cached_property
     def index(self) -> dict[str, int]:
@@ -131,11 +152,14 @@ class Vocabulary:
 
     def unknown_ids(self) -> dict[str, int]:
         """The symbols out-of-vocabulary text maps to: <unk> and the unknown classes."""
-        return {t: i for i, (t, k) in enumerate(zip(self.tokens, self.kinds)) if k == "unknown" or t == UNK}
+        found = {token: i for token, i in self.reserved.items() if self.kinds[i] == "unknown" or token == UNK}
+        if UNK not in found and UNK in self.tokens:  # <unk> of another kind than a symbol
+            found[UNK] = self.tokens.index(UNK)
+        return found
 
-    @property
+    @cached_property
     def units(self) -> str:
-        return "subword" if any(kind in SUBWORD_KINDS for kind in self.kinds) else "word"
+        return "word" if frozenset(SUBWORD_KINDS).isdisjoint(self.kinds) else "subword"
 
     def with_counts(self, counts: Iterable[int]) -> Vocabulary:
         return Vocabulary(list(self.tokens), [int(c) for c in counts], list(self.kinds))
@@ -203,8 +227,12 @@ def read_vocabulary(path: str | Path) -> Vocabulary:
     if len(counts) and counts.min() < 0:
         raise FormatError(f"{path}: line {int(np.argmin(counts)) + 2}: a negative count")
     vocabulary = Vocabulary(tokens, counts.tolist(), kinds)
-    # The cached digest, from the Arrow columns (word fields are the tokens as they are).
-    vocabulary.__dict__["ids_digest"] = ids_digest(pa.array(tokens, pa.string()) if len(pieces) else token_column, kind_column)
+    # Cached properties computed from the Arrow columns (word fields are the tokens as they are).
+    token_array = pa.array(tokens, pa.string()) if len(pieces) else token_column
+    vocabulary.__dict__["token_array"] = token_array
+    vocabulary.__dict__["ids_digest"] = ids_digest(token_array, kind_column)
+    vocabulary.__dict__["units"] = "subword" if len(pieces) else "word"
+    vocabulary.__dict__["symbol_ids"] = np.flatnonzero(pc.is_in(kind_column, value_set=pa.array(sorted(SYMBOL_KINDS))).to_numpy(zero_copy_only=False))
     return vocabulary
 
 

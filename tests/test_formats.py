@@ -114,6 +114,38 @@ def test_word_tokens_are_written_and_read_verbatim(tmp_path: Path) -> None:
 
 
 @pytest.mark.parametrize(
+    ("tokens", "kinds", "symbols", "first_word", "unknown", "units"),
+    [
+        (["<pad>", "<unk>", "<s>", "</s>", "<unk-digits>", "a", "b"], ["reserved"] * 4 + ["unknown", "word", "word"], [0, 1, 2, 3, 4], 5,
+         {"<unk>": 1, "<unk-digits>": 4}, "word"),
+        (["<pad>", "<unk>", "<s>", "</s>", "<0x09>", "a\tb", "<ctl>", "\\"], ["control"] * 4 + ["byte", "piece", "control", "piece"],
+         [0, 1, 2, 3, 6], 4, {"<unk>": 1}, "subword"),
+        (["<pad>", "<s>", "</s>", "x", "<unk>"], ["control"] * 3 + ["piece", "piece"], [0, 1, 2], 3, {"<unk>": 4}, "subword"),
+        (["<pad>", "<unk>"], ["reserved", "reserved"], [0, 1], 2, {"<unk>": 1}, "word"),
+    ],
+)  # fmt: skip
+def test_what_read_vocabulary_works_out_from_its_columns_is_what_the_rows_say(
+    tmp_path: Path, tokens: list[str], kinds: list[str], symbols: list[int], first_word: int, unknown: dict[str, int], units: str
+) -> None:
+    """The symbols (kinds reserved, unknown and control), the first id that is not one, the ids
+    unknown text maps to and the units, written out by hand for each vocabulary; read_vocabulary
+    computes them from the file's Arrow columns and hands them over, a Vocabulary made from lists
+    computes them itself: both give these. A control piece may stand among the pieces, and an
+    <unk> piece is still where unknown text goes."""
+    path = tmp_path / "vocabulary.tsv"
+    path.write_text(Vocabulary(tokens, [0] * len(tokens), kinds).to_tsv(), encoding="utf-8")
+    read = read_vocabulary(path)
+    assert {"symbol_ids", "token_array", "units"} <= set(vars(read))  # handed over while reading
+    for vocabulary in (read, Vocabulary(tokens, [0] * len(tokens), kinds)):
+        assert vocabulary.symbol_ids.tolist() == symbols
+        assert vocabulary.reserved == {tokens[i]: i for i in symbols}
+        assert vocabulary.first_word_id == first_word
+        assert vocabulary.unknown_ids() == unknown
+        assert vocabulary.units == units
+        assert vocabulary.token_array.to_pylist() == tokens
+
+
+@pytest.mark.parametrize(
     ("text", "message"),
     [
         ("id\ttoken\tcount\n0\t<pad>\t0\treserved\n", "line 1: expected the header"),
