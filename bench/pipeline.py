@@ -17,14 +17,22 @@ One run measures, on this machine:
   vocabulary.tsv): the seconds, as a share of that scale's full build, and whether every shard
   file of the other chunks kept its bytes.
 
-The 10x corpus holds ten copies of every file; each paragraph of copy k starts with the token
-`copyk`, so copies stay distinct documents and deduplication removes exactly what it removes
-at 1x. The copies are near-duplicates by construction, so every scale runs with
-`near_duplicates.policy: off`: the clusters are found (the work is measured) and nothing is
-dropped. Shard files follow the chunks (a chunk's job holds one chunk), so nothing changes
-with the scale but the number of chunks.
+The 10x corpus holds ten copies of every file, made one of two ways (`--copies`):
+- `renamed` (the default): copy k > 0 gives about 30% of the word types (runs of letters,
+  picked by a hash of k and the case-folded word) its own ending. A document of one copy then
+  shares few word n-grams with its other copies, so deduplication and contamination meet text
+  that grows as a real corpus does: new documents, a few near-duplicates, and a vocabulary
+  about 3.7 times the 1x one, which is what Heaps' law V = K N^b gives for ten times the text
+  with b = 0.57 (b from 0.4 to 0.6 for English text: from memory). The bench prints the
+  measured growth.
+- `numbered`: each paragraph of copy k starts with the token `copyk`; every document then has
+  nine near-duplicates, the worst case for clustering and contamination, and the vocabulary
+  barely grows.
+Every scale runs with `near_duplicates.policy: off`: the clusters are found (the work is
+measured) and nothing is dropped, so every scale holds ten times the documents of 1x. Shard
+files follow the chunks (a chunk's job holds one chunk).
 
-Usage: python bench/pipeline.py [--cores 2] [--scales 1 10] [--pack-mb MB] [--keep]   (needs `pip install -e '.[bench]'`)
+Usage: python bench/pipeline.py [--cores 2] [--scales 1 10] [--copies renamed|numbered] [--pack-mb MB] [--keep]   (needs `pip install -e '.[bench]'`)
 Corpus and builds go to bench/data/, results to bench/results/pipeline.json (both gitignored).
 """
 
@@ -54,6 +62,8 @@ import yaml
 REPO = Path(__file__).resolve().parent.parent
 sys.path.insert(0, str(REPO))
 
+from corpus_copies import LETTER_RUN, renamed  # noqa: E402
+
 from corpusmill import plan, settings  # noqa: E402
 from corpusmill.segment import Segmenter  # noqa: E402
 from handwritten_baseline import run_script  # noqa: E402
@@ -71,15 +81,17 @@ def default_config() -> dict:
     return settings.resolve(raw)
 
 
-def write_corpus(folder: Path, copies: int) -> int:
-    """Split gcide into FILES .txt files of whole paragraphs (x copies); returns bytes written.
+COPY_STYLES = ("renamed", "numbered")
 
-    Copy k of a file prefixes each paragraph with `copyk` when copies > 1, so no paragraph of
-    one copy duplicates a paragraph of another.
-    """
+
+def write_corpus(folder: Path, copies: int, style: str = "renamed") -> dict:
+    """Split gcide into FILES .txt files of whole paragraphs (x copies, made as `style` says: see
+    the module docstring); returns the bytes written and the word types (distinct case-folded
+    letter runs: the growth `renamed` aims at)."""
     marker = folder / ".complete"
-    if marker.exists():
-        return sum(p.stat().st_size for p in folder.glob("*.txt"))
+    made = {"copies": copies, "style": style if copies > 1 else "single"}
+    if marker.exists() and json.loads(marker.read_text(encoding="utf-8"))["made"] == made:
+        return json.loads(marker.read_text(encoding="utf-8"))["figures"]
     if folder.exists():
         shutil.rmtree(folder)
     folder.mkdir(parents=True)
@@ -88,15 +100,21 @@ def write_corpus(folder: Path, copies: int) -> int:
     sizes = np.cumsum([len(p) + 2 for p in paragraphs])
     bounds = np.searchsorted(sizes, sizes[-1] * np.arange(1, FILES) / FILES)
     groups = np.split(np.arange(len(paragraphs)), bounds)
-    total = 0
+    total, types = 0, set()
     for copy in range(copies):
         for number, rows in enumerate(groups):
-            prefix = f"copy{copy} " if copies > 1 else ""
-            body = "\n\n".join(prefix + paragraphs[i] for i in rows) + "\n"
+            body = "\n\n".join(paragraphs[i] for i in rows) + "\n"
+            if copy and made["style"] == "renamed":
+                body = renamed(body, copy)
+            elif made["style"] == "numbered":
+                body = "\n\n".join(f"copy{copy} " + paragraphs[i] for i in rows) + "\n"
+            types.update(word.casefold() for word in LETTER_RUN.findall(body))
             name = f"part-{number:02d}.txt" if copies == 1 else f"copy{copy}-part-{number:02d}.txt"
-            total += (folder / name).write_text(body, encoding="utf-8")
-    marker.write_text("")
-    return total
+            data = body.encode("utf-8")
+            total += (folder / name).write_bytes(data)
+    figures = {"bytes": total, "word_types": len(types)}
+    marker.write_text(json.dumps({"made": made, "figures": figures}), encoding="utf-8")
+    return figures
 
 
 def floor_pass(folder: Path, config: dict) -> dict:
@@ -286,19 +304,23 @@ def shard_hashes(build: Path) -> dict[str, str]:
     return {entry["file"]: entry["sha256"] for split in json.loads((build / "manifest.json").read_text())["splits"].values() for entry in split["shards"]}
 
 
-def append_run(corpus: Path, directory: Path, overrides: dict, cores: int, full_seconds: float) -> dict:
+def append_run(corpus: Path, directory: Path, overrides: dict, cores: int, full_seconds: float, style: str, copies: int) -> dict:
     """Freeze the build's vocabulary, build once with it (the ids are the same: nothing but the
     vocabulary job should run), then add one new 2 MB file and rebuild: the seconds, the jobs,
-    and whether the shard files of every other chunk kept their bytes."""
+    and whether the shard files of every other chunk kept their bytes. The new file is one more
+    copy of a file, made as the corpus's copies are (`renamed`: the next copy's endings;
+    `numbered`: each paragraph after the token `appended`)."""
     frozen = directory / "frozen-vocabulary.tsv"
     shutil.copy2(directory / "build" / "vocabulary.tsv", frozen)
     overrides = {**overrides, "vocabulary": {"frozen": str(frozen)}}
     settle = run_build(directory, overrides, cores)
     before = shard_hashes(directory / "build")
-    source = sorted(corpus.glob("*.txt"))[3]
+    source = sorted(corpus.glob("*.txt"))[3].read_text(encoding="utf-8")
     added = corpus / "zz-appended.txt"  # after the others, as new files of a growing corpus usually are
-    paragraphs = _PARAGRAPH_BREAK.split(source.read_text(encoding="utf-8"))
-    added.write_text("\n\n".join(f"appended {paragraph}" for paragraph in paragraphs), encoding="utf-8")
+    if style == "renamed":
+        added.write_text(renamed(source, copies), encoding="utf-8")
+    else:
+        added.write_text("\n\n".join(f"appended {paragraph}" for paragraph in _PARAGRAPH_BREAK.split(source)), encoding="utf-8")
     try:
         append = run_build(directory, overrides, cores)
         after = shard_hashes(directory / "build")
@@ -318,18 +340,19 @@ def append_run(corpus: Path, directory: Path, overrides: dict, cores: int, full_
     }
 
 
-def scale_run(scale: int, cores: int, config: dict, append: bool) -> dict:
+def scale_run(scale: int, cores: int, config: dict, append: bool, style: str) -> dict:
     """Build one scale from scratch; at 1x also rebuild after one file changed; with `append`,
     add one file with a frozen vocabulary."""
     corpus = DATA / f"x{scale}"
-    size = write_corpus(corpus, scale)
+    made = write_corpus(corpus, scale, style)
+    size = made["bytes"]
     directory = DATA / "runs" / f"x{scale}"
     if directory.exists():
         shutil.rmtree(directory)
-    # The copies are near-duplicates of each other by construction: keep them all (clusters are
-    # still found and measured), so every scale holds ten times the documents of 1x.
+    # Keep every near-duplicate (clusters are still found and measured), so every scale holds
+    # ten times the documents of 1x.
     overrides = {"corpus": {"root": str(corpus), "pack_mb": config["corpus"]["pack_mb"]}, "near_duplicates": {"policy": "off"}}
-    result = {"input_mb": round(size / 1e6, 2), "files": FILES * scale}
+    result = {"input_mb": round(size / 1e6, 2), "files": FILES * scale, "copies": style if scale > 1 else "single", "word_types": made["word_types"]}
     result["build"] = run_build(directory, overrides, cores)
     result.update(build_figures(directory / "build"))
     seconds = result["build"]["seconds"]
@@ -358,7 +381,7 @@ def scale_run(scale: int, cores: int, config: dict, append: bool) -> dict:
             "share_of_full_build": round(idle["seconds"] / seconds, 3),
         }
     if append:
-        result["append"] = append_run(corpus, directory, overrides, cores, seconds)
+        result["append"] = append_run(corpus, directory, overrides, cores, seconds, style, scale)
     return result
 
 
@@ -445,8 +468,10 @@ def print_table(results: dict) -> None:
             f"({idle['cpu_seconds']:.1f} CPU s)"
         )
     if "1x" in results["scales"] and "10x" in results["scales"]:
-        ratio = results["scales"]["10x"]["build"]["seconds"] / results["scales"]["1x"]["build"]["seconds"]
-        print(f"10x / 1x build time: {ratio:.2f}")
+        one, ten = results["scales"]["1x"], results["scales"]["10x"]
+        print(f"10x / 1x build time: {ten['build']['seconds'] / one['build']['seconds']:.2f}")
+        growth = ten["word_types"] / one["word_types"]
+        print(f"10x copies {ten['copies']}: {growth:.2f} times the word types of 1x ({ten['word_types']:,} / {one['word_types']:,})")
 
 
 def main(argv: list[str] | None = None) -> None:
@@ -457,6 +482,7 @@ def main(argv: list[str] | None = None) -> None:
     parser.add_argument("--output", default=str(RESULTS / "pipeline.json"))
     parser.add_argument("--pack-mb", type=float, default=None, help="corpus.pack_mb (default: the configuration's; 0: a job per file)")
     parser.add_argument("--no-script", action="store_true", help="leave out the hand-written script")
+    parser.add_argument("--copies", choices=COPY_STYLES, default="renamed", help="how the copies of a scale above 1x are made (see the module docstring)")
     args = parser.parse_args(argv)
     if not GCIDE.exists():
         raise SystemExit(f"bench: {GCIDE} is missing; install Debian's dict-gcide package (apt-get install -y dict-gcide)")
@@ -468,7 +494,7 @@ def main(argv: list[str] | None = None) -> None:
     if not args.no_script:
         results["handwritten"] = handwritten_run(args.cores)
     for scale in args.scales:
-        results["scales"][f"{scale}x"] = scale_run(scale, args.cores, config, append=scale == max(args.scales))
+        results["scales"][f"{scale}x"] = scale_run(scale, args.cores, config, scale == max(args.scales), args.copies)
         if not args.keep:
             shutil.rmtree(DATA / "runs" / f"x{scale}", ignore_errors=True)
     Path(args.output).parent.mkdir(parents=True, exist_ok=True)
