@@ -90,8 +90,12 @@ def write_corpus(folder: Path, copies: int, style: str = "renamed") -> dict:
     letter runs: the growth `renamed` aims at)."""
     marker = folder / ".complete"
     made = {"copies": copies, "style": style if copies > 1 else "single"}
-    if marker.exists() and json.loads(marker.read_text(encoding="utf-8"))["made"] == made:
-        return json.loads(marker.read_text(encoding="utf-8"))["figures"]
+    try:
+        record = json.loads(marker.read_text(encoding="utf-8"))
+    except (OSError, ValueError):
+        record = {}  # none yet, or one from an older bench: made again
+    if record.get("made") == made:
+        return record["figures"]
     if folder.exists():
         shutil.rmtree(folder)
     folder.mkdir(parents=True)
