@@ -3,17 +3,22 @@
 # and the ids; the last two come from checkpoints (rules/deduplicate.smk,
 # rules/vocabulary.smk) and are ancient inputs whose digests are parameters, so a change
 # elsewhere in the corpus reruns this job only when it changes what the chunk removes or what
-# the ids are.
+# the ids are. A frozen word vocabulary's ids come from `vocabulary_frozen`, which reads no
+# count: the job waits for none.
+
+
+def ids_checkpoint():
+    return checkpoints.vocabulary_frozen if FROZEN_WORDS else checkpoints.vocabulary
 
 
 def ids_input(wildcards):
-    checkpoints.vocabulary.get()
+    ids_checkpoint().get()
     return ancient(L.ids)
 
 
 def ids_digest(wildcards):
     """The ids' own digest, not the file's: ids.tsv also holds counts, which do not change a shard."""
-    checkpoints.vocabulary.get()
+    ids_checkpoint().get()
     with open(L.ids_digest, encoding="utf-8") as handle:
         return handle.read().strip()
 

@@ -1,13 +1,16 @@
 # The ids the shards use (steps/vocabulary.py): word units cut the chunks' counts; subword units
 # learn a sentencepiece model on a seeded sample of train sentences (steps/subword.py). The ids
-# are a checkpoint like the duplicates (see rules/shards.smk). After the shards,
-# vocabulary.tsv gets the build's count of every id.
+# are a checkpoint like the duplicates (see rules/shards.smk). A frozen word vocabulary's ids
+# come from their own checkpoint, `vocabulary_frozen`, which reads no count (it runs when the
+# file or its options change), and `vocabulary` writes the build's word counts alone.
+# After the shards, vocabulary.tsv gets the build's count of every id.
 #
 # Subword models are cached under interim/subword/models/<key>.model, the key a hash of the
 # sample and the training settings; `subword_train` reads the sample as ancient input, so it runs
 # only for a key without a model: an edit to a dev or test document redraws the same sample.
 
 SUBWORD_FROZEN = CONFIG["subword"]["frozen"]
+FROZEN_WORDS = "vocabulary.frozen" in PLAN.frozen  # a frozen word vocabulary: its ids need no count
 
 
 def removed_lists(wildcards=None):
@@ -100,13 +103,12 @@ checkpoint vocabulary:
         model=[L.subword_model] if SUBWORD else [],
         options=L.options("vocabulary"),
     output:
-        ids=L.ids,
-        digest=L.ids_digest,
+        ids=[] if FROZEN_WORDS else [L.ids],
+        digest=[] if FROZEN_WORDS else [L.ids_digest],
         counts=[] if SUBWORD else [L.word_counts],
     log:
         L.log("vocabulary"),
     params:
-        frozen=PLAN.frozen.get("vocabulary.frozen", ""),
         code=code_hash("vocabulary"),
     threads: 1
     resources:
@@ -114,6 +116,27 @@ checkpoint vocabulary:
         runtime=CONFIG["resources"]["runtime_min"],
     shell:
         step("vocabulary_ids")
+
+
+if FROZEN_WORDS:
+
+    checkpoint vocabulary_frozen:
+        input:
+            options=L.options("vocabulary_frozen"),
+        output:
+            ids=L.ids,
+            digest=L.ids_digest,
+        log:
+            L.log("vocabulary_frozen"),
+        params:
+            frozen=PLAN.frozen["vocabulary.frozen"],
+            code=code_hash("vocabulary_frozen"),
+        threads: 1
+        resources:
+            mem_mb=CONFIG["resources"]["aggregate_mem_mb"],
+            runtime=CONFIG["resources"]["runtime_min"],
+        shell:
+            step("vocabulary_frozen")
 
 
 rule vocabulary_table:

@@ -38,7 +38,7 @@ STEPS_DIR = Path(__file__).resolve().parent
 # The rules of the workflow, each named after the step module it runs; a module with several
 # entries runs as several rules named `<module>_<entry>` (rules/*.smk).
 RULES = (
-    "abbreviations", "prepare", "deduplicate", "subword_sample", "subword_train", "subword_model", "vocabulary", "shards",
+    "abbreviations", "prepare", "deduplicate", "subword_sample", "subword_train", "subword_model", "vocabulary", "vocabulary_frozen", "shards",
     "vocabulary_table", "accounting", "growth", "coverage", "baseline", "manifest", "croissant", "datasheet", "report",
 )  # fmt: skip
 

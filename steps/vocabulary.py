@@ -8,7 +8,10 @@ code points; or a frozen vocabulary, checked, used unchanged. Subword units: the
 sentencepiece model's pieces (steps.subword).
 
 Rule `vocabulary` writes the ids (interim/vocabulary/ids.tsv, in vocabulary.tsv's format;
-steps.formats) before the shards; rule `vocabulary_table` writes the public vocabulary.tsv with
+steps.formats) before the shards, and the build's word counts. With a frozen word vocabulary the
+ids are the frozen file's, known before any count: rule `vocabulary_frozen` writes them, so the
+shard jobs need not wait for the counts, and rule `vocabulary` writes the counts alone. Rule
+`vocabulary_table` writes the public vocabulary.tsv with
 the count of every id in the build's train streams, summed from the shard jobs' id counts, and
 stats/token_counts.parquet (every word's train, dev and test counts, or every piece's).
 """
@@ -28,10 +31,11 @@ import regex
 
 from . import job
 from .formats import BOS, EOS, METADATA_KEY, RESERVED, UNK, FormatError, Vocabulary, file_sha256, read_vocabulary
-from .layout import SPLITS
+from .layout import SPLITS, Layout
 from .storage import write_table, write_text
 
-SECTIONS = {"vocabulary": ("units", "vocabulary"), "vocabulary_table": ("units",)}  # by rule: the ids, the table
+# By rule: the ids (and counts), a frozen vocabulary's ids, the table.
+SECTIONS = {"vocabulary": ("units", "vocabulary"), "vocabulary_frozen": ("units", "vocabulary.frozen", "vocabulary.unknown"), "vocabulary_table": ("units",)}
 
 # Unknown classes by word shape, tried in this order; a word matching none maps to <unk>.
 SHAPE_CLASSES = (
@@ -218,12 +222,9 @@ def read_frozen(path: str | Path, unknown: str) -> Vocabulary:
     return vocabulary
 
 
-def vocabulary_from_counts(
-    count_paths: Sequence[str], removed: str | None, config: dict, frozen: str | None, kept: str | None = None
-) -> tuple[Vocabulary, pa.Table]:
-    """The vocabulary (built, or the frozen file checked) and the token counts of the build
-    (`kept`: see merge_counts); raise VocabularyError when train is empty or the frozen file is
-    unusable."""
+def build_counts(count_paths: Sequence[str], removed: str | None, kept: str | None = None) -> tuple[pa.Table, dict[str, dict[str, int]]]:
+    """The token counts of the build and the sentence boundaries per split (merge_counts);
+    raise VocabularyError when train is empty."""
     counts, boundaries = merge_counts(count_paths, removed, kept)
     totals = {split: boundaries[BOS][split] for split in SPLITS}
     if not totals["train"]:
@@ -231,9 +232,14 @@ def vocabulary_from_counts(
             f"the train split is empty: no kept document landed in train (dev {totals['dev']}, test {totals['test']} documents); "
             "give the corpus more documents or raise split.fractions.train (the vocabulary and every model are learned on train)"
         )
+    return counts, boundaries
+
+
+def vocabulary_from_counts(count_paths: Sequence[str], removed: str | None, config: dict, kept: str | None = None) -> tuple[Vocabulary, pa.Table]:
+    """The vocabulary built by the cutoff and the token counts of the build (`kept`: see
+    merge_counts); raise VocabularyError when train is empty."""
+    counts, boundaries = build_counts(count_paths, removed, kept)
     vocabulary_config = config["vocabulary"]
-    if frozen:
-        return read_frozen(frozen, vocabulary_config["unknown"]), counts
     cutoff = Cutoff.from_config(vocabulary_config)
     train_ends = {symbol: boundaries[symbol]["train"] for symbol in (BOS, EOS)}
     return build_vocabulary(counts, cutoff, vocabulary_config["unknown"], train_ends), counts
@@ -275,25 +281,45 @@ def piece_counts(vocabulary: Vocabulary, totals: dict[str, np.ndarray]) -> pa.Ta
     return sort_by_frequency(table.filter(pa.array(keep)))
 
 
+def write_ids(layout: Layout, vocabulary: Vocabulary) -> None:
+    write_text(layout.ids, vocabulary.to_tsv())
+    write_text(layout.ids_digest, vocabulary.ids_digest + "\n")
+
+
 def main_ids(argv: list[str]) -> None:
-    run = job.start(argv, "vocabulary", "The ids the shards use (rule vocabulary).")
+    run = job.start(argv, "vocabulary", "The ids the shards use and the build's word counts (rule vocabulary).")
     layout, options = run.layout, run.options
     if options["units"] == "subword":
         vocabulary = model_vocabulary(layout.subword_model)
-        write_text(layout.ids, vocabulary.to_tsv())
-        write_text(layout.ids_digest, vocabulary.ids_digest + "\n")
+        write_ids(layout, vocabulary)
         print(f"ids: {vocabulary.size} pieces of {layout.subword_model}")
         return
     frozen = options["vocabulary"]["frozen"]
-    chunks = run.chunks()
+    paths = [layout.counts(c) for c in run.chunks()]
     try:
-        vocabulary, counts = vocabulary_from_counts([layout.counts(c) for c in chunks], layout.removed_counts, options, frozen, layout.chunk_counts_sum)
+        if frozen:
+            counts, _ = build_counts(paths, layout.removed_counts, layout.chunk_counts_sum)
+        else:
+            vocabulary, counts = vocabulary_from_counts(paths, layout.removed_counts, options, layout.chunk_counts_sum)
     except VocabularyError as error:
-        raise SystemExit(f"corpusmill: {'vocabulary.frozen: ' if frozen else ''}{error}") from None
+        raise SystemExit(f"corpusmill: {error}") from None
     write_table(layout.word_counts, counts)
-    write_text(layout.ids, vocabulary.to_tsv())
-    write_text(layout.ids_digest, vocabulary.ids_digest + "\n")
+    if frozen:
+        print(f"word counts of the build ({counts.num_rows:,} rows); the ids are the frozen vocabulary's (rule vocabulary_frozen)")
+        return
+    write_ids(layout, vocabulary)
     print(f"ids: {vocabulary.size} ({vocabulary.size - vocabulary.first_word_id} words)")
+
+
+def main_frozen(argv: list[str]) -> None:
+    run = job.start(argv, "vocabulary_frozen", "The ids of a frozen word vocabulary, checked (rule vocabulary_frozen).")
+    frozen = run.options["vocabulary"]["frozen"]
+    try:
+        vocabulary = read_frozen(frozen, run.options["vocabulary"]["unknown"])
+    except VocabularyError as error:
+        raise SystemExit(f"corpusmill: vocabulary.frozen: {error}") from None
+    write_ids(run.layout, vocabulary)
+    print(f"ids: {vocabulary.size} ({vocabulary.size - vocabulary.first_word_id} words) of {frozen}")
 
 
 def main_table(argv: list[str]) -> None:
@@ -309,7 +335,7 @@ def main_table(argv: list[str]) -> None:
     print(f"vocabulary.tsv: {ids.size} ids, {int(totals['train'].sum()):,} train ids")
 
 
-main = job.entries(ids=main_ids, table=main_table)
+main = job.entries(ids=main_ids, frozen=main_frozen, table=main_table)
 
 if __name__ == "__main__":
     main()

@@ -64,12 +64,15 @@ SUBWORD = scenario("subword", {"subword": {"max_sentences": 5000}, "segment": {"
 
 @pytest.fixture(scope="module")
 def traced(tmp_path_factory: pytest.TempPathFactory) -> dict[str, Path]:
-    """A word build and a subword build (learning abbreviations: every rule runs in one of
-    them), each with its import traces."""
+    """A word build, a copy of it built again with its own vocabulary frozen, and a subword
+    build (learning abbreviations: every rule runs in one of them), each with its import traces."""
     base = tmp_path_factory.mktemp("traced")
     traced_run(base / "word", WORD)
+    shutil.copytree(base / "word", base / "frozen", symlinks=True)
+    (base / "frozen.tsv").write_bytes((base / "word" / "build" / "vocabulary.tsv").read_bytes())
+    traced_run(base / "frozen", {**WORD, "vocabulary": {"frozen": str(base / "frozen.tsv")}})
     traced_run(base / "subword", SUBWORD)
-    return {"word": base / "word", "subword": base / "subword"}
+    return {"word": base / "word", "frozen": base / "frozen", "subword": base / "subword"}
 
 
 def job_imports(directory: Path) -> dict[str, set[str]]:
@@ -92,16 +95,17 @@ def edited_copy(tmp_path: Path) -> Path:
 
 
 def test_every_rule_ran_in_the_traced_builds(traced: dict[str, Path]) -> None:
-    ran = set(job_imports(traced["word"])) | set(job_imports(traced["subword"]))
+    ran = {rule for build in traced.values() for rule in job_imports(build)}
     assert ran == set(plan.RULES)
 
 
 def test_editing_any_module_a_job_imported_changes_its_rules_code_hash(traced: dict[str, Path], tmp_path: Path, monkeypatch: pytest.MonkeyPatch) -> None:
     """Each module a rule's jobs loaded, edited in a copy of steps/ (a comment appended), gives
     that rule another code hash; the hash of the unedited copy is the repository's."""
-    observed = job_imports(traced["word"])
-    for rule, modules in job_imports(traced["subword"]).items():
-        observed.setdefault(rule, set()).update(modules)
+    observed: dict[str, set[str]] = {}
+    for build in traced.values():
+        for rule, modules in job_imports(build).items():
+            observed.setdefault(rule, set()).update(modules)
     original = {rule: plan.code_hash(rule) for rule in plan.RULES}
     copied = edited_copy(tmp_path)
     monkeypatch.setattr(plan, "STEPS_DIR", copied)
@@ -175,6 +179,7 @@ READERS = [
     ("report", "top_oov", 20, {"coverage", "report", "manifest"}),
     ("shards", "compression", "snappy", {"shards", "manifest"}),
     ("vocabulary", "min_count", 3, {"vocabulary", "manifest"}),
+    ("vocabulary", "unknown", "single", {"vocabulary", "vocabulary_frozen", "shards", "manifest"}),
     ("split", "deduplicate", False, {"deduplicate", "manifest"}),
     ("near_duplicates", "policy", "same_split", {"deduplicate", "manifest"}),
     ("near_duplicates", "threshold", 0.9, {"deduplicate", "manifest"}),
@@ -229,6 +234,7 @@ def test_changing_an_option_reruns_exactly_the_rules_that_read_it(kept_plan: Pat
     """Snakemake's dry run after the change lists the same jobs as its dry run of the unchanged
     build with the reading rules forced to rerun (--forcerun: those rules and everything
     downstream of them), so no other rule reruns."""
+    readers = readers - {"vocabulary_frozen"}  # a rule of frozen vocabularies alone, not of this build
     assert dry_run(kept_plan, WORD) == {}
     forced = dry_run(kept_plan, WORD, "--forcerun", *sorted(readers))
     assert set(readers) <= set(forced)

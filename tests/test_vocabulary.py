@@ -236,6 +236,18 @@ def test_a_missing_frozen_vocabulary_stops_before_any_job_in_a_fresh_and_a_built
     assert run.returncode != 0 and "subword.frozen = 'nowhere.model': no such file or directory" in run.stderr
 
 
+def test_a_frozen_vocabulary_with_a_row_that_does_not_read_stops_before_any_shard_job(tmp_path: Path, demo_build: Path):
+    """The job that writes a frozen vocabulary's ids reads it in full: a row that does not read
+    stops the run there, naming the file and line, and no shard file is written."""
+    frozen = tmp_path / "frozen.tsv"
+    lines = (demo_build / "vocabulary.tsv").read_text(encoding="utf-8").split("\n")
+    frozen.write_text("\n".join([*lines[:12], "11\tword\tmany\tword", *lines[13:]]), encoding="utf-8")
+    run = run_workflow(tmp_path / "run", {**JOURNALS, "vocabulary": {"frozen": str(frozen)}}, check=False)
+    assert run.returncode != 0
+    assert f"corpusmill: vocabulary.frozen: {frozen}: line 13: expected '11<TAB>token<TAB>count<TAB>kind'" in run.stderr
+    assert "vocabulary_frozen" in run.stderr and not list((tmp_path / "run" / "build").glob("shards/*/*.parquet"))
+
+
 @pytest.mark.parametrize("path", ["/dev/zero", "FIFO"])
 def test_a_frozen_path_that_is_not_a_regular_file_is_refused_at_once(tmp_path: Path, path: str):
     """/dev/zero never ends and a FIFO blocks its reader: only regular files are read."""
@@ -305,10 +317,45 @@ def test_a_frozen_vocabulary_larger_than_the_corpus_builds_with_consistent_figur
     with open(frozen, "a", encoding="utf-8") as handle:
         handle.write(f"{given.size}\tlateword\t0\tword\n")
     plan = dry_run_rules(run_workflow(tmp_path / "second", {**JOURNALS, "vocabulary": {"frozen": str(frozen)}}, "-n"))
-    assert {"vocabulary", "shards", "vocabulary_table"} <= plan and "prepare" not in plan
+    assert {"vocabulary_frozen", "shards", "vocabulary_table"} <= plan and not {"prepare", "vocabulary"} & plan
     run_workflow(tmp_path / "second", {**JOURNALS, "vocabulary": {"frozen": str(frozen)}})
     written = read_vocabulary(build / "vocabulary.tsv")
     assert written.ids_digest == read_vocabulary(frozen).ids_digest and written.tokens[-1] == "lateword"
+
+
+def job_graph(result) -> tuple[dict[str, str], set[tuple[str, str]]]:
+    """Snakemake's job graph as `--dag` prints it (Graphviz dot): each job's rule by node, and
+    the edges (from, to) as node numbers."""
+    rules = dict(re.findall(r"^\s*(\d+)\[label = \"([a-z_]+)", result.stdout, re.M))
+    edges = set(re.findall(r"^\s*(\d+) -> (\d+)", result.stdout, re.M))
+    return rules, edges
+
+
+def test_with_a_frozen_vocabulary_the_shard_jobs_wait_for_no_count(tmp_path: Path):
+    """Freezing a build's own vocabulary.tsv keeps its ids, so no shard job reruns (their record
+    of the ids, the ids digest, is the same); Snakemake's job graph then has the shard jobs take
+    their ids from rule vocabulary_frozen, which reads no count, and none of them depends on the
+    vocabulary job (the build's counts). Without a frozen vocabulary every shard job does."""
+    run_workflow(tmp_path, JOURNALS)
+    build = tmp_path / "build"
+
+    def shards() -> dict[Path, tuple[bytes, int]]:
+        return {path: (path.read_bytes(), path.stat().st_mtime_ns) for path in build.glob("shards/*/*.parquet")}
+
+    before = shards()
+    frozen = tmp_path / "frozen.tsv"
+    frozen.write_bytes((build / "vocabulary.tsv").read_bytes())
+    overrides = {**JOURNALS, "vocabulary": {"frozen": str(frozen)}}
+    run_workflow(tmp_path, overrides)
+    assert "ids: " in (build / "logs" / "vocabulary_frozen" / "vocabulary_frozen.log").read_text(encoding="utf-8")
+    assert shards() == before  # not one shard job ran
+    rules, edges = job_graph(run_workflow(tmp_path, overrides, "--dag", "--forceall"))
+    assert {rules[a] for a, b in edges if rules[b] == "shards"} == {"prepare", "deduplicate", "vocabulary_frozen"}
+    assert {rules[a] for a, b in edges if rules[b] == "vocabulary_frozen"} == set()
+    assert {rules[b] for a, b in edges if rules[a] == "vocabulary"} == {"vocabulary_table"}
+    rules, edges = job_graph(run_workflow(tmp_path, JOURNALS, "--dag", "--forceall"))
+    assert {rules[a] for a, b in edges if rules[b] == "shards"} == {"prepare", "deduplicate", "vocabulary"}
+    assert "vocabulary_frozen" not in rules.values()
 
 
 def test_a_corpus_with_no_train_document_stops_at_the_vocabulary_saying_so(tmp_path: Path):
