@@ -13,7 +13,7 @@ def ids_checkpoint():
 
 def ids_input(wildcards):
     ids_checkpoint().get()
-    return ancient(L.ids)
+    return ancient(L.ids_table)
 
 
 def ids_digest(wildcards):

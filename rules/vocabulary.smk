@@ -104,6 +104,7 @@ checkpoint vocabulary:
         options=L.options("vocabulary"),
     output:
         ids=[] if FROZEN_WORDS else [L.ids],
+        table=[] if FROZEN_WORDS else [L.ids_table],
         digest=[] if FROZEN_WORDS else [L.ids_digest],
         counts=[] if SUBWORD else [L.word_counts],
     log:
@@ -125,6 +126,7 @@ if FROZEN_WORDS:
             options=L.options("vocabulary_frozen"),
         output:
             ids=L.ids,
+            table=L.ids_table,
             digest=L.ids_digest,
         log:
             L.log("vocabulary_frozen"),
@@ -141,7 +143,7 @@ if FROZEN_WORDS:
 
 rule vocabulary_table:
     input:
-        ids=L.ids,
+        ids=L.ids_table,
         id_counts=[L.id_counts(c) for c in PLAN.chunk_keys],
         counts=[] if SUBWORD else [L.word_counts],
         options=L.options("vocabulary_table"),

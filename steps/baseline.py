@@ -30,7 +30,7 @@ import numpy as np
 import pyarrow.parquet as pq
 
 from . import job, kneser_ney, windows
-from .formats import NgramTotals, code_digest, read_ngram_totals, read_shard_stats, read_vocabulary, write_ngram_totals
+from .formats import NgramTotals, code_digest, read_ids_table, read_ngram_totals, read_shard_stats, write_ngram_totals
 from .kneser_ney import BOS_ID, EOS_ID, SMOOTHINGS, AddOneUnigram, Keys, KneserNey, SplitScore
 from .layout import SPLITS
 from .reader import MANIFEST, REBUILD, Build, BuildError, open_build
@@ -329,7 +329,7 @@ def step(argv: list[str] | None = None) -> None:
                 files[written.split].append(Path(layout.root, written.file))
                 if written.split == "train":
                     train.append((written.file, written.sha256))
-    size, order = read_vocabulary(layout.ids).size, step_order(run_.options)
+    size, order = read_ids_table(layout.ids_table).size, step_order(run_.options)
     carried, counted = carried_totals(layout.baseline_totals, order, size, train)
     files["train"] = [Path(layout.root, file) for file, digest in train if (file, digest) not in counted]
     splits: dict[str, Sentences | list[Sentences] | None] = {

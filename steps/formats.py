@@ -7,7 +7,9 @@ audit and the commands.
   line feed and carriage return (a backslash and one of `\\`, t, n, r); word fields never hold them.
   `count` is the number of train occurrences of the id in the build's id streams.
 - The ids of a build are the (id, token, kind) rows of its vocabulary; `ids_digest` is their
-  SHA-256. Shards name it in their metadata: counts may change while the ids stay.
+  SHA-256. Shards name it in their metadata: counts may change while the ids stay. The jobs
+  that read the ids take them from an Arrow IPC file beside the vocabulary file
+  (`write_ids_table`), which needs no parsing.
 - Shards: Parquet, one file per split, kind and chunk; columns by kind (`shard_schema`); the
   key-value metadata `corpusmill` holds JSON (`shard_metadata`).
 - Provenance: beside each shard file a row table, and per chunk and split a document table
@@ -217,8 +219,6 @@ def read_vocabulary(path: str | Path) -> Vocabulary:
     strange = np.flatnonzero(~pc.is_in(kind_column, value_set=pa.array(known)).to_numpy(zero_copy_only=False))
     if len(strange):
         raise FormatError(f"{path}: line {strange[0] + 2}: kind {kind_column[int(strange[0])].as_py()!r}; allowed: {', '.join(sorted(known))}")
-    encoded = pc.dictionary_encode(kind_column)
-    kinds = np.array(encoded.dictionary.to_pylist(), dtype=object)[encoded.indices.to_numpy(zero_copy_only=False)].tolist()
     tokens = token_column.to_pylist()
     pieces = np.flatnonzero(pc.is_in(kind_column, value_set=pa.array(SUBWORD_KINDS)).to_numpy(zero_copy_only=False))
     for number in pieces.tolist():
@@ -226,14 +226,50 @@ def read_vocabulary(path: str | Path) -> Vocabulary:
     counts = table["count"].to_numpy()
     if len(counts) and counts.min() < 0:
         raise FormatError(f"{path}: line {int(np.argmin(counts)) + 2}: a negative count")
+    # Word fields are the tokens as they are; piece fields were unescaped above.
+    return _from_columns(tokens, pa.array(tokens, pa.string()) if len(pieces) else token_column, counts, kind_column)
+
+
+def _from_columns(tokens: list[str], token_array: pa.StringArray, counts: np.ndarray, kind_column: pa.StringArray, digest: str | None = None) -> Vocabulary:
+    """A Vocabulary whose cached properties are computed from its Arrow columns (`digest`: the
+    ids digest, when known)."""
+    import numpy as np
+    import pyarrow as pa
+    import pyarrow.compute as pc
+
+    encoded = pc.dictionary_encode(kind_column)
+    kinds = np.array(encoded.dictionary.to_pylist(), dtype=object)[encoded.indices.to_numpy(zero_copy_only=False)].tolist()
     vocabulary = Vocabulary(tokens, counts.tolist(), kinds)
-    # Cached properties computed from the Arrow columns (word fields are the tokens as they are).
-    token_array = pa.array(tokens, pa.string()) if len(pieces) else token_column
     vocabulary.__dict__["token_array"] = token_array
-    vocabulary.__dict__["ids_digest"] = ids_digest(token_array, kind_column)
-    vocabulary.__dict__["units"] = "subword" if len(pieces) else "word"
+    vocabulary.__dict__["ids_digest"] = digest or ids_digest(token_array, kind_column)
+    vocabulary.__dict__["units"] = "word" if frozenset(SUBWORD_KINDS).isdisjoint(encoded.dictionary.to_pylist()) else "subword"
     vocabulary.__dict__["symbol_ids"] = np.flatnonzero(pc.is_in(kind_column, value_set=pa.array(sorted(SYMBOL_KINDS))).to_numpy(zero_copy_only=False))
     return vocabulary
+
+
+def write_ids_table(path: str | Path, vocabulary: Vocabulary) -> None:
+    """The ids as an Arrow IPC file: columns token, count and kind in id order, the ids digest
+    in the schema's `corpusmill` metadata. Every shard job reads the ids: this file reads with
+    no text to parse and nothing to hash, two costs of vocabulary.tsv that grow with it."""
+    import pyarrow as pa
+
+    from .storage import atomic_path
+
+    table = pa.table({"token": vocabulary.token_array, "count": pa.array(vocabulary.counts, pa.int64()), "kind": pa.array(vocabulary.kinds, pa.string())})
+    table = table.replace_schema_metadata({METADATA_KEY: json.dumps({"ids_sha256": vocabulary.ids_digest}).encode()})
+    with atomic_path(path) as temporary, pa.OSFile(str(temporary), "wb") as sink, pa.ipc.new_file(sink, table.schema) as writer:
+        writer.write_table(table)
+
+
+def read_ids_table(path: str | Path) -> Vocabulary:
+    """The ids `write_ids_table` wrote."""
+    import pyarrow as pa
+
+    with pa.OSFile(str(path), "rb") as source:
+        table = pa.ipc.open_file(source).read_all()
+    about = json.loads(table.schema.metadata[METADATA_KEY])
+    token_column, kind_column = table["token"].combine_chunks(), table["kind"].combine_chunks()
+    return _from_columns(token_column.to_pylist(), token_column, table["count"].to_numpy(), kind_column, about["ids_sha256"])
 
 
 def _raise_bad_line(path: str | Path, reason: str) -> None:

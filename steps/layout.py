@@ -202,6 +202,11 @@ class Layout:
         return self._join("interim", "vocabulary", "ids.tsv")
 
     @property
+    def ids_table(self) -> str:
+        """The same ids as an Arrow IPC file, what the jobs that read them read (steps.formats)."""
+        return self._join("interim", "vocabulary", "ids.arrow")
+
+    @property
     def ids_digest(self) -> str:
         """The ids' SHA-256 (steps.formats.ids_digest): what reruns the shard jobs."""
         return self._join("interim", "vocabulary", "ids.sha256")

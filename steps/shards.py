@@ -54,7 +54,7 @@ from .formats import (
     id_type_name,
     provenance_metadata,
     provenance_step,
-    read_vocabulary,
+    read_ids_table,
     shard_metadata,
     shard_schema,
 )  # fmt: skip
@@ -306,7 +306,7 @@ def write_chunk(layout: Layout, chunk: str, removed: pa.Table, encoder: Encoder,
 def main(argv: list[str] | None = None) -> None:
     run = job.start(argv, RULE, "Write one chunk's shard files.", per_chunk=True)
     layout, chunk = run.layout, run.chunk
-    vocabulary = read_vocabulary(layout.ids)
+    vocabulary = read_ids_table(layout.ids_table)
     encoder = encoder_for(vocabulary, run.options["vocabulary"]["unknown"], layout.subword_model, THREADS)
     removed = pq.ParquetFile(layout.removed(chunk)).read(use_threads=False)
     stats, counts = write_chunk(layout, chunk, removed, encoder, run.options)

@@ -30,7 +30,7 @@ import pyarrow.parquet as pq
 import regex
 
 from . import job
-from .formats import BOS, EOS, METADATA_KEY, RESERVED, UNK, FormatError, Vocabulary, file_sha256, read_vocabulary
+from .formats import BOS, EOS, METADATA_KEY, RESERVED, UNK, FormatError, Vocabulary, file_sha256, read_ids_table, read_vocabulary, write_ids_table
 from .layout import SPLITS, Layout
 from .storage import write_table, write_text
 
@@ -282,7 +282,9 @@ def piece_counts(vocabulary: Vocabulary, totals: dict[str, np.ndarray]) -> pa.Ta
 
 
 def write_ids(layout: Layout, vocabulary: Vocabulary) -> None:
+    """The ids in vocabulary.tsv's format, as the table the jobs read, and their digest."""
     write_text(layout.ids, vocabulary.to_tsv())
+    write_ids_table(layout.ids_table, vocabulary)
     write_text(layout.ids_digest, vocabulary.ids_digest + "\n")
 
 
@@ -325,7 +327,7 @@ def main_frozen(argv: list[str]) -> None:
 def main_table(argv: list[str]) -> None:
     run = job.start(argv, "vocabulary_table", "vocabulary.tsv with the build's train counts (rule vocabulary_table).")
     layout = run.layout
-    ids = read_vocabulary(layout.ids)
+    ids = read_ids_table(layout.ids_table)
     totals = id_counts([layout.id_counts(chunk) for chunk in run.chunks()], ids.size)
     write_text(layout.vocabulary, ids.with_counts(totals["train"]).to_tsv())
     if run.options["units"] == "subword":

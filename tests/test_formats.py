@@ -29,6 +29,7 @@ from corpusmill.audit import audit_build
 from corpusmill.cutoffs import WordList
 from corpusmill.formats import (
     METADATA_KEY,
+    RESERVED,
     VOCABULARY_HEADER,
     Figures,
     FormatError,
@@ -40,12 +41,14 @@ from corpusmill.formats import (
     file_sha256,
     id_type_name,
     ids_digest,
+    read_ids_table,
     read_ngram_totals,
     read_shard_stats,
     read_vocabulary,
     shard_metadata,
     shard_schema,
     unescape,
+    write_ids_table,
     write_ngram_totals,
 )
 from corpusmill.reader import open_build
@@ -135,8 +138,11 @@ def test_what_read_vocabulary_works_out_from_its_columns_is_what_the_rows_say(
     path = tmp_path / "vocabulary.tsv"
     path.write_text(Vocabulary(tokens, [0] * len(tokens), kinds).to_tsv(), encoding="utf-8")
     read = read_vocabulary(path)
-    assert {"symbol_ids", "token_array", "units"} <= set(vars(read))  # handed over while reading
-    for vocabulary in (read, Vocabulary(tokens, [0] * len(tokens), kinds)):
+    write_ids_table(tmp_path / "ids.arrow", read)
+    table = read_ids_table(tmp_path / "ids.arrow")
+    for handed in (read, table):
+        assert {"symbol_ids", "token_array", "units", "ids_digest"} <= set(vars(handed))  # handed over while reading
+    for vocabulary in (read, table, Vocabulary(tokens, [0] * len(tokens), kinds)):
         assert vocabulary.symbol_ids.tolist() == symbols
         assert vocabulary.reserved == {tokens[i]: i for i in symbols}
         assert vocabulary.first_word_id == first_word
@@ -265,6 +271,25 @@ def test_the_build_reader_audit_and_ids_file_name_every_piece_as_sentencepiece_d
 # --- the ids digest -------------------------------------------------------------------------------
 
 
+@pytest.mark.parametrize(
+    "vocabulary",
+    [piece_vocabulary(ODD_PIECES), Vocabulary([*RESERVED, "<unk-digits>", "a", "b"], [0, 5, 2, 3, 1, 9, 0], ["reserved"] * 4 + ["unknown", "word", "word"])],
+)
+def test_the_ids_table_holds_the_vocabulary_and_its_digest(tmp_path: Path, vocabulary: Vocabulary) -> None:
+    """The Arrow IPC file the jobs read the ids from: read back, the same tokens (pieces with
+    tabs, line breaks and backslashes as they are), counts and kinds; its digest is hashlib's
+    over vocabulary.tsv's rows without counts; pyarrow reads it as a plain IPC file."""
+    path = tmp_path / "ids.arrow"
+    write_ids_table(path, vocabulary)
+    again = read_ids_table(path)
+    assert again == vocabulary
+    (tmp_path / "vocabulary.tsv").write_text(vocabulary.to_tsv(), encoding="utf-8")
+    rows = [line.split(b"\t") for line in (tmp_path / "vocabulary.tsv").read_bytes().split(b"\n")[1:-1]]
+    assert again.ids_digest == hashlib.sha256(b"".join(b"\t".join([row[0], row[1], row[3]]) + b"\n" for row in rows)).hexdigest()
+    table = pa.ipc.open_file(pa.OSFile(str(path))).read_all()
+    assert table.column_names == ["token", "count", "kind"] and table["token"].to_pylist() == vocabulary.tokens
+
+
 def test_ids_digest_is_the_sha256_of_the_id_token_kind_lines_and_ignores_counts(tmp_path: Path) -> None:
     """hashlib over the file's rows with the count field taken out: the digest names the ids
     (which id is which token of which kind), not how often each occurs."""
@@ -292,6 +317,7 @@ def test_a_builds_manifest_shards_and_ids_file_name_the_ids_of_its_vocabulary(de
     manifest = json.loads((demo_build / "manifest.json").read_text(encoding="utf-8"))
     assert manifest["vocabulary"]["ids_sha256"] == expected
     assert read_vocabulary(demo_build / "interim" / "vocabulary" / "ids.tsv").ids_digest == expected
+    assert read_ids_table(demo_build / "interim" / "vocabulary" / "ids.arrow") == read_vocabulary(demo_build / "interim" / "vocabulary" / "ids.tsv")
     shards = [entry for split in manifest["splits"].values() for entry in split["shards"]]
     assert shards
     for entry in shards:
