@@ -107,11 +107,10 @@ def write_corpus(folder: Path, copies: int, style: str = "renamed") -> dict:
     total, types = 0, set()
     for copy in range(copies):
         for number, rows in enumerate(groups):
-            body = "\n\n".join(paragraphs[i] for i in rows) + "\n"
+            prefix = f"copy{copy} " if made["style"] == "numbered" else ""
+            body = "\n\n".join(prefix + paragraphs[i] for i in rows) + "\n"
             if copy and made["style"] == "renamed":
                 body = renamed(body, copy)
-            elif made["style"] == "numbered":
-                body = "\n\n".join(f"copy{copy} " + paragraphs[i] for i in rows) + "\n"
             types.update(word.casefold() for word in LETTER_RUN.findall(body))
             name = f"part-{number:02d}.txt" if copies == 1 else f"copy{copy}-part-{number:02d}.txt"
             data = body.encode("utf-8")
@@ -309,8 +308,8 @@ def shard_hashes(build: Path) -> dict[str, str]:
 
 
 def append_run(corpus: Path, directory: Path, overrides: dict, cores: int, full_seconds: float, style: str, copies: int) -> dict:
-    """Freeze the build's vocabulary, build once with it (the ids are the same: nothing but the
-    vocabulary job should run), then add one new 2 MB file and rebuild: the seconds, the jobs,
+    """Freeze the build's vocabulary, build once with it (the ids are the same: no shard job
+    should run), then add one new 2 MB file and rebuild: the seconds, the jobs,
     and whether the shard files of every other chunk kept their bytes. The new file is one more
     copy of a file, made as the corpus's copies are (`renamed`: the next copy's endings;
     `numbered`: each paragraph after the token `appended`)."""

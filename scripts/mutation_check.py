@@ -38,7 +38,7 @@ SCOPE = {
         "document_block_coverage",
         "CorpusBlocks.*",
     ],
-    "vocabulary": ["choose_size", "build_vocabulary", "sort_by_frequency", "unknown_class", "merge_counts", "read_kept_sum"],
+    "vocabulary": ["choose_size", "build_vocabulary", "sort_by_frequency", "unknown_class", "merge_counts", "read_kept_sum", "build_counts"],
     "encoder": ["WordEncoder.__init__", "WordEncoder.ids"],
     "accounting": ["merge"],
     "reader": [
@@ -56,7 +56,18 @@ SCOPE = {
     ],
     "clean": ["normalize", "stream_safe", "clean_text", "rejection", "CleanOptions.*"],
     "chunks": ["chunk_schema", "row_weights", "removed_mask"],
-    "formats": ["escape", "unescape", "read_vocabulary", "_raise_bad_line", "write_ngram_totals", "read_ngram_totals"],
+    "formats": [
+        "escape",
+        "unescape",
+        "Vocabulary.*",
+        "read_vocabulary",
+        "_from_columns",
+        "_raise_bad_line",
+        "write_ids_table",
+        "read_ids_table",
+        "write_ngram_totals",
+        "read_ngram_totals",
+    ],
     "ingest": ["is_blank_line", "blank_line_patterns", "_lines", "_complete_lines_end", "_each_line", "_line_runs", "_previous_line_blank"],
 }
 # Mutant names in DEVELOPERS.md's section "Equivalent mutants", each in backquotes.

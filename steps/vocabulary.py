@@ -7,13 +7,13 @@ then the unknown classes, then words by descending train count, ties broken by t
 code points; or a frozen vocabulary, checked, used unchanged. Subword units: the ids are the
 sentencepiece model's pieces (steps.subword).
 
-Rule `vocabulary` writes the ids (interim/vocabulary/ids.tsv, in vocabulary.tsv's format;
-steps.formats) before the shards, and the build's word counts. With a frozen word vocabulary the
-ids are the frozen file's, known before any count: rule `vocabulary_frozen` writes them, so the
-shard jobs need not wait for the counts, and rule `vocabulary` writes the counts alone. Rule
-`vocabulary_table` writes the public vocabulary.tsv with
-the count of every id in the build's train streams, summed from the shard jobs' id counts, and
-stats/token_counts.parquet (every word's train, dev and test counts, or every piece's).
+Rule `vocabulary` writes the ids (interim/vocabulary/ids.tsv, in vocabulary.tsv's format, and
+ids.arrow, the table the jobs read; steps.formats) before the shards, and the build's word
+counts. With a frozen word vocabulary the ids are the frozen file's, known before any count:
+rule `vocabulary_frozen` writes them, so the shard jobs need not wait for the counts, and rule
+`vocabulary` writes the counts alone. Rule `vocabulary_table` writes the public vocabulary.tsv
+with the count of every id in the build's train streams, summed from the shard jobs' id counts,
+and stats/token_counts.parquet (every word's train, dev and test counts, or every piece's).
 """
 
 from __future__ import annotations

@@ -21,6 +21,7 @@ from corpusmill.vocabulary import (
     COUNTS_SCHEMA,
     Cutoff,
     VocabularyError,
+    build_counts,
     build_vocabulary,
     choose_size,
     merge_counts,
@@ -439,6 +440,27 @@ def test_merged_counts_subtract_the_removed_documents_and_give_every_split_a_cou
         {"token": "lamp", "train": 2, "dev": 0, "test": 0},
     ]
     assert boundaries == {"<s>": {"train": 1, "dev": 0, "test": 0}, "</s>": {"train": 3, "dev": 0, "test": 0}}
+
+
+def test_the_build_counts_are_the_merged_counts_and_stop_when_no_document_is_left_in_train(tmp_path: Path) -> None:
+    """build_counts gives what merge_counts gives while a train document remains; when the
+    removed documents take every train document (<s> counts documents), it stops naming the
+    documents left in dev and test and the fix."""
+    rows = [("train", "kite", 2), ("train", "<s>", 1), ("dev", "kite", 1), ("dev", "<s>", 2), ("test", "<s>", 1)]
+    paths = [chunk_counts(tmp_path / "c0.parquet", rows)]
+    nothing_removed = chunk_counts(tmp_path / "none.parquet", [])
+    table, boundaries = build_counts(paths, nothing_removed, str(tmp_path / "kept.parquet"))
+    merged_table, merged_boundaries = merge_counts(paths, nothing_removed)
+    assert table.equals(merged_table) and boundaries == merged_boundaries
+    assert boundaries["<s>"] == {"train": 1, "dev": 2, "test": 1}
+    assert (tmp_path / "kept.parquet").exists()  # the sum kept for the next run, as merge_counts keeps it
+    train_removed = chunk_counts(tmp_path / "train.parquet", [("train", "kite", 2), ("train", "<s>", 1)])
+    message = (
+        "the train split is empty: no kept document landed in train (dev 2, test 1 documents); give the corpus more documents "
+        "or raise split.fractions.train (the vocabulary and every model are learned on train)"
+    )
+    with pytest.raises(VocabularyError, match=re.escape(message)):
+        build_counts(paths, train_removed)
 
 
 def test_merging_no_chunk_tables_gives_an_empty_table_of_the_same_columns() -> None:
