@@ -13,17 +13,15 @@ Result = TypeVar("Result")
 
 
 def one_ahead(items: Iterable[Item], work: Callable[[Item], Result]) -> Iterator[Result]:
-    """work(item) for each item in order, the next item taken and worked on in a second thread
-    while the caller uses the current result: memory for two results at a time."""
-    iterator = iter(items)
-    end = object()
-
-    def following() -> object:
-        item = next(iterator, end)
-        return end if item is end else work(item)  # type: ignore[arg-type]
-
+    """work(item) for each item in order, in a second thread. While it works on one item, the
+    caller's thread takes the next item (so the reading a generator of items does overlaps the
+    work) and then uses the result before: memory for two results and an item at a time."""
     with ThreadPoolExecutor(1) as pool:
-        pending = pool.submit(following)
-        while (result := pending.result()) is not end:
-            pending = pool.submit(following)
-            yield result  # type: ignore[misc]
+        pending = None
+        for item in items:
+            submitted = pool.submit(work, item)
+            if pending is not None:
+                yield pending.result()
+            pending = submitted
+        if pending is not None:
+            yield pending.result()

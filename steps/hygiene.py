@@ -22,7 +22,7 @@ at a time, are looked up in that set and only the hits kept
 (steps.contamination.TrainGrams), so memory follows the size of dev and test, not of train.
 With contamination.drop, documents at or above the threshold are dropped (contaminated).
 
-Memory: what steps.near_duplicates.cluster holds (about 50 bytes a document), each chunk's order
+Memory: what steps.near_duplicates.cluster holds (about 60 bytes a document), each chunk's order
 and the splits (9 bytes a document), the cluster members' and measured documents' places
 (file, offset, id) for the files written, and the dev and test grams (8 bytes a word); the
 verification slots stay on disk, memory-mapped, their pages reclaimable.

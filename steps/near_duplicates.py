@@ -519,10 +519,10 @@ def cluster(
     directly and one of them stands for all. In each band, the standing rows sharing a key form
     a run; runs already joined are skipped, the others paired, and a pair neither joined nor
     rejected in an earlier band is confirmed by fetching both signatures (`signatures_of(rows)`
-    returns their rows, any dtype) and comparing slots. Memory: about 50 bytes a document (the
-    digests, the union-find, one band column and its sorted copy, the runs and a batch of
-    candidate pairs, at most one a document), 8 bytes a rejected pair, and the signatures of
-    PAIR_BLOCK pairs (32 MB of 16-bit slots)."""
+    returns their rows, any dtype) and comparing slots. Memory: about 60 bytes a document (the
+    digests, the union-find, one band column and its sorted copy, the next band column as it is
+    read, the runs and a batch of candidate pairs, at most one a document), 8 bytes a rejected
+    pair, and the signatures of PAIR_BLOCK pairs (32 MB of 16-bit slots)."""
     found = UnionFind(len(digests))
     stats = ClusterStats()
     rows, run_starts = _runs(digests)
@@ -536,7 +536,8 @@ def cluster(
     def standing_runs(keys: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
         return _runs(np.where(standing, keys, np.uint64(0)))
 
-    # The next band is read and sorted while this one's pairs are confirmed.
+    # The next band is sorted in a second thread while this thread confirms this band's pairs
+    # and then reads the band after it (Parquet decodes without the interpreter lock).
     for runs in one_ahead(band_columns, standing_runs):
         members, run_starts = _open_runs(found, *runs)
         failed = [_confirm(found, pairs, rejected, signatures_of, threshold, stats) for pairs in _run_pairs(members, run_starts, limit, stats)]

@@ -1,4 +1,5 @@
-"""steps.concurrency: work done one item ahead in a second thread, results in order."""
+"""steps.concurrency: work done one item ahead in a second thread, the items taken in the
+caller's thread, results in order."""
 
 import threading
 
@@ -48,3 +49,24 @@ def test_an_error_in_the_work_reaches_the_caller_at_its_item():
     assert [next(results), next(results)] == [0, 1]
     with pytest.raises(ValueError, match="item 2 is bad"):
         next(results)
+
+
+def test_the_items_are_taken_in_the_callers_thread_while_the_work_goes_on():
+    """A generator of items (a band read from disk) runs in the caller's thread, and item 1 is
+    taken while item 0 is worked on."""
+    caller, taken, item_one_taken = threading.get_ident(), [], threading.Event()
+
+    def items():
+        for item in range(3):
+            taken.append(threading.get_ident())
+            if item == 1:
+                item_one_taken.set()
+            yield item
+
+    def work(item):
+        if item == 0:
+            assert item_one_taken.wait(5)
+        return item
+
+    assert list(one_ahead(items(), work)) == [0, 1, 2]
+    assert taken == [caller] * 3
