@@ -21,7 +21,7 @@ import functools
 import json
 import math
 import sys
-from collections.abc import Callable, Iterator, Mapping
+from collections.abc import Callable, Iterable, Iterator, Mapping
 from concurrent.futures import ThreadPoolExecutor
 from dataclasses import dataclass
 from pathlib import Path
@@ -44,6 +44,10 @@ DOCUMENTS_PER_BATCH = 1024
 # Train counted in two parts and dev and test scored side by side, in threads: numpy's sorts
 # and searches, most of the work, run without holding the interpreter lock.
 THREADS = 2
+# Dev and test tokens scored at once. Each batch's lookups walk the count tables in key order, so
+# a batch larger than one stream file's documents shares more of its paths through the tables;
+# its window columns take a few MB.
+SCORE_TOKENS = 1 << 17
 CONVENTIONS = (
     "every id of a sentence and the </s> after it are predicted, <s> never; each sentence is preceded by n-1 <s>; "
     "<unk> and the unknown classes are ordinary tokens (an out-of-vocabulary word is scored as its class); "
@@ -109,6 +113,23 @@ def file_sentences(paths: list[Path], where: str, vocabulary_size: int) -> Itera
             offsets = lists.offsets.to_numpy().astype(np.int64)
             rows = {"ids": lists.flatten().to_numpy(), "offsets": offsets - offsets[0], "doc_id": batch.column("doc_id").to_numpy(zero_copy_only=False)}
             yield sentences(rows, f"{where}: {path}", vocabulary_size)
+
+
+def batched(sentences: Iterable[tuple[np.ndarray, np.ndarray]], tokens: int) -> Iterator[tuple[np.ndarray, np.ndarray]]:
+    """The (ids, sentence lengths) pairs joined, in order, into batches of at least `tokens`
+    ids (the last may hold fewer); sentences stay whole."""
+    ids: list[np.ndarray] = []
+    lengths: list[np.ndarray] = []
+    held = 0
+    for more_ids, more_lengths in sentences:
+        ids.append(more_ids)
+        lengths.append(more_lengths)
+        held += len(more_ids)
+        if held >= tokens:
+            yield np.concatenate(ids), np.concatenate(lengths)
+            ids, lengths, held = [], [], 0
+    if ids:
+        yield np.concatenate(ids), np.concatenate(lengths)
 
 
 @dataclass(frozen=True)
@@ -273,7 +294,7 @@ def score(
         def held_out(read: Sentences | list[Sentences]) -> SplitScore:
             figures = SplitScore()
             for part in _parts(read):
-                for ids, lengths in part():
+                for ids, lengths in batched(part(), SCORE_TOKENS):
                     kneser_ney.score_split(figures, models, unigram, ids, lengths)
             return figures
 

@@ -15,7 +15,7 @@ import numpy as np
 import pytest
 
 from conftest import REPO, require_file, run_workflow
-from corpusmill import baseline
+from corpusmill import baseline, kneser_ney
 from corpusmill.formats import NgramTotals, read_ngram_totals, write_ngram_totals
 from corpusmill.reader import open_build
 
@@ -148,6 +148,41 @@ def test_streams_become_sentences_cut_at_the_end_symbol_without_the_document_sta
     """steps.windows.document_streams' layout: <s> s1 </s> s2 </s> …; a document may hold no sentence."""
     ids, lengths = baseline.sentences(stream_batch([2, 5, 6, 3, 7, 3], [2], [2, 3], [2, 1, 3]), "build: split dev", 10)
     assert ids.tolist() == [5, 6, 7, 1] and lengths.tolist() == [2, 1, 0, 1]
+
+
+def test_sentences_are_joined_into_batches_of_at_least_the_given_tokens_in_order() -> None:
+    """Pairs of 3, 4, 2 and 5 ids joined for 6 tokens: 3+4, then 2+5; for 100 tokens, one batch
+    of all; sentences stay whole (their lengths add up to each batch's ids)."""
+    pairs = [(np.arange(start, start + size), np.array([size - 1, 1])) for start, size in ((0, 3), (10, 4), (20, 2), (30, 5))]
+    joined = list(baseline.batched(iter(pairs), 6))
+    assert [ids.tolist() for ids, _ in joined] == [[0, 1, 2, 10, 11, 12, 13], [20, 21, 30, 31, 32, 33, 34]]
+    assert [lengths.tolist() for _, lengths in joined] == [[2, 1, 3, 1], [1, 1, 4, 1]]
+    assert [ids.tolist() for ids, _ in baseline.batched(iter(pairs), 100)] == [np.concatenate([ids for ids, _ in pairs]).tolist()]
+    assert [len(ids) for ids, _ in baseline.batched(iter(pairs), 4)] == [7, 7]
+    assert list(baseline.batched(iter([]), 6)) == []
+
+
+def test_dev_is_scored_in_batches_with_the_figures_of_one_pass(monkeypatch: pytest.MonkeyPatch) -> None:
+    """Scored in three batches, dev has the figures of one kneser_ney.score_split
+    call over all its sentences: the same tokens and seen counts, the same log sums up to
+    rounding."""
+    rng = np.random.default_rng(3)
+
+    def sentences(count: int) -> tuple[np.ndarray, np.ndarray]:
+        lengths = rng.integers(1, 20, count)
+        return rng.integers(4, 50, int(lengths.sum())), lengths
+
+    train, dev_parts = sentences(400), [sentences(10) for _ in range(40)]
+    dev_ids, dev_lengths = (np.concatenate(column) for column in zip(*dev_parts))
+    monkeypatch.setattr(baseline, "SCORE_TOKENS", len(dev_ids) // 3 + 1)  # two batches and a shorter last one
+    result = baseline.score("t", {"train": lambda: iter([train]), "dev": lambda: iter(dev_parts), "test": None}, 50, 3, "modified")
+    models = kneser_ney.estimate_models(kneser_ney.count(*train, 3, 50), "modified", range(2, 4))
+    expected = kneser_ney.SplitScore()
+    kneser_ney.score_split(expected, models, kneser_ney.AddOneUnigram.of(models[3].counts), dev_ids, dev_lengths)
+    scored = result.scores["dev"]
+    assert scored is not None and (scored.tokens, scored.seen) == (expected.tokens, expected.seen)
+    assert scored.log_sums == pytest.approx(expected.log_sums, rel=1e-12)
+    assert scored.unigram_log_sum == pytest.approx(expected.unigram_log_sum, rel=1e-12)
 
 
 @pytest.mark.parametrize(
