@@ -120,15 +120,16 @@ class Vocabulary:
     @cached_property
     def symbol_ids(self) -> np.ndarray:
         """The ids, ascending, of every symbol that is not a word or piece of the text (reserved,
-        unknown classes, control pieces). `read_vocabulary` hands over the ids it found with Arrow:
-        every shard job reads the ids, so a loop over them in Python grew with the vocabulary."""
+        unknown classes, control pieces). `read_vocabulary` and `read_ids_table` hand over the ids
+        they found with Arrow: every shard job reads the ids, so a loop over them in Python grew
+        with the vocabulary."""
         import numpy as np
 
         return np.array([i for i, kind in enumerate(self.kinds) if kind in SYMBOL_KINDS], np.int64)
 
     @cached_property
     def token_array(self) -> pa.StringArray:
-        """The tokens as an Arrow array, for lookups (`read_vocabulary` hands over the column it read)."""
+        """The tokens as an Arrow array, for lookups (the readers hand over the column they read)."""
         import pyarrow as pa
 
         return pa.array(self.tokens, pa.string())
