@@ -1,9 +1,10 @@
 """Baseline: the n-gram model a neural model has to beat, from the build's stream shards.
 
 Reads the train, dev and test stream shards (each document is <s>, then every sentence's ids
-followed by </s>), counts train with steps.kneser_ney, and gives the perplexity of every split
-for each order 2..n, an add-one unigram baseline beside it, and the share of dev and test
-n-grams that occur in train. Two entries: the workflow's `baseline` step (stats/baseline.json,
+followed by </s>), counts train with steps.kneser_ney a bucket of n-grams at a time
+(steps.ngram_buckets: memory follows the largest bucket, not the corpus), and gives the
+perplexity of every split for each order 2..n, an add-one unigram baseline beside it, and the
+share of dev and test n-grams that occur in train. Two entries: the workflow's `baseline` step (stats/baseline.json,
 with the options of the `baseline` section, reading the files the shard jobs recorded), and
 the command `corpusmill baseline BUILD …` on a finished build (through steps.reader), where
 another order or smoothing costs one pass over the shards and `--arpa` writes the order-n model
@@ -17,10 +18,13 @@ LEAK_RATIO x train's probably shares much of its text with train.
 from __future__ import annotations
 
 import argparse
+import contextlib
 import functools
 import json
 import math
+import shutil
 import sys
+import tempfile
 from collections.abc import Callable, Iterable, Iterator, Mapping
 from concurrent.futures import ThreadPoolExecutor
 from dataclasses import dataclass
@@ -29,10 +33,11 @@ from pathlib import Path
 import numpy as np
 import pyarrow.parquet as pq
 
-from . import job, kneser_ney, windows
-from .formats import NgramTotals, code_digest, read_ids_table, read_ngram_totals, read_shard_stats, write_ngram_totals
-from .kneser_ney import BOS_ID, EOS_ID, SMOOTHINGS, AddOneUnigram, Keys, KneserNey, SplitScore
+from . import job, kneser_ney, ngram_buckets, windows
+from .formats import NgramTotals, code_digest, read_ids_table, read_ngram_totals, read_shard_stats, writing_ngram_totals
+from .kneser_ney import BOS_ID, EOS_ID, SMOOTHINGS, KneserNey, SplitScore
 from .layout import SPLITS
+from .ngram_buckets import BUCKETS, BucketStore, LevelFigures
 from .reader import MANIFEST, REBUILD, Build, BuildError, open_build
 from .storage import write_json
 
@@ -45,9 +50,11 @@ DOCUMENTS_PER_BATCH = 1024
 # and searches, most of the work, run without holding the interpreter lock.
 THREADS = 2
 # Dev and test tokens scored at once. Each batch's lookups walk the count tables in key order, so
-# a batch larger than one stream file's documents shares more of its paths through the tables;
-# its window columns take a few MB.
+# a larger batch shares more of its paths through the tables; its window columns take a few MB.
 SCORE_TOKENS = 1 << 17
+# Bytes of dev's or test's windows held in memory while train is counted; the rest wait on disk
+# until their bucket is scored.
+WINDOWS_HELD = 8 << 20
 CONVENTIONS = (
     "every id of a sentence and the </s> after it are predicted, <s> never; each sentence is preceded by n-1 <s>; "
     "<unk> and the unknown classes are ordinary tokens (an out-of-vocabulary word is scored as its class); "
@@ -95,7 +102,6 @@ def sentences(batch: dict, where: str, vocabulary_size: int) -> tuple[np.ndarray
 
 
 Sentences = Callable[[], Iterator[tuple[np.ndarray, np.ndarray]]]
-Totals = tuple[Keys, np.ndarray]  # n-grams of the highest order and their counts (NgramCounter.totals)
 
 
 def split_sentences(build: Build, split: str) -> Iterator[tuple[np.ndarray, np.ndarray]]:
@@ -141,7 +147,8 @@ class Baseline:
     smoothing: kneser_ney.Smoothing
     vocabulary_size: int
     scores: dict[str, SplitScore | None]  # None: the split has no documents
-    model: KneserNey
+    figures: tuple[LevelFigures, ...]  # per k = 1..order: the discounts of the order-n model and their count-of-counts
+    model: KneserNey | None  # the order-n model, when it was built whole (for --arpa)
 
     @property
     def orders(self) -> list[int]:
@@ -192,7 +199,7 @@ class Baseline:
                     "count_of_counts": list(w.count_of_counts),
                     "counts": "raw" if k == self.order else "continuation",
                 }
-                for k, w in enumerate(self.model.weights, start=1)
+                for k, w in enumerate(self.figures, start=1)
             },
             "warnings": self.warnings(),
         }
@@ -229,8 +236,8 @@ def format_baseline(baseline: Baseline) -> str:
         shares = [scores[split] for split in scores if split != "train"]
         lines.append(f"  {f'{k}-grams':<20}" + "".join(f"{s.seen_share(k):>14.1%}" if s and s.tokens else f"{'—':>14}" for s in shares))
     lines += ["", "discounts D1 / D2 / D3+ (from the count-of-counts n1..n4 of each order):"]
-    for k, weights in enumerate(baseline.model.weights, start=1):
-        d = weights.discounts
+    for k, figures in enumerate(baseline.figures, start=1):
+        d = figures.discounts
         kind = "raw" if k == baseline.order else "continuation"
         note = "  (fallback: the count-of-counts cannot give them)" if d.fallback else ""
         lines.append(f"  {k}-grams ({kind} counts): {d.d1:.4f} / {d.d2:.4f} / {d.d3:.4f}{note}")
@@ -250,86 +257,93 @@ def _parts(sentences: Sentences | list[Sentences]) -> list[Sentences]:
     return sentences if isinstance(sentences, list) else [sentences]
 
 
+Carried = Callable[[int], np.ndarray]  # bucket -> n-gram records counted by an earlier run
+Keep = Callable[[int, np.ndarray], None]  # given each bucket's summed records, in bucket order
+
+
 def score(
     name: str,
     splits: Mapping[str, Sentences | list[Sentences] | None],
     vocabulary_size: int,
     order: int,
     smoothing: kneser_ney.Smoothing,
-    carried: list[Totals] | None = None,
-    keep: Callable[[Totals], None] | None = None,
+    work: Path,
+    whole: bool = False,
+    carried: Carried | None = None,
+    keep: Keep | None = None,
 ) -> Baseline:
     """Count train, estimate the models of orders 2..n, and score every split (`splits` gives
     each split's sentences, None for a split without documents; train may come in parts,
-    counted side by side). Dev and test are scored side by side, each in its own order.
-    `carried`: the totals of train sentences counted before (NgramCounter.totals), added to
-    those of `splits["train"]`, in a list that is emptied; `keep` is given the summed totals."""
-    carried = carried if carried is not None else []
+    counted side by side with dev's and test's windows). The counts go through
+    steps.ngram_buckets, bucket by bucket, with what does not fit in memory written to `work`;
+    `whole` builds the model in one piece and keeps it (for --arpa). `carried`: each bucket's
+    totals of train sentences counted before, added to those of `splits["train"]`; `keep` is
+    given the summed totals of each bucket."""
     try:
-        counter = kneser_ney.NgramCounter(order, vocabulary_size)
+        kneser_ney.check_order(order, vocabulary_size)
     except ValueError as error:
         raise fail(f"order {order}: {error}") from None
     train = splits["train"]
-    if train is None and not carried:
+    if train is None and carried is None:
         raise fail(f"{name}: the train split has no documents; nothing to count")
-    parts = _parts(train) if train is not None else []
-    counters = [counter] + [kneser_ney.NgramCounter(order, vocabulary_size) for _ in parts[1:]]
+    counted = BucketStore(ngram_buckets.RECORD, work, "train", compact=ngram_buckets.merge_records)
+    window = ngram_buckets.window_record(order)
+    held_out = {split: BucketStore(window, work, split, WINDOWS_HELD) if splits.get(split) is not None else None for split in ("dev", "test")}
 
-    def count(counter: kneser_ney.NgramCounter, sentences: Sentences) -> None:
+    def count(sentences: Sentences) -> None:
+        counting = ngram_buckets.Counting(order, vocabulary_size, counted)
         for ids, lengths in sentences():
-            counter.add(ids, lengths)
+            counting.add(ids, lengths)
 
+    def hold(store: BucketStore, read: Sentences | list[Sentences]) -> None:
+        for part in _parts(read):
+            for ids, lengths in part():
+                ngram_buckets.hold_windows(store, order, vocabulary_size, ids, lengths)
+
+    tasks: list[tuple[Callable[..., None], tuple]] = [(count, (part,)) for part in (_parts(train) if train is not None else [])]
+    tasks += [(hold, (store, read)) for split, store in held_out.items() if store is not None and (read := splits[split]) is not None]
     with ThreadPoolExecutor(THREADS) as pool:
-        for done in [pool.submit(count, *pair) for pair in zip(counters, parts)]:
+        for done in [pool.submit(task, *arguments) for task, arguments in tasks]:
             done.result()
-        totals = [counter.totals(counters[1:], carried.pop() if carried else None)]
-        if keep is not None:
-            keep(totals[0])
-        counts = kneser_ney.counts_of_totals(totals, order, vocabulary_size)
-        if not counts.tokens:
-            raise fail(f"{name}: the train split has no sentences; nothing to count")
-        models = kneser_ney.estimate_models(counts, smoothing, range(2, order + 1))
-        unigram = AddOneUnigram.of(counts)
-
-        def held_out(read: Sentences | list[Sentences]) -> SplitScore:
-            figures = SplitScore()
-            for part in _parts(read):
-                for ids, lengths in batched(part(), SCORE_TOKENS):
-                    kneser_ney.score_split(figures, models, unigram, ids, lengths)
-            return figures
-
-        scoring = {split: pool.submit(held_out, read) for split in ("dev", "test") if (read := splits.get(split)) is not None}
-        scores: dict[str, SplitScore | None] = {"train": kneser_ney.training_score(models, unigram)}
-        scores.update({split: scoring[split].result() if split in scoring else None for split in ("dev", "test")})
-    return Baseline(name, order, smoothing, vocabulary_size, scores, models[order])
+    try:
+        scored = ngram_buckets.score(counted, held_out, order, vocabulary_size, smoothing, work, whole, carried, keep, SCORE_TOKENS, THREADS)
+    except ngram_buckets.NoTokens:
+        raise fail(f"{name}: the train split has no sentences; nothing to count") from None
+    return Baseline(name, order, smoothing, vocabulary_size, scored.scores, scored.figures, scored.model)
 
 
-def run(build: Build, order: int | None, smoothing: kneser_ney.Smoothing) -> Baseline:
-    """The baseline of a finished build, read through steps.reader."""
+def run(build: Build, order: int | None, smoothing: kneser_ney.Smoothing, whole: bool = False) -> Baseline:
+    """The baseline of a finished build, read through steps.reader, counted in a temporary folder."""
     missing = [split for split in SPLITS if split in build.splits and "stream" not in build.kinds(split)]
     if "train" not in build.splits or missing:
         raise fail(
             f"{build.root / MANIFEST}: no stream shards for {', '.join(missing) or 'train'}; the baseline reads each split's document streams: {ENABLE_STREAMS}"
         )
     splits: dict[str, Sentences | None] = {split: functools.partial(split_sentences, build, split) if split in build.splits else None for split in SPLITS}
-    return score(str(build.root), splits, build.vocabulary.size, default_order(build) if order is None else order, smoothing)
+    with tempfile.TemporaryDirectory(prefix="corpusmill-baseline-") as work:
+        return score(str(build.root), splits, build.vocabulary.size, default_order(build) if order is None else order, smoothing, Path(work), whole)
 
 
 def counting_code() -> str:
     """A digest of the code that turns stream files into n-gram totals: kept totals count only
     while it is unchanged."""
-    return code_digest(kneser_ney, windows, sys.modules[__name__])
+    return code_digest(kneser_ney, ngram_buckets, windows, sys.modules[__name__])
 
 
-def carried_totals(path: str, order: int, vocabulary_size: int, train: list[tuple[str, str]]) -> tuple[list[Totals], set[tuple[str, str]]]:
-    """The totals an earlier run kept (in a list, for `score`) and the stream files they count,
-    when they are of this order, vocabulary size and counting code and every file they count is
-    still a train stream file with the same bytes (the train split only gained files: an
-    append); else nothing, and every file is counted."""
+def carried_totals(path: str, order: int, vocabulary_size: int, train: list[tuple[str, str]]) -> tuple[Carried | None, set[tuple[str, str]]]:
+    """The totals an earlier run kept (each bucket's records, for `score`) and the stream files
+    they count, when they are of this order, vocabulary size, bucketing and counting code and
+    every file they count is still a train stream file with the same bytes (the train split
+    only gained files: an append); else nothing, and every file is counted."""
     kept = read_ngram_totals(path)
-    if kept is None or (kept.order, kept.vocabulary_size, kept.code) != (order, vocabulary_size, counting_code()) or not set(kept.counted) <= set(train):
-        return [], set()
-    return [(kneser_ney.Keys(kept.low, kept.high), kept.count)], set(kept.counted)
+    if kept is None:
+        return None, set()
+    about = kept.about
+    if (about.order, about.vocabulary_size, about.code, about.buckets) != (order, vocabulary_size, counting_code(), BUCKETS):
+        return None, set()
+    if not set(about.counted) <= set(train):
+        return None, set()
+    return (lambda bucket: ngram_buckets.records_of(*kept.bucket(bucket))), set(about.counted)
 
 
 def step_order(options: dict) -> int:
@@ -359,13 +373,18 @@ def step(argv: list[str] | None = None) -> None:
     if len(files["train"]) > 1:  # counted in THREADS parts, every part's counts summed
         splits["train"] = [functools.partial(file_sentences, files["train"][part::THREADS], "split train", size) for part in range(THREADS)]
 
-    def keep(totals: Totals) -> None:
-        keys, count = totals
-        write_ngram_totals(layout.baseline_totals, NgramTotals(order, size, counting_code(), tuple(train), keys.low, keys.high, count))
-
     print(f"train stream files: {len(counted)} counted by an earlier run, {len(files['train'])} counted now")
+    work = Path(layout.baseline_work)
+    shutil.rmtree(work, ignore_errors=True)  # what a killed run left
     # With no file counted now, every train file was counted before: the kept totals stand as they are.
-    baseline = score(layout.root, splits, size, order, run_.options["baseline"]["smoothing"], carried, keep if files["train"] else None)
+    about = NgramTotals(order, size, counting_code(), tuple(train), BUCKETS)
+    keeping = writing_ngram_totals(layout.baseline_totals, about) if files["train"] else contextlib.nullcontext(None)
+    try:
+        with keeping as write:
+            keep: Keep | None = None if write is None else (lambda _, records: write(records["low"], records["high"], records["count"]))
+            baseline = score(layout.root, splits, size, order, run_.options["baseline"]["smoothing"], work, carried=carried, keep=keep)
+    finally:
+        shutil.rmtree(work, ignore_errors=True)
     write_json(layout.baseline, baseline.to_json())
     print(format_baseline(baseline))
 
@@ -397,11 +416,12 @@ def command(argv: list[str] | None = None) -> None:
     args = parser.parse_args(argv)
     try:
         build = open_build(args.build)
-        baseline = run(build, args.order, args.smoothing)
+        baseline = run(build, args.order, args.smoothing, whole=args.arpa is not None)
     except BuildError as error:
         raise fail(str(error)) from None
     if args.arpa:
         try:
+            assert baseline.model is not None  # built whole for --arpa
             with open(args.arpa, "w", encoding="utf-8") as out:
                 written = kneser_ney.write_arpa(baseline.model, build.vocabulary.tokens, out)
         except BrokenPipeError:

@@ -26,7 +26,8 @@ from __future__ import annotations
 
 import hashlib
 import json
-from collections.abc import Iterable, Mapping, Sequence
+from collections.abc import Callable, Iterable, Iterator, Mapping, Sequence
+from contextlib import contextmanager
 from dataclasses import asdict, dataclass, field
 from functools import cached_property
 from pathlib import Path
@@ -509,54 +510,81 @@ def read_shard_stats(path: str | Path) -> ShardStats:
 
 # --- n-gram totals kept between runs -------------------------------------------------------------
 #
-# `interim/baseline/train-ngram-totals.npz`, an uncompressed NumPy archive: the baseline's train
-# counts at its highest order, kept so that a run whose train streams only gained files counts
-# the new files alone. Arrays: `low` and, when keys exceed 64 bits, `high` (uint64, the packed
-# n-grams of steps.kneser_ney.Keys, in key order), `count` (int64, occurrences), and `about`
-# (the UTF-8 bytes of a JSON object: order, vocabulary_size, code (a digest of the counting
-# code) and counted (every [file, sha256] of the train stream files the totals are of)).
+# `interim/baseline/train-ngram-totals.arrow`, an Arrow IPC file: the baseline's train counts at
+# its highest order, kept so that a run whose train streams only gained files counts the new
+# files alone. One record batch per bucket of steps.ngram_buckets, in bucket order, each in key
+# order; columns `low` and `high` (uint64, the packed n-grams of steps.kneser_ney.Keys; `high`
+# zero when keys fit 64 bits) and `count` (int64, occurrences). The schema's `corpusmill`
+# metadata: order, vocabulary_size, code (a digest of the counting code), counted (every
+# [file, sha256] of the train stream files the totals are of) and buckets.
 
 
 @dataclass(frozen=True)
 class NgramTotals:
-    """Train n-gram totals and what they were counted from."""
+    """What kept train n-gram totals are of."""
 
     order: int
     vocabulary_size: int
     code: str
     counted: tuple[tuple[str, str], ...]  # (stream file relative to the build folder, its SHA-256)
-    low: Any  # numpy arrays; high is None when every key fits 64 bits
-    high: Any
-    count: Any
+    buckets: int
 
 
-def write_ngram_totals(path: str | Path, totals: NgramTotals) -> None:
-    import numpy as np
+@dataclass(frozen=True)
+class KeptNgramTotals:
+    """Kept totals read back: what they are of, and each bucket's columns."""
+
+    about: NgramTotals
+    reader: Any  # pyarrow.ipc.RecordBatchFileReader over a memory map
+
+    def bucket(self, bucket: int) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
+        """(low, high, count) of one bucket."""
+        batch = self.reader.get_batch(bucket)
+        low, high, count = (batch.column(name).to_numpy() for name in ("low", "high", "count"))
+        return low, high, count
+
+
+def _ngram_totals_schema(about: NgramTotals) -> pa.Schema:
+    import pyarrow as pa
+
+    fields = [("low", pa.uint64()), ("high", pa.uint64()), ("count", pa.int64())]
+    return pa.schema(fields, metadata={METADATA_KEY: json.dumps(asdict(about)).encode()})
+
+
+@contextmanager
+def writing_ngram_totals(path: str | Path, about: NgramTotals) -> Iterator[Callable[[Any, Any, Any], None]]:
+    """Yields `write(low, high, count)`, to be called once per bucket in bucket order; the file
+    replaces `path` only when the block ends with every bucket written."""
+    import pyarrow as pa
 
     from .storage import atomic_path
 
-    about = {"order": totals.order, "vocabulary_size": totals.vocabulary_size, "code": totals.code, "counted": [list(f) for f in totals.counted]}
-    arrays = {"low": totals.low, "count": totals.count, "about": np.frombuffer(json.dumps(about).encode(), np.uint8)}
-    if totals.high is not None:
-        arrays["high"] = totals.high
-    with atomic_path(path) as temporary, open(temporary, "wb") as handle:
-        np.savez(handle, **arrays)
+    schema = _ngram_totals_schema(about)
+    written = 0
+
+    def write(low: Any, high: Any, count: Any) -> None:
+        nonlocal written
+        writer.write_batch(pa.record_batch([pa.array(low), pa.array(high), pa.array(count)], schema=schema))
+        written += 1
+
+    with atomic_path(path) as temporary, pa.OSFile(str(temporary), "wb") as sink, pa.ipc.new_file(sink, schema) as writer:
+        yield write
+        if written != about.buckets:
+            raise ValueError(f"{written} buckets of n-gram totals written, {about.buckets} expected")
 
 
-def read_ngram_totals(path: str | Path) -> NgramTotals | None:
-    """The totals, or None when the file is missing or not such an archive (they are then
-    counted again). Never unpickles: an archive holding Python objects is not one of ours."""
-    import zipfile
-
-    import numpy as np
+def read_ngram_totals(path: str | Path) -> KeptNgramTotals | None:
+    """The totals, or None when the file is missing or not one of ours (they are then counted
+    again)."""
+    import pyarrow as pa
 
     try:
-        with np.load(path, allow_pickle=False) as archive:
-            about = json.loads(archive["about"].tobytes().decode())
-            high = archive["high"] if "high" in archive.files else None
-            return NgramTotals(
-                int(about["order"]), int(about["vocabulary_size"]), str(about["code"]), tuple((str(f), str(d)) for f, d in about["counted"]),
-                archive["low"], high, archive["count"],
-            )  # fmt: skip
-    except (OSError, KeyError, ValueError, TypeError, zipfile.BadZipFile):
+        reader = pa.ipc.open_file(pa.memory_map(str(path)))
+        about = json.loads(reader.schema.metadata[METADATA_KEY])
+        counted = tuple((str(f), str(d)) for f, d in about["counted"])
+        kept = NgramTotals(int(about["order"]), int(about["vocabulary_size"]), str(about["code"]), counted, int(about["buckets"]))
+        if reader.num_record_batches != kept.buckets or reader.schema.remove_metadata() != _ngram_totals_schema(kept).remove_metadata():
+            return None
+        return KeptNgramTotals(kept, reader)
+    except (OSError, KeyError, ValueError, TypeError, pa.ArrowInvalid):
         return None

@@ -43,7 +43,7 @@ would leave no probability for unseen ids) D = 0.5 (both fallbacks our own rule)
 from __future__ import annotations
 
 import math
-from collections.abc import Iterator, Sequence
+from collections.abc import Iterator, Mapping, Sequence
 from dataclasses import dataclass, field
 from typing import Literal, TextIO
 
@@ -220,7 +220,7 @@ def find_ids(table: np.ndarray, queries: np.ndarray) -> np.ndarray:
     return find(Keys(table), Keys(queries))
 
 
-def _count_run(keys: Keys) -> tuple[Keys, np.ndarray]:
+def count_run(keys: Keys) -> tuple[Keys, np.ndarray]:
     """Distinct keys, sorted, with how often each occurs."""
     keys = Keys(np.sort(keys.low)) if keys.high is None else keys[keys.order()]
     starts = keys.starts()
@@ -259,13 +259,25 @@ def check_ids(ids: np.ndarray, sentence_lengths: np.ndarray, vocabulary_size: in
         )
 
 
-def _windows(ids: np.ndarray, sentence_lengths: np.ndarray, n: int) -> list[np.ndarray]:
+def check_order(order: int, vocabulary_size: int) -> None:
+    """ValueError when n-grams of this order over this vocabulary cannot be counted."""
+    if vocabulary_size <= EOS_ID:
+        raise ValueError(f"a vocabulary holds at least the 4 reserved ids, got {vocabulary_size}")
+    keys_format = KeyFormat(vocabulary_size)
+    if not 1 <= order <= keys_format.largest_order():
+        raise ValueError(
+            f"order {order}: the order runs from 1 to {keys_format.largest_order()} for {vocabulary_size} ids "
+            f"(n ids of {keys_format.bits} bits make a key of at most 128 bits)"
+        )
+
+
+def windows(ids: np.ndarray, sentence_lengths: np.ndarray, n: int) -> list[np.ndarray]:
     """Columns of the n ids ending at each predicted token (n-1 context ids, then the token)."""
     context, target = ngram_windows(ids, sentence_lengths, n, BOS_ID, EOS_ID)
     return [context[:, j] for j in range(n - 1)] + [target]
 
 
-def _sentence_groups(sentence_lengths: np.ndarray, tokens: int) -> Iterator[tuple[int, int, int, int]]:
+def sentence_groups(sentence_lengths: np.ndarray, tokens: int) -> Iterator[tuple[int, int, int, int]]:
     """(first sentence, end sentence, first id, end id) of consecutive groups of about `tokens` ids."""
     ends = np.cumsum(sentence_lengths)
     first, start = 0, 0
@@ -287,22 +299,16 @@ class NgramCounter:
     _pending: list[tuple[Keys, np.ndarray]] = field(default_factory=list)
 
     def __post_init__(self) -> None:
-        if self.vocabulary_size <= EOS_ID:
-            raise ValueError(f"a vocabulary holds at least the 4 reserved ids, got {self.vocabulary_size}")
+        check_order(self.order, self.vocabulary_size)
         self.format = KeyFormat(self.vocabulary_size)
-        if not 1 <= self.order <= self.format.largest_order():
-            raise ValueError(
-                f"order {self.order}: the order runs from 1 to {self.format.largest_order()} for {self.vocabulary_size} ids "
-                f"(n ids of {self.format.bits} bits make a key of at most 128 bits)"
-            )
 
     def add(self, ids: np.ndarray, sentence_lengths: np.ndarray) -> None:
         """Count the n-grams of these sentences (ids laid end to end)."""
         lengths = np.asarray(sentence_lengths, np.int64)
         check_ids(ids, lengths, self.vocabulary_size)
-        for first, last, start, end in _sentence_groups(lengths, self.batch_tokens):
-            keys = self.format.pack(_windows(ids[start:end], lengths[first:last], self.order))
-            self._pending.append(_count_run(keys))
+        for first, last, start, end in sentence_groups(lengths, self.batch_tokens):
+            keys = self.format.pack(windows(ids[start:end], lengths[first:last], self.order))
+            self._pending.append(count_run(keys))
             held = sum(len(k) for k, _ in self._pending)
             if held >= max(self.batch_tokens, 0 if self._table is None else len(self._table[0])):
                 self._table = _merge(self._take())
@@ -313,15 +319,13 @@ class NgramCounter:
         self._table, self._pending = None, []
         return parts
 
-    def totals(self, others: Sequence[NgramCounter] = (), carried: tuple[Keys, np.ndarray] | None = None) -> tuple[Keys, np.ndarray]:
+    def totals(self, others: Sequence[NgramCounter] = ()) -> tuple[Keys, np.ndarray]:
         """The distinct n-grams of order n, sorted, with their counts, of what this counter and
-        `others` (of the same order and vocabulary, fed other sentences) were given, plus the
-        `carried` totals of earlier sentences (what an earlier call returned). Empties the
+        `others` (of the same order and vocabulary, fed other sentences) were given. Empties the
         counters."""
         if any((other.order, other.vocabulary_size) != (self.order, self.vocabulary_size) for other in others):
             raise ValueError("counters of different orders or vocabularies cannot be combined")
-        parts = self._take() + [part for other in others for part in other._take()] + ([carried] if carried is not None else [])
-        carried = None  # held by `parts` alone, which the merge empties
+        parts = self._take() + [part for other in others for part in other._take()]
         if parts:
             return _merge(parts)
         return self.format.pack([np.empty(0, np.uint64)] * self.order), np.empty(0, np.int64)
@@ -596,12 +600,22 @@ def estimate(counts: Counts, discounts: Sequence[Discounts]) -> KneserNey:
     return KneserNey(counts, tuple(Weights.of(levels[k - 1], k == order, discounts[k - 1]) for k in range(1, order + 1)))
 
 
-def estimate_models(counts: Counts, smoothing: Smoothing, orders: Sequence[int]) -> dict[int, KneserNey]:
+def estimate_models(
+    counts: Counts, smoothing: Smoothing, orders: Sequence[int], discounts: Mapping[tuple[int, bool], Discounts] | None = None
+) -> dict[int, KneserNey]:
     """Models of several orders from one set of counts; the levels they share (continuation
-    counts below each model's order) are estimated once, and are the same objects."""
+    counts below each model's order) are estimated once, and are the same objects. `discounts`
+    ((k, raw counts or not) -> discounts) replaces those of the counts' own count-of-counts, for
+    counts that hold part of the split (steps.ngram_buckets)."""
     if not counts.tokens:
         raise ValueError("no tokens to estimate a model from")
     levels = counts.levels
+
+    def discount(level: Level, top: bool) -> Discounts:
+        if discounts is not None:
+            return discounts[level.k, top]
+        return estimate_discounts(count_of_counts(level.counts(top)), smoothing)
+
     shared: dict[int, Weights] = {}
     models = {}
     for order in sorted(orders):
@@ -609,10 +623,10 @@ def estimate_models(counts: Counts, smoothing: Smoothing, orders: Sequence[int])
         for k in range(1, order + 1):
             level = levels[k - 1]
             if k == order:
-                weights.append(Weights.of(level, True, estimate_discounts(count_of_counts(level.raw), smoothing)))
+                weights.append(Weights.of(level, True, discount(level, True)))
                 continue
             if k not in shared:
-                shared[k] = Weights.of(level, False, estimate_discounts(count_of_counts(level.counts(False)), smoothing))
+                shared[k] = Weights.of(level, False, discount(level, False))
             weights.append(shared[k])
         models[order] = KneserNey(counts, tuple(weights))
     return models
@@ -683,8 +697,8 @@ def score_split(score: SplitScore, models: dict[int, KneserNey], unigram: AddOne
     counts = next(iter(models.values())).counts
     lengths = np.asarray(sentence_lengths, np.int64)
     check_ids(ids, lengths, counts.vocabulary_size)
-    for first, last, start, end in _sentence_groups(lengths, 1 << 20):
-        columns = _windows(ids[start:end], lengths[first:last], counts.order)
+    for first, last, start, end in sentence_groups(lengths, 1 << 20):
+        columns = windows(ids[start:end], lengths[first:last], counts.order)
         score.add(models, unigram, locate_windows(counts, columns), columns[-1])
 
 

@@ -65,7 +65,13 @@ class Layout:
     @property
     def baseline_totals(self) -> str:
         """The baseline's train n-gram totals, kept for the next run (steps.formats.NgramTotals)."""
-        return self._join("interim", "baseline", "train-ngram-totals.npz")
+        return self._join("interim", "baseline", "train-ngram-totals.arrow")
+
+    @property
+    def baseline_work(self) -> str:
+        """Where the baseline job puts the counts and windows it cannot hold (steps.ngram_buckets);
+        emptied when the job ends."""
+        return self._join("interim", "baseline", "work")
 
     @property
     def accounting(self) -> str:

@@ -209,7 +209,7 @@ def test_files_of_jobs_that_no_longer_exist_are_removed_after_a_full_run(tmp_pat
     build = tmp_path / "run" / "build"
     old = {p for p in build.rglob("*") if p.is_file() and ("c.txt" in p.name or p.name.startswith("ngram-"))}
     assert len({p for p in old if "c.txt" in p.name}) >= 9 + 6 and len({p for p in old if p.name.startswith("ngram-")}) == 2 * 3 * 3
-    totals = build / "interim" / "baseline" / "train-ngram-totals.npz"
+    totals = build / "interim" / "baseline" / "train-ngram-totals.arrow"
     assert totals.is_file()  # kept for the next run while the baseline is on
     old.add(totals)
     (root / "c.txt").unlink()

@@ -3,7 +3,6 @@ and the train totals the workflow's step keeps for its next run."""
 
 from __future__ import annotations
 
-import dataclasses
 import json
 import re
 import shutil
@@ -16,7 +15,8 @@ import pytest
 
 from conftest import REPO, require_file, run_workflow
 from corpusmill import baseline, kneser_ney
-from corpusmill.formats import NgramTotals, read_ngram_totals, write_ngram_totals
+from corpusmill.formats import NgramTotals, read_ngram_totals, writing_ngram_totals
+from corpusmill.ngram_buckets import BUCKETS
 from corpusmill.reader import open_build
 
 FORTUNES = Path("/usr/share/games/fortunes")
@@ -162,7 +162,7 @@ def test_sentences_are_joined_into_batches_of_at_least_the_given_tokens_in_order
     assert list(baseline.batched(iter([]), 6)) == []
 
 
-def test_dev_is_scored_in_batches_with_the_figures_of_one_pass(monkeypatch: pytest.MonkeyPatch) -> None:
+def test_dev_is_scored_in_batches_with_the_figures_of_one_pass(monkeypatch: pytest.MonkeyPatch, tmp_path: Path) -> None:
     """Scored in three batches, dev has the figures of one kneser_ney.score_split
     call over all its sentences: the same tokens and seen counts, the same log sums up to
     rounding."""
@@ -175,7 +175,7 @@ def test_dev_is_scored_in_batches_with_the_figures_of_one_pass(monkeypatch: pyte
     train, dev_parts = sentences(400), [sentences(10) for _ in range(40)]
     dev_ids, dev_lengths = (np.concatenate(column) for column in zip(*dev_parts))
     monkeypatch.setattr(baseline, "SCORE_TOKENS", len(dev_ids) // 3 + 1)  # two batches and a shorter last one
-    result = baseline.score("t", {"train": lambda: iter([train]), "dev": lambda: iter(dev_parts), "test": None}, 50, 3, "modified")
+    result = baseline.score("t", {"train": lambda: iter([train]), "dev": lambda: iter(dev_parts), "test": None}, 50, 3, "modified", tmp_path)
     models = kneser_ney.estimate_models(kneser_ney.count(*train, 3, 50), "modified", range(2, 4))
     expected = kneser_ney.SplitScore()
     kneser_ney.score_split(expected, models, kneser_ney.AddOneUnigram.of(models[3].counts), dev_ids, dev_lengths)
@@ -249,28 +249,33 @@ def test_a_build_whose_dev_copies_train_warns_and_an_honest_one_does_not(fortune
     assert "<strong>Warning</strong>: dev perplexity" in page
 
 
-def kept_totals(path: Path, counted: list[tuple[str, str]], order: int = 3, size: int = 300) -> None:
-    """Write totals of three 3-grams as an earlier run would have kept them."""
-    keys = np.array([5, 9, 40], np.uint64)
-    totals = NgramTotals(order, size, baseline.counting_code(), tuple(counted), keys, None, np.array([2, 1, 7], np.int64))
-    write_ngram_totals(path, totals)
+def kept_totals(path: Path, counted: list[tuple[str, str]], order: int = 3, size: int = 300, code: str | None = None) -> None:
+    """Write totals of three 3-grams, in bucket 0, as an earlier run would have kept them."""
+    about = NgramTotals(order, size, code or baseline.counting_code(), tuple(counted), BUCKETS)
+    with writing_ngram_totals(path, about) as write:
+        write(np.array([5, 9, 40], np.uint64), np.zeros(3, np.uint64), np.array([2, 1, 7], np.int64))
+        for _ in range(BUCKETS - 1):
+            write(np.empty(0, np.uint64), np.empty(0, np.uint64), np.empty(0, np.int64))
 
 
 TRAIN = [("shards/train/stream-a.parquet", "aa"), ("shards/train/stream-b.parquet", "bb")]
 
 
 def test_kept_totals_are_carried_only_when_the_train_streams_only_gained_files(tmp_path: Path) -> None:
-    path = str(tmp_path / "totals.npz")
-    kept_totals(tmp_path / "totals.npz", TRAIN)
+    path = str(tmp_path / "totals.arrow")
+    kept_totals(tmp_path / "totals.arrow", TRAIN)
     added = [*TRAIN, ("shards/train/stream-c.parquet", "cc")]
     carried, counted = baseline.carried_totals(path, 3, 300, added)
-    assert counted == set(TRAIN) and carried[0][1].tolist() == [2, 1, 7]
+    assert counted == set(TRAIN) and carried is not None
+    assert carried(0)["count"].tolist() == [2, 1, 7] and carried(0)["low"].tolist() == [5, 9, 40] and len(carried(1)) == 0
     edited = [TRAIN[0], ("shards/train/stream-b.parquet", "b2")]
     removed = TRAIN[:1]
     for train, order, size in [(edited, 3, 300), (removed, 3, 300), (added, 4, 300), (added, 3, 301)]:
-        assert baseline.carried_totals(path, order, size, train) == ([], set())
+        assert baseline.carried_totals(path, order, size, train) == (None, set())
     # Counted by other code (another version of the counting): counted again.
-    other = read_ngram_totals(path)
-    assert other is not None
-    write_ngram_totals(path, dataclasses.replace(other, code="0" * 16))
-    assert baseline.carried_totals(path, 3, 300, added) == ([], set())
+    kept_totals(tmp_path / "totals.arrow", TRAIN, code="0" * 16)
+    assert baseline.carried_totals(path, 3, 300, added) == (None, set())
+    # Not a totals file, or a missing one: counted again.
+    (tmp_path / "totals.arrow").write_bytes(b"ARROW1 but not really")
+    assert read_ngram_totals(path) is None and baseline.carried_totals(path, 3, 300, added) == (None, set())
+    assert read_ngram_totals(str(tmp_path / "nowhere.arrow")) is None

@@ -49,7 +49,7 @@ from corpusmill.formats import (
     shard_schema,
     unescape,
     write_ids_table,
-    write_ngram_totals,
+    writing_ngram_totals,
 )
 from corpusmill.reader import open_build
 from corpusmill.subword import trainer_options
@@ -432,27 +432,34 @@ def test_file_sha256_equals_hashlib_over_the_whole_file(tmp_path: Path) -> None:
 
 
 def test_ngram_totals_read_back_as_written_and_an_unreadable_file_reads_as_none(tmp_path: Path) -> None:
-    """The archive is NumPy's own .npz (read here with numpy.load); a truncated or foreign file
-    is counted again rather than trusted."""
-    path = tmp_path / "totals.npz"
+    """An Arrow IPC file, a record batch per bucket (read here with pyarrow's own IPC reader);
+    a truncated, foreign or incomplete file is counted again rather than trusted."""
+    path = tmp_path / "totals.arrow"
     counted = (("shards/train/stream-a.parquet", "aa"), ("shards/train/stream-b.parquet", "bb"))
-    write_ngram_totals(path, NgramTotals(3, 300, "c0de", counted, np.array([5, 9, 40], np.uint64), None, np.array([2, 1, 7], np.int64)))
-    with np.load(path) as archive:
-        assert sorted(archive.files) == ["about", "count", "low"]
-        assert json.loads(archive["about"].tobytes())["counted"] == [list(f) for f in counted]
+    about = NgramTotals(3, 300, "c0de", counted, 3)
+    buckets = [([5, 9, 40], [0, 0, 1], [2, 1, 7]), ([], [], []), ([2**64 - 1], [3], [4])]
+    with writing_ngram_totals(path, about) as write:
+        for low, high, count in buckets:
+            write(np.array(low, np.uint64), np.array(high, np.uint64), np.array(count, np.int64))
+    plain = pa.ipc.open_file(str(path))
+    assert plain.num_record_batches == 3 and plain.schema.names == ["low", "high", "count"]
+    assert json.loads(plain.schema.metadata[b"corpusmill"])["counted"] == [list(f) for f in counted]
+    assert [plain.get_batch(b).to_pydict() for b in range(3)] == [{"low": lo, "high": hi, "count": c} for lo, hi, c in buckets]
     read = read_ngram_totals(path)
-    assert read is not None and read.counted == counted and read.high is None
-    assert (read.order, read.vocabulary_size, read.code) == (3, 300, "c0de")
-    assert read.low.tolist() == [5, 9, 40] and read.count.tolist() == [2, 1, 7]
-    assert read.low.dtype == np.uint64 and read.count.dtype == np.int64
-    wide = NgramTotals(7, 2**21, "c0de", counted, np.array([1, 2], np.uint64), np.array([0, 3], np.uint64), np.array([4, 5], np.int64))
-    write_ngram_totals(path, wide)
-    read = read_ngram_totals(path)
-    assert read is not None and read.high is not None and read.high.tolist() == [0, 3] and read.order == 7
+    assert read is not None and read.about == about
+    for bucket, (low, high, count) in enumerate(buckets):
+        assert [column.tolist() for column in read.bucket(bucket)] == [low, high, count]
+    assert [column.dtype for column in read.bucket(0)] == [np.uint64, np.uint64, np.int64]
+    # Fewer buckets written than announced: the file is not replaced.
+    with pytest.raises(ValueError, match="2 buckets of n-gram totals written, 3 expected"):
+        with writing_ngram_totals(path, about) as write:
+            for low, high, count in buckets[:2]:
+                write(np.array(low, np.uint64), np.array(high, np.uint64), np.array(count, np.int64))
+    assert read_ngram_totals(path) is not None and not list(tmp_path.glob(".*partial"))
     path.write_bytes(path.read_bytes()[:100])
     assert read_ngram_totals(path) is None
-    assert read_ngram_totals(tmp_path / "missing.npz") is None
-    # Python objects in the archive (unpickling them could run code): refused, never loaded.
-    about = np.frombuffer(json.dumps({"order": 3, "vocabulary_size": 300, "code": "c0de", "counted": []}).encode(), np.uint8)
-    np.savez(path, low=np.array([object()], dtype=object), count=np.array([1]), about=about)
+    assert read_ngram_totals(tmp_path / "missing.arrow") is None
+    # Another table in the file, or fewer batches than its buckets: not ours.
+    with pa.OSFile(str(path), "wb") as sink, pa.ipc.new_file(sink, pa.schema([("low", pa.uint64())])) as writer:
+        writer.write_batch(pa.record_batch([pa.array([1], pa.uint64())], names=["low"]))
     assert read_ngram_totals(path) is None

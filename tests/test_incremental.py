@@ -152,7 +152,7 @@ def test_with_a_frozen_vocabulary_each_change_equals_a_clean_build_and_spares_th
             log = (build / "logs" / "baseline" / "baseline.log").read_text(encoding="utf-8")
             assert f"train stream files: {len(now_chunks) - 1} counted by an earlier run, 1 counted now" in log
             # Run again with nothing new: every file's totals are kept, and the file is not rewritten.
-            totals = build / "interim" / "baseline" / "train-ngram-totals.npz"
+            totals = build / "interim" / "baseline" / "train-ngram-totals.arrow"
             written = totals.stat().st_mtime_ns
             run_workflow(base / "live", overrides, "--forcerun", "baseline")
             log = (build / "logs" / "baseline" / "baseline.log").read_text(encoding="utf-8")

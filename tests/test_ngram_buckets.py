@@ -1,0 +1,208 @@
+"""The baseline counted, estimated and scored bucket by bucket (steps/ngram_buckets.py): the
+figures of Chen and Goodman's formulas written out with Counters, whatever the groups and
+whatever was written out to disk on the way, and an append that counts only what is new."""
+
+from __future__ import annotations
+
+import math
+import tempfile
+import threading
+from collections import Counter
+from collections.abc import Iterator
+from contextlib import contextmanager
+from pathlib import Path
+from unittest import mock
+
+import numpy as np
+import pytest
+from hypothesis import HealthCheck, given, settings
+from hypothesis import strategies as st
+from test_kneser_ney import SIZES, Reference, flat, sentences_strategy, windows
+
+from corpusmill import baseline, kneser_ney, ngram_buckets
+from corpusmill.formats import NgramTotals, read_ngram_totals, writing_ngram_totals
+from corpusmill.kneser_ney import Discounts
+from corpusmill.ngram_buckets import BUCKETS, RECORD, BucketStore
+
+Sentences = list[list[int]]
+
+
+@contextmanager
+def small_groups_and_stores(group_ngrams: int, held_bytes: int) -> Iterator[list[int]]:
+    """Groups of at most `group_ngrams` n-grams, train counted 64 tokens at a time, and stores
+    that write out beyond `held_bytes`; yields a list that gets one item per write-out."""
+    written: list[int] = []
+    write_out = BucketStore._write_out
+
+    def counted(self: BucketStore) -> None:
+        written.append(self._bytes)
+        write_out(self)
+
+    with (
+        mock.patch.object(ngram_buckets, "GROUP_NGRAMS", group_ngrams),
+        mock.patch.object(ngram_buckets, "HELD_BYTES", held_bytes),
+        mock.patch.object(ngram_buckets, "COUNT_TOKENS", 64),
+        mock.patch.object(baseline, "WINDOWS_HELD", held_bytes),
+        mock.patch.object(BucketStore, "_write_out", counted),
+    ):
+        yield written
+
+
+def score(train: list[Sentences], held_out: dict[str, Sentences], n: int, size: int, **options: object) -> baseline.Baseline:
+    """baseline.score over sentences given as lists, train in parts."""
+
+    def reader(sentences: Sentences) -> baseline.Sentences:
+        return lambda: iter([flat(sentences)])
+
+    splits: dict[str, baseline.Sentences | list[baseline.Sentences] | None] = {"train": [reader(part) for part in train] if train else None}
+    splits |= {split: reader(sentences) if sentences else None for split, sentences in held_out.items()}
+    with tempfile.TemporaryDirectory() as work:
+        return baseline.score("t", splits, size, n, "modified", Path(work), **options)  # type: ignore[arg-type]
+
+
+def count_of_counts(counter: Counter) -> tuple[int, int, int, int]:
+    by_count = Counter(counter.values())
+    return by_count[1], by_count[2], by_count[3], by_count[4]
+
+
+def expected_figures(train: Sentences, held_out: Sentences | None, n: int, size: int) -> tuple[list[Discounts], list[tuple[int, ...]], dict | None]:
+    """From Counters: the discounts and count-of-counts of the order-n model (continuation counts
+    below n, raw at n) and, for held-out sentences, tokens, ln p per order, the add-one unigram's
+    ln p and the seen k-grams (module docstring of steps.kneser_ney)."""
+    reference = Reference(train, n, size)
+    counted = [count_of_counts(reference.continuation[k]) for k in range(1, n)] + [count_of_counts(reference.raw[n])]
+    continuation = [kneser_ney.estimate_discounts(c, "modified") for c in counted[:-1]]
+    raw = {k: kneser_ney.estimate_discounts(count_of_counts(reference.raw[k]), "modified") for k in range(2, n + 1)}
+    if held_out is None:
+        return [*continuation, raw[n]], counted, None
+    grams = windows(held_out, n)
+    tokens = sum(reference.raw[1].values())
+    figures = {
+        "tokens": len(grams),
+        "log_sums": {
+            order: sum(math.log(reference.probability(w[-1], w[n - order : -1], order, [*continuation[: order - 1], raw[order]])) for w in grams)
+            for order in range(2, n + 1)
+        },
+        "unigram": sum(math.log((reference.raw[1][w[-1:]] + 1) / (tokens + size - 2)) for w in grams),
+        "seen": {k: sum(w[n - k :] in reference.raw[k] for w in grams) for k in range(1, n + 1)},
+    }
+    return [*continuation, raw[n]], counted, figures
+
+
+@settings(suppress_health_check=[HealthCheck.too_slow], deadline=None)
+@given(size=st.sampled_from(SIZES), n=st.integers(2, 4), group=st.integers(1, 8), held=st.sampled_from([1, 200, 1 << 20]), data=st.data())
+def test_scores_follow_chen_and_goodmans_formulas_written_out_with_counters(size: int, n: int, group: int, held: int, data: st.DataObject) -> None:
+    """Train counted in two parts, dev and test scored, with groups of a few n-grams and stores
+    that write out after every few records: every figure equals Chen and Goodman's (1998)
+    modified interpolated Kneser-Ney computed with Counters one window at a time (tests/
+    test_kneser_ney.py's `Reference`), with the discounts from Counter count-of-counts."""
+    first, second = data.draw(sentences_strategy(size)), data.draw(sentences_strategy(size))
+    dev, test = data.draw(sentences_strategy(size)), data.draw(st.lists(st.lists(st.sampled_from([1, 4, 5, size - 1]), max_size=6), max_size=4))
+    with small_groups_and_stores(group, held):
+        result = score([first, second], {"dev": dev, "test": test}, n, size)
+    discounts, counted, _ = expected_figures(first + second, None, n, size)
+    assert [f.discounts for f in result.figures] == pytest.approx(discounts, rel=1e-12)
+    assert [f.count_of_counts for f in result.figures] == counted
+    for split, sentences in (("dev", dev), ("test", test), ("train", first + second)):
+        scored = result.scores[split]
+        if not sentences:
+            assert scored is None
+            continue
+        _, _, expected = expected_figures(first + second, sentences, n, size)
+        assert scored is not None and expected is not None
+        assert scored.tokens == expected["tokens"]
+        assert scored.seen == expected["seen"]
+        assert scored.log_sums == pytest.approx(expected["log_sums"], rel=1e-9)
+        assert scored.unigram_log_sum == pytest.approx(expected["unigram"], rel=1e-9)
+
+
+def random_sentences(seed: int, count: int, size: int) -> Sentences:
+    rng = np.random.default_rng(seed)
+    weights = 1.0 / np.arange(1, size - 3)  # Zipf-like: some ids far more frequent than others
+    return [rng.choice(np.arange(4, size), rng.integers(0, 15), p=weights / weights.sum()).tolist() for _ in range(count)]
+
+
+def test_groups_and_write_outs_change_no_figure_but_by_float_rounding() -> None:
+    train, dev = random_sentences(1, 3000, 300), random_sentences(2, 300, 300)
+    whole = score([train], {"dev": dev, "test": []}, 4, 300, whole=True)
+    with small_groups_and_stores(500, 4096) as written:
+        grouped = score([train[:1000], train[1000:]], {"dev": dev, "test": []}, 4, 300)
+    assert len(written) > 10  # the stores did write out
+    assert whole.model is not None and grouped.model is None
+    assert [f.count_of_counts for f in grouped.figures] == [f.count_of_counts for f in whole.figures]
+    assert grouped.figures == whole.figures
+    for split in ("train", "dev"):
+        one, other = whole.scores[split], grouped.scores[split]
+        assert one is not None and other is not None
+        assert (one.tokens, one.seen) == (other.tokens, other.seen)
+        assert one.log_sums == pytest.approx(other.log_sums, rel=1e-12)
+        assert one.unigram_log_sum == pytest.approx(other.unigram_log_sum, rel=1e-12)
+    assert grouped.scores["test"] is None
+
+
+def test_an_append_counts_only_the_new_sentences_and_gives_the_figures_of_a_clean_count(tmp_path: Path) -> None:
+    """The first run keeps its totals; the second is given only the new sentences and carries
+    the kept totals: every figure equals, to the last bit, a count of all sentences at once."""
+    old, new, dev = random_sentences(3, 2000, 120), random_sentences(4, 200, 120), random_sentences(5, 200, 120)
+    path = tmp_path / "totals.arrow"
+    about = NgramTotals(3, 120, "code", (), BUCKETS)
+    with small_groups_and_stores(400, 1 << 14):
+        with writing_ngram_totals(path, about) as write:
+            score([old], {"dev": dev, "test": []}, 3, 120, keep=lambda _, records: write(records["low"], records["high"], records["count"]))
+        kept = read_ngram_totals(path)
+        assert kept is not None and kept.about == about
+
+        def carried(bucket: int) -> np.ndarray:
+            return ngram_buckets.records_of(*kept.bucket(bucket))
+
+        appended = score([new], {"dev": dev, "test": []}, 3, 120, carried=carried)
+        clean = score([old, new], {"dev": dev, "test": []}, 3, 120)
+    assert appended.to_json() == clean.to_json()
+    assert appended.scores["dev"] == clean.scores["dev"] and appended.scores["train"] == clean.scores["train"]
+    only_new = score([new], {"dev": dev, "test": []}, 3, 120)
+    assert only_new.to_json() != clean.to_json()
+
+
+def test_a_store_gives_each_buckets_records_in_the_order_they_came_across_write_outs(tmp_path: Path) -> None:
+    store = BucketStore(RECORD, tmp_path, "t", held_bytes=100, compact=None)
+    added: dict[int, list[int]] = {0: [], 5: [], BUCKETS - 1: []}
+    for step in range(21):  # the last record stays in memory, after those written out
+        buckets = np.array([5, 0, BUCKETS - 1, 5] if step % 2 else [0], np.uint8)
+        low = np.arange(len(buckets), dtype=np.uint64) + np.uint64(10 * step)
+        records = ngram_buckets.records_of(low, np.zeros(len(buckets), np.uint64), np.ones(len(buckets), np.int64))
+        for bucket, low in zip(buckets.tolist(), records["low"].tolist()):
+            added[bucket].append(low)
+        store.add(buckets, records)
+    assert (tmp_path / "t-05.bin").exists()  # written out
+    for bucket, lows in added.items():
+        assert store.take(bucket)["low"].tolist() == lows
+        assert not (tmp_path / f"t-{bucket:02d}.bin").exists()
+    assert len(store.take(1)) == 0 and store._bytes == 0
+
+
+def test_a_store_written_out_through_merge_records_sums_what_several_threads_added(tmp_path: Path) -> None:
+    store = BucketStore(RECORD, tmp_path, "t", held_bytes=2000, compact=ngram_buckets.merge_records)
+    expected: Counter = Counter()
+    lock = threading.Lock()
+
+    def add(seed: int) -> None:
+        rng = np.random.default_rng(seed)
+        for _ in range(50):
+            low = rng.integers(0, 40, 30).astype(np.uint64)
+            high = rng.integers(0, 2, 30).astype(np.uint64)
+            with lock:
+                expected.update(zip(low.tolist(), high.tolist()))
+            store.add((low % np.uint64(BUCKETS)).astype(np.uint8), ngram_buckets.records_of(low, high, np.ones(30, np.int64)))
+
+    threads = [threading.Thread(target=add, args=(seed,)) for seed in range(3)]
+    for thread in threads:
+        thread.start()
+    for thread in threads:
+        thread.join()
+    found: Counter = Counter()
+    for bucket in range(BUCKETS):
+        merged = ngram_buckets.merge_records(store.take(bucket))
+        keys = list(zip(merged["low"].tolist(), merged["high"].tolist()))
+        assert keys == sorted(keys, key=lambda key: (key[1], key[0])) and len(set(keys)) == len(keys)
+        found.update(dict(zip(keys, merged["count"].tolist())))
+    assert found == expected
