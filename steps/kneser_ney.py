@@ -193,6 +193,17 @@ def _search(table: np.ndarray, queries: np.ndarray, low: np.ndarray, high: np.nd
     return low
 
 
+def _places(table: Keys, ordered: Keys) -> tuple[np.ndarray, np.ndarray]:
+    """For sorted queries: where each would be inserted into the sorted distinct `table` (before
+    an equal key), and the end of the table's run of keys with the query's high word."""
+    if table.high is None:
+        return np.searchsorted(table.low, ordered.low), np.full(len(ordered), len(table))
+    # Keys with the same high word form one run of the table, sorted by their low word.
+    place = np.searchsorted(table.high, ordered.upper(), side="left")
+    end = np.searchsorted(table.high, ordered.upper(), side="right")
+    return _search(table.low, ordered.low, place, end.copy()), end
+
+
 def find(table: Keys, queries: Keys) -> np.ndarray:
     """Index of each query in the sorted distinct `table`, -1 where absent. The queries are
     searched in sorted order: binary searches that walk the table in order stay in cache."""
@@ -201,18 +212,21 @@ def find(table: Keys, queries: Keys) -> np.ndarray:
         return found
     order = queries.order()
     ordered = queries[order]
-    if table.high is None:
-        place = np.searchsorted(table.low, ordered.low)
-        end = np.full(len(place), len(table))
-    else:
-        # Keys with the same high word form one run of the table, sorted by their low word.
-        place = np.searchsorted(table.high, ordered.upper(), side="left")
-        end = np.searchsorted(table.high, ordered.upper(), side="right")
-        place = _search(table.low, ordered.low, place, end.copy())
+    place, end = _places(table, ordered)
     inside = np.minimum(place, len(table) - 1)
     hit = (place < end) & (table.low[inside] == ordered.low)
     found[order] = np.where(hit, place, -1)
     return found
+
+
+def insertion_points(table: Keys, sorted_queries: Keys) -> tuple[np.ndarray, np.ndarray]:
+    """For sorted distinct queries: where each would be inserted into the sorted distinct
+    `table` to keep it sorted, and whether the key there equals it."""
+    if not len(table):
+        return np.zeros(len(sorted_queries), np.int64), np.zeros(len(sorted_queries), bool)
+    place, end = _places(table, sorted_queries)
+    inside = np.minimum(place, len(table) - 1)
+    return place, (place < end) & (table.low[inside] == sorted_queries.low)
 
 
 def find_ids(table: np.ndarray, queries: np.ndarray) -> np.ndarray:

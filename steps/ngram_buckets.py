@@ -145,6 +145,21 @@ def merge_records(records: np.ndarray) -> np.ndarray:
     return merged
 
 
+def add_records(table: np.ndarray, extra: np.ndarray) -> np.ndarray:
+    """merge_records of both, for a `table` that is already sorted and distinct (kept totals)
+    and a few `extra` records (the new files'): the extra keys are merged in by insertion, a
+    copy of the table rather than a sort."""
+    extra = merge_records(extra)
+    if not len(table) or not len(extra):
+        return extra if not len(table) else table
+    places, equal = kneser_ney.insertion_points(Keys(table["low"], table["high"]), Keys(extra["low"], extra["high"]))
+    added = places[~equal]
+    merged = np.insert(table, added, extra[~equal])
+    # A key already in the table moves up by the number of keys inserted before it.
+    merged["count"][places[equal] + np.searchsorted(added, places[equal], side="right")] += extra["count"][equal]
+    return merged
+
+
 @dataclass
 class Counting:
     """Counts train sentences into a BucketStore of n-gram records of the highest order."""
@@ -307,10 +322,7 @@ def gather(
     pending: list[np.ndarray] = []
     first = 0
     for bucket in range(BUCKETS):
-        records = store.take(bucket)
-        if carried is not None:
-            records = np.concatenate([carried(bucket), records])
-        records = merge_records(records)
+        records = merge_records(store.take(bucket)) if carried is None else add_records(carried(bucket), store.take(bucket))
         if keep is not None:
             keep(bucket, records)
         if pending and not whole and sum(map(len, pending)) + len(records) > GROUP_NGRAMS:

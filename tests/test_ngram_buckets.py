@@ -206,3 +206,22 @@ def test_a_store_written_out_through_merge_records_sums_what_several_threads_add
         assert keys == sorted(keys, key=lambda key: (key[1], key[0])) and len(set(keys)) == len(keys)
         found.update(dict(zip(keys, merged["count"].tolist())))
     assert found == expected
+
+
+@given(
+    kept=st.lists(st.tuples(st.integers(0, 30), st.integers(0, 2), st.integers(1, 5)), max_size=40),
+    extra=st.lists(st.tuples(st.integers(0, 30), st.integers(0, 2), st.integers(1, 5)), max_size=40),
+)
+def test_records_added_to_kept_totals_equal_a_merge_of_both(kept: list[tuple[int, int, int]], extra: list[tuple[int, int, int]]) -> None:
+    """add_records (insertion into the sorted kept totals) against a Counter of both."""
+
+    def records(rows: list[tuple[int, int, int]]) -> np.ndarray:
+        low, high, count = (np.array(column, dtype) for column, dtype in zip(zip(*rows) if rows else ([], [], []), (np.uint64, np.uint64, np.int64)))
+        return ngram_buckets.records_of(low, high, count)
+
+    merged = ngram_buckets.add_records(ngram_buckets.merge_records(records(kept)), records(extra))
+    expected: Counter = Counter()
+    for low, high, count in kept + extra:
+        expected[high, low] += count
+    assert [(high, low) for low, high in zip(merged["low"].tolist(), merged["high"].tolist())] == sorted(expected)
+    assert merged["count"].tolist() == [expected[key] for key in sorted(expected)]
