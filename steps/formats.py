@@ -535,7 +535,7 @@ class KeptNgramTotals:
     """Kept totals read back: what they are of, and each bucket's columns."""
 
     about: NgramTotals
-    reader: Any  # pyarrow.ipc.RecordBatchFileReader over a memory map
+    reader: Any  # pyarrow.ipc.RecordBatchFileReader
 
     def bucket(self, bucket: int) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
         """(low, high, count) of one bucket."""
@@ -579,7 +579,7 @@ def read_ngram_totals(path: str | Path) -> KeptNgramTotals | None:
     import pyarrow as pa
 
     try:
-        reader = pa.ipc.open_file(pa.memory_map(str(path)))
+        reader = pa.ipc.open_file(pa.OSFile(str(path), "rb"))  # read, not mapped: a bucket's pages leave memory with it
         about = json.loads(reader.schema.metadata[METADATA_KEY])
         counted = tuple((str(f), str(d)) for f, d in about["counted"])
         kept = NgramTotals(int(about["order"]), int(about["vocabulary_size"]), str(about["code"]), counted, int(about["buckets"]))
