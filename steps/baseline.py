@@ -4,11 +4,11 @@ Reads the train, dev and test stream shards (each document is <s>, then every se
 followed by </s>), counts train with steps.kneser_ney a bucket of n-grams at a time
 (steps.ngram_buckets: memory follows the largest bucket, not the corpus), and gives the
 perplexity of every split for each order 2..n, an add-one unigram baseline beside it, and the
-share of dev and test n-grams that occur in train. Two entries: the workflow's `baseline` step (stats/baseline.json,
-with the options of the `baseline` section, reading the files the shard jobs recorded), and
-the command `corpusmill baseline BUILD …` on a finished build (through steps.reader), where
-another order or smoothing costs one pass over the shards and `--arpa` writes the order-n model
-for other tools.
+share of dev and test n-grams that occur in train. Two entries: the workflow's `baseline` step
+(stats/baseline.json, with the options of the `baseline` section, reading the files the shard
+jobs recorded), and the command `corpusmill baseline BUILD …` on a finished build (through
+steps.reader), where another order or smoothing costs one pass over the shards and `--arpa`
+writes the order-n model for other tools.
 
 The leakage warning is our own rule: an n-gram model scores the text it was counted from far
 better than new text, so a held-out split whose perplexity at the highest order is below
@@ -25,7 +25,7 @@ import math
 import shutil
 import sys
 import tempfile
-from collections.abc import Callable, Iterable, Iterator, Mapping
+from collections.abc import Callable, Iterator, Mapping
 from concurrent.futures import ThreadPoolExecutor
 from dataclasses import dataclass
 from pathlib import Path
@@ -49,8 +49,8 @@ DOCUMENTS_PER_BATCH = 1024
 # Train counted in two parts and dev and test scored side by side, in threads: numpy's sorts
 # and searches, most of the work, run without holding the interpreter lock.
 THREADS = 2
-# Dev and test tokens scored at once. Each batch's lookups walk the count tables in key order, so
-# a larger batch shares more of its paths through the tables; its window columns take a few MB.
+# Dev and test windows of one group scored at once. Each batch's lookups walk the count tables in
+# key order, so a larger batch shares more of its paths through the tables; its columns take a few MB.
 SCORE_TOKENS = 1 << 17
 # Bytes of dev's or test's windows held in memory while train is counted; the rest wait on disk
 # until their bucket is scored.
@@ -119,23 +119,6 @@ def file_sentences(paths: list[Path], where: str, vocabulary_size: int) -> Itera
             offsets = lists.offsets.to_numpy().astype(np.int64)
             rows = {"ids": lists.flatten().to_numpy(), "offsets": offsets - offsets[0], "doc_id": batch.column("doc_id").to_numpy(zero_copy_only=False)}
             yield sentences(rows, f"{where}: {path}", vocabulary_size)
-
-
-def batched(sentences: Iterable[tuple[np.ndarray, np.ndarray]], tokens: int) -> Iterator[tuple[np.ndarray, np.ndarray]]:
-    """The (ids, sentence lengths) pairs joined, in order, into batches of at least `tokens`
-    ids (the last may hold fewer); sentences stay whole."""
-    ids: list[np.ndarray] = []
-    lengths: list[np.ndarray] = []
-    held = 0
-    for more_ids, more_lengths in sentences:
-        ids.append(more_ids)
-        lengths.append(more_lengths)
-        held += len(more_ids)
-        if held >= tokens:
-            yield np.concatenate(ids), np.concatenate(lengths)
-            ids, lengths, held = [], [], 0
-    if ids:
-        yield np.concatenate(ids), np.concatenate(lengths)
 
 
 @dataclass(frozen=True)

@@ -12,11 +12,11 @@ Only the unigrams cross buckets: each bigram lies in exactly one bucket, so thei
 continuation counts are sums over buckets, and so are the count-of-counts the discounts come
 from. The model is built in two passes over the buckets: the first merges each bucket's counts,
 derives its lower orders (steps.kneser_ney.counts_of_totals) and sums the unigram counts and
-count-of-counts; the second estimates each bucket's weights with the corpus-wide discounts and
-scores train (from the counts) and the held-out windows of that bucket.
+count-of-counts; the second estimates the weights of the buckets' tables with the corpus-wide
+discounts and scores train (from the counts) and the held-out windows of those buckets.
 
-Consecutive buckets are taken together in groups of at most GROUP_NGRAMS n-grams of the
-highest order (or one bucket that holds more). Groups depend only on the counts, so a build's figures do
+Consecutive buckets are taken together in groups of at most GROUP_NGRAMS n-grams of the highest
+order (or one bucket that holds more). Groups depend only on the counts, so a build's figures do
 not depend on how or when its train split was counted; floating sums run group by group.
 Counted n-grams and held-out windows wait in a BucketStore, in memory up to a bound and then
 in files of a work folder, which the caller removes.
@@ -43,7 +43,7 @@ BUCKETS = 64
 GROUP_NGRAMS = 1 << 20
 # Bytes of records a store holds in memory before it writes them out.
 HELD_BYTES = 64 << 20
-# Train tokens whose windows are packed, sorted and counted at once.
+# Tokens whose windows are made at once (and, in train, packed, sorted and counted).
 COUNT_TOKENS = 1 << 20
 RECORD = np.dtype([("low", "<u8"), ("high", "<u8"), ("count", "<i8")])
 
@@ -184,7 +184,7 @@ def hold_windows(store: BucketStore, order: int, vocabulary_size: int, ids: np.n
     """Put the windows of held-out sentences into `store`, by the bucket of their last context id."""
     lengths = np.asarray(sentence_lengths, np.int64)
     kneser_ney.check_ids(ids, lengths, vocabulary_size)
-    for first, last, start, end in kneser_ney.sentence_groups(lengths, 1 << 20):
+    for first, last, start, end in kneser_ney.sentence_groups(lengths, COUNT_TOKENS):
         columns = kneser_ney.windows(ids[start:end], lengths[first:last], order)
         records = np.empty(len(columns[0]), window_record(order))
         records["ids"] = np.stack(columns, axis=1)
@@ -325,7 +325,8 @@ def gather(
         records = merge_records(store.take(bucket)) if carried is None else add_records(carried(bucket), store.take(bucket))
         if keep is not None:
             keep(bucket, records)
-        if pending and not whole and sum(map(len, pending)) + len(records) > GROUP_NGRAMS:
+        held = sum(map(len, pending))
+        if held and not whole and held + len(records) > GROUP_NGRAMS:
             derive(pending, tuple(range(first, bucket)))
             first = bucket
         pending.append(records)

@@ -150,18 +150,6 @@ def test_streams_become_sentences_cut_at_the_end_symbol_without_the_document_sta
     assert ids.tolist() == [5, 6, 7, 1] and lengths.tolist() == [2, 1, 0, 1]
 
 
-def test_sentences_are_joined_into_batches_of_at_least_the_given_tokens_in_order() -> None:
-    """Pairs of 3, 4, 2 and 5 ids joined for 6 tokens: 3+4, then 2+5; for 100 tokens, one batch
-    of all; sentences stay whole (their lengths add up to each batch's ids)."""
-    pairs = [(np.arange(start, start + size), np.array([size - 1, 1])) for start, size in ((0, 3), (10, 4), (20, 2), (30, 5))]
-    joined = list(baseline.batched(iter(pairs), 6))
-    assert [ids.tolist() for ids, _ in joined] == [[0, 1, 2, 10, 11, 12, 13], [20, 21, 30, 31, 32, 33, 34]]
-    assert [lengths.tolist() for _, lengths in joined] == [[2, 1, 3, 1], [1, 1, 4, 1]]
-    assert [ids.tolist() for ids, _ in baseline.batched(iter(pairs), 100)] == [np.concatenate([ids for ids, _ in pairs]).tolist()]
-    assert [len(ids) for ids, _ in baseline.batched(iter(pairs), 4)] == [7, 7]
-    assert list(baseline.batched(iter([]), 6)) == []
-
-
 def test_dev_is_scored_in_batches_with_the_figures_of_one_pass(monkeypatch: pytest.MonkeyPatch, tmp_path: Path) -> None:
     """Scored in three batches, dev has the figures of one kneser_ney.score_split
     call over all its sentences: the same tokens and seen counts, the same log sums up to
