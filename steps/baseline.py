@@ -241,7 +241,7 @@ def _parts(sentences: Sentences | list[Sentences]) -> list[Sentences]:
 
 
 Carried = Callable[[int], np.ndarray]  # bucket -> n-gram records counted by an earlier run
-Keep = Callable[[int, np.ndarray], None]  # given each bucket's summed records, in bucket order
+Keep = Callable[[np.ndarray], None]  # given each bucket's summed records, in bucket order
 
 
 def score(
@@ -364,7 +364,7 @@ def step(argv: list[str] | None = None) -> None:
     keeping = writing_ngram_totals(layout.baseline_totals, about) if files["train"] else contextlib.nullcontext(None)
     try:
         with keeping as write:
-            keep: Keep | None = None if write is None else (lambda _, records: write(records["low"], records["high"], records["count"]))
+            keep: Keep | None = None if write is None else (lambda records: write(records["low"], records["high"], records["count"]))
             baseline = score(layout.root, splits, size, order, run_.options["baseline"]["smoothing"], work, carried=carried, keep=keep)
     finally:
         shutil.rmtree(work, ignore_errors=True)

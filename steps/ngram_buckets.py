@@ -232,14 +232,13 @@ class SplitTotals:
         return Level.of(1, keys, self.unigram_raw[ids], self.unigram_continuation[ids], np.empty(0, np.uint8), KeyFormat(self.vocabulary_size))
 
     def count_of_counts(self, k: int, top: bool) -> tuple[int, int, int, int]:
-        if k == 1:
-            return kneser_ney.count_of_counts(self.unigram_continuation[self.unigram_raw > 0])
-        return self.n.get((k, top), (0, 0, 0, 0))
+        if k == 1:  # ids never seen have continuation count 0, which no n_r counts
+            return kneser_ney.count_of_counts(self.unigram_continuation)
+        return self.n[k, top]
 
     def discounts(self, smoothing: Smoothing) -> dict[tuple[int, bool], Discounts]:
         """(k, raw counts or not) -> the discounts every model of orders 2..n uses."""
-        wanted = [(1, False)] + [(k, top) for k in range(2, self.order + 1) for top in (True, False) if top or k < self.order]
-        return {key: kneser_ney.estimate_discounts(self.count_of_counts(*key), smoothing) for key in wanted}
+        return {key: kneser_ney.estimate_discounts(self.count_of_counts(*key), smoothing) for key in [(1, False), *self.n]}
 
     def figures(self, smoothing: Smoothing) -> tuple[LevelFigures, ...]:
         """Per k = 1..order, the discounts and count-of-counts of the model of the highest order."""
@@ -281,7 +280,7 @@ def _save(levels: tuple[Level, ...], path: Path) -> Path:
 
 
 def _load(path: Path) -> tuple[Level, ...]:
-    with np.load(path, allow_pickle=False) as saved:
+    with np.load(path) as saved:
         arrays = {name: saved[name] for name in saved.files}
     levels = []
     for k in sorted({int(name.split(".")[0]) for name in arrays}):
@@ -296,10 +295,10 @@ def _load(path: Path) -> tuple[Level, ...]:
 
 def gather(
     store: BucketStore, order: int, vocabulary_size: int, work: Path, whole: bool = False,
-    carried: Callable[[int], np.ndarray] | None = None, keep: Callable[[int, np.ndarray], None] | None = None,
+    carried: Callable[[int], np.ndarray] | None = None, keep: Callable[[np.ndarray], None] | None = None,
 ) -> tuple[SplitTotals, list[Group]]:  # fmt: skip
     """The first pass: each bucket's records (with the `carried` ones of an earlier run) merged
-    and given to `keep`, then derived group by group (one group when `whole`). Every group but
+    and given to `keep` in bucket order, then derived group by group (one group when `whole`). Every group but
     the last is saved in `work`."""
     keys_format = KeyFormat(vocabulary_size)
     split = SplitTotals(order, vocabulary_size)
@@ -324,7 +323,7 @@ def gather(
     for bucket in range(BUCKETS):
         records = merge_records(store.take(bucket)) if carried is None else add_records(carried(bucket), store.take(bucket))
         if keep is not None:
-            keep(bucket, records)
+            keep(records)
         held = sum(map(len, pending))
         if held and not whole and held + len(records) > GROUP_NGRAMS:
             derive(pending, tuple(range(first, bucket)))
@@ -350,7 +349,7 @@ class Scored:
 
 def score(
     store: BucketStore, held_out: dict[str, BucketStore | None], order: int, vocabulary_size: int, smoothing: Smoothing, work: Path,
-    whole: bool = False, carried: Callable[[int], np.ndarray] | None = None, keep: Callable[[int, np.ndarray], None] | None = None,
+    whole: bool = False, carried: Callable[[int], np.ndarray] | None = None, keep: Callable[[np.ndarray], None] | None = None,
     batch_windows: int = 1 << 17, threads: int = 2,
 ) -> Scored:  # fmt: skip
     """Both passes over the counted train records in `store`; the held-out splits' windows

@@ -459,7 +459,20 @@ def test_ngram_totals_read_back_as_written_and_an_unreadable_file_reads_as_none(
     path.write_bytes(path.read_bytes()[:100])
     assert read_ngram_totals(path) is None
     assert read_ngram_totals(tmp_path / "missing.arrow") is None
-    # Another table in the file, or fewer batches than its buckets: not ours.
-    with pa.OSFile(str(path), "wb") as sink, pa.ipc.new_file(sink, pa.schema([("low", pa.uint64())])) as writer:
-        writer.write_batch(pa.record_batch([pa.array([1], pa.uint64())], names=["low"]))
+    # Fewer batches than its buckets, or another table: not ours.
+    with writing_ngram_totals(path, about) as write:
+        for low, high, count in buckets:
+            write(np.array(low, np.uint64), np.array(high, np.uint64), np.array(count, np.int64))
+    schema = pa.ipc.open_file(str(path)).schema
+    with pa.OSFile(str(path), "wb") as sink, pa.ipc.new_file(sink, schema) as writer:
+        writer.write_batch(pa.record_batch([pa.array([1], pa.uint64()), pa.array([0], pa.uint64()), pa.array([1])], schema=schema))
+    assert read_ngram_totals(path) is None
+    with pa.OSFile(str(path), "wb") as sink, pa.ipc.new_file(sink, schema) as writer:
+        for _ in range(3):
+            writer.write_batch(pa.record_batch([pa.array([1], pa.uint64()), pa.array([0], pa.uint64()), pa.array([1])], schema=schema))
+    assert read_ngram_totals(path) is not None  # three batches of the right columns: read
+    other = pa.schema([("low", pa.uint64()), ("high", pa.int64()), ("count", pa.int64())], metadata=schema.metadata)
+    with pa.OSFile(str(path), "wb") as sink, pa.ipc.new_file(sink, other) as writer:
+        for _ in range(3):
+            writer.write_batch(pa.record_batch([pa.array([1], pa.uint64()), pa.array([0]), pa.array([1])], schema=other))
     assert read_ngram_totals(path) is None

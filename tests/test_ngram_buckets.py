@@ -48,7 +48,7 @@ def small_groups_and_stores(group_ngrams: int, held_bytes: int) -> Iterator[list
         yield written
 
 
-def score(train: list[Sentences], held_out: dict[str, Sentences], n: int, size: int, **options: object) -> baseline.Baseline:
+def score(train: list[Sentences], held_out: dict[str, Sentences], n: int, size: int, smoothing: str = "modified", **options: object) -> baseline.Baseline:
     """baseline.score over sentences given as lists, train in parts."""
 
     def reader(sentences: Sentences) -> baseline.Sentences:
@@ -57,7 +57,7 @@ def score(train: list[Sentences], held_out: dict[str, Sentences], n: int, size: 
     splits: dict[str, baseline.Sentences | list[baseline.Sentences] | None] = {"train": [reader(part) for part in train] if train else None}
     splits |= {split: reader(sentences) if sentences else None for split, sentences in held_out.items()}
     with tempfile.TemporaryDirectory() as work:
-        return baseline.score("t", splits, size, n, "modified", Path(work), **options)  # type: ignore[arg-type]
+        return baseline.score("t", splits, size, n, smoothing, Path(work), **options)  # type: ignore[arg-type]
 
 
 def count_of_counts(counter: Counter) -> tuple[int, int, int, int]:
@@ -65,14 +65,16 @@ def count_of_counts(counter: Counter) -> tuple[int, int, int, int]:
     return by_count[1], by_count[2], by_count[3], by_count[4]
 
 
-def expected_figures(train: Sentences, held_out: Sentences | None, n: int, size: int) -> tuple[list[Discounts], list[tuple[int, ...]], dict | None]:
+def expected_figures(
+    train: Sentences, held_out: Sentences | None, n: int, size: int, smoothing: str = "modified"
+) -> tuple[list[Discounts], list[tuple[int, ...]], dict | None]:
     """From Counters: the discounts and count-of-counts of the order-n model (continuation counts
     below n, raw at n) and, for held-out sentences, tokens, ln p per order, the add-one unigram's
     ln p and the seen k-grams (module docstring of steps.kneser_ney)."""
     reference = Reference(train, n, size)
     counted = [count_of_counts(reference.continuation[k]) for k in range(1, n)] + [count_of_counts(reference.raw[n])]
-    continuation = [kneser_ney.estimate_discounts(c, "modified") for c in counted[:-1]]
-    raw = {k: kneser_ney.estimate_discounts(count_of_counts(reference.raw[k]), "modified") for k in range(2, n + 1)}
+    continuation = [kneser_ney.estimate_discounts(c, smoothing) for c in counted[:-1]]  # type: ignore[arg-type]
+    raw = {k: kneser_ney.estimate_discounts(count_of_counts(reference.raw[k]), smoothing) for k in range(2, n + 1)}  # type: ignore[arg-type]
     if held_out is None:
         return [*continuation, raw[n]], counted, None
     grams = windows(held_out, n)
@@ -90,17 +92,23 @@ def expected_figures(train: Sentences, held_out: Sentences | None, n: int, size:
 
 
 @settings(suppress_health_check=[HealthCheck.too_slow], deadline=None)
-@given(size=st.sampled_from(SIZES), n=st.integers(2, 4), group=st.integers(1, 8), held=st.sampled_from([1, 200, 1 << 20]), data=st.data())
-def test_scores_follow_chen_and_goodmans_formulas_written_out_with_counters(size: int, n: int, group: int, held: int, data: st.DataObject) -> None:
+@given(
+    size=st.sampled_from([*SIZES, 5000]), n=st.integers(2, 5), smoothing=st.sampled_from(kneser_ney.SMOOTHINGS), group=st.integers(1, 8),
+    held=st.sampled_from([1, 200, 1 << 20]), data=st.data(),
+)  # fmt: skip
+def test_scores_follow_chen_and_goodmans_formulas_written_out_with_counters(
+    size: int, n: int, smoothing: str, group: int, held: int, data: st.DataObject
+) -> None:
     """Train counted in two parts, dev and test scored, with groups of a few n-grams and stores
     that write out after every few records: every figure equals Chen and Goodman's (1998)
-    modified interpolated Kneser-Ney computed with Counters one window at a time (tests/
-    test_kneser_ney.py's `Reference`), with the discounts from Counter count-of-counts."""
+    interpolated Kneser-Ney, modified or not, computed with Counters one window at a time
+    (tests/test_kneser_ney.py's `Reference`), with the discounts from Counter count-of-counts.
+    Sizes give keys of one word, of two, and of exactly 65 bits (5,000 ids: 13 bits, n = 5)."""
     first, second = data.draw(sentences_strategy(size)), data.draw(sentences_strategy(size))
     dev, test = data.draw(sentences_strategy(size)), data.draw(st.lists(st.lists(st.sampled_from([1, 4, 5, size - 1]), max_size=6), max_size=4))
     with small_groups_and_stores(group, held):
-        result = score([first, second], {"dev": dev, "test": test}, n, size)
-    discounts, counted, _ = expected_figures(first + second, None, n, size)
+        result = score([first, second], {"dev": dev, "test": test}, n, size, smoothing)
+    discounts, counted, _ = expected_figures(first + second, None, n, size, smoothing)
     assert [f.discounts for f in result.figures] == pytest.approx(discounts, rel=1e-12)
     assert [f.count_of_counts for f in result.figures] == counted
     for split, sentences in (("dev", dev), ("test", test), ("train", first + second)):
@@ -108,7 +116,7 @@ def test_scores_follow_chen_and_goodmans_formulas_written_out_with_counters(size
         if not sentences:
             assert scored is None
             continue
-        _, _, expected = expected_figures(first + second, sentences, n, size)
+        _, _, expected = expected_figures(first + second, sentences, n, size, smoothing)
         assert scored is not None and expected is not None
         assert scored.tokens == expected["tokens"]
         assert scored.seen == expected["seen"]
@@ -123,12 +131,15 @@ def random_sentences(seed: int, count: int, size: int) -> Sentences:
 
 
 def test_groups_and_write_outs_change_no_figure_but_by_float_rounding() -> None:
+    """Asked for the whole model (for --arpa), the job makes one group whatever its bound, and
+    the model holds every n-gram; in groups of 500 n-grams the figures are the same."""
     train, dev = random_sentences(1, 3000, 300), random_sentences(2, 300, 300)
-    whole = score([train], {"dev": dev, "test": []}, 4, 300, whole=True)
     with small_groups_and_stores(500, 4096) as written:
+        whole = score([train], {"dev": dev, "test": []}, 4, 300, whole=True)
         grouped = score([train[:1000], train[1000:]], {"dev": dev, "test": []}, 4, 300)
     assert len(written) > 10  # the stores did write out
     assert whole.model is not None and grouped.model is None
+    assert len(whole.model.counts.levels[-1]) == len(set(windows(train, 4))) > 500
     assert [f.count_of_counts for f in grouped.figures] == [f.count_of_counts for f in whole.figures]
     assert grouped.figures == whole.figures
     for split in ("train", "dev"):
@@ -148,7 +159,7 @@ def test_an_append_counts_only_the_new_sentences_and_gives_the_figures_of_a_clea
     about = NgramTotals(3, 120, "code", (), BUCKETS)
     with small_groups_and_stores(400, 1 << 14):
         with writing_ngram_totals(path, about) as write:
-            score([old], {"dev": dev, "test": []}, 3, 120, keep=lambda _, records: write(records["low"], records["high"], records["count"]))
+            score([old], {"dev": dev, "test": []}, 3, 120, keep=lambda records: write(records["low"], records["high"], records["count"]))
         kept = read_ngram_totals(path)
         assert kept is not None and kept.about == about
 
@@ -164,10 +175,10 @@ def test_an_append_counts_only_the_new_sentences_and_gives_the_figures_of_a_clea
 
 
 def test_a_store_gives_each_buckets_records_in_the_order_they_came_across_write_outs(tmp_path: Path) -> None:
-    store = BucketStore(RECORD, tmp_path, "t", held_bytes=100, compact=None)
+    store = BucketStore(RECORD, tmp_path, "t", held_bytes=1000, compact=None)
     added: dict[int, list[int]] = {0: [], 5: [], BUCKETS - 1: []}
     for step in range(21):  # the last record stays in memory, after those written out
-        buckets = np.array([5, 0, BUCKETS - 1, 5] if step % 2 else [0], np.uint8)
+        buckets = np.array([5, 0, BUCKETS - 1, 5] * 10 if step % 2 else [0], np.uint8)
         low = np.arange(len(buckets), dtype=np.uint64) + np.uint64(10 * step)
         records = ngram_buckets.records_of(low, np.zeros(len(buckets), np.uint64), np.ones(len(buckets), np.int64))
         for bucket, low in zip(buckets.tolist(), records["low"].tolist()):
@@ -225,3 +236,43 @@ def test_records_added_to_kept_totals_equal_a_merge_of_both(kept: list[tuple[int
         expected[high, low] += count
     assert [(high, low) for low, high in zip(merged["low"].tolist(), merged["high"].tolist())] == sorted(expected)
     assert merged["count"].tolist() == [expected[key] for key in sorted(expected)]
+
+
+def test_contexts_that_differ_only_above_64_bits_stay_apart_when_groups_are_saved() -> None:
+    """2**21 + 3 ids take 22 bits, so the context of a 4-gram (3 ids, 66 bits) needs a second
+    word; the contexts (a, 7, 8) and (a + 2**20, 7, 8) have the same low 64 bits. Counted in
+    groups that are saved to disk and loaded back, they keep apart: every figure equals the
+    Counters' (`Reference`)."""
+    size, a = 2**21 + 3, 4
+    train = [[a, 7, 8, 5], [a + 2**20, 7, 8, 6], [a + 2**20, 7, 8, 6], [9, 7, 8, 5]] * 3 + [[10 + i, i + 20, 30] for i in range(40)]
+    dev = [[a, 7, 8, 6], [a + 2**20, 7, 8, 5], [9, 7, 8, 6]]
+    with small_groups_and_stores(3, 1 << 20):
+        result = score([train], {"dev": dev, "test": []}, 4, size)
+    _, _, expected = expected_figures(train, dev, 4, size)
+    scored = result.scores["dev"]
+    assert scored is not None and expected is not None
+    assert scored.seen == expected["seen"]
+    assert scored.log_sums == pytest.approx(expected["log_sums"], rel=1e-9)
+
+
+def counted_store(tmp_path: Path, sizes: dict[int, int]) -> BucketStore:
+    """A store of 3-gram records, `sizes[b]` distinct ones in bucket b (their middle id is b)."""
+    store = BucketStore(RECORD, tmp_path, "t")
+    keys_format = kneser_ney.KeyFormat(1000)
+    for bucket, size in sizes.items():
+        columns = [np.arange(size, dtype=np.uint64) + np.uint64(4), np.full(size, bucket + 64, np.uint64), np.full(size, 5, np.uint64)]
+        keys = keys_format.pack(columns)
+        store.add(ngram_buckets.bucket_of(ngram_buckets.next_to_last(keys, keys_format, 3)), ngram_buckets.as_records(keys, np.ones(size, np.int64)))
+    return store
+
+
+def test_groups_are_runs_of_buckets_of_at_most_the_bound_unless_one_bucket_holds_more(tmp_path: Path) -> None:
+    sizes = {0: 2, 1: 2, 2: 1, 3: 7, 5: 1, 9: 3, 63: 1}
+    with mock.patch.object(ngram_buckets, "GROUP_NGRAMS", 4):
+        _, groups = ngram_buckets.gather(counted_store(tmp_path, sizes), 3, 1000, tmp_path)
+        _, whole = ngram_buckets.gather(counted_store(tmp_path, sizes), 3, 1000, tmp_path, whole=True)
+    # A group ends before the bucket that would take it past 4 n-grams: 2 + 2; 1 (+ 7 would pass);
+    # 7 alone, which passes it (+ bucket 4's none); then 1 + 3 over buckets 4 to 62; bucket 63.
+    assert [(group.buckets[0], group.buckets[-1]) for group in groups] == [(0, 1), (2, 2), (3, 3), (4, 62), (63, 63)]
+    assert [isinstance(group.levels, Path) for group in groups] == [True, True, True, True, False]  # the last stays in memory
+    assert [(group.buckets[0], group.buckets[-1]) for group in whole] == [(0, 63)]
