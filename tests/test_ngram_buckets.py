@@ -56,8 +56,8 @@ def score(train: list[Sentences], held_out: dict[str, Sentences], n: int, size: 
 
     splits: dict[str, baseline.Sentences | list[baseline.Sentences] | None] = {"train": [reader(part) for part in train] if train else None}
     splits |= {split: reader(sentences) if sentences else None for split, sentences in held_out.items()}
-    with tempfile.TemporaryDirectory() as work:
-        return baseline.score("t", splits, size, n, smoothing, Path(work), **options)  # type: ignore[arg-type]
+    with tempfile.TemporaryDirectory() as work:  # a work folder whose parents do not exist yet, as in a first build
+        return baseline.score("t", splits, size, n, smoothing, Path(work) / "interim" / "work", **options)  # type: ignore[arg-type]
 
 
 def count_of_counts(counter: Counter) -> tuple[int, int, int, int]:
