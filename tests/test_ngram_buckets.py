@@ -238,19 +238,26 @@ def test_records_added_to_kept_totals_equal_a_merge_of_both(kept: list[tuple[int
     assert merged["count"].tolist() == [expected[key] for key in sorted(expected)]
 
 
-def test_contexts_that_differ_only_above_64_bits_stay_apart_when_groups_are_saved() -> None:
-    """2**21 + 3 ids take 22 bits, so the context of a 4-gram (3 ids, 66 bits) needs a second
-    word; the contexts (a, 7, 8) and (a + 2**20, 7, 8) have the same low 64 bits. Counted in
-    groups that are saved to disk and loaded back, they keep apart: every figure equals the
+@pytest.mark.parametrize(
+    ("size", "n", "first", "other"),
+    [
+        (2**21 + 3, 4, 4, 4 + 2**20),  # 22-bit ids: the context of a 4-gram takes 66 bits
+        (5000, 5, 903, 903 + 4096),  # 13-bit ids: a 5-gram takes exactly 65 bits
+    ],
+)
+def test_keys_that_differ_only_above_64_bits_stay_apart_when_groups_are_saved(size: int, n: int, first: int, other: int) -> None:
+    """N-grams whose first ids differ only in the bits above the low 64 of their keys: counted in
+    groups that are saved to disk and loaded back, they keep apart, and every figure equals the
     Counters' (`Reference`)."""
-    size, a = 2**21 + 3, 4
-    train = [[a, 7, 8, 5], [a + 2**20, 7, 8, 6], [a + 2**20, 7, 8, 6], [9, 7, 8, 5]] * 3 + [[10 + i, i + 20, 30] for i in range(40)]
-    dev = [[a, 7, 8, 6], [a + 2**20, 7, 8, 5], [9, 7, 8, 6]]
+    middle = list(range(7, 7 + n - 2))
+    train = [[first, *middle, 5], [other, *middle, 6], [other, *middle, 6], [9, *middle, 5]] * 3 + [[10 + i, i + 20, 30] for i in range(40)]
+    dev = [[first, *middle, 6], [other, *middle, 5], [9, *middle, 6]]
     with small_groups_and_stores(3, 1 << 20):
-        result = score([train], {"dev": dev, "test": []}, 4, size)
-    _, _, expected = expected_figures(train, dev, 4, size)
+        result = score([train], {"dev": dev, "test": []}, n, size)
+    _, counted, expected = expected_figures(train, dev, n, size)
     scored = result.scores["dev"]
     assert scored is not None and expected is not None
+    assert [f.count_of_counts for f in result.figures] == counted
     assert scored.seen == expected["seen"]
     assert scored.log_sums == pytest.approx(expected["log_sums"], rel=1e-9)
 
