@@ -20,7 +20,8 @@ of uint64 (the queries sorted first, so the searches walk the table in order).
 
 Counting sorts the keys of a bounded batch of tokens, counts equal neighbours, and merges the
 batch tables into the running table once they outgrow it, so memory follows the number of
-distinct n-grams rather than the corpus. Orders below n are derived from the table of order n:
+distinct n-grams rather than the corpus (steps.ngram_buckets counts a split a bucket of n-grams
+at a time, with these same tables, so that it follows one bucket). Orders below n are derived from the table of order n:
 the (k-1)-grams are the distinct suffixes of the k-grams, their continuation counts the number
 of k-grams sharing the suffix, their raw counts the sum of those k-grams' counts.
 
