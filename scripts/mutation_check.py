@@ -77,6 +77,7 @@ SCOPE = {
         "as_records",
         "as_totals",
         "merge_records",
+        "add_records",
         "Counting.*",
         "hold_windows",
         "SplitTotals.*",
