@@ -150,8 +150,6 @@ def add_records(table: np.ndarray, extra: np.ndarray) -> np.ndarray:
     and a few `extra` records (the new files'): the extra keys are merged in by insertion, a
     copy of the table rather than a sort."""
     extra = merge_records(extra)
-    if not len(table) or not len(extra):
-        return extra if not len(table) else table
     places, equal = kneser_ney.insertion_points(Keys(table["low"], table["high"]), Keys(extra["low"], extra["high"]))
     added = places[~equal]
     merged = np.insert(table, added, extra[~equal])
