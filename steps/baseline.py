@@ -285,13 +285,18 @@ def score(
 
     tasks: list[tuple[Callable[..., None], tuple]] = [(count, (part,)) for part in (_parts(train) if train is not None else [])]
     tasks += [(hold, (store, read)) for split, store in held_out.items() if store is not None and (read := splits[split]) is not None]
-    with ThreadPoolExecutor(THREADS) as pool:
-        for done in [pool.submit(task, *arguments) for task, arguments in tasks]:
-            done.result()
     try:
+        with ThreadPoolExecutor(THREADS) as pool:
+            for done in [pool.submit(task, *arguments) for task, arguments in tasks]:
+                done.result()
         scored = ngram_buckets.score(counted, held_out, order, vocabulary_size, smoothing, work, whole, carried, keep, SCORE_TOKENS, THREADS)
     except ngram_buckets.NoTokens:
         raise fail(f"{name}: the train split has no sentences; nothing to count") from None
+    except ngram_buckets.WorkFolderError as error:
+        raise fail(
+            f"{error}; the baseline writes there the counts it cannot hold in memory: free disk space "
+            "(or point TMPDIR elsewhere for `corpusmill baseline`), or turn it off with baseline.enabled: false"
+        ) from None
     return Baseline(name, order, smoothing, vocabulary_size, scored.scores, scored.figures, scored.model)
 
 
@@ -357,7 +362,7 @@ def step(argv: list[str] | None = None) -> None:
         splits["train"] = [functools.partial(file_sentences, files["train"][part::THREADS], "split train", size) for part in range(THREADS)]
 
     print(f"train stream files: {len(counted)} counted by an earlier run, {len(files['train'])} counted now")
-    work = Path(layout.baseline_work)
+    work = Path(layout.baseline_overflow)
     shutil.rmtree(work, ignore_errors=True)  # what a killed run left
     # With no file counted now, every train file was counted before: the kept totals stand as they are.
     about = NgramTotals(order, size, counting_code(), tuple(train), BUCKETS)

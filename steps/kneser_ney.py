@@ -334,21 +334,17 @@ class NgramCounter:
         self._table, self._pending = None, []
         return parts
 
-    def totals(self, others: Sequence[NgramCounter] = ()) -> tuple[Keys, np.ndarray]:
-        """The distinct n-grams of order n, sorted, with their counts, of what this counter and
-        `others` (of the same order and vocabulary, fed other sentences) were given. Empties the
-        counters."""
-        if any((other.order, other.vocabulary_size) != (self.order, self.vocabulary_size) for other in others):
-            raise ValueError("counters of different orders or vocabularies cannot be combined")
-        parts = self._take() + [part for other in others for part in other._take()]
+    def totals(self) -> tuple[Keys, np.ndarray]:
+        """The distinct n-grams of order n, sorted, with their counts, of what this counter was
+        given. Empties the counter."""
+        parts = self._take()
         if parts:
             return _merge(parts)
         return self.format.pack([np.empty(0, np.uint64)] * self.order), np.empty(0, np.int64)
 
-    def finish(self, others: Sequence[NgramCounter] = ()) -> Counts:
-        """The counts of every order, from 1 to `order`, of what this counter and `others` were
-        given (see `totals`)."""
-        return counts_of_totals([self.totals(others)], self.order, self.vocabulary_size)
+    def finish(self) -> Counts:
+        """The counts of every order, from 1 to `order`, of what this counter was given."""
+        return counts_of_totals([self.totals()], self.order, self.vocabulary_size)
 
 
 def counts_of_totals(totals: list[tuple[Keys, np.ndarray]], order: int, vocabulary_size: int) -> Counts:

@@ -68,10 +68,10 @@ class Layout:
         return self._join("interim", "baseline", "train-ngram-totals.arrow")
 
     @property
-    def baseline_work(self) -> str:
+    def baseline_overflow(self) -> str:
         """Where the baseline job puts the counts and windows it cannot hold (steps.ngram_buckets);
         emptied when the job ends."""
-        return self._join("interim", "baseline", "work")
+        return self._join("interim", "baseline", "overflow")
 
     @property
     def accounting(self) -> str:

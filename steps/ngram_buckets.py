@@ -48,6 +48,21 @@ COUNT_TOKENS = 1 << 20
 RECORD = np.dtype([("low", "<u8"), ("high", "<u8"), ("count", "<i8")])
 
 
+class WorkFolderError(OSError):
+    """A file of the work folder could not be written (a full disk, most often)."""
+
+
+def _written(path: Path, mode: str, write: Callable[[Any], None]) -> None:
+    """Write to `path`, opened in `mode`, with `write(file)`; WorkFolderError naming the file
+    when that fails."""
+    try:
+        path.parent.mkdir(parents=True, exist_ok=True)
+        with open(path, mode) as out:
+            write(out)
+    except OSError as error:
+        raise WorkFolderError(f"{path}: cannot be written ({error.strerror or error})") from None
+
+
 def window_record(order: int) -> np.dtype:
     """A held-out window: its order ids, target last."""
     return np.dtype([("ids", "<u4", (order,))])
@@ -83,14 +98,12 @@ class BucketStore:
                 self._write_out()
 
     def _write_out(self) -> None:
-        self.folder.mkdir(parents=True, exist_ok=True)
         for bucket, parts in enumerate(self._held):
             if parts:
                 records = np.concatenate(parts)
                 if self.compact is not None:
                     records = self.compact(records)
-                with open(self._path(bucket), "ab") as out:
-                    records.tofile(out)
+                _written(self._path(bucket), "ab", records.tofile)  # appended: a bucket's runs in the order written
                 parts.clear()
         self._bytes = 0
 
@@ -271,9 +284,7 @@ def _save(levels: tuple[Level, ...], path: Path) -> Path:
             "local": level.local, "continuation": level.continuation, "context_high": level.context_keys.high,
         }  # fmt: skip
         arrays |= {f"{level.k}.{name}": value for name, value in fields.items() if value is not None}
-    path.parent.mkdir(parents=True, exist_ok=True)
-    with open(path, "wb") as out:
-        np.savez(out, **arrays)
+    _written(path, "wb", lambda out: np.savez(out, **arrays))
     return path
 
 

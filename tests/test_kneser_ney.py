@@ -148,22 +148,18 @@ def test_an_order_whose_keys_would_exceed_128_bits_is_refused_naming_the_largest
 
 
 @settings(suppress_health_check=[HealthCheck.too_slow])
-@given(
-    size=st.sampled_from(SIZES), n=st.integers(1, 5), batch=st.sampled_from([1, 3, 1 << 20]),
-    combine=st.sampled_from(["one counter", "two counters"]), data=st.data(),
-)  # fmt: skip
-def test_counts_equal_a_counter_recount_of_the_padded_sentences(size: int, n: int, batch: int, combine: str, data: st.DataObject) -> None:
+@given(size=st.sampled_from(SIZES), n=st.integers(1, 5), batch=st.sampled_from([1, 3, 1 << 20]), data=st.data())
+def test_counts_equal_a_counter_recount_of_the_padded_sentences(size: int, n: int, batch: int, data: st.DataObject) -> None:
     """Raw counts of every order, continuation counts (distinct ids before a k-gram) and each
-    k-gram's suffix, against Counters over the windows; tiny batches force many merges. The
-    halves go to one counter, or to two whose counts are combined."""
+    k-gram's suffix, against Counters over the windows; tiny batches force many merges, and the
+    sentences come in two calls."""
     sentences = data.draw(sentences_strategy(size))
     reference = Reference(sentences, n, size)
     counter = kn.NgramCounter(n, size, batch_tokens=batch)
-    other = counter if combine == "one counter" else kn.NgramCounter(n, size, batch_tokens=batch)
     half = len(sentences) // 2
     counter.add(*flat(sentences[:half]))
-    other.add(*flat(sentences[half:]))
-    counts = counter.finish([other] if combine == "two counters" else [])
+    counter.add(*flat(sentences[half:]))
+    counts = counter.finish()
     assert counts.tokens == sum(len(s) + 1 for s in sentences)
     grams_below: list[tuple[int, ...]] = []
     for k, level in enumerate(counts.levels, start=1):
@@ -178,13 +174,6 @@ def test_counts_equal_a_counter_recount_of_the_padded_sentences(size: int, n: in
         if k > 1:
             assert [grams_below[i] for i in level.suffixes] == [gram[1:] for gram in grams]
         grams_below = grams
-
-
-def test_counters_of_different_orders_or_vocabularies_are_not_combined() -> None:
-    with pytest.raises(ValueError, match="different orders or vocabularies"):
-        kn.NgramCounter(3, 10).finish([kn.NgramCounter(2, 10)])
-    with pytest.raises(ValueError, match="different orders or vocabularies"):
-        kn.NgramCounter(3, 10).finish([kn.NgramCounter(3, 11)])
 
 
 def test_ids_the_model_cannot_take_are_refused_with_their_position() -> None:

@@ -283,3 +283,15 @@ def test_groups_are_runs_of_buckets_of_at_most_the_bound_unless_one_bucket_holds
     assert [(group.buckets[0], group.buckets[-1]) for group in groups] == [(0, 1), (2, 2), (3, 3), (4, 62), (63, 63)]
     assert [isinstance(group.levels, Path) for group in groups] == [True, True, True, True, False]  # the last stays in memory
     assert [(group.buckets[0], group.buckets[-1]) for group in whole] == [(0, 63)]
+
+
+def test_a_work_folder_that_cannot_be_written_stops_the_count_naming_the_file_and_the_way_out(tmp_path: Path) -> None:
+    blocked = tmp_path / "blocked"
+    blocked.write_text("a file where the work folder should be")
+    train = random_sentences(6, 300, 50)
+    splits: dict[str, baseline.Sentences | list[baseline.Sentences] | None] = {"train": lambda: iter([flat(train)]), "dev": None, "test": None}
+    with small_groups_and_stores(50, 100), pytest.raises(SystemExit) as stopped:
+        baseline.score("t", splits, 50, 3, "modified", blocked / "work")
+    message = str(stopped.value)
+    assert message.startswith(f"corpusmill: {blocked / 'work'}/train-") and "cannot be written (" in message
+    assert "free disk space" in message and "baseline.enabled: false" in message
