@@ -227,10 +227,13 @@ def read_kept_counts(path: str) -> dict[str, tuple[str, pa.Table]]:
         encoded = pc.dictionary_encode(table["chunk"].combine_chunks())
     except (OSError, KeyError, TypeError, ValueError, pa.ArrowException):
         return {}
-    order = np.argsort(encoded.indices.to_numpy(zero_copy_only=False), kind="stable")
-    bounds = np.searchsorted(encoded.indices.to_numpy(zero_copy_only=False)[order], np.arange(len(encoded.dictionary) + 1))
-    counts = table.select(COUNTS_SCHEMA.names).replace_schema_metadata(None).cast(COUNTS_SCHEMA)
-    found = {chunk: counts.take(pa.array(order[bounds[code] : bounds[code + 1]])) for code, chunk in enumerate(encoded.dictionary.to_pylist())}
+    codes = encoded.indices.to_numpy(zero_copy_only=False)
+    order = np.argsort(codes, kind="stable")
+    bounds = np.searchsorted(codes[order], np.arange(len(encoded.dictionary) + 1))
+    # One take, then a slice per chunk: a take of a few rows from a column of several chunks
+    # concatenates the whole column first, and the system allocator keeps much of each copy.
+    counts = table.select(COUNTS_SCHEMA.names).replace_schema_metadata(None).cast(COUNTS_SCHEMA).take(pa.array(order)).combine_chunks()
+    found = {chunk: counts.slice(bounds[code], bounds[code + 1] - bounds[code]) for code, chunk in enumerate(encoded.dictionary.to_pylist())}
     return {chunk: (str(keys[chunk]), found[chunk]) for chunk in found if chunk in keys}
 
 
@@ -255,6 +258,7 @@ def main(argv: list[str] | None = None) -> None:
     repeats = repeated_ids(corpus)
     if repeats:
         raise SystemExit(repeated_ids_message(repeats, run.options["corpus"]["repeated_ids"] == "by_file"))
+    corpus.hashes = np.zeros(0, np.uint64)  # only the check of ids needs them
     empty = np.zeros(0, np.int64)
     found = first_occurrences(corpus.words)
     table, chunk_of = find_duplicates(corpus, found if run.options["split"]["deduplicate"] else (empty, empty))

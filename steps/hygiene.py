@@ -25,13 +25,14 @@ With contamination.drop, documents at or above the threshold are dropped (contam
 Memory: what steps.near_duplicates.cluster holds (about 60 bytes a document), each chunk's order
 and the splits (9 bytes a document), the cluster members' and measured documents' places
 (file, offset, id) for the files written, and the dev and test grams (8 bytes a word); the
-verification slots stay on disk, memory-mapped, their pages reclaimable.
+verification slots stay on disk, memory-mapped, each page unmapped again once read.
 """
 
 from __future__ import annotations
 
 import argparse
 import json
+import mmap
 import os
 import sys
 from collections.abc import Callable, Iterator
@@ -93,12 +94,17 @@ class CorpusSignatures:
         self.splits = np.concatenate(splits) if splits else np.zeros(0, np.uint8)
         self.permutations = 0
         self.slots: list[np.ndarray] = []
+        self._maps: list[mmap.mmap | None] = []
         for (_, slots_path), order in zip(paths, self.orders):
             size = os.path.getsize(slots_path)
             if len(order):
                 self.permutations = size // (2 * len(order))
-                self.slots.append(np.memmap(slots_path, dtype="<u2", mode="r", shape=(len(order), self.permutations)))
+                with open(slots_path, "rb") as handle:
+                    mapped = mmap.mmap(handle.fileno(), 0, access=mmap.ACCESS_READ)
+                self._maps.append(mapped)
+                self.slots.append(np.frombuffer(mapped, dtype="<u2", count=len(order) * self.permutations).reshape(len(order), self.permutations))
             else:
+                self._maps.append(None)
                 self.slots.append(np.zeros((0, 0), np.uint16))
 
     def __len__(self) -> int:
@@ -125,7 +131,10 @@ class CorpusSignatures:
         return np.concatenate(found) if found else np.zeros(0, np.uint64)
 
     def slots_of(self, rows: np.ndarray) -> np.ndarray:
-        """The verification slots of the given rows, gathered chunk by chunk."""
+        """The verification slots of the given rows, gathered chunk by chunk. The pages read
+        are then unmapped from the job (they stay in the page cache): mapped pages count in
+        its resident memory, and the kernel maps neighbouring pages with each one read, so
+        scattered reads would otherwise make most of the slot files resident."""
         result = np.empty((len(rows), self.permutations), np.uint16)
         chunks = self.chunk_of(rows)
         by_chunk = np.argsort(chunks, kind="stable")
@@ -133,12 +142,15 @@ class CorpusSignatures:
         for chunk in np.flatnonzero(np.diff(bounds)):
             picked = by_chunk[bounds[chunk] : bounds[chunk + 1]]
             result[picked] = self.slots[chunk][self.orders[chunk][rows[picked] - self.starts[chunk]]]
+            mapped = self._maps[chunk]
+            if mapped is not None and hasattr(mmap, "MADV_DONTNEED"):
+                mapped.madvise(mmap.MADV_DONTNEED)
         return result
 
     def unmap_slots(self) -> None:
-        """Drop the slot maps once clustering is done: their resident pages then leave the
-        job's memory before the stages that follow."""
+        """Drop the slot maps once clustering is done."""
         self.slots.clear()
+        self._maps.clear()
 
     def grams(self, chunk: int, rows: np.ndarray) -> Iterator[tuple[np.ndarray, np.ndarray, np.ndarray]]:
         """The n-gram hashes of the given rows of one chunk, a row group of its signatures file at
@@ -282,18 +294,22 @@ def _contamination(signed: CorpusSignatures, removed: np.ndarray) -> tuple[np.nd
 
 def _held_grams(signed: CorpusSignatures, held: np.ndarray, held_chunks: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
     """(hashes, counts): the n-gram hashes of the held-out rows laid end to end in their order,
-    and how many each row has."""
+    and how many each row has. Each row group's hashes are copied straight to their place, so
+    the job holds them twice at most (as read and as placed)."""
     counts = np.zeros(len(held), np.int64)
-    parts = []  # (row index in `held`, the row's hashes as a list array)
+    parts = []  # (row index in `held`, the row's hashes, their starts)
     for chunk in np.unique(held_chunks):
         mine = np.flatnonzero(held_chunks == chunk)
         for positions, values, starts in signed.grams(chunk, held[mine]):
             counts[mine[positions]] = np.diff(starts)
-            parts.append((mine[positions], pa.ListArray.from_arrays(pa.array(starts.astype(np.int32)), pa.array(values, pa.uint64()))))
-    if not parts:
-        return np.zeros(0, np.uint64), counts
-    lists = pa.chunked_array([part for _, part in parts]).take(pa.array(np.argsort(np.concatenate([index for index, _ in parts]), kind="stable")))
-    return pc.list_flatten(lists).to_numpy(), counts
+            parts.append((mine[positions], values, starts))
+    places = np.concatenate([[0], np.cumsum(counts)])
+    grams = np.empty(int(places[-1]), np.uint64)
+    while parts:
+        rows, values, starts = parts.pop()
+        sizes = np.diff(starts)
+        grams[np.repeat(places[rows] - starts[:-1], sizes) + np.arange(len(values))] = values
+    return grams, counts
 
 
 def contamination_figures(findings: Findings, sources: list[str], splits: np.ndarray, threshold: float, drop: bool) -> dict:

@@ -428,8 +428,13 @@ def _runs(keys: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
     them (a plain sort is several times faster than an argsort); keys that agree there by
     chance, about n**2 / 2**(65 - w) pairs, only cost a comparison of signatures."""
     width = np.uint64(max(1, (len(keys) - 1).bit_length()))
-    rows = np.flatnonzero(keys).astype(np.uint64)
-    packed = np.sort(((keys[rows] >> width) << width) | rows)
+    rows = np.flatnonzero(keys)
+    packed = keys[rows]
+    packed >>= width
+    packed <<= width
+    packed |= rows.view(np.uint64)  # in place: this runs for every band, beside the next band's
+    del rows
+    packed.sort()
     prefix = packed >> width
     same = prefix[1:] == prefix[:-1]
     inside = np.zeros(len(packed), dtype=bool)

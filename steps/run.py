@@ -7,7 +7,9 @@ although no step uses it. Hiding pandas here keeps short jobs short; nothing els
 For the same reason numpy's BLAS runs on one thread: no step does linear algebra, and starting
 OpenBLAS' thread pool costs CPU time on every import. Arrow allocates from the system
 allocator: pyarrow's default (mimalloc) kept jobs larger at their peak (measured with
-`/usr/bin/time`; bench/README.md). Both are defaults: a value already in the environment wins.
+`/usr/bin/time`; bench/README.md). The system allocator keeps one arena for all threads, for
+the same reason (steps.worker.use_process_defaults). All are defaults: a value already in the
+environment wins.
 
 In a local run a pre-started worker (steps.worker) runs the job with its imports already done;
 without one (on a cluster node, or when it cannot be reached) the job runs here.
@@ -17,10 +19,9 @@ from __future__ import annotations
 
 import importlib
 import importlib.abc
-import os
 import sys
 
-from .worker import end_like, run_through_worker
+from .worker import end_like, run_through_worker, use_process_defaults
 
 
 class _WithoutPandas(importlib.abc.MetaPathFinder):
@@ -45,8 +46,7 @@ def main(argv: list[str] | None = None) -> None:
     if status is not None:
         end_like(status)
     hide_pandas()
-    os.environ.setdefault("OPENBLAS_NUM_THREADS", "1")
-    os.environ.setdefault("ARROW_DEFAULT_MEMORY_POOL", "system")
+    use_process_defaults()
     importlib.import_module(f"{__package__}.{args[0]}").main(args[1:])
 
 

@@ -40,6 +40,7 @@ PRELOAD = (
     "manifest", "croissant", "datasheet", "report",
 )  # fmt: skip
 _STREAMS = 3  # stdin, stdout, stderr
+_M_ARENA_MAX = -8  # glibc's mallopt parameter for the number of allocator arenas
 _MAX_MESSAGE = 1 << 22
 
 
@@ -125,11 +126,24 @@ def _supervise(connection: socket.socket) -> None:
         os._exit(0)
 
 
+def use_process_defaults() -> None:
+    """Set what every job runs with (steps.run says why), before the step modules are imported;
+    a value already in the environment wins: numpy's BLAS on one thread, Arrow on the system
+    allocator, and that allocator (glibc's) with one arena for all threads. By default each
+    thread of a job gets its own arena, and memory one thread freed is kept in its arena rather
+    than reused by the others, which raised the peaks of the jobs that run threads."""
+    os.environ.setdefault("OPENBLAS_NUM_THREADS", "1")
+    os.environ.setdefault("ARROW_DEFAULT_MEMORY_POOL", "system")
+    if "MALLOC_ARENA_MAX" not in os.environ:
+        mallopt = getattr(ctypes.CDLL(None), "mallopt", None)
+        if mallopt is not None:
+            mallopt(_M_ARENA_MAX, 1)
+
+
 def serve(name: str, owner: int) -> None:
     """Import every step, then run each job asked for until `owner` (the process that started
     the worker) is gone or the socket is closed."""
-    os.environ.setdefault("OPENBLAS_NUM_THREADS", "1")
-    os.environ.setdefault("ARROW_DEFAULT_MEMORY_POOL", "system")
+    use_process_defaults()
     from .run import hide_pandas
 
     hide_pandas()

@@ -339,6 +339,29 @@ def test_verification_slots_of_rows_across_chunks_are_each_rows_own(dropped_buil
     assert np.array_equal(signed.slots_of(rows[::-1]), expected[rows[::-1]])
 
 
+def mapped_resident_kib(path: str) -> int:
+    """Resident KiB of this process's mappings of the file (the kernel's /proc/self/smaps)."""
+    target, total, inside = str(Path(path).resolve()), 0, False
+    for line in Path("/proc/self/smaps").read_text().splitlines():
+        if regex.match(r"[0-9a-f]+-[0-9a-f]+ ", line):
+            inside = line.endswith(" " + target)
+        elif inside and line.startswith("Rss:"):
+            total += int(line.split()[1])
+    return total
+
+
+@pytest.mark.skipif(not Path("/proc/self/smaps").exists(), reason="the kernel's per-mapping figures")
+def test_verification_slots_read_leave_no_page_of_their_files_resident(dropped_build) -> None:
+    """Outside reference: the kernel's resident size of each mapping. Mapped pages count in a
+    job's memory, so the slots of every document read must leave none of them mapped."""
+    build_dir, _ = dropped_build
+    layout = Layout(str(build_dir))
+    chunks = json.loads(Path(layout.chunk_list).read_text())
+    signed = hygiene.CorpusSignatures([(layout.signatures(chunk), layout.verification(chunk)) for chunk in chunks])
+    assert len(signed.slots_of(np.arange(len(signed)))) == len(signed)
+    assert [mapped_resident_kib(layout.verification(chunk)) for chunk in chunks] == [0] * len(chunks)
+
+
 def test_grams_are_read_a_row_group_at_a_time_and_equal_the_whole_column(dropped_build, tmp_path: Path) -> None:
     """Outside reference: Arrow's read of a signatures file's whole grams column. The file is
     rewritten in row groups of 7 rows, so the rows asked (every third, shuffled) span many."""

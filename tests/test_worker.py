@@ -1,5 +1,7 @@
 """The pre-started worker: a job run through it ends exactly as a job run by itself would (exit
 code, output in its own streams, killed by the same signal), and a cancelled job is stopped.
+Every job, through the worker or not, allocates from one arena unless its environment says
+otherwise.
 
 The worker is forked from this test process with a stand-in step module registered in
 sys.modules, so the jobs can exit, crash or hang on purpose; the rest is the real code."""
@@ -9,6 +11,7 @@ from __future__ import annotations
 import faulthandler
 import os
 import signal
+import subprocess
 import sys
 import time
 import types
@@ -147,3 +150,32 @@ def test_end_like_ends_the_client_as_the_job_ended():
         os._exit(0)
     _, status = os.waitpid(child, 0)
     assert os.WIFSIGNALED(status) and os.WTERMSIG(status) == signal.SIGTERM
+
+
+ARENAS_PROBE = r"""
+import ctypes, sys, threading
+from corpusmill import worker
+worker.use_process_defaults()
+import numpy as np
+together = threading.Barrier(4)
+def allocate():
+    held = [np.ones(5_000) for _ in range(50)]  # 40 kB each: below the allocator's mmap threshold
+    together.wait()  # all four threads alive at once, so none can take over another's arena
+threads = [threading.Thread(target=allocate) for _ in range(4)]
+for thread in threads:
+    thread.start()
+for thread in threads:
+    thread.join()
+ctypes.CDLL(None).malloc_stats()
+"""
+
+
+@pytest.mark.skipif(not hasattr(os, "confstr") or "glibc" not in (os.confstr("CS_GNU_LIBC_VERSION") or ""), reason="glibc's malloc_stats")
+@pytest.mark.parametrize(("environment", "one_arena"), [({}, True), ({"MALLOC_ARENA_MAX": "8"}, False)])
+def test_jobs_allocate_from_one_arena_unless_the_environment_says_otherwise(environment: dict, one_arena: bool):
+    """Outside reference: glibc's own malloc_stats, which lists each arena ("Arena N:") on
+    stderr, after four threads of a process set up as jobs are allocated at once."""
+    env = {"PATH": os.environ.get("PATH", ""), **environment}
+    probe = subprocess.run([sys.executable, "-c", ARENAS_PROBE], capture_output=True, text=True, env=env, check=True)
+    arenas = probe.stderr.count("Arena ")
+    assert arenas == 1 if one_arena else arenas > 1, probe.stderr
