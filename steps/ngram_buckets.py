@@ -39,8 +39,9 @@ from .kneser_ney import AddOneUnigram, Counts, Discounts, KeyFormat, Keys, Knese
 
 BUCKETS = 64
 # N-grams of the highest order taken together: a group's tables and weights take about 150
-# bytes for each.
-GROUP_NGRAMS = 1 << 20
+# bytes for each. Groups four times larger took longer in a trial and held a small corpus's
+# model whole (bench/README.md).
+GROUP_NGRAMS = 1 << 18
 # Bytes of records a store holds in memory before it writes them out.
 HELD_BYTES = 64 << 20
 # Tokens whose windows are made at once (and, in train, packed, sorted and counted).
