@@ -39,8 +39,8 @@ from .kneser_ney import AddOneUnigram, Counts, Discounts, KeyFormat, Keys, Knese
 
 BUCKETS = 64
 # N-grams of the highest order taken together: a group's tables and weights take about 150
-# bytes for each. Groups four times larger took longer in a trial and held a small corpus's
-# model whole (bench/README.md).
+# bytes for each. Groups four times larger were no faster in a trial and nearly doubled the
+# peak of a 1x build (bench/README.md).
 GROUP_NGRAMS = 1 << 18
 # Bytes of records a store holds in memory before it writes them out.
 HELD_BYTES = 64 << 20
