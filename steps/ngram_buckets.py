@@ -278,6 +278,8 @@ class Group:
 
 
 def _save(levels: tuple[Level, ...], path: Path) -> Path:
+    """The levels' arrays as .npy records one after another, their names first: read back once,
+    they need no archive (an .npz's zip and checksums took several times as long)."""
     arrays: dict[str, Any] = {}
     for level in levels:
         fields = {
@@ -285,13 +287,19 @@ def _save(levels: tuple[Level, ...], path: Path) -> Path:
             "local": level.local, "continuation": level.continuation, "context_high": level.context_keys.high,
         }  # fmt: skip
         arrays |= {f"{level.k}.{name}": value for name, value in fields.items() if value is not None}
-    _written(path, "wb", lambda out: np.savez(out, **arrays))
+
+    def write(out: Any) -> None:
+        np.save(out, np.array(list(arrays), dtype=str))
+        for value in arrays.values():
+            np.save(out, value)
+
+    _written(path, "wb", write)
     return path
 
 
 def _load(path: Path) -> tuple[Level, ...]:
-    with np.load(path) as saved:
-        arrays = {name: saved[name] for name in saved.files}
+    with open(path, "rb") as saved:
+        arrays = {str(name): np.load(saved) for name in np.load(saved)}
     levels = []
     for k in sorted({int(name.split(".")[0]) for name in arrays}):
 
@@ -326,7 +334,7 @@ def gather(
             levels = (dataclasses.replace(levels[0], suffixes=counted.levels[0].local[levels[0].suffixes]), *levels[1:])
         del counted
         last = buckets[-1] == BUCKETS - 1
-        groups.append(Group(buckets, levels if last else _save(levels, work / f"group-{buckets[0]:02d}.npz")))
+        groups.append(Group(buckets, levels if last else _save(levels, work / f"group-{buckets[0]:02d}.levels")))
 
     pending: list[np.ndarray] = []
     first = 0
