@@ -82,6 +82,7 @@ SCOPE = {
         "hold_windows",
         "SplitTotals.*",
         "Group.*",
+        "_written",
         "_save",
         "_load",
         "gather",

@@ -289,7 +289,7 @@ def _save(levels: tuple[Level, ...], path: Path) -> Path:
         arrays |= {f"{level.k}.{name}": value for name, value in fields.items() if value is not None}
 
     def write(out: Any) -> None:
-        np.save(out, np.array(list(arrays), dtype=str))
+        np.save(out, np.array(list(arrays)))
         for value in arrays.values():
             np.save(out, value)
 

@@ -4,7 +4,9 @@ whatever was written out to disk on the way, and an append that counts only what
 
 from __future__ import annotations
 
+import errno
 import math
+import os
 import tempfile
 import threading
 from collections import Counter
@@ -293,5 +295,6 @@ def test_a_work_folder_that_cannot_be_written_stops_the_count_naming_the_file_an
     with small_groups_and_stores(50, 100), pytest.raises(SystemExit) as stopped:
         baseline.score("t", splits, 50, 3, "modified", blocked / "work")
     message = str(stopped.value)
-    assert message.startswith(f"corpusmill: {blocked / 'work'}/train-") and "cannot be written (" in message
+    # The system's own wording of the error (os.strerror): a file stands where a folder must be.
+    assert message.startswith(f"corpusmill: {blocked / 'work'}/train-") and f"cannot be written ({os.strerror(errno.ENOTDIR)})" in message
     assert "free disk space" in message and "baseline.enabled: false" in message
