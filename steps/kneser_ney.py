@@ -354,9 +354,24 @@ def counts_of_totals(totals: list[tuple[Keys, np.ndarray]], order: int, vocabula
     docstring."""
     keys, raw = totals.pop()
     keys_format = KeyFormat(vocabulary_size)
+    pending: list[tuple[Keys, np.ndarray, np.ndarray | None]] = [(keys, raw, None)]
+    del keys, raw
+    levels, (keys, raw, continuation) = lower_orders(pending, order, 2, keys_format)
+    levels.append(Level.of(1, keys, raw, continuation, np.empty(0, np.uint8), keys_format))
+    return Counts(vocabulary_size, tuple(reversed(levels)))
+
+
+def lower_orders(
+    pending: list[tuple[Keys, np.ndarray, np.ndarray | None]], top: int, lowest: int, keys_format: KeyFormat
+) -> tuple[list[Level], tuple[Keys, np.ndarray, np.ndarray | None]]:
+    """The levels top, top-1, …, lowest from the sorted distinct keys of order `top`, their raw
+    counts and their continuation counts (None at the counted order), given in a one-element
+    list, which is emptied (each table is freed once the level built from it holds what it
+    needs); and the keys, raw and continuation counts of order lowest-1 that they imply. Each
+    level's suffixes index those keys of the order below."""
+    keys, raw, continuation = pending.pop()
     levels = []
-    continuation = None
-    for k in range(order, 1, -1):
+    for k in range(top, lowest - 1, -1):
         suffix = keys_format.suffix(keys, k)
         by_suffix = suffix.order()
         suffix = suffix[by_suffix]
@@ -369,8 +384,7 @@ def counts_of_totals(totals: list[tuple[Keys, np.ndarray]], order: int, vocabula
         keys, continuation = suffix[starts], runs
         raw = np.add.reduceat(raw[by_suffix], starts) if len(starts) else raw[:0]
         del suffix, by_suffix, suffixes
-    levels.append(Level.of(1, keys, raw, continuation, np.empty(0, np.uint8), keys_format))
-    return Counts(vocabulary_size, tuple(reversed(levels)))
+    return levels, (keys, raw, continuation)
 
 
 def _narrow(counts: np.ndarray) -> np.ndarray:

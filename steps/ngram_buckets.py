@@ -1,5 +1,5 @@
 """N-gram buckets: a Kneser–Ney model counted, estimated and scored a few buckets at a time, so
-memory follows the largest bucket rather than the corpus.
+memory follows the size of a group rather than the corpus.
 
 A k-gram (k >= 2) belongs to bucket (its next-to-last id) mod BUCKETS. Every table the model
 needs above the unigrams then lies within one bucket:
@@ -16,8 +16,11 @@ count-of-counts; the second estimates the weights of the buckets' tables with th
 discounts and scores train (from the counts) and the held-out windows of those buckets.
 
 Consecutive buckets are taken together in groups of at most GROUP_NGRAMS n-grams of the highest
-order (or one bucket that holds more). Groups depend only on the counts, so a build's figures do
-not depend on how or when its train split was counted; floating sums run group by group.
+order. A bucket that holds more (the bucket of a frequent context word) is split once more, by
+the id before the next-to-last, into parts of about GROUP_NGRAMS (`split_bucket`): only its level
+2 spans the parts. Groups and parts depend only on the counts, so a build's figures do not
+depend on how or when its train split was counted; floating sums run group by group and part by
+part.
 Counted n-grams and held-out windows wait in a BucketStore, in memory up to a bound and then
 in files of a work folder, which the caller removes.
 """
@@ -26,7 +29,7 @@ from __future__ import annotations
 
 import dataclasses
 import threading
-from collections.abc import Callable
+from collections.abc import Callable, Sequence
 from concurrent.futures import ThreadPoolExecutor
 from dataclasses import dataclass
 from pathlib import Path
@@ -234,7 +237,11 @@ class SplitTotals:
         self.unigram_raw[ids] += unigrams.raw
         if unigrams.continuation is not None:
             self.unigram_continuation[ids] += unigrams.continuation
-        for level in counts.levels[1:]:
+        self.add_levels(counts.levels[1:])
+
+    def add_levels(self, levels: Sequence[Level]) -> None:
+        """The count-of-counts of levels of order 2 and above, each k-gram in one of them."""
+        for level in levels:
             for top in (True, False) if level.continuation is not None else (True,):
                 self.n[level.k, top] = _plus(self.n.get((level.k, top), (0, 0, 0, 0)), kneser_ney.count_of_counts(level.counts(top)))
 
@@ -260,12 +267,31 @@ class SplitTotals:
 
 
 @dataclass(frozen=True)
+class Part:
+    """Levels 3..order of the n-grams of a split bucket whose id before the next-to-last is
+    `first` or above (up to the next part's). Level 3's suffixes are bigram keys, not indexes:
+    the bucket's level 2 is known only once every part is derived."""
+
+    first: int
+    levels: Path
+
+    def load(self, bigram_keys: np.ndarray) -> tuple[Level, ...]:
+        """The levels, level 3's suffixes made indexes into the bucket's level 2 (`bigram_keys`:
+        its full keys, sorted)."""
+        third, *rest = _load(self.levels)
+        return (dataclasses.replace(third, suffixes=np.searchsorted(bigram_keys, third.suffixes)), *rest)
+
+
+@dataclass(frozen=True)
 class Group:
     """Levels 2..order of some consecutive buckets. Level 2's suffixes are unigram ids, not
-    indexes: the unigram level of the whole split is known only after the first pass."""
+    indexes: the unigram level of the whole split is known only after the first pass. A bucket
+    of more than GROUP_NGRAMS n-grams of order 3 or more is split: `levels` holds its level 2
+    alone, and `parts` the levels above, by the id before the next-to-last."""
 
     buckets: tuple[int, ...]
     levels: tuple[Level, ...] | Path  # in memory, or saved in this file
+    parts: tuple[Part, ...] = ()
 
     def load(self, unigrams: Level) -> tuple[Level, ...]:
         """The levels, level 2's suffixes made indexes into `unigrams`."""
@@ -311,6 +337,51 @@ def _load(path: Path) -> tuple[Level, ...]:
     return tuple(levels)
 
 
+def part_key(keys: Keys, keys_format: KeyFormat, k: int) -> np.ndarray:
+    """The id before the next-to-last of each k-gram key (k >= 3)."""
+    return keys_format.last(keys_format.prefix(keys_format.prefix(keys, k), k - 1))
+
+
+def split_bucket(pending: list[np.ndarray], buckets: tuple[int, ...], order: int, keys_format: KeyFormat, split: SplitTotals, work: Path) -> Group:
+    """A bucket of more than GROUP_NGRAMS n-grams (its records, in `pending`, which is emptied,
+    with those of empty buckets beside it), derived in parts. Every table of order 3 or more lies within the n-grams that share
+    the id before the next-to-last, as a bucket's tables lie within those that share the
+    next-to-last: parts take consecutive values of that id, a part starting at the value whose
+    n-grams start at or past the next multiple of GROUP_NGRAMS. Level 2 alone spans the parts: its
+    raw and continuation counts are sums over them (each trigram lies in one), as the unigrams'
+    are over buckets."""
+    keys, counts = as_totals(np.concatenate(pending), keys_format, order)
+    pending.clear()
+    values = part_key(keys, keys_format, order)
+    by_value = np.argsort(values, kind="stable")
+    values = values[by_value]
+    value_starts = np.flatnonzero(np.concatenate([[True], values[1:] != values[:-1]]))
+    part_of_value = value_starts // GROUP_NGRAMS
+    part_starts = value_starts[np.concatenate([[True], part_of_value[1:] != part_of_value[:-1]])]
+    bounds = np.append(part_starts, len(values))
+    parts, bigrams = [], []
+    for number, (low, high) in enumerate(zip(bounds[:-1].tolist(), bounds[1:].tolist())):
+        rows = np.sort(by_value[low:high])  # the part's keys, sorted
+        upper, (bigram_keys, bigram_raw, bigram_continuation) = kneser_ney.lower_orders([(keys[rows], counts[rows], None)], order, 3, keys_format)
+        split.add_levels(upper)
+        upper[-1] = dataclasses.replace(upper[-1], suffixes=bigram_keys.low[upper[-1].suffixes])
+        parts.append(Part(int(values[low]), _save(tuple(reversed(upper)), work / f"group-{buckets[0]:02d}-part-{number:06d}.levels")))
+        bigrams.append((bigram_keys.low, bigram_raw.astype(np.int64), np.asarray(bigram_continuation, np.int64)))
+        del upper, rows
+    del keys, counts, values, by_value
+    low = np.concatenate([found[0] for found in bigrams])
+    by_key = np.argsort(low, kind="stable")
+    low = low[by_key]
+    starts = Keys(low).starts()
+    raw = np.add.reduceat(np.concatenate([found[1] for found in bigrams])[by_key], starts)
+    continuation = np.add.reduceat(np.concatenate([found[2] for found in bigrams])[by_key], starts)
+    second, (unigram_keys, unigram_raw, unigram_continuation) = kneser_ney.lower_orders([(Keys(low[starts]), raw, continuation)], 2, 2, keys_format)
+    unigrams = Level.of(1, unigram_keys, unigram_raw, unigram_continuation, np.empty(0, np.uint8), keys_format)
+    split.add(Counts(split.vocabulary_size, (unigrams, second[0])))
+    level = dataclasses.replace(second[0], suffixes=unigrams.local[second[0].suffixes])
+    return Group(buckets, _save((level,), work / f"group-{buckets[0]:02d}.levels"), tuple(parts))
+
+
 def gather(
     store: BucketStore, order: int, vocabulary_size: int, work: Path, whole: bool = False,
     carried: Callable[[int], np.ndarray] | None = None, keep: Callable[[np.ndarray], None] | None = None,
@@ -323,6 +394,9 @@ def gather(
     groups: list[Group] = []
 
     def derive(pending: list[np.ndarray], buckets: tuple[int, ...]) -> None:
+        if sum(map(len, pending)) > GROUP_NGRAMS and order > 2 and not whole:  # one bucket and empty ones (see below)
+            groups.append(split_bucket(pending, buckets, order, keys_format, split, work))
+            return
         keys, counts = as_totals(np.concatenate(pending), keys_format, order)
         pending.clear()
         by_key = keys.order(kind="stable")  # a run per bucket, merged
@@ -384,23 +458,32 @@ def score(
     unigram = AddOneUnigram.of(Counts(vocabulary_size, (unigrams,)))
     with ThreadPoolExecutor(threads) as pool:
         for group in [groups[-1], *groups[:-1]]:
-            counts = Counts(vocabulary_size, (unigrams, *group.load(unigrams)))
-            models = kneser_ney.estimate_models(counts, smoothing, range(2, order + 1), discounts)
-            trained = kneser_ney.training_score(models, unigram)
-            for k, log_sum in trained.log_sums.items():
-                train.log_sums[k] = train.log_sums.get(k, 0.0) + log_sum
-            train.unigram_log_sum = trained.unigram_log_sum
+            levels = group.load(unigrams)
+            windows = {name: np.concatenate([store.take(bucket) for bucket in group.buckets])["ids"] for name, store in held_out.items() if store is not None}
+            if group.parts:  # a split bucket: each part's windows by the id before their next-to-last
+                bigram_keys = levels[0].keys(KeyFormat(vocabulary_size)).low
+                firsts = np.array([part.first for part in group.parts], np.int64)
+                # A window whose id there no train n-gram of the bucket has finds nothing above level 2 in any part.
+                part_of = {name: np.maximum(np.searchsorted(firsts, found[:, order - 3], side="right") - 1, 0) for name, found in windows.items()}
+            for number, part in enumerate(group.parts or (None,)):
+                counts = Counts(vocabulary_size, (unigrams, *levels, *(part.load(bigram_keys) if part else ())))
+                models = kneser_ney.estimate_models(counts, smoothing, range(2, order + 1), discounts)
+                trained = kneser_ney.training_score(models, unigram)
+                for k, log_sum in trained.log_sums.items():
+                    if k > 2 or not number:  # a split bucket's level 2 is in every part: its score counts once
+                        train.log_sums[k] = train.log_sums.get(k, 0.0) + log_sum
+                train.unigram_log_sum = trained.unigram_log_sum
 
-            def held(windows: BucketStore, into: SplitScore, counts: Counts = counts, models: dict[int, KneserNey] = models, group: Group = group) -> None:
-                records = np.concatenate([windows.take(bucket) for bucket in group.buckets])["ids"]
-                for start in range(0, len(records), batch_windows):
-                    columns = [np.ascontiguousarray(column) for column in records[start : start + batch_windows].T]
-                    into.add(models, unigram, kneser_ney.locate_windows(counts, columns), columns[-1])
+                def held(records: np.ndarray, into: SplitScore, counts: Counts = counts, models: dict[int, KneserNey] = models) -> None:
+                    for start in range(0, len(records), batch_windows):
+                        columns = [np.ascontiguousarray(column) for column in records[start : start + batch_windows].T]
+                        into.add(models, unigram, kneser_ney.locate_windows(counts, columns), columns[-1])
 
-            for done in [pool.submit(held, windows, held_scores[name]) for name, windows in held_out.items() if windows is not None]:
-                done.result()
-            if whole:
-                model = models[order]
+                mine = {name: found[part_of[name] == number] if part else found for name, found in windows.items()}
+                for done in [pool.submit(held, found, held_scores[name]) for name, found in mine.items()]:
+                    done.result()
+                if whole:
+                    model = models[order]
     scores: dict[str, SplitScore | None] = {"train": train}
     scores |= {name: held_scores.get(name) for name in held_out}
     for found in scores.values():

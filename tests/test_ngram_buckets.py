@@ -285,6 +285,26 @@ def test_groups_are_runs_of_buckets_of_at_most_the_bound_unless_one_bucket_holds
     assert [(group.buckets[0], group.buckets[-1]) for group in groups] == [(0, 1), (2, 2), (3, 3), (4, 62), (63, 63)]
     assert [isinstance(group.levels, Path) for group in groups] == [True, True, True, True, False]  # the last stays in memory
     assert [(group.buckets[0], group.buckets[-1]) for group in whole] == [(0, 63)]
+    assert [len(group.parts) for group in groups] == [0, 0, 2, 0, 0] and not whole[0].parts  # the bucket of 7 is split
+
+
+def test_a_bucket_above_the_bound_is_split_by_the_id_before_its_next_to_last(tmp_path: Path) -> None:
+    """Bucket 3's 3-grams (x, 67, y): x = 4 three times, 5 twice, 6 once, 9 four times; 10
+    n-grams, bound 4. A part starts at the first id x whose n-grams start at or past a multiple
+    of the bound (x = 6 starts at 5, x = 9 at 6 < 8), so the parts hold 5 and 5: never more
+    than the bound and one id's n-grams."""
+    keys_format = kneser_ney.KeyFormat(1000)
+    store = BucketStore(RECORD, tmp_path, "t")
+    first = np.array([4, 4, 4, 5, 5, 6, 9, 9, 9, 9], np.uint64)
+    last = np.array([5, 6, 7, 5, 6, 5, 5, 6, 7, 8], np.uint64)
+    keys = keys_format.pack([first, np.full(10, 67, np.uint64), last])
+    store.add(ngram_buckets.bucket_of(ngram_buckets.next_to_last(keys, keys_format, 3)), ngram_buckets.as_records(keys, np.ones(10, np.int64)))
+    with mock.patch.object(ngram_buckets, "GROUP_NGRAMS", 4):
+        _, groups = ngram_buckets.gather(store, 3, 1000, tmp_path)
+    # The empty buckets before it join its group.
+    assert [(group.buckets[0], group.buckets[-1], len(group.parts)) for group in groups] == [(0, 3, 2), (4, 63, 0)]
+    assert [part.first for part in groups[0].parts] == [4, 6]
+    assert [len(ngram_buckets._load(part.levels)[-1]) for part in groups[0].parts] == [5, 5]
 
 
 def test_a_work_folder_that_cannot_be_written_stops_the_count_naming_the_file_and_the_way_out(tmp_path: Path) -> None:
