@@ -16,9 +16,9 @@ count-of-counts; the second estimates the weights of the buckets' tables with th
 discounts and scores train (from the counts) and the held-out windows of those buckets.
 
 Consecutive buckets are taken together in groups of at most GROUP_NGRAMS n-grams of the highest
-order. A bucket that holds more (the bucket of a frequent context word) is split once more, by
-the id before the next-to-last, into parts of about GROUP_NGRAMS (`split_bucket`): only its level
-2 spans the parts. Groups and parts depend only on the counts, so a build's figures do not
+order. A bucket that holds more than SPLIT_NGRAMS (the bucket of a frequent context word) is
+split once more, by the id before the next-to-last, into parts of about GROUP_NGRAMS
+(`split_bucket`): only its level 2 spans the parts. Groups and parts depend only on the counts, so a build's figures do not
 depend on how or when its train split was counted; floating sums run group by group and part by
 part.
 Counted n-grams and held-out windows wait in a BucketStore, in memory up to a bound and then
@@ -45,6 +45,11 @@ BUCKETS = 64
 # bytes for each. Groups four times larger were no faster in a trial and nearly doubled the
 # peak of a 1x build (bench/README.md).
 GROUP_NGRAMS = 1 << 18
+# A bucket of more n-grams of the highest order than this is split into parts of about
+# GROUP_NGRAMS (split_bucket); a smaller one is taken whole, as splitting costs a merge of its
+# level 2 and an estimate of that level in every part (several seconds at 10x when every bucket
+# above GROUP_NGRAMS was split; bench/README.md).
+SPLIT_NGRAMS = 1 << 20
 # Bytes of records a store holds in memory before it writes them out.
 HELD_BYTES = 64 << 20
 # Tokens whose windows are made at once (and, in train, packed, sorted and counted).
@@ -286,7 +291,7 @@ class Part:
 class Group:
     """Levels 2..order of some consecutive buckets. Level 2's suffixes are unigram ids, not
     indexes: the unigram level of the whole split is known only after the first pass. A bucket
-    of more than GROUP_NGRAMS n-grams of order 3 or more is split: `levels` holds its level 2
+    of more than SPLIT_NGRAMS n-grams of order 3 or more is split: `levels` holds its level 2
     alone, and `parts` the levels above, by the id before the next-to-last."""
 
     buckets: tuple[int, ...]
@@ -343,7 +348,7 @@ def part_key(keys: Keys, keys_format: KeyFormat, k: int) -> np.ndarray:
 
 
 def split_bucket(pending: list[np.ndarray], buckets: tuple[int, ...], order: int, keys_format: KeyFormat, split: SplitTotals, work: Path) -> Group:
-    """A bucket of more than GROUP_NGRAMS n-grams (its records, in `pending`, which is emptied,
+    """A bucket of more than SPLIT_NGRAMS n-grams (its records, in `pending`, which is emptied,
     with those of empty buckets beside it), derived in parts. Every table of order 3 or more lies within the n-grams that share
     the id before the next-to-last, as a bucket's tables lie within those that share the
     next-to-last: parts take consecutive values of that id, a part starting at the value whose
@@ -394,7 +399,7 @@ def gather(
     groups: list[Group] = []
 
     def derive(pending: list[np.ndarray], buckets: tuple[int, ...]) -> None:
-        if sum(map(len, pending)) > GROUP_NGRAMS and order > 2 and not whole:  # one bucket and empty ones (see below)
+        if sum(map(len, pending)) > SPLIT_NGRAMS and order > 2 and not whole:  # one bucket and empty ones (see below)
             groups.append(split_bucket(pending, buckets, order, keys_format, split, work))
             return
         keys, counts = as_totals(np.concatenate(pending), keys_format, order)

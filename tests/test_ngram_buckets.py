@@ -31,8 +31,9 @@ Sentences = list[list[int]]
 
 @contextmanager
 def small_groups_and_stores(group_ngrams: int, held_bytes: int) -> Iterator[list[int]]:
-    """Groups of at most `group_ngrams` n-grams, train counted 64 tokens at a time, and stores
-    that write out beyond `held_bytes`; yields a list that gets one item per write-out."""
+    """Groups (and parts of a bucket that holds more) of at most `group_ngrams` n-grams, train
+    counted 64 tokens at a time, and stores that write out beyond `held_bytes`; yields a list
+    that gets one item per write-out."""
     written: list[int] = []
     write_out = BucketStore._write_out
 
@@ -42,6 +43,7 @@ def small_groups_and_stores(group_ngrams: int, held_bytes: int) -> Iterator[list
 
     with (
         mock.patch.object(ngram_buckets, "GROUP_NGRAMS", group_ngrams),
+        mock.patch.object(ngram_buckets, "SPLIT_NGRAMS", group_ngrams),
         mock.patch.object(ngram_buckets, "HELD_BYTES", held_bytes),
         mock.patch.object(ngram_buckets, "COUNT_TOKENS", 64),
         mock.patch.object(baseline, "WINDOWS_HELD", held_bytes),
@@ -277,21 +279,25 @@ def counted_store(tmp_path: Path, sizes: dict[int, int]) -> BucketStore:
 
 def test_groups_are_runs_of_buckets_of_at_most_the_bound_unless_one_bucket_holds_more(tmp_path: Path) -> None:
     sizes = {0: 2, 1: 2, 2: 1, 3: 7, 5: 1, 9: 3, 63: 1}
-    with mock.patch.object(ngram_buckets, "GROUP_NGRAMS", 4):
+    with mock.patch.object(ngram_buckets, "GROUP_NGRAMS", 4), mock.patch.object(ngram_buckets, "SPLIT_NGRAMS", 6):
         _, groups = ngram_buckets.gather(counted_store(tmp_path, sizes), 3, 1000, tmp_path)
         _, whole = ngram_buckets.gather(counted_store(tmp_path, sizes), 3, 1000, tmp_path, whole=True)
+    with mock.patch.object(ngram_buckets, "GROUP_NGRAMS", 4), mock.patch.object(ngram_buckets, "SPLIT_NGRAMS", 7):
+        _, unsplit = ngram_buckets.gather(counted_store(tmp_path, sizes), 3, 1000, tmp_path)
     # A group ends before the bucket that would take it past 4 n-grams: 2 + 2; 1 (+ 7 would pass);
     # 7 alone, which passes it (+ bucket 4's none); then 1 + 3 over buckets 4 to 62; bucket 63.
     assert [(group.buckets[0], group.buckets[-1]) for group in groups] == [(0, 1), (2, 2), (3, 3), (4, 62), (63, 63)]
     assert [isinstance(group.levels, Path) for group in groups] == [True, True, True, True, False]  # the last stays in memory
     assert [(group.buckets[0], group.buckets[-1]) for group in whole] == [(0, 63)]
-    assert [len(group.parts) for group in groups] == [0, 0, 2, 0, 0] and not whole[0].parts  # the bucket of 7 is split
+    # The bucket of 7 is split when above the split bound (6), whole at it (7).
+    assert [len(group.parts) for group in groups] == [0, 0, 2, 0, 0] and not whole[0].parts
+    assert [len(group.parts) for group in unsplit] == [0, 0, 0, 0, 0]
 
 
 def test_a_bucket_above_the_bound_is_split_by_the_id_before_its_next_to_last(tmp_path: Path) -> None:
     """Bucket 3's 3-grams (x, 67, y): x = 4 three times, 5 twice, 6 once, 9 four times; 10
-    n-grams, bound 4. A part starts at the first id x whose n-grams start at or past a multiple
-    of the bound (x = 6 starts at 5, x = 9 at 6 < 8), so the parts hold 5 and 5: never more
+    n-grams, above the split bound (9); group bound 4. A part starts at the first id x whose
+    n-grams start at or past a multiple of the group bound (x = 6 starts at 5, x = 9 at 6 < 8), so the parts hold 5 and 5: never more
     than the bound and one id's n-grams."""
     keys_format = kneser_ney.KeyFormat(1000)
     store = BucketStore(RECORD, tmp_path, "t")
@@ -299,7 +305,7 @@ def test_a_bucket_above_the_bound_is_split_by_the_id_before_its_next_to_last(tmp
     last = np.array([5, 6, 7, 5, 6, 5, 5, 6, 7, 8], np.uint64)
     keys = keys_format.pack([first, np.full(10, 67, np.uint64), last])
     store.add(ngram_buckets.bucket_of(ngram_buckets.next_to_last(keys, keys_format, 3)), ngram_buckets.as_records(keys, np.ones(10, np.int64)))
-    with mock.patch.object(ngram_buckets, "GROUP_NGRAMS", 4):
+    with mock.patch.object(ngram_buckets, "GROUP_NGRAMS", 4), mock.patch.object(ngram_buckets, "SPLIT_NGRAMS", 9):
         _, groups = ngram_buckets.gather(store, 3, 1000, tmp_path)
     # The empty buckets before it join its group.
     assert [(group.buckets[0], group.buckets[-1], len(group.parts)) for group in groups] == [(0, 3, 2), (4, 63, 0)]
