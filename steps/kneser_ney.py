@@ -357,13 +357,13 @@ def counts_of_totals(totals: list[tuple[Keys, np.ndarray]], order: int, vocabula
     pending: list[tuple[Keys, np.ndarray, np.ndarray | None]] = [(keys, raw, None)]
     del keys, raw
     levels, (keys, raw, continuation) = lower_orders(pending, order, 2, keys_format)
-    levels.append(Level.of(1, keys, raw, continuation, np.empty(0, np.uint8), keys_format))
+    levels.append(Level.of(1, keys, raw, continuation if levels else None, np.empty(0, np.uint8), keys_format))
     return Counts(vocabulary_size, tuple(reversed(levels)))
 
 
 def lower_orders(
     pending: list[tuple[Keys, np.ndarray, np.ndarray | None]], top: int, lowest: int, keys_format: KeyFormat
-) -> tuple[list[Level], tuple[Keys, np.ndarray, np.ndarray | None]]:
+) -> tuple[list[Level], tuple[Keys, np.ndarray, np.ndarray]]:
     """The levels top, top-1, …, lowest from the sorted distinct keys of order `top`, their raw
     counts and their continuation counts (None at the counted order), given in a one-element
     list, which is emptied (each table is freed once the level built from it holds what it
@@ -371,6 +371,7 @@ def lower_orders(
     level's suffixes index those keys of the order below."""
     keys, raw, continuation = pending.pop()
     levels = []
+    runs = np.zeros(0, np.int64)  # the continuation counts of the order below the last level built
     for k in range(top, lowest - 1, -1):
         suffix = keys_format.suffix(keys, k)
         by_suffix = suffix.order()
@@ -384,7 +385,7 @@ def lower_orders(
         keys, continuation = suffix[starts], runs
         raw = np.add.reduceat(raw[by_suffix], starts) if len(starts) else raw[:0]
         del suffix, by_suffix, suffixes
-    return levels, (keys, raw, continuation)
+    return levels, (keys, raw, runs)
 
 
 def _narrow(counts: np.ndarray) -> np.ndarray:

@@ -238,11 +238,15 @@ class SplitTotals:
 
     def add(self, counts: Counts) -> None:
         unigrams = counts.levels[0]
-        ids = unigrams.local.astype(np.int64)
-        self.unigram_raw[ids] += unigrams.raw
-        if unigrams.continuation is not None:
-            self.unigram_continuation[ids] += unigrams.continuation
+        self.add_unigrams(unigrams.local, unigrams.raw, unigrams.continuation)
         self.add_levels(counts.levels[1:])
+
+    def add_unigrams(self, ids: np.ndarray, raw: np.ndarray, continuation: np.ndarray | None) -> None:
+        """Raw and continuation counts of the unigrams of some buckets (each bigram in one)."""
+        at = ids.astype(np.int64)
+        self.unigram_raw[at] += raw
+        if continuation is not None:
+            self.unigram_continuation[at] += continuation
 
     def add_levels(self, levels: Sequence[Level]) -> None:
         """The count-of-counts of levels of order 2 and above, each k-gram in one of them."""
@@ -349,41 +353,40 @@ def part_key(keys: Keys, keys_format: KeyFormat, k: int) -> np.ndarray:
 
 def split_bucket(pending: list[np.ndarray], buckets: tuple[int, ...], order: int, keys_format: KeyFormat, split: SplitTotals, work: Path) -> Group:
     """A bucket of more than SPLIT_NGRAMS n-grams (its records, in `pending`, which is emptied,
-    with those of empty buckets beside it), derived in parts. Every table of order 3 or more lies within the n-grams that share
-    the id before the next-to-last, as a bucket's tables lie within those that share the
-    next-to-last: parts take consecutive values of that id, a part starting at the value whose
-    n-grams start at or past the next multiple of GROUP_NGRAMS. Level 2 alone spans the parts: its
-    raw and continuation counts are sums over them (each trigram lies in one), as the unigrams'
-    are over buckets."""
+    with those of empty buckets beside it), derived in parts. Every table of order 3 or more
+    lies within the n-grams that share the id before the next-to-last, as a bucket's tables lie
+    within those that share the next-to-last: parts take consecutive values of that id, a part
+    starting at the value whose n-grams start at or past the next multiple of GROUP_NGRAMS.
+    Level 2 alone spans the parts: its raw and continuation counts are sums over them (each
+    trigram lies in one), as the unigrams' are over buckets."""
     keys, counts = as_totals(np.concatenate(pending), keys_format, order)
     pending.clear()
     values = part_key(keys, keys_format, order)
-    by_value = np.argsort(values, kind="stable")
+    by_value = np.argsort(values)  # any order of equal values: each part's rows are sorted below
     values = values[by_value]
     value_starts = np.flatnonzero(np.concatenate([[True], values[1:] != values[:-1]]))
     part_of_value = value_starts // GROUP_NGRAMS
     part_starts = value_starts[np.concatenate([[True], part_of_value[1:] != part_of_value[:-1]])]
-    bounds = np.append(part_starts, len(values))
     parts, bigrams = [], []
-    for number, (low, high) in enumerate(zip(bounds[:-1].tolist(), bounds[1:].tolist())):
-        rows = np.sort(by_value[low:high])  # the part's keys, sorted
+    for number, (start, taken) in enumerate(zip(part_starts.tolist(), np.split(by_value, part_starts[1:]))):
+        rows = np.sort(taken)  # the part's keys, sorted
         upper, (bigram_keys, bigram_raw, bigram_continuation) = kneser_ney.lower_orders([(keys[rows], counts[rows], None)], order, 3, keys_format)
         split.add_levels(upper)
         upper[-1] = dataclasses.replace(upper[-1], suffixes=bigram_keys.low[upper[-1].suffixes])
-        parts.append(Part(int(values[low]), _save(tuple(reversed(upper)), work / f"group-{buckets[0]:02d}-part-{number:06d}.levels")))
-        bigrams.append((bigram_keys.low, bigram_raw.astype(np.int64), np.asarray(bigram_continuation, np.int64)))
+        parts.append(Part(int(values[start]), _save(tuple(reversed(upper)), work / f"group-{buckets[0]:02d}-part-{number:06d}.levels")))
+        bigrams.append((bigram_keys.low, bigram_raw, bigram_continuation))
         del upper, rows
     del keys, counts, values, by_value
     low = np.concatenate([found[0] for found in bigrams])
-    by_key = np.argsort(low, kind="stable")
+    by_key = np.argsort(low)  # equal keys (a bigram of several parts) are summed
     low = low[by_key]
     starts = Keys(low).starts()
     raw = np.add.reduceat(np.concatenate([found[1] for found in bigrams])[by_key], starts)
     continuation = np.add.reduceat(np.concatenate([found[2] for found in bigrams])[by_key], starts)
     second, (unigram_keys, unigram_raw, unigram_continuation) = kneser_ney.lower_orders([(Keys(low[starts]), raw, continuation)], 2, 2, keys_format)
-    unigrams = Level.of(1, unigram_keys, unigram_raw, unigram_continuation, np.empty(0, np.uint8), keys_format)
-    split.add(Counts(split.vocabulary_size, (unigrams, second[0])))
-    level = dataclasses.replace(second[0], suffixes=unigrams.local[second[0].suffixes])
+    split.add_unigrams(unigram_keys.low, unigram_raw, unigram_continuation)
+    split.add_levels(second)
+    level = dataclasses.replace(second[0], suffixes=unigram_keys.low[second[0].suffixes])
     return Group(buckets, _save((level,), work / f"group-{buckets[0]:02d}.levels"), tuple(parts))
 
 
