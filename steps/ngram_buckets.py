@@ -1,5 +1,6 @@
 """N-gram buckets: a Kneser–Ney model counted, estimated and scored a few buckets at a time, so
-memory follows the size of a group rather than the corpus.
+memory follows the size of a group (and the counted records of one bucket) rather than the
+corpus.
 
 A k-gram (k >= 2) belongs to bucket (its next-to-last id) mod BUCKETS. Every table the model
 needs above the unigrams then lies within one bucket:
@@ -18,9 +19,9 @@ discounts and scores train (from the counts) and the held-out windows of those b
 Consecutive buckets are taken together in groups of at most GROUP_NGRAMS n-grams of the highest
 order. A bucket that holds more than SPLIT_NGRAMS (the bucket of a frequent context word) is
 split once more, by the id before the next-to-last, into parts of about GROUP_NGRAMS
-(`split_bucket`): only its level 2 spans the parts. Groups and parts depend only on the counts, so a build's figures do not
-depend on how or when its train split was counted; floating sums run group by group and part by
-part.
+(`split_bucket`): only its level 2 spans the parts. Groups and parts depend only on the counts,
+so a build's figures do not depend on how or when its train split was counted; floating sums
+run group by group and part by part.
 Counted n-grams and held-out windows wait in a BucketStore, in memory up to a bound and then
 in files of a work folder, which the caller removes.
 """
@@ -471,7 +472,8 @@ def score(
             if group.parts:  # a split bucket: each part's windows by the id before their next-to-last
                 bigram_keys = levels[0].keys(KeyFormat(vocabulary_size)).low
                 firsts = np.array([part.first for part in group.parts], np.int64)
-                # A window whose id there no train n-gram of the bucket has finds nothing above level 2 in any part.
+                # A window whose id there is below the first part's has no n-gram above level 2 in
+                # any part; the first part scores it.
                 part_of = {name: np.maximum(np.searchsorted(firsts, found[:, order - 3], side="right") - 1, 0) for name, found in windows.items()}
             for number, part in enumerate(group.parts or (None,)):
                 counts = Counts(vocabulary_size, (unigrams, *levels, *(part.load(bigram_keys) if part else ())))
