@@ -91,14 +91,13 @@ class Keys:
         return Keys(np.concatenate([part.low for part in parts]), high)
 
     def order(self, kind: Literal["quicksort", "stable"] = "quicksort") -> np.ndarray:
-        """The permutation that sorts the keys: by the low word, then stably by the high word
-        (a radix sort when the high word holds at most 16 bits)."""
-        order = np.argsort(self.low, kind=kind)
-        if self.high is None or not len(order):
-            return order
-        high = self.high[order]
-        high = high.astype(np.min_scalar_type(int(high.max())))
-        return order[np.argsort(high, kind="stable")]
+        """The permutation that sorts the keys: by the high word, then by the low word. With a
+        high word, one stable lexsort over the high word narrowed to its smallest type: it held
+        a third less beside the keys than a sort by each word in turn, and took less time
+        (bench/README.md); `kind` is then stable whatever is asked."""
+        if self.high is None or not len(self.high):
+            return np.argsort(self.low, kind=kind)
+        return np.lexsort((self.low, self.high.astype(np.min_scalar_type(int(self.high.max())))))
 
     def starts(self) -> np.ndarray:
         """For sorted keys: the index of the first of each run of equal keys."""
