@@ -20,10 +20,11 @@ of uint64 (the queries sorted first, so the searches walk the table in order).
 
 Counting sorts the keys of a bounded batch of tokens, counts equal neighbours, and merges the
 batch tables into the running table once they outgrow it, so memory follows the number of
-distinct n-grams rather than the corpus (steps.ngram_buckets counts a split a bucket of n-grams
-at a time, with these same tables, so that it follows one bucket). Orders below n are derived from the table of order n:
-the (k-1)-grams are the distinct suffixes of the k-grams, their continuation counts the number
-of k-grams sharing the suffix, their raw counts the sum of those k-grams' counts.
+distinct n-grams rather than the corpus (steps.ngram_buckets counts a split a few buckets of
+n-grams at a time, with these same tables, so that it follows a group of buckets). Orders below
+n are derived from the table of order n: the (k-1)-grams are the distinct suffixes of the
+k-grams, their continuation counts the number of k-grams sharing the suffix, their raw counts
+the sum of those k-grams' counts.
 
 Smoothing: interpolated Kneser–Ney (Chen and Goodman 1998, "An Empirical Study of Smoothing
 Techniques for Language Modeling", TR-10-98):
@@ -367,7 +368,8 @@ def lower_orders(
     counts and their continuation counts (None at the counted order), given in a one-element
     list, which is emptied (each table is freed once the level built from it holds what it
     needs); and the keys, raw and continuation counts of order lowest-1 that they imply. Each
-    level's suffixes index those keys of the order below."""
+    level's suffixes index those keys of the order below. With top < lowest no level is built:
+    the keys and raw counts come back as given, the continuation counts empty."""
     keys, raw, continuation = pending.pop()
     levels = []
     runs = np.zeros(0, np.int64)  # the continuation counts of the order below the last level built

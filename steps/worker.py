@@ -135,7 +135,10 @@ def use_process_defaults() -> None:
     os.environ.setdefault("OPENBLAS_NUM_THREADS", "1")
     os.environ.setdefault("ARROW_DEFAULT_MEMORY_POOL", "system")
     if "MALLOC_ARENA_MAX" not in os.environ:
-        mallopt = getattr(ctypes.CDLL(None), "mallopt", None)
+        try:
+            mallopt = getattr(ctypes.CDLL(None), "mallopt", None)
+        except OSError:  # no C library to load here: the job runs with its allocator's defaults
+            mallopt = None
         if mallopt is not None:
             mallopt(_M_ARENA_MAX, 1)
 

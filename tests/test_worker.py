@@ -179,3 +179,16 @@ def test_jobs_allocate_from_one_arena_unless_the_environment_says_otherwise(envi
     probe = subprocess.run([sys.executable, "-c", ARENAS_PROBE], capture_output=True, text=True, env=env, check=True)
     arenas = probe.stderr.count("Arena ")
     assert arenas == 1 if one_arena else arenas > 1, probe.stderr
+
+
+def test_a_job_starts_where_the_c_library_cannot_be_loaded(monkeypatch: pytest.MonkeyPatch):
+    """Without a C library to set the arenas with, the job runs with the allocator's defaults."""
+
+    def no_library(name: object) -> None:
+        raise OSError("no C library here")
+
+    monkeypatch.delenv("MALLOC_ARENA_MAX", raising=False)
+    monkeypatch.setenv("OPENBLAS_NUM_THREADS", "1")
+    monkeypatch.setenv("ARROW_DEFAULT_MEMORY_POOL", "system")
+    monkeypatch.setattr(worker.ctypes, "CDLL", no_library)
+    worker.use_process_defaults()
