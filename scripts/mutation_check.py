@@ -61,7 +61,6 @@ SCOPE = {
         "unescape",
         "Vocabulary.*",
         "read_vocabulary",
-        "_from_columns",
         "_raise_bad_line",
         "write_ids_table",
         "read_ids_table",

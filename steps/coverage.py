@@ -69,14 +69,14 @@ def encoded_figures(stats: Sequence[ShardStats], vocabulary: Vocabulary) -> dict
     return {
         "splits": {split: derived(figures) for split, figures in splits.items()},
         "sources": {source: {split: derived(f) for split, f in per.items()} for source, per in sorted(sources.items())},
-        "unknown_classes": {split: dict(sorted((vocabulary.tokens[int(i)], n) for i, n in figures.by_unknown.items())) for split, figures in splits.items()},
+        "unknown_classes": {split: dict(sorted((vocabulary.token(int(i)), n) for i, n in figures.by_unknown.items())) for split, figures in splits.items()},
     }
 
 
 def word_description(counts: pa.Table, vocabulary: Vocabulary, top: int) -> tuple[dict, dict]:
     """What describes a word cutoff: per split types, OOV types and (dev, test) the most
     frequent OOV words; and the words, the train singletons and the size table."""
-    words = pa.array(vocabulary.tokens[vocabulary.first_word_id :], pa.string())
+    words = vocabulary.token_array.slice(vocabulary.first_word_id)
     known = pc.is_in(counts["token"], value_set=words).to_numpy(zero_copy_only=False)
     per_split = {}
     for split in SPLITS:
@@ -125,8 +125,8 @@ def size_table(counts: pa.Table, sizes: Sequence[int], known: np.ndarray, words:
 
 def piece_description(counts: pa.Table, vocabulary: Vocabulary) -> dict:
     """What describes a piece model: its ids by kind, the ones train never uses, the most frequent pieces."""
-    kinds = np.array(vocabulary.kinds)
-    train = np.array(vocabulary.counts)
+    kinds = vocabulary.kind_array.to_numpy(zero_copy_only=False)
+    train = vocabulary.count_array
     return {
         "piece_ids": int(np.count_nonzero(kinds == "piece")),
         "byte_ids": int(np.count_nonzero(kinds == "byte")),

@@ -348,9 +348,9 @@ def write_vocabulary_copy(build_dir: Path, manifest: dict, target: Path) -> Loca
     table = pa.table(
         [
             pa.array(range(vocabulary.size), pa.int64()),
-            pa.array(vocabulary.tokens, pa.string()),
-            pa.array(vocabulary.counts, pa.int64()),
-            pa.array(vocabulary.kinds, pa.string()),
+            vocabulary.token_array,
+            pa.array(vocabulary.count_array, pa.int64()),
+            vocabulary.kind_array,
         ],
         schema=pa.schema(list(VOCABULARY_COLUMNS.items())),
     )

@@ -123,7 +123,7 @@ class PieceEncoder:
         self.vocabulary = vocabulary
         self._processor = spm.SentencePieceProcessor(model_file=model)
         self._threads = threads
-        self._byte = np.array([kind == "byte" for kind in vocabulary.kinds], dtype=bool)
+        self._byte = pc.equal(vocabulary.kind_array, "byte").to_numpy(zero_copy_only=False)
         self._unk = vocabulary.id(UNK)
 
     def encode(self, rows: pa.Table, split: str, stats: ShardStats) -> pa.ListArray:

@@ -26,7 +26,7 @@ from __future__ import annotations
 
 import hashlib
 import json
-from collections.abc import Callable, Iterable, Iterator, Mapping, Sequence
+from collections.abc import Callable, Iterator, Mapping, Sequence
 from contextlib import contextmanager
 from dataclasses import asdict, dataclass, field
 from functools import cached_property
@@ -106,39 +106,97 @@ def ids_digest(tokens: Sequence[str] | Any, kinds: Sequence[str] | Any) -> str:
     return hasher.hexdigest()
 
 
-@dataclass(frozen=True)
 class Vocabulary:
-    """The ids of a build: `tokens[i]` is the token with id i, with its train count and kind."""
+    """The ids of a build: `tokens[i]` is the token with id i, with its train count and kind.
 
-    tokens: list[str]
-    counts: list[int]
-    kinds: list[str]
+    Made from lists, or by the readers from the Arrow columns they read (`from_columns`); then the
+    Python lists are made only when something asks for them. Every shard job reads the ids and
+    needs only the columns: a Python string and kind per id cost it time that grew with the
+    vocabulary."""
 
-    @property
-    def size(self) -> int:
-        return len(self.tokens)
+    def __init__(self, tokens: list[str], counts: list[int], kinds: list[str]) -> None:
+        self.__dict__.update(tokens=tokens, counts=counts, kinds=kinds)
+
+    @classmethod
+    def from_columns(cls, tokens: pa.StringArray, counts: np.ndarray, kinds: pa.StringArray, digest: str | None = None) -> Vocabulary:
+        """The vocabulary of these columns, in id order (`digest`: its ids digest, when known)."""
+        vocabulary = cls.__new__(cls)
+        vocabulary.__dict__.update(token_array=tokens, count_array=counts, kind_array=kinds)
+        if digest is not None:
+            vocabulary.__dict__["ids_digest"] = digest
+        return vocabulary
+
+    def __eq__(self, other: object) -> bool:
+        if not isinstance(other, Vocabulary):
+            return NotImplemented
+        return (self.tokens, self.counts, self.kinds) == (other.tokens, other.counts, other.kinds)
+
+    __hash__ = None  # type: ignore[assignment]  # equal by lists, which change
+
+    def __repr__(self) -> str:
+        return f"Vocabulary(size={self.size}, units={self.units!r})"
 
     @cached_property
-    def symbol_ids(self) -> np.ndarray:
-        """The ids, ascending, of every symbol that is not a word or piece of the text (reserved,
-        unknown classes, control pieces). `read_vocabulary` and `read_ids_table` hand over the ids
-        they found with Arrow: every shard job reads the ids, so a loop over them in Python grew
-        with the vocabulary."""
-        import numpy as np
+    def tokens(self) -> list[str]:
+        return self.token_array.to_pylist()
 
-        return np.array([i for i, kind in enumerate(self.kinds) if kind in SYMBOL_KINDS], np.int64)
+    @cached_property
+    def counts(self) -> list[int]:
+        return self.count_array.tolist()
+
+    @cached_property
+    def kinds(self) -> list[str]:
+        import pyarrow.compute as pc
+
+        encoded = pc.dictionary_encode(self.kind_array)
+        names = encoded.dictionary.to_pylist()
+        return [names[code] for code in encoded.indices.to_numpy(zero_copy_only=False).tolist()]
 
     @cached_property
     def token_array(self) -> pa.StringArray:
-        """The tokens as an Arrow array, for lookups (the readers hand over the column they read)."""
+        """The tokens as an Arrow array, for lookups."""
         import pyarrow as pa
 
         return pa.array(self.tokens, pa.string())
 
     @cached_property
+    def count_array(self) -> np.ndarray:
+        import numpy as np
+
+        return np.array(self.counts, np.int64)
+
+    @cached_property
+    def kind_array(self) -> pa.StringArray:
+        import pyarrow as pa
+
+        return pa.array(self.kinds, pa.string())
+
+    @property
+    def size(self) -> int:
+        return len(self.__dict__["tokens"]) if "tokens" in self.__dict__ else len(self.token_array)
+
+    def token(self, number: int) -> str:
+        """The token of one id, without making the list of all of them."""
+        return self.__dict__["tokens"][number] if "tokens" in self.__dict__ else self.token_array[number].as_py()
+
+    def kind(self, number: int) -> str:
+        """The kind of one id, without making the list of all of them."""
+        return self.__dict__["kinds"][number] if "kinds" in self.__dict__ else self.kind_array[number].as_py()
+
+    @cached_property
+    def symbol_ids(self) -> np.ndarray:
+        """The ids, ascending, of every symbol that is not a word or piece of the text (reserved,
+        unknown classes, control pieces)."""
+        import numpy as np
+        import pyarrow as pa
+        import pyarrow.compute as pc
+
+        return np.flatnonzero(pc.is_in(self.kind_array, value_set=pa.array(sorted(SYMBOL_KINDS))).to_numpy(zero_copy_only=False))
+
+    @cached_property
     def reserved(self) -> dict[str, int]:
         """Every symbol → its id (`symbol_ids`)."""
-        return {self.tokens[i]: i for i in self.symbol_ids.tolist()}
+        return {self.token(i): i for i in self.symbol_ids.tolist()}
 
     @cached_property
     def first_word_id(self) -> int:
@@ -156,17 +214,25 @@ class Vocabulary:
 
     def unknown_ids(self) -> dict[str, int]:
         """The symbols out-of-vocabulary text maps to: <unk> and the unknown classes."""
-        found = {token: i for token, i in self.reserved.items() if self.kinds[i] == "unknown" or token == UNK}
-        if UNK not in found and UNK in self.tokens:  # <unk> of another kind than a symbol
-            found[UNK] = self.tokens.index(UNK)
+        import pyarrow.compute as pc
+
+        found = {token: i for token, i in self.reserved.items() if self.kind(i) == "unknown" or token == UNK}
+        if UNK not in found:  # <unk> of another kind than a symbol
+            place = pc.index(self.token_array, UNK).as_py()
+            if place >= 0:
+                found[UNK] = place
         return found
 
     @cached_property
     def units(self) -> str:
-        return "word" if frozenset(SUBWORD_KINDS).isdisjoint(self.kinds) else "subword"
+        import pyarrow.compute as pc
 
-    def with_counts(self, counts: Iterable[int]) -> Vocabulary:
-        return Vocabulary(list(self.tokens), [int(c) for c in counts], list(self.kinds))
+        return "word" if frozenset(SUBWORD_KINDS).isdisjoint(pc.unique(self.kind_array).to_pylist()) else "subword"
+
+    def with_counts(self, counts: np.ndarray | Sequence[int]) -> Vocabulary:
+        import numpy as np
+
+        return Vocabulary.from_columns(self.token_array, np.asarray(counts, np.int64), self.kind_array, self.__dict__.get("ids_digest"))
 
     def to_tsv(self) -> str:
         rows = [VOCABULARY_HEADER] + [
@@ -181,7 +247,7 @@ class Vocabulary:
 
     @cached_property
     def ids_digest(self) -> str:
-        return ids_digest(self.tokens, self.kinds)
+        return ids_digest(self.token_array, self.kind_array)
 
 
 def read_vocabulary(path: str | Path) -> Vocabulary:
@@ -221,32 +287,16 @@ def read_vocabulary(path: str | Path) -> Vocabulary:
     strange = np.flatnonzero(~pc.is_in(kind_column, value_set=pa.array(known)).to_numpy(zero_copy_only=False))
     if len(strange):
         raise FormatError(f"{path}: line {strange[0] + 2}: kind {kind_column[int(strange[0])].as_py()!r}; allowed: {', '.join(sorted(known))}")
-    tokens = token_column.to_pylist()
     pieces = np.flatnonzero(pc.is_in(kind_column, value_set=pa.array(SUBWORD_KINDS)).to_numpy(zero_copy_only=False))
-    for number in pieces.tolist():
-        tokens[number] = unescape(tokens[number])
+    if len(pieces):  # piece fields are escaped; word fields are the tokens as they are
+        tokens = token_column.to_pylist()
+        for number in pieces.tolist():
+            tokens[number] = unescape(tokens[number])
+        token_column = pa.array(tokens, pa.string())
     counts = table["count"].to_numpy()
     if len(counts) and counts.min() < 0:
         raise FormatError(f"{path}: line {int(np.argmin(counts)) + 2}: a negative count")
-    # Word fields are the tokens as they are; piece fields were unescaped above.
-    return _from_columns(tokens, pa.array(tokens, pa.string()) if len(pieces) else token_column, counts, kind_column)
-
-
-def _from_columns(tokens: list[str], token_array: pa.StringArray, counts: np.ndarray, kind_column: pa.StringArray, digest: str | None = None) -> Vocabulary:
-    """A Vocabulary whose cached properties are computed from its Arrow columns (`digest`: the
-    ids digest, when known)."""
-    import numpy as np
-    import pyarrow as pa
-    import pyarrow.compute as pc
-
-    encoded = pc.dictionary_encode(kind_column)
-    kinds = np.array(encoded.dictionary.to_pylist(), dtype=object)[encoded.indices.to_numpy(zero_copy_only=False)].tolist()
-    vocabulary = Vocabulary(tokens, counts.tolist(), kinds)
-    vocabulary.__dict__["token_array"] = token_array
-    vocabulary.__dict__["ids_digest"] = digest or ids_digest(token_array, kind_column)
-    vocabulary.__dict__["units"] = "word" if frozenset(SUBWORD_KINDS).isdisjoint(encoded.dictionary.to_pylist()) else "subword"
-    vocabulary.__dict__["symbol_ids"] = np.flatnonzero(pc.is_in(kind_column, value_set=pa.array(sorted(SYMBOL_KINDS))).to_numpy(zero_copy_only=False))
-    return vocabulary
+    return Vocabulary.from_columns(token_column, counts, kind_column)
 
 
 def write_ids_table(path: str | Path, vocabulary: Vocabulary) -> None:
@@ -257,7 +307,7 @@ def write_ids_table(path: str | Path, vocabulary: Vocabulary) -> None:
 
     from .storage import atomic_path
 
-    table = pa.table({"token": vocabulary.token_array, "count": pa.array(vocabulary.counts, pa.int64()), "kind": pa.array(vocabulary.kinds, pa.string())})
+    table = pa.table({"token": vocabulary.token_array, "count": pa.array(vocabulary.count_array, pa.int64()), "kind": vocabulary.kind_array})
     table = table.replace_schema_metadata({METADATA_KEY: json.dumps({"ids_sha256": vocabulary.ids_digest}).encode()})
     with atomic_path(path) as temporary, pa.OSFile(str(temporary), "wb") as sink, pa.ipc.new_file(sink, table.schema) as writer:
         writer.write_table(table)
@@ -270,8 +320,7 @@ def read_ids_table(path: str | Path) -> Vocabulary:
     with pa.OSFile(str(path), "rb") as source:
         table = pa.ipc.open_file(source).read_all()
     about = json.loads(table.schema.metadata[METADATA_KEY])
-    token_column, kind_column = table["token"].combine_chunks(), table["kind"].combine_chunks()
-    return _from_columns(token_column.to_pylist(), token_column, table["count"].to_numpy(), kind_column, about["ids_sha256"])
+    return Vocabulary.from_columns(table["token"].combine_chunks(), table["count"].to_numpy(), table["kind"].combine_chunks(), about["ids_sha256"])
 
 
 def _raise_bad_line(path: str | Path, reason: str) -> None:

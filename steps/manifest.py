@@ -73,7 +73,7 @@ def build_manifest(
         "not_read": {key: corpus[key] for key in ("unselected", "excluded", "refused")},
         "vocabulary": {
             "file": RELATIVE.vocabulary,
-            "sha256": vocabulary.sha256,
+            "sha256": file_sha256(layout.vocabulary),
             "ids_sha256": vocabulary.ids_digest,
             "size": vocabulary.size,
             "words": vocabulary.size - vocabulary.first_word_id,

@@ -133,23 +133,26 @@ def test_what_read_vocabulary_works_out_from_its_columns_is_what_the_rows_say(
 ) -> None:
     """The symbols (kinds reserved, unknown and control), the first id that is not one, the ids
     unknown text maps to and the units, written out by hand for each vocabulary; read_vocabulary
-    computes them from the file's Arrow columns and hands them over, a Vocabulary made from lists
-    computes them itself: both give these. A control piece may stand among the pieces, and an
-    <unk> piece is still where unknown text goes."""
+    and read_ids_table work them out from the file's Arrow columns without making a Python list
+    of every token or kind (what a shard job asks for), a Vocabulary made from lists from its
+    lists: all give these. A control piece may stand among the pieces, and an <unk> piece is
+    still where unknown text goes."""
     path = tmp_path / "vocabulary.tsv"
     path.write_text(Vocabulary(tokens, [0] * len(tokens), kinds).to_tsv(), encoding="utf-8")
     read = read_vocabulary(path)
     write_ids_table(tmp_path / "ids.arrow", read)
     table = read_ids_table(tmp_path / "ids.arrow")
-    for handed in (read, table):
-        assert {"symbol_ids", "token_array", "units", "ids_digest"} <= set(vars(handed))  # handed over while reading
     for vocabulary in (read, table, Vocabulary(tokens, [0] * len(tokens), kinds)):
         assert vocabulary.symbol_ids.tolist() == symbols
         assert vocabulary.reserved == {tokens[i]: i for i in symbols}
         assert vocabulary.first_word_id == first_word
         assert vocabulary.unknown_ids() == unknown
         assert vocabulary.units == units
+        assert vocabulary.size == len(tokens)
         assert vocabulary.token_array.to_pylist() == tokens
+    for columns in (read, table):
+        assert not {"tokens", "counts", "kinds"} & set(vars(columns))
+        assert (columns.tokens, columns.counts, columns.kinds) == (tokens, [0] * len(tokens), kinds)  # made when asked for
 
 
 @pytest.mark.parametrize(
@@ -300,7 +303,7 @@ def test_ids_digest_is_the_sha256_of_the_id_token_kind_lines_and_ignores_counts(
     rows = [line.split(b"\t") for line in path.read_bytes().split(b"\n")[1:-1]]
     expected = hashlib.sha256(b"".join(b"\t".join([row[0], row[1], row[3]]) + b"\n" for row in rows)).hexdigest()
     assert vocabulary.ids_digest == ids_digest(vocabulary.tokens, vocabulary.kinds) == expected
-    assert vars(read_vocabulary(path))["ids_digest"] == expected  # computed while reading, from the file's Arrow columns
+    assert read_vocabulary(path).ids_digest == expected  # from the file's Arrow columns
     assert vocabulary.sha256 == hashlib.sha256(path.read_bytes()).hexdigest()
     assert vocabulary.with_counts([7] * vocabulary.size).ids_digest == expected
     assert vocabulary.with_counts([7] * vocabulary.size).sha256 != vocabulary.sha256
