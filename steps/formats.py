@@ -177,11 +177,11 @@ class Vocabulary:
 
     def token(self, number: int) -> str:
         """The token of one id, without making the list of all of them."""
-        return self.__dict__["tokens"][number] if "tokens" in self.__dict__ else self.token_array[number].as_py()
+        return self.token_array[number].as_py()
 
     def kind(self, number: int) -> str:
         """The kind of one id, without making the list of all of them."""
-        return self.__dict__["kinds"][number] if "kinds" in self.__dict__ else self.kind_array[number].as_py()
+        return self.kind_array[number].as_py()
 
     @cached_property
     def symbol_ids(self) -> np.ndarray:
@@ -232,7 +232,7 @@ class Vocabulary:
     def with_counts(self, counts: np.ndarray | Sequence[int]) -> Vocabulary:
         import numpy as np
 
-        return Vocabulary.from_columns(self.token_array, np.asarray(counts, np.int64), self.kind_array, self.__dict__.get("ids_digest"))
+        return Vocabulary.from_columns(self.token_array, np.asarray(counts), self.kind_array)
 
     def to_tsv(self) -> str:
         rows = [VOCABULARY_HEADER] + [

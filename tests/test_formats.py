@@ -126,6 +126,7 @@ def test_word_tokens_are_written_and_read_verbatim(tmp_path: Path) -> None:
         (["<pad>", "<s>", "</s>", "x", "<unk>"], ["control"] * 3 + ["piece", "piece"], [0, 1, 2], 3, {"<unk>": 4}, "subword"),
         (["<pad>", "<unk>"], ["reserved", "reserved"], [0, 1], 2, {"<unk>": 1}, "word"),
         (["<pad>", "<s>", "</s>", "x"], ["control"] * 3 + ["piece"], [0, 1, 2], 3, {}, "subword"),
+        (["<unk>", "<s>", "</s>", "x"], ["piece", "control", "control", "piece"], [1, 2], 0, {"<unk>": 0}, "subword"),
     ],
 )  # fmt: skip
 def test_what_read_vocabulary_works_out_from_its_columns_is_what_the_rows_say(
