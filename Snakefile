@@ -15,7 +15,7 @@ from snakemake.utils import min_version
 min_version("9.18")
 
 sys.path.insert(0, workflow.basedir)
-from steps import plan, settings
+from steps import plan, settings, worker
 from steps.ingest import CorpusError
 
 configfile: os.path.join(workflow.basedir, "workflow_config", "config.yaml")
@@ -25,6 +25,9 @@ try:
     PLAN = plan.Plan.from_config(CONFIG)
 except (settings.ConfigError, CorpusError) as error:
     sys.exit(f"corpusmill: {error}")
+# A cluster node has limits of its own, which the deduplicate job checks there.
+if workflow.local_exec and (short := worker.too_few_open_files(len(PLAN.chunks), worker.open_files_limit(hard=True))):
+    sys.exit(f"corpusmill: {short}")
 
 L = PLAN.layout
 SUBWORD = CONFIG["units"] == "subword"  # ids from a sentencepiece model rather than a word cutoff
@@ -92,8 +95,6 @@ rule all:
 
 
 onstart:
-    from steps import worker
-
     # Jobs on this machine start with their imports done (steps/worker.py); a cluster's jobs
     # never see the worker and start as plain processes.
     if workflow.local_exec and not os.environ.get("CORPUSMILL_NO_WORKER"):
@@ -103,7 +104,7 @@ onstart:
 onsuccess:
     import threading
 
-    from steps import tidy, worker
+    from steps import tidy
     from steps.summary import format_accounting, format_baseline, format_blocks, format_hygiene, format_table
 
     # Snakemake starts a 1-second rate-limit timer after each scheduling round and Python waits
@@ -135,7 +136,6 @@ onsuccess:
 
 
 onerror:
-    from steps import worker
     from steps.summary import format_failures
 
     worker.stop(WORKER)

@@ -33,7 +33,7 @@ import pyarrow.compute as pc
 import pyarrow.parquet as pq
 
 from . import chunks as chunks_module
-from . import hygiene, job, vocabulary
+from . import hygiene, job, vocabulary, worker
 from .accounting import problems_message
 from .chunks import removed_mask
 from .formats import METADATA_KEY, code_digest, file_sha256
@@ -250,6 +250,8 @@ def write_kept_counts(path: str, counted: dict[str, tuple[str, pa.Table]]) -> No
 def main(argv: list[str] | None = None) -> None:
     run = job.start(argv, RULE, "Find exact duplicate documents across the prepared chunks; refuse repeated ids.")
     layout, chunks = run.layout, run.chunks()
+    if short := worker.too_few_open_files(len(chunks), worker.open_files_limit()):
+        raise SystemExit(f"corpusmill: {short}")
     tallies = [read_json(layout.tally(chunk)) for chunk in chunks]
     message = problems_message(tallies)
     if message:

@@ -25,6 +25,7 @@ import ctypes
 import importlib
 import json
 import os
+import resource
 import select
 import signal
 import socket
@@ -41,6 +42,9 @@ PRELOAD = (
 )  # fmt: skip
 _STREAMS = 3  # stdin, stdout, stderr
 _M_ARENA_MAX = -8  # glibc's mallopt parameter for the number of allocator arenas
+# Files a job may need open beside one per chunk: the interpreter's, Arrow's, the log (a margin
+# with room to spare, common practice rather than a measured figure).
+SPARE_FILES = 64
 _MAX_MESSAGE = 1 << 22
 
 
@@ -131,7 +135,8 @@ def use_process_defaults() -> None:
     a value already in the environment wins: numpy's BLAS on one thread, Arrow on the system
     allocator, and that allocator (glibc's) with one arena for all threads. By default each
     thread of a job gets its own arena, and memory one thread freed is kept in its arena rather
-    than reused by the others, which raised the peaks of the jobs that run threads."""
+    than reused by the others, which raised the peaks of the jobs that run threads. And as many
+    open files as the hard limit allows."""
     os.environ.setdefault("OPENBLAS_NUM_THREADS", "1")
     os.environ.setdefault("ARROW_DEFAULT_MEMORY_POOL", "system")
     if "MALLOC_ARENA_MAX" not in os.environ:
@@ -141,6 +146,36 @@ def use_process_defaults() -> None:
             mallopt = None
         if mallopt is not None:
             mallopt(_M_ARENA_MAX, 1)
+    # The deduplicate job maps every chunk's verification slots at once, and each map keeps its
+    # file open: a corpus of many chunks needs more than the common soft limit of 1,024 files.
+    soft, hard = resource.getrlimit(resource.RLIMIT_NOFILE)
+    if soft != hard:
+        try:
+            resource.setrlimit(resource.RLIMIT_NOFILE, (hard, hard))
+        except (ValueError, OSError):  # a hard limit the kernel will not grant as soft: keep soft
+            pass
+
+
+def open_files_limit(hard: bool = False) -> int:
+    """The files this process may hold open: its soft limit, or with `hard` what a job gets once
+    use_process_defaults raised it (sys.maxsize when unlimited)."""
+    limits = resource.getrlimit(resource.RLIMIT_NOFILE)
+    limit = limits[1] if hard else limits[0]
+    return sys.maxsize if limit == resource.RLIM_INFINITY else limit
+
+
+def too_few_open_files(chunks: int, limit: int) -> str | None:
+    """What the user reads when `limit` open files are too few for the deduplicate job, which
+    holds one per chunk; None when they suffice."""
+    needed = chunks + SPARE_FILES
+    if needed <= limit:
+        return None
+    return (
+        f"{chunks:,} chunks: the deduplicate job holds a file open for each (and up to {SPARE_FILES} more), but a process here "
+        f"may hold {limit:,}; raise the open-files limit to at least {needed:,} (`ulimit -Hn` shows it; it is set in "
+        "/etc/security/limits.conf, or with LimitNOFILE for a service), or use fewer, larger chunks (corpus.chunk_mb, or "
+        "corpus.pack_mb for many small files)"
+    )
 
 
 def serve(name: str, owner: int) -> None:

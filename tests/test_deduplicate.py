@@ -5,16 +5,23 @@ documents and the word counts of those documents."""
 from __future__ import annotations
 
 import json
+import os
 import random
+import resource
+import subprocess
+import sys
 from collections import Counter
+from collections.abc import Callable
 from pathlib import Path
 
 import numpy as np
 import pyarrow as pa
 import pyarrow.parquet as pq
 import pytest
+import yaml
 
-from corpusmill import chunks, deduplicate, prepare
+from conftest import REPO, scenario
+from corpusmill import chunks, deduplicate, prepare, worker
 from corpusmill.chunks import removed_mask
 from corpusmill.deduplicate import CorpusRows, find_duplicates, first_occurrences, removed_counts, repeated_ids, repeated_ids_message
 from corpusmill.split import doc_hash, fingerprint
@@ -347,3 +354,35 @@ def test_located_rows_name_each_document_in_the_order_asked(tmp_path):
     corpus = CorpusRows(paths)
     for asked in (np.arange(0, len(expected), 2), np.array(rng.sample(range(len(expected)), 20)), np.zeros(0, np.int64)):
         assert corpus.locate(asked).to_pylist() == [expected[row] for row in asked]
+
+
+def limited_open_files(limit: int) -> Callable[[], None]:
+    """For subprocess.run(preexec_fn=…): a process that may hold `limit` files open, soft and hard."""
+    return lambda: resource.setrlimit(resource.RLIMIT_NOFILE, (limit, limit))
+
+
+def test_the_job_stops_before_reading_when_it_may_not_hold_a_file_per_chunk(tmp_path, monkeypatch):
+    """On a machine (a cluster node, say) whose hard open-files limit is below one per chunk plus
+    the spare ones, the deduplicate job stops first, naming the limit and what would do; one more
+    file allowed and it goes on to read the chunks (here: none was prepared)."""
+    layout, chunk_keys = planned_build(tmp_path, monkeypatch, {f"f{i}.txt": b"A line of text.\n" * 40 for i in range(3)}, corpus={"pack_mb": 0})
+    needed = len(chunk_keys) + worker.SPARE_FILES
+    command = [sys.executable, "-m", "steps.run", "deduplicate", "--build", layout.root]
+    environment = {**os.environ, "PYTHONPATH": str(REPO)}
+    short = subprocess.run(command, capture_output=True, text=True, env=environment, preexec_fn=limited_open_files(needed - 1))
+    assert short.returncode == 1 and "3 chunks" in short.stderr and f"may hold {needed - 1}" in short.stderr and f"at least {needed}" in short.stderr
+    enough = subprocess.run(command, capture_output=True, text=True, env=environment, preexec_fn=limited_open_files(needed))
+    assert enough.returncode != 0 and "open-files limit" not in enough.stderr and "tally" in enough.stderr
+
+
+def test_the_run_stops_before_any_job_when_a_job_may_not_hold_a_file_per_chunk(tmp_path):
+    """The workflow process checks its own hard limit, which its local jobs inherit, when it
+    plans the chunks: the demo corpus as one chunk per file (7 chunks) with a limit one short."""
+    limit = 7 + worker.SPARE_FILES - 1
+    config = scenario("one-chunk-per-file")
+    (tmp_path / "override.yaml").write_text(yaml.safe_dump(config), encoding="utf-8")
+    command = [sys.executable, "-m", "snakemake", "--snakefile", str(REPO / "Snakefile"), "--directory", str(tmp_path), "--cores", "1"]
+    command += ["--configfile", str(tmp_path / "override.yaml")]
+    result = subprocess.run(command, capture_output=True, text=True, preexec_fn=limited_open_files(limit))
+    assert result.returncode == 1 and "7 chunks" in result.stderr and f"may hold {limit}" in result.stderr
+    assert not (tmp_path / "build" / "logs").exists() and not (tmp_path / "build" / "interim" / "prepared").exists()

@@ -192,3 +192,34 @@ def test_a_job_starts_where_the_c_library_cannot_be_loaded(monkeypatch: pytest.M
     monkeypatch.setenv("ARROW_DEFAULT_MEMORY_POOL", "system")
     monkeypatch.setattr(worker.ctypes, "CDLL", no_library)
     worker.use_process_defaults()
+
+
+OPEN_FILES_PROBE = r"""
+import resource
+from corpusmill import worker
+hard = resource.getrlimit(resource.RLIMIT_NOFILE)[1]
+resource.setrlimit(resource.RLIMIT_NOFILE, (256, hard))
+worker.use_process_defaults()
+print(*resource.getrlimit(resource.RLIMIT_NOFILE), hard)
+"""
+
+
+def test_a_job_may_hold_as_many_files_open_as_the_hard_limit_allows():
+    """A soft limit of 256 open files (the common default is 1,024) is raised to the process's
+    hard limit, as the kernel reports it (getrlimit), before a job runs."""
+    probe = subprocess.run([sys.executable, "-c", OPEN_FILES_PROBE], capture_output=True, text=True, check=True)
+    soft, hard, before = map(int, probe.stdout.split())
+    assert soft == hard == before
+
+
+@pytest.mark.parametrize(("chunks", "limit", "enough"), [(960, 1024, True), (961, 1024, False), (5_000, 1024, False)])
+def test_too_few_open_files_names_the_limit_what_is_needed_and_the_fixes(chunks: int, limit: int, enough: bool):
+    """The deduplicate job holds a file per chunk and SPARE_FILES more: 960 chunks fit 1,024 open
+    files, 961 do not, and the message says how many would."""
+    message = worker.too_few_open_files(chunks, limit)
+    if enough:
+        assert message is None
+        return
+    assert message is not None
+    assert f"{chunks:,} chunks" in message and f"may hold {limit:,}" in message and f"at least {chunks + worker.SPARE_FILES:,}" in message
+    assert "ulimit -Hn" in message and "corpus.chunk_mb" in message
