@@ -81,10 +81,13 @@ class CorpusSignatures:
     def __init__(self, paths: list[tuple[str, str]]) -> None:
         self.paths = paths
         self.orders: list[np.ndarray] = []
+        # Each file's footer, parsed once rather than for every band read from it.
+        self._footers: list[pq.FileMetaData] = []
         splits = []
         self.bands = 0
         for path, _ in paths:
             parquet = pq.ParquetFile(path)
+            self._footers.append(parquet.metadata)
             self.bands = band_count(parquet.schema_arrow)
             table = parquet.read(columns=["source", "offset", "split"], use_threads=False)
             order = pc.sort_indices(table, [("source", "ascending"), ("offset", "ascending")]).to_numpy()
@@ -113,16 +116,19 @@ class CorpusSignatures:
     def chunk_of(self, rows: np.ndarray) -> np.ndarray:
         return np.searchsorted(self.starts, rows, side="right") - 1
 
+    def _file(self, chunk: int) -> pq.ParquetFile:
+        return pq.ParquetFile(self.paths[chunk][0], metadata=self._footers[chunk])
+
     def band(self, name: str) -> np.ndarray:
         """One band column of every document, in corpus order."""
-        columns = [pq.ParquetFile(p).read(columns=[name], use_threads=False).column(0).to_numpy()[o] for (p, _), o in zip(self.paths, self.orders)]
+        columns = [self._file(chunk).read(columns=[name], use_threads=False).column(0).to_numpy()[order] for chunk, order in enumerate(self.orders)]
         return np.concatenate(columns) if columns else np.zeros(0, np.uint64)
 
     def digests(self) -> np.ndarray:
         """Each document's signature digest (steps.near_duplicates.signature_digests)."""
 
         def digests_of(chunk: int) -> np.ndarray:
-            table = pq.ParquetFile(self.paths[chunk][0]).read(columns=band_names(self.bands), use_threads=False)
+            table = self._file(chunk).read(columns=band_names(self.bands), use_threads=False)
             keys = np.stack([column.to_numpy() for column in table.columns], axis=1) if table.num_rows else np.zeros((0, self.bands), np.uint64)
             return nd.signature_digests(keys)[self.orders[chunk]]
 
@@ -157,7 +163,7 @@ class CorpusSignatures:
         a time (a prepare job's batch): (positions in `rows`, hashes, starts), the row at
         positions[i] holding hashes[starts[i]:starts[i + 1]]."""
         local = self.orders[chunk][rows - self.starts[chunk]].astype(np.int64)
-        parquet = pq.ParquetFile(self.paths[chunk][0])
+        parquet = self._file(chunk)
         bounds = np.cumsum([0, *(parquet.metadata.row_group(g).num_rows for g in range(parquet.num_row_groups))])
         group_of = np.searchsorted(bounds, local, side="right") - 1
         for group in np.unique(group_of):
