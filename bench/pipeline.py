@@ -15,7 +15,8 @@ One run measures, on this machine:
   the script's, and the largest job's peak memory over the script's whole process tree;
 - at the largest scale, appending one new file with a frozen vocabulary (the build's own
   vocabulary.tsv): the seconds, as a share of that scale's full build, and whether every shard
-  file of the other chunks kept its bytes.
+  file of the other chunks kept its bytes; then another new file with the baseline turned off,
+  as a share of the full build less its baseline job.
 
 The 10x corpus holds ten copies of every file, made one of two ways (`--copies`):
 - `renamed` (the default): copy k > 0 gives about 30% of the word types (runs of letters,
@@ -307,39 +308,63 @@ def shard_hashes(build: Path) -> dict[str, str]:
     return {entry["file"]: entry["sha256"] for split in json.loads((build / "manifest.json").read_text())["splits"].values() for entry in split["shards"]}
 
 
-def append_run(corpus: Path, directory: Path, overrides: dict, cores: int, full_seconds: float, style: str, copies: int) -> dict:
+def write_appended(corpus: Path, name: str, number: int, style: str, copies: int) -> Path:
+    """A new 2 MB file, one more copy of the corpus's file `number`, made as the corpus's copies
+    are (`renamed`: the next copy's endings; `numbered`: each paragraph after the token
+    `appended`); its name sorts after the others, as new files of a growing corpus usually do."""
+    source = sorted(corpus.glob("*.txt"))[number].read_text(encoding="utf-8")
+    added = corpus / name
+    if style == "renamed":
+        added.write_text(renamed(source, copies), encoding="utf-8")
+    else:
+        added.write_text("\n\n".join(f"appended {paragraph}" for paragraph in _PARAGRAPH_BREAK.split(source)), encoding="utf-8")
+    return added
+
+
+def append_run(corpus: Path, directory: Path, overrides: dict, cores: int, full: dict, style: str, copies: int) -> dict:
     """Freeze the build's vocabulary, build once with it (the ids are the same: no shard job
-    should run), then add one new 2 MB file and rebuild: the seconds, the jobs,
-    and whether the shard files of every other chunk kept their bytes. The new file is one more
-    copy of a file, made as the corpus's copies are (`renamed`: the next copy's endings;
-    `numbered`: each paragraph after the token `appended`)."""
+    should run), then add one new 2 MB file and rebuild: the seconds, the jobs, and whether the
+    shard files of every other chunk kept their bytes. Then the same with the baseline turned
+    off (`baseline.enabled: false`, settled by a run of its own): another new file, against the
+    full build less its baseline job, which ran alone at its end."""
     frozen = directory / "frozen-vocabulary.tsv"
     shutil.copy2(directory / "build" / "vocabulary.tsv", frozen)
     overrides = {**overrides, "vocabulary": {"frozen": str(frozen)}}
     settle = run_build(directory, overrides, cores)
     before = shard_hashes(directory / "build")
-    source = sorted(corpus.glob("*.txt"))[3].read_text(encoding="utf-8")
-    added = corpus / "zz-appended.txt"  # after the others, as new files of a growing corpus usually are
-    if style == "renamed":
-        added.write_text(renamed(source, copies), encoding="utf-8")
-    else:
-        added.write_text("\n\n".join(f"appended {paragraph}" for paragraph in _PARAGRAPH_BREAK.split(source)), encoding="utf-8")
+    added = write_appended(corpus, "zz-appended.txt", 3, style, copies)
     try:
         append = run_build(directory, overrides, cores)
         after = shard_hashes(directory / "build")
     finally:
         added.unlink()
     kept = [name for name, digest in before.items() if after.get(name) == digest]
+    without = {**overrides, "baseline": {"enabled": False}}
+    run_build(directory, without, cores)
+    added = write_appended(corpus, "zz-appended-again.txt", 4, style, copies)
+    try:
+        bare = run_build(directory, without, cores)
+    finally:
+        added.unlink()
+    bare_full = full["seconds"] - full["rules"]["baseline"]["job_seconds"]
     return {
         "first_frozen_build": {"seconds": settle["seconds"], "jobs": settle["jobs"]},
         "seconds": append["seconds"],
         "cpu_seconds": append["cpu_seconds"],
         "jobs": append["jobs"],
-        "share_of_full_build": round(append["seconds"] / full_seconds, 3),
+        "share_of_full_build": round(append["seconds"] / full["seconds"], 3),
         "shard_files_before": len(before),
         "shard_files_kept": len(kept),
         "new_shard_files": len(set(after) - set(before)),
         "rules": append["rules"],
+        "without_baseline": {
+            "seconds": bare["seconds"],
+            "cpu_seconds": bare["cpu_seconds"],
+            "jobs": bare["jobs"],
+            "full_build_less_baseline_seconds": round(bare_full, 2),
+            "share_of_full_build_less_baseline": round(bare["seconds"] / bare_full, 3),
+            "rules": bare["rules"],
+        },
     }
 
 
@@ -384,7 +409,7 @@ def scale_run(scale: int, cores: int, config: dict, append: bool, style: str) ->
             "share_of_full_build": round(idle["seconds"] / seconds, 3),
         }
     if append:
-        result["append"] = append_run(corpus, directory, overrides, cores, seconds, style, scale)
+        result["append"] = append_run(corpus, directory, overrides, cores, result["build"], style, scale)
     return result
 
 
@@ -458,6 +483,11 @@ def print_table(results: dict) -> None:
                 f"append one file at {scale} with a frozen vocabulary: {a['seconds']:.1f} s = {a['share_of_full_build']:.1%} of the full build "
                 f"({a['jobs']} jobs); shard files kept byte for byte: {a['shard_files_kept']} of {a['shard_files_before']}, "
                 f"{a['new_shard_files']} new (first frozen build: {a['first_frozen_build']['seconds']:.1f} s, {a['first_frozen_build']['jobs']} jobs)"
+            )
+            bare = a["without_baseline"]
+            print(
+                f"  the same with baseline.enabled: false: {bare['seconds']:.1f} s = {bare['share_of_full_build_less_baseline']:.1%} of the full build "
+                f"less its baseline job ({bare['full_build_less_baseline_seconds']:.1f} s), {bare['jobs']} jobs"
             )
     if one and "rebuild" in one:
         r = one["rebuild"]

@@ -48,7 +48,7 @@ SHAPE_CLASSES = (
 
 COUNTS_SCHEMA = pa.schema([("split", pa.string()), ("token", pa.string()), ("count", pa.int64())])
 # Chunk count tables merged per step of the running sum (bounds the vocabulary job's memory).
-MERGE_FILES = 16
+MERGE_FILES = 32
 
 
 def unknown_class(token: str) -> str:
