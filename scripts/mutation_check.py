@@ -59,6 +59,10 @@ SCOPE = {
     "formats": [
         "escape",
         "unescape",
+        "_shown",
+        "_lines",
+        "_id_column",
+        "ids_digest",
         "Vocabulary.*",
         "read_vocabulary",
         "_raise_bad_line",

@@ -79,31 +79,48 @@ def unescape(text: str) -> str:
     return "".join(out)
 
 
-def ids_digest(tokens: Sequence[str] | Any, kinds: Sequence[str] | Any) -> str:
-    """SHA-256 of the ids: one `id<TAB>token<TAB>kind` line per id, tokens as vocabulary.tsv writes them.
-
-    The lines are joined by Arrow, not hashed one by one in Python (every shard job reads the
-    ids, so that cost grew with the vocabulary in every job); `tokens` and `kinds` may be Arrow
-    arrays already."""
+def _shown(tokens: pa.StringArray, kinds: pa.StringArray) -> pa.StringArray:
+    """The tokens as vocabulary.tsv writes them: the fields of subword kinds escaped."""
     import numpy as np
     import pyarrow as pa
     import pyarrow.compute as pc
 
-    tokens, kinds = (values if isinstance(values, pa.Array) else pa.array(list(values), pa.string()) for values in (tokens, kinds))
-    hasher = hashlib.sha256()
-    if not len(tokens):
-        return hasher.hexdigest()
     pieces = np.flatnonzero(pc.is_in(kinds, value_set=pa.array(SUBWORD_KINDS)).to_numpy(zero_copy_only=False))
-    if len(pieces):
-        shown = tokens.to_pylist()
-        for number in pieces.tolist():
-            shown[number] = escape(shown[number])
-        tokens = pa.array(shown, pa.string())
-    lines = pc.binary_join_element_wise(pa.array(np.arange(len(tokens))).cast(pa.string()), tokens, kinds, "\t")
+    if not len(pieces):
+        return tokens
+    shown = tokens.to_pylist()
+    for number in pieces.tolist():
+        shown[number] = escape(shown[number])
+    return pa.array(shown, pa.string())
+
+
+def _lines(columns: Sequence[pa.Array]) -> bytes:
+    """The rows of these string columns as tab-separated lines, each ended by a line feed; joined
+    by Arrow rather than one Python string a row (the cost grew with the vocabulary)."""
+    import pyarrow as pa
+    import pyarrow.compute as pc
+
+    if not len(columns[0]):
+        return b""
+    lines = pc.binary_join_element_wise(*columns, "\t")
     joined = pc.binary_join(pa.ListArray.from_arrays(pa.array([0, len(lines)], pa.int32()), lines), "\n")
-    hasher.update(joined[0].as_buffer())
-    hasher.update(b"\n")
-    return hasher.hexdigest()
+    return joined[0].as_buffer().to_pybytes() + b"\n"
+
+
+def _id_column(size: int) -> pa.StringArray:
+    import numpy as np
+    import pyarrow as pa
+
+    return pa.array(np.arange(size)).cast(pa.string())
+
+
+def ids_digest(tokens: Sequence[str] | Any, kinds: Sequence[str] | Any) -> str:
+    """SHA-256 of the ids: one `id<TAB>token<TAB>kind` line per id, tokens as vocabulary.tsv
+    writes them; `tokens` and `kinds` may be Arrow arrays already."""
+    import pyarrow as pa
+
+    tokens, kinds = (values if isinstance(values, pa.Array) else pa.array(list(values), pa.string()) for values in (tokens, kinds))
+    return hashlib.sha256(_lines([_id_column(len(tokens)), _shown(tokens, kinds), kinds])).hexdigest()
 
 
 class Vocabulary:
@@ -235,10 +252,11 @@ class Vocabulary:
         return Vocabulary.from_columns(self.token_array, np.asarray(counts), self.kind_array)
 
     def to_tsv(self) -> str:
-        rows = [VOCABULARY_HEADER] + [
-            f"{i}\t{escape(t) if k in SUBWORD_KINDS else t}\t{c}\t{k}" for i, (t, c, k) in enumerate(zip(self.tokens, self.counts, self.kinds))
-        ]
-        return "\n".join(rows) + "\n"
+        """The text of the vocabulary.tsv this vocabulary is written as."""
+        import pyarrow as pa
+
+        columns = [_id_column(self.size), _shown(self.token_array, self.kind_array), pa.array(self.count_array, pa.int64()).cast(pa.string()), self.kind_array]
+        return VOCABULARY_HEADER + "\n" + _lines(columns).decode("utf-8")
 
     @cached_property
     def sha256(self) -> str:

@@ -99,10 +99,15 @@ def test_pieces_holding_tabs_line_breaks_and_backslashes_read_back_as_written(tm
     rows = [line.split(b"\t") for line in lines[1:-1]]
     assert [len(row) for row in rows] == [4] * vocabulary.size
     assert [row[1].decode() for row in rows] == [reference_escape(t) for t in vocabulary.tokens]
+    assert [(int(row[0]), int(row[2]), row[3].decode()) for row in rows] == list(zip(range(vocabulary.size), vocabulary.counts, vocabulary.kinds))
     assert rows[5][1] == b"a\\tb" and rows[9][1] == b"a\\\\tb"
     again = read_vocabulary(path)
     assert again == vocabulary
     assert again.tokens[5] == "a\tb" and again.tokens[9] == "a\\tb"
+
+
+def test_a_vocabulary_without_ids_is_its_header_line() -> None:
+    assert Vocabulary([], [], []).to_tsv() == VOCABULARY_HEADER + "\n"
 
 
 def test_word_tokens_are_written_and_read_verbatim(tmp_path: Path) -> None:
