@@ -62,7 +62,6 @@ SCOPE = {
         "_shown",
         "_lines",
         "_id_column",
-        "ids_digest",
         "Vocabulary.*",
         "read_vocabulary",
         "_raise_bad_line",

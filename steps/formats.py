@@ -114,15 +114,6 @@ def _id_column(size: int) -> pa.StringArray:
     return pa.array(np.arange(size)).cast(pa.string())
 
 
-def ids_digest(tokens: Sequence[str] | Any, kinds: Sequence[str] | Any) -> str:
-    """SHA-256 of the ids: one `id<TAB>token<TAB>kind` line per id, tokens as vocabulary.tsv
-    writes them; `tokens` and `kinds` may be Arrow arrays already."""
-    import pyarrow as pa
-
-    tokens, kinds = (values if isinstance(values, pa.Array) else pa.array(list(values), pa.string()) for values in (tokens, kinds))
-    return hashlib.sha256(_lines([_id_column(len(tokens)), _shown(tokens, kinds), kinds])).hexdigest()
-
-
 class Vocabulary:
     """The ids of a build: `tokens[i]` is the token with id i, with its train count and kind.
 
@@ -265,7 +256,9 @@ class Vocabulary:
 
     @cached_property
     def ids_digest(self) -> str:
-        return ids_digest(self.token_array, self.kind_array)
+        """SHA-256 of the ids: one `id<TAB>token<TAB>kind` line per id, tokens as vocabulary.tsv
+        writes them."""
+        return hashlib.sha256(_lines([_id_column(self.size), _shown(self.token_array, self.kind_array), self.kind_array])).hexdigest()
 
 
 def read_vocabulary(path: str | Path) -> Vocabulary:

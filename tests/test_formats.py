@@ -40,7 +40,6 @@ from corpusmill.formats import (
     escape,
     file_sha256,
     id_type_name,
-    ids_digest,
     read_ids_table,
     read_ngram_totals,
     read_shard_stats,
@@ -308,14 +307,14 @@ def test_ids_digest_is_the_sha256_of_the_id_token_kind_lines_and_ignores_counts(
     path.write_text(vocabulary.to_tsv(), encoding="utf-8")
     rows = [line.split(b"\t") for line in path.read_bytes().split(b"\n")[1:-1]]
     expected = hashlib.sha256(b"".join(b"\t".join([row[0], row[1], row[3]]) + b"\n" for row in rows)).hexdigest()
-    assert vocabulary.ids_digest == ids_digest(vocabulary.tokens, vocabulary.kinds) == expected
+    assert vocabulary.ids_digest == expected
     assert read_vocabulary(path).ids_digest == expected  # from the file's Arrow columns
     assert vocabulary.sha256 == hashlib.sha256(path.read_bytes()).hexdigest()
     assert vocabulary.with_counts([7] * vocabulary.size).ids_digest == expected
     assert vocabulary.with_counts([7] * vocabulary.size).sha256 != vocabulary.sha256
     swapped = vocabulary.tokens[:5] + [vocabulary.tokens[6], vocabulary.tokens[5]] + vocabulary.tokens[7:]
-    assert ids_digest(swapped, vocabulary.kinds) != expected
-    assert ids_digest(vocabulary.tokens, vocabulary.kinds[:-1] + ["byte"]) != expected
+    assert Vocabulary(swapped, vocabulary.counts, vocabulary.kinds).ids_digest != expected
+    assert Vocabulary(vocabulary.tokens, vocabulary.counts, vocabulary.kinds[:-1] + ["byte"]).ids_digest != expected
 
 
 def test_a_builds_manifest_shards_and_ids_file_name_the_ids_of_its_vocabulary(demo_build: Path) -> None:
