@@ -101,18 +101,21 @@ onstart:
         WORKER.extend(worker.start(L.root))
 
 
-onsuccess:
+def end_rate_timers():
+    """Snakemake arms a rate-limit timer after each scheduling round (profiles/default) and Python
+    waits for the last one at exit; the run is over, so end them now."""
     import threading
 
-    from steps import tidy
-    from steps.summary import format_accounting, format_baseline, format_blocks, format_hygiene, format_table
-
-    # Snakemake starts a 1-second rate-limit timer after each scheduling round and Python waits
-    # for it at exit; the run is over, so end it now (0.8-1 s sooner, measured).
     for thread in threading.enumerate():
         if isinstance(thread, threading.Timer):
             thread.cancel()
 
+
+onsuccess:
+    from steps import tidy
+    from steps.summary import format_accounting, format_baseline, format_blocks, format_hygiene, format_table
+
+    end_rate_timers()
     worker.stop(WORKER)
     jobs = list(workflow.dag.jobs)
     if any(job.rule.name == "all" for job in jobs):
@@ -138,6 +141,7 @@ onsuccess:
 onerror:
     from steps.summary import format_failures
 
+    end_rate_timers()
     worker.stop(WORKER)
     # After Snakemake's account of the failed jobs: each one's own message, so it is the last thing read.
     if os.path.exists(L.failed_jobs):
