@@ -262,11 +262,23 @@ def test_blocks_that_hold_little_of_train_are_flagged_in_the_summary_and_the_rep
 
 def test_every_run_reads_the_workflow_profile_that_picks_the_greedy_scheduler(tmp_path: Path):
     """Snakemake says which workflow profile it read (a dry run); the profile names the greedy
-    scheduler and turns input checksums off."""
+    scheduler, turns input checksums off, has a scheduling round look at 16 ready jobs and
+    counts the rate limit over 10 seconds."""
     result = run_workflow(tmp_path / "run", scenario("demo"), "--dry-run")
     assert re.search(r"workflow specific profile \S*profiles/default ", result.stdout + result.stderr)
     profile = yaml.safe_load((REPO / "profiles" / "default" / "config.yaml").read_text(encoding="utf-8"))
-    assert profile == {"scheduler": "greedy", "max-checksum-file-size": 0}
+    assert profile == {"scheduler": "greedy", "max-checksum-file-size": 0, "scheduler-subsample": 16, "max-jobs-per-timespan": "1000/10s"}
+
+
+def test_a_scheduling_round_looks_at_sixteen_of_the_ready_jobs(tmp_path: Path):
+    """Snakemake's own debug log (--verbose) of its rounds: with 20 prepare jobs ready at once (20
+    small files, one chunk each), a round looks at 16 of them."""
+    root = tmp_path / "raw"
+    root.mkdir()
+    for number in range(20):
+        (root / f"note-{number:02d}.txt").write_text(f"Note {number} says the lamp is lit.\n", encoding="utf-8")
+    result = run_workflow(tmp_path / "run", {"corpus": {"root": str(root), "pack_mb": 0}}, "--until", "prepare", "--verbose", cores=1)
+    assert "Ready subsampled jobs: 16 (out of 20)" in result.stdout + result.stderr
 
 
 def test_a_build_records_no_input_checksums_in_snakemakes_metadata(demo_build: Path):
