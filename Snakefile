@@ -25,7 +25,8 @@ try:
     PLAN = plan.Plan.from_config(CONFIG)
 except (settings.ConfigError, CorpusError) as error:
     sys.exit(f"corpusmill: {error}")
-# A cluster node has limits of its own, which the deduplicate job checks there.
+# Local jobs get this process's hard open-files limit (steps/worker.py); a cluster node has limits
+# of its own, which the deduplicate job checks there.
 if workflow.local_exec and (short := worker.too_few_open_files(len(PLAN.chunks), worker.open_files_limit(hard=True))):
     sys.exit(f"corpusmill: {short}")
 

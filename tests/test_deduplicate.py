@@ -367,7 +367,7 @@ def limited_open_files(limit: int) -> Callable[[], None]:
 
 def test_the_job_stops_before_reading_when_it_may_not_hold_a_file_per_chunk(tmp_path, monkeypatch):
     """On a machine (a cluster node, say) whose hard open-files limit is below one per chunk plus
-    the spare ones, the deduplicate job stops first, naming the limit and what would do; one more
+    the spare ones, the deduplicate job stops first, naming the limit and how many files would do; one more
     file allowed and it goes on to read the chunks (here: none was prepared)."""
     layout, chunk_keys = planned_build(tmp_path, monkeypatch, {f"f{i}.txt": b"A line of text.\n" * 40 for i in range(3)}, corpus={"pack_mb": 0})
     needed = len(chunk_keys) + worker.SPARE_FILES

@@ -106,6 +106,7 @@ def test_pieces_holding_tabs_line_breaks_and_backslashes_read_back_as_written(tm
 
 
 def test_a_vocabulary_without_ids_is_its_header_line() -> None:
+    """No id, no line but the header (the lines are joined only when there are some)."""
     assert Vocabulary([], [], []).to_tsv() == VOCABULARY_HEADER + "\n"
 
 
