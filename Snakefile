@@ -25,10 +25,6 @@ try:
     PLAN = plan.Plan.from_config(CONFIG)
 except (settings.ConfigError, CorpusError) as error:
     sys.exit(f"corpusmill: {error}")
-# Local jobs get this process's hard open-files limit (steps/worker.py); a cluster node has limits
-# of its own, which the deduplicate job checks there.
-if workflow.local_exec and (short := worker.too_few_open_files(len(PLAN.chunks), worker.open_files_limit(hard=True))):
-    sys.exit(f"corpusmill: {short}")
 
 L = PLAN.layout
 SUBWORD = CONFIG["units"] == "subword"  # ids from a sentencepiece model rather than a word cutoff
@@ -96,6 +92,11 @@ rule all:
 
 
 onstart:
+    # Local jobs get this process's hard open-files limit (steps/worker.py); a cluster node has
+    # limits of its own, which the deduplicate job checks there. Which executor runs the jobs is
+    # known from here on, not while the Snakefile is read.
+    if workflow.local_exec and (short := worker.too_few_open_files(len(PLAN.chunks), worker.open_files_limit(hard=True))):
+        raise WorkflowError(f"corpusmill: {short}")
     # Jobs on this machine start with their imports done (steps/worker.py); a cluster's jobs
     # never see the worker and start as plain processes.
     if workflow.local_exec and not os.environ.get("CORPUSMILL_NO_WORKER"):

@@ -15,6 +15,7 @@ from __future__ import annotations
 import hashlib
 import importlib.util
 import os
+import resource
 import shutil
 import subprocess
 import sys
@@ -27,6 +28,7 @@ import pytest
 import yaml
 
 from conftest import scenario
+from corpusmill import worker
 
 REPO = Path(__file__).resolve().parents[1]
 CLUSTER = REPO / "cluster"
@@ -134,8 +136,10 @@ class Builds:
     slurm: Path
 
 
-def _run(command: list[str], env: dict[str, str], timeout: float, what: str) -> None:
-    done = subprocess.run(command, capture_output=True, text=True, env=env, timeout=timeout)
+def _run(command: list[str], env: dict[str, str], timeout: float, what: str, files: int | None = None) -> None:
+    """Run to the end; `files`: the open-files limit (soft and hard) of the command's process."""
+    limit = None if files is None else (lambda: resource.setrlimit(resource.RLIMIT_NOFILE, (files, files)))
+    done = subprocess.run(command, capture_output=True, text=True, env=env, timeout=timeout, preexec_fn=limit)
     assert done.returncode == 0, f"{what} failed ({done.returncode}):\n{_tail(done.stdout)}\n{_tail(done.stderr)}"
 
 
@@ -178,7 +182,9 @@ def builds(slurm_env, tmp_path_factory) -> Builds:
         "--slurm-keep-successful-logs",
     ]
     started = time.monotonic()
-    _run(command, slurm_env, SLURM_RUN_S + KILL_AFTER_S + 30, "SLURM build")
+    # The submitting process may hold fewer files than a local deduplicate job of these chunks
+    # would need: the nodes' own limits are what count, and the job checks them there.
+    _run(command, slurm_env, SLURM_RUN_S + KILL_AFTER_S + 30, "SLURM build", files=len(CORPUS) + worker.SPARE_FILES - 1)
     print(f"SLURM build took {time.monotonic() - started:.0f} s")
     return Builds(local=local, slurm=slurm)
 
@@ -192,17 +198,32 @@ def test_every_job_ran_as_a_slurm_job(builds, slurm_env):
     assert jobs_per_rule, "the SLURM build wrote no job log"
     assert {rule: len(logs) for rule, logs in slurm_logs.items()} == dict(jobs_per_rule)
 
+    states = {job_id: state for job_id, (state, _) in _queue(slurm_env).items()}
+    job_ids = [log.stem for logs in slurm_logs.values() for log in logs]
+    assert {job_id: states.get(job_id) for job_id in job_ids} == dict.fromkeys(job_ids, "COMPLETED")
+
+
+def _queue(slurm_env: dict[str, str]) -> dict[str, tuple[str, int]]:
+    """Every job SLURM knows (squeue): its state and the CPUs it was given."""
     queue = subprocess.run(
-        ["squeue", "--states=all", "--noheader", "--format=%i|%T"],
+        ["squeue", "--states=all", "--noheader", "--format=%i|%T|%C"],
         capture_output=True,
         text=True,
         env=slurm_env,
         timeout=30,
         check=True,
     ).stdout
-    states = dict(line.split("|", 1) for line in queue.split())
-    job_ids = [log.stem for logs in slurm_logs.values() for log in logs]
-    assert {job_id: states.get(job_id) for job_id in job_ids} == dict.fromkeys(job_ids, "COMPLETED")
+    return {job_id: (state, int(cpus)) for job_id, state, cpus in (line.split("|") for line in queue.split())}
+
+
+def test_the_jobs_that_run_two_threads_ask_slurm_for_two_cpus(builds, slurm_env):
+    """On a cluster the baseline reserves the two cores its threads use (on one machine it
+    reserves one, so that it starts beside a one-core job); so does the deduplicate job."""
+    queue = _queue(slurm_env)
+    folders = (builds.slurm / ".snakemake" / "slurm_logs").glob("rule_*")
+    cpus = {folder.name.removeprefix("rule_"): {queue[log.stem][1] for log in folder.glob("**/*.log")} for folder in folders}
+    assert cpus["baseline"] == cpus["deduplicate"] == {2}
+    assert cpus["prepare"] == cpus["shards"] == {1}
 
 
 def _digests(build: Path) -> dict[str, str]:

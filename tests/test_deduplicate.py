@@ -380,8 +380,8 @@ def test_the_job_stops_before_reading_when_it_may_not_hold_a_file_per_chunk(tmp_
 
 
 def test_the_run_stops_before_any_job_when_a_job_may_not_hold_a_file_per_chunk(tmp_path):
-    """The workflow process checks its own hard limit, which its local jobs inherit, when it
-    plans the chunks: the demo corpus as one chunk per file (7 chunks) with a limit one short."""
+    """The workflow process checks its own hard limit, which its local jobs inherit, before its
+    first job: the demo corpus as one chunk per file (7 chunks) with a limit one short."""
     limit = 7 + worker.SPARE_FILES - 1
     config = scenario("one-chunk-per-file")
     (tmp_path / "override.yaml").write_text(yaml.safe_dump(config), encoding="utf-8")

@@ -281,6 +281,23 @@ def test_a_scheduling_round_looks_at_sixteen_of_the_ready_jobs(tmp_path: Path):
     assert "Ready subsampled jobs: 16 (out of 20)" in result.stdout + result.stderr
 
 
+def job_plans(text: str) -> dict[str, str]:
+    """Each rule's job as Snakemake's dry run shows it (its lines up to the next job), by rule."""
+    found = re.finditer(r"^(?:local)?(?:rule|checkpoint) (\w+):\n((?:    .*\n)+)", text, re.M)
+    return {match[1]: match[2] for match in found}
+
+
+def test_the_baseline_reserves_one_core_on_this_machine_and_starts_first(tmp_path: Path):
+    """A dry run lists each job's priority and its threads when more than one: the baseline, the
+    longest job after the shards, is preferred and reserves one core, so that it starts beside
+    a one-core job instead of waiting for two free cores; the deduplicate job reserves its two."""
+    result = run_workflow(tmp_path / "run", scenario("demo"), "--dry-run")
+    jobs = job_plans(result.stdout + result.stderr)
+    assert "    priority: 1\n" in jobs["baseline"]
+    assert "threads:" not in jobs["baseline"]
+    assert "    threads: 2\n" in jobs["deduplicate"]
+
+
 def test_a_build_records_no_input_checksums_in_snakemakes_metadata(demo_build: Path):
     """Snakemake's own record of each finished job (.snakemake/metadata, JSON) holds no input
     checksums: the profile spares the files' hashing at every job's end."""
