@@ -6,6 +6,7 @@
 # Each rule runs one step of steps/ (`python -m steps.run MODULE [ENTRY] --build DIR`), which
 # finds its files through steps/layout.py and its options in the rule's options file.
 
+import atexit
 import hashlib
 import shlex
 import sys
@@ -17,6 +18,13 @@ min_version("9.18")
 sys.path.insert(0, workflow.basedir)
 from steps import plan, settings, worker
 from steps.ingest import CorpusError
+
+# The worker (steps/worker.py) starts importing now, while Snakemake reads the rest of the
+# workflow and plans the jobs; `onstart` waits for it, or ends it when the jobs run elsewhere.
+# Whatever ends this process ends it too.
+LAUNCHED = worker.launch() if workflow.is_main_process and not os.environ.get("CORPUSMILL_NO_WORKER") else None
+if LAUNCHED:
+    atexit.register(worker.stop, [LAUNCHED.process])
 
 configfile: os.path.join(workflow.basedir, "workflow_config", "config.yaml")
 
@@ -97,10 +105,12 @@ onstart:
     # known from here on, not while the Snakefile is read.
     if workflow.local_exec and (short := worker.too_few_open_files(len(PLAN.chunks), worker.open_files_limit(hard=True))):
         raise WorkflowError(f"corpusmill: {short}")
-    # Jobs on this machine start with their imports done (steps/worker.py); a cluster's jobs
-    # never see the worker and start as plain processes.
-    if workflow.local_exec and not os.environ.get("CORPUSMILL_NO_WORKER"):
-        WORKER.extend(worker.start(L.root))
+    # Jobs on this machine start with their imports done; a cluster's jobs never see the worker
+    # and start as plain processes.
+    if LAUNCHED and workflow.local_exec:
+        WORKER.extend(worker.ready(LAUNCHED))
+    elif LAUNCHED:
+        worker.stop([LAUNCHED.process])
 
 
 def end_rate_timers():

@@ -32,7 +32,10 @@ import socket
 import struct
 import sys
 import traceback
-from typing import IO, cast
+from typing import IO, TYPE_CHECKING, NamedTuple, cast
+
+if TYPE_CHECKING:
+    import subprocess
 
 ENV = "CORPUSMILL_WORKER"
 # The step modules every rule runs, imported once by the worker.
@@ -250,26 +253,38 @@ def run_through_worker(argv: list[str]) -> int | None:
     return int(json.loads(reply.decode("utf-8"))["status"])
 
 
-def start(build: str) -> list:
-    """Start the worker for a run building `build` and point this process's environment (which
-    its jobs inherit) at it; [the process], or [] when it does not come up."""
-    import hashlib
+class Launched(NamedTuple):
+    """A worker started for this run, not yet known to be ready."""
+
+    process: subprocess.Popen
+    name: str
+
+
+def launch() -> Launched:
+    """Start the worker for this run. It imports while the caller goes on (Snakemake reading the
+    workflow and planning the jobs); `ready` then waits for it. (subprocess is imported here: every
+    job's client imports this module.)"""
     import subprocess
 
-    name = f"corpusmill-{os.getpid()}-{hashlib.sha256(os.path.abspath(build).encode()).hexdigest()[:12]}"
+    name = f"corpusmill-{os.getpid()}-{os.urandom(6).hex()}"
     package = os.path.dirname(os.path.dirname(os.path.abspath(__file__)))
     environment = {**os.environ, "PYTHONPATH": os.pathsep.join(filter(None, [package, os.environ.get("PYTHONPATH")]))}
     process = subprocess.Popen(
         [sys.executable, "-m", f"{__package__}.worker", name, str(os.getpid())],
         stdout=subprocess.PIPE, env=environment, start_new_session=True,
     )  # fmt: skip
-    announcements = cast(IO[bytes], process.stdout)  # a pipe: stdout=PIPE
-    ready = select.select([announcements], [], [], 30)[0] and announcements.readline().strip() == b"ready"
-    if not ready:
-        process.kill()
+    return Launched(process, name)
+
+
+def ready(launched: Launched) -> list:
+    """Wait for a launched worker and point this process's environment (which its jobs inherit)
+    at it; [the process], or [] when it does not come up (the jobs then start as plain processes)."""
+    announcements = cast(IO[bytes], launched.process.stdout)  # a pipe: stdout=PIPE
+    if not (select.select([announcements], [], [], 30)[0] and announcements.readline().strip() == b"ready"):
+        stop([launched.process])
         return []
-    os.environ[ENV] = name
-    return [process]
+    os.environ[ENV] = launched.name
+    return [launched.process]
 
 
 def stop(processes: list) -> None:

@@ -10,6 +10,7 @@ from __future__ import annotations
 
 import faulthandler
 import os
+import select
 import signal
 import subprocess
 import sys
@@ -18,7 +19,9 @@ import types
 from pathlib import Path
 
 import pytest
+import yaml
 
+from conftest import REPO, scenario
 from corpusmill import near_duplicates, worker
 
 
@@ -130,6 +133,43 @@ def test_a_cancelled_client_stops_its_job(running_worker, tmp_path: Path):
         time.sleep(0.02)
     else:
         pytest.fail(f"job {job} still runs after its client was killed")
+
+
+def test_a_launched_worker_imports_while_its_caller_goes_on_then_runs_jobs(monkeypatch: pytest.MonkeyPatch, tmp_path: Path):
+    """launch returns at once (the worker still importing, so Snakemake plans the jobs meanwhile);
+    ready waits for it and points the environment at it; stop ends it and the pointer."""
+    monkeypatch.delenv(worker.ENV, raising=False)
+    launched = worker.launch()
+    try:
+        assert not select.select([launched.process.stdout], [], [], 0)[0], "launch waited for the worker"
+        assert worker.ENV not in os.environ
+        assert worker.ready(launched) == [launched.process]
+        assert os.environ[worker.ENV] == launched.name
+        status, out, _ = run(["deduplicate", "--help"], tmp_path)
+        assert status == 0 and out.startswith("usage:")
+    finally:
+        worker.stop([launched.process])
+    assert launched.process.poll() is not None and worker.ENV not in os.environ
+
+
+def test_a_run_that_starts_no_job_leaves_no_worker(tmp_path: Path):
+    """The Snakefile launches the worker as it is read; a dry run never waits for it, and the
+    worker ends with the run, not a poll later."""
+    directory = tmp_path / "run"
+    directory.mkdir()
+    (directory / "override.yaml").write_text(yaml.safe_dump(scenario("demo")), encoding="utf-8")
+    command = [sys.executable, "-m", "snakemake", "--snakefile", str(REPO / "Snakefile"), "--directory", str(directory), "--cores", "1"]
+    run_ = subprocess.Popen([*command, "--configfile", str(directory / "override.yaml"), "--dry-run"], stdout=subprocess.DEVNULL, stderr=subprocess.DEVNULL)
+    assert run_.wait(timeout=120) == 0
+    owned = []
+    for entry in Path("/proc").iterdir():
+        try:
+            arguments = (entry / "cmdline").read_bytes().split(b"\0")
+        except OSError:
+            continue
+        if any(argument.endswith(b".worker") for argument in arguments) and str(run_.pid).encode() in arguments:
+            owned.append(entry.name)
+    assert not owned, f"worker processes of the finished run: {owned}"
 
 
 def test_without_a_worker_a_job_runs_itself(monkeypatch: pytest.MonkeyPatch):
