@@ -2,20 +2,22 @@
 
 Every job of the workflow is `python -m steps.run MODULE …`, and a fresh interpreter spends a
 good part of a CPU-second importing numpy, Arrow, regex and the step modules before any work,
-more than many jobs then do (bench/README.md). For a run on this machine the Snakefile starts this worker
-once (`onstart`); it imports every step module, then listens on an abstract Unix socket whose
-name the jobs find in the environment (CORPUSMILL_WORKER). `steps.run` connects, hands over
-its command line, working folder, environment and its standard streams (file descriptors
-passed over the socket, so the job writes to its own log), and waits. For each job the worker
-forks a supervisor, which forks the job (copy-on-write: the imports are already in memory),
-waits for it and sends its exit status back; `steps.run` then ends the same way the job did
-(the same exit code, or killed by the same signal). When the job's `steps.run` goes away
-(Snakemake cancels the job), the supervisor kills the job.
+more than many jobs then do (bench/README.md). The Snakefile starts this worker as it is read
+(`launch`), so its imports overlap Snakemake's planning, and a run on this machine waits for it
+before the first job (`ready`, in `onstart`); it imports every step module, then listens on an
+abstract Unix socket whose name the jobs find in the environment (CORPUSMILL_WORKER).
+`steps.run` connects, hands over its command line, working folder, environment and its
+standard streams (file descriptors passed over the socket, so the job writes to its own log),
+and waits. For each job the worker forks a supervisor, which forks the job (copy-on-write: the
+imports are already in memory), waits for it and sends its exit status back; `steps.run` then
+ends the same way the job did (the same exit code, or killed by the same signal). When the
+job's `steps.run` goes away (Snakemake cancels the job), the supervisor kills the job.
 
 Only the user who started the worker may use it (the socket's peer credentials are checked).
-It ends when the run ends (`onsuccess`/`onerror`) or when the process that started it is gone.
-Jobs on a cluster never see it (the variable is not passed to other machines) and start as
-plain processes, as does any job when the worker cannot be reached.
+It ends when the run ends (`onsuccess`/`onerror`, or the exit handler of the process that
+started it) or when that process is gone. A cluster run ends it before its first job; jobs on a
+cluster never see it (the variable is not passed to other machines) and start as plain
+processes, as does any job when the worker cannot be reached.
 """
 
 from __future__ import annotations

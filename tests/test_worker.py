@@ -159,15 +159,15 @@ def test_a_run_that_starts_no_job_leaves_no_worker(tmp_path: Path):
     directory.mkdir()
     (directory / "override.yaml").write_text(yaml.safe_dump(scenario("demo")), encoding="utf-8")
     command = [sys.executable, "-m", "snakemake", "--snakefile", str(REPO / "Snakefile"), "--directory", str(directory), "--cores", "1"]
-    run_ = subprocess.Popen([*command, "--configfile", str(directory / "override.yaml"), "--dry-run"], stdout=subprocess.DEVNULL, stderr=subprocess.DEVNULL)
-    assert run_.wait(timeout=120) == 0
+    dry = subprocess.Popen([*command, "--configfile", str(directory / "override.yaml"), "--dry-run"], stdout=subprocess.DEVNULL, stderr=subprocess.DEVNULL)
+    assert dry.wait(timeout=120) == 0
     owned = []
     for entry in Path("/proc").iterdir():
         try:
             arguments = (entry / "cmdline").read_bytes().split(b"\0")
         except OSError:
             continue
-        if any(argument.endswith(b".worker") for argument in arguments) and str(run_.pid).encode() in arguments:
+        if any(argument.endswith(b".worker") for argument in arguments) and str(dry.pid).encode() in arguments:
             owned.append(entry.name)
     assert not owned, f"worker processes of the finished run: {owned}"
 
