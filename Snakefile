@@ -24,7 +24,7 @@ from steps.ingest import CorpusError
 # Whatever ends this process ends it too.
 LAUNCHED = worker.launch() if workflow.is_main_process and not os.environ.get("CORPUSMILL_NO_WORKER") else None
 if LAUNCHED:
-    atexit.register(worker.stop, [LAUNCHED.process])
+    atexit.register(worker.stop, LAUNCHED.process)
 
 configfile: os.path.join(workflow.basedir, "workflow_config", "config.yaml")
 
@@ -43,7 +43,6 @@ if workflow.is_main_process:
         os.remove(L.failed_jobs)
 code_hash = plan.code_hash
 module_constant = plan.module_constant
-WORKER = []  # the worker process of this run, once started
 
 
 def literal(text):
@@ -108,9 +107,9 @@ onstart:
     # Jobs on this machine start with their imports done; a cluster's jobs never see the worker
     # and start as plain processes.
     if LAUNCHED and workflow.local_exec:
-        WORKER.extend(worker.ready(LAUNCHED))
+        worker.ready(LAUNCHED)
     elif LAUNCHED:
-        worker.stop([LAUNCHED.process])
+        worker.stop(LAUNCHED.process)
 
 
 def end_rate_timers():
@@ -128,7 +127,8 @@ onsuccess:
     from steps.summary import format_accounting, format_baseline, format_blocks, format_hygiene, format_table
 
     end_rate_timers()
-    worker.stop(WORKER)
+    if LAUNCHED:
+        worker.stop(LAUNCHED.process)
     jobs = list(workflow.dag.jobs)
     if any(job.rule.name == "all" for job in jobs):
         current = [path for job in jobs for path in [*job.input, *job.output, *job.log]] + [L.chunk_list, L.corpus_plan]
@@ -154,7 +154,8 @@ onerror:
     from steps.summary import format_failures
 
     end_rate_timers()
-    worker.stop(WORKER)
+    if LAUNCHED:
+        worker.stop(LAUNCHED.process)
     # After Snakemake's account of the failed jobs: each one's own message, so it is the last thing read.
     if os.path.exists(L.failed_jobs):
         print(format_failures(L.failed_jobs), file=sys.stderr)

@@ -278,24 +278,24 @@ def launch() -> Launched:
     return Launched(process, name)
 
 
-def ready(launched: Launched) -> list:
+def ready(launched: Launched) -> bool:
     """Wait for a launched worker and point this process's environment (which its jobs inherit)
-    at it; [the process], or [] when it does not come up (the jobs then start as plain processes)."""
+    at it; False, the worker ended, when it does not come up (the jobs then start as plain
+    processes)."""
     announcements = cast(IO[bytes], launched.process.stdout)  # a pipe: stdout=PIPE
     if not (select.select([announcements], [], [], 30)[0] and announcements.readline().strip() == b"ready"):
-        stop([launched.process])
-        return []
+        stop(launched.process)
+        return False
     os.environ[ENV] = launched.name
-    return [launched.process]
+    return True
 
 
-def stop(processes: list) -> None:
-    """End the worker of this run (its running jobs are done: the run is over)."""
+def stop(process: subprocess.Popen) -> None:
+    """End the worker of this run (its running jobs are done: the run is over); nothing when it
+    has ended already."""
     os.environ.pop(ENV, None)
-    for process in processes:
-        process.terminate()
-        process.wait()
-    processes.clear()
+    process.terminate()
+    process.wait()
 
 
 def end_like(status: int) -> None:

@@ -143,12 +143,12 @@ def test_a_launched_worker_imports_while_its_caller_goes_on_then_runs_jobs(monke
     try:
         assert not select.select([launched.process.stdout], [], [], 0)[0], "launch waited for the worker"
         assert worker.ENV not in os.environ
-        assert worker.ready(launched) == [launched.process]
+        assert worker.ready(launched) is True
         assert os.environ[worker.ENV] == launched.name
         status, out, _ = run(["deduplicate", "--help"], tmp_path)
         assert status == 0 and out.startswith("usage:")
     finally:
-        worker.stop([launched.process])
+        worker.stop(launched.process)
     assert launched.process.poll() is not None and worker.ENV not in os.environ
 
 
